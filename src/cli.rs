@@ -1,0 +1,203 @@
+//! The command line: raw arguments (clap derive) and their translation into a
+//! validated [`Job`]. The library below never sees the parser.
+
+use crate::error::{Error, Result};
+use crate::pipeline::validate::ColumnNames;
+use crate::pipeline::{load_summary, InvalidRows, Job, Level, ModelKind, PriorSource};
+use clap::{Args, Parser, Subcommand, ValueEnum};
+use std::path::PathBuf;
+
+/// Empirical-Bayes shrinkage of rates over many groups.
+#[derive(Debug, Parser)]
+#[command(name = "ratepool", version, about)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+    /// Worker threads (default: all cores). Output is identical for any value.
+    #[arg(long, global = true)]
+    pub threads: Option<usize>,
+    /// Do not print the summary on the terminal.
+    #[arg(long, global = true)]
+    pub quiet: bool,
+}
+
+/// Subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Fit a prior to all groups and write every group's posterior.
+    Fit(FitArgs),
+    /// Score groups with a prior saved by an earlier fit, without refitting.
+    Score(ScoreArgs),
+}
+
+/// The model names accepted on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ModelArg {
+    /// Successes out of trials, Beta prior.
+    BetaBinomial,
+    /// Events over exposure, Gamma prior.
+    GammaPoisson,
+}
+
+/// What to do with invalid rows.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum InvalidArg {
+    /// Stop at the first invalid row and write nothing.
+    Error,
+    /// Leave invalid rows out and write them to --rejects.
+    Skip,
+}
+
+/// Options shared by fit and score.
+#[derive(Debug, Args)]
+pub struct TableArgs {
+    /// Input table (.csv or .parquet).
+    #[arg(long)]
+    pub input: PathBuf,
+    /// Column holding the group id.
+    #[arg(long)]
+    pub group: String,
+    /// Column of successes (beta-binomial).
+    #[arg(long)]
+    pub successes: Option<String>,
+    /// Column of trials (beta-binomial).
+    #[arg(long)]
+    pub trials: Option<String>,
+    /// Column of events (gamma-poisson).
+    #[arg(long)]
+    pub events: Option<String>,
+    /// Column of exposure: person-time, or expected counts (gamma-poisson).
+    #[arg(long)]
+    pub exposure: Option<String>,
+    /// Output table (.csv or .parquet), written atomically.
+    #[arg(long)]
+    pub output: PathBuf,
+    /// Summary file (JSON), written last.
+    #[arg(long)]
+    pub summary: Option<PathBuf>,
+    /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
+    #[arg(long, default_value_t = 0.95)]
+    pub level: f64,
+    /// What to do with invalid rows.
+    #[arg(long, value_enum, default_value_t = InvalidArg::Error)]
+    pub on_invalid: InvalidArg,
+    /// Where invalid rows go with --on-invalid skip (.csv or .parquet).
+    #[arg(long)]
+    pub rejects: Option<PathBuf>,
+}
+
+/// Options of `fit`.
+#[derive(Debug, Args)]
+pub struct FitArgs {
+    /// The model.
+    #[arg(long, value_enum)]
+    pub model: ModelArg,
+    /// Input, columns and outputs.
+    #[command(flatten)]
+    pub table: TableArgs,
+}
+
+/// Options of `score`.
+#[derive(Debug, Args)]
+pub struct ScoreArgs {
+    /// A summary file written by `ratepool fit`; its prior is reused.
+    #[arg(long)]
+    pub prior: PathBuf,
+    /// The model; must match the prior file's (taken from it if omitted).
+    #[arg(long, value_enum)]
+    pub model: Option<ModelArg>,
+    /// Input, columns and outputs.
+    #[command(flatten)]
+    pub table: TableArgs,
+}
+
+fn model_of(arg: ModelArg) -> ModelKind {
+    match arg {
+        ModelArg::BetaBinomial => ModelKind::BetaBinomial,
+        ModelArg::GammaPoisson => ModelKind::GammaPoisson,
+    }
+}
+
+fn required(value: &Option<String>, flag: &str, model: ModelKind) -> Result<String> {
+    value.clone().ok_or_else(|| Error::Usage(format!("the {} model needs --{flag} COLUMN", model.name())))
+}
+
+fn refuse(value: &Option<String>, flag: &str, model: ModelKind) -> Result<()> {
+    match value {
+        Some(_) => Err(Error::Usage(format!("--{flag} does not apply to the {} model", model.name()))),
+        None => Ok(()),
+    }
+}
+
+fn job_of(table: &TableArgs, model: ModelKind, prior: PriorSource) -> Result<Job> {
+    let (count, size) = match model {
+        ModelKind::BetaBinomial => {
+            refuse(&table.events, "events", model)?;
+            refuse(&table.exposure, "exposure", model)?;
+            (required(&table.successes, "successes", model)?, required(&table.trials, "trials", model)?)
+        }
+        ModelKind::GammaPoisson => {
+            refuse(&table.successes, "successes", model)?;
+            refuse(&table.trials, "trials", model)?;
+            (required(&table.events, "events", model)?, required(&table.exposure, "exposure", model)?)
+        }
+    };
+    let invalid = match (table.on_invalid, &table.rejects) {
+        (InvalidArg::Error, None) => InvalidRows::Fail,
+        (InvalidArg::Error, Some(_)) => {
+            return Err(Error::Usage("--rejects needs --on-invalid skip".to_string()))
+        }
+        (InvalidArg::Skip, Some(path)) => InvalidRows::Skip { rejects: path.clone() },
+        (InvalidArg::Skip, None) => {
+            return Err(Error::Usage("--on-invalid skip needs --rejects FILE".to_string()))
+        }
+    };
+    crate::io::TableFormat::from_path(&table.output)?;
+    Ok(Job {
+        input: table.input.clone(),
+        model,
+        columns: ColumnNames { group: table.group.clone(), count, size },
+        output: table.output.clone(),
+        summary: table.summary.clone(),
+        level: Level::new(table.level)?,
+        invalid,
+        prior,
+    })
+}
+
+impl Command {
+    /// Validates the arguments into a job (reading the prior file for `score`).
+    pub fn into_job(self) -> Result<Job> {
+        match self {
+            Command::Fit(args) => job_of(&args.table, model_of(args.model), PriorSource::Fit),
+            Command::Score(args) => {
+                let summary = load_summary(&args.prior)?;
+                let saved = ModelKind::from_name(&summary.model).ok_or_else(|| {
+                    Error::Input(format!(
+                        "{}: unknown model '{}' in the prior file",
+                        args.prior.display(),
+                        summary.model
+                    ))
+                })?;
+                let model = args.model.map(model_of).unwrap_or(saved);
+                job_of(
+                    &args.table,
+                    model,
+                    PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
+                )
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn the_flag_definitions_are_consistent() {
+        Cli::command().debug_assert();
+    }
+}

@@ -1,0 +1,365 @@
+//! Maximum marginal likelihood: the optimiser glue and the boundary logic.
+//!
+//! The objective is −ℓ(u)/N, the negative log marginal likelihood per group,
+//! in the model's working coordinates, with analytic gradient and Hessian.
+//! argmin's trust region with the Steihaug subproblem takes the steps (it
+//! cannot fail the way a line search can on a flat likelihood); the loop stops
+//! when the gradient is small, then a few safeguarded Newton steps polish the
+//! optimum to machine precision. Convergence is declared only when the
+//! gradient is small *and* the observed information is positive definite.
+//!
+//! The start is the method-of-moments estimate. "No overdispersion" (infinite
+//! strength) is the boundary φ = 1/strength = 0; when the score there is not
+//! positive and no interior point beats it, the fit reports that boundary as
+//! its result: complete pooling at the pooled rate.
+
+use crate::core::model::{Evaluation, Family, Prior, Unidentifiable};
+use crate::core::pairs::{PairTable, WeightedPair};
+use argmin::core::{
+    CostFunction, Error as ArgminError, Executor, Gradient, Hessian, IterState, Problem, Solver, State,
+    TerminationReason, TerminationStatus, KV,
+};
+use argmin::solver::trustregion::{Steihaug, TrustRegion};
+use rayon::prelude::*;
+
+/// Pairs per parallel work unit. Fixed, so that floating-point sums are
+/// grouped the same way whatever the number of threads.
+const CHUNK: usize = 2048;
+/// Stop when the per-group gradient norm falls below this.
+const GRADIENT_TOLERANCE: f64 = 1e-10;
+/// Trust-region iterations before giving up.
+const MAX_ITERATIONS: u64 = 200;
+/// A strength beyond this is indistinguishable from no overdispersion.
+const MAX_STRENGTH: f64 = 1e15;
+/// A strength below this means no pooling at all.
+const MIN_STRENGTH: f64 = 1e-8;
+
+/// Which edge of the parameter space the fit ended on, if any.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Boundary {
+    /// An interior maximum.
+    None,
+    /// The maximum is at infinite strength: no variation beyond binomial/Poisson.
+    NoOverdispersion,
+}
+
+/// Score test for overdispersion at the no-overdispersion boundary.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct OverdispersionTest {
+    /// Standardised statistic (Tarone's Z or Dean's Z).
+    pub statistic: f64,
+    /// One-sided p-value, P(N(0,1) > Z).
+    pub p_value: f64,
+}
+
+/// Result of a fit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Fit {
+    /// The fitted prior, or complete pooling at the boundary.
+    pub prior: Prior,
+    /// Prior mean.
+    pub mean: f64,
+    /// Prior strength; None at the no-overdispersion boundary (infinite).
+    pub strength: Option<f64>,
+    /// Standard errors of the natural parameters (alpha, beta) or (shape, rate).
+    pub natural_se: Option<[f64; 2]>,
+    /// Standard errors of the prior mean and strength.
+    pub mean_se: f64,
+    /// Standard error of the strength, when it is finite.
+    pub strength_se: Option<f64>,
+    /// Full log marginal likelihood at the result.
+    pub log_marginal_likelihood: f64,
+    /// Log marginal likelihood at the method-of-moments start (or the boundary).
+    pub start_log_likelihood: f64,
+    /// Whether the convergence tests passed.
+    pub converged: bool,
+    /// Optimiser iterations, polishing steps included.
+    pub iterations: u64,
+    /// Norm of the per-group gradient at the result (working coordinates).
+    pub gradient_norm: f64,
+    /// Which boundary the fit ended on.
+    pub boundary: Boundary,
+    /// Score test for overdispersion.
+    pub overdispersion: OverdispersionTest,
+}
+
+/// Why a fit produced no prior.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FitFailure {
+    /// The table cannot identify the two hyperparameters.
+    Unidentifiable(Unidentifiable),
+    /// The maximum is at zero strength: the groups share nothing.
+    NoPooling,
+    /// The optimiser did not meet the convergence tests.
+    NotConverged {
+        /// Iterations used.
+        iterations: u64,
+        /// Gradient norm where it stopped.
+        gradient_norm: f64,
+    },
+}
+
+/// Log-likelihood, gradient and Hessian summed over the table at `u`.
+pub fn evaluate<F: Family>(table: &PairTable, u: [f64; 2]) -> Evaluation {
+    let parts: Vec<Evaluation> = table
+        .pairs()
+        .par_chunks(CHUNK)
+        .map(|chunk| {
+            let mut sum = Evaluation::default();
+            for pair in chunk {
+                sum.add_weighted(&F::pair_terms(u, pair), pair.weight);
+            }
+            sum
+        })
+        .collect();
+    let mut total = Evaluation::default();
+    for part in &parts {
+        total.add_weighted(part, 1.0);
+    }
+    total
+}
+
+/// Log marginal likelihood with no overdispersion, at rate `mean`.
+pub fn pooled_log_likelihood<F: Family>(table: &PairTable, mean: f64) -> f64 {
+    table.pairs().iter().map(|p: &WeightedPair| p.weight * F::pooled_log_pmf(mean, p)).sum()
+}
+
+/// Scaled objective handed to argmin.
+struct Objective<'a, F> {
+    table: &'a PairTable,
+    scale: f64,
+    family: std::marker::PhantomData<F>,
+}
+
+impl<F: Family> Objective<'_, F> {
+    fn at(&self, u: &[f64]) -> Evaluation {
+        evaluate::<F>(self.table, [u[0], u[1]])
+    }
+}
+
+impl<F: Family> CostFunction for Objective<'_, F> {
+    type Param = Vec<f64>;
+    type Output = f64;
+    fn cost(&self, u: &Vec<f64>) -> Result<f64, ArgminError> {
+        let value = -self.at(u).log_likelihood * self.scale;
+        // A non-finite trial point is rejected by the trust region as a bad step.
+        Ok(if value.is_finite() { value } else { f64::INFINITY })
+    }
+}
+
+impl<F: Family> Gradient for Objective<'_, F> {
+    type Param = Vec<f64>;
+    type Gradient = Vec<f64>;
+    fn gradient(&self, u: &Vec<f64>) -> Result<Vec<f64>, ArgminError> {
+        let g = self.at(u).gradient;
+        Ok(vec![-g[0] * self.scale, -g[1] * self.scale])
+    }
+}
+
+impl<F: Family> Hessian for Objective<'_, F> {
+    type Param = Vec<f64>;
+    type Hessian = Vec<Vec<f64>>;
+    fn hessian(&self, u: &Vec<f64>) -> Result<Vec<Vec<f64>>, ArgminError> {
+        let h = self.at(u).hessian;
+        Ok(h.iter().map(|row| row.iter().map(|v| -v * self.scale).collect()).collect())
+    }
+}
+
+type TrustState = IterState<Vec<f64>, Vec<f64>, (), Vec<Vec<f64>>, (), f64>;
+
+/// Wraps a solver and stops it once the gradient norm is below a tolerance.
+#[derive(Clone)]
+struct StopOnSmallGradient<S> {
+    inner: S,
+    tolerance: f64,
+}
+
+impl<O, S: Solver<O, TrustState>> Solver<O, TrustState> for StopOnSmallGradient<S> {
+    fn name(&self) -> &str {
+        "trust region (Steihaug) with gradient stop"
+    }
+    fn init(
+        &mut self,
+        problem: &mut Problem<O>,
+        state: TrustState,
+    ) -> Result<(TrustState, Option<KV>), ArgminError> {
+        self.inner.init(problem, state)
+    }
+    fn next_iter(
+        &mut self,
+        problem: &mut Problem<O>,
+        state: TrustState,
+    ) -> Result<(TrustState, Option<KV>), ArgminError> {
+        self.inner.next_iter(problem, state)
+    }
+    fn terminate(&mut self, state: &TrustState) -> TerminationStatus {
+        match state.get_gradient() {
+            Some(g) if norm(g) < self.tolerance => {
+                TerminationStatus::Terminated(TerminationReason::SolverConverged)
+            }
+            _ => self.inner.terminate(state),
+        }
+    }
+}
+
+fn norm(v: &[f64]) -> f64 {
+    v.iter().map(|x| x * x).sum::<f64>().sqrt()
+}
+
+/// Inverse of a 2×2 matrix, if its determinant is usable.
+fn inverse(m: [[f64; 2]; 2]) -> Option<[[f64; 2]; 2]> {
+    let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
+    if !(det.is_finite() && det.abs() > 0.0) {
+        return None;
+    }
+    Some([[m[1][1] / det, -m[0][1] / det], [-m[1][0] / det, m[0][0] / det]])
+}
+
+/// Whether −H (the observed information) is positive definite, judged relative
+/// to its scale so that a numerically flat direction does not pass.
+fn information_is_definite(h: [[f64; 2]; 2]) -> bool {
+    let (a, b, d) = (-h[0][0], -h[0][1], -h[1][1]);
+    let scale = a.abs().max(d.abs());
+    a > 0.0 && d > 0.0 && a * d - b * b > 1e-12 * scale * scale
+}
+
+/// Runs the trust region from `start`, then polishes with Newton steps.
+fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], u64), ArgminError> {
+    let objective = Objective::<F> { table, scale: 1.0 / table.groups(), family: std::marker::PhantomData };
+    let solver = StopOnSmallGradient {
+        inner: TrustRegion::new(Steihaug::new().with_max_iters(20)).with_max_radius(8.0)?,
+        tolerance: GRADIENT_TOLERANCE,
+    };
+    let result = Executor::new(objective, solver)
+        .configure(|state| state.param(start.to_vec()).max_iters(MAX_ITERATIONS))
+        .run()?;
+    let best =
+        result.state().get_best_param().or(result.state().get_param()).cloned().unwrap_or(start.to_vec());
+    let mut u = [best[0], best[1]];
+    let mut iterations = result.state().get_iter();
+    let mut current = evaluate::<F>(table, u);
+    for _ in 0..8 {
+        let Some(inv) = inverse(current.hessian) else { break };
+        if !information_is_definite(current.hessian) {
+            break;
+        }
+        let g = current.gradient;
+        let step = [-(inv[0][0] * g[0] + inv[0][1] * g[1]), -(inv[1][0] * g[0] + inv[1][1] * g[1])];
+        let mut scale = 1.0;
+        let mut accepted = false;
+        for _ in 0..30 {
+            let trial = [u[0] + scale * step[0], u[1] + scale * step[1]];
+            let at = evaluate::<F>(table, trial);
+            if at.log_likelihood.is_finite() && at.log_likelihood >= current.log_likelihood {
+                u = trial;
+                current = at;
+                accepted = true;
+                break;
+            }
+            scale *= 0.5;
+        }
+        iterations += 1;
+        if !accepted || norm(&step) * scale <= 1e-14 * (1.0 + norm(&u)) {
+            break;
+        }
+    }
+    Ok((u, iterations))
+}
+
+/// Fits the prior of family `F` to `table` by maximum marginal likelihood.
+pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
+    F::check_identifiable(table).map_err(FitFailure::Unidentifiable)?;
+    let groups = table.groups();
+    let pooled_mean = F::pooled_mean(table);
+    let z = F::overdispersion_z(table, pooled_mean);
+    let overdispersion = OverdispersionTest {
+        statistic: z,
+        p_value: 0.5 * statrs::function::erf::erfc(z / std::f64::consts::SQRT_2),
+    };
+    let boundary_ll = pooled_log_likelihood::<F>(table, pooled_mean);
+    let boundary_score: f64 =
+        table.pairs().iter().map(|p| p.weight * F::boundary_score_term(pooled_mean, p)).sum();
+
+    // Method-of-moments start; with no overdispersion in the moments, start
+    // where the strength equals a typical group size, to look for an interior
+    // maximum the moments missed.
+    let moment = F::moment_strength(table, pooled_mean);
+    let start_strength = moment.unwrap_or(table.max_size().max(1.0)).clamp(1e-3, 1e10);
+    let start = F::working(pooled_mean, start_strength);
+    let start_ll = evaluate::<F>(table, start).log_likelihood;
+
+    let boundary_fit = |iterations: u64, gradient_norm: f64| Fit {
+        prior: Prior::CompletePooling { mean: pooled_mean },
+        mean: pooled_mean,
+        strength: None,
+        natural_se: None,
+        mean_se: pooled_mean_se::<F>(table, pooled_mean),
+        strength_se: None,
+        log_marginal_likelihood: boundary_ll,
+        start_log_likelihood: if moment.is_some() { start_ll } else { boundary_ll },
+        converged: true,
+        iterations,
+        gradient_norm,
+        boundary: Boundary::NoOverdispersion,
+        overdispersion,
+    };
+
+    let (u, iterations) = match maximise::<F>(table, start) {
+        Ok(found) => found,
+        Err(_) if boundary_score <= 0.0 => return Ok(boundary_fit(0, 0.0)),
+        Err(_) => return Err(FitFailure::NotConverged { iterations: 0, gradient_norm: f64::NAN }),
+    };
+    let at = evaluate::<F>(table, u);
+    let gradient_norm = norm(&at.gradient) / groups;
+    let (mean, strength) = F::mean_strength(u);
+    let interior_ok = gradient_norm < 1e-7 && information_is_definite(at.hessian) && strength <= MAX_STRENGTH;
+    if strength < MIN_STRENGTH {
+        return Err(FitFailure::NoPooling);
+    }
+    if !interior_ok || at.log_likelihood <= boundary_ll {
+        if boundary_score <= 0.0 || strength > MAX_STRENGTH || at.log_likelihood <= boundary_ll {
+            return Ok(boundary_fit(iterations, boundary_score.abs() / groups));
+        }
+        return Err(FitFailure::NotConverged { iterations, gradient_norm });
+    }
+
+    // Observed information → covariance in working coordinates, then the delta method.
+    let cov_u = inverse([[-at.hessian[0][0], -at.hessian[0][1]], [-at.hessian[1][0], -at.hessian[1][1]]])
+        .ok_or(FitFailure::NotConverged { iterations, gradient_norm })?;
+    let delta_se = |j: [[f64; 2]; 2], row: usize| {
+        let v: f64 = (0..2)
+            .flat_map(|p| (0..2).map(move |q| (p, q)))
+            .map(|(p, q)| j[row][p] * cov_u[p][q] * j[row][q])
+            .sum();
+        v.max(0.0).sqrt()
+    };
+    let nj = F::natural_jacobian(u);
+    let mj = F::mean_strength_jacobian(u);
+    let natural = F::natural(u);
+    Ok(Fit {
+        prior: Prior::Conjugate { first: natural[0], second: natural[1] },
+        mean,
+        strength: Some(strength),
+        natural_se: Some([delta_se(nj, 0), delta_se(nj, 1)]),
+        mean_se: delta_se(mj, 0),
+        strength_se: Some(delta_se(mj, 1)),
+        log_marginal_likelihood: at.log_likelihood,
+        start_log_likelihood: start_ll,
+        converged: true,
+        iterations,
+        gradient_norm,
+        boundary: Boundary::None,
+        overdispersion,
+    })
+}
+
+/// Standard error of the pooled rate under no overdispersion (inverse of the
+/// binomial or Poisson information Σ n/(μ(1−μ)) or Σ E/μ).
+fn pooled_mean_se<F: Family>(table: &PairTable, mean: f64) -> f64 {
+    let (size, _) = table.totals();
+    if F::NAME == "beta-binomial" {
+        (mean * (1.0 - mean) / size).sqrt()
+    } else {
+        (mean / size).sqrt()
+    }
+}

@@ -1,0 +1,10 @@
+//! The pure numerical core: special functions, distributions, the two models,
+//! the fit and the posterior summaries. Nothing here reads or writes files.
+
+pub mod diagnostics;
+pub mod fit;
+pub mod incomplete;
+pub mod model;
+pub mod pairs;
+pub mod quantile;
+pub mod special;

@@ -1,0 +1,231 @@
+//! The beta-binomial model for proportions.
+//!
+//! Group i has k_i successes in n_i trials; θ_i ~ Beta(α, β) and
+//! k_i | θ_i ~ Binomial(n_i, θ_i), so k_i ~ BetaBinomial(n_i, α, β) and the
+//! posterior is Beta(α + k_i, β + n_i − k_i). Prior mean μ = α/(α+β), strength
+//! s = α+β, pool weight B_i = s/(s + n_i).
+//!
+//! Working coordinates: u = (logit μ, ln s). The log pmf is written as
+//! ln Binomial(k; n, μ) + R(μs, k) + R((1−μ)s, n−k) − R(s, n) with
+//! R(x, m) = ln Γ(x+m) − ln Γ(x) − m ln x, which vanishes as s → ∞, so the
+//! pmf tends to the binomial smoothly (see `special`).
+
+use super::{Evaluation, Family, Posterior, Prior, Unidentifiable};
+use crate::core::pairs::{PairTable, WeightedPair};
+use crate::core::quantile::{beta_quantile, Tail};
+use crate::core::special::{
+    digamma_diff, ln_binomial_pmf, ln_rising_excess, scaled_digamma_excess, scaled_trigamma_excess,
+    trigamma_diff,
+};
+
+/// The beta-binomial family (see the module docs).
+#[derive(Debug, Clone, Copy, Default)]
+pub struct BetaBinomial;
+
+/// μ and 1 − μ from logit μ, each without cancellation.
+fn mean_and_complement(logit: f64) -> (f64, f64) {
+    if logit >= 0.0 {
+        let e = (-logit).exp();
+        (1.0 / (1.0 + e), e / (1.0 + e))
+    } else {
+        let e = logit.exp();
+        (e / (1.0 + e), 1.0 / (1.0 + e))
+    }
+}
+
+/// ln BetaBinomial(k; n, α, β), the exact log pmf with the binomial coefficient.
+pub fn ln_pmf(k: f64, n: f64, alpha: f64, beta: f64) -> f64 {
+    let s = alpha + beta;
+    ln_binomial_pmf(k, n, alpha / s) + ln_rising_excess(alpha, k) + ln_rising_excess(beta, n - k)
+        - ln_rising_excess(s, n)
+}
+
+impl Family for BetaBinomial {
+    const NAME: &'static str = "beta-binomial";
+
+    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
+        let (n, k) = (pair.size, pair.count);
+        if n == 0.0 {
+            return Evaluation::default();
+        }
+        let (mu, nu) = mean_and_complement(u[0]);
+        let s = u[1].exp();
+        let (a, b) = (mu * s, nu * s);
+        let log_likelihood = ln_binomial_pmf(k, n, mu) + ln_rising_excess(a, k) + ln_rising_excess(b, n - k)
+            - ln_rising_excess(s, n);
+        let c = s * mu * nu;
+        let (dpa, dpb) = (digamma_diff(a, k), digamma_diff(b, n - k));
+        let (tpa, tpb) = (trigamma_diff(a, k), trigamma_diff(b, n - k));
+        let g1 = c * (dpa - dpb);
+        let g2 = scaled_digamma_excess(a, k) + scaled_digamma_excess(b, n - k) - scaled_digamma_excess(s, n);
+        let h11 = c * (1.0 - 2.0 * mu) * (dpa - dpb) + c * c * (tpa + tpb);
+        let h12 = g1 + c * (a * tpa - b * tpb);
+        let h22 =
+            scaled_trigamma_excess(a, k) + scaled_trigamma_excess(b, n - k) - scaled_trigamma_excess(s, n);
+        Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
+    }
+
+    fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64 {
+        ln_binomial_pmf(pair.count, pair.size, mean)
+    }
+
+    fn pooled_mean(table: &PairTable) -> f64 {
+        let (trials, successes) = table.totals();
+        successes / trials
+    }
+
+    fn check_identifiable(table: &PairTable) -> Result<(), Unidentifiable> {
+        let (trials, successes) = table.totals();
+        if trials == 0.0 {
+            return Err(Unidentifiable::NoData);
+        }
+        let mean = successes / trials;
+        if successes == 0.0 || successes == trials {
+            return Err(Unidentifiable::DegenerateMean { mean });
+        }
+        if table.max_size() <= 1.0 {
+            return Err(Unidentifiable::MeanOnly { mean });
+        }
+        Ok(())
+    }
+
+    fn boundary_score_term(mean: f64, pair: &WeightedPair) -> f64 {
+        let (n, k) = (pair.size, pair.count);
+        let d = k - n * mean;
+        (d * d - k * (1.0 - 2.0 * mean) - n * mean * mean) / (2.0 * mean * (1.0 - mean))
+    }
+
+    fn overdispersion_z(table: &PairTable, mean: f64) -> f64 {
+        // Tarone (1979), Biometrika 66:585: Z = (S − Σn) / sqrt(2 Σ n(n−1)),
+        // S = Σ (k − n p)² / (p(1−p)).
+        let (mut s, mut trials, mut pairs_of_trials) = (0.0, 0.0, 0.0);
+        for p in table.pairs() {
+            let d = p.count - p.size * mean;
+            s += p.weight * d * d / (mean * (1.0 - mean));
+            trials += p.weight * p.size;
+            pairs_of_trials += p.weight * p.size * (p.size - 1.0);
+        }
+        if pairs_of_trials <= 0.0 {
+            return 0.0;
+        }
+        (s - trials) / (2.0 * pairs_of_trials).sqrt()
+    }
+
+    fn moment_strength(table: &PairTable, mean: f64) -> Option<f64> {
+        // E Σ(k − nμ)² = μ(1−μ) Σ n (1 + (n−1)ρ), ρ = 1/(1+s) (moment identity of
+        // the beta-binomial; common practice).
+        let (mut s, mut trials, mut pairs_of_trials) = (0.0, 0.0, 0.0);
+        for p in table.pairs() {
+            let d = p.count - p.size * mean;
+            s += p.weight * d * d / (mean * (1.0 - mean));
+            trials += p.weight * p.size;
+            pairs_of_trials += p.weight * p.size * (p.size - 1.0);
+        }
+        let rho = (s - trials) / pairs_of_trials;
+        if rho.is_nan() || rho <= 0.0 {
+            return None;
+        }
+        Some(1.0 / rho.min(0.99) - 1.0)
+    }
+
+    fn working(mean: f64, strength: f64) -> [f64; 2] {
+        [(mean / (1.0 - mean)).ln(), strength.ln()]
+    }
+
+    fn mean_strength(u: [f64; 2]) -> (f64, f64) {
+        (mean_and_complement(u[0]).0, u[1].exp())
+    }
+
+    fn natural(u: [f64; 2]) -> [f64; 2] {
+        let (mu, nu) = mean_and_complement(u[0]);
+        let s = u[1].exp();
+        [mu * s, nu * s]
+    }
+
+    fn natural_jacobian(u: [f64; 2]) -> [[f64; 2]; 2] {
+        let (mu, nu) = mean_and_complement(u[0]);
+        let s = u[1].exp();
+        let c = s * mu * nu;
+        [[c, mu * s], [-c, nu * s]]
+    }
+
+    fn mean_strength_jacobian(u: [f64; 2]) -> [[f64; 2]; 2] {
+        let (mu, nu) = mean_and_complement(u[0]);
+        [[mu * nu, 0.0], [0.0, u[1].exp()]]
+    }
+
+    fn posterior(prior: &Prior, n: f64, k: f64, tail: f64) -> Posterior {
+        match *prior {
+            Prior::CompletePooling { mean } => Posterior::pooled(mean),
+            Prior::Conjugate { first: alpha, second: beta } => {
+                let (a, b) = (alpha + k, beta + (n - k));
+                let s = a + b;
+                let (mean, complement) = (a / s, b / s);
+                Posterior {
+                    mean,
+                    sd: (mean * complement / (s + 1.0)).sqrt(),
+                    lower: beta_quantile(a, b, Tail::Lower, tail),
+                    upper: beta_quantile(a, b, Tail::Upper, tail),
+                    pool_weight: (alpha + beta) / (alpha + beta + n),
+                    first: Some(a),
+                    second: Some(b),
+                }
+            }
+        }
+    }
+}
+
+impl Posterior {
+    /// The posterior under complete pooling: a point mass at the pooled rate.
+    pub fn pooled(mean: f64) -> Self {
+        Posterior { mean, sd: 0.0, lower: mean, upper: mean, pool_weight: 1.0, first: None, second: None }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn central_difference(u: [f64; 2], pair: &WeightedPair, i: usize) -> ([f64; 2], f64) {
+        let h = 1e-5;
+        let mut up = u;
+        let mut down = u;
+        up[i] += h;
+        down[i] -= h;
+        let (eu, ed) = (BetaBinomial::pair_terms(up, pair), BetaBinomial::pair_terms(down, pair));
+        let grad_row =
+            [(eu.gradient[0] - ed.gradient[0]) / (2.0 * h), (eu.gradient[1] - ed.gradient[1]) / (2.0 * h)];
+        (grad_row, (eu.log_likelihood - ed.log_likelihood) / (2.0 * h))
+    }
+
+    #[test]
+    fn derivatives_match_finite_differences() {
+        for &(n, k) in &[(12.0, 5.0), (300.0, 7.0), (40.0, 40.0), (1.0, 0.0)] {
+            let pair = WeightedPair { size: n, count: k, weight: 1.0 };
+            for &u in &[[0.3, 1.5], [-2.0, 4.0], [1.0, -0.5]] {
+                let e = BetaBinomial::pair_terms(u, &pair);
+                for i in 0..2 {
+                    let (hess_row, grad) = central_difference(u, &pair, i);
+                    assert!(
+                        (e.gradient[i] - grad).abs() < 1e-6 * (1.0 + grad.abs()),
+                        "g{i} n={n} k={k} u={u:?}"
+                    );
+                    for (j, fd) in hess_row.iter().enumerate() {
+                        assert!((e.hessian[j][i] - fd).abs() < 1e-5 * (1.0 + fd.abs()));
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn pmf_sums_to_one_and_reaches_the_binomial_limit() {
+        let total: f64 = (0..=25).map(|k| ln_pmf(f64::from(k), 25.0, 0.7, 2.1).exp()).sum();
+        assert!((total - 1.0).abs() < 1e-13);
+        // As α + β → ∞ at fixed mean, the beta-binomial tends to the binomial
+        // (common practice); at s = 1e15 the difference is O(n²/s).
+        let limit = ln_binomial_pmf(30.0, 100.0, 0.25);
+        let near = ln_pmf(30.0, 100.0, 0.25e15, 0.75e15);
+        assert!((near - limit).abs() < 1e-11);
+    }
+}

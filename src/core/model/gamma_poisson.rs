@@ -1,0 +1,187 @@
+//! The gamma-Poisson model for event rates with exposure.
+//!
+//! Group i has y_i events over exposure E_i (person-years, or expected counts
+//! for standardised ratios); λ_i ~ Gamma(shape a, rate b) and
+//! y_i | λ_i ~ Poisson(E_i λ_i), so y_i is negative binomial and the posterior
+//! is Gamma(a + y_i, b + E_i). Prior mean μ = a/b, strength b, pool weight
+//! B_i = b/(b + E_i).
+//!
+//! Working coordinates: u = (ln μ, ln a). With λ = Eμ and t = λ/a the log pmf
+//! is ln Poisson(y; λ) + R(a, y) − a[ln(1+t) − t] − y ln(1+t), each extra term
+//! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
+
+use super::{Evaluation, Family, Posterior, Prior, Unidentifiable};
+use crate::core::pairs::{PairTable, WeightedPair};
+use crate::core::quantile::{gamma_quantile, Tail};
+use crate::core::special::{
+    ln_poisson_pmf, ln_rising_excess, log1p_minus, scaled_digamma_excess, scaled_trigamma_excess,
+};
+
+/// The gamma-Poisson family (see the module docs).
+#[derive(Debug, Clone, Copy, Default)]
+pub struct GammaPoisson;
+
+/// ln NegativeBinomial(y) of a Gamma(shape, rate) mixture of Poisson(E λ).
+pub fn ln_pmf(y: f64, exposure: f64, shape: f64, rate: f64) -> f64 {
+    let lambda = exposure * shape / rate;
+    let t = exposure / rate;
+    ln_poisson_pmf(y, lambda) + ln_rising_excess(shape, y) - shape * log1p_minus(t) - y * t.ln_1p()
+}
+
+impl Family for GammaPoisson {
+    const NAME: &'static str = "gamma-poisson";
+
+    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
+        let (exposure, y) = (pair.size, pair.count);
+        if exposure == 0.0 {
+            return Evaluation::default();
+        }
+        let (mu, a) = (u[0].exp(), u[1].exp());
+        let lambda = exposure * mu;
+        let t = lambda / a;
+        let q = 1.0 / (1.0 + t);
+        let excess = log1p_minus(t);
+        let log_likelihood = ln_poisson_pmf(y, lambda) + ln_rising_excess(a, y) - a * excess - y * t.ln_1p();
+        let residual = y - lambda;
+        let g1 = residual * q;
+        let g2 = scaled_digamma_excess(a, y) - a * excess + residual * t * q;
+        let h11 = -lambda * q - residual * t * q * q;
+        let h12 = residual * t * q * q;
+        let h22 = scaled_trigamma_excess(a, y) - a * excess - lambda * t * q - residual * t * q * q;
+        Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
+    }
+
+    fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64 {
+        ln_poisson_pmf(pair.count, pair.size * mean)
+    }
+
+    fn pooled_mean(table: &PairTable) -> f64 {
+        let (exposure, events) = table.totals();
+        events / exposure
+    }
+
+    fn check_identifiable(table: &PairTable) -> Result<(), Unidentifiable> {
+        let (exposure, events) = table.totals();
+        if exposure == 0.0 {
+            return Err(Unidentifiable::NoData);
+        }
+        if events == 0.0 {
+            return Err(Unidentifiable::DegenerateMean { mean: 0.0 });
+        }
+        Ok(())
+    }
+
+    fn boundary_score_term(mean: f64, pair: &WeightedPair) -> f64 {
+        let d = pair.count - pair.size * mean;
+        0.5 * (d * d - pair.count)
+    }
+
+    fn overdispersion_z(table: &PairTable, mean: f64) -> f64 {
+        // Dean (1992), JASA 87:451, the score test of Poisson against the
+        // negative binomial: Z = Σ[(y − λ)² − y] / sqrt(2 Σ λ²).
+        let (mut num, mut den) = (0.0, 0.0);
+        for p in table.pairs() {
+            let lambda = p.size * mean;
+            num += p.weight * ((p.count - lambda).powi(2) - p.count);
+            den += p.weight * lambda * lambda;
+        }
+        if den <= 0.0 {
+            return 0.0;
+        }
+        num / (2.0 * den).sqrt()
+    }
+
+    fn moment_strength(table: &PairTable, mean: f64) -> Option<f64> {
+        // E Σ(y − λ)² = Σ(λ + λ²/a) for the negative binomial (common practice).
+        let (mut num, mut den) = (0.0, 0.0);
+        for p in table.pairs() {
+            let lambda = p.size * mean;
+            num += p.weight * ((p.count - lambda).powi(2) - p.count);
+            den += p.weight * lambda * lambda;
+        }
+        let inverse_shape = num / den;
+        if inverse_shape.is_nan() || inverse_shape <= 0.0 {
+            return None;
+        }
+        Some(1.0 / (inverse_shape * mean))
+    }
+
+    fn working(mean: f64, strength: f64) -> [f64; 2] {
+        [mean.ln(), (mean * strength).ln()]
+    }
+
+    fn mean_strength(u: [f64; 2]) -> (f64, f64) {
+        (u[0].exp(), (u[1] - u[0]).exp())
+    }
+
+    fn natural(u: [f64; 2]) -> [f64; 2] {
+        [u[1].exp(), (u[1] - u[0]).exp()]
+    }
+
+    fn natural_jacobian(u: [f64; 2]) -> [[f64; 2]; 2] {
+        let (a, b) = (u[1].exp(), (u[1] - u[0]).exp());
+        [[0.0, a], [-b, b]]
+    }
+
+    fn mean_strength_jacobian(u: [f64; 2]) -> [[f64; 2]; 2] {
+        let b = (u[1] - u[0]).exp();
+        [[u[0].exp(), 0.0], [-b, b]]
+    }
+
+    fn posterior(prior: &Prior, exposure: f64, y: f64, tail: f64) -> Posterior {
+        match *prior {
+            Prior::CompletePooling { mean } => Posterior::pooled(mean),
+            Prior::Conjugate { first: shape, second: rate } => {
+                let (a, b) = (shape + y, rate + exposure);
+                Posterior {
+                    mean: a / b,
+                    sd: a.sqrt() / b,
+                    lower: gamma_quantile(a, Tail::Lower, tail) / b,
+                    upper: gamma_quantile(a, Tail::Upper, tail) / b,
+                    pool_weight: rate / (rate + exposure),
+                    first: Some(a),
+                    second: Some(b),
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn derivatives_match_finite_differences() {
+        let h = 1e-5;
+        for &(e, y) in &[(2.5, 3.0), (0.01, 0.0), (400.0, 250.0), (1.0, 40.0)] {
+            let pair = WeightedPair { size: e, count: y, weight: 1.0 };
+            for &u in &[[0.1, 0.5], [-1.0, 3.0], [0.5, -1.0]] {
+                let at = GammaPoisson::pair_terms(u, &pair);
+                for i in 0..2 {
+                    let (mut up, mut down) = (u, u);
+                    up[i] += h;
+                    down[i] -= h;
+                    let (eu, ed) =
+                        (GammaPoisson::pair_terms(up, &pair), GammaPoisson::pair_terms(down, &pair));
+                    let g = (eu.log_likelihood - ed.log_likelihood) / (2.0 * h);
+                    assert!((at.gradient[i] - g).abs() < 1e-6 * (1.0 + g.abs()), "g{i} e={e} y={y} u={u:?}");
+                    for j in 0..2 {
+                        let hij = (eu.gradient[j] - ed.gradient[j]) / (2.0 * h);
+                        assert!((at.hessian[j][i] - hij).abs() < 1e-5 * (1.0 + hij.abs()));
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn pmf_sums_to_one_and_reaches_the_poisson_limit() {
+        let total: f64 = (0..400).map(|y| ln_pmf(f64::from(y), 3.0, 1.7, 0.4).exp()).sum();
+        assert!((total - 1.0).abs() < 1e-12);
+        // Gamma(a, a/μ) → point mass at μ as a → ∞, so the negative binomial tends
+        // to the Poisson (common practice).
+        let limit = ln_poisson_pmf(12.0, 2.0 * 4.5);
+        assert!((ln_pmf(12.0, 2.0, 4.5e15, 1e15) - limit).abs() < 1e-11);
+    }
+}

@@ -1,0 +1,127 @@
+//! The sufficient statistic of a fit: distinct (size, count) pairs with the
+//! number of groups that share each one.
+//!
+//! For the beta-binomial the size is the number of trials and the count the
+//! number of successes; for the gamma-Poisson the size is the exposure and the
+//! count the number of events. The marginal likelihood, its derivatives and
+//! every posterior depend on the data only through this table, so the work of
+//! a fit follows the number of distinct pairs, not the number of groups.
+
+use std::collections::HashMap;
+
+/// One distinct observation and how many groups share it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct WeightedPair {
+    /// Trials (beta-binomial) or exposure (gamma-Poisson).
+    pub size: f64,
+    /// Successes or events.
+    pub count: f64,
+    /// Number of groups with exactly this pair.
+    pub weight: f64,
+}
+
+/// Distinct pairs in a fixed order (ascending size, then count), so every sum
+/// over the table is the same whatever order the groups arrived in.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct PairTable {
+    pairs: Vec<WeightedPair>,
+}
+
+/// Key of a pair: sizes are compared by their bits, so equal doubles meet.
+type PairKey = (u64, u64);
+
+fn key(size: f64, count: f64) -> PairKey {
+    (size.to_bits(), count.to_bits())
+}
+
+impl PairTable {
+    /// Builds the table from already weighted pairs (for example the output
+    /// of a SQL `GROUP BY`); pairs that repeat are merged.
+    pub fn from_weighted(pairs: impl IntoIterator<Item = WeightedPair>) -> Self {
+        let mut merged: HashMap<PairKey, WeightedPair> = HashMap::new();
+        for pair in pairs {
+            merged
+                .entry(key(pair.size, pair.count))
+                .and_modify(|existing| existing.weight += pair.weight)
+                .or_insert(pair);
+        }
+        let mut pairs: Vec<WeightedPair> = merged.into_values().collect();
+        pairs.sort_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
+        PairTable { pairs }
+    }
+
+    /// Builds the table from one (size, count) per group, and returns beside it
+    /// the index of each group's pair in the table, for fanning posteriors out.
+    pub fn from_groups(sizes: &[f64], counts: &[f64]) -> (Self, Vec<u32>) {
+        let mut index_of: HashMap<PairKey, usize> = HashMap::new();
+        let mut first_seen: Vec<WeightedPair> = Vec::new();
+        let mut group_slot = Vec::with_capacity(sizes.len());
+        for (&size, &count) in sizes.iter().zip(counts) {
+            let slot = *index_of.entry(key(size, count)).or_insert_with(|| {
+                first_seen.push(WeightedPair { size, count, weight: 0.0 });
+                first_seen.len() - 1
+            });
+            first_seen[slot].weight += 1.0;
+            group_slot.push(slot);
+        }
+        // Sort, then translate each group's slot to its sorted position.
+        let mut order: Vec<usize> = (0..first_seen.len()).collect();
+        order.sort_by(|&x, &y| {
+            let (x, y) = (&first_seen[x], &first_seen[y]);
+            x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count))
+        });
+        let mut position = vec![0u32; order.len()];
+        for (sorted, &slot) in order.iter().enumerate() {
+            position[slot] = sorted as u32;
+        }
+        let pairs = order.iter().map(|&slot| first_seen[slot]).collect();
+        let group_index = group_slot.into_iter().map(|slot| position[slot]).collect();
+        (PairTable { pairs }, group_index)
+    }
+
+    /// The distinct pairs, in table order.
+    pub fn pairs(&self) -> &[WeightedPair] {
+        &self.pairs
+    }
+
+    /// Number of groups represented (sum of weights).
+    pub fn groups(&self) -> f64 {
+        self.pairs.iter().map(|p| p.weight).sum()
+    }
+
+    /// Σ weight · size and Σ weight · count.
+    pub fn totals(&self) -> (f64, f64) {
+        self.pairs.iter().fold((0.0, 0.0), |(s, c), p| (s + p.weight * p.size, c + p.weight * p.count))
+    }
+
+    /// Largest size in the table (0 for an empty table).
+    pub fn max_size(&self) -> f64 {
+        self.pairs.iter().map(|p| p.size).fold(0.0, f64::max)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn equal_pairs_merge_and_groups_point_at_their_pair() {
+        let (table, index) = PairTable::from_groups(&[10.0, 3.0, 10.0, 3.0], &[2.0, 1.0, 2.0, 0.0]);
+        assert_eq!(table.pairs().len(), 3);
+        assert_eq!(table.groups(), 4.0);
+        for (g, &slot) in index.iter().enumerate() {
+            let pair = table.pairs()[slot as usize];
+            assert_eq!((pair.size, pair.count), ([10.0, 3.0, 10.0, 3.0][g], [2.0, 1.0, 2.0, 0.0][g]));
+        }
+        assert_eq!(table.pairs()[2].weight, 2.0);
+    }
+
+    #[test]
+    fn weighted_input_merges_repeats() {
+        let table = PairTable::from_weighted([
+            WeightedPair { size: 5.0, count: 1.0, weight: 3.0 },
+            WeightedPair { size: 5.0, count: 1.0, weight: 2.0 },
+        ]);
+        assert_eq!(table.pairs(), &[WeightedPair { size: 5.0, count: 1.0, weight: 5.0 }]);
+    }
+}

@@ -1,0 +1,36 @@
+//! I/O adapters: the only code that touches polars or the file system.
+//!
+//! Tables are read and written as CSV or Parquet, chosen by the file
+//! extension. Every output goes through [`atomic`], so a reader never sees a
+//! partial file.
+
+pub mod atomic;
+pub mod frame;
+pub mod table;
+
+use crate::error::{Error, Result};
+use std::path::Path;
+
+/// On-disk table formats.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TableFormat {
+    /// Comma-separated values with a header row.
+    Csv,
+    /// Apache Parquet.
+    Parquet,
+}
+
+impl TableFormat {
+    /// The format named by a path's extension (`.csv`, `.parquet` or `.pq`).
+    pub fn from_path(path: &Path) -> Result<Self> {
+        let extension = path.extension().and_then(|e| e.to_str()).map(str::to_ascii_lowercase);
+        match extension.as_deref() {
+            Some("csv") => Ok(TableFormat::Csv),
+            Some("parquet") | Some("pq") => Ok(TableFormat::Parquet),
+            _ => Err(Error::Usage(format!(
+                "{}: unknown table format; use a .csv or .parquet file name",
+                path.display()
+            ))),
+        }
+    }
+}

@@ -1,0 +1,46 @@
+//! Reading and writing whole tables with polars (pinned at 0.55.2).
+//!
+//! CSV is read with every column as text, so that each value can be checked
+//! and reported with its row and column by the validation step instead of
+//! failing inside the parser; Parquet keeps its stored types.
+
+use super::atomic::write_atomically;
+use super::TableFormat;
+use crate::error::{Error, Result};
+use polars::prelude::*;
+use std::path::Path;
+
+/// Reads a CSV or Parquet file into a data frame.
+pub fn read_table(path: &Path) -> Result<DataFrame> {
+    let format = TableFormat::from_path(path)?;
+    if !path.exists() {
+        return Err(Error::Input(format!("{}: no such file", path.display())));
+    }
+    let result = match format {
+        TableFormat::Csv => CsvReadOptions::default()
+            .with_has_header(true)
+            .with_infer_schema_length(Some(0))
+            .with_raise_if_empty(true)
+            .try_into_reader_with_file_path(Some(path.to_path_buf()))
+            .and_then(|reader| reader.finish()),
+        TableFormat::Parquet => std::fs::File::open(path)
+            .map_err(PolarsError::from)
+            .and_then(|file| ParquetReader::new(file).finish()),
+    };
+    result.map_err(|e| Error::Input(format!("{}: cannot read the table: {e}", path.display())))
+}
+
+/// Writes a data frame to CSV or Parquet (by extension), atomically.
+pub fn write_table(frame: &mut DataFrame, path: &Path) -> Result<()> {
+    let format = TableFormat::from_path(path)?;
+    write_atomically(path, |file| {
+        let written = match format {
+            TableFormat::Csv => CsvWriter::new(&mut *file).include_header(true).finish(frame),
+            TableFormat::Parquet => ParquetWriter::new(&mut *file)
+                .with_compression(ParquetCompression::Zstd(None))
+                .finish(frame)
+                .map(|_| ()),
+        };
+        written.map_err(|e| Error::Other(format!("{}: cannot write the table: {e}", path.display())))
+    })
+}

@@ -1,0 +1,35 @@
+//! The `ratepool` binary: parse, run, print, map the outcome to an exit code
+//! (0 success, 2 bad usage or input, 3 model not fitted, 1 anything else).
+
+use clap::Parser;
+use ratepool::cli::Cli;
+use std::process::ExitCode;
+
+fn run(cli: Cli) -> ratepool::error::Result<()> {
+    if let Some(threads) = cli.threads {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads.max(1))
+            .build_global()
+            .map_err(|e| ratepool::error::Error::Other(format!("cannot start {threads} threads: {e}")))?;
+    }
+    let quiet = cli.quiet;
+    let job = cli.command.into_job()?;
+    let summary = ratepool::pipeline::run(&job)?;
+    for warning in &summary.warnings {
+        eprintln!("ratepool: warning: {warning}");
+    }
+    if !quiet {
+        print!("{}", ratepool::report::render_text(&summary));
+    }
+    Ok(())
+}
+
+fn main() -> ExitCode {
+    match run(Cli::parse()) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(error) => {
+            eprintln!("ratepool: error: {error}");
+            ExitCode::from(error.exit_code() as u8)
+        }
+    }
+}

@@ -1,0 +1,215 @@
+//! Row validation rules: which input rows can be scored, and why the others
+//! cannot. Pure functions over cells; the I/O layer supplies the cells.
+
+use crate::io::frame::Cell;
+use std::collections::HashMap;
+
+/// Counts above 2^53 cannot all be held exactly in a double.
+pub const MAX_EXACT_COUNT: f64 = 9_007_199_254_740_992.0;
+
+/// The two count columns of a model, in domain terms.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SizeKind {
+    /// Number of trials: a whole number ≥ 0.
+    Trials,
+    /// Exposure: a number ≥ 0, and > 0 when there are events.
+    Exposure,
+}
+
+/// A rejected row.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Rejection {
+    /// 0-based input row.
+    pub row: usize,
+    /// Column at fault.
+    pub column: String,
+    /// What is wrong.
+    pub reason: String,
+}
+
+/// Rows that passed, with their sizes and counts.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ValidRows {
+    /// 0-based input rows, in input order.
+    pub rows: Vec<u32>,
+    /// Trials or exposure per kept row.
+    pub sizes: Vec<f64>,
+    /// Successes or events per kept row.
+    pub counts: Vec<f64>,
+}
+
+/// Names of the input columns in play.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ColumnNames {
+    /// Group id column.
+    pub group: String,
+    /// Successes or events column.
+    pub count: String,
+    /// Trials or exposure column.
+    pub size: String,
+}
+
+fn describe(cell: &Cell) -> String {
+    match cell {
+        Cell::Missing => "missing".to_string(),
+        Cell::Integer(v) => v.to_string(),
+        Cell::Number(v) => v.to_string(),
+        Cell::Text(t) => format!("'{t}'"),
+    }
+}
+
+/// A whole, non-negative, exactly representable count.
+fn whole_count(cell: &Cell) -> Result<f64, String> {
+    match *cell {
+        Cell::Missing => Err("missing value".to_string()),
+        Cell::Text(ref t) => Err(format!("'{t}' is not a number")),
+        Cell::Integer(v) if v < 0 => Err(format!("{v} is negative")),
+        Cell::Integer(v) if v > 1i128 << 53 => {
+            Err(format!("{v} exceeds 2^53, the largest count held exactly"))
+        }
+        Cell::Integer(v) => Ok(v as f64),
+        Cell::Number(v) if !v.is_finite() => Err(format!("{v} is not a finite number")),
+        Cell::Number(v) if v < 0.0 => Err(format!("{v} is negative")),
+        Cell::Number(v) if v.fract() != 0.0 => Err(format!("{v} is not a whole number")),
+        Cell::Number(v) if v > MAX_EXACT_COUNT => {
+            Err(format!("{v} exceeds 2^53, the largest count held exactly"))
+        }
+        Cell::Number(v) => Ok(v),
+    }
+}
+
+/// A finite, non-negative exposure.
+fn exposure(cell: &Cell) -> Result<f64, String> {
+    match *cell {
+        Cell::Integer(v) if v < 0 => Err(format!("exposure {v} is negative")),
+        Cell::Integer(v) => Ok(v as f64),
+        Cell::Number(v) if !v.is_finite() => Err(format!("{v} is not a finite number")),
+        Cell::Number(v) if v < 0.0 => Err(format!("exposure {v} is negative")),
+        Cell::Number(v) => Ok(v),
+        ref other => whole_count(other),
+    }
+}
+
+/// Checks every row; returns the good rows and the rejections (first fault
+/// of each bad row), both in input order. A repeated group id rejects every
+/// occurrence after the first.
+pub fn validate(
+    names: &ColumnNames,
+    kind: SizeKind,
+    groups: &[Option<String>],
+    counts: &[Cell],
+    sizes: &[Cell],
+) -> (ValidRows, Vec<Rejection>) {
+    let mut valid = ValidRows::default();
+    let mut rejected = Vec::new();
+    let mut first_row: HashMap<&str, usize> = HashMap::with_capacity(groups.len());
+    for row in 0..groups.len() {
+        let problem = check_row(names, kind, row, groups, counts, sizes, &mut first_row);
+        match problem {
+            Ok((size, count)) => {
+                valid.rows.push(row as u32);
+                valid.sizes.push(size);
+                valid.counts.push(count);
+            }
+            Err((column, reason)) => rejected.push(Rejection { row, column: column.to_string(), reason }),
+        }
+    }
+    (valid, rejected)
+}
+
+fn check_row<'a>(
+    names: &'a ColumnNames,
+    kind: SizeKind,
+    row: usize,
+    groups: &'a [Option<String>],
+    counts: &[Cell],
+    sizes: &[Cell],
+    first_row: &mut HashMap<&'a str, usize>,
+) -> Result<(f64, f64), (&'a str, String)> {
+    let Some(id) = groups[row].as_deref() else {
+        return Err((&names.group, "group id is missing".to_string()));
+    };
+    if let Some(&first) = first_row.get(id) {
+        return Err((&names.group, format!("duplicate group id '{id}' (first at row {})", first + 1)));
+    }
+    first_row.insert(id, row);
+    let size = match kind {
+        SizeKind::Trials => whole_count(&sizes[row]),
+        SizeKind::Exposure => exposure(&sizes[row]),
+    }
+    .map_err(|reason| (names.size.as_str(), reason))?;
+    let count = whole_count(&counts[row]).map_err(|reason| (names.count.as_str(), reason))?;
+    match kind {
+        SizeKind::Trials if count > size => Err((
+            names.count.as_str(),
+            format!("{} successes exceed {} trials", describe(&counts[row]), describe(&sizes[row])),
+        )),
+        SizeKind::Exposure if size == 0.0 && count > 0.0 => Err((
+            names.size.as_str(),
+            format!("exposure is zero but there are {} events", describe(&counts[row])),
+        )),
+        _ => Ok((size, count)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn names() -> ColumnNames {
+        ColumnNames { group: "g".into(), count: "k".into(), size: "n".into() }
+    }
+
+    #[test]
+    fn each_fault_is_named_with_its_column() {
+        let groups = vec![
+            Some("a".into()),
+            None,
+            Some("c".into()),
+            Some("a".into()),
+            Some("e".into()),
+            Some("f".into()),
+        ];
+        let counts = vec![
+            Cell::Integer(1),
+            Cell::Integer(1),
+            Cell::Integer(5),
+            Cell::Integer(0),
+            Cell::Number(0.5),
+            Cell::Integer(1),
+        ];
+        let sizes = vec![
+            Cell::Integer(3),
+            Cell::Integer(3),
+            Cell::Integer(4),
+            Cell::Integer(3),
+            Cell::Integer(2),
+            Cell::Text("x".into()),
+        ];
+        let (valid, rejected) = validate(&names(), SizeKind::Trials, &groups, &counts, &sizes);
+        assert_eq!(valid.rows, vec![0]);
+        let summary: Vec<(usize, &str)> = rejected.iter().map(|r| (r.row, r.column.as_str())).collect();
+        assert_eq!(summary, vec![(1, "g"), (2, "k"), (3, "g"), (4, "k"), (5, "n")]);
+        assert!(rejected[2].reason.contains("first at row 1"));
+    }
+
+    #[test]
+    fn exposure_may_be_zero_only_without_events() {
+        let groups = vec![Some("a".into()), Some("b".into())];
+        let (valid, rejected) = validate(
+            &names(),
+            SizeKind::Exposure,
+            &groups,
+            &[Cell::Integer(0), Cell::Integer(2)],
+            &[Cell::Number(0.0), Cell::Number(0.0)],
+        );
+        assert_eq!(valid.rows, vec![0]);
+        assert_eq!(rejected[0].column, "n");
+    }
+
+    #[test]
+    fn counts_beyond_two_to_the_53_are_refused() {
+        assert!(whole_count(&Cell::Integer(9_007_199_254_740_993)).is_err());
+        assert_eq!(whole_count(&Cell::Integer(9_007_199_254_740_992)), Ok(MAX_EXACT_COUNT));
+    }
+}

@@ -1,0 +1,214 @@
+//! The run summary: its JSON wire format (written last, so its presence means
+//! the table beside it is complete) and the short text shown on the terminal.
+//!
+//! These types are the file format; the numerical core never sees them.
+
+use serde::{Deserialize, Serialize};
+use std::fmt::Write;
+
+/// The whole summary file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Summary {
+    /// "beta-binomial" or "gamma-poisson".
+    pub model: String,
+    /// Groups scored.
+    pub groups: u64,
+    /// Data rows in the input.
+    pub rows_read: u64,
+    /// Rows rejected by validation (only with `--on-invalid skip`).
+    pub rows_rejected: u64,
+    /// Credible level of the intervals.
+    pub level: f64,
+    /// The prior.
+    pub hyperprior: Hyperprior,
+    /// How the prior was obtained.
+    pub fit: FitReport,
+    /// How far the groups were pulled toward the pool.
+    pub pull: PullReport,
+    /// Conditions a reader must know about (boundary results, rejected rows).
+    pub warnings: Vec<String>,
+}
+
+/// The prior, in the parameters of its model.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(untagged)]
+pub enum Hyperprior {
+    /// Beta(alpha, beta) of the beta-binomial.
+    Beta(BetaPrior),
+    /// Gamma(shape, rate) of the gamma-Poisson.
+    Gamma(GammaPrior),
+}
+
+/// Beta prior; alpha and beta are null under complete pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BetaPrior {
+    /// α.
+    pub alpha: Option<f64>,
+    /// β.
+    pub beta: Option<f64>,
+    /// Standard error of α (observed information).
+    pub alpha_se: Option<f64>,
+    /// Standard error of β.
+    pub beta_se: Option<f64>,
+    /// Prior mean α/(α+β).
+    pub mean: f64,
+    /// Standard error of the mean.
+    pub mean_se: f64,
+    /// Strength α+β; null when infinite (no overdispersion).
+    pub strength: Option<f64>,
+    /// Standard error of the strength.
+    pub strength_se: Option<f64>,
+}
+
+/// Gamma prior; shape and rate are null under complete pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GammaPrior {
+    /// Shape a.
+    pub shape: Option<f64>,
+    /// Rate b.
+    pub rate: Option<f64>,
+    /// Standard error of the shape.
+    pub shape_se: Option<f64>,
+    /// Standard error of the rate.
+    pub rate_se: Option<f64>,
+    /// Prior mean a/b.
+    pub mean: f64,
+    /// Standard error of the mean.
+    pub mean_se: f64,
+    /// Strength b (in units of exposure); null when infinite.
+    pub strength: Option<f64>,
+    /// Standard error of the strength.
+    pub strength_se: Option<f64>,
+}
+
+/// The optimiser's account of the fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitReport {
+    /// "fit" when fitted in this run, otherwise the prior file it came from.
+    pub source: String,
+    /// Full log probability of the data at the result (normalising constants included).
+    pub log_marginal_likelihood: f64,
+    /// The same at the method-of-moments start.
+    pub start_log_marginal_likelihood: f64,
+    /// Whether the convergence tests passed.
+    pub converged: bool,
+    /// Iterations used.
+    pub iterations: u64,
+    /// Per-group gradient norm at the result.
+    pub gradient_norm: f64,
+    /// "none" or "no-overdispersion".
+    pub boundary: String,
+    /// Score test for overdispersion.
+    pub overdispersion_test: TestReport,
+}
+
+/// A test statistic with its p-value.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TestReport {
+    /// Name of the test.
+    pub name: String,
+    /// Standardised statistic.
+    pub statistic: f64,
+    /// One-sided p-value.
+    pub p_value: f64,
+}
+
+/// Pull toward the pool.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PullReport {
+    /// Mean pool weight.
+    pub pool_weight_mean: f64,
+    /// Median pool weight.
+    pub pool_weight_median: f64,
+    /// 10th percentile of the pool weight.
+    pub pool_weight_p10: f64,
+    /// 90th percentile of the pool weight.
+    pub pool_weight_p90: f64,
+    /// Mean |posterior mean − raw rate|.
+    pub mean_abs_shift: Option<f64>,
+    /// Largest |posterior mean − raw rate|.
+    pub max_abs_shift: Option<f64>,
+    /// Group id with the largest shift.
+    pub max_shift_group: Option<String>,
+    /// Spearman correlation of the raw and posterior-mean rankings.
+    pub rank_correlation: Option<f64>,
+}
+
+impl Hyperprior {
+    /// Prior mean.
+    pub fn mean(&self) -> f64 {
+        match self {
+            Hyperprior::Beta(p) => p.mean,
+            Hyperprior::Gamma(p) => p.mean,
+        }
+    }
+
+    /// Prior strength, None when infinite.
+    pub fn strength(&self) -> Option<f64> {
+        match self {
+            Hyperprior::Beta(p) => p.strength,
+            Hyperprior::Gamma(p) => p.strength,
+        }
+    }
+}
+
+fn show(value: Option<f64>) -> String {
+    value.map_or_else(|| "n/a".to_string(), |v| format!("{v:.4}"))
+}
+
+/// The terminal version of a summary.
+pub fn render_text(summary: &Summary) -> String {
+    let mut out = String::new();
+    let prior = &summary.hyperprior;
+    let _ = writeln!(
+        out,
+        "ratepool {}: {} groups scored ({} rows read, {} rejected)",
+        summary.model, summary.groups, summary.rows_read, summary.rows_rejected
+    );
+    let shape = match prior {
+        Hyperprior::Beta(p) => format!("Beta(alpha = {}, beta = {})", show(p.alpha), show(p.beta)),
+        Hyperprior::Gamma(p) => format!("Gamma(shape = {}, rate = {})", show(p.shape), show(p.rate)),
+    };
+    let _ = writeln!(
+        out,
+        "  prior        {shape}; mean {:.6} (se {:.2e}), strength {}",
+        prior.mean(),
+        match prior {
+            Hyperprior::Beta(p) => p.mean_se,
+            Hyperprior::Gamma(p) => p.mean_se,
+        },
+        prior.strength().map_or("infinite".to_string(), |s| format!("{s:.4}"))
+    );
+    let fit = &summary.fit;
+    let _ = writeln!(
+        out,
+        "  fit          log marginal likelihood {:.4}, {} iterations, converged {}, boundary {}",
+        fit.log_marginal_likelihood, fit.iterations, fit.converged, fit.boundary
+    );
+    let test = &fit.overdispersion_test;
+    let _ = writeln!(
+        out,
+        "  dispersion   {} Z = {:.3}, one-sided p = {:.3e}",
+        test.name, test.statistic, test.p_value
+    );
+    let pull = &summary.pull;
+    let _ = writeln!(
+        out,
+        "  pool weight  mean {:.3}, median {:.3}, p10 {:.3}, p90 {:.3}",
+        pull.pool_weight_mean, pull.pool_weight_median, pull.pool_weight_p10, pull.pool_weight_p90
+    );
+    let _ = writeln!(
+        out,
+        "  shift        mean |posterior - raw| {}, largest {} (group {}), rank correlation {}",
+        show(pull.mean_abs_shift),
+        show(pull.max_abs_shift),
+        pull.max_shift_group.as_deref().unwrap_or("n/a"),
+        show(pull.rank_correlation)
+    );
+    for warning in &summary.warnings {
+        let _ = writeln!(out, "  warning      {warning}");
+    }
+    out
+}
