@@ -123,14 +123,16 @@ pub fn ln_rising_excess(x: f64, m: f64) -> f64 {
     x * log1p_minus(t) + (m - 0.5) * t.ln_1p() + stirling_error(x + m) - stirling_error(x)
 }
 
+/// Below this, ψ and ψ′ are shifted up by recurrence before the asymptotic
+/// series; at 15 the first omitted Bernoulli term is below 3e-18.
+const ASYMPTOTIC_FROM: f64 = 15.0;
+
 /// ψ(x) − ln x, for x > 0.
 fn digamma_minus_log(x: f64) -> f64 {
-    if x < 10.0 {
+    if x < ASYMPTOTIC_FROM {
         return digamma(x) - x.ln();
     }
-    let y = 1.0 / (x * x);
-    -0.5 / x
-        - y * (1.0 / 12.0 - y * (1.0 / 120.0 - y * (1.0 / 252.0 - y * (1.0 / 240.0 - y * (1.0 / 132.0)))))
+    -0.5 / x - (1.0 / 12.0) / (x * x) + digamma_tail_terms(x)
 }
 
 /// ψ(x + m) − ψ(x) for x > 0, m ≥ 0.
@@ -150,18 +152,15 @@ pub fn digamma_diff(x: f64, m: f64) -> f64 {
     (m / x).ln_1p() + digamma_minus_log(x + m) - digamma_minus_log(x)
 }
 
-/// ψ′(x) − 1/x, for x > 0 (recurrence up to 10, then the asymptotic series).
+/// ψ′(x) − 1/x, for x > 0 (recurrence up to 15, then the asymptotic series).
 fn trigamma_minus_reciprocal(x: f64) -> f64 {
-    if x >= 10.0 {
-        let y = 1.0 / (x * x);
-        return y
-            * (0.5
-                + (1.0 / 6.0 - y * (1.0 / 30.0 - y * (1.0 / 42.0 - y * (1.0 / 30.0 - y * 5.0 / 66.0)))) / x);
+    if x >= ASYMPTOTIC_FROM {
+        return 0.5 / (x * x) + (1.0 / 6.0) / (x * x * x) + trigamma_tail_terms(x);
     }
     // ψ′(x) = Σ_{j<J} 1/(x+j)² + ψ′(x+J); the j = 0 term minus 1/x is 1/x² − 1/x.
     let mut shifted = x;
     let mut sum = 0.0;
-    while shifted < 10.0 {
+    while shifted < ASYMPTOTIC_FROM {
         sum += 1.0 / (shifted * shifted);
         shifted += 1.0;
     }
@@ -190,16 +189,20 @@ pub fn trigamma_diff(x: f64, m: f64) -> f64 {
     -m / (x * (x + m)) + trigamma_minus_reciprocal(x + m) - trigamma_minus_reciprocal(x)
 }
 
-/// Terms of ψ(x) − ln x beyond −1/(2x) − 1/(12x²), for x ≥ 10.
+/// Terms of ψ(x) − ln x beyond −1/(2x) − 1/(12x²): −Σ_{k≥2} B₂ₖ/(2k x^2k).
 fn digamma_tail_terms(x: f64) -> f64 {
     let y = 1.0 / (x * x);
-    y * y * (1.0 / 120.0 - y * (1.0 / 252.0 - y * (1.0 / 240.0 - y * (1.0 / 132.0))))
+    y * y
+        * (1.0 / 120.0
+            - y * (1.0 / 252.0 - y * (1.0 / 240.0 - y * (1.0 / 132.0 - y * (691.0 / 32_760.0 - y / 12.0)))))
 }
 
-/// Terms of ψ′(x) − 1/x beyond 1/(2x²) + 1/(6x³), for x ≥ 10.
+/// Terms of ψ′(x) − 1/x beyond 1/(2x²) + 1/(6x³): Σ_{k≥2} B₂ₖ/x^(2k+1).
 fn trigamma_tail_terms(x: f64) -> f64 {
     let y = 1.0 / (x * x);
-    -y * y / x * (1.0 / 30.0 - y * (1.0 / 42.0 - y * (1.0 / 30.0 - y * 5.0 / 66.0)))
+    -y * y / x
+        * (1.0 / 30.0
+            - y * (1.0 / 42.0 - y * (1.0 / 30.0 - y * (5.0 / 66.0 - y * (691.0 / 2730.0 - y * 7.0 / 6.0)))))
 }
 
 /// E(x, m) = x[ψ(x + m) − ψ(x)] − m, which tends to −m(m − 1)/(2x) as x → ∞.
@@ -220,7 +223,7 @@ pub fn scaled_digamma_excess(x: f64, m: f64) -> f64 {
         }
         return sum;
     }
-    if x < 10.0 {
+    if x < ASYMPTOTIC_FROM {
         return x * digamma_diff(x, m) - m;
     }
     let xm = x + m;
@@ -246,7 +249,7 @@ pub fn scaled_trigamma_excess(x: f64, m: f64) -> f64 {
         }
         return sum;
     }
-    if x < 10.0 {
+    if x < ASYMPTOTIC_FROM {
         return x * digamma_diff(x, m) + x * x * trigamma_diff(x, m);
     }
     let xm = x + m;

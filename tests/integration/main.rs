@@ -1,1 +1,9 @@
+//! Integration tests, one binary grouped by theme: reference values from
+//! libraries outside the project, end-to-end fits against them, facts of the
+//! trade, and the command line's contract (exit codes, errors, files).
 
+mod cli;
+mod facts;
+mod fits;
+mod reference;
+mod util;

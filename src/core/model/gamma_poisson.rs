@@ -14,7 +14,7 @@ use super::{Evaluation, Family, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
 use crate::core::special::{
-    ln_poisson_pmf, ln_rising_excess, log1p_minus, scaled_digamma_excess, scaled_trigamma_excess,
+    ln_gamma, ln_poisson_pmf, ln_rising_excess, log1p_minus, scaled_digamma_excess, scaled_trigamma_excess,
 };
 
 /// The gamma-Poisson family (see the module docs).
@@ -23,9 +23,22 @@ pub struct GammaPoisson;
 
 /// ln NegativeBinomial(y) of a Gamma(shape, rate) mixture of Poisson(E λ).
 pub fn ln_pmf(y: f64, exposure: f64, shape: f64, rate: f64) -> f64 {
-    let lambda = exposure * shape / rate;
-    let t = exposure / rate;
-    ln_poisson_pmf(y, lambda) + ln_rising_excess(shape, y) - shape * log1p_minus(t) - y * t.ln_1p()
+    log_pmf_at(y, exposure * shape / rate, shape, exposure / rate)
+}
+
+/// The log pmf from λ = Eμ, the shape a and t = λ/a = E/b.
+///
+/// For t ≤ 1 it is the Poisson log pmf plus terms that vanish as a → ∞; for
+/// t > 1 (exposure beyond the prior's strength) that split would cancel two
+/// terms of size λ, so the direct form y ln(a t) − ln y! + R(a, y)
+/// − (a + y) ln(1 + t) is used instead.
+fn log_pmf_at(y: f64, lambda: f64, a: f64, t: f64) -> f64 {
+    if t <= 1.0 {
+        ln_poisson_pmf(y, lambda) + ln_rising_excess(a, y) - a * log1p_minus(t) - y * t.ln_1p()
+    } else {
+        let log_power = if y == 0.0 { 0.0 } else { y * lambda.ln() };
+        log_power - ln_gamma(y + 1.0) + ln_rising_excess(a, y) - (a + y) * t.ln_1p()
+    }
 }
 
 impl Family for GammaPoisson {
@@ -40,14 +53,26 @@ impl Family for GammaPoisson {
         let lambda = exposure * mu;
         let t = lambda / a;
         let q = 1.0 / (1.0 + t);
-        let excess = log1p_minus(t);
-        let log_likelihood = ln_poisson_pmf(y, lambda) + ln_rising_excess(a, y) - a * excess - y * t.ln_1p();
+        let log_likelihood = log_pmf_at(y, lambda, a, t);
         let residual = y - lambda;
         let g1 = residual * q;
-        let g2 = scaled_digamma_excess(a, y) - a * excess + residual * t * q;
-        let h11 = -lambda * q - residual * t * q * q;
+        let h11 = -(lambda + y * t) * q * q;
         let h12 = residual * t * q * q;
-        let h22 = scaled_trigamma_excess(a, y) - a * excess - lambda * t * q - residual * t * q * q;
+        // −a[ln(1+t) − t] and the terms beside it are regrouped for large t,
+        // where each alone is of size λ and they cancel.
+        let (g2, h22) = if t <= 1.0 {
+            let excess = log1p_minus(t);
+            (
+                scaled_digamma_excess(a, y) - a * excess + residual * t * q,
+                scaled_trigamma_excess(a, y) - a * excess - lambda * t * q - residual * t * q * q,
+            )
+        } else {
+            let log_term = a * t.ln_1p();
+            (
+                scaled_digamma_excess(a, y) - log_term + t * (a + y) * q,
+                scaled_trigamma_excess(a, y) - log_term + lambda * (1.0 + 2.0 * t) * q * q - y * t * q * q,
+            )
+        };
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
     }
 

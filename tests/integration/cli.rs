@@ -1,0 +1,345 @@
+//! The command line's contract: exit codes, messages that name the row and
+//! column, no output on failure, rejects files, prior reuse, determinism.
+
+use crate::util::{fixture, ratepool, stderr, summary, write, Csv};
+use std::path::Path;
+
+const GOOD: &str = "id,k,n\na,1,4\nb,3,9\nc,0,2\nd,7,10\ne,2,2\nf,5,12\ng,0,0\nh,9,30\n";
+
+fn fit_args<'a>(input: &'a str, output: &'a str) -> Vec<&'a str> {
+    vec![
+        "fit",
+        "--input",
+        input,
+        "--model",
+        "beta-binomial",
+        "--group",
+        "id",
+        "--successes",
+        "k",
+        "--trials",
+        "n",
+        "--output",
+        output,
+        "--summary",
+        "s.json",
+    ]
+}
+
+/// Runs a fit on `csv` that must fail with `code`, mention every `needle`,
+/// and leave no output, summary or temporary file behind.
+fn assert_refused(csv: &str, code: i32, needles: &[&str]) {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", csv);
+    let out = ratepool(dir.path(), &fit_args(&input, "out.csv"));
+    let message = stderr(&out);
+    assert_eq!(out.status.code(), Some(code), "{message}");
+    for needle in needles {
+        assert!(message.contains(needle), "expected '{needle}' in: {message}");
+    }
+    assert_only_input(dir.path());
+}
+
+fn assert_only_input(dir: &Path) {
+    let left: Vec<String> =
+        std::fs::read_dir(dir).unwrap().map(|e| e.unwrap().file_name().into_string().unwrap()).collect();
+    assert_eq!(left, vec!["in.csv".to_string()], "files left behind");
+}
+
+#[test]
+fn a_missing_column_lists_the_available_ones() {
+    assert_refused("id,k,total\na,1,4\n", 2, &["no column 'n'", "available columns: id, k, total"]);
+}
+
+#[test]
+fn successes_above_trials_name_row_and_column() {
+    assert_refused("id,k,n\na,1,4\nb,5,3\n", 2, &["row 2", "column 'k'", "exceed"]);
+}
+
+#[test]
+fn negative_fractional_textual_and_non_finite_counts_are_refused() {
+    assert_refused("id,k,n\na,1,4\nb,-1,3\n", 2, &["row 2", "column 'k'", "negative"]);
+    assert_refused("id,k,n\na,1,4.5\n", 2, &["row 1", "column 'n'", "whole number"]);
+    assert_refused("id,k,n\na,1,4\nb,x,3\nc,1,1\n", 2, &["row 2", "column 'k'", "'x' is not a number"]);
+    assert_refused("id,k,n\na,1,4\nb,1,NaN\n", 2, &["row 2", "column 'n'", "finite"]);
+    assert_refused("id,k,n\na,1,inf\n", 2, &["row 1", "column 'n'", "finite"]);
+    assert_refused("id,k,n\na,1,9007199254740993\n", 2, &["row 1", "column 'n'", "2^53"]);
+}
+
+#[test]
+fn null_and_duplicate_group_ids_are_refused() {
+    assert_refused("id,k,n\na,1,4\n,1,3\n", 2, &["row 2", "column 'id'", "missing"]);
+    assert_refused(
+        "id,k,n\na,1,4\nb,1,3\na,2,5\n",
+        2,
+        &["row 3", "column 'id'", "duplicate", "first at row 1"],
+    );
+}
+
+#[test]
+fn empty_and_header_only_inputs_are_refused() {
+    assert_refused("", 2, &["in.csv"]);
+    assert_refused("id,k,n\n", 2, &["no data rows"]);
+}
+
+#[test]
+fn exposure_must_be_positive_when_there_are_events() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", "id,y,e\na,1,2.0\nb,3,0\n");
+    let out = ratepool(
+        dir.path(),
+        &[
+            "fit",
+            "--input",
+            &input,
+            "--model",
+            "gamma-poisson",
+            "--group",
+            "id",
+            "--events",
+            "y",
+            "--exposure",
+            "e",
+            "--output",
+            "out.csv",
+        ],
+    );
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("row 2, column 'e'"), "{}", stderr(&out));
+    assert_only_input(dir.path());
+}
+
+#[test]
+fn a_level_outside_zero_one_and_an_unknown_model_are_usage_errors() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", GOOD);
+    let mut args = fit_args(&input, "out.csv");
+    args.extend(["--level", "1.5"]);
+    let out = ratepool(dir.path(), &args);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("--level"));
+    let out = ratepool(
+        dir.path(),
+        &["fit", "--input", &input, "--model", "beta-poisson", "--group", "id", "--output", "o.csv"],
+    );
+    assert_eq!(out.status.code(), Some(2));
+    assert_only_input(dir.path());
+}
+
+#[test]
+fn only_the_mean_is_identifiable_when_every_group_has_one_trial() {
+    assert_refused("id,k,n\na,1,1\nb,0,1\nc,1,1\nd,0,0\n", 3, &["only the prior mean", "identifiable"]);
+}
+
+#[test]
+fn skip_mode_writes_exactly_the_bad_rows_and_scores_the_rest() {
+    let dir = tempfile::tempdir().unwrap();
+    let input =
+        write(dir.path(), "in.csv", "id,k,n\na,1,4\nb,5,3\nc,0,2\n,1,1\nd,7,10\ne,x,2\nf,5,12\ng,1,3\n");
+    let mut args = fit_args(&input, "out.csv");
+    args.extend(["--on-invalid", "skip", "--rejects", "bad.csv"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let rejects = Csv::read(&dir.path().join("bad.csv"));
+    assert_eq!(rejects.column("row"), vec!["2", "4", "6"]);
+    assert_eq!(rejects.column("column"), vec!["k", "id", "k"]);
+    let scored = Csv::read(&dir.path().join("out.csv"));
+    assert_eq!(scored.column("id"), vec!["a", "c", "d", "f", "g"]);
+    let s = summary(&dir.path().join("s.json"));
+    assert_eq!(
+        (s["rows_read"].as_u64(), s["rows_rejected"].as_u64(), s["groups"].as_u64()),
+        (Some(8), Some(3), Some(5))
+    );
+}
+
+#[test]
+fn output_keeps_input_order_and_the_documented_columns() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", GOOD);
+    let out = ratepool(dir.path(), &fit_args(&input, "out.csv"));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let table = Csv::read(&dir.path().join("out.csv"));
+    assert_eq!(
+        table.header,
+        [
+            "id",
+            "k",
+            "n",
+            "raw_rate",
+            "posterior_mean",
+            "posterior_sd",
+            "interval_lo",
+            "interval_hi",
+            "pool_weight",
+            "posterior_alpha",
+            "posterior_beta"
+        ]
+    );
+    assert_eq!(table.column("id"), vec!["a", "b", "c", "d", "e", "f", "g", "h"]);
+    // Group g has no trials: no raw rate, and it keeps the prior exactly.
+    let g = 6;
+    assert_eq!(table.column("raw_rate")[g], "");
+    assert_eq!(table.floats("pool_weight")[g], 1.0);
+    let s = summary(&dir.path().join("s.json"));
+    let mean = s["hyperprior"]["mean"].as_f64().unwrap();
+    assert!((table.floats("posterior_mean")[g] - mean).abs() < 1e-12);
+    // The terminal gets the short summary.
+    assert!(String::from_utf8_lossy(&out.stdout).contains("pool weight"));
+}
+
+#[test]
+fn parquet_output_and_input_round_trip_through_score_with_the_saved_prior() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture("beta_binomial_groups.csv");
+    let args = [
+        "fit",
+        "--input",
+        input.to_str().unwrap(),
+        "--model",
+        "beta-binomial",
+        "--group",
+        "unit",
+        "--successes",
+        "hits",
+        "--trials",
+        "tries",
+        "--output",
+        "fitted.parquet",
+        "--summary",
+        "prior.json",
+        "--quiet",
+    ];
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    // Score the Parquet output itself (it carries the group and count columns) with the saved prior.
+    let out = ratepool(
+        dir.path(),
+        &[
+            "score",
+            "--input",
+            "fitted.parquet",
+            "--prior",
+            "prior.json",
+            "--group",
+            "unit",
+            "--successes",
+            "hits",
+            "--trials",
+            "tries",
+            "--output",
+            "rescored.csv",
+            "--summary",
+            "again.json",
+        ],
+    );
+    assert!(out.status.success(), "{}", stderr(&out));
+    let out = ratepool(
+        dir.path(),
+        &[
+            "fit",
+            "--input",
+            input.to_str().unwrap(),
+            "--model",
+            "beta-binomial",
+            "--group",
+            "unit",
+            "--successes",
+            "hits",
+            "--trials",
+            "tries",
+            "--output",
+            "fitted.csv",
+            "--quiet",
+        ],
+    );
+    assert!(out.status.success());
+    let (first, second) =
+        (Csv::read(&dir.path().join("fitted.csv")), Csv::read(&dir.path().join("rescored.csv")));
+    assert_eq!(first.rows, second.rows, "score with the saved prior reproduces the fit's output");
+    assert_eq!(
+        summary(&dir.path().join("again.json"))["hyperprior"],
+        summary(&dir.path().join("prior.json"))["hyperprior"]
+    );
+}
+
+#[test]
+fn a_prior_from_the_other_model_or_a_corrupt_prior_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", GOOD);
+    assert!(ratepool(dir.path(), &fit_args(&input, "out.csv")).status.success());
+    let score = |prior: &str| {
+        ratepool(
+            dir.path(),
+            &[
+                "score",
+                "--input",
+                &input,
+                "--prior",
+                prior,
+                "--model",
+                "gamma-poisson",
+                "--group",
+                "id",
+                "--events",
+                "k",
+                "--exposure",
+                "n",
+                "--output",
+                "scored.csv",
+            ],
+        )
+    };
+    let out = score("s.json");
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("beta-binomial"), "{}", stderr(&out));
+    write(dir.path(), "broken.json", "{\"model\": \"gamma-poisson\", \"hyperprior\": ");
+    let out = score("broken.json");
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("not a ratepool summary"), "{}", stderr(&out));
+    assert!(!dir.path().join("scored.csv").exists());
+}
+
+#[test]
+fn an_unwritable_output_folder_is_exit_one_with_nothing_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", GOOD);
+    let out = ratepool(dir.path(), &fit_args(&input, "missing/out.csv"));
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    assert!(stderr(&out).contains("missing"));
+    assert!(!dir.path().join("s.json").exists(), "the summary must not be written when the table failed");
+}
+
+#[test]
+fn output_is_byte_identical_for_one_and_two_threads() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture("gamma_poisson_areas.csv");
+    let run = |threads: &str, out: &str| {
+        ratepool(
+            dir.path(),
+            &[
+                "--threads",
+                threads,
+                "--quiet",
+                "fit",
+                "--input",
+                input.to_str().unwrap(),
+                "--model",
+                "gamma-poisson",
+                "--group",
+                "area",
+                "--events",
+                "cases",
+                "--exposure",
+                "expected",
+                "--output",
+                out,
+            ],
+        )
+    };
+    assert!(run("1", "one.parquet").status.success());
+    assert!(run("2", "two.parquet").status.success());
+    assert_eq!(
+        std::fs::read(dir.path().join("one.parquet")).unwrap(),
+        std::fs::read(dir.path().join("two.parquet")).unwrap()
+    );
+}

@@ -1,0 +1,91 @@
+//! The numerical core against reference libraries (values in tests/fixtures,
+//! written by scripts/make_reference_fixtures.py).
+
+use crate::util::{json_fixture, relative};
+use ratepool::core::model::{beta_binomial, gamma_poisson};
+use ratepool::core::quantile::{beta_quantile, gamma_quantile, Tail};
+use ratepool::core::special::{digamma, ln_gamma, trigamma};
+
+#[test]
+fn statrs_ln_gamma_and_digamma_and_our_trigamma_match_mpmath() {
+    // Source: mpmath 1.3 at 50 digits. This is the measurement behind keeping
+    // statrs for lnΓ and ψ: worst relative errors here are a few 1e-15.
+    let fixture = json_fixture("special.json");
+    for row in fixture["values"].as_array().unwrap() {
+        let x = row["x"].as_f64().unwrap();
+        let lg = row["ln_gamma"].as_f64().unwrap();
+        assert!((ln_gamma(x) - lg).abs() <= 1e-14 * lg.abs().max(1.0), "lnΓ({x})");
+        let dg = row["digamma"].as_f64().unwrap();
+        assert!((digamma(x) - dg).abs() <= 1e-13 * dg.abs().max(1.0), "ψ({x}) = {} vs {dg}", digamma(x));
+        let tg = row["trigamma"].as_f64().unwrap();
+        assert!(relative(trigamma(x), tg) <= 1e-13, "ψ′({x}) = {} vs {tg}", trigamma(x));
+    }
+}
+
+#[test]
+fn beta_binomial_log_pmf_matches_mpmath_up_to_strength_1e15() {
+    // Source: mpmath loggamma sums at 50 digits (scipy's betabinom loses every
+    // digit at these strengths, so it is not the reference here).
+    let fixture = json_fixture("log_pmf.json");
+    for row in fixture["beta_binomial"].as_array().unwrap() {
+        let (k, n) = (row["k"].as_f64().unwrap(), row["n"].as_f64().unwrap());
+        let (a, b) = (row["alpha"].as_f64().unwrap(), row["beta"].as_f64().unwrap());
+        let expected = row["logpmf"].as_f64().unwrap();
+        let got = beta_binomial::ln_pmf(k, n, a, b);
+        // Absolute 1e-9 plus a few ulps of the largest log-gamma term involved.
+        let tolerance = 1e-9 + 1e-14 * (n * n.max(2.0).ln());
+        assert!((got - expected).abs() <= tolerance, "k={k} n={n} a={a} b={b}: {got} vs {expected}");
+    }
+}
+
+#[test]
+fn negative_binomial_log_pmf_matches_mpmath() {
+    let fixture = json_fixture("log_pmf.json");
+    for row in fixture["negative_binomial"].as_array().unwrap() {
+        let (y, e) = (row["y"].as_f64().unwrap(), row["exposure"].as_f64().unwrap());
+        let (shape, rate) = (row["shape"].as_f64().unwrap(), row["rate"].as_f64().unwrap());
+        let expected = row["logpmf"].as_f64().unwrap();
+        let got = gamma_poisson::ln_pmf(y, e, shape, rate);
+        // Absolute 1e-9 plus a few ulps of the largest log-gamma term, ln Γ(y + 1).
+        let tolerance = 1e-9 + 1e-14 * expected.abs() + 4e-16 * y * (y + 2.0).ln();
+        assert!((got - expected).abs() <= tolerance, "y={y} E={e} a={shape} b={rate}: {got} vs {expected}");
+    }
+}
+
+#[test]
+fn gamma_quantiles_match_scipy_within_1e9_relative() {
+    // Source: scipy.stats.gamma.ppf and .isf, shapes 1e-3 to 1e7.
+    let fixture = json_fixture("quantiles.json");
+    let mut worst: f64 = 0.0;
+    for row in fixture["gamma"].as_array().unwrap() {
+        let (a, p) = (row["shape"].as_f64().unwrap(), row["p"].as_f64().unwrap());
+        for (tail, key) in [(Tail::Lower, "lower"), (Tail::Upper, "upper")] {
+            let expected = row[key].as_f64().unwrap();
+            let got = gamma_quantile(a, tail, p);
+            let err = relative(got, expected);
+            worst = worst.max(err);
+            assert!(err <= 1e-9, "Gamma({a}) {key} {p}: {got:e} vs {expected:e}");
+        }
+    }
+    eprintln!("worst relative gamma quantile error {worst:e}");
+}
+
+#[test]
+fn beta_quantiles_match_scipy_within_1e9_relative() {
+    // Source: scipy.stats.beta.ppf and .isf, both shapes 1e-3 to 1e7.
+    let fixture = json_fixture("quantiles.json");
+    let mut worst: f64 = 0.0;
+    for row in fixture["beta"].as_array().unwrap() {
+        let (a, b, p) = (row["a"].as_f64().unwrap(), row["b"].as_f64().unwrap(), row["p"].as_f64().unwrap());
+        for (tail, key) in [(Tail::Lower, "lower"), (Tail::Upper, "upper")] {
+            let expected = row[key].as_f64().unwrap();
+            let got = beta_quantile(a, b, tail, p);
+            // Where the exact quantile is below the smallest double, scipy
+            // clamps to 2.2e-308 and we round to 0: both mean "underflows".
+            let err = if expected < 1e-300 && got < 1e-300 { 0.0 } else { relative(got, expected) };
+            worst = worst.max(err);
+            assert!(err <= 1e-9, "Beta({a}, {b}) {key} {p}: {got:e} vs {expected:e}");
+        }
+    }
+    eprintln!("worst relative beta quantile error {worst:e}");
+}
