@@ -2,10 +2,15 @@
 
 use crate::util::{fixture, json_fixture, ratepool, relative, stderr, summary, Csv};
 use serde_json::Value;
+use std::process::Output;
 
-fn fit_beta_binomial(input: &str) -> (tempfile::TempDir, Value, Csv) {
+/// Fits a fixture with the given model and columns; returns the scratch
+/// folder, the process output, the summary and the output table.
+fn run_fit(input: &str, model: &str, columns: [&str; 3]) -> (tempfile::TempDir, Output, Value, Csv) {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(input);
+    let (count_flag, size_flag) =
+        if model == "beta-binomial" { ("--successes", "--trials") } else { ("--events", "--exposure") };
     let out = ratepool(
         dir.path(),
         &[
@@ -13,13 +18,13 @@ fn fit_beta_binomial(input: &str) -> (tempfile::TempDir, Value, Csv) {
             "--input",
             input.to_str().unwrap(),
             "--model",
-            "beta-binomial",
+            model,
             "--group",
-            "unit",
-            "--successes",
-            "hits",
-            "--trials",
-            "tries",
+            columns[0],
+            count_flag,
+            columns[1],
+            size_flag,
+            columns[2],
             "--output",
             "out.csv",
             "--summary",
@@ -29,6 +34,11 @@ fn fit_beta_binomial(input: &str) -> (tempfile::TempDir, Value, Csv) {
     assert!(out.status.success(), "{}", stderr(&out));
     let s = summary(&dir.path().join("summary.json"));
     let table = Csv::read(&dir.path().join("out.csv"));
+    (dir, out, s, table)
+}
+
+fn fit_beta_binomial(input: &str) -> (tempfile::TempDir, Value, Csv) {
+    let (dir, _, s, table) = run_fit(input, "beta-binomial", ["unit", "hits", "tries"]);
     (dir, s, table)
 }
 
@@ -38,31 +48,7 @@ fn fit_gamma_poisson(
     events: &str,
     exposure: &str,
 ) -> (tempfile::TempDir, Value, Csv) {
-    let dir = tempfile::tempdir().unwrap();
-    let input = fixture(input);
-    let out = ratepool(
-        dir.path(),
-        &[
-            "fit",
-            "--input",
-            input.to_str().unwrap(),
-            "--model",
-            "gamma-poisson",
-            "--group",
-            group,
-            "--events",
-            events,
-            "--exposure",
-            exposure,
-            "--output",
-            "out.csv",
-            "--summary",
-            "summary.json",
-        ],
-    );
-    assert!(out.status.success(), "{}", stderr(&out));
-    let s = summary(&dir.path().join("summary.json"));
-    let table = Csv::read(&dir.path().join("out.csv"));
+    let (dir, _, s, table) = run_fit(input, "gamma-poisson", [group, events, exposure]);
     (dir, s, table)
 }
 
@@ -134,31 +120,8 @@ fn open_cancer_county_data_matches_statsmodels() {
 fn binomial_data_without_overdispersion_end_at_the_boundary_with_finite_output() {
     // Source: scipy.stats.binom.logpmf summed at the pooled rate.
     let reference = &json_fixture("fits.json")["binomial_boundary"];
-    let dir = tempfile::tempdir().unwrap();
-    let input = fixture("binomial_groups.csv");
-    let out = ratepool(
-        dir.path(),
-        &[
-            "fit",
-            "--input",
-            input.to_str().unwrap(),
-            "--model",
-            "beta-binomial",
-            "--group",
-            "unit",
-            "--successes",
-            "hits",
-            "--trials",
-            "tries",
-            "--output",
-            "out.csv",
-            "--summary",
-            "s.json",
-        ],
-    );
-    assert!(out.status.success(), "{}", stderr(&out));
+    let (_dir, out, s, table) = run_fit("binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
     assert!(stderr(&out).contains("infinite prior strength"), "{}", stderr(&out));
-    let s = summary(&dir.path().join("s.json"));
     assert_eq!(s["fit"]["boundary"], "no-overdispersion");
     assert!(s["hyperprior"]["strength"].is_null());
     assert!(s["hyperprior"]["alpha"].is_null());
@@ -166,7 +129,6 @@ fn binomial_data_without_overdispersion_end_at_the_boundary_with_finite_output()
     assert!(relative(mean, reference["mean"].as_f64().unwrap()) < 1e-12);
     let ll = s["fit"]["log_marginal_likelihood"].as_f64().unwrap();
     assert!((ll - reference["log_likelihood"].as_f64().unwrap()).abs() < 1e-6);
-    let table = Csv::read(&dir.path().join("out.csv"));
     for v in table.floats("posterior_mean") {
         assert_eq!(v, mean);
     }

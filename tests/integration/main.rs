@@ -5,5 +5,6 @@
 mod cli;
 mod facts;
 mod fits;
+mod properties;
 mod reference;
 mod util;
