@@ -293,7 +293,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         mean: pooled_mean,
         strength: None,
         natural_se: None,
-        mean_se: pooled_mean_se::<F>(table, pooled_mean),
+        mean_se: F::pooled_mean_se(table, pooled_mean),
         strength_se: None,
         log_marginal_likelihood: boundary_ll,
         start_log_likelihood: if moment.is_some() { start_ll } else { boundary_ll },
@@ -351,15 +351,4 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         boundary: Boundary::None,
         overdispersion,
     })
-}
-
-/// Standard error of the pooled rate under no overdispersion (inverse of the
-/// binomial or Poisson information Σ n/(μ(1−μ)) or Σ E/μ).
-fn pooled_mean_se<F: Family>(table: &PairTable, mean: f64) -> f64 {
-    let (size, _) = table.totals();
-    if F::NAME == "beta-binomial" {
-        (mean * (1.0 - mean) / size).sqrt()
-    } else {
-        (mean / size).sqrt()
-    }
 }

@@ -197,7 +197,6 @@ fn size_role(model: ModelKind) -> &'static str {
 struct Scored {
     posteriors: Vec<Posterior>,
     pair_of_row: Vec<u32>,
-    prior: Prior,
     hyperprior: Hyperprior,
     fit: FitReport,
     warnings: Vec<String>,
@@ -224,7 +223,7 @@ fn score_job<F: Family>(job: &Job, valid: &ValidRows) -> Result<Scored> {
     let tail = job.level.tail();
     let posteriors: Vec<Posterior> =
         table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
-    Ok(Scored { posteriors, pair_of_row, prior, hyperprior, fit: fit_report, warnings })
+    Ok(Scored { posteriors, pair_of_row, hyperprior, fit: fit_report, warnings })
 }
 
 fn fit_warnings(fitted: &Fit) -> Vec<String> {
@@ -301,7 +300,7 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
         gradient_norm: fitted.gradient_norm,
         boundary: boundary_name(fitted.boundary).to_string(),
         overdispersion_test: TestReport {
-            name: if F::NAME == BetaBinomial::NAME { "Tarone" } else { "Dean" }.to_string(),
+            name: F::OVERDISPERSION_TEST.to_string(),
             statistic: fitted.overdispersion.statistic,
             p_value: fitted.overdispersion.p_value,
         },
@@ -428,7 +427,6 @@ fn summarise(
         warnings
             .push(format!("{} rows were rejected and left out of the fit and the output", rejected.len()));
     }
-    let _ = &scored.prior;
     Summary {
         model: job.model.name().to_string(),
         groups: rows as u64,

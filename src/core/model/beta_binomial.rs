@@ -42,6 +42,7 @@ pub fn ln_pmf(k: f64, n: f64, alpha: f64, beta: f64) -> f64 {
 
 impl Family for BetaBinomial {
     const NAME: &'static str = "beta-binomial";
+    const OVERDISPERSION_TEST: &'static str = "Tarone";
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
         let (n, k) = (pair.size, pair.count);
@@ -72,6 +73,10 @@ impl Family for BetaBinomial {
     fn pooled_mean(table: &PairTable) -> f64 {
         let (trials, successes) = table.totals();
         successes / trials
+    }
+
+    fn pooled_mean_se(table: &PairTable, mean: f64) -> f64 {
+        (mean * (1.0 - mean) / table.totals().0).sqrt()
     }
 
     fn check_identifiable(table: &PairTable) -> Result<(), Unidentifiable> {

@@ -43,6 +43,7 @@ fn log_pmf_at(y: f64, lambda: f64, a: f64, t: f64) -> f64 {
 
 impl Family for GammaPoisson {
     const NAME: &'static str = "gamma-poisson";
+    const OVERDISPERSION_TEST: &'static str = "Dean";
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
         let (exposure, y) = (pair.size, pair.count);
@@ -83,6 +84,10 @@ impl Family for GammaPoisson {
     fn pooled_mean(table: &PairTable) -> f64 {
         let (exposure, events) = table.totals();
         events / exposure
+    }
+
+    fn pooled_mean_se(table: &PairTable, mean: f64) -> f64 {
+        (mean / table.totals().0).sqrt()
     }
 
     fn check_identifiable(table: &PairTable) -> Result<(), Unidentifiable> {

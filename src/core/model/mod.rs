@@ -96,12 +96,16 @@ pub enum Unidentifiable {
 pub trait Family: Sync {
     /// Name used in summaries and on the command line.
     const NAME: &'static str;
+    /// Name of the score test for overdispersion this model uses.
+    const OVERDISPERSION_TEST: &'static str;
     /// Per-pair log pmf and its derivatives at working coordinates `u`.
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation;
     /// ln pmf under no overdispersion at rate `mean`.
     fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64;
     /// Maximum-likelihood rate under no overdispersion.
     fn pooled_mean(table: &PairTable) -> f64;
+    /// Its standard error, from the binomial or Poisson information.
+    fn pooled_mean_se(table: &PairTable, mean: f64) -> f64;
     /// Refuses tables on which the two hyperparameters are not identifiable.
     fn check_identifiable(table: &PairTable) -> Result<(), Unidentifiable>;
     /// One pair's term of the score ∂ℓ/∂φ at φ = 1/strength = 0.
