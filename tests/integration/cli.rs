@@ -343,3 +343,43 @@ fn output_is_byte_identical_for_one_and_two_threads() {
         std::fs::read(dir.path().join("two.parquet")).unwrap()
     );
 }
+
+#[test]
+fn a_corrupt_parquet_file_is_bad_input_with_nothing_written() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("in.parquet"), b"PAR1 this is not really parquet").unwrap();
+    let out = ratepool(dir.path(), &fit_args("in.parquet", "out.csv"));
+    assert_eq!(out.status.code(), Some(2), "{}", stderr(&out));
+    assert!(stderr(&out).contains("in.parquet"), "{}", stderr(&out));
+    assert!(!dir.path().join("out.csv").exists() && !dir.path().join("s.json").exists());
+}
+
+#[test]
+fn a_complete_pooling_prior_scores_every_group_at_the_pooled_rate() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture("binomial_groups.csv");
+    let input = input.to_str().unwrap();
+    let columns = ["--group", "unit", "--successes", "hits", "--trials", "tries"];
+    let mut args = vec![
+        "--quiet",
+        "fit",
+        "--input",
+        input,
+        "--model",
+        "beta-binomial",
+        "--output",
+        "fit.csv",
+        "--summary",
+        "p.json",
+    ];
+    args.extend(columns);
+    assert!(ratepool(dir.path(), &args).status.success());
+    let mut args = vec!["--quiet", "score", "--input", input, "--prior", "p.json", "--output", "scored.csv"];
+    args.extend(columns);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let mean = summary(&dir.path().join("p.json"))["hyperprior"]["mean"].as_f64().unwrap();
+    let scored = Csv::read(&dir.path().join("scored.csv"));
+    assert!(scored.floats("posterior_mean").iter().all(|&m| m == mean));
+    assert_eq!(scored.rows, Csv::read(&dir.path().join("fit.csv")).rows);
+}
