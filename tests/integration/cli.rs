@@ -187,72 +187,30 @@ fn output_keeps_input_order_and_the_documented_columns() {
     assert!(String::from_utf8_lossy(&out.stdout).contains("pool weight"));
 }
 
+/// Group and count columns of the beta-binomial fixtures.
+const FIXTURE_COLUMNS: [&str; 6] = ["--group", "unit", "--successes", "hits", "--trials", "tries"];
+
+/// Runs ratepool with `head`, then the fixture's column options, then `tail`; it must succeed.
+fn run_with_fixture_columns(dir: &Path, head: &[&str], tail: &[&str]) {
+    let args: Vec<&str> = head.iter().chain(&FIXTURE_COLUMNS).chain(tail).copied().collect();
+    let out = ratepool(dir, &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+}
+
 #[test]
 fn parquet_output_and_input_round_trip_through_score_with_the_saved_prior() {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture("beta_binomial_groups.csv");
-    let args = [
-        "fit",
-        "--input",
-        input.to_str().unwrap(),
-        "--model",
-        "beta-binomial",
-        "--group",
-        "unit",
-        "--successes",
-        "hits",
-        "--trials",
-        "tries",
-        "--output",
-        "fitted.parquet",
-        "--summary",
-        "prior.json",
-        "--quiet",
-    ];
-    let out = ratepool(dir.path(), &args);
-    assert!(out.status.success(), "{}", stderr(&out));
+    let input = input.to_str().unwrap();
+    let fit = ["--quiet", "fit", "--input", input, "--model", "beta-binomial"];
+    run_with_fixture_columns(dir.path(), &fit, &["--output", "fitted.parquet", "--summary", "prior.json"]);
     // Score the Parquet output itself (it carries the group and count columns) with the saved prior.
-    let out = ratepool(
+    run_with_fixture_columns(
         dir.path(),
-        &[
-            "score",
-            "--input",
-            "fitted.parquet",
-            "--prior",
-            "prior.json",
-            "--group",
-            "unit",
-            "--successes",
-            "hits",
-            "--trials",
-            "tries",
-            "--output",
-            "rescored.csv",
-            "--summary",
-            "again.json",
-        ],
+        &["score", "--input", "fitted.parquet", "--prior", "prior.json"],
+        &["--output", "rescored.csv", "--summary", "again.json"],
     );
-    assert!(out.status.success(), "{}", stderr(&out));
-    let out = ratepool(
-        dir.path(),
-        &[
-            "fit",
-            "--input",
-            input.to_str().unwrap(),
-            "--model",
-            "beta-binomial",
-            "--group",
-            "unit",
-            "--successes",
-            "hits",
-            "--trials",
-            "tries",
-            "--output",
-            "fitted.csv",
-            "--quiet",
-        ],
-    );
-    assert!(out.status.success());
+    run_with_fixture_columns(dir.path(), &fit, &["--output", "fitted.csv"]);
     let (first, second) =
         (Csv::read(&dir.path().join("fitted.csv")), Csv::read(&dir.path().join("rescored.csv")));
     assert_eq!(first.rows, second.rows, "score with the saved prior reproduces the fit's output");
@@ -359,25 +317,16 @@ fn a_complete_pooling_prior_scores_every_group_at_the_pooled_rate() {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture("binomial_groups.csv");
     let input = input.to_str().unwrap();
-    let columns = ["--group", "unit", "--successes", "hits", "--trials", "tries"];
-    let mut args = vec![
-        "--quiet",
-        "fit",
-        "--input",
-        input,
-        "--model",
-        "beta-binomial",
-        "--output",
-        "fit.csv",
-        "--summary",
-        "p.json",
-    ];
-    args.extend(columns);
-    assert!(ratepool(dir.path(), &args).status.success());
-    let mut args = vec!["--quiet", "score", "--input", input, "--prior", "p.json", "--output", "scored.csv"];
-    args.extend(columns);
-    let out = ratepool(dir.path(), &args);
-    assert!(out.status.success(), "{}", stderr(&out));
+    run_with_fixture_columns(
+        dir.path(),
+        &["--quiet", "fit", "--input", input, "--model", "beta-binomial"],
+        &["--output", "fit.csv", "--summary", "p.json"],
+    );
+    run_with_fixture_columns(
+        dir.path(),
+        &["--quiet", "score", "--input", input, "--prior", "p.json"],
+        &["--output", "scored.csv"],
+    );
     let mean = summary(&dir.path().join("p.json"))["hyperprior"]["mean"].as_f64().unwrap();
     let scored = Csv::read(&dir.path().join("scored.csv"));
     assert!(scored.floats("posterior_mean").iter().all(|&m| m == mean));

@@ -40,6 +40,7 @@ fn beta_binomial_log_pmf_matches_mpmath_up_to_strength_1e15() {
 
 #[test]
 fn negative_binomial_log_pmf_matches_mpmath() {
+    // Source: mpmath loggamma sums at 50 digits.
     let fixture = json_fixture("log_pmf.json");
     for row in fixture["negative_binomial"].as_array().unwrap() {
         let (y, e) = (row["y"].as_f64().unwrap(), row["exposure"].as_f64().unwrap());
