@@ -17,91 +17,127 @@ pub struct Pull {
     pub mean_abs_shift: Option<f64>,
     /// Largest |posterior mean − raw rate|.
     pub max_abs_shift: Option<f64>,
-    /// Row index of the group with the largest shift.
+    /// Index of the pair with the largest shift.
     pub max_shift_row: Option<usize>,
     /// Spearman correlation of raw rates and posterior means.
     pub rank_correlation: Option<f64>,
 }
 
-/// Quantile of sorted data by linear interpolation between order statistics
-/// (the "type 7" definition, the default of R and numpy; common practice).
-pub fn sorted_quantile(sorted: &[f64], q: f64) -> f64 {
-    let h = (sorted.len() - 1) as f64 * q;
-    let (lo, hi) = (h.floor() as usize, h.ceil() as usize);
-    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+/// What the pull summary needs of one distinct pair: its raw rate (None with
+/// no data), posterior mean, pool weight, and how many groups share it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PairOutcome {
+    /// k/n or y/E; None when the group has no trials or exposure.
+    pub raw_rate: Option<f64>,
+    /// Posterior mean.
+    pub posterior_mean: f64,
+    /// Pool weight B.
+    pub pool_weight: f64,
+    /// Number of groups with this pair.
+    pub groups: f64,
 }
 
-/// Ranks 1..n with ties given their average rank.
-pub fn average_ranks(values: &[f64]) -> Vec<f64> {
+/// Quantile of the multiset in which each `(value, weight)` appears `weight`
+/// times, `sorted` by value, by linear interpolation between order statistics
+/// (the "type 7" definition, the default of R and numpy; common practice).
+pub fn weighted_quantile(sorted: &[(f64, f64)], q: f64) -> f64 {
+    let total: f64 = sorted.iter().map(|&(_, w)| w).sum();
+    let h = (total - 1.0) * q;
+    let (lo, hi) = (h.floor(), h.ceil());
+    let at = |position: f64| {
+        let mut seen = 0.0;
+        for &(value, weight) in sorted {
+            seen += weight;
+            if position < seen {
+                return value;
+            }
+        }
+        sorted[sorted.len() - 1].0
+    };
+    let (x_lo, x_hi) = (at(lo), at(hi));
+    x_lo + (h - lo) * (x_hi - x_lo)
+}
+
+/// Average ranks (1-based, ties sharing their mean rank) of values that each
+/// stand for `weight` equal observations.
+pub fn weighted_average_ranks(values: &[f64], weights: &[f64]) -> Vec<f64> {
     let mut order: Vec<usize> = (0..values.len()).collect();
     order.sort_by(|&a, &b| values[a].total_cmp(&values[b]));
     let mut ranks = vec![0.0; values.len()];
-    let mut start = 0;
+    let (mut start, mut below) = (0, 0.0);
     while start < order.len() {
-        let mut end = start + 1;
+        let mut end = start;
+        let mut tied = 0.0;
         while end < order.len() && values[order[end]] == values[order[start]] {
+            tied += weights[order[end]];
             end += 1;
         }
-        let rank = (start + end + 1) as f64 / 2.0;
+        let rank = below + (tied + 1.0) / 2.0;
         for &i in &order[start..end] {
             ranks[i] = rank;
         }
+        below += tied;
         start = end;
     }
     ranks
 }
 
-/// Pearson correlation; None when either side has no spread.
-fn pearson(x: &[f64], y: &[f64]) -> Option<f64> {
-    let n = x.len() as f64;
-    let (mx, my) = (x.iter().sum::<f64>() / n, y.iter().sum::<f64>() / n);
+/// Weighted Pearson correlation; None when either side has no spread.
+fn weighted_pearson(x: &[f64], y: &[f64], w: &[f64]) -> Option<f64> {
+    let total: f64 = w.iter().sum();
+    let mean = |v: &[f64]| v.iter().zip(w).map(|(a, b)| a * b).sum::<f64>() / total;
+    let (mx, my) = (mean(x), mean(y));
     let (mut sxy, mut sxx, mut syy) = (0.0, 0.0, 0.0);
-    for (a, b) in x.iter().zip(y) {
-        sxy += (a - mx) * (b - my);
-        sxx += (a - mx) * (a - mx);
-        syy += (b - my) * (b - my);
+    for ((a, b), c) in x.iter().zip(y).zip(w) {
+        sxy += c * (a - mx) * (b - my);
+        sxx += c * (a - mx) * (a - mx);
+        syy += c * (b - my) * (b - my);
     }
     (sxx > 0.0 && syy > 0.0).then(|| sxy / (sxx * syy).sqrt())
 }
 
-/// Spearman's rank correlation (Pearson correlation of average ranks).
-pub fn spearman(x: &[f64], y: &[f64]) -> Option<f64> {
-    if x.len() < 2 {
+/// Spearman's rank correlation (Pearson correlation of average ranks) of
+/// paired values that each stand for `weight` groups.
+pub fn weighted_spearman(x: &[f64], y: &[f64], weights: &[f64]) -> Option<f64> {
+    if weights.iter().sum::<f64>() < 2.0 {
         return None;
     }
-    pearson(&average_ranks(x), &average_ranks(y))
+    weighted_pearson(&weighted_average_ranks(x, weights), &weighted_average_ranks(y, weights), weights)
 }
 
-/// Computes the pull summary from per-group raw rates (None where there is no
-/// data), posterior means and pool weights.
-pub fn pull(raw: &[Option<f64>], posterior_mean: &[f64], pool_weight: &[f64]) -> Pull {
-    let mut weights = pool_weight.to_vec();
-    weights.sort_by(f64::total_cmp);
-    let (mut raws, mut posts) = (Vec::new(), Vec::new());
-    let (mut total_shift, mut max_shift, mut max_row) = (0.0, f64::NEG_INFINITY, None);
-    for (row, (r, &p)) in raw.iter().zip(posterior_mean).enumerate() {
-        if let Some(r) = *r {
-            let shift = (p - r).abs();
-            total_shift += shift;
+/// Computes the pull summary over all groups from the distinct pairs they
+/// share; `max_shift_row` is then the index of the pair with the largest shift.
+pub fn pull(pairs: &[PairOutcome]) -> Pull {
+    let mut weights: Vec<(f64, f64)> = pairs.iter().map(|p| (p.pool_weight, p.groups)).collect();
+    weights.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let groups: f64 = pairs.iter().map(|p| p.groups).sum();
+    let (mut raws, mut posts, mut counts) = (Vec::new(), Vec::new(), Vec::new());
+    let (mut total_shift, mut max_shift, mut max_pair) = (0.0, f64::NEG_INFINITY, None);
+    for (index, pair) in pairs.iter().enumerate() {
+        if let Some(raw) = pair.raw_rate {
+            let shift = (pair.posterior_mean - raw).abs();
+            total_shift += shift * pair.groups;
             if shift > max_shift {
                 max_shift = shift;
-                max_row = Some(row);
+                max_pair = Some(index);
             }
-            raws.push(r);
-            posts.push(p);
+            raws.push(raw);
+            posts.push(pair.posterior_mean);
+            counts.push(pair.groups);
         }
     }
+    let with_rate: f64 = counts.iter().sum();
     let empty = weights.is_empty();
-    let q = |p: f64| if empty { 0.0 } else { sorted_quantile(&weights, p) };
+    let q = |p: f64| if empty { 0.0 } else { weighted_quantile(&weights, p) };
     Pull {
-        pool_weight_mean: if empty { 0.0 } else { weights.iter().sum::<f64>() / weights.len() as f64 },
+        pool_weight_mean: if empty { 0.0 } else { weights.iter().map(|(v, w)| v * w).sum::<f64>() / groups },
         pool_weight_median: q(0.5),
         pool_weight_p10: q(0.1),
         pool_weight_p90: q(0.9),
-        mean_abs_shift: (!raws.is_empty()).then(|| total_shift / raws.len() as f64),
-        max_abs_shift: max_row.map(|_| max_shift),
-        max_shift_row: max_row,
-        rank_correlation: spearman(&raws, &posts),
+        mean_abs_shift: (with_rate > 0.0).then(|| total_shift / with_rate),
+        max_abs_shift: max_pair.map(|_| max_shift),
+        max_shift_row: max_pair,
+        rank_correlation: weighted_spearman(&raws, &posts, &counts),
     }
 }
 
@@ -109,23 +145,58 @@ pub fn pull(raw: &[Option<f64>], posterior_mean: &[f64], pool_weight: &[f64]) ->
 mod tests {
     use super::*;
 
+    /// Row-by-row reference: type-7 quantile of sorted data.
+    fn sorted_quantile(sorted: &[f64], q: f64) -> f64 {
+        let h = (sorted.len() - 1) as f64 * q;
+        let (lo, hi) = (h.floor() as usize, h.ceil() as usize);
+        sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+    }
+
+    fn unit(n: usize) -> Vec<f64> {
+        vec![1.0; n]
+    }
+
     #[test]
     fn ties_share_their_average_rank() {
-        assert_eq!(average_ranks(&[3.0, 1.0, 3.0, 2.0]), vec![3.5, 1.0, 3.5, 2.0]);
+        assert_eq!(weighted_average_ranks(&[3.0, 1.0, 3.0, 2.0], &unit(4)), vec![3.5, 1.0, 3.5, 2.0]);
+        // A value standing for 3 observations occupies ranks 1..3.
+        assert_eq!(weighted_average_ranks(&[5.0, 1.0], &[1.0, 3.0]), vec![4.0, 2.0]);
     }
 
     #[test]
     fn spearman_of_a_monotone_map_is_one_and_of_a_reversal_minus_one() {
         let x = [0.1, 0.5, 0.2, 0.9];
         let y: Vec<f64> = x.iter().map(|v| v * v * v).collect();
-        assert!((spearman(&x, &y).unwrap() - 1.0).abs() < 1e-15);
+        assert!((weighted_spearman(&x, &y, &unit(4)).unwrap() - 1.0).abs() < 1e-15);
         let z: Vec<f64> = x.iter().map(|v| -v).collect();
-        assert!((spearman(&x, &z).unwrap() + 1.0).abs() < 1e-15);
+        assert!((weighted_spearman(&x, &z, &unit(4)).unwrap() + 1.0).abs() < 1e-15);
     }
 
     #[test]
     fn quantiles_interpolate_like_numpy_default() {
         // numpy.percentile([1, 2, 3, 4], 10) = 1.3 (linear method; from memory).
-        assert!((sorted_quantile(&[1.0, 2.0, 3.0, 4.0], 0.1) - 1.3).abs() < 1e-12);
+        let data = [(1.0, 1.0), (2.0, 1.0), (3.0, 1.0), (4.0, 1.0)];
+        assert!((weighted_quantile(&data, 0.1) - 1.3).abs() < 1e-12);
+    }
+
+    #[test]
+    fn weighted_summaries_equal_the_row_by_row_ones_on_the_expanded_data() {
+        let values = [(0.2, 3.0), (0.5, 1.0), (0.7, 4.0), (0.9, 2.0)];
+        let expanded: Vec<f64> =
+            values.iter().flat_map(|&(v, w)| std::iter::repeat_n(v, w as usize)).collect();
+        for q in [0.0, 0.1, 0.25, 0.5, 0.77, 0.9, 1.0] {
+            assert_eq!(weighted_quantile(&values, q), sorted_quantile(&expanded, q), "q = {q}");
+        }
+        let x = [0.3, 0.1, 0.3, 0.8];
+        let y = [0.2, 0.4, 0.1, 0.9];
+        let w = [2.0, 1.0, 3.0, 1.0];
+        let expand = |v: &[f64]| -> Vec<f64> {
+            v.iter().zip(&w).flat_map(|(&a, &c)| std::iter::repeat_n(a, c as usize)).collect()
+        };
+        let (ex, ey) = (expand(&x), expand(&y));
+        let direct = weighted_spearman(&ex, &ey, &unit(ex.len())).unwrap();
+        assert!((weighted_spearman(&x, &y, &w).unwrap() - direct).abs() < 1e-14);
+        // scipy 1.17.1 `spearmanr(numpy.repeat(x, w), numpy.repeat(y, w))` = 0.140028008402801.
+        assert!((direct - 0.140028008402801).abs() < 1e-14);
     }
 }

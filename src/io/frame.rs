@@ -1,7 +1,8 @@
 //! The boundary between polars frames and plain Rust values: pulling cells
-//! out of input columns for validation, and assembling the output frame.
+//! out of input columns for validation, and passing columns through to the
+//! output.
 
-use super::table::write_table;
+use super::sink::{write_table, ColumnValues, Columns};
 use crate::error::{Error, Result};
 use polars::prelude::*;
 use std::path::{Path, PathBuf};
@@ -23,30 +24,6 @@ pub enum Cell {
 pub struct InputTable {
     frame: DataFrame,
     path: PathBuf,
-}
-
-/// Values of one output column.
-pub enum ColumnValues {
-    /// Whole numbers.
-    Integers(Vec<i64>),
-    /// Numbers.
-    Floats(Vec<f64>),
-    /// Numbers, some absent.
-    OptionalFloats(Vec<Option<f64>>),
-    /// Text.
-    Texts(Vec<String>),
-}
-
-impl ColumnValues {
-    fn into_column(self, name: &str) -> Column {
-        let name = PlSmallStr::from(name);
-        match self {
-            ColumnValues::Integers(v) => Column::new(name, v),
-            ColumnValues::Floats(v) => Column::new(name, v),
-            ColumnValues::OptionalFloats(v) => Column::new(name, v),
-            ColumnValues::Texts(v) => Column::new(name, v),
-        }
-    }
 }
 
 fn parse_text(text: &str) -> Cell {
@@ -148,28 +125,34 @@ impl InputTable {
         Ok(texts.iter().map(|v| v.filter(|t| !t.trim().is_empty()).map(str::to_string)).collect())
     }
 
-    /// Writes `kept` rows of column `passthrough` followed by `columns`.
-    pub fn write_with(
-        &self,
-        passthrough: &str,
-        kept: &[u32],
-        columns: Vec<(String, ColumnValues)>,
-        path: &Path,
-    ) -> Result<()> {
+    /// The `kept` rows of a column, as output values of its own kind:
+    /// integers stay integers, floats stay floats, anything else is text.
+    pub fn passthrough(&self, name: &str, kept: &[u32]) -> Result<ColumnValues> {
         let indices = IdxCa::from_vec("rows".into(), kept.iter().map(|&r| r as IdxSize).collect());
-        let source = self.frame.column(passthrough).map_err(|e| polars_error(&self.path, e))?;
-        let mut out = vec![source.take(&indices).map_err(|e| polars_error(&self.path, e))?];
-        out.extend(columns.into_iter().map(|(name, values)| values.into_column(&name)));
-        let mut frame = DataFrame::new(kept.len(), out)
-            .map_err(|e| Error::Usage(format!("cannot build the output table: {e}")))?;
-        write_table(&mut frame, path)
+        let column = self.frame.column(name).map_err(|e| polars_error(&self.path, e))?;
+        let taken = column.take(&indices).map_err(|e| polars_error(&self.path, e))?;
+        let dtype = taken.dtype().clone();
+        let as_i64 = (dtype.is_integer()).then(|| taken.strict_cast(&DataType::Int64).ok()).flatten();
+        if let Some(values) = as_i64 {
+            let values = values.i64().map_err(|e| polars_error(&self.path, e))?;
+            if values.null_count() == 0 {
+                return Ok(ColumnValues::Integers(values.into_no_null_iter().collect()));
+            }
+        }
+        let texts = taken.cast(&DataType::String).map_err(|e| polars_error(&self.path, e))?;
+        let texts = texts.str().map_err(|e| polars_error(&self.path, e))?;
+        Ok(ColumnValues::Texts(texts.iter().map(|v| v.unwrap_or_default().to_string()).collect()))
+    }
+
+    /// Writes `kept` rows of column `passthrough` followed by `columns`.
+    pub fn write_with(&self, passthrough: &str, kept: &[u32], columns: Columns, path: &Path) -> Result<()> {
+        let mut out = vec![(passthrough.to_string(), self.passthrough(passthrough, kept)?)];
+        out.extend(columns);
+        write_table(out, path)
     }
 }
 
 /// Writes a table of plain columns (for rejected rows), atomically.
-pub fn write_plain(columns: Vec<(String, ColumnValues)>, rows: usize, path: &Path) -> Result<()> {
-    let out = columns.into_iter().map(|(name, values)| values.into_column(&name)).collect();
-    let mut frame = DataFrame::new(rows, out)
-        .map_err(|e| Error::Other(format!("cannot build the rejects table: {e}")))?;
-    write_table(&mut frame, path)
+pub fn write_plain(columns: Columns, path: &Path) -> Result<()> {
+    write_table(columns, path)
 }

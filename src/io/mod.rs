@@ -1,4 +1,4 @@
-//! I/O adapters: the only code that touches polars or the file system.
+//! I/O adapters: the only code that touches polars, arrow-rs or the file system.
 //!
 //! Tables are read and written as CSV or Parquet, chosen by the file
 //! extension. Every output goes through [`atomic`], so a reader never sees a
@@ -6,6 +6,7 @@
 
 pub mod atomic;
 pub mod frame;
+pub mod sink;
 pub mod table;
 
 use crate::error::{Error, Result};

@@ -1,10 +1,9 @@
-//! Reading and writing whole tables with polars (pinned at 0.55.2).
+//! Reading whole tables with polars (pinned at 0.55.2).
 //!
 //! CSV is read with every column as text, so that each value can be checked
 //! and reported with its row and column by the validation step instead of
 //! failing inside the parser; Parquet keeps its stored types.
 
-use super::atomic::write_atomically;
 use super::TableFormat;
 use crate::error::{Error, Result};
 use polars::prelude::*;
@@ -28,19 +27,4 @@ pub fn read_table(path: &Path) -> Result<DataFrame> {
             .and_then(|file| ParquetReader::new(file).finish()),
     };
     result.map_err(|e| Error::Input(format!("{}: cannot read the table: {e}", path.display())))
-}
-
-/// Writes a data frame to CSV or Parquet (by extension), atomically.
-pub fn write_table(frame: &mut DataFrame, path: &Path) -> Result<()> {
-    let format = TableFormat::from_path(path)?;
-    write_atomically(path, |file| {
-        let written = match format {
-            TableFormat::Csv => CsvWriter::new(&mut *file).include_header(true).finish(frame),
-            TableFormat::Parquet => ParquetWriter::new(&mut *file)
-                .with_compression(ParquetCompression::Zstd(None))
-                .finish(frame)
-                .map(|_| ()),
-        };
-        written.map_err(|e| Error::Other(format!("{}: cannot write the table: {e}", path.display())))
-    })
 }

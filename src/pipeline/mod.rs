@@ -4,7 +4,7 @@
 
 pub mod validate;
 
-use crate::core::diagnostics::pull;
+use crate::core::diagnostics::{pull, PairOutcome};
 use crate::core::fit::{fit, Boundary, Fit, FitFailure};
 use crate::core::model::beta_binomial::BetaBinomial;
 use crate::core::model::gamma_poisson::GammaPoisson;
@@ -12,7 +12,8 @@ use crate::core::model::{Family, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
 use crate::io::atomic::write_bytes_atomically;
-use crate::io::frame::{write_plain, ColumnValues, InputTable};
+use crate::io::frame::{write_plain, InputTable};
+use crate::io::sink::ColumnValues;
 use crate::report::{BetaPrior, FitReport, GammaPrior, Hyperprior, PullReport, Summary, TestReport};
 use rayon::prelude::*;
 use std::path::{Path, PathBuf};
@@ -195,6 +196,7 @@ fn size_role(model: ModelKind) -> &'static str {
 
 /// Everything computed for the kept rows.
 struct Scored {
+    table: PairTable,
     posteriors: Vec<Posterior>,
     pair_of_row: Vec<u32>,
     hyperprior: Hyperprior,
@@ -223,7 +225,7 @@ fn score_job<F: Family>(job: &Job, valid: &ValidRows) -> Result<Scored> {
     let tail = job.level.tail();
     let posteriors: Vec<Posterior> =
         table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
-    Ok(Scored { posteriors, pair_of_row, hyperprior, fit: fit_report, warnings })
+    Ok(Scored { table, posteriors, pair_of_row, hyperprior, fit: fit_report, warnings })
 }
 
 fn fit_warnings(fitted: &Fit) -> Vec<String> {
@@ -372,6 +374,21 @@ fn output_columns(job: &Job, valid: &ValidRows, scored: &Scored) -> Vec<(String,
     ]
 }
 
+/// What the pull summary needs of each distinct pair.
+fn pair_outcomes(table: &PairTable, posteriors: &[Posterior]) -> Vec<PairOutcome> {
+    table
+        .pairs()
+        .iter()
+        .zip(posteriors)
+        .map(|(pair, post)| PairOutcome {
+            raw_rate: (pair.size > 0.0).then(|| pair.count / pair.size),
+            posterior_mean: post.mean,
+            pool_weight: post.pool_weight,
+            groups: pair.weight,
+        })
+        .collect()
+}
+
 fn raw_rates(valid: &ValidRows) -> Vec<Option<f64>> {
     valid.sizes.iter().zip(&valid.counts).map(|(&s, &c)| (s > 0.0).then(|| c / s)).collect()
 }
@@ -406,7 +423,7 @@ fn write_rejects(
         ("column".to_string(), ColumnValues::Texts(rejected.iter().map(|r| r.column.clone()).collect())),
         ("reason".to_string(), ColumnValues::Texts(rejected.iter().map(|r| r.reason.clone()).collect())),
     ];
-    write_plain(columns, rejected.len(), path)
+    write_plain(columns, path)
 }
 
 fn summarise(
@@ -418,10 +435,9 @@ fn summarise(
     scored: &Scored,
 ) -> Summary {
     let rows = valid.rows.len();
-    let post = |i: usize| &scored.posteriors[scored.pair_of_row[i] as usize];
-    let means: Vec<f64> = (0..rows).map(|i| post(i).mean).collect();
-    let weights: Vec<f64> = (0..rows).map(|i| post(i).pool_weight).collect();
-    let p = pull(&raw_rates(valid), &means, &weights);
+    let p = pull(&pair_outcomes(&scored.table, &scored.posteriors));
+    let max_shift_row =
+        p.max_shift_row.and_then(|pair| scored.pair_of_row.iter().position(|&q| q as usize == pair));
     let mut warnings = scored.warnings.clone();
     if !rejected.is_empty() {
         warnings
@@ -442,7 +458,7 @@ fn summarise(
             pool_weight_p90: p.pool_weight_p90,
             mean_abs_shift: p.mean_abs_shift,
             max_abs_shift: p.max_abs_shift,
-            max_shift_group: p.max_shift_row.and_then(|i| groups[valid.rows[i] as usize].clone()),
+            max_shift_group: max_shift_row.and_then(|i| groups[valid.rows[i] as usize].clone()),
             rank_correlation: p.rank_correlation,
         },
         warnings,
