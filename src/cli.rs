@@ -3,7 +3,7 @@
 
 use crate::error::{Error, Result};
 use crate::pipeline::validate::ColumnNames;
-use crate::pipeline::{load_summary, InvalidRows, Job, Level, ModelKind, PriorSource};
+use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, ModelKind, PriorSource};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
@@ -55,9 +55,9 @@ pub struct TableArgs {
     /// Input table (.csv or .parquet).
     #[arg(long)]
     pub input: PathBuf,
-    /// Column holding the group id.
+    /// Column holding the group id (not with --pair-counts).
     #[arg(long)]
-    pub group: String,
+    pub group: Option<String>,
     /// Column of successes (beta-binomial).
     #[arg(long)]
     pub successes: Option<String>,
@@ -70,9 +70,9 @@ pub struct TableArgs {
     /// Column of exposure: person-time, or expected counts (gamma-poisson).
     #[arg(long)]
     pub exposure: Option<String>,
-    /// Output table (.csv or .parquet), written atomically.
+    /// Output table (.csv or .parquet), written atomically (not with --pair-counts).
     #[arg(long)]
-    pub output: PathBuf,
+    pub output: Option<PathBuf>,
     /// Summary file (JSON), written last.
     #[arg(long)]
     pub summary: Option<PathBuf>,
@@ -85,6 +85,14 @@ pub struct TableArgs {
     /// Where invalid rows go with --on-invalid skip (.csv or .parquet).
     #[arg(long)]
     pub rejects: Option<PathBuf>,
+    /// Read a Parquet file, or a folder of Parquet parts, twice in batches instead of whole:
+    /// memory then stays flat however many groups there are. Repeated group ids are not
+    /// detected in this mode.
+    #[arg(long)]
+    pub stream: bool,
+    /// Rows per batch with --stream.
+    #[arg(long, default_value_t = 65_536, requires = "stream")]
+    pub batch_rows: usize,
 }
 
 /// Options of `fit`.
@@ -93,6 +101,11 @@ pub struct FitArgs {
     /// The model.
     #[arg(long, value_enum)]
     pub model: ModelArg,
+    /// The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL
+    /// GROUP BY) and this column holds how many groups share each pair; only the summary
+    /// (the prior) is written.
+    #[arg(long, value_name = "COLUMN")]
+    pub pair_counts: Option<String>,
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
@@ -130,7 +143,12 @@ fn refuse(value: &Option<String>, flag: &str, model: ModelKind) -> Result<()> {
     }
 }
 
-fn job_of(table: &TableArgs, model: ModelKind, prior: PriorSource) -> Result<Job> {
+fn job_of(
+    table: &TableArgs,
+    pair_counts: Option<&String>,
+    model: ModelKind,
+    prior: PriorSource,
+) -> Result<Job> {
     let (count, size) = match model {
         ModelKind::BetaBinomial => {
             refuse(&table.events, "events", model)?;
@@ -153,12 +171,12 @@ fn job_of(table: &TableArgs, model: ModelKind, prior: PriorSource) -> Result<Job
             return Err(Error::Usage("--on-invalid skip needs --rejects FILE".to_string()))
         }
     };
-    crate::io::TableFormat::from_path(&table.output)?;
+    let (group, layout) = layout_of(table, pair_counts)?;
     Ok(Job {
         input: table.input.clone(),
         model,
-        columns: ColumnNames { group: table.group.clone(), count, size },
-        output: table.output.clone(),
+        columns: ColumnNames { group, count, size },
+        layout,
         summary: table.summary.clone(),
         level: Level::new(table.level)?,
         invalid,
@@ -166,11 +184,55 @@ fn job_of(table: &TableArgs, model: ModelKind, prior: PriorSource) -> Result<Job
     })
 }
 
+/// The input layout and the group column (the group-count column for a pair table).
+fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String, Layout)> {
+    if let Some(weights) = pair_counts {
+        let refused = [
+            (table.group.is_some(), "--group"),
+            (table.output.is_some(), "--output"),
+            (table.stream, "--stream"),
+            (table.on_invalid == InvalidArg::Skip, "--on-invalid skip"),
+        ];
+        if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
+            return Err(Error::Usage(format!("{flag} does not apply to a pair table (--pair-counts)")));
+        }
+        if table.summary.is_none() {
+            return Err(Error::Usage(
+                "--pair-counts writes only the summary: give --summary FILE".to_string(),
+            ));
+        }
+        return Ok((weights.clone(), Layout::PairCounts { weights: weights.clone() }));
+    }
+    let group = table.group.clone().ok_or_else(|| Error::Usage("--group COLUMN is required".to_string()))?;
+    let output = table.output.clone().ok_or_else(|| Error::Usage("--output FILE is required".to_string()))?;
+    crate::io::TableFormat::from_path(&output)?;
+    let layout = if table.stream {
+        if table.input.is_file() {
+            let format = crate::io::TableFormat::from_path(&table.input)?;
+            if format != crate::io::TableFormat::Parquet {
+                return Err(Error::Usage("--stream reads Parquet input only".to_string()));
+            }
+        }
+        Layout::Streamed { output, batch_rows: table.batch_rows.max(1) }
+    } else {
+        if table.input.is_dir() {
+            return Err(Error::Usage(format!(
+                "{} is a folder: read a folder of Parquet parts with --stream",
+                table.input.display()
+            )));
+        }
+        Layout::Groups { output }
+    };
+    Ok((group, layout))
+}
+
 impl Command {
     /// Validates the arguments into a job (reading the prior file for `score`).
     pub fn into_job(self) -> Result<Job> {
         match self {
-            Command::Fit(args) => job_of(&args.table, model_of(args.model), PriorSource::Fit),
+            Command::Fit(args) => {
+                job_of(&args.table, args.pair_counts.as_ref(), model_of(args.model), PriorSource::Fit)
+            }
             Command::Score(args) => {
                 let summary = load_summary(&args.prior)?;
                 let saved = ModelKind::from_name(&summary.model).ok_or_else(|| {
@@ -183,6 +245,7 @@ impl Command {
                 let model = args.model.map(model_of).unwrap_or(saved);
                 job_of(
                     &args.table,
+                    None,
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
                 )

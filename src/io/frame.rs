@@ -26,7 +26,7 @@ pub struct InputTable {
     path: PathBuf,
 }
 
-fn parse_text(text: &str) -> Cell {
+pub(crate) fn parse_text(text: &str) -> Cell {
     let text = text.trim();
     if text.is_empty() {
         return Cell::Missing;
@@ -132,7 +132,9 @@ impl InputTable {
         let column = self.frame.column(name).map_err(|e| polars_error(&self.path, e))?;
         let taken = column.take(&indices).map_err(|e| polars_error(&self.path, e))?;
         let dtype = taken.dtype().clone();
-        let as_i64 = (dtype.is_integer()).then(|| taken.strict_cast(&DataType::Int64).ok()).flatten();
+        // UInt64 is text, as in the streaming reader: its type alone must fix the output type.
+        let integer = dtype.is_integer() && dtype != DataType::UInt64;
+        let as_i64 = integer.then(|| taken.strict_cast(&DataType::Int64).ok()).flatten();
         if let Some(values) = as_i64 {
             let values = values.i64().map_err(|e| polars_error(&self.path, e))?;
             if values.null_count() == 0 {

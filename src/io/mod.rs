@@ -7,6 +7,7 @@
 pub mod atomic;
 pub mod frame;
 pub mod sink;
+pub mod stream;
 pub mod table;
 
 use crate::error::{Error, Result};

@@ -52,6 +52,29 @@ impl ColumnValues {
         self.len() == 0
     }
 
+    /// The values at `rows`, in that order.
+    pub fn select(&self, rows: &[u32]) -> ColumnValues {
+        fn pick<T: Clone>(values: &[T], rows: &[u32]) -> Vec<T> {
+            rows.iter().map(|&r| values[r as usize].clone()).collect()
+        }
+        match self {
+            ColumnValues::Integers(v) => ColumnValues::Integers(pick(v, rows)),
+            ColumnValues::Floats(v) => ColumnValues::Floats(pick(v, rows)),
+            ColumnValues::OptionalFloats(v) => ColumnValues::OptionalFloats(pick(v, rows)),
+            ColumnValues::Texts(v) => ColumnValues::Texts(pick(v, rows)),
+        }
+    }
+
+    /// The value at `row` as text (empty where absent).
+    pub fn text_at(&self, row: usize) -> String {
+        match self {
+            ColumnValues::Integers(v) => v[row].to_string(),
+            ColumnValues::Floats(v) => v[row].to_string(),
+            ColumnValues::OptionalFloats(v) => v[row].map(|x| x.to_string()).unwrap_or_default(),
+            ColumnValues::Texts(v) => v[row].clone(),
+        }
+    }
+
     fn into_arrow(self) -> ArrayRef {
         match self {
             ColumnValues::Integers(v) => Arc::new(Int64Array::from(v)),

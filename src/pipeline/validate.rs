@@ -127,28 +127,61 @@ fn check_row<'a>(
     first_row: &mut HashMap<&'a str, usize>,
 ) -> Result<(f64, f64), (&'a str, String)> {
     let Some(id) = groups[row].as_deref() else {
-        return Err((&names.group, "group id is missing".to_string()));
+        return Err((&names.group, MISSING_GROUP.to_string()));
     };
     if let Some(&first) = first_row.get(id) {
         return Err((&names.group, format!("duplicate group id '{id}' (first at row {})", first + 1)));
     }
     first_row.insert(id, row);
+    check_values(names, kind, &counts[row], &sizes[row])
+}
+
+/// The reason given for a row without a group id.
+pub const MISSING_GROUP: &str = "group id is missing";
+
+/// Checks one row's count and size; returns (size, count) or the column at
+/// fault with the reason.
+pub fn check_values<'a>(
+    names: &'a ColumnNames,
+    kind: SizeKind,
+    count_cell: &Cell,
+    size_cell: &Cell,
+) -> Result<(f64, f64), (&'a str, String)> {
     let size = match kind {
-        SizeKind::Trials => whole_count(&sizes[row]),
-        SizeKind::Exposure => exposure(&sizes[row]),
+        SizeKind::Trials => whole_count(size_cell),
+        SizeKind::Exposure => exposure(size_cell),
     }
     .map_err(|reason| (names.size.as_str(), reason))?;
-    let count = whole_count(&counts[row]).map_err(|reason| (names.count.as_str(), reason))?;
+    let count = whole_count(count_cell).map_err(|reason| (names.count.as_str(), reason))?;
     match kind {
         SizeKind::Trials if count > size => Err((
             names.count.as_str(),
-            format!("{} successes exceed {} trials", describe(&counts[row]), describe(&sizes[row])),
+            format!("{} successes exceed {} trials", describe(count_cell), describe(size_cell)),
         )),
         SizeKind::Exposure if size == 0.0 && count > 0.0 => Err((
             names.size.as_str(),
-            format!("exposure is zero but there are {} events", describe(&counts[row])),
+            format!("exposure is zero but there are {} events", describe(count_cell)),
         )),
         _ => Ok((size, count)),
+    }
+}
+
+/// A number of groups sharing a pair, in a pre-aggregated pair table: a whole
+/// count, at least 1.
+pub fn group_count(cell: &Cell) -> Result<f64, String> {
+    match whole_count(cell)? {
+        0.0 => Err("a pair must be shared by at least one group".to_string()),
+        v => Ok(v),
+    }
+}
+
+/// Text of a cell as found, for the rejects file.
+pub fn cell_text(cell: &Cell) -> String {
+    match cell {
+        Cell::Missing => String::new(),
+        Cell::Integer(v) => v.to_string(),
+        Cell::Number(v) => v.to_string(),
+        Cell::Text(t) => t.clone(),
     }
 }
 

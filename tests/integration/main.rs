@@ -7,4 +7,5 @@ mod facts;
 mod fits;
 mod properties;
 mod reference;
+mod scale;
 mod util;

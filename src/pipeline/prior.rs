@@ -1,0 +1,173 @@
+//! Where the prior comes from (a fit to the pair table, or a saved summary)
+//! and the posterior of every distinct pair under it.
+
+use super::{Job, ModelKind, PriorSource};
+use crate::core::fit::{fit, Boundary, Fit, FitFailure};
+use crate::core::model::beta_binomial::BetaBinomial;
+use crate::core::model::gamma_poisson::GammaPoisson;
+use crate::core::model::{Family, Posterior, Prior, Unidentifiable};
+use crate::core::pairs::PairTable;
+use crate::error::{Error, Result};
+use crate::report::{BetaPrior, FitReport, GammaPrior, Hyperprior, Summary, TestReport};
+use rayon::prelude::*;
+use std::path::Path;
+
+/// The prior in use, how it was obtained, and each pair's posterior.
+pub struct Scored {
+    /// The distinct pairs.
+    pub table: PairTable,
+    /// Posterior of each pair, in table order.
+    pub posteriors: Vec<Posterior>,
+    /// The prior for the summary.
+    pub hyperprior: Hyperprior,
+    /// How it was obtained.
+    pub fit: FitReport,
+    /// Boundary and pooling warnings.
+    pub warnings: Vec<String>,
+}
+
+/// Fits or loads the prior for `table` and scores every pair.
+pub fn score_pairs(job: &Job, table: PairTable) -> Result<Scored> {
+    match job.model {
+        ModelKind::BetaBinomial => score_with::<BetaBinomial>(job, table),
+        ModelKind::GammaPoisson => score_with::<GammaPoisson>(job, table),
+    }
+}
+
+fn score_with<F: Family>(job: &Job, table: PairTable) -> Result<Scored> {
+    let (prior, hyperprior, fit_report, mut warnings) = match &job.prior {
+        PriorSource::Fit => {
+            let fitted = fit::<F>(&table).map_err(|failure| describe_failure(failure, job.model))?;
+            let warnings = fit_warnings(&fitted);
+            (fitted.prior, hyperprior_of(job.model, &fitted), fit_report_of::<F>(&fitted, "fit"), warnings)
+        }
+        PriorSource::Saved { path, summary } => {
+            let prior = prior_of_summary(summary, path, job.model)?;
+            let mut fit = summary.fit.clone();
+            fit.source = path.display().to_string();
+            (prior, summary.hyperprior.clone(), fit, Vec::new())
+        }
+    };
+    if let Prior::CompletePooling { .. } = prior {
+        warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
+    }
+    let tail = job.level.tail();
+    let posteriors: Vec<Posterior> =
+        table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
+    Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings })
+}
+
+fn fit_warnings(fitted: &Fit) -> Vec<String> {
+    match fitted.boundary {
+        Boundary::None => Vec::new(),
+        Boundary::NoOverdispersion => vec![format!(
+            "the marginal likelihood is maximised at infinite prior strength: the data show no variation beyond {} (overdispersion test Z = {:.3})",
+            "sampling noise", fitted.overdispersion.statistic
+        )],
+    }
+}
+
+fn describe_failure(failure: FitFailure, model: ModelKind) -> Error {
+    Error::Fit(match failure {
+        FitFailure::Unidentifiable(Unidentifiable::MeanOnly { mean }) => format!(
+            "only the prior mean ({mean:.6}) is identifiable: every group has at most one trial, so the data say nothing about how much groups differ; no strength is reported"
+        ),
+        FitFailure::Unidentifiable(Unidentifiable::DegenerateMean { mean }) => format!(
+            "the pooled rate is {mean}: every group is at the edge of the range (all {}), so no prior can be fitted",
+            if model == ModelKind::BetaBinomial { "successes or all failures" } else { "zero events" }
+        ),
+        FitFailure::Unidentifiable(Unidentifiable::NoData) => "no group has any trials or exposure".to_string(),
+        FitFailure::NoPooling => "the marginal likelihood is maximised at zero prior strength: the groups share nothing to pool".to_string(),
+        FitFailure::NotConverged { iterations, gradient_norm } => {
+            format!("the optimiser did not converge ({iterations} iterations, gradient norm {gradient_norm:.3e}); please report this with the input")
+        }
+    })
+}
+
+fn boundary_name(boundary: Boundary) -> &'static str {
+    match boundary {
+        Boundary::None => "none",
+        Boundary::NoOverdispersion => "no-overdispersion",
+    }
+}
+
+fn hyperprior_of(model: ModelKind, fitted: &Fit) -> Hyperprior {
+    let (first, second) = match fitted.prior {
+        Prior::Conjugate { first, second } => (Some(first), Some(second)),
+        Prior::CompletePooling { .. } => (None, None),
+    };
+    let (first_se, second_se) = fitted.natural_se.map_or((None, None), |se| (Some(se[0]), Some(se[1])));
+    match model {
+        ModelKind::BetaBinomial => Hyperprior::Beta(BetaPrior {
+            alpha: first,
+            beta: second,
+            alpha_se: first_se,
+            beta_se: second_se,
+            mean: fitted.mean,
+            mean_se: fitted.mean_se,
+            strength: fitted.strength,
+            strength_se: fitted.strength_se,
+        }),
+        ModelKind::GammaPoisson => Hyperprior::Gamma(GammaPrior {
+            shape: first,
+            rate: second,
+            shape_se: first_se,
+            rate_se: second_se,
+            mean: fitted.mean,
+            mean_se: fitted.mean_se,
+            strength: fitted.strength,
+            strength_se: fitted.strength_se,
+        }),
+    }
+}
+
+fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
+    FitReport {
+        source: source.to_string(),
+        log_marginal_likelihood: fitted.log_marginal_likelihood,
+        start_log_marginal_likelihood: fitted.start_log_likelihood,
+        converged: fitted.converged,
+        iterations: fitted.iterations,
+        gradient_norm: fitted.gradient_norm,
+        boundary: boundary_name(fitted.boundary).to_string(),
+        overdispersion_test: TestReport {
+            name: F::OVERDISPERSION_TEST.to_string(),
+            statistic: fitted.overdispersion.statistic,
+            p_value: fitted.overdispersion.p_value,
+        },
+    }
+}
+
+/// The prior held in a saved summary, checked against the model in use.
+fn prior_of_summary(summary: &Summary, path: &Path, model: ModelKind) -> Result<Prior> {
+    if summary.model != model.name() {
+        return Err(Error::Input(format!(
+            "{}: the prior is for the {} model, not {}",
+            path.display(),
+            summary.model,
+            model.name()
+        )));
+    }
+    let (first, second, mean) = match (&summary.hyperprior, model) {
+        (Hyperprior::Beta(p), ModelKind::BetaBinomial) => (p.alpha, p.beta, p.mean),
+        (Hyperprior::Gamma(p), ModelKind::GammaPoisson) => (p.shape, p.rate, p.mean),
+        _ => {
+            return Err(Error::Input(format!(
+                "{}: the hyperprior does not match the model {}",
+                path.display(),
+                summary.model
+            )))
+        }
+    };
+    let valid = |v: f64| v.is_finite() && v > 0.0;
+    match (first, second) {
+        (Some(a), Some(b)) if valid(a) && valid(b) => Ok(Prior::Conjugate { first: a, second: b }),
+        (None, None) if valid(mean) && (model == ModelKind::GammaPoisson || mean < 1.0) => {
+            Ok(Prior::CompletePooling { mean })
+        }
+        _ => Err(Error::Input(format!(
+            "{}: the hyperprior parameters are missing or out of range",
+            path.display()
+        ))),
+    }
+}

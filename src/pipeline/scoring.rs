@@ -1,0 +1,163 @@
+//! What every path writes: the output columns of scored rows, the rejects
+//! table, and the summary, all from the pair table and its posteriors.
+
+use super::prior::Scored;
+use super::validate::{cell_text, ColumnNames, Rejection};
+use super::{Job, ModelKind};
+use crate::core::diagnostics::{pull, PairOutcome};
+use crate::core::model::Posterior;
+use crate::error::{Error, Result};
+use crate::io::atomic::write_bytes_atomically;
+use crate::io::frame::Cell;
+use crate::io::sink::{ColumnValues, Columns};
+use crate::report::{PullReport, Summary};
+
+/// The output columns after the group column, for rows with these sizes and
+/// counts whose posteriors are `posteriors[pair_of_row[i]]`.
+pub fn score_columns(
+    job: &Job,
+    sizes: &[f64],
+    counts: &[f64],
+    pair_of_row: &[u32],
+    posteriors: &[Posterior],
+) -> Columns {
+    let post = |i: usize| &posteriors[pair_of_row[i] as usize];
+    let rows = pair_of_row.len();
+    let (first_name, second_name) = match job.model {
+        ModelKind::BetaBinomial => ("posterior_alpha", "posterior_beta"),
+        ModelKind::GammaPoisson => ("posterior_shape", "posterior_rate"),
+    };
+    let count_values = ColumnValues::Integers(counts.iter().map(|&c| c as i64).collect());
+    let size_values = match job.model {
+        ModelKind::BetaBinomial => ColumnValues::Integers(sizes.iter().map(|&s| s as i64).collect()),
+        ModelKind::GammaPoisson => ColumnValues::Floats(sizes.to_vec()),
+    };
+    let raw = sizes.iter().zip(counts).map(|(&s, &c)| (s > 0.0).then(|| c / s)).collect();
+    let floats =
+        |f: &dyn Fn(&Posterior) -> f64| ColumnValues::Floats((0..rows).map(|i| f(post(i))).collect());
+    let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
+        ColumnValues::OptionalFloats((0..rows).map(|i| f(post(i))).collect())
+    };
+    vec![
+        (job.columns.count.clone(), count_values),
+        (job.columns.size.clone(), size_values),
+        ("raw_rate".to_string(), ColumnValues::OptionalFloats(raw)),
+        ("posterior_mean".to_string(), floats(&|p| p.mean)),
+        ("posterior_sd".to_string(), floats(&|p| p.sd)),
+        ("interval_lo".to_string(), floats(&|p| p.lower)),
+        ("interval_hi".to_string(), floats(&|p| p.upper)),
+        ("pool_weight".to_string(), floats(&|p| p.pool_weight)),
+        (first_name.to_string(), optional(&|p| p.first)),
+        (second_name.to_string(), optional(&|p| p.second)),
+    ]
+}
+
+/// Rejected rows gathered for the rejects table, as found in the input.
+#[derive(Default)]
+pub struct RejectRows {
+    rows: Vec<i64>,
+    groups: Vec<String>,
+    counts: Vec<String>,
+    sizes: Vec<String>,
+    columns: Vec<String>,
+    reasons: Vec<String>,
+}
+
+impl RejectRows {
+    /// Adds a rejected row (`row` 1-based), its raw values and the reason.
+    pub fn push(&mut self, row: usize, group: String, count: &Cell, size: &Cell, rejection: &Rejection) {
+        self.rows.push(row as i64);
+        self.groups.push(group);
+        self.counts.push(cell_text(count));
+        self.sizes.push(cell_text(size));
+        self.columns.push(rejection.column.clone());
+        self.reasons.push(rejection.reason.clone());
+    }
+
+    /// True when no row was rejected.
+    pub fn is_empty(&self) -> bool {
+        self.rows.is_empty()
+    }
+
+    /// Takes the rows held, as the columns of the rejects table.
+    pub fn take_columns(&mut self, names: &ColumnNames) -> Columns {
+        let taken = std::mem::take(self);
+        vec![
+            ("row".to_string(), ColumnValues::Integers(taken.rows)),
+            (names.group.clone(), ColumnValues::Texts(taken.groups)),
+            (names.count.clone(), ColumnValues::Texts(taken.counts)),
+            (names.size.clone(), ColumnValues::Texts(taken.sizes)),
+            ("column".to_string(), ColumnValues::Texts(taken.columns)),
+            ("reason".to_string(), ColumnValues::Texts(taken.reasons)),
+        ]
+    }
+}
+
+/// What the pull summary needs of each distinct pair.
+fn pair_outcomes(scored: &Scored) -> Vec<PairOutcome> {
+    scored
+        .table
+        .pairs()
+        .iter()
+        .zip(&scored.posteriors)
+        .map(|(pair, post)| PairOutcome {
+            raw_rate: (pair.size > 0.0).then(|| pair.count / pair.size),
+            posterior_mean: post.mean,
+            pool_weight: post.pool_weight,
+            groups: pair.weight,
+        })
+        .collect()
+}
+
+/// Index of the pair whose groups moved furthest, if any has a raw rate.
+pub fn max_shift_pair(scored: &Scored) -> Option<usize> {
+    pull(&pair_outcomes(scored)).max_shift_row
+}
+
+/// Counts of rows seen by a run.
+pub struct RowCounts {
+    /// Data rows in the input.
+    pub read: u64,
+    /// Rows rejected.
+    pub rejected: u64,
+}
+
+/// The run's summary; `max_shift_group` names a group of the pair that moved
+/// furthest (None when the groups themselves were not read).
+pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, max_shift_group: Option<String>) -> Summary {
+    let p = pull(&pair_outcomes(scored));
+    let mut warnings = scored.warnings.clone();
+    if rows.rejected > 0 {
+        warnings.push(format!("{} rows were rejected and left out of the fit and the output", rows.rejected));
+    }
+    Summary {
+        model: job.model.name().to_string(),
+        groups: scored.table.pairs().iter().map(|p| p.weight).sum::<f64>() as u64,
+        rows_read: rows.read,
+        rows_rejected: rows.rejected,
+        level: job.level.get(),
+        hyperprior: scored.hyperprior.clone(),
+        fit: scored.fit.clone(),
+        pull: PullReport {
+            pool_weight_mean: p.pool_weight_mean,
+            pool_weight_median: p.pool_weight_median,
+            pool_weight_p10: p.pool_weight_p10,
+            pool_weight_p90: p.pool_weight_p90,
+            mean_abs_shift: p.mean_abs_shift,
+            max_abs_shift: p.max_abs_shift,
+            max_shift_group,
+            rank_correlation: p.rank_correlation,
+        },
+        warnings,
+    }
+}
+
+/// Writes the summary file, if one was asked for; always the last file written.
+pub fn write_summary(job: &Job, summary: &Summary) -> Result<()> {
+    if let Some(path) = &job.summary {
+        let json = serde_json::to_string_pretty(summary)
+            .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
+        write_bytes_atomically(path, format!("{json}\n").as_bytes())?;
+    }
+    Ok(())
+}
