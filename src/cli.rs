@@ -20,6 +20,9 @@ pub struct Cli {
     /// Do not print the summary on the terminal.
     #[arg(long, global = true)]
     pub quiet: bool,
+    /// Print the wall time of each phase on stderr.
+    #[arg(long, global = true)]
+    pub timings: bool,
 }
 
 /// Subcommands.
@@ -148,6 +151,7 @@ fn job_of(
     pair_counts: Option<&String>,
     model: ModelKind,
     prior: PriorSource,
+    timings: bool,
 ) -> Result<Job> {
     let (count, size) = match model {
         ModelKind::BetaBinomial => {
@@ -181,6 +185,7 @@ fn job_of(
         level: Level::new(table.level)?,
         invalid,
         prior,
+        timings,
     })
 }
 
@@ -228,11 +233,15 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
 
 impl Command {
     /// Validates the arguments into a job (reading the prior file for `score`).
-    pub fn into_job(self) -> Result<Job> {
+    pub fn into_job(self, timings: bool) -> Result<Job> {
         match self {
-            Command::Fit(args) => {
-                job_of(&args.table, args.pair_counts.as_ref(), model_of(args.model), PriorSource::Fit)
-            }
+            Command::Fit(args) => job_of(
+                &args.table,
+                args.pair_counts.as_ref(),
+                model_of(args.model),
+                PriorSource::Fit,
+                timings,
+            ),
             Command::Score(args) => {
                 let summary = load_summary(&args.prior)?;
                 let saved = ModelKind::from_name(&summary.model).ok_or_else(|| {
@@ -248,6 +257,7 @@ impl Command {
                     None,
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
+                    timings,
                 )
             }
         }

@@ -13,7 +13,7 @@ fn run(cli: Cli) -> ratepool::error::Result<()> {
             .map_err(|e| ratepool::error::Error::Other(format!("cannot start {threads} threads: {e}")))?;
     }
     let quiet = cli.quiet;
-    let job = cli.command.into_job()?;
+    let job = cli.command.into_job(cli.timings)?;
     let summary = ratepool::pipeline::run(&job)?;
     for warning in &summary.warnings {
         eprintln!("ratepool: warning: {warning}");

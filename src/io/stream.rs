@@ -173,3 +173,18 @@ pub fn group_values(array: &ArrayRef) -> Result<(ColumnValues, Vec<bool>)> {
     let missing = texts.iter().map(|v| v.is_none_or(|t| t.trim().is_empty())).collect();
     Ok((ColumnValues::Texts(texts.iter().map(|v| v.unwrap_or_default().to_string()).collect()), missing))
 }
+
+/// The cell at one row of a column (for messages and the rejects file).
+pub fn cell_at(array: &ArrayRef, row: usize) -> Result<Cell> {
+    Ok(cells_of(&array.slice(row, 1))?.pop().unwrap_or(Cell::Missing))
+}
+
+/// The column's values when it is stored as 64-bit integers.
+pub fn int64_values(array: &ArrayRef) -> Option<&arrow_array::Int64Array> {
+    array.as_primitive_opt::<Int64Type>()
+}
+
+/// The column's values when it is stored as 64-bit floats.
+pub fn float64_values(array: &ArrayRef) -> Option<&arrow_array::Float64Array> {
+    array.as_primitive_opt::<Float64Type>()
+}

@@ -4,7 +4,7 @@
 use super::prior::score_pairs;
 use super::scoring::{max_shift_pair, score_columns, summarise, write_summary, RejectRows, RowCounts};
 use super::validate::validate;
-use super::{no_valid_rows, roles, size_kind, InvalidRows, Job};
+use super::{no_valid_rows, roles, size_kind, InvalidRows, Job, PhaseClock};
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
 use crate::io::frame::InputTable;
@@ -14,7 +14,9 @@ use std::path::Path;
 
 /// Runs a job over a table held in memory.
 pub fn run(job: &Job, output: &Path) -> Result<Summary> {
+    let mut clock = PhaseClock::start(job);
     let input = InputTable::read(&job.input)?;
+    clock.lap("read");
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     for (name, role) in [(&names.group, "group"), (&names.count, count_role), (&names.size, size_role)] {
@@ -38,10 +40,12 @@ pub fn run(job: &Job, output: &Path) -> Result<Summary> {
         return Err(no_valid_rows(job, rejected.len()));
     }
     let (table, pair_of_row) = PairTable::from_groups(&valid.sizes, &valid.counts);
-    let scored = score_pairs(job, table)?;
+    clock.lap("validate and count pairs");
+    let scored = score_pairs(job, table, &mut clock)?;
     let mut columns = vec![(names.group.clone(), input.passthrough(&names.group, &valid.rows)?)];
     columns.extend(score_columns(job, &valid.sizes, &valid.counts, &pair_of_row, &scored.posteriors));
     write_table(columns, output)?;
+    clock.lap("write");
     if let InvalidRows::Skip { rejects } = &job.invalid {
         let mut rows = RejectRows::default();
         for r in &rejected {

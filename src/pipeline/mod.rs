@@ -139,6 +139,29 @@ pub struct Job {
     pub invalid: InvalidRows,
     /// Prior source.
     pub prior: PriorSource,
+    /// Print each phase's wall time on stderr.
+    pub timings: bool,
+}
+
+/// Reports the wall time of successive phases on stderr, when asked to.
+pub(crate) struct PhaseClock {
+    enabled: bool,
+    last: std::time::Instant,
+}
+
+impl PhaseClock {
+    fn start(job: &Job) -> Self {
+        PhaseClock { enabled: job.timings, last: std::time::Instant::now() }
+    }
+
+    /// Ends the current phase, naming it.
+    fn lap(&mut self, phase: &str) {
+        let now = std::time::Instant::now();
+        if self.enabled {
+            eprintln!("timing {phase}: {:.3} s", (now - self.last).as_secs_f64());
+        }
+        self.last = now;
+    }
 }
 
 /// Reads a summary file written by an earlier run, to reuse its prior.

@@ -6,7 +6,7 @@
 use super::prior::score_pairs;
 use super::scoring::{summarise, write_summary, RowCounts};
 use super::validate::{check_values, group_count};
-use super::{roles, size_kind, Job};
+use super::{roles, size_kind, Job, PhaseClock};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::error::{Error, Result};
 use crate::io::frame::InputTable;
@@ -14,6 +14,7 @@ use crate::report::Summary;
 
 /// Fits the prior to a pair table; every row must be valid.
 pub fn run(job: &Job, weights: &str) -> Result<Summary> {
+    let mut clock = PhaseClock::start(job);
     let input = InputTable::read(&job.input)?;
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
@@ -38,7 +39,8 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
         let weight = group_count(&groups[row]).map_err(|reason| invalid(weights, reason))?;
         pairs.push(WeightedPair { size, count, weight });
     }
-    let scored = score_pairs(job, PairTable::from_weighted(pairs))?;
+    clock.lap("read and validate");
+    let scored = score_pairs(job, PairTable::from_weighted(pairs), &mut clock)?;
     let summary = summarise(job, RowCounts { read: input.rows() as u64, rejected: 0 }, &scored, None);
     write_summary(job, &summary)?;
     Ok(summary)

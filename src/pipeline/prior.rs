@@ -1,7 +1,7 @@
 //! Where the prior comes from (a fit to the pair table, or a saved summary)
 //! and the posterior of every distinct pair under it.
 
-use super::{Job, ModelKind, PriorSource};
+use super::{Job, ModelKind, PhaseClock, PriorSource};
 use crate::core::fit::{fit, Boundary, Fit, FitFailure};
 use crate::core::model::beta_binomial::BetaBinomial;
 use crate::core::model::gamma_poisson::GammaPoisson;
@@ -27,14 +27,14 @@ pub struct Scored {
 }
 
 /// Fits or loads the prior for `table` and scores every pair.
-pub fn score_pairs(job: &Job, table: PairTable) -> Result<Scored> {
+pub fn score_pairs(job: &Job, table: PairTable, clock: &mut PhaseClock) -> Result<Scored> {
     match job.model {
-        ModelKind::BetaBinomial => score_with::<BetaBinomial>(job, table),
-        ModelKind::GammaPoisson => score_with::<GammaPoisson>(job, table),
+        ModelKind::BetaBinomial => score_with::<BetaBinomial>(job, table, clock),
+        ModelKind::GammaPoisson => score_with::<GammaPoisson>(job, table, clock),
     }
 }
 
-fn score_with<F: Family>(job: &Job, table: PairTable) -> Result<Scored> {
+fn score_with<F: Family>(job: &Job, table: PairTable, clock: &mut PhaseClock) -> Result<Scored> {
     let (prior, hyperprior, fit_report, mut warnings) = match &job.prior {
         PriorSource::Fit => {
             let fitted = fit::<F>(&table).map_err(|failure| describe_failure(failure, job.model))?;
@@ -48,12 +48,14 @@ fn score_with<F: Family>(job: &Job, table: PairTable) -> Result<Scored> {
             (prior, summary.hyperprior.clone(), fit, Vec::new())
         }
     };
+    clock.lap(&format!("fit ({} distinct pairs)", table.pairs().len()));
     if let Prior::CompletePooling { .. } = prior {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
     let tail = job.level.tail();
     let posteriors: Vec<Posterior> =
         table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
+    clock.lap("posteriors");
     Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings })
 }
 

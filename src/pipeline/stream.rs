@@ -8,51 +8,74 @@
 use super::prior::{score_pairs, Scored};
 use super::scoring::{max_shift_pair, score_columns, summarise, write_summary, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
-use super::{no_valid_rows, roles, size_kind, InvalidRows, Job};
-use crate::core::pairs::{PairTable, WeightedPair};
+use super::{no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
+use crate::core::pairs::{key, PairMap, PairTable, WeightedPair};
 use crate::error::{Error, Result};
-use crate::io::frame::Cell;
-use crate::io::sink::{ColumnValues, TableSink};
-use crate::io::stream::{cells_of, group_values, InputBatch, ParquetParts};
+use crate::io::sink::{ColumnValues, Columns, TableSink};
+use crate::io::stream::{cell_at, float64_values, group_values, int64_values, InputBatch, ParquetParts};
 use crate::report::Summary;
-use std::collections::HashMap;
+use arrow_array::ArrayRef;
+use arrow_array::{Array, Int64Array};
 use std::path::Path;
-
-/// A pair's key: the bits of its size and count, so equal doubles meet.
-type PairKey = (u64, u64);
-
-fn key(size: f64, count: f64) -> PairKey {
-    (size.to_bits(), count.to_bits())
-}
 
 /// One batch after validation.
 struct CheckedBatch {
     group: ColumnValues,
-    counts: Vec<Cell>,
-    sizes: Vec<Cell>,
     /// Per row: (size, count), or the rejection (row 0-based within the batch).
     outcomes: Vec<std::result::Result<(f64, f64), Rejection>>,
 }
 
+/// The largest count held exactly in a double, as an integer.
+const MAX_EXACT: i64 = 1 << 53;
+
+/// (size, count) of a row whose values are plainly valid as stored (64-bit
+/// integer counts, integer or float sizes); None sends the row to the full
+/// check, which accepts the same rows with the same values and names the
+/// fault of the others. This spares building a cell per value.
+fn plainly_valid(job: &Job, counts: Option<&Int64Array>, sizes: &ArrayRef, row: usize) -> Option<(f64, f64)> {
+    let count =
+        counts.filter(|c| c.is_valid(row)).map(|c| c.value(row)).filter(|&k| (0..=MAX_EXACT).contains(&k))?;
+    let size = match (int64_values(sizes), float64_values(sizes), job.model) {
+        (Some(n), _, _) if n.is_valid(row) && (0..=MAX_EXACT).contains(&n.value(row)) => n.value(row) as f64,
+        (_, Some(e), ModelKind::GammaPoisson)
+            if e.is_valid(row) && e.value(row).is_finite() && e.value(row) >= 0.0 =>
+        {
+            e.value(row)
+        }
+        _ => return None,
+    };
+    let fine = match job.model {
+        ModelKind::BetaBinomial => count as f64 <= size,
+        ModelKind::GammaPoisson => size > 0.0 || count == 0,
+    };
+    fine.then_some((size, count as f64))
+}
+
 fn check_batch(job: &Job, batch: &InputBatch<'_>) -> Result<CheckedBatch> {
     let (group, missing) = group_values(&batch.columns[0])?;
-    let (counts, sizes) = (cells_of(&batch.columns[1])?, cells_of(&batch.columns[2])?);
+    let (count_column, size_column) = (&batch.columns[1], &batch.columns[2]);
+    let counts = int64_values(count_column);
     let names = &job.columns;
-    let outcomes = (0..missing.len())
-        .map(|row| {
-            let reject = |column: &str, reason: String| Rejection { row, column: column.to_string(), reason };
-            if missing[row] {
-                return Err(reject(&names.group, MISSING_GROUP.to_string()));
-            }
-            check_values(names, size_kind(job.model), &counts[row], &sizes[row])
+    let mut outcomes = Vec::with_capacity(missing.len());
+    for (row, &no_id) in missing.iter().enumerate() {
+        let reject = |column: &str, reason: String| Rejection { row, column: column.to_string(), reason };
+        let outcome = if no_id {
+            Err(reject(&names.group, MISSING_GROUP.to_string()))
+        } else if let Some(pair) = plainly_valid(job, counts, size_column, row) {
+            Ok(pair)
+        } else {
+            let (count, size) = (cell_at(count_column, row)?, cell_at(size_column, row)?);
+            check_values(names, size_kind(job.model), &count, &size)
                 .map_err(|(column, reason)| reject(column, reason))
-        })
-        .collect();
-    Ok(CheckedBatch { group, counts, sizes, outcomes })
+        };
+        outcomes.push(outcome);
+    }
+    Ok(CheckedBatch { group, outcomes })
 }
 
 /// Runs a job over a Parquet file or folder, two passes of `batch_rows` rows.
 pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
+    let mut clock = PhaseClock::start(job);
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let columns = [
@@ -66,11 +89,13 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
         return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
     }
     let (table, rejected) = count_pairs(job, &parts)?;
+    clock.lap("pass 1: read, validate, count pairs");
     if table.pairs().is_empty() {
         return Err(no_valid_rows(job, rejected));
     }
-    let scored = score_pairs(job, table)?;
+    let scored = score_pairs(job, table, &mut clock)?;
     let max_shift_group = score_and_write(job, &parts, &scored, output)?;
+    clock.lap("pass 2: read, score, write");
     let counts = RowCounts { read: rows_read as u64, rejected: rejected as u64 };
     let summary = summarise(job, counts, &scored, max_shift_group);
     write_summary(job, &summary)?;
@@ -79,7 +104,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
 
 /// Pass 1: the pair table of the valid rows, and how many rows were rejected.
 fn count_pairs(job: &Job, parts: &ParquetParts) -> Result<(PairTable, usize)> {
-    let mut weights: HashMap<PairKey, WeightedPair> = HashMap::new();
+    let mut weights: PairMap<WeightedPair> = PairMap::default();
     let mut rejected = 0;
     parts.for_each_batch(|batch| {
         for outcome in check_batch(job, &batch)?.outcomes {
@@ -106,68 +131,84 @@ fn count_pairs(job: &Job, parts: &ParquetParts) -> Result<(PairTable, usize)> {
     Ok((PairTable::from_weighted(weights.into_values()), rejected))
 }
 
-/// Pass 2: scores and writes every batch (and the rejects); returns the id of
-/// the first group of the pair that moved furthest.
+/// Pass 2: scores every batch and hands it to a writer thread, so that
+/// encoding the output overlaps reading and scoring the next batch; writes
+/// the rejects; returns the id of the first group of the pair that moved
+/// furthest. Batches are written in input order, so the bytes do not change.
 fn score_and_write(
     job: &Job,
     parts: &ParquetParts,
     scored: &Scored,
     output: &Path,
 ) -> Result<Option<String>> {
-    let index: HashMap<PairKey, u32> =
+    let index: PairMap<u32> =
         scored.table.pairs().iter().enumerate().map(|(i, p)| (key(p.size, p.count), i as u32)).collect();
     let furthest = max_shift_pair(scored).map(|p| p as u32);
     let mut max_shift_group = None;
     let mut sink = TableSink::create(output)?;
     let mut rejects = match &job.invalid {
-        InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default())),
+        InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
     };
-    let mut wrote_rejects = false;
-    parts.for_each_batch(|batch| {
-        let checked = check_batch(job, &batch)?;
-        let (mut kept, mut sizes, mut counts, mut pair_of_row) =
-            (Vec::new(), Vec::new(), Vec::new(), Vec::new());
-        for (row, outcome) in checked.outcomes.iter().enumerate() {
-            match outcome {
-                Ok((size, count)) => {
-                    let pair = index[&key(*size, *count)];
-                    if max_shift_group.is_none() && Some(pair) == furthest {
-                        max_shift_group = Some(checked.group.text_at(row));
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<Columns>(2);
+    std::thread::scope(|scope| {
+        let writer = scope.spawn(move || -> Result<TableSink> {
+            for columns in receiver {
+                sink.write(columns)?;
+            }
+            Ok(sink)
+        });
+        let produced = parts.for_each_batch(|batch| {
+            let checked = check_batch(job, &batch)?;
+            let (mut kept, mut sizes, mut counts, mut pair_of_row) =
+                (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+            for (row, outcome) in checked.outcomes.iter().enumerate() {
+                match outcome {
+                    Ok((size, count)) => {
+                        let pair = index[&key(*size, *count)];
+                        if max_shift_group.is_none() && Some(pair) == furthest {
+                            max_shift_group = Some(checked.group.text_at(row));
+                        }
+                        kept.push(row as u32);
+                        sizes.push(*size);
+                        counts.push(*count);
+                        pair_of_row.push(pair);
                     }
-                    kept.push(row as u32);
-                    sizes.push(*size);
-                    counts.push(*count);
-                    pair_of_row.push(pair);
-                }
-                Err(r) => {
-                    if let Some((_, held)) = &mut rejects {
-                        let group = checked.group.text_at(row);
-                        held.push(
-                            batch.first_row + row + 1,
-                            group,
-                            &checked.counts[row],
-                            &checked.sizes[row],
-                            r,
-                        );
+                    Err(r) => {
+                        if let Some((_, held, _)) = &mut rejects {
+                            let (count, size) =
+                                (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
+                            held.push(
+                                batch.first_row + row + 1,
+                                checked.group.text_at(row),
+                                &count,
+                                &size,
+                                r,
+                            );
+                        }
                     }
                 }
             }
-        }
-        let mut columns = vec![(job.columns.group.clone(), checked.group.select(&kept))];
-        columns.extend(score_columns(job, &sizes, &counts, &pair_of_row, &scored.posteriors));
-        sink.write(columns)?;
-        if let Some((rejects_sink, held)) = &mut rejects {
-            if !held.is_empty() {
-                rejects_sink.write(held.take_columns(&job.columns))?;
-                wrote_rejects = true;
+            let mut columns = vec![(job.columns.group.clone(), checked.group.select(&kept))];
+            columns.extend(score_columns(job, &sizes, &counts, &pair_of_row, &scored.posteriors));
+            sender.send(columns).map_err(|_| Error::Other("the output writer stopped".to_string()))?;
+            if let Some((rejects_sink, held, wrote)) = &mut rejects {
+                if !held.is_empty() {
+                    rejects_sink.write(held.take_columns(&job.columns))?;
+                    *wrote = true;
+                }
             }
-        }
-        Ok(())
+            Ok(())
+        });
+        drop(sender);
+        let written = writer.join().map_err(|_| Error::Other("the output writer panicked".to_string()))?;
+        // A writer failure (a full disk, say) explains a stopped producer: report it first.
+        let sink = written?;
+        produced?;
+        sink.finish()
     })?;
-    sink.finish()?;
-    if let Some((mut rejects_sink, mut held)) = rejects {
-        if !wrote_rejects {
+    if let Some((mut rejects_sink, mut held, wrote)) = rejects {
+        if !wrote {
             rejects_sink.write(held.take_columns(&job.columns))?;
         }
         rejects_sink.finish()?;
