@@ -29,6 +29,10 @@ const CHUNK: usize = 2048;
 const GRADIENT_TOLERANCE: f64 = 1e-10;
 /// Trust-region iterations before giving up.
 const MAX_ITERATIONS: u64 = 200;
+
+/// Relative size of the rounding in a log likelihood summed over many pairs
+/// (about a thousand units in the last place).
+const ROUNDING_NOISE: f64 = 1e-13;
 /// A strength beyond this is indistinguishable from no overdispersion.
 const MAX_STRENGTH: f64 = 1e15;
 /// A strength below this means no pooling at all.
@@ -167,12 +171,21 @@ impl<F: Family> Hessian for Objective<'_, F> {
 
 type TrustState = IterState<Vec<f64>, Vec<f64>, (), Vec<Vec<f64>>, (), f64>;
 
-/// Wraps a solver and stops it once the gradient norm is below a tolerance.
+/// Wraps a solver and stops it once the gradient norm is below a tolerance,
+/// or once it has stalled: with very many groups the per-group objective
+/// cannot resolve the last steps (the decrease falls below its rounding), the
+/// trust region then rejects every step and shrinks, and the Newton polish
+/// that follows finishes the job on the gradient instead.
 #[derive(Clone)]
 struct StopOnSmallGradient<S> {
     inner: S,
     tolerance: f64,
+    last_param: Option<Vec<f64>>,
+    unchanged: u32,
 }
+
+/// Iterations without any move after which the trust region is stopped.
+const STALLED_AFTER: u32 = 3;
 
 impl<O, S: Solver<O, TrustState>> Solver<O, TrustState> for StopOnSmallGradient<S> {
     fn name(&self) -> &str {
@@ -193,9 +206,19 @@ impl<O, S: Solver<O, TrustState>> Solver<O, TrustState> for StopOnSmallGradient<
         self.inner.next_iter(problem, state)
     }
     fn terminate(&mut self, state: &TrustState) -> TerminationStatus {
+        let param = state.get_param().cloned();
+        if param.is_some() && param == self.last_param {
+            self.unchanged += 1;
+        } else {
+            self.unchanged = 0;
+        }
+        self.last_param = param;
         match state.get_gradient() {
             Some(g) if norm(g) < self.tolerance => {
                 TerminationStatus::Terminated(TerminationReason::SolverConverged)
+            }
+            _ if self.unchanged >= STALLED_AFTER => {
+                TerminationStatus::Terminated(TerminationReason::SolverExit("stalled".to_string()))
             }
             _ => self.inner.terminate(state),
         }
@@ -229,6 +252,8 @@ fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], 
     let solver = StopOnSmallGradient {
         inner: TrustRegion::new(Steihaug::new().with_max_iters(20)).with_max_radius(8.0)?,
         tolerance: GRADIENT_TOLERANCE,
+        last_param: None,
+        unchanged: 0,
     };
     let result = Executor::new(objective, solver)
         .configure(|state| state.param(start.to_vec()).max_iters(MAX_ITERATIONS))
@@ -247,10 +272,17 @@ fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], 
         let step = [-(inv[0][0] * g[0] + inv[0][1] * g[1]), -(inv[1][0] * g[0] + inv[1][1] * g[1])];
         let mut scale = 1.0;
         let mut accepted = false;
+        // Near the maximum the log likelihood changes by less than its own
+        // rounding; a step that keeps it within that noise and shrinks the
+        // gradient is progress too.
+        let noise = ROUNDING_NOISE * current.log_likelihood.abs();
         for _ in 0..30 {
             let trial = [u[0] + scale * step[0], u[1] + scale * step[1]];
             let at = evaluate::<F>(table, trial);
-            if at.log_likelihood.is_finite() && at.log_likelihood >= current.log_likelihood {
+            let better = at.log_likelihood >= current.log_likelihood
+                || (at.log_likelihood >= current.log_likelihood - noise
+                    && norm(&at.gradient) < norm(&current.gradient));
+            if at.log_likelihood.is_finite() && better {
                 u = trial;
                 current = at;
                 accepted = true;

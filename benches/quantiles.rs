@@ -1,0 +1,67 @@
+//! Cost per call of the interval quantiles on realistic posterior shapes.
+//!
+//! Beta: posteriors Beta(18.3 + k, 2.0 + n − k) under the demo marketplace's
+//! fitted prior, for n on a roughly geometric grid from 0 to 200,000 ratings and
+//! shares k/n from 50% to 100%. Gamma: posteriors Gamma(6.0 + y, ·) under the
+//! demo districts' prior, for expected counts 0.01 to 10,000 and ratios 0.5 to 2.
+//! Each iteration computes the lower 2.5% point of every shape; criterion's
+//! throughput (elements per second) inverts to the time per call.
+//!
+//! `cargo bench --bench quantiles`
+
+use criterion::{criterion_group, criterion_main, Criterion, Throughput};
+use ratepool::core::quantile::{beta_quantile, gamma_quantile, Tail};
+use std::hint::black_box;
+
+fn sizes() -> Vec<f64> {
+    let mut n = vec![0.0, 1.0, 2.0, 3.0];
+    let mut x = 5.0_f64;
+    while x <= 200_000.0 {
+        n.push(x.round());
+        x *= 1.6;
+    }
+    n
+}
+
+fn beta_shapes() -> Vec<(f64, f64)> {
+    let mut shapes = Vec::new();
+    for n in sizes() {
+        for share in [0.5, 0.7, 0.8, 0.9, 0.95, 0.99, 1.0] {
+            let k = (n * share).round();
+            shapes.push((18.3 + k, 2.0 + n - k));
+        }
+    }
+    shapes
+}
+
+fn gamma_shapes() -> Vec<f64> {
+    let mut shapes = Vec::new();
+    let mut expected = 0.01_f64;
+    while expected <= 10_000.0 {
+        for ratio in [0.5, 0.8, 1.0, 1.25, 2.0] {
+            shapes.push(6.0 + (expected * ratio).round());
+        }
+        expected *= 1.6;
+    }
+    shapes
+}
+
+fn quantiles(c: &mut Criterion) {
+    let beta = beta_shapes();
+    let mut group = c.benchmark_group("quantile per call");
+    group.throughput(Throughput::Elements(beta.len() as u64));
+    group.bench_function(format!("beta, {} posterior shapes", beta.len()), |bench| {
+        bench.iter(|| {
+            beta.iter().map(|&(a, b)| beta_quantile(black_box(a), b, Tail::Lower, 0.025)).sum::<f64>()
+        })
+    });
+    let gamma = gamma_shapes();
+    group.throughput(Throughput::Elements(gamma.len() as u64));
+    group.bench_function(format!("gamma, {} posterior shapes", gamma.len()), |bench| {
+        bench.iter(|| gamma.iter().map(|&a| gamma_quantile(black_box(a), Tail::Lower, 0.025)).sum::<f64>())
+    });
+    group.finish();
+}
+
+criterion_group!(benches, quantiles);
+criterion_main!(benches);
