@@ -12,18 +12,8 @@ use ratepool::core::fit::fit;
 use ratepool::core::model::beta_binomial::BetaBinomial;
 use ratepool::core::pairs::{PairTable, WeightedPair};
 
-/// splitmix64, for fixed-seed benchmark data.
-struct SplitMix(u64);
-
-impl SplitMix {
-    fn unit(&mut self) -> f64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64
-    }
-}
+mod common;
+use common::SplitMix;
 
 /// `pairs` distinct pairs whose weights sum to about `groups`.
 fn table(pairs: usize, groups: f64) -> PairTable {

@@ -20,26 +20,16 @@ use polars::prelude::*;
 use std::sync::Arc;
 use std::time::Instant;
 
+mod common;
+use common::SplitMix;
+
 const COLUMNS: usize = 10;
 const BATCH_ROWS: usize = 1 << 16;
 
-/// splitmix64: a fixed-seed generator, enough for benchmark data.
-struct SplitMix(u64);
-
-impl SplitMix {
-    fn next_unit(&mut self) -> f64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64
-    }
-}
-
 /// One row's values: trials from a Pareto tail, successes near 90%.
 fn row(rng: &mut SplitMix) -> [f64; COLUMNS] {
-    let trials = (1.0 / (1.0 - rng.next_unit()).powf(1.0 / 1.1)).floor().min(1e6);
-    let successes = (trials * (0.8 + 0.2 * rng.next_unit())).round();
+    let trials = (1.0 / (1.0 - rng.unit()).powf(1.0 / 1.1)).floor().min(1e6);
+    let successes = (trials * (0.8 + 0.2 * rng.unit())).round();
     let mean = (successes + 18.0) / (trials + 20.0);
     let sd = (mean * (1.0 - mean) / (trials + 21.0)).sqrt();
     [
