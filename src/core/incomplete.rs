@@ -23,6 +23,9 @@ pub struct Tails {
     pub lower: f64,
     /// P(X > x).
     pub upper: f64,
+    /// ln of the kernel at x (see [`ln_gamma_kernel`], [`ln_beta_kernel`]),
+    /// computed on the way and handed on for Newton steps; −∞ at the edges.
+    pub ln_kernel: f64,
 }
 
 /// ln of x^a e^(−x) / Γ(a), which is x times the Gamma(a, 1) density at x.
@@ -33,10 +36,10 @@ pub fn ln_gamma_kernel(a: f64, x: f64) -> f64 {
 /// P(a, x) and Q(a, x) for the Gamma(a, 1) distribution, a > 0, x ≥ 0.
 pub fn gamma_tails(a: f64, x: f64) -> Tails {
     if x <= 0.0 {
-        return Tails { lower: 0.0, upper: 1.0 };
+        return Tails { lower: 0.0, upper: 1.0, ln_kernel: f64::NEG_INFINITY };
     }
     if x.is_infinite() {
-        return Tails { lower: 1.0, upper: 0.0 };
+        return Tails { lower: 1.0, upper: 0.0, ln_kernel: f64::NEG_INFINITY };
     }
     let ln_prefactor = ln_poisson_pmf(a, x);
     if x < a + 1.0 {
@@ -53,7 +56,7 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
             }
         }
         let lower = (ln_prefactor + sum.ln()).exp().min(1.0);
-        Tails { lower, upper: 1.0 - lower }
+        Tails { lower, upper: 1.0 - lower, ln_kernel: a.ln() + ln_prefactor }
     } else {
         // Q = x^a e^-x / Γ(a) · 1/(x+1−a− 1(1−a)/(x+3−a− …)), modified Lentz.
         let mut b = x + 1.0 - a;
@@ -79,8 +82,9 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
                 break;
             }
         }
-        let upper = (a.ln() + ln_prefactor + h.ln()).exp().min(1.0);
-        Tails { lower: 1.0 - upper, upper }
+        let ln_kernel = a.ln() + ln_prefactor;
+        let upper = (ln_kernel + h.ln()).exp().min(1.0);
+        Tails { lower: 1.0 - upper, upper, ln_kernel }
     }
 }
 
@@ -146,18 +150,18 @@ fn beta_continued_fraction(a: f64, b: f64, x: f64) -> f64 {
 /// 1 − x, computed by the caller without rounding where it can be.
 pub fn beta_tails(a: f64, b: f64, x: f64, y: f64) -> Tails {
     if x <= 0.0 {
-        return Tails { lower: 0.0, upper: 1.0 };
+        return Tails { lower: 0.0, upper: 1.0, ln_kernel: f64::NEG_INFINITY };
     }
     if y <= 0.0 {
-        return Tails { lower: 1.0, upper: 0.0 };
+        return Tails { lower: 1.0, upper: 0.0, ln_kernel: f64::NEG_INFINITY };
     }
     let ln_kernel = ln_beta_kernel(a, b, x, y);
     if x < (a + 1.0) / (a + b + 2.0) {
         let lower = (ln_kernel - a.ln() + beta_continued_fraction(a, b, x).ln()).exp().min(1.0);
-        Tails { lower, upper: 1.0 - lower }
+        Tails { lower, upper: 1.0 - lower, ln_kernel }
     } else {
         let upper = (ln_kernel - b.ln() + beta_continued_fraction(b, a, y).ln()).exp().min(1.0);
-        Tails { lower: 1.0 - upper, upper }
+        Tails { lower: 1.0 - upper, upper, ln_kernel }
     }
 }
 
