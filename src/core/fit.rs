@@ -128,16 +128,27 @@ pub fn pooled_log_likelihood<F: Family>(table: &PairTable, mean: f64) -> f64 {
     table.pairs().iter().map(|p: &WeightedPair| p.weight * F::pooled_log_pmf(mean, p)).sum()
 }
 
-/// Scaled objective handed to argmin.
+/// Scaled objective handed to argmin. One pass over the pairs yields the
+/// value, gradient and Hessian together; argmin asks for them one at a time
+/// at the same point, so the last evaluation is kept.
 struct Objective<'a, F> {
     table: &'a PairTable,
     scale: f64,
+    last: std::cell::RefCell<Option<([f64; 2], Evaluation)>>,
     family: std::marker::PhantomData<F>,
 }
 
 impl<F: Family> Objective<'_, F> {
     fn at(&self, u: &[f64]) -> Evaluation {
-        evaluate::<F>(self.table, [u[0], u[1]])
+        let u = [u[0], u[1]];
+        if let Some((at, evaluation)) = self.last.borrow().as_ref() {
+            if at.map(f64::to_bits) == u.map(f64::to_bits) {
+                return *evaluation;
+            }
+        }
+        let evaluation = evaluate::<F>(self.table, u);
+        *self.last.borrow_mut() = Some((u, evaluation));
+        evaluation
     }
 }
 
@@ -248,7 +259,12 @@ fn information_is_definite(h: [[f64; 2]; 2]) -> bool {
 
 /// Runs the trust region from `start`, then polishes with Newton steps.
 fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], u64), ArgminError> {
-    let objective = Objective::<F> { table, scale: 1.0 / table.groups(), family: std::marker::PhantomData };
+    let objective = Objective::<F> {
+        table,
+        scale: 1.0 / table.groups(),
+        last: std::cell::RefCell::new(None),
+        family: std::marker::PhantomData,
+    };
     let solver = StopOnSmallGradient {
         inner: TrustRegion::new(Steihaug::new().with_max_iters(20)).with_max_radius(8.0)?,
         tolerance: GRADIENT_TOLERANCE,
@@ -289,6 +305,10 @@ fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], 
                 break;
             }
             scale *= 0.5;
+            // Steps below the resolution of u change nothing: stop halving.
+            if scale * norm(&step) <= 1e-15 * (1.0 + norm(&u)) {
+                break;
+            }
         }
         iterations += 1;
         if !accepted || norm(&step) * scale <= 1e-14 * (1.0 + norm(&u)) {
