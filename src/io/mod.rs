@@ -5,6 +5,7 @@
 //! partial file.
 
 pub mod atomic;
+pub mod csv_shape;
 pub mod frame;
 pub mod sink;
 pub mod stream;

@@ -15,6 +15,9 @@ pub fn read_table(path: &Path) -> Result<DataFrame> {
     if !path.exists() {
         return Err(Error::Input(format!("{}: no such file", path.display())));
     }
+    if format == TableFormat::Csv {
+        super::csv_shape::check_csv_shape(path)?;
+    }
     let result = match format {
         TableFormat::Csv => CsvReadOptions::default()
             .with_has_header(true)

@@ -4,6 +4,7 @@
 
 mod cli;
 mod facts;
+mod faults;
 mod fits;
 mod properties;
 mod reference;

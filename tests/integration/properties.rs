@@ -1,9 +1,12 @@
-//! Property tests of the posteriors over random priors and data (proptest).
+//! Property tests of the posteriors and the fit over random priors and data
+//! (proptest).
 
 use proptest::prelude::*;
+use ratepool::core::fit::fit;
 use ratepool::core::model::beta_binomial::BetaBinomial;
 use ratepool::core::model::gamma_poisson::GammaPoisson;
 use ratepool::core::model::{Family, Prior};
+use ratepool::core::pairs::PairTable;
 
 proptest! {
     #[test]
@@ -38,5 +41,76 @@ proptest! {
         prop_assert!(p.lower <= p.upper && p.lower >= 0.0 && p.upper.is_finite());
         let wide = GammaPoisson::posterior(&prior, exposure, y, 0.005);
         prop_assert!(wide.lower <= p.lower && wide.upper >= p.upper);
+    }
+
+    #[test]
+    fn the_interval_contains_the_posterior_mean_when_both_shapes_are_at_least_one(
+        alpha in 0.05f64..200.0, beta in 0.05f64..200.0, n in 0u32..5000, frac in 0.0f64..=1.0,
+        tail in 0.0005f64..0.2,
+    ) {
+        // Below shape 1 it may fail, rightly: Beta(0.001, 1000) has more than
+        // 97.5% of its mass below its mean.
+        let k = (f64::from(n) * frac).floor();
+        let n = f64::from(n);
+        prop_assume!(alpha + k >= 1.0 && beta + n - k >= 1.0);
+        let p = BetaBinomial::posterior(&Prior::Conjugate { first: alpha, second: beta }, n, k, tail);
+        prop_assert!(p.lower <= p.mean && p.mean <= p.upper, "{:?}", p);
+        let g = GammaPoisson::posterior(&Prior::Conjugate { first: alpha, second: beta }, frac * 100.0, k, tail);
+        prop_assert!(g.lower <= g.mean && g.mean <= g.upper, "{:?}", g);
+    }
+
+    #[test]
+    fn equal_pairs_share_one_posterior(
+        sizes in proptest::collection::vec(0u32..6, 1..40), frac in 0.0f64..=1.0,
+    ) {
+        let sizes: Vec<f64> = sizes.into_iter().map(f64::from).collect();
+        let counts: Vec<f64> = sizes.iter().map(|n| (n * frac).floor()).collect();
+        let (table, pair_of_group) = PairTable::from_groups(&sizes, &counts);
+        let prior = Prior::Conjugate { first: 2.0, second: 3.0 };
+        for i in 0..sizes.len() {
+            for j in 0..sizes.len() {
+                if (sizes[i], counts[i]) == (sizes[j], counts[j]) {
+                    prop_assert_eq!(pair_of_group[i], pair_of_group[j]);
+                }
+            }
+            let pair = table.pairs()[pair_of_group[i] as usize];
+            prop_assert_eq!((pair.size, pair.count), (sizes[i], counts[i]));
+            let shared = BetaBinomial::posterior(&prior, pair.size, pair.count, 0.025);
+            prop_assert_eq!(shared, BetaBinomial::posterior(&prior, sizes[i], counts[i], 0.025));
+        }
+    }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(128))]
+
+    #[test]
+    fn a_beta_binomial_fit_never_ends_below_its_method_of_moments_start(
+        groups in proptest::collection::vec((0u32..60, 0.0f64..=1.0), 2..80),
+    ) {
+        let sizes: Vec<f64> = groups.iter().map(|&(n, _)| f64::from(n)).collect();
+        let counts: Vec<f64> = groups.iter().map(|&(n, f)| (f64::from(n) * f).floor()).collect();
+        let (table, _) = PairTable::from_groups(&sizes, &counts);
+        // Unidentifiable data are a defined refusal, not a panic; a fit must not lose ground.
+        if let Ok(fitted) = fit::<BetaBinomial>(&table) {
+            let slack = 1e-9 * fitted.start_log_likelihood.abs().max(1.0);
+            prop_assert!(fitted.log_marginal_likelihood >= fitted.start_log_likelihood - slack, "{:?}", fitted);
+            prop_assert!(fitted.log_marginal_likelihood.is_finite() && fitted.mean.is_finite());
+        }
+    }
+
+    #[test]
+    fn a_gamma_poisson_fit_never_ends_below_its_method_of_moments_start(
+        groups in proptest::collection::vec((1e-3f64..50.0, 0.0f64..4.0, 0.0f64..=1.0), 2..80),
+    ) {
+        let sizes: Vec<f64> = groups.iter().map(|g| g.0).collect();
+        // Counts around a rate that varies from group to group.
+        let counts: Vec<f64> = groups.iter().map(|g| (g.0 * g.1 * (0.5 + g.2)).floor()).collect();
+        let (table, _) = PairTable::from_groups(&sizes, &counts);
+        if let Ok(fitted) = fit::<GammaPoisson>(&table) {
+            let slack = 1e-9 * fitted.start_log_likelihood.abs().max(1.0);
+            prop_assert!(fitted.log_marginal_likelihood >= fitted.start_log_likelihood - slack, "{:?}", fitted);
+            prop_assert!(fitted.log_marginal_likelihood.is_finite() && fitted.mean.is_finite());
+        }
     }
 }
