@@ -264,7 +264,13 @@ pub fn scaled_trigamma_excess(x: f64, m: f64) -> f64 {
 /// ln of the binomial pmf C(n, k) p^k (1 − p)^(n − k), in Loader's saddle-point
 /// form, accurate in relative terms for n up to 1e15 and beyond.
 pub fn ln_binomial_pmf(k: f64, n: f64, p: f64) -> f64 {
-    let q = 1.0 - p;
+    ln_binomial_pmf_pq(k, n, p, 1.0 - p)
+}
+
+/// [`ln_binomial_pmf`] with q = 1 − p given by the caller, who can often form
+/// it without the rounding of 1 − p near p = 1. `k` and `n` may be any reals
+/// with 0 ≤ k ≤ n (Loader's `dbinom_raw`).
+pub fn ln_binomial_pmf_pq(k: f64, n: f64, p: f64, q: f64) -> f64 {
     if p == 0.0 {
         return if k == 0.0 { 0.0 } else { f64::NEG_INFINITY };
     }
@@ -272,10 +278,10 @@ pub fn ln_binomial_pmf(k: f64, n: f64, p: f64) -> f64 {
         return if k == n { 0.0 } else { f64::NEG_INFINITY };
     }
     if k == 0.0 {
-        return n * (-p).ln_1p();
+        return n * if p < 0.5 { (-p).ln_1p() } else { q.ln() };
     }
     if k == n {
-        return n * p.ln();
+        return n * if q < 0.5 { (-q).ln_1p() } else { p.ln() };
     }
     let m = n - k;
     let lc = stirling_error(n)
@@ -284,6 +290,15 @@ pub fn ln_binomial_pmf(k: f64, n: f64, p: f64) -> f64 {
         - deviance_term(k, n * p)
         - deviance_term(m, n * q);
     lc + 0.5 * (n / (2.0 * PI * k * m)).ln()
+}
+
+/// ln B(x, y) less its entropy part x ln(x/(x+y)) + y ln(y/(x+y)): what is
+/// left is small, ½ ln(2π(x+y)/(xy)) + δ(x) + δ(y) − δ(x+y), with Loader's δ.
+/// Differences of log Beta functions at huge arguments are formed from these
+/// remainders and deviance terms, never from lnΓ values of size x ln x.
+pub fn ln_beta_remainder(x: f64, y: f64) -> f64 {
+    let n = x + y;
+    0.5 * (2.0 * PI * n / (x * y)).ln() + stirling_error(x) + stirling_error(y) - stirling_error(n)
 }
 
 /// ln of the Poisson pmf λ^y e^(−λ) / y!, in Loader's form. `y` may be any

@@ -14,7 +14,8 @@ use super::{Evaluation, Family, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
 use crate::core::special::{
-    ln_gamma, ln_poisson_pmf, ln_rising_excess, log1p_minus, scaled_digamma_excess, scaled_trigamma_excess,
+    digamma_diff, ln_binomial_pmf_pq, ln_poisson_pmf, ln_rising_excess, log1p_minus, scaled_digamma_excess,
+    scaled_trigamma_excess, trigamma_diff,
 };
 
 /// The gamma-Poisson family (see the module docs).
@@ -29,15 +30,17 @@ pub fn ln_pmf(y: f64, exposure: f64, shape: f64, rate: f64) -> f64 {
 /// The log pmf from λ = Eμ, the shape a and t = λ/a = E/b.
 ///
 /// For t ≤ 1 it is the Poisson log pmf plus terms that vanish as a → ∞; for
-/// t > 1 (exposure beyond the prior's strength) that split would cancel two
-/// terms of size λ, so the direct form y ln(a t) − ln y! + R(a, y)
-/// − (a + y) ln(1 + t) is used instead.
+/// t > 1 (exposure beyond the prior's strength) that split would cancel terms
+/// of size λ, so the binomial form below is used instead.
 fn log_pmf_at(y: f64, lambda: f64, a: f64, t: f64) -> f64 {
     if t <= 1.0 {
         ln_poisson_pmf(y, lambda) + ln_rising_excess(a, y) - a * log1p_minus(t) - y * t.ln_1p()
     } else {
-        let log_power = if y == 0.0 { 0.0 } else { y * lambda.ln() };
-        log_power - ln_gamma(y + 1.0) + ln_rising_excess(a, y) - (a + y) * t.ln_1p()
+        // The negative binomial as a/(a + y) times a binomial pmf of a
+        // "successes" in a + y trials with p = 1/(1 + t) (Loader 2000; the
+        // form of R's dnbinom), every term small even for y near 1e12.
+        let q = 1.0 / (1.0 + t);
+        (a / (a + y)).ln() + ln_binomial_pmf_pq(a, a + y, q, t * q)
     }
 }
 
@@ -68,10 +71,13 @@ impl Family for GammaPoisson {
                 scaled_trigamma_excess(a, y) - a * excess - lambda * t * q - residual * t * q * q,
             )
         } else {
-            let log_term = a * t.ln_1p();
+            // For t > 1 the excess forms are each of size y and cancel against
+            // t(a + y)/(1 + t); the plain digamma difference, of size ln(y/a),
+            // keeps the digits: g₂ = a[ψ(a+y) − ψ(a) − ln(1+t)] − (y − λ)q.
+            let gap = digamma_diff(a, y) - t.ln_1p();
             (
-                scaled_digamma_excess(a, y) - log_term + t * (a + y) * q,
-                scaled_trigamma_excess(a, y) - log_term + lambda * (1.0 + 2.0 * t) * q * q - y * t * q * q,
+                a * gap - residual * q,
+                a * gap + a * a * trigamma_diff(a, y) + lambda * q - residual * q * (1.0 - q),
             )
         };
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
