@@ -65,35 +65,35 @@ fn assert_reference_fit(s: &Value, reference: &Value, names: [&str; 2], ll_toler
     assert!((got - expected).abs() < ll_tolerance, "log marginal likelihood {got} vs {expected}");
 }
 
+/// Fits a reference case and checks the prior and a finite table.
+fn assert_case_fits(model: &str, name: &str, parameters: [&str; 2]) {
+    let reference = case(name);
+    let rows = reference["rows"].as_array().unwrap();
+    let csv: String = if model == "beta-binomial" {
+        beta_binomial_csv(&reference["rows"])
+    } else {
+        let lines = rows.iter().enumerate().map(|(i, r)| format!("a{i},{},{}\n", r["events"], r["exposure"]));
+        std::iter::once("id,y,e\n".to_string()).chain(lines).collect()
+    };
+    let (code, message, s, table) = fit_csv(model, &csv);
+    assert_eq!(code, Some(0), "{name}: {message}");
+    assert_reference_fit(&s.unwrap(), &reference, parameters, 1e-6);
+    assert_finite_table(&table.unwrap());
+}
+
 #[test]
 fn a_strength_near_1e8_with_trials_up_to_1e12_matches_the_reference() {
-    let reference = case("strength_near_1e8");
-    let (code, message, s, table) = fit_csv("beta-binomial", &beta_binomial_csv(&reference["rows"]));
-    assert_eq!(code, Some(0), "{message}");
-    assert_reference_fit(&s.unwrap(), &reference, ["alpha", "beta"], 1e-6);
-    assert_finite_table(&table.unwrap());
+    assert_case_fits("beta-binomial", "strength_near_1e8", ["alpha", "beta"]);
 }
 
 #[test]
 fn a_strength_near_1e_minus_3_with_zero_and_all_successes_matches_the_reference() {
-    let reference = case("strength_near_1e-3");
-    let (code, message, s, table) = fit_csv("beta-binomial", &beta_binomial_csv(&reference["rows"]));
-    assert_eq!(code, Some(0), "{message}");
-    assert_reference_fit(&s.unwrap(), &reference, ["alpha", "beta"], 1e-6);
-    assert_finite_table(&table.unwrap());
+    assert_case_fits("beta-binomial", "strength_near_1e-3", ["alpha", "beta"]);
 }
 
 #[test]
 fn exposures_from_1e_minus_6_to_1e9_match_the_reference() {
-    let reference = case("exposures_1e-6_to_1e9");
-    let mut csv = String::from("id,y,e\n");
-    for (i, r) in reference["rows"].as_array().unwrap().iter().enumerate() {
-        csv.push_str(&format!("a{i},{},{}\n", r["events"], r["exposure"]));
-    }
-    let (code, message, s, table) = fit_csv("gamma-poisson", &csv);
-    assert_eq!(code, Some(0), "{message}");
-    assert_reference_fit(&s.unwrap(), &reference, ["shape", "rate"], 1e-6);
-    assert_finite_table(&table.unwrap());
+    assert_case_fits("gamma-poisson", "exposures_1e-6_to_1e9", ["shape", "rate"]);
 }
 
 #[test]
