@@ -7,6 +7,7 @@ mod edges;
 mod facts;
 mod faults;
 mod fits;
+mod fuzz_corpus;
 mod properties;
 mod reference;
 mod scale;
