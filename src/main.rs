@@ -25,7 +25,20 @@ fn run(cli: Cli) -> ratepool::error::Result<()> {
 }
 
 fn main() -> ExitCode {
-    match run(Cli::parse()) {
+    let cli = Cli::parse();
+    // Panics inside a reader are turned into input errors where they happen
+    // (`io::guard`); the default hook would still print each one as a crash.
+    // Print nothing there, and report a panic that escapes as an internal error.
+    if std::env::var_os("RUST_BACKTRACE").is_none() {
+        std::panic::set_hook(Box::new(|_| {}));
+    }
+    let outcome = std::panic::catch_unwind(|| run(cli)).unwrap_or_else(|payload| {
+        Err(ratepool::error::Error::Other(format!(
+            "internal error: {}; please report this with the input",
+            ratepool::io::guard::panic_message(payload.as_ref())
+        )))
+    });
+    match outcome {
         Ok(()) => ExitCode::SUCCESS,
         Err(error) => {
             eprintln!("ratepool: error: {error}");

@@ -7,6 +7,7 @@
 pub mod atomic;
 pub mod csv_shape;
 pub mod frame;
+pub mod guard;
 pub mod sink;
 pub mod stream;
 pub mod table;

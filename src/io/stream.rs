@@ -3,6 +3,7 @@
 //! through arrow-rs. Memory follows the batch size, not the file size.
 
 use super::frame::{parse_text, Cell};
+use super::guard::guard_read;
 use super::sink::ColumnValues;
 use crate::error::{Error, Result};
 use arrow_array::cast::AsArray;
@@ -85,7 +86,7 @@ impl ParquetParts {
 
     fn builder(file: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
         let handle = File::open(file).map_err(|e| read_error(file, e))?;
-        ParquetRecordBatchReaderBuilder::try_new(handle).map_err(|e| read_error(file, e))
+        guard_read(file, || ParquetRecordBatchReaderBuilder::try_new(handle).map_err(|e| read_error(file, e)))
     }
 
     /// Total rows over all parts, from the file footers.
@@ -106,13 +107,16 @@ impl ParquetParts {
             let roots: Vec<usize> =
                 self.columns.iter().filter_map(|name| schema.index_of(name).ok()).collect();
             let mask = ProjectionMask::roots(builder.parquet_schema(), roots);
-            let reader = builder
-                .with_projection(mask)
-                .with_batch_size(self.batch_rows)
-                .build()
-                .map_err(|e| read_error(file, e))?;
+            let mut reader = guard_read(file, || {
+                builder
+                    .with_projection(mask)
+                    .with_batch_size(self.batch_rows)
+                    .build()
+                    .map_err(|e| read_error(file, e))
+            })?;
             let mut first_row_in_file = 0;
-            for batch in reader {
+            // Only the decoding is guarded: a panic in `visit` is a bug, not a damaged file.
+            while let Some(batch) = guard_read(file, || Ok(reader.next()))? {
                 let batch = batch.map_err(|e| read_error(file, e))?;
                 let rows = batch.num_rows();
                 let columns = self

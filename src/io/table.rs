@@ -18,16 +18,18 @@ pub fn read_table(path: &Path) -> Result<DataFrame> {
     if format == TableFormat::Csv {
         super::csv_shape::check_csv_shape(path)?;
     }
-    let result = match format {
-        TableFormat::Csv => CsvReadOptions::default()
-            .with_has_header(true)
-            .with_infer_schema_length(Some(0))
-            .with_raise_if_empty(true)
-            .try_into_reader_with_file_path(Some(path.to_path_buf()))
-            .and_then(|reader| reader.finish()),
-        TableFormat::Parquet => std::fs::File::open(path)
-            .map_err(PolarsError::from)
-            .and_then(|file| ParquetReader::new(file).finish()),
-    };
+    let result = super::guard::guard_read(path, || {
+        Ok(match format {
+            TableFormat::Csv => CsvReadOptions::default()
+                .with_has_header(true)
+                .with_infer_schema_length(Some(0))
+                .with_raise_if_empty(true)
+                .try_into_reader_with_file_path(Some(path.to_path_buf()))
+                .and_then(|reader| reader.finish()),
+            TableFormat::Parquet => std::fs::File::open(path)
+                .map_err(PolarsError::from)
+                .and_then(|file| ParquetReader::new(file).finish()),
+        })
+    })?;
     result.map_err(|e| Error::Input(format!("{}: cannot read the table: {e}", path.display())))
 }

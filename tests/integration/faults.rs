@@ -152,3 +152,14 @@ fn a_truncated_parquet_file_is_bad_input() {
     assert_eq!(out.status.code(), Some(2), "{}", stderr(&out));
     assert!(!dir.path().join("out.csv").exists());
 }
+
+#[test]
+fn a_parquet_file_that_makes_the_decoder_panic_is_bad_input() {
+    // Found by the fuzz target (fuzz/regressions/parquet-metadata-thrift-bool):
+    // damaged metadata on which polars' Parquet decoder panics instead of
+    // returning an error. The first byte is the harness's control byte.
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fuzz/regressions/parquet-metadata-thrift-bool");
+    let bytes = std::fs::read(path).unwrap();
+    assert_bad_table("in.parquet", &bytes[1..], &["in.parquet", "the file is damaged"]);
+}
