@@ -2,7 +2,7 @@
 //! out of input columns for validation, and passing columns through to the
 //! output.
 
-use super::sink::{write_table, ColumnValues, Columns};
+use super::sink::ColumnValues;
 use crate::error::{Error, Result};
 use polars::prelude::*;
 use std::path::{Path, PathBuf};
@@ -145,16 +145,4 @@ impl InputTable {
         let texts = texts.str().map_err(|e| polars_error(&self.path, e))?;
         Ok(ColumnValues::Texts(texts.iter().map(|v| v.unwrap_or_default().to_string()).collect()))
     }
-
-    /// Writes `kept` rows of column `passthrough` followed by `columns`.
-    pub fn write_with(&self, passthrough: &str, kept: &[u32], columns: Columns, path: &Path) -> Result<()> {
-        let mut out = vec![(passthrough.to_string(), self.passthrough(passthrough, kept)?)];
-        out.extend(columns);
-        write_table(out, path)
-    }
-}
-
-/// Writes a table of plain columns (for rejected rows), atomically.
-pub fn write_plain(columns: Columns, path: &Path) -> Result<()> {
-    write_table(columns, path)
 }

@@ -2,9 +2,9 @@
 //! for repeats, and the output is written in one batch.
 
 use super::prior::score_pairs;
-use super::scoring::{max_shift_pair, score_columns, summarise, write_summary, RejectRows, RowCounts};
+use super::scoring::{score_columns, summarise, write_summary, RejectRows, RowCounts};
 use super::validate::validate;
-use super::{no_valid_rows, roles, size_kind, InvalidRows, Job, PhaseClock};
+use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, PhaseClock};
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
 use crate::io::frame::InputTable;
@@ -23,7 +23,7 @@ pub fn run(job: &Job, output: &Path) -> Result<Summary> {
         input.require_column(name, role)?;
     }
     if input.rows() == 0 {
-        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
+        return Err(no_data_rows(job));
     }
     let groups = input.texts(&names.group)?;
     let (counts, sizes) = (input.cells(&names.count)?, input.cells(&names.size)?);
@@ -54,7 +54,9 @@ pub fn run(job: &Job, output: &Path) -> Result<Summary> {
         }
         write_table(rows.take_columns(names), rejects)?;
     }
-    let max_shift_group = max_shift_pair(&scored)
+    let max_shift_group = scored
+        .pull
+        .max_shift_row
         .and_then(|pair| pair_of_row.iter().position(|&p| p as usize == pair))
         .and_then(|i| groups[valid.rows[i] as usize].clone());
     let counts = RowCounts { read: input.rows() as u64, rejected: rejected.len() as u64 };

@@ -196,6 +196,10 @@ fn size_kind(model: ModelKind) -> validate::SizeKind {
     }
 }
 
+fn no_data_rows(job: &Job) -> Error {
+    Error::Input(format!("{}: the input has no data rows", job.input.display()))
+}
+
 fn no_valid_rows(job: &Job, rejected: usize) -> Error {
     Error::Input(format!("{}: no valid data rows ({rejected} rejected)", job.input.display()))
 }

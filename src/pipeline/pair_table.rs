@@ -6,7 +6,7 @@
 use super::prior::score_pairs;
 use super::scoring::{summarise, write_summary, RowCounts};
 use super::validate::{check_values, group_count};
-use super::{roles, size_kind, Job, PhaseClock};
+use super::{no_data_rows, roles, size_kind, Job, PhaseClock};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::error::{Error, Result};
 use crate::io::frame::InputTable;
@@ -22,7 +22,7 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
         input.require_column(name, role)?;
     }
     if input.rows() == 0 {
-        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
+        return Err(no_data_rows(job));
     }
     let (counts, sizes, groups) =
         (input.cells(&names.count)?, input.cells(&names.size)?, input.cells(weights)?);

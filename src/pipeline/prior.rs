@@ -1,7 +1,9 @@
 //! Where the prior comes from (a fit to the pair table, or a saved summary)
 //! and the posterior of every distinct pair under it.
 
+use super::scoring::pull_of_pairs;
 use super::{Job, ModelKind, PhaseClock, PriorSource};
+use crate::core::diagnostics::Pull;
 use crate::core::fit::{fit, Boundary, Fit, FitFailure};
 use crate::core::model::beta_binomial::BetaBinomial;
 use crate::core::model::gamma_poisson::GammaPoisson;
@@ -24,6 +26,8 @@ pub struct Scored {
     pub fit: FitReport,
     /// Boundary and pooling warnings.
     pub warnings: Vec<String>,
+    /// How far the groups were pulled; `max_shift_row` indexes the pairs.
+    pub pull: Pull,
 }
 
 /// Fits or loads the prior for `table` and scores every pair.
@@ -56,7 +60,8 @@ fn score_with<F: Family>(job: &Job, table: PairTable, clock: &mut PhaseClock) ->
     let posteriors: Vec<Posterior> =
         table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
     clock.lap("posteriors");
-    Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings })
+    let pull = pull_of_pairs(&table, &posteriors);
+    Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings, pull })
 }
 
 fn fit_warnings(fitted: &Fit) -> Vec<String> {

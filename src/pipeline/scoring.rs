@@ -4,8 +4,9 @@
 use super::prior::Scored;
 use super::validate::{cell_text, ColumnNames, Rejection};
 use super::{Job, ModelKind};
-use crate::core::diagnostics::{pull, PairOutcome};
+use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
+use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
 use crate::io::atomic::write_bytes_atomically;
 use crate::io::frame::Cell;
@@ -93,25 +94,20 @@ impl RejectRows {
     }
 }
 
-/// What the pull summary needs of each distinct pair.
-fn pair_outcomes(scored: &Scored) -> Vec<PairOutcome> {
-    scored
-        .table
+/// The pull summary over all groups, from each distinct pair and its posterior.
+pub fn pull_of_pairs(table: &PairTable, posteriors: &[Posterior]) -> Pull {
+    let outcomes: Vec<PairOutcome> = table
         .pairs()
         .iter()
-        .zip(&scored.posteriors)
+        .zip(posteriors)
         .map(|(pair, post)| PairOutcome {
             raw_rate: (pair.size > 0.0).then(|| pair.count / pair.size),
             posterior_mean: post.mean,
             pool_weight: post.pool_weight,
             groups: pair.weight,
         })
-        .collect()
-}
-
-/// Index of the pair whose groups moved furthest, if any has a raw rate.
-pub fn max_shift_pair(scored: &Scored) -> Option<usize> {
-    pull(&pair_outcomes(scored)).max_shift_row
+        .collect();
+    pull(&outcomes)
 }
 
 /// Counts of rows seen by a run.
@@ -125,7 +121,7 @@ pub struct RowCounts {
 /// The run's summary; `max_shift_group` names a group of the pair that moved
 /// furthest (None when the groups themselves were not read).
 pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, max_shift_group: Option<String>) -> Summary {
-    let p = pull(&pair_outcomes(scored));
+    let p = &scored.pull;
     let mut warnings = scored.warnings.clone();
     if rows.rejected > 0 {
         warnings.push(format!("{} rows were rejected and left out of the fit and the output", rows.rejected));

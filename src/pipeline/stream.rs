@@ -6,16 +6,15 @@
 //! groups. The output equals the in-memory layout's (same rows, same values).
 
 use super::prior::{score_pairs, Scored};
-use super::scoring::{max_shift_pair, score_columns, summarise, write_summary, RejectRows, RowCounts};
+use super::scoring::{score_columns, summarise, write_summary, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
-use super::{no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
+use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
 use crate::core::pairs::{key, PairMap, PairTable, WeightedPair};
 use crate::error::{Error, Result};
 use crate::io::sink::{ColumnValues, Columns, TableSink};
 use crate::io::stream::{cell_at, float64_values, group_values, int64_values, InputBatch, ParquetParts};
 use crate::report::Summary;
-use arrow_array::ArrayRef;
-use arrow_array::{Array, Int64Array};
+use arrow_array::{Array, Float64Array, Int64Array};
 use std::path::Path;
 
 /// One batch after validation.
@@ -32,10 +31,13 @@ const MAX_EXACT: i64 = 1 << 53;
 /// integer counts, integer or float sizes); None sends the row to the full
 /// check, which accepts the same rows with the same values and names the
 /// fault of the others. This spares building a cell per value.
-fn plainly_valid(job: &Job, counts: Option<&Int64Array>, sizes: &ArrayRef, row: usize) -> Option<(f64, f64)> {
-    let count =
-        counts.filter(|c| c.is_valid(row)).map(|c| c.value(row)).filter(|&k| (0..=MAX_EXACT).contains(&k))?;
-    let size = match (int64_values(sizes), float64_values(sizes), job.model) {
+fn plainly_valid(job: &Job, stored: &StoredTypes<'_>, row: usize) -> Option<(f64, f64)> {
+    let count = stored
+        .counts
+        .filter(|c| c.is_valid(row))
+        .map(|c| c.value(row))
+        .filter(|&k| (0..=MAX_EXACT).contains(&k))?;
+    let size = match (stored.integer_sizes, stored.float_sizes, job.model) {
         (Some(n), _, _) if n.is_valid(row) && (0..=MAX_EXACT).contains(&n.value(row)) => n.value(row) as f64,
         (_, Some(e), ModelKind::GammaPoisson)
             if e.is_valid(row) && e.value(row).is_finite() && e.value(row) >= 0.0 =>
@@ -51,17 +53,29 @@ fn plainly_valid(job: &Job, counts: Option<&Int64Array>, sizes: &ArrayRef, row: 
     fine.then_some((size, count as f64))
 }
 
+/// A batch's count and size columns as stored, when plainly typed; found once
+/// per batch rather than once per row.
+struct StoredTypes<'a> {
+    counts: Option<&'a Int64Array>,
+    integer_sizes: Option<&'a Int64Array>,
+    float_sizes: Option<&'a Float64Array>,
+}
+
 fn check_batch(job: &Job, batch: &InputBatch<'_>) -> Result<CheckedBatch> {
     let (group, missing) = group_values(&batch.columns[0])?;
     let (count_column, size_column) = (&batch.columns[1], &batch.columns[2]);
-    let counts = int64_values(count_column);
+    let stored = StoredTypes {
+        counts: int64_values(count_column),
+        integer_sizes: int64_values(size_column),
+        float_sizes: float64_values(size_column),
+    };
     let names = &job.columns;
     let mut outcomes = Vec::with_capacity(missing.len());
     for (row, &no_id) in missing.iter().enumerate() {
         let reject = |column: &str, reason: String| Rejection { row, column: column.to_string(), reason };
         let outcome = if no_id {
             Err(reject(&names.group, MISSING_GROUP.to_string()))
-        } else if let Some(pair) = plainly_valid(job, counts, size_column, row) {
+        } else if let Some(pair) = plainly_valid(job, &stored, row) {
             Ok(pair)
         } else {
             let (count, size) = (cell_at(count_column, row)?, cell_at(size_column, row)?);
@@ -86,7 +100,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     let parts = ParquetParts::open(&job.input, &columns, batch_rows)?;
     let rows_read = parts.rows()?;
     if rows_read == 0 {
-        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
+        return Err(no_data_rows(job));
     }
     let (table, rejected) = count_pairs(job, &parts)?;
     clock.lap("pass 1: read, validate, count pairs");
@@ -143,7 +157,7 @@ fn score_and_write(
 ) -> Result<Option<String>> {
     let index: PairMap<u32> =
         scored.table.pairs().iter().enumerate().map(|(i, p)| (key(p.size, p.count), i as u32)).collect();
-    let furthest = max_shift_pair(scored).map(|p| p as u32);
+    let furthest = scored.pull.max_shift_row.map(|p| p as u32);
     let mut max_shift_group = None;
     let mut sink = TableSink::create(output)?;
     let mut rejects = match &job.invalid {
