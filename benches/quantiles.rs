@@ -4,8 +4,9 @@
 //! fitted prior, for n on a roughly geometric grid from 0 to 200,000 ratings and
 //! shares k/n from 50% to 100%. Gamma: posteriors Gamma(6.0 + y, ·) under the
 //! demo districts' prior, for expected counts 0.01 to 10,000 and ratios 0.5 to 2.
-//! Each iteration computes the lower 2.5% point of every shape; criterion's
-//! throughput (elements per second) inverts to the time per call.
+//! Each iteration computes both ends of the 95% interval of every shape (the
+//! lower tail's 2.5% point and the upper tail's), as scoring does; criterion's
+//! throughput (quantiles per second) inverts to the time per call.
 //!
 //! `cargo bench --bench quantiles`
 
@@ -49,16 +50,29 @@ fn gamma_shapes() -> Vec<f64> {
 fn quantiles(c: &mut Criterion) {
     let beta = beta_shapes();
     let mut group = c.benchmark_group("quantile per call");
-    group.throughput(Throughput::Elements(beta.len() as u64));
-    group.bench_function(format!("beta, {} posterior shapes", beta.len()), |bench| {
+    group.throughput(Throughput::Elements(2 * beta.len() as u64));
+    group.bench_function(format!("beta, {} posterior shapes, both ends", beta.len()), |bench| {
         bench.iter(|| {
-            beta.iter().map(|&(a, b)| beta_quantile(black_box(a), b, Tail::Lower, 0.025)).sum::<f64>()
+            beta.iter()
+                .map(|&(a, b)| {
+                    let (a, b) = (black_box(a), black_box(b));
+                    beta_quantile(a, b, Tail::Lower, 0.025) + beta_quantile(a, b, Tail::Upper, 0.025)
+                })
+                .sum::<f64>()
         })
     });
     let gamma = gamma_shapes();
-    group.throughput(Throughput::Elements(gamma.len() as u64));
-    group.bench_function(format!("gamma, {} posterior shapes", gamma.len()), |bench| {
-        bench.iter(|| gamma.iter().map(|&a| gamma_quantile(black_box(a), Tail::Lower, 0.025)).sum::<f64>())
+    group.throughput(Throughput::Elements(2 * gamma.len() as u64));
+    group.bench_function(format!("gamma, {} posterior shapes, both ends", gamma.len()), |bench| {
+        bench.iter(|| {
+            gamma
+                .iter()
+                .map(|&a| {
+                    let a = black_box(a);
+                    gamma_quantile(a, Tail::Lower, 0.025) + gamma_quantile(a, Tail::Upper, 0.025)
+                })
+                .sum::<f64>()
+        })
     });
     group.finish();
 }

@@ -1,8 +1,9 @@
 //! Regularised incomplete gamma and beta functions, both tails at once.
 //!
 //! Methods: the power series and Legendre continued fraction for the gamma
-//! function, and the continued fraction of Numerical Recipes §6.4 (Lentz's
-//! method) for the beta function, each evaluated on the side where it
+//! function, and the continued fraction of Numerical Recipes §6.4 for the beta
+//! function (both fractions by a division-free forward recurrence, see
+//! [`continued_fraction`]), each evaluated on the side where it
 //! converges, so that the tail it returns directly is accurate in relative
 //! terms and the other is one minus it. The prefactors x^a e^(−x)/Γ(a+1) and
 //! x^a (1−x)^b / B(a, b) are taken in Loader's saddle-point form
@@ -13,7 +14,6 @@
 use crate::core::special::{deviance_term, ln_poisson_pmf, stirling_error};
 use std::f64::consts::PI;
 
-const TINY: f64 = 1e-300;
 const MAX_TERMS: usize = 10_000_000;
 
 /// Lower and upper tail probabilities (P, Q) of a distribution at a point.
@@ -58,30 +58,14 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
         let lower = (ln_prefactor + sum.ln()).exp().min(1.0);
         Tails { lower, upper: 1.0 - lower, ln_kernel: a.ln() + ln_prefactor }
     } else {
-        // Q = x^a e^-x / Γ(a) · 1/(x+1−a− 1(1−a)/(x+3−a− …)), modified Lentz.
-        let mut b = x + 1.0 - a;
-        let mut c = 1.0 / TINY;
-        let mut d = 1.0 / b;
-        let mut h = d;
-        for i in 1..MAX_TERMS {
-            let fi = i as f64;
-            let an = -fi * (fi - a);
-            b += 2.0;
-            d = an * d + b;
-            if d.abs() < TINY {
-                d = TINY;
-            }
-            c = b + an / c;
-            if c.abs() < TINY {
-                c = TINY;
-            }
-            d = 1.0 / d;
-            let delta = d * c;
-            h *= delta;
-            if (delta - 1.0).abs() < f64::EPSILON {
-                break;
-            }
-        }
+        // Q = x^a e^-x / Γ(a) · 1/(x+1−a− 1(1−a)/(x+3−a− …)) (Legendre).
+        let first = x + 1.0 - a;
+        let h = 1.0
+            / continued_fraction(first, |k| {
+                let odd = 2.0 * k - 1.0;
+                let even = 2.0 * k;
+                ((-odd * (odd - a), first + 2.0 * odd), (-even * (even - a), first + 2.0 * even))
+            });
         let ln_kernel = a.ln() + ln_prefactor;
         let upper = (ln_kernel + h.ln()).exp().min(1.0);
         Tails { lower: 1.0 - upper, upper, ln_kernel }
@@ -101,49 +85,63 @@ pub fn ln_beta_kernel(a: f64, b: f64, x: f64, y: f64) -> f64 {
     (a * b / n).ln() + ln_binomial_raw
 }
 
-/// Continued fraction for I_x(a, b) (Numerical Recipes `betacf`).
-fn beta_continued_fraction(a: f64, b: f64, x: f64) -> f64 {
-    let qab = a + b;
-    let qap = a + 1.0;
-    let qam = a - 1.0;
-    let mut c = 1.0;
-    let mut d = 1.0 - qab * x / qap;
-    if d.abs() < TINY {
-        d = TINY;
-    }
-    d = 1.0 / d;
-    let mut h = d;
-    for m in 1..MAX_TERMS {
-        let m = m as f64;
-        let m2 = 2.0 * m;
-        let aa = m * (b - m) * x / ((qam + m2) * (a + m2));
-        d = 1.0 + aa * d;
-        if d.abs() < TINY {
-            d = TINY;
-        }
-        c = 1.0 + aa / c;
-        if c.abs() < TINY {
-            c = TINY;
-        }
-        d = 1.0 / d;
-        h *= d * c;
-        let aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2));
-        d = 1.0 + aa * d;
-        if d.abs() < TINY {
-            d = TINY;
-        }
-        c = 1.0 + aa / c;
-        if c.abs() < TINY {
-            c = TINY;
-        }
-        d = 1.0 / d;
-        let delta = d * c;
-        h *= delta;
-        if (delta - 1.0).abs() < f64::EPSILON {
+/// Evaluates the continued fraction b₀ + a₁/(b₁ + a₂/(b₂ + …)) by the forward
+/// (Wallis) recurrence A_n = b_n A_(n−1) + a_n A_(n−2), the same for B_n, whose
+/// ratio A_n/B_n is the n-th convergent. `terms(k)` gives the k-th pair of
+/// terms, ((a_(2k−1), b_(2k−1)), (a_2k, b_2k)), for k = 1, 2, ….
+///
+/// Unlike Lentz's method it needs no division per term (the terms here are
+/// sums and products, so the division chain was what bounded the speed).
+/// Convergence is judged by the exact difference of successive convergents,
+/// |A_n/B_n − A_(n−1)/B_(n−1)| = |a₁ a₂ … a_n| / |B_n B_(n−1)|, whose numerator
+/// is a running product free of cancellation. (Differencing the convergents
+/// themselves would see only their rounding noise, which near the fraction's
+/// switch-over point is tens of ulps and never settles.) A zero partial
+/// numerator ends the fraction exactly, and the product then stops it at once;
+/// the beta's fraction does so whenever b is a whole number. The recurrence
+/// values are rescaled by an exact power of two when they grow large, which
+/// changes no ratio and no digit.
+fn continued_fraction(b0: f64, mut terms: impl FnMut(f64) -> ((f64, f64), (f64, f64))) -> f64 {
+    const BIG: f64 = 1.157_920_892_373_162e77; // 2^256
+    const SMALL: f64 = 1.0 / BIG;
+    let (mut a_prev, mut a_cur) = (1.0, b0);
+    let (mut b_prev, mut b_cur) = (0.0, 1.0);
+    // |a₁ ⋯ a_n|, rescaled with the square of the recurrence's factor.
+    let mut numerators = 1.0;
+    let mut k = 1.0;
+    while k < MAX_TERMS as f64 {
+        let ((a_odd, b_odd), (a_even, b_even)) = terms(k);
+        let (a_mid, b_mid) = (b_odd * a_cur + a_odd * a_prev, b_odd * b_cur + a_odd * b_prev);
+        (a_prev, b_prev) = (a_mid, b_mid);
+        (a_cur, b_cur) = (b_even * a_mid + a_even * a_cur, b_even * b_mid + a_even * b_cur);
+        numerators *= (a_odd * a_even).abs();
+        // Converged when |a₁ ⋯ a_n| / |B_n B_(n−1)| ≤ ε |A_n / B_n|.
+        if numerators <= f64::EPSILON * (a_cur * b_mid).abs() {
             break;
         }
+        if b_cur.abs() > BIG {
+            (a_prev, a_cur, b_prev, b_cur) = (a_prev * SMALL, a_cur * SMALL, b_prev * SMALL, b_cur * SMALL);
+            numerators *= SMALL * SMALL;
+        }
+        k += 1.0;
     }
-    h
+    a_cur / b_cur
+}
+
+/// The continued fraction for I_x(a, b) (Numerical Recipes §6.4, eq. 6.4.5)
+/// after the equivalence transformation that clears its denominators:
+/// 1/(1 + d₁/(1 + d₂/(1 + …))) with d_n = a_n / ((a + n − 1)(a + n)) becomes
+/// 1/(1 + a₁/((a + 1) + a₂/((a + 2) + …))), a₁ = −(a + b)x, a_2m = m(b − m)x
+/// and a_(2m+1) = −(a + m)(a + b + m)x.
+fn beta_continued_fraction(a: f64, b: f64, x: f64) -> f64 {
+    let total = a + b;
+    let fraction = continued_fraction(1.0, |k| {
+        let m = k - 1.0;
+        let odd = if k == 1.0 { -total * x } else { -(a + m) * (total + m) * x };
+        let even = k * (b - k) * x;
+        ((odd, a + 2.0 * k - 1.0), (even, a + 2.0 * k))
+    });
+    1.0 / fraction
 }
 
 /// I_x(a, b) and 1 − I_x(a, b) for the Beta(a, b) distribution; `y` must be

@@ -75,6 +75,12 @@ fn solve_increasing(mut u: f64, eval: impl Fn(f64) -> Local) -> f64 {
             (newton, NEWTON_DONE)
         };
         let proposal = u - step;
+        let scale = u.abs().max(1.0);
+        if proposal.is_finite() && step.abs() <= done * scale {
+            // Converged: a step this small is trusted even where rounding puts
+            // it on a bracket's edge (a step below one ulp leaves u unchanged).
+            return proposal;
+        }
         let next = if proposal.is_finite() && proposal > lo && proposal < hi {
             proposal
         } else if lo.is_finite() && hi.is_finite() {
@@ -88,9 +94,8 @@ fn solve_increasing(mut u: f64, eval: impl Fn(f64) -> Local) -> f64 {
             }
         };
         let moved = (next - u).abs();
-        let scale = u.abs().max(1.0);
         u = next;
-        if (next == proposal && moved <= done * scale) || moved <= 4.0 * f64::EPSILON * scale {
+        if moved <= 4.0 * f64::EPSILON * scale {
             return u;
         }
         if hi - lo <= 4.0 * f64::EPSILON * scale {
