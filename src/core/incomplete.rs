@@ -1,9 +1,8 @@
 //! Regularised incomplete gamma and beta functions, both tails at once.
 //!
 //! Methods: the power series and Legendre continued fraction for the gamma
-//! function, and the continued fraction of Numerical Recipes §6.4 for the beta
-//! function (both fractions by a division-free forward recurrence, see
-//! [`continued_fraction`]), each evaluated on the side where it
+//! function, and the continued fraction of Numerical Recipes §6.4 (Lentz's
+//! method) for the beta function, each evaluated on the side where it
 //! converges, so that the tail it returns directly is accurate in relative
 //! terms and the other is one minus it. The prefactors x^a e^(−x)/Γ(a+1) and
 //! x^a (1−x)^b / B(a, b) are taken in Loader's saddle-point form

@@ -3,10 +3,12 @@
 
 use proptest::prelude::*;
 use ratepool::core::fit::fit;
+use ratepool::core::incomplete::{beta_tails, gamma_tails};
 use ratepool::core::model::beta_binomial::BetaBinomial;
 use ratepool::core::model::gamma_poisson::GammaPoisson;
 use ratepool::core::model::{Family, Prior};
 use ratepool::core::pairs::PairTable;
+use ratepool::core::quantile::{beta_quantile, gamma_quantile, Tail};
 
 proptest! {
     #[test]
@@ -112,5 +114,49 @@ proptest! {
             prop_assert!(fitted.log_marginal_likelihood >= fitted.start_log_likelihood - slack, "{:?}", fitted);
             prop_assert!(fitted.log_marginal_likelihood.is_finite() && fitted.mean.is_finite());
         }
+    }
+}
+
+/// Relative error in x implied by a tail probability `mass` where `p` was asked:
+/// (mass − p) / (x f(x)) to first order, with x f(x) = e^(ln kernel) / `spread`;
+/// and the part of it that the tail's own rounding (1e-13 relative) explains.
+fn implied_relative_error(mass: f64, p: f64, ln_kernel: f64, spread: f64) -> (f64, f64) {
+    let per_probability = spread / ln_kernel.exp();
+    ((mass - p).abs() * per_probability, 1e-13 * p * per_probability)
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(512))]
+
+    // Self-consistency over the whole shape range: each quantile puts the asked
+    // tail probability at its point, through this project's own incomplete
+    // functions. (The external check is the mpmath sweep in reference.rs.)
+    #[test]
+    fn gamma_quantiles_invert_the_tail_they_were_asked_for(
+        log_shape in -3.0f64..7.0, log_p in -8.0f64..-0.3, upper in any::<bool>(),
+    ) {
+        let (shape, p) = (10f64.powf(log_shape), 10f64.powf(log_p));
+        let tail = if upper { Tail::Upper } else { Tail::Lower };
+        let x = gamma_quantile(shape, tail, p);
+        prop_assume!(x > 0.0 && x.is_finite());
+        let t = gamma_tails(shape, x);
+        let mass = if upper { t.upper } else { t.lower };
+        let (error, rounding) = implied_relative_error(mass, p, t.ln_kernel, 1.0);
+        prop_assert!(error <= 1e-9 + rounding, "Gamma({shape}) {tail:?} {p}: x = {x:e}, error {error:e}");
+    }
+
+    #[test]
+    fn beta_quantiles_invert_the_tail_they_were_asked_for(
+        log_a in -3.0f64..7.0, log_b in -3.0f64..7.0, log_p in -8.0f64..-0.3, upper in any::<bool>(),
+    ) {
+        let (a, b, p) = (10f64.powf(log_a), 10f64.powf(log_b), 10f64.powf(log_p));
+        let tail = if upper { Tail::Upper } else { Tail::Lower };
+        let x = beta_quantile(a, b, tail, p);
+        prop_assume!(x > 0.0 && x < 1.0);
+        let t = beta_tails(a, b, x, 1.0 - x);
+        let mass = if upper { t.upper } else { t.lower };
+        // x f(x) = kernel / (1 − x) for the beta.
+        let (error, rounding) = implied_relative_error(mass, p, t.ln_kernel, 1.0 - x);
+        prop_assert!(error <= 1e-9 + rounding, "Beta({a}, {b}) {tail:?} {p}: x = {x:e}, error {error:e}");
     }
 }
