@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # End-to-end scale benchmark, everything side by side in one run:
-#   ratepool fit --stream, the I/O floor (benches/io_floor.rs) and the pandas/scipy peer
+#   ratepool fit --stream (also with --progress, to show what reporting costs), the I/O floor (benches/io_floor.rs) and the pandas/scipy peer
 #   (benches/peer/peer_pipeline.py) on the same synthetic inputs (benches/generate_binomial.py).
 # Each is timed with /usr/bin/time (wall, peak resident memory); medians and ratios at the end.
 #
@@ -43,6 +43,9 @@ for run in $(seq "$runs"); do
     timed ratepool "$groups" "$run" "$ratepool" --quiet fit --stream --model beta-binomial \
       --input "$input" --group seller_id --successes positive_ratings --trials total_ratings \
       --output "$data/ratepool.parquet" --summary "$data/summary.json"
+    timed ratepool_progress "$groups" "$run" "$ratepool" --quiet --progress fit --stream \
+      --model beta-binomial --input "$input" --group seller_id --successes positive_ratings \
+      --trials total_ratings --output "$data/ratepool.parquet" --summary "$data/summary.json"
     timed io_floor "$groups" "$run" "$floor" "$input" seller_id positive_ratings total_ratings \
       "$data/floor.parquet"
     if [[ "$peer_at" == *" $groups "* ]]; then
@@ -74,5 +77,7 @@ for (tool, groups), wall in sorted(median.items()):
         floor = median.get(("io_floor", groups))
         peer = median.get(("peer", groups))
         print(f"groups={groups}: ratepool / io_floor = {wall / floor:.2f}" if floor else "", end="")
-        print(f", peer / ratepool = {peer / wall:.1f}" if peer else "")
+        print(f", peer / ratepool = {peer / wall:.1f}" if peer else "", end="")
+        watched = median.get(("ratepool_progress", groups))
+        print(f", with --progress / without = {watched / wall:.3f}" if watched else "")
 PY

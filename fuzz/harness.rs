@@ -45,6 +45,7 @@ pub fn exercise(data: &[u8]) {
         invalid,
         prior: PriorSource::Fit,
         timings: false,
+        progress: false,
     };
     match run(&job) {
         Ok(summary) => {

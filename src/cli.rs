@@ -23,6 +23,19 @@ pub struct Cli {
     /// Print the wall time of each phase on stderr.
     #[arg(long, global = true)]
     pub timings: bool,
+    /// Report progress on stderr: the end of each phase and, in the two
+    /// streamed passes, the rows done (at most once a second).
+    #[arg(long, global = true)]
+    pub progress: bool,
+}
+
+/// What is reported on stderr besides errors (the global flags).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Reporting {
+    /// `--timings`.
+    pub timings: bool,
+    /// `--progress`.
+    pub progress: bool,
 }
 
 /// Subcommands.
@@ -151,7 +164,7 @@ fn job_of(
     pair_counts: Option<&String>,
     model: ModelKind,
     prior: PriorSource,
-    timings: bool,
+    report: Reporting,
 ) -> Result<Job> {
     let (count, size) = match model {
         ModelKind::BetaBinomial => {
@@ -185,7 +198,8 @@ fn job_of(
         level: Level::new(table.level)?,
         invalid,
         prior,
-        timings,
+        timings: report.timings,
+        progress: report.progress,
     })
 }
 
@@ -233,15 +247,11 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
 
 impl Command {
     /// Validates the arguments into a job (reading the prior file for `score`).
-    pub fn into_job(self, timings: bool) -> Result<Job> {
+    pub fn into_job(self, report: Reporting) -> Result<Job> {
         match self {
-            Command::Fit(args) => job_of(
-                &args.table,
-                args.pair_counts.as_ref(),
-                model_of(args.model),
-                PriorSource::Fit,
-                timings,
-            ),
+            Command::Fit(args) => {
+                job_of(&args.table, args.pair_counts.as_ref(), model_of(args.model), PriorSource::Fit, report)
+            }
             Command::Score(args) => {
                 let summary = load_summary(&args.prior)?;
                 let saved = ModelKind::from_name(&summary.model).ok_or_else(|| {
@@ -257,7 +267,7 @@ impl Command {
                     None,
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
-                    timings,
+                    report,
                 )
             }
         }

@@ -2,7 +2,7 @@
 //! (0 success, 2 bad usage or input, 3 model not fitted, 1 anything else).
 
 use clap::Parser;
-use ratepool::cli::Cli;
+use ratepool::cli::{Cli, Reporting};
 use std::process::ExitCode;
 
 fn run(cli: Cli) -> ratepool::error::Result<()> {
@@ -13,7 +13,7 @@ fn run(cli: Cli) -> ratepool::error::Result<()> {
             .map_err(|e| ratepool::error::Error::Other(format!("cannot start {threads} threads: {e}")))?;
     }
     let quiet = cli.quiet;
-    let job = cli.command.into_job(cli.timings)?;
+    let job = cli.command.into_job(Reporting { timings: cli.timings, progress: cli.progress })?;
     let summary = ratepool::pipeline::run(&job)?;
     for warning in &summary.warnings {
         eprintln!("ratepool: warning: {warning}");

@@ -17,6 +17,7 @@ use crate::core::model::Family;
 use crate::error::{Error, Result};
 use crate::report::Summary;
 use std::path::{Path, PathBuf};
+use std::time::{Duration, Instant};
 use validate::ColumnNames;
 
 /// The two models.
@@ -141,26 +142,59 @@ pub struct Job {
     pub prior: PriorSource,
     /// Print each phase's wall time on stderr.
     pub timings: bool,
+    /// Report progress through the phases on stderr.
+    pub progress: bool,
 }
 
-/// Reports the wall time of successive phases on stderr, when asked to.
+/// How often progress through a long phase is reported, at most.
+const REPORT_EVERY: Duration = Duration::from_secs(1);
+
+/// Reports on stderr, when asked to: the wall time of each phase
+/// (`--timings`), and progress (`--progress`): the end of each phase, and
+/// within the streamed passes the rows done, at most once a second. Progress
+/// is looked at once per batch, never per row, so it costs nothing measurable.
 pub(crate) struct PhaseClock {
-    enabled: bool,
-    last: std::time::Instant,
+    timings: bool,
+    progress: bool,
+    started: Instant,
+    last: Instant,
+    last_report: Instant,
 }
 
 impl PhaseClock {
     fn start(job: &Job) -> Self {
-        PhaseClock { enabled: job.timings, last: std::time::Instant::now() }
+        let now = Instant::now();
+        PhaseClock { timings: job.timings, progress: job.progress, started: now, last: now, last_report: now }
     }
 
     /// Ends the current phase, naming it.
     fn lap(&mut self, phase: &str) {
-        let now = std::time::Instant::now();
-        if self.enabled {
+        let now = Instant::now();
+        if self.timings {
             eprintln!("timing {phase}: {:.3} s", (now - self.last).as_secs_f64());
         }
+        if self.progress {
+            eprintln!("progress {phase}: done at {:.1} s", (now - self.started).as_secs_f64());
+        }
         self.last = now;
+    }
+
+    /// Within a phase: `done` of `total` rows are through. Reported when a
+    /// second has passed since the last report, and always at the end.
+    fn rows(&mut self, phase: &str, done: usize, total: usize) {
+        if !self.progress {
+            return;
+        }
+        let now = Instant::now();
+        if done < total && now - self.last_report < REPORT_EVERY {
+            return;
+        }
+        self.last_report = now;
+        let share = 100.0 * done as f64 / total.max(1) as f64;
+        eprintln!(
+            "progress {phase}: {done} of {total} rows ({share:.1}%) at {:.1} s",
+            (now - self.started).as_secs_f64()
+        );
     }
 }
 

@@ -102,13 +102,13 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     if rows_read == 0 {
         return Err(no_data_rows(job));
     }
-    let (table, rejected) = count_pairs(job, &parts)?;
+    let (table, rejected) = count_pairs(job, &parts, &mut clock, rows_read)?;
     clock.lap("pass 1: read, validate, count pairs");
     if table.pairs().is_empty() {
         return Err(no_valid_rows(job, rejected));
     }
     let scored = score_pairs(job, table, &mut clock)?;
-    let max_shift_group = score_and_write(job, &parts, &scored, output)?;
+    let max_shift_group = score_and_write(job, &parts, &scored, output, (&mut clock, rows_read))?;
     clock.lap("pass 2: read, score, write");
     let counts = RowCounts { read: rows_read as u64, rejected: rejected as u64 };
     let summary = summarise(job, counts, &scored, max_shift_group);
@@ -117,11 +117,18 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
 }
 
 /// Pass 1: the pair table of the valid rows, and how many rows were rejected.
-fn count_pairs(job: &Job, parts: &ParquetParts) -> Result<(PairTable, usize)> {
+fn count_pairs(
+    job: &Job,
+    parts: &ParquetParts,
+    clock: &mut PhaseClock,
+    rows: usize,
+) -> Result<(PairTable, usize)> {
     let mut weights: PairMap<WeightedPair> = PairMap::default();
     let mut rejected = 0;
     parts.for_each_batch(|batch| {
-        for outcome in check_batch(job, &batch)?.outcomes {
+        let outcomes = check_batch(job, &batch)?.outcomes;
+        let done = batch.first_row + outcomes.len();
+        for outcome in outcomes {
             match outcome {
                 Ok((size, count)) => {
                     weights
@@ -140,6 +147,7 @@ fn count_pairs(job: &Job, parts: &ParquetParts) -> Result<(PairTable, usize)> {
                 Err(_) => rejected += 1,
             }
         }
+        clock.rows("pass 1 of 2", done, rows);
         Ok(())
     })?;
     Ok((PairTable::from_weighted(weights.into_values()), rejected))
@@ -149,11 +157,13 @@ fn count_pairs(job: &Job, parts: &ParquetParts) -> Result<(PairTable, usize)> {
 /// encoding the output overlaps reading and scoring the next batch; writes
 /// the rejects; returns the id of the first group of the pair that moved
 /// furthest. Batches are written in input order, so the bytes do not change.
+/// Progress goes to `clock`, out of `rows`.
 fn score_and_write(
     job: &Job,
     parts: &ParquetParts,
     scored: &Scored,
     output: &Path,
+    (clock, rows): (&mut PhaseClock, usize),
 ) -> Result<Option<String>> {
     let index: PairMap<u32> =
         scored.table.pairs().iter().enumerate().map(|(i, p)| (key(p.size, p.count), i as u32)).collect();
@@ -212,6 +222,7 @@ fn score_and_write(
                     *wrote = true;
                 }
             }
+            clock.rows("pass 2 of 2", batch.first_row + checked.outcomes.len(), rows);
             Ok(())
         });
         drop(sender);

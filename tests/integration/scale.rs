@@ -203,3 +203,30 @@ fn the_streamed_layout_rejects_the_same_rows_as_the_in_memory_one() {
     assert!(stderr(&out).contains("part-0.parquet: row 6, column 'id'"), "{}", stderr(&out));
     assert!(!dir.path().join("fail.csv").exists() && !dir.path().join("fail.json").exists());
 }
+
+#[test]
+fn progress_reports_both_passes_to_the_last_row_and_changes_no_output() {
+    let dir = setup(false);
+    let plain: Vec<&str> = stream_args("parts", "plain.parquet", "plain.json")
+        .into_iter()
+        .chain(["--stream", "--batch-rows", "500"])
+        .collect();
+    run_ok(dir.path(), &plain);
+    let watched: Vec<&str> = ["--progress"]
+        .into_iter()
+        .chain(stream_args("parts", "watched.parquet", "watched.json"))
+        .chain(["--stream", "--batch-rows", "500"])
+        .collect();
+    let out = ratepool(dir.path(), &watched);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let report = stderr(&out);
+    // The reports within a pass are throttled to one a second; the last one
+    // of each pass always comes, in order, and counts every row of both parts.
+    let first = report.find("progress pass 1 of 2: 3000 of 3000 rows (100.0%)").expect(&report);
+    let fit = report.find("progress fit (").expect(&report);
+    let second = report.find("progress pass 2 of 2: 3000 of 3000 rows (100.0%)").expect(&report);
+    assert!(first < fit && fit < second, "{report}");
+    let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
+    assert_eq!(read("plain.parquet"), read("watched.parquet"));
+    assert_eq!(summary(&dir.path().join("plain.json")), summary(&dir.path().join("watched.json")));
+}
