@@ -75,6 +75,25 @@ fn quantiles(c: &mut Criterion) {
         })
     });
     group.finish();
+    // Beyond realistic posteriors: the cost at the large shapes of the accuracy
+    // sweep, where each evaluation sums about √shape terms.
+    let mut large = c.benchmark_group("quantile per call, large shapes");
+    for shape in [1e5, 1e6, 1e7] {
+        large.throughput(Throughput::Elements(2));
+        large.bench_function(format!("beta, a = b = {shape:e}"), |bench| {
+            bench.iter(|| {
+                let a = black_box(shape);
+                beta_quantile(a, a, Tail::Lower, 0.025) + beta_quantile(a, a, Tail::Upper, 0.025)
+            })
+        });
+        large.bench_function(format!("gamma, shape {shape:e}"), |bench| {
+            bench.iter(|| {
+                let a = black_box(shape);
+                gamma_quantile(a, Tail::Lower, 0.025) + gamma_quantile(a, Tail::Upper, 0.025)
+            })
+        });
+    }
+    large.finish();
 }
 
 criterion_group!(benches, quantiles);

@@ -126,7 +126,8 @@ fn implied_relative_error(mass: f64, p: f64, ln_kernel: f64, spread: f64) -> (f6
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(512))]
+    // Tiny shapes put many quantiles beyond double range (0 or 1), which are skipped.
+    #![proptest_config(ProptestConfig { cases: 512, max_global_rejects: 512, ..ProptestConfig::default() })]
 
     // Self-consistency over the whole shape range: each quantile puts the asked
     // tail probability at its point, through this project's own incomplete
@@ -138,7 +139,8 @@ proptest! {
         let (shape, p) = (10f64.powf(log_shape), 10f64.powf(log_p));
         let tail = if upper { Tail::Upper } else { Tail::Lower };
         let x = gamma_quantile(shape, tail, p);
-        prop_assume!(x > 0.0 && x.is_finite());
+        // Subnormal quantiles hold too few bits for a relative check (see the unit tests).
+        prop_assume!(x >= f64::MIN_POSITIVE && x.is_finite());
         let t = gamma_tails(shape, x);
         let mass = if upper { t.upper } else { t.lower };
         let (error, rounding) = implied_relative_error(mass, p, t.ln_kernel, 1.0);
@@ -152,7 +154,7 @@ proptest! {
         let (a, b, p) = (10f64.powf(log_a), 10f64.powf(log_b), 10f64.powf(log_p));
         let tail = if upper { Tail::Upper } else { Tail::Lower };
         let x = beta_quantile(a, b, tail, p);
-        prop_assume!(x > 0.0 && x < 1.0);
+        prop_assume!((f64::MIN_POSITIVE..1.0).contains(&x));
         let t = beta_tails(a, b, x, 1.0 - x);
         let mass = if upper { t.upper } else { t.lower };
         // x f(x) = kernel / (1 − x) for the beta.
