@@ -11,6 +11,8 @@
 //! cargo bench --bench parquet_writers -- polars 10000000 /tmp/out-polars.parquet
 //! ```
 //! `benches/parquet_writers.sh` runs both under `/usr/bin/time` several times.
+//! Without arguments, as `cargo test` runs it, each writer writes a small
+//! table in a temporary folder, so the code cannot rot.
 
 use arrow_array::{ArrayRef, Float64Array, RecordBatch};
 use parquet::arrow::ArrowWriter;
@@ -111,6 +113,21 @@ fn write_polars(rows: usize, path: &str) {
 
 fn main() {
     let args: Vec<String> = std::env::args().skip(1).filter(|a| a != "--bench").collect();
+    if args.is_empty() {
+        // As `cargo test` runs it: both writers on a small table, so the code cannot rot.
+        let dir = tempfile::tempdir().expect("temporary folder");
+        for writer in ["arrow", "polars"] {
+            let path = dir.path().join(format!("{writer}.parquet"));
+            let path = path.to_str().expect("UTF-8 path");
+            match writer {
+                "arrow" => write_arrow(100_000, path),
+                _ => write_polars(100_000, path),
+            }
+            assert!(std::fs::metadata(path).expect("written").len() > 0);
+            println!("parquet_writers smoke: {writer} wrote 100000 rows");
+        }
+        return;
+    }
     let [writer, rows, path] = args.as_slice() else {
         eprintln!("usage: parquet_writers arrow|polars ROWS PATH");
         std::process::exit(2);
