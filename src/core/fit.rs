@@ -326,7 +326,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
     let z = F::overdispersion_z(table, pooled_mean);
     let overdispersion = OverdispersionTest {
         statistic: z,
-        p_value: 0.5 * statrs::function::erf::erfc(z / std::f64::consts::SQRT_2),
+        p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
     };
     let boundary_ll = pooled_log_likelihood::<F>(table, pooled_mean);
     let boundary_score: f64 =

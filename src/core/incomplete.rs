@@ -1,16 +1,19 @@
 //! Regularised incomplete gamma and beta functions, both tails at once.
 //!
-//! Methods: the power series and Legendre continued fraction for the gamma
-//! function, and the continued fraction of Numerical Recipes §6.4 (Lentz's
-//! method) for the beta function, each evaluated on the side where it
-//! converges, so that the tail it returns directly is accurate in relative
-//! terms and the other is one minus it. The prefactors x^a e^(−x)/Γ(a+1) and
+//! Methods: for the gamma function the power series and Legendre's continued
+//! fraction, or from shape 3000 Temme's uniform asymptotic expansion; for the
+//! beta function the continued fraction of Numerical Recipes §6.4. Both
+//! fractions run a division-free forward recurrence (`continued_fraction`).
+//! Each is evaluated on the side where it converges, so that the tail it
+//! returns directly is accurate in relative terms and the other is one minus
+//! it. The prefactors x^a e^(−x)/Γ(a+1) and
 //! x^a (1−x)^b / B(a, b) are taken in Loader's saddle-point form
 //! ([`crate::core::special::ln_poisson_pmf`] and `ln_binomial_pmf`) rather
 //! than from differences of lnΓ, which keeps them accurate for shapes up to
 //! 1e7 and beyond.
 
-use crate::core::special::{deviance_term, ln_poisson_pmf, stirling_error};
+use crate::core::special::{deviance_term, ln_poisson_pmf, log1p_minus, stirling_error};
+use crate::core::temme::COEFFICIENTS;
 use std::f64::consts::PI;
 
 const MAX_TERMS: usize = 10_000_000;
@@ -41,6 +44,11 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
         return Tails { lower: 1.0, upper: 0.0, ln_kernel: f64::NEG_INFINITY };
     }
     let ln_prefactor = ln_poisson_pmf(a, x);
+    if a >= TEMME_FROM {
+        if let Some(tails) = temme_tails(a, x, a.ln() + ln_prefactor) {
+            return tails;
+        }
+    }
     if x < a + 1.0 {
         // P = x^a e^-x / Γ(a+1) · Σ_n x^n / ((a+1)…(a+n)).
         let mut term = 1.0;
@@ -69,6 +77,58 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
         let upper = (ln_kernel + h.ln()).exp().min(1.0);
         Tails { lower: 1.0 - upper, upper, ln_kernel }
     }
+}
+
+/// The complementary error function, erfc(x) = Q(1/2, x²) for x ≥ 0 and
+/// 2 − erfc(−x) below, accurate in relative terms in the upper tail. (statrs
+/// 0.19's erfc is 1e-10 off at 0.5 against mpmath, too coarse for the tails.)
+pub fn erfc(x: f64) -> f64 {
+    if x < 0.0 {
+        return 2.0 - erfc(-x);
+    }
+    gamma_tails(0.5, x * x).upper
+}
+
+/// Shapes from which [`gamma_tails`] uses Temme's uniform expansion, where
+/// |η| ≤ [`TEMME_ETA`]. Seven terms in 1/a leave under 1e-17 of the smaller
+/// tail from shape 100 (checked at 50 digits by
+/// scripts/make_temme_coefficients.py); below 3000 the series and the fraction
+/// are cheaper still (`cargo bench --bench quantiles` with 100, 300, 1000,
+/// 3000 and 10000 here: 90.9, 84.6, 81.4, 78.6 and 78.7 µs for the gamma row).
+const TEMME_FROM: f64 = 3000.0;
+/// The largest |η| at which the Taylor rows of [`crate::core::temme`] are used
+/// (about 33 standard deviations from the mean at shape 3000; a quantile's
+/// iteration stays well inside).
+const TEMME_ETA: f64 = 0.6;
+
+/// P(a, x) and Q(a, x) by Temme's uniform asymptotic expansion (DLMF 8.12):
+/// with λ = x/a and η²/2 = λ − 1 − ln λ (η of the sign of λ − 1),
+/// Q = erfc(η √(a/2))/2 + R and P = erfc(−η √(a/2))/2 − R, where
+/// R = e^(−aη²/2) / √(2πa) · Σ_k c_k(η) a^(−k). The smaller tail is formed
+/// directly and the other as its complement. Its cost does not grow with a,
+/// where the series and the continued fraction take about √a terms. None
+/// where |η| is beyond the range of the Taylor rows.
+fn temme_tails(a: f64, x: f64, ln_kernel: f64) -> Option<Tails> {
+    let t = (x - a) / a;
+    let half_eta_squared = -log1p_minus(t);
+    let eta = (2.0 * half_eta_squared).sqrt().copysign(t);
+    if eta.abs() > TEMME_ETA {
+        return None;
+    }
+    let inverse = 1.0 / a;
+    let sum = COEFFICIENTS.iter().rev().fold(0.0, |sum, row| {
+        let c = row.iter().rev().fold(0.0, |c, &coefficient| c * eta + coefficient);
+        sum * inverse + c
+    });
+    let remainder = (-a * half_eta_squared).exp() / (2.0 * PI * a).sqrt() * sum;
+    let half_erfc = 0.5 * erfc(eta.abs() * (0.5 * a).sqrt());
+    Some(if eta >= 0.0 {
+        let upper = half_erfc + remainder;
+        Tails { lower: 1.0 - upper, upper, ln_kernel }
+    } else {
+        let lower = half_erfc - remainder;
+        Tails { lower, upper: 1.0 - lower, ln_kernel }
+    })
 }
 
 /// ln of x^a y^b / B(a, b), y = 1 − x given separately to keep its digits;

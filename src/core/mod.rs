@@ -8,3 +8,4 @@ pub mod model;
 pub mod pairs;
 pub mod quantile;
 pub mod special;
+pub mod temme;

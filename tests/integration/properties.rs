@@ -157,8 +157,10 @@ proptest! {
         prop_assume!((f64::MIN_POSITIVE..1.0).contains(&x));
         let t = beta_tails(a, b, x, 1.0 - x);
         let mass = if upper { t.upper } else { t.lower };
-        // x f(x) = kernel / (1 − x) for the beta.
+        // x f(x) = kernel / (1 − x) for the beta. The 1 − x formed here is off by
+        // up to an ulp of 1 from the solver's, which is ε/x relative to x.
         let (error, rounding) = implied_relative_error(mass, p, t.ln_kernel, 1.0 - x);
-        prop_assert!(error <= 1e-9 + rounding, "Beta({a}, {b}) {tail:?} {p}: x = {x:e}, error {error:e}");
+        let bound = 1e-9 + rounding + f64::EPSILON / x;
+        prop_assert!(error <= bound, "Beta({a}, {b}) {tail:?} {p}: x = {x:e}, error {error:e}");
     }
 }

@@ -2,6 +2,7 @@
 //! written by scripts/make_reference_fixtures.py).
 
 use crate::util::{json_fixture, relative};
+use ratepool::core::incomplete::{erfc, gamma_tails};
 use ratepool::core::model::{beta_binomial, gamma_poisson};
 use ratepool::core::quantile::{beta_quantile, gamma_quantile, Tail};
 use ratepool::core::special::{digamma, ln_gamma, trigamma};
@@ -89,4 +90,43 @@ fn beta_quantiles_match_scipy_within_1e9_relative() {
         }
     }
     eprintln!("worst relative beta quantile error {worst:e}");
+}
+
+#[test]
+fn erfc_matches_mpmath_where_statrs_does_not() {
+    // Source: mpmath 1.3 erfc at 50 digits (scripts/make_temme_coefficients.py).
+    // statrs 0.19's erfc was measured here first: 1.0e-10 relative off at 0.5,
+    // which is why the large-shape gamma tails use the project's own.
+    let fixture = json_fixture("incomplete_gamma.json");
+    let mut statrs_worst: f64 = 0.0;
+    for row in fixture["erfc"].as_array().unwrap() {
+        let (x, expected) = (row["x"].as_f64().unwrap(), row["erfc"].as_f64().unwrap());
+        let got = erfc(x);
+        // x² carries one rounding, which e^(−x²) turns into x² ε relative.
+        let tolerance = 4.0 * f64::EPSILON * (1.0 + x * x);
+        assert!(relative(got, expected) <= tolerance, "erfc({x}) = {got:e} vs {expected:e}");
+        statrs_worst = statrs_worst.max(relative(statrs::function::erf::erfc(x), expected));
+    }
+    eprintln!("worst relative error of statrs' erfc on the same points {statrs_worst:e}");
+}
+
+#[test]
+fn gamma_tails_at_large_shapes_match_mpmath() {
+    // Source: mpmath 1.3 gammainc at 50 digits, shapes 100 to 1e7 and x from
+    // 6 standard deviations below the mean to 6 above: the series and the
+    // continued fraction below shape 3000, Temme's expansion from there.
+    let fixture = json_fixture("incomplete_gamma.json");
+    let mut worst: f64 = 0.0;
+    for row in fixture["gamma"].as_array().unwrap() {
+        let (a, x) = (row["shape"].as_f64().unwrap(), row["x"].as_f64().unwrap());
+        let t = gamma_tails(a, x);
+        // Each tail in relative terms where it is the smaller one, and to 1e-15 absolute otherwise.
+        for (got, key) in [(t.lower, "lower"), (t.upper, "upper")] {
+            let expected = row[key].as_f64().unwrap();
+            let err = if expected <= 0.5 { relative(got, expected) } else { (got - expected).abs() };
+            worst = worst.max(err);
+            assert!(err <= 1e-13, "Gamma({a}) at {x}: {key} {got:e} vs {expected:e}");
+        }
+    }
+    eprintln!("worst gamma tail error at large shapes {worst:e}");
 }
