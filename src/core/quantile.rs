@@ -8,11 +8,12 @@
 //! u = logit x for the beta, where ln T is close to linear far into the tails,
 //! and keeps a bracket so a wild step falls back to bisection. Both derivatives
 //! are closed-form from the density (no extra special functions), and the
-//! iteration stops as soon as the error predicted to remain after a step is far
-//! below the 1e-9 relative target, without one more evaluation to confirm it. Starting points:
-//! the small-x power law of each tail (DiDonato & Morris 1992, eq. 2 style
-//! first approximations) for shapes below one, otherwise Wilson–Hilferty for the
-//! gamma and a normal approximation in logit space for the beta.
+//! iteration stops as soon as the error predicted to remain after a step is
+//! far below the 1e-9 relative target, without one more evaluation to confirm
+//! it. Starting points: the small-x power law of each tail (DiDonato & Morris
+//! 1992, eq. 2 style first approximations) for shapes below one, otherwise
+//! Wilson–Hilferty for the gamma and, for the beta, a Cornish–Fisher value
+//! from four cumulants of logit X.
 //!
 //! A quantile below the smallest normal double (about 2.2e-308) comes straight
 //! from the small-x power law, whose neglected terms are of relative size x:
