@@ -40,6 +40,12 @@ pub(crate) fn parse_text(text: &str) -> Cell {
     }
 }
 
+/// What is wrong when column `name` decodes to `decoded` values for `rows` rows.
+fn damaged_column(name: &str, decoded: usize, rows: usize) -> Option<String> {
+    (decoded != rows)
+        .then(|| format!("the file is damaged (column '{name}' decodes to {decoded} values for {rows} rows)"))
+}
+
 fn polars_error(path: &Path, e: PolarsError) -> Error {
     Error::Input(format!("{}: {e}", path.display()))
 }
@@ -114,7 +120,18 @@ impl InputTable {
                 .map(|v| v.map_or(Cell::Missing, |t| Cell::Text(t.to_string())))
                 .collect()
         };
-        Ok(cells)
+        self.full_column(name, cells)
+    }
+
+    /// `values` decoded from column `name`, refused unless there is one per
+    /// row. A damaged Parquet page can decode to fewer values than the file's
+    /// row count says: polars checks this only in debug builds (a fuzz input
+    /// that it refuses there reached the validation short in a release build).
+    fn full_column<T>(&self, name: &str, values: Vec<T>) -> Result<Vec<T>> {
+        match damaged_column(name, values.len(), self.rows()) {
+            Some(fault) => Err(Error::Input(format!("{}: {fault}", self.path.display()))),
+            None => Ok(values),
+        }
     }
 
     /// The values of a column as text (for group ids), None where null.
@@ -122,7 +139,8 @@ impl InputTable {
         let column = self.frame.column(name).map_err(|e| polars_error(&self.path, e))?;
         let cast = column.cast(&DataType::String).map_err(|e| polars_error(&self.path, e))?;
         let texts = cast.str().map_err(|e| polars_error(&self.path, e))?;
-        Ok(texts.iter().map(|v| v.filter(|t| !t.trim().is_empty()).map(str::to_string)).collect())
+        let values = texts.iter().map(|v| v.filter(|t| !t.trim().is_empty()).map(str::to_string)).collect();
+        self.full_column(name, values)
     }
 
     /// The `kept` rows of a column, as output values of its own kind:
@@ -144,5 +162,17 @@ impl InputTable {
         let texts = taken.cast(&DataType::String).map_err(|e| polars_error(&self.path, e))?;
         let texts = texts.str().map_err(|e| polars_error(&self.path, e))?;
         Ok(ColumnValues::Texts(texts.iter().map(|v| v.unwrap_or_default().to_string()).collect()))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_column_short_of_the_row_count_is_named_as_damage() {
+        assert_eq!(damaged_column("k", 4, 4), None);
+        let fault = damaged_column("k", 0, 4).expect("refused");
+        assert!(fault.contains("damaged") && fault.contains("'k'") && fault.contains("0 values for 4 rows"));
     }
 }
