@@ -12,7 +12,7 @@
 //! than from differences of lnΓ, which keeps them accurate for shapes up to
 //! 1e7 and beyond.
 
-use crate::core::special::{deviance_term, ln_poisson_pmf, log1p_minus, stirling_error};
+use crate::core::special::{deviance_term, ln_beta_remainder, ln_poisson_pmf, log1p_minus};
 use crate::core::temme::COEFFICIENTS;
 use std::f64::consts::PI;
 
@@ -25,14 +25,10 @@ pub struct Tails {
     pub lower: f64,
     /// P(X > x).
     pub upper: f64,
-    /// ln of the kernel at x (see [`ln_gamma_kernel`], [`ln_beta_kernel`]),
-    /// computed on the way and handed on for Newton steps; −∞ at the edges.
+    /// ln of the kernel at x: x^a e^(−x) / Γ(a), which is x times the
+    /// Gamma(a, 1) density, or [`ln_beta_kernel`]; computed on the way and
+    /// handed on for Newton steps; −∞ at the edges.
     pub ln_kernel: f64,
-}
-
-/// ln of x^a e^(−x) / Γ(a), which is x times the Gamma(a, 1) density at x.
-pub fn ln_gamma_kernel(a: f64, x: f64) -> f64 {
-    a.ln() + ln_poisson_pmf(a, x)
 }
 
 /// P(a, x) and Q(a, x) for the Gamma(a, 1) distribution, a > 0, x ≥ 0.
@@ -44,8 +40,9 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
         return Tails { lower: 1.0, upper: 0.0, ln_kernel: f64::NEG_INFINITY };
     }
     let ln_prefactor = ln_poisson_pmf(a, x);
+    let ln_kernel = a.ln() + ln_prefactor;
     if a >= TEMME_FROM {
-        if let Some(tails) = temme_tails(a, x, a.ln() + ln_prefactor) {
+        if let Some(tails) = temme_tails(a, x, ln_kernel) {
             return tails;
         }
     }
@@ -63,7 +60,7 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
             }
         }
         let lower = (ln_prefactor + sum.ln()).exp().min(1.0);
-        Tails { lower, upper: 1.0 - lower, ln_kernel: a.ln() + ln_prefactor }
+        Tails { lower, upper: 1.0 - lower, ln_kernel }
     } else {
         // Q = x^a e^-x / Γ(a) · 1/(x+1−a− 1(1−a)/(x+3−a− …)) (Legendre).
         let first = x + 1.0 - a;
@@ -73,7 +70,6 @@ pub fn gamma_tails(a: f64, x: f64) -> Tails {
                 let even = 2.0 * k;
                 ((-odd * (odd - a), first + 2.0 * odd), (-even * (even - a), first + 2.0 * even))
             });
-        let ln_kernel = a.ln() + ln_prefactor;
         let upper = (ln_kernel + h.ln()).exp().min(1.0);
         Tails { lower: 1.0 - upper, upper, ln_kernel }
     }
@@ -132,16 +128,12 @@ fn temme_tails(a: f64, x: f64, ln_kernel: f64) -> Option<Tails> {
 }
 
 /// ln of x^a y^b / B(a, b), y = 1 − x given separately to keep its digits;
-/// this is x(1 − x) times the Beta(a, b) density at x.
+/// this is x(1 − x) times the Beta(a, b) density at x. With n = a + b it is
+/// a ln(nx/a) + b ln(ny/b) − L(a, b) = −bd0(a, nx) − bd0(b, ny) − L(a, b),
+/// L being [`ln_beta_remainder`]: small terms only, whatever the shapes.
 pub fn ln_beta_kernel(a: f64, b: f64, x: f64, y: f64) -> f64 {
     let n = a + b;
-    let ln_binomial_raw = stirling_error(n)
-        - stirling_error(a)
-        - stirling_error(b)
-        - deviance_term(a, n * x)
-        - deviance_term(b, n * y)
-        + 0.5 * (n / (2.0 * PI * a * b)).ln();
-    (a * b / n).ln() + ln_binomial_raw
+    -ln_beta_remainder(a, b) - deviance_term(a, n * x) - deviance_term(b, n * y)
 }
 
 /// Evaluates the continued fraction b₀ + a₁/(b₁ + a₂/(b₂ + …)) by the forward
