@@ -54,6 +54,15 @@ impl InputTable {
     /// Reads a CSV or Parquet file.
     pub fn read(path: &Path) -> Result<Self> {
         let frame = super::table::read_table(path)?;
+        // A damaged Parquet page can decode to fewer values than the file's
+        // row count: polars checks this only in debug builds, where it refuses
+        // the file (a fuzz input reached validation short in a release build).
+        // Every column is held to the frame's height here, once, so no reader
+        // of the table can index past a column.
+        let short = frame.columns().iter().find_map(|c| damaged_column(c.name(), c.len(), frame.height()));
+        if let Some(fault) = short {
+            return Err(Error::Input(format!("{}: {fault}", path.display())));
+        }
         Ok(InputTable { frame, path: path.to_path_buf() })
     }
 
@@ -120,18 +129,7 @@ impl InputTable {
                 .map(|v| v.map_or(Cell::Missing, |t| Cell::Text(t.to_string())))
                 .collect()
         };
-        self.full_column(name, cells)
-    }
-
-    /// `values` decoded from column `name`, refused unless there is one per
-    /// row. A damaged Parquet page can decode to fewer values than the file's
-    /// row count says: polars checks this only in debug builds (a fuzz input
-    /// that it refuses there reached the validation short in a release build).
-    fn full_column<T>(&self, name: &str, values: Vec<T>) -> Result<Vec<T>> {
-        match damaged_column(name, values.len(), self.rows()) {
-            Some(fault) => Err(Error::Input(format!("{}: {fault}", self.path.display()))),
-            None => Ok(values),
-        }
+        Ok(cells)
     }
 
     /// The values of a column as text (for group ids), None where null.
@@ -139,8 +137,7 @@ impl InputTable {
         let column = self.frame.column(name).map_err(|e| polars_error(&self.path, e))?;
         let cast = column.cast(&DataType::String).map_err(|e| polars_error(&self.path, e))?;
         let texts = cast.str().map_err(|e| polars_error(&self.path, e))?;
-        let values = texts.iter().map(|v| v.filter(|t| !t.trim().is_empty()).map(str::to_string)).collect();
-        self.full_column(name, values)
+        Ok(texts.iter().map(|v| v.filter(|t| !t.trim().is_empty()).map(str::to_string)).collect())
     }
 
     /// The `kept` rows of a column, as output values of its own kind:
