@@ -47,7 +47,7 @@ fn smoke() {
         ("n".to_string(), ColumnValues::Integers(trials)),
     ])
     .expect("input rows");
-    sink.finish().expect("input written");
+    sink.finish().and_then(|sealed| sealed.persist()).expect("input written");
     let text = |p: &Path| p.to_str().expect("UTF-8 path").to_string();
     copy(&text(&input), "id", "k", "n", &text(&output));
     let columns = [("id", "group"), ("k", "count"), ("n", "size")];
@@ -83,5 +83,5 @@ fn copy(input: &str, id: &str, count: &str, size: &str, output: &str) {
             sink.write(out)
         })
         .expect("rows copied");
-    sink.finish().expect("output written");
+    sink.finish().and_then(|sealed| sealed.persist()).expect("output written");
 }

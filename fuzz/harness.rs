@@ -42,6 +42,7 @@ pub fn exercise(data: &[u8]) {
         layout,
         summary: Some(dir.path().join("s.json")),
         level: Level::new(0.95).expect("valid level"),
+        delimiter: b',',
         invalid,
         prior: PriorSource::Fit,
         timings: false,

@@ -2,6 +2,7 @@
 //! validated [`Job`]. The library below never sees the parser.
 
 use crate::error::{Error, Result};
+use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, ModelKind, PriorSource};
 use clap::{Args, Parser, Subcommand, ValueEnum};
@@ -106,6 +107,10 @@ pub struct TableArgs {
     /// detected in this mode.
     #[arg(long)]
     pub stream: bool,
+    /// Field separator of CSV input: one character, or `tab` (default `,`).
+    /// CSV output is always comma-separated.
+    #[arg(long, default_value = ",", value_parser = parse_delimiter)]
+    pub delimiter: u8,
     /// Rows per batch with --stream.
     #[arg(long, default_value_t = 65_536, requires = "stream")]
     pub batch_rows: usize,
@@ -139,6 +144,33 @@ pub struct ScoreArgs {
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
+}
+
+/// A CSV field separator: one ASCII character other than a quote or a line
+/// break, or the word `tab` (or `\t`, as typed in many shells).
+fn parse_delimiter(text: &str) -> std::result::Result<u8, String> {
+    let byte = match text {
+        "tab" | "\\t" | "\t" => b'\t',
+        _ if text.len() == 1 && text.is_ascii() => text.as_bytes()[0],
+        _ => return Err(format!("'{text}' is not one character; give one, such as ';' or tab")),
+    };
+    if matches!(byte, b'"' | b'\n' | b'\r') {
+        return Err("a quote or a line break cannot separate fields".to_string());
+    }
+    Ok(byte)
+}
+
+/// Refuses, before anything is read, a run where an output would overwrite
+/// an input, the prior, or another output.
+fn refuse_overlaps(table: &TableArgs, prior: Option<&PathBuf>) -> Result<()> {
+    let mut inputs = vec![RunPath { option: "--input", path: &table.input }];
+    inputs.extend(prior.map(|path| RunPath { option: "--prior", path }));
+    let outputs: Vec<RunPath<'_>> =
+        [("--output", &table.output), ("--summary", &table.summary), ("--rejects", &table.rejects)]
+            .into_iter()
+            .filter_map(|(option, path)| path.as_deref().map(|path| RunPath { option, path }))
+            .collect();
+    crate::io::overlap::refuse_overlaps(&inputs, &outputs)
 }
 
 fn model_of(arg: ModelArg) -> ModelKind {
@@ -196,6 +228,7 @@ fn job_of(
         layout,
         summary: table.summary.clone(),
         level: Level::new(table.level)?,
+        delimiter: table.delimiter,
         invalid,
         prior,
         timings: report.timings,
@@ -250,9 +283,11 @@ impl Command {
     pub fn into_job(self, report: Reporting) -> Result<Job> {
         match self {
             Command::Fit(args) => {
+                refuse_overlaps(&args.table, None)?;
                 job_of(&args.table, args.pair_counts.as_ref(), model_of(args.model), PriorSource::Fit, report)
             }
             Command::Score(args) => {
+                refuse_overlaps(&args.table, Some(&args.prior))?;
                 let summary = load_summary(&args.prior)?;
                 let saved = ModelKind::from_name(&summary.model).ok_or_else(|| {
                     Error::Input(format!(
@@ -282,5 +317,14 @@ mod tests {
     #[test]
     fn the_flag_definitions_are_consistent() {
         Cli::command().debug_assert();
+    }
+
+    #[test]
+    fn delimiters_are_one_character_or_tab() {
+        assert_eq!(parse_delimiter(";"), Ok(b';'));
+        assert_eq!(parse_delimiter("tab"), Ok(b'\t'));
+        assert_eq!(parse_delimiter("\\t"), Ok(b'\t'));
+        assert!(parse_delimiter(";;").is_err());
+        assert!(parse_delimiter("\"").is_err());
     }
 }

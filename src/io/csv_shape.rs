@@ -1,7 +1,7 @@
 //! A structural pass over a CSV file before it is parsed: the text must be
 //! UTF-8, every record must have as many fields as the header, every quoted
 //! field must close, and nothing may follow a closing quote but a separator or
-//! the end of the record (RFC 4180). The parser's own errors do not name the
+//! the end of the record (RFC 4180, with any one-byte field separator). The parser's own errors do not name the
 //! row; this pass names the first faulty one, 1-based after the header.
 //! A blank line counts as a row, as the parser reads it as a row of missing
 //! values (which validation then names), so row numbers agree.
@@ -41,10 +41,12 @@ struct Scanner {
     quote_opened: usize,
     /// The record so far is a lone carriage return (a blank CRLF line).
     carriage_return: bool,
+    /// The field separator.
+    delimiter: u8,
 }
 
 impl Scanner {
-    fn new() -> Self {
+    fn new(delimiter: u8) -> Self {
         Scanner {
             state: State::FieldStart,
             fields: 1,
@@ -53,6 +55,7 @@ impl Scanner {
             header_fields: None,
             quote_opened: 0,
             carriage_return: false,
+            delimiter,
         }
     }
 
@@ -86,7 +89,7 @@ impl Scanner {
             (State::Quoted, b'"') => self.state = State::QuoteInQuoted,
             (State::Quoted, _) => {}
             (State::QuoteInQuoted, b'"') => self.state = State::Quoted,
-            (State::QuoteInQuoted, b',') | (State::FieldStart, b',') | (State::Unquoted, b',') => {
+            (State::QuoteInQuoted | State::FieldStart | State::Unquoted, d) if d == self.delimiter => {
                 self.fields += 1;
                 self.state = State::FieldStart;
             }
@@ -123,9 +126,10 @@ impl Scanner {
     }
 }
 
-/// The first structural fault of CSV text, if any.
-pub fn shape_fault(reader: impl BufRead) -> std::io::Result<Option<ShapeFault>> {
-    let mut scanner = Scanner::new();
+/// The first structural fault of CSV text with fields separated by
+/// `delimiter`, if any.
+pub fn shape_fault(reader: impl BufRead, delimiter: u8) -> std::io::Result<Option<ShapeFault>> {
+    let mut scanner = Scanner::new(delimiter);
     let mut reader = reader;
     let mut line = Vec::new();
     loop {
@@ -150,10 +154,10 @@ pub fn shape_fault(reader: impl BufRead) -> std::io::Result<Option<ShapeFault>> 
 }
 
 /// Checks a CSV file's structure, naming the first faulty row.
-pub fn check_csv_shape(path: &Path) -> Result<()> {
+pub fn check_csv_shape(path: &Path, delimiter: u8) -> Result<()> {
     let file = std::fs::File::open(path)
         .map_err(|e| Error::Input(format!("{}: cannot read the table: {e}", path.display())))?;
-    let fault = shape_fault(BufReader::with_capacity(1 << 20, file))
+    let fault = shape_fault(BufReader::with_capacity(1 << 20, file), delimiter)
         .map_err(|e| Error::Input(format!("{}: cannot read the table: {e}", path.display())))?;
     match fault {
         None => Ok(()),
@@ -171,7 +175,7 @@ mod tests {
     use super::*;
 
     fn fault(text: &str) -> Option<ShapeFault> {
-        shape_fault(text.as_bytes()).unwrap()
+        shape_fault(text.as_bytes(), b',').unwrap()
     }
 
     #[test]
@@ -189,9 +193,16 @@ mod tests {
         let open = fault("id,k,n\na,1,2\n\"b,1,2\nc,1,1\n").unwrap();
         assert_eq!((open.row, open.reason.as_str()), (2, "a quoted field is never closed"));
         assert_eq!(fault("id,k,n\n\"a\"x,1,2\n").unwrap().reason, "text follows a closing quote");
-        assert_eq!(shape_fault(&b"id,k,n\n\xff\xfe,1,2\n"[..]).unwrap().unwrap().row, 1);
+        assert_eq!(shape_fault(&b"id,k,n\n\xff\xfe,1,2\n"[..], b',').unwrap().unwrap().row, 1);
         // A blank line is a row (of missing values) for the parser, so it is counted.
         assert_eq!(fault("id,k,n\na,1,2\n\nb,1\n").unwrap().row, 3);
         assert_eq!(fault("id,k,n\r\na,1,2\r\n\r\nb,1\r\n").unwrap().row, 3);
+    }
+
+    #[test]
+    fn another_separator_counts_its_own_fields() {
+        let semicolons = "id;k;n\n\"a;b\";1;2\nc;1\n";
+        assert_eq!(shape_fault(semicolons.as_bytes(), b';').unwrap().unwrap().row, 2);
+        assert_eq!(shape_fault("id\tk\tn\na\t1\t2\n".as_bytes(), b'\t').unwrap(), None);
     }
 }

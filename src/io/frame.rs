@@ -46,14 +46,27 @@ fn damaged_column(name: &str, decoded: usize, rows: usize) -> Option<String> {
         .then(|| format!("the file is damaged (column '{name}' decodes to {decoded} values for {rows} rows)"))
 }
 
+/// A hint when the header read as one column that holds a likely separator:
+/// the file is almost certainly delimited by it.
+fn separator_hint(header: &[String]) -> String {
+    let [only] = header else { return String::new() };
+    match [(';', "';'"), ('\t', "tab")].into_iter().find(|(c, _)| only.contains(*c)) {
+        Some((_, name)) => format!(
+            "; the header is one column holding {name}: the file looks delimited by {name}, so give --delimiter {}",
+            if name == "tab" { "tab" } else { "';'" }
+        ),
+        None => String::new(),
+    }
+}
+
 fn polars_error(path: &Path, e: PolarsError) -> Error {
     Error::Input(format!("{}: {e}", path.display()))
 }
 
 impl InputTable {
-    /// Reads a CSV or Parquet file.
-    pub fn read(path: &Path) -> Result<Self> {
-        let frame = super::table::read_table(path)?;
+    /// Reads a CSV (fields separated by `delimiter`) or Parquet file.
+    pub fn read(path: &Path, delimiter: u8) -> Result<Self> {
+        let frame = super::table::read_table(path, delimiter)?;
         // A damaged Parquet page can decode to fewer values than the file's
         // row count: polars checks this only in debug builds, where it refuses
         // the file (a fuzz input reached validation short in a release build).
@@ -83,9 +96,10 @@ impl InputTable {
         }
         let available: Vec<String> = self.frame.get_column_names().iter().map(|c| c.to_string()).collect();
         Err(Error::Input(format!(
-            "{}: no column '{name}' (given as the {role} column); available columns: {}",
+            "{}: no column '{name}' (given as the {role} column); available columns: {}{}",
             self.path.display(),
-            available.join(", ")
+            available.join(", "),
+            separator_hint(&available)
         )))
     }
 
@@ -165,6 +179,14 @@ impl InputTable {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_one_column_header_holding_a_separator_gets_a_hint() {
+        assert!(separator_hint(&["id;k;n".to_string()]).contains("--delimiter ';'"));
+        assert!(separator_hint(&["id\tk\tn".to_string()]).contains("--delimiter tab"));
+        assert_eq!(separator_hint(&["id".to_string(), "k;n".to_string()]), "");
+        assert_eq!(separator_hint(&["id".to_string()]), "");
+    }
 
     #[test]
     fn a_column_short_of_the_row_count_is_named_as_damage() {

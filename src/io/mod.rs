@@ -8,6 +8,7 @@ pub mod atomic;
 pub mod csv_shape;
 pub mod frame;
 pub mod guard;
+pub mod overlap;
 pub mod sink;
 pub mod stream;
 pub mod table;

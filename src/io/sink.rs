@@ -8,7 +8,7 @@
 //! number of rows, so a table written in one batch and the same table written
 //! in many batches of a size dividing [`ROW_GROUP_ROWS`] are the same bytes.
 
-use super::atomic::AtomicFile;
+use super::atomic::{AtomicFile, SealedFile};
 use super::TableFormat;
 use crate::error::{Error, Result};
 use arrow_array::{ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
@@ -103,8 +103,9 @@ enum Writer {
     Csv(polars::io::csv::write::BatchedWriter<File>),
 }
 
-/// An output table being written; it appears at its path only on
-/// [`TableSink::finish`], and not at all if dropped before.
+/// An output table being written; [`TableSink::finish`] completes it for
+/// staging, and it appears at its path only when the staged outputs are
+/// committed (not at all if dropped before).
 pub struct TableSink {
     file: AtomicFile,
     format: TableFormat,
@@ -166,8 +167,8 @@ impl TableSink {
         Ok(())
     }
 
-    /// Completes the table and moves it into place.
-    pub fn finish(self) -> Result<()> {
+    /// Completes the table, ready to be staged.
+    pub fn finish(self) -> Result<SealedFile> {
         let path = self.file.target().to_path_buf();
         match self.writer {
             Some(Writer::Parquet(writer)) => {
@@ -176,12 +177,12 @@ impl TableSink {
             Some(Writer::Csv(mut writer)) => writer.finish().map_err(|e| write_error(&path, e))?,
             None => return Err(Error::Other(format!("{}: no rows were given to write", path.display()))),
         }
-        self.file.commit()
+        self.file.seal()
     }
 }
 
-/// Writes a whole table in one batch, atomically.
-pub fn write_table(columns: Columns, path: &Path) -> Result<()> {
+/// Writes a whole table in one batch, sealed for staging.
+pub fn write_table(columns: Columns, path: &Path) -> Result<SealedFile> {
     let mut sink = TableSink::create(path)?;
     sink.write(columns)?;
     sink.finish()

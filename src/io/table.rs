@@ -9,14 +9,14 @@ use crate::error::{Error, Result};
 use polars::prelude::*;
 use std::path::Path;
 
-/// Reads a CSV or Parquet file into a data frame.
-pub fn read_table(path: &Path) -> Result<DataFrame> {
+/// Reads a CSV (fields separated by `delimiter`) or Parquet file into a data frame.
+pub fn read_table(path: &Path, delimiter: u8) -> Result<DataFrame> {
     let format = TableFormat::from_path(path)?;
     if !path.exists() {
         return Err(Error::Input(format!("{}: no such file", path.display())));
     }
     if format == TableFormat::Csv {
-        super::csv_shape::check_csv_shape(path)?;
+        super::csv_shape::check_csv_shape(path, delimiter)?;
     }
     let result = super::guard::guard_read(path, || {
         Ok(match format {
@@ -24,6 +24,7 @@ pub fn read_table(path: &Path) -> Result<DataFrame> {
                 .with_has_header(true)
                 .with_infer_schema_length(Some(0))
                 .with_raise_if_empty(true)
+                .map_parse_options(|options| options.with_separator(delimiter))
                 .try_into_reader_with_file_path(Some(path.to_path_buf()))
                 .and_then(|reader| reader.finish()),
             TableFormat::Parquet => std::fs::File::open(path)

@@ -2,11 +2,12 @@
 //! for repeats, and the output is written in one batch.
 
 use super::prior::score_pairs;
-use super::scoring::{score_columns, summarise, write_summary, RejectRows, RowCounts};
+use super::scoring::{commit_outputs, score_columns, summarise, RejectRows, RowCounts};
 use super::validate::validate;
 use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, PhaseClock};
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
+use crate::io::atomic::StagedOutputs;
 use crate::io::frame::InputTable;
 use crate::io::sink::write_table;
 use crate::report::Summary;
@@ -15,7 +16,7 @@ use std::path::Path;
 /// Runs a job over a table held in memory.
 pub fn run(job: &Job, output: &Path) -> Result<Summary> {
     let mut clock = PhaseClock::start(job);
-    let input = InputTable::read(&job.input)?;
+    let input = InputTable::read(&job.input, job.delimiter)?;
     clock.lap("read");
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
@@ -44,7 +45,8 @@ pub fn run(job: &Job, output: &Path) -> Result<Summary> {
     let scored = score_pairs(job, table, &mut clock)?;
     let mut columns = vec![(names.group.clone(), input.passthrough(&names.group, &valid.rows)?)];
     columns.extend(score_columns(job, &valid.sizes, &valid.counts, &pair_of_row, &scored.posteriors));
-    write_table(columns, output)?;
+    let mut staged = StagedOutputs::default();
+    staged.add(write_table(columns, output)?);
     clock.lap("write");
     if let InvalidRows::Skip { rejects } = &job.invalid {
         let mut rows = RejectRows::default();
@@ -52,7 +54,7 @@ pub fn run(job: &Job, output: &Path) -> Result<Summary> {
             let group = groups[r.row].clone().unwrap_or_default();
             rows.push(r.row + 1, group, &counts[r.row], &sizes[r.row], r);
         }
-        write_table(rows.take_columns(names), rejects)?;
+        staged.add(write_table(rows.take_columns(names), rejects)?);
     }
     let max_shift_group = scored
         .pull
@@ -61,6 +63,6 @@ pub fn run(job: &Job, output: &Path) -> Result<Summary> {
         .and_then(|i| groups[valid.rows[i] as usize].clone());
     let counts = RowCounts { read: input.rows() as u64, rejected: rejected.len() as u64 };
     let summary = summarise(job, counts, &scored, max_shift_group);
-    write_summary(job, &summary)?;
+    commit_outputs(job, &summary, staged)?;
     Ok(summary)
 }

@@ -136,6 +136,8 @@ pub struct Job {
     pub summary: Option<PathBuf>,
     /// Credible level.
     pub level: Level,
+    /// Field separator of CSV input.
+    pub delimiter: u8,
     /// Invalid-row policy.
     pub invalid: InvalidRows,
     /// Prior source.

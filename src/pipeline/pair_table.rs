@@ -4,7 +4,7 @@
 //! (the prior, reusable by `score`) is written.
 
 use super::prior::score_pairs;
-use super::scoring::{summarise, write_summary, RowCounts};
+use super::scoring::{commit_outputs, summarise, RowCounts};
 use super::validate::{check_values, group_count};
 use super::{no_data_rows, roles, size_kind, Job, PhaseClock};
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -15,7 +15,7 @@ use crate::report::Summary;
 /// Fits the prior to a pair table; every row must be valid.
 pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     let mut clock = PhaseClock::start(job);
-    let input = InputTable::read(&job.input)?;
+    let input = InputTable::read(&job.input, job.delimiter)?;
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     for (name, role) in [(weights, "group count"), (&names.count, count_role), (&names.size, size_role)] {
@@ -42,6 +42,6 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     clock.lap("read and validate");
     let scored = score_pairs(job, PairTable::from_weighted(pairs), &mut clock)?;
     let summary = summarise(job, RowCounts { read: input.rows() as u64, rejected: 0 }, &scored, None);
-    write_summary(job, &summary)?;
+    commit_outputs(job, &summary, Default::default())?;
     Ok(summary)
 }

@@ -8,7 +8,7 @@ use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
-use crate::io::atomic::write_bytes_atomically;
+use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::frame::Cell;
 use crate::io::sink::{ColumnValues, Columns};
 use crate::report::{PullReport, Summary};
@@ -148,12 +148,14 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, max_shift_group: O
     }
 }
 
-/// Writes the summary file, if one was asked for; always the last file written.
-pub fn write_summary(job: &Job, summary: &Summary) -> Result<()> {
+/// Stages the summary file, if one was asked for, after every other output,
+/// and renames them all into place: nothing appears unless everything was
+/// written, and a summary file means its table and rejects are complete.
+pub fn commit_outputs(job: &Job, summary: &Summary, mut staged: StagedOutputs) -> Result<()> {
     if let Some(path) = &job.summary {
         let json = serde_json::to_string_pretty(summary)
             .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
-        write_bytes_atomically(path, format!("{json}\n").as_bytes())?;
+        staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
     }
-    Ok(())
+    staged.commit()
 }

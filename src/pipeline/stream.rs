@@ -6,11 +6,12 @@
 //! groups. The output equals the in-memory layout's (same rows, same values).
 
 use super::prior::{score_pairs, Scored};
-use super::scoring::{score_columns, summarise, write_summary, RejectRows, RowCounts};
+use super::scoring::{commit_outputs, score_columns, summarise, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
 use crate::core::pairs::{key, PairMap, PairTable, WeightedPair};
 use crate::error::{Error, Result};
+use crate::io::atomic::StagedOutputs;
 use crate::io::sink::{ColumnValues, Columns, TableSink};
 use crate::io::stream::{cell_at, float64_values, group_values, int64_values, InputBatch, ParquetParts};
 use crate::report::Summary;
@@ -20,6 +21,8 @@ use std::path::Path;
 /// One batch after validation.
 struct CheckedBatch {
     group: ColumnValues,
+    /// Per row: the group id is null or blank.
+    missing: Vec<bool>,
     /// Per row: (size, count), or the rejection (row 0-based within the batch).
     outcomes: Vec<std::result::Result<(f64, f64), Rejection>>,
 }
@@ -84,7 +87,19 @@ fn check_batch(job: &Job, batch: &InputBatch<'_>) -> Result<CheckedBatch> {
         };
         outcomes.push(outcome);
     }
-    Ok(CheckedBatch { group, outcomes })
+    Ok(CheckedBatch { group, missing, outcomes })
+}
+
+impl CheckedBatch {
+    /// A row's group id as text: empty where it is missing, whatever the
+    /// column's type, as the in-memory layout writes it.
+    fn group_text(&self, row: usize) -> String {
+        if self.missing[row] {
+            String::new()
+        } else {
+            self.group.text_at(row)
+        }
+    }
 }
 
 /// Runs a job over a Parquet file or folder, two passes of `batch_rows` rows.
@@ -108,12 +123,19 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
         return Err(no_valid_rows(job, rejected));
     }
     let scored = score_pairs(job, table, &mut clock)?;
-    let max_shift_group = score_and_write(job, &parts, &scored, output, (&mut clock, rows_read))?;
+    let (max_shift_group, staged) = score_and_write(job, &parts, &scored, output, (&mut clock, rows_read))?;
     clock.lap("pass 2: read, score, write");
     let counts = RowCounts { read: rows_read as u64, rejected: rejected as u64 };
     let summary = summarise(job, counts, &scored, max_shift_group);
-    write_summary(job, &summary)?;
+    commit_outputs(job, &summary, staged)?;
     Ok(summary)
+}
+
+fn changed_between_passes(file: &Path) -> Error {
+    Error::Input(format!(
+        "{}: the file changed while it was read (the second pass found rows the first did not); nothing was written",
+        file.display()
+    ))
 }
 
 /// Pass 1: the pair table of the valid rows, and how many rows were rejected.
@@ -156,7 +178,7 @@ fn count_pairs(
 /// Pass 2: scores every batch and hands it to a writer thread, so that
 /// encoding the output overlaps reading and scoring the next batch; writes
 /// the rejects; returns the id of the first group of the pair that moved
-/// furthest. Batches are written in input order, so the bytes do not change.
+/// furthest, and the table and rejects staged. Batches are written in input order, so the bytes do not change.
 /// Progress goes to `clock`, out of `rows`.
 fn score_and_write(
     job: &Job,
@@ -164,7 +186,7 @@ fn score_and_write(
     scored: &Scored,
     output: &Path,
     (clock, rows): (&mut PhaseClock, usize),
-) -> Result<Option<String>> {
+) -> Result<(Option<String>, StagedOutputs)> {
     let index: PairMap<u32> =
         scored.table.pairs().iter().enumerate().map(|(i, p)| (key(p.size, p.count), i as u32)).collect();
     let furthest = scored.pull.max_shift_row.map(|p| p as u32);
@@ -175,7 +197,8 @@ fn score_and_write(
         InvalidRows::Fail => None,
     };
     let (sender, receiver) = std::sync::mpsc::sync_channel::<Columns>(2);
-    std::thread::scope(|scope| {
+    let mut seen = 0;
+    let table = std::thread::scope(|scope| {
         let writer = scope.spawn(move || -> Result<TableSink> {
             for columns in receiver {
                 sink.write(columns)?;
@@ -189,7 +212,9 @@ fn score_and_write(
             for (row, outcome) in checked.outcomes.iter().enumerate() {
                 match outcome {
                     Ok((size, count)) => {
-                        let pair = index[&key(*size, *count)];
+                        let pair = *index
+                            .get(&key(*size, *count))
+                            .ok_or_else(|| changed_between_passes(batch.file))?;
                         if max_shift_group.is_none() && Some(pair) == furthest {
                             max_shift_group = Some(checked.group.text_at(row));
                         }
@@ -202,13 +227,7 @@ fn score_and_write(
                         if let Some((_, held, _)) = &mut rejects {
                             let (count, size) =
                                 (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
-                            held.push(
-                                batch.first_row + row + 1,
-                                checked.group.text_at(row),
-                                &count,
-                                &size,
-                                r,
-                            );
+                            held.push(batch.first_row + row + 1, checked.group_text(row), &count, &size, r);
                         }
                     }
                 }
@@ -222,7 +241,11 @@ fn score_and_write(
                     *wrote = true;
                 }
             }
-            clock.rows("pass 2 of 2", batch.first_row + checked.outcomes.len(), rows);
+            seen = batch.first_row + checked.outcomes.len();
+            if seen > rows {
+                return Err(changed_between_passes(batch.file));
+            }
+            clock.rows("pass 2 of 2", seen, rows);
             Ok(())
         });
         drop(sender);
@@ -230,13 +253,18 @@ fn score_and_write(
         // A writer failure (a full disk, say) explains a stopped producer: report it first.
         let sink = written?;
         produced?;
+        if seen != rows {
+            return Err(changed_between_passes(&job.input));
+        }
         sink.finish()
     })?;
+    let mut staged = StagedOutputs::default();
+    staged.add(table);
     if let Some((mut rejects_sink, mut held, wrote)) = rejects {
         if !wrote {
             rejects_sink.write(held.take_columns(&job.columns))?;
         }
-        rejects_sink.finish()?;
+        staged.add(rejects_sink.finish()?);
     }
-    Ok(max_shift_group)
+    Ok((max_shift_group, staged))
 }

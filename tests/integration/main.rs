@@ -8,6 +8,7 @@ mod facts;
 mod faults;
 mod fits;
 mod fuzz_corpus;
+mod no_overwrite;
 mod properties;
 mod reference;
 mod scale;
