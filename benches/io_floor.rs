@@ -1,19 +1,19 @@
-//! The I/O floor of a scoring run: read the same Parquet input in the same
-//! batches and write a table of the same rows and column count (the group
-//! column, the two count columns and eight float columns copied from the
-//! counts) with the same writer and compression, computing nothing.
+//! The I/O floor of a scoring run: read the same input (CSV or Parquet) in
+//! the same batches, once, and write a table of the same rows and column
+//! count (the group column, the two count columns and eight float columns
+//! copied from the counts) with the same writer and compression, computing
+//! nothing.
 //!
 //! ```text
-//! cargo bench --bench io_floor -- IN.parquet ID_COLUMN COUNT_COLUMN SIZE_COLUMN OUT.parquet
+//! cargo bench --bench io_floor -- IN.parquet|IN.csv ID_COLUMN COUNT_COLUMN SIZE_COLUMN OUT.parquet
 //! ```
-//! `benches/scale.sh` runs it beside `ratepool fit --stream` on the same files.
+//! `benches/scale.sh` runs it beside `ratepool fit` on the same files.
 //! Without arguments, as `cargo test` runs it, it copies a small table of its
 //! own in a temporary folder and checks the row count, so the code cannot rot.
 
-use arrow_array::cast::AsArray;
-use arrow_array::types::Int64Type;
+use ratepool::io::cells::NumericColumn;
+use ratepool::io::input::Input;
 use ratepool::io::sink::{ColumnValues, TableSink};
-use ratepool::io::stream::{group_values, ParquetParts};
 use std::path::Path;
 use std::time::Instant;
 
@@ -51,23 +51,31 @@ fn smoke() {
     let text = |p: &Path| p.to_str().expect("UTF-8 path").to_string();
     copy(&text(&input), "id", "k", "n", &text(&output));
     let columns = [("id", "group"), ("k", "count"), ("n", "size")];
-    let copied = ParquetParts::open(&output, &columns, BATCH_ROWS).expect("output opens");
-    assert_eq!(copied.rows().expect("output rows"), ROWS);
+    let copied = Input::open(&output, b',', &columns, BATCH_ROWS).expect("output opens");
+    let mut rows = 0;
+    copied
+        .for_each_batch(|batch| {
+            rows += batch.rows();
+            Ok(())
+        })
+        .expect("output read");
+    assert_eq!(rows, ROWS);
     println!("io_floor smoke: {ROWS} rows copied");
 }
 
 /// Reads `input` in batches and writes the floor's table to `output`.
 fn copy(input: &str, id: &str, count: &str, size: &str, output: &str) {
     let columns = [(id, "group"), (count, "count"), (size, "size")];
-    let parts = ParquetParts::open(Path::new(input), &columns, BATCH_ROWS).expect("input opens");
+    let parts = Input::open(Path::new(input), b',', &columns, BATCH_ROWS).expect("input opens");
     let mut sink = TableSink::create(Path::new(output)).expect("output opens");
     parts
         .for_each_batch(|batch| {
-            let (group, _) = group_values(&batch.columns[0])?;
-            let ints = |i: usize| -> Vec<i64> {
-                batch.columns[i].as_primitive::<Int64Type>().iter().map(|v| v.unwrap_or_default()).collect()
+            let group = ColumnValues::Arrow(batch.columns[0].clone());
+            let ints = |i: usize| -> ratepool::error::Result<Vec<i64>> {
+                let column = NumericColumn::of(&batch.columns[i])?;
+                Ok((0..batch.rows()).map(|r| column.integer(r).unwrap_or_default()).collect())
             };
-            let (counts, sizes) = (ints(1), ints(2));
+            let (counts, sizes) = (ints(1)?, ints(2)?);
             let mut out = vec![
                 (id.to_string(), group),
                 (count.to_string(), ColumnValues::Integers(counts.clone())),

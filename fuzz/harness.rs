@@ -6,8 +6,8 @@
 //! the run must not panic; a failed run must leave no output and no summary;
 //! a successful one must write both, with finite figures.
 //!
-//! The first byte chooses: bit 0 Parquet, bit 1 gamma-Poisson, bit 2 streamed
-//! (Parquet only), bit 3 skip bad rows. The rest is the file.
+//! The first byte chooses: bit 0 Parquet, bit 1 gamma-Poisson, bit 2 batches
+//! of 3 rows (else the default), bit 3 skip bad rows. The rest is the file.
 
 use ratepool::pipeline::validate::ColumnNames;
 use ratepool::pipeline::{run, InvalidRows, Job, Layout, Level, ModelKind, PriorSource};
@@ -25,11 +25,8 @@ pub fn exercise(data: &[u8]) {
         ModelKind::BetaBinomial => ("k", "n"),
         _ => ("y", "e"),
     };
-    let layout = if parquet && control & 4 == 4 {
-        Layout::Streamed { output: output.clone(), batch_rows: 3 }
-    } else {
-        Layout::Groups { output: output.clone() }
-    };
+    let batch_rows = if control & 4 == 4 { 3 } else { ratepool::pipeline::DEFAULT_BATCH_ROWS };
+    let layout = Layout::Groups { output: output.clone(), batch_rows };
     let invalid = if control & 8 == 8 {
         InvalidRows::Skip { rejects: dir.path().join("rejects.csv") }
     } else {

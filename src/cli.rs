@@ -102,17 +102,15 @@ pub struct TableArgs {
     /// Where invalid rows go with --on-invalid skip (.csv or .parquet).
     #[arg(long)]
     pub rejects: Option<PathBuf>,
-    /// Read a Parquet file, or a folder of Parquet parts, twice in batches instead of whole:
-    /// memory then stays flat however many groups there are. Repeated group ids are not
-    /// detected in this mode.
-    #[arg(long)]
+    /// Accepted for old scripts and changes nothing: every input is now read in batches.
+    #[arg(long, hide = true)]
     pub stream: bool,
     /// Field separator of CSV input: one character, or `tab` (default `,`).
     /// CSV output is always comma-separated.
     #[arg(long, default_value = ",", value_parser = parse_delimiter)]
     pub delimiter: u8,
-    /// Rows per batch with --stream.
-    #[arg(long, default_value_t = 65_536, requires = "stream")]
+    /// Rows per batch read (the output is the same for any value).
+    #[arg(long, default_value_t = crate::pipeline::DEFAULT_BATCH_ROWS)]
     pub batch_rows: usize,
 }
 
@@ -242,7 +240,6 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
         let refused = [
             (table.group.is_some(), "--group"),
             (table.output.is_some(), "--output"),
-            (table.stream, "--stream"),
             (table.on_invalid == InvalidArg::Skip, "--on-invalid skip"),
         ];
         if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
@@ -258,23 +255,7 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
     let group = table.group.clone().ok_or_else(|| Error::Usage("--group COLUMN is required".to_string()))?;
     let output = table.output.clone().ok_or_else(|| Error::Usage("--output FILE is required".to_string()))?;
     crate::io::TableFormat::from_path(&output)?;
-    let layout = if table.stream {
-        if table.input.is_file() {
-            let format = crate::io::TableFormat::from_path(&table.input)?;
-            if format != crate::io::TableFormat::Parquet {
-                return Err(Error::Usage("--stream reads Parquet input only".to_string()));
-            }
-        }
-        Layout::Streamed { output, batch_rows: table.batch_rows.max(1) }
-    } else {
-        if table.input.is_dir() {
-            return Err(Error::Usage(format!(
-                "{} is a folder: read a folder of Parquet parts with --stream",
-                table.input.display()
-            )));
-        }
-        Layout::Groups { output }
-    };
+    let layout = Layout::Groups { output, batch_rows: table.batch_rows.max(1) };
     Ok((group, layout))
 }
 

@@ -1,17 +1,17 @@
-//! I/O adapters: the only code that touches polars, arrow-rs or the file system.
+//! I/O adapters: the only code that touches arrow-rs, Parquet, CSV text or the file system.
 //!
 //! Tables are read and written as CSV or Parquet, chosen by the file
 //! extension. Every output goes through [`atomic`], so a reader never sees a
 //! partial file.
 
 pub mod atomic;
-pub mod csv_shape;
-pub mod frame;
+pub mod cells;
+pub mod csv_input;
 pub mod guard;
+pub mod input;
 pub mod overlap;
+pub mod parquet_input;
 pub mod sink;
-pub mod stream;
-pub mod table;
 
 use crate::error::{Error, Result};
 use std::path::Path;

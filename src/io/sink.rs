@@ -1,22 +1,25 @@
 //! Output tables written batch by batch, always atomically: Parquet through
-//! arrow-rs's `ArrowWriter` (zstd, dictionary pages), CSV through polars'
-//! batched CSV writer.
+//! arrow-rs's `ArrowWriter` (zstd, dictionary pages), CSV by [`CsvWriter`]
+//! (RFC 4180: comma-separated, text quoted where it must be, numbers in
+//! their shortest round-trip form, nulls empty).
 //!
 //! arrow-rs carries the Parquet output because it measured faster and far
-//! leaner than polars' writer on output-shaped tables (see
-//! `benches/parquet_writers.rs` and DEVELOPERS.md). Row groups hold a fixed
+//! leaner than polars' writer on output-shaped tables (see DEVELOPERS.md). Row groups hold a fixed
 //! number of rows, so a table written in one batch and the same table written
 //! in many batches of a size dividing [`ROW_GROUP_ROWS`] are the same bytes.
 
 use super::atomic::{AtomicFile, SealedFile};
 use super::TableFormat;
 use crate::error::{Error, Result};
-use arrow_array::{ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
+use arrow_array::cast::AsArray;
+use arrow_array::types::{Float64Type, Int64Type};
+use arrow_array::{Array, ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
+use arrow_schema::DataType;
 use parquet::arrow::ArrowWriter;
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::file::properties::WriterProperties;
-use polars::prelude::{Column, CsvWriter, DataFrame, PlSmallStr, SerWriter};
 use std::fs::File;
+use std::io::{BufWriter, Write};
 use std::path::Path;
 use std::sync::Arc;
 
@@ -34,6 +37,8 @@ pub enum ColumnValues {
     OptionalFloats(Vec<Option<f64>>),
     /// Text.
     Texts(Vec<String>),
+    /// Values already in a column (64-bit integers, 64-bit floats or text).
+    Arrow(ArrayRef),
 }
 
 impl ColumnValues {
@@ -44,6 +49,7 @@ impl ColumnValues {
             ColumnValues::Floats(v) => v.len(),
             ColumnValues::OptionalFloats(v) => v.len(),
             ColumnValues::Texts(v) => v.len(),
+            ColumnValues::Arrow(v) => v.len(),
         }
     }
 
@@ -52,46 +58,88 @@ impl ColumnValues {
         self.len() == 0
     }
 
-    /// The values at `rows`, in that order.
-    pub fn select(&self, rows: &[u32]) -> ColumnValues {
-        fn pick<T: Clone>(values: &[T], rows: &[u32]) -> Vec<T> {
-            rows.iter().map(|&r| values[r as usize].clone()).collect()
-        }
-        match self {
-            ColumnValues::Integers(v) => ColumnValues::Integers(pick(v, rows)),
-            ColumnValues::Floats(v) => ColumnValues::Floats(pick(v, rows)),
-            ColumnValues::OptionalFloats(v) => ColumnValues::OptionalFloats(pick(v, rows)),
-            ColumnValues::Texts(v) => ColumnValues::Texts(pick(v, rows)),
-        }
-    }
-
-    /// The value at `row` as text (empty where absent).
-    pub fn text_at(&self, row: usize) -> String {
-        match self {
-            ColumnValues::Integers(v) => v[row].to_string(),
-            ColumnValues::Floats(v) => v[row].to_string(),
-            ColumnValues::OptionalFloats(v) => v[row].map(|x| x.to_string()).unwrap_or_default(),
-            ColumnValues::Texts(v) => v[row].clone(),
-        }
-    }
-
     fn into_arrow(self) -> ArrayRef {
         match self {
             ColumnValues::Integers(v) => Arc::new(Int64Array::from(v)),
             ColumnValues::Floats(v) => Arc::new(Float64Array::from(v)),
             ColumnValues::OptionalFloats(v) => Arc::new(Float64Array::from(v)),
             ColumnValues::Texts(v) => Arc::new(StringArray::from(v)),
+            ColumnValues::Arrow(v) => v,
+        }
+    }
+}
+
+/// Writes CSV text from arrow columns.
+pub struct CsvWriter {
+    out: BufWriter<File>,
+    header_written: bool,
+}
+
+impl CsvWriter {
+    fn new(file: File) -> Self {
+        CsvWriter { out: BufWriter::with_capacity(1 << 20, file), header_written: false }
+    }
+
+    fn text(out: &mut Vec<u8>, text: &str) {
+        if text.bytes().any(|b| matches!(b, b',' | b'"' | b'\n' | b'\r')) {
+            out.push(b'"');
+            for b in text.bytes() {
+                if b == b'"' {
+                    out.push(b'"');
+                }
+                out.push(b);
+            }
+            out.push(b'"');
+        } else {
+            out.extend_from_slice(text.as_bytes());
         }
     }
 
-    fn into_polars(self, name: &str) -> Column {
-        let name = PlSmallStr::from(name);
-        match self {
-            ColumnValues::Integers(v) => Column::new(name, v),
-            ColumnValues::Floats(v) => Column::new(name, v),
-            ColumnValues::OptionalFloats(v) => Column::new(name, v),
-            ColumnValues::Texts(v) => Column::new(name, v),
+    fn field(out: &mut Vec<u8>, column: &ArrayRef, row: usize) {
+        if column.is_null(row) {
+            return;
         }
+        match column.data_type() {
+            DataType::Int64 => out.extend_from_slice(
+                itoa::Buffer::new().format(column.as_primitive::<Int64Type>().value(row)).as_bytes(),
+            ),
+            DataType::Float64 => {
+                let x = column.as_primitive::<Float64Type>().value(row);
+                out.extend_from_slice(ryu::Buffer::new().format(x).as_bytes())
+            }
+            _ => Self::text(out, column.as_string::<i32>().value(row)),
+        }
+    }
+
+    fn write(&mut self, batch: &RecordBatch) -> std::io::Result<()> {
+        let mut line = Vec::with_capacity(256);
+        if !self.header_written {
+            for (i, field) in batch.schema().fields().iter().enumerate() {
+                if i > 0 {
+                    line.push(b',');
+                }
+                Self::text(&mut line, field.name());
+            }
+            line.push(b'\n');
+            self.out.write_all(&line)?;
+            self.header_written = true;
+        }
+        for row in 0..batch.num_rows() {
+            line.clear();
+            for (i, column) in batch.columns().iter().enumerate() {
+                if i > 0 {
+                    line.push(b',');
+                }
+                Self::field(&mut line, column, row);
+            }
+            line.push(b'\n');
+            self.out.write_all(&line)?;
+        }
+        Ok(())
+    }
+
+    fn finish(mut self) -> std::io::Result<()> {
+        self.out.flush()
     }
 }
 
@@ -100,7 +148,7 @@ pub type Columns = Vec<(String, ColumnValues)>;
 
 enum Writer {
     Parquet(Box<ArrowWriter<File>>),
-    Csv(polars::io::csv::write::BatchedWriter<File>),
+    Csv(CsvWriter),
 }
 
 /// An output table being written; [`TableSink::finish`] completes it for
@@ -126,12 +174,11 @@ impl TableSink {
     /// Appends a batch of rows; every batch has the same columns.
     pub fn write(&mut self, columns: Columns) -> Result<()> {
         let path = self.file.target().to_path_buf();
+        let batch =
+            RecordBatch::try_from_iter(columns.into_iter().map(|(name, values)| (name, values.into_arrow())))
+                .map_err(|e| write_error(&path, e))?;
         match self.format {
             TableFormat::Parquet => {
-                let batch = RecordBatch::try_from_iter(
-                    columns.into_iter().map(|(name, values)| (name, values.into_arrow())),
-                )
-                .map_err(|e| write_error(&path, e))?;
                 if self.writer.is_none() {
                     let props = WriterProperties::builder()
                         .set_compression(Compression::ZSTD(ZstdLevel::default()))
@@ -146,21 +193,11 @@ impl TableSink {
                 }
             }
             TableFormat::Csv => {
-                let rows = columns.first().map_or(0, |(_, values)| values.len());
-                let frame = DataFrame::new(
-                    rows,
-                    columns.into_iter().map(|(name, values)| values.into_polars(&name)).collect(),
-                )
-                .map_err(|e| write_error(&path, e))?;
                 if self.writer.is_none() {
-                    let writer = CsvWriter::new(self.file.handle()?)
-                        .include_header(true)
-                        .batched(frame.schema())
-                        .map_err(|e| write_error(&path, e))?;
-                    self.writer = Some(Writer::Csv(writer));
+                    self.writer = Some(Writer::Csv(CsvWriter::new(self.file.handle()?)));
                 }
                 if let Some(Writer::Csv(writer)) = &mut self.writer {
-                    writer.write_batch(&frame).map_err(|e| write_error(&path, e))?;
+                    writer.write(&batch).map_err(|e| write_error(&path, e))?;
                 }
             }
         }
@@ -174,7 +211,7 @@ impl TableSink {
             Some(Writer::Parquet(writer)) => {
                 writer.close().map_err(|e| write_error(&path, e))?;
             }
-            Some(Writer::Csv(mut writer)) => writer.finish().map_err(|e| write_error(&path, e))?,
+            Some(Writer::Csv(writer)) => writer.finish().map_err(|e| write_error(&path, e))?,
             None => return Err(Error::Other(format!("{}: no rows were given to write", path.display()))),
         }
         self.file.seal()

@@ -1,14 +1,14 @@
 //! The end-to-end job: read, validate, aggregate to pairs, fit (or load a
 //! prior), score every group, and write the table, the rejects and the
-//! summary, in that order. Three layouts share that sequence: a table held
-//! in memory, a Parquet input streamed twice in batches, and a pre-aggregated
-//! pair table that yields only the summary.
+//! summary, in that order. Two layouts share that sequence: one row per
+//! group (any input, read in two batched passes: [`passes`]), and a
+//! pre-aggregated pair table that yields only the summary.
 
-mod memory;
+pub mod duplicates;
 mod pair_table;
+pub mod passes;
 mod prior;
 mod scoring;
-mod stream;
 pub mod validate;
 
 use crate::core::model::beta_binomial::BetaBinomial;
@@ -95,19 +95,17 @@ pub enum PriorSource {
     },
 }
 
+/// Rows per batch unless asked otherwise.
+pub const DEFAULT_BATCH_ROWS: usize = 65_536;
+
 /// How the input is laid out and read.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub enum Layout {
-    /// One row per group, read whole into memory; the table goes to `output`.
+    /// One row per group in a CSV file, a Parquet file or a folder of
+    /// Parquet parts, read in batches of `batch_rows` (pass 1 counts pairs,
+    /// pass 2 scores and writes), so memory does not grow with the number of
+    /// groups beyond 8 bytes a row for finding repeated ids.
     Groups {
-        /// Output table.
-        output: PathBuf,
-    },
-    /// One row per group in a Parquet file or folder of parts, read twice in
-    /// batches of `batch_rows` (pass 1 counts pairs, pass 2 scores and writes),
-    /// so memory does not grow with the number of groups. Repeated group ids
-    /// are not detected: that would need memory for every id.
-    Streamed {
         /// Output table.
         output: PathBuf,
         /// Rows per batch.
@@ -181,22 +179,26 @@ impl PhaseClock {
         self.last = now;
     }
 
-    /// Within a phase: `done` of `total` rows are through. Reported when a
-    /// second has passed since the last report, and always at the end.
-    fn rows(&mut self, phase: &str, done: usize, total: usize) {
+    /// Within a phase: `done` of `total` rows (when known) are through.
+    /// Reported when a second has passed since the last report, and always
+    /// at the end.
+    fn rows(&mut self, phase: &str, done: usize, total: Option<usize>) {
         if !self.progress {
             return;
         }
         let now = Instant::now();
-        if done < total && now - self.last_report < REPORT_EVERY {
+        if total.is_none_or(|total| done < total) && now - self.last_report < REPORT_EVERY {
             return;
         }
         self.last_report = now;
-        let share = 100.0 * done as f64 / total.max(1) as f64;
-        eprintln!(
-            "progress {phase}: {done} of {total} rows ({share:.1}%) at {:.1} s",
-            (now - self.started).as_secs_f64()
-        );
+        let at = (now - self.started).as_secs_f64();
+        match total {
+            Some(total) => {
+                let share = 100.0 * done as f64 / total.max(1) as f64;
+                eprintln!("progress {phase}: {done} of {total} rows ({share:.1}%) at {at:.1} s");
+            }
+            None => eprintln!("progress {phase}: {done} rows at {at:.1} s"),
+        }
     }
 }
 
@@ -211,8 +213,7 @@ pub fn load_summary(path: &Path) -> Result<Summary> {
 /// Runs a job and returns its summary (also written to the summary file).
 pub fn run(job: &Job) -> Result<Summary> {
     match &job.layout {
-        Layout::Groups { output } => memory::run(job, output),
-        Layout::Streamed { output, batch_rows } => stream::run(job, output, *batch_rows),
+        Layout::Groups { output, batch_rows } => passes::run(job, output, *batch_rows),
         Layout::PairCounts { weights } => pair_table::run(job, weights),
     }
 }

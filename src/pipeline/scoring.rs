@@ -9,7 +9,7 @@ use crate::core::model::Posterior;
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
-use crate::io::frame::Cell;
+use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns};
 use crate::report::{PullReport, Summary};
 

@@ -1,8 +1,7 @@
 //! Row validation rules: which input rows can be scored, and why the others
 //! cannot. Pure functions over cells; the I/O layer supplies the cells.
 
-use crate::io::frame::Cell;
-use std::collections::HashMap;
+use crate::io::cells::Cell;
 
 /// Counts above 2^53 cannot all be held exactly in a double.
 pub const MAX_EXACT_COUNT: f64 = 9_007_199_254_740_992.0;
@@ -25,17 +24,6 @@ pub struct Rejection {
     pub column: String,
     /// What is wrong.
     pub reason: String,
-}
-
-/// Rows that passed, with their sizes and counts.
-#[derive(Debug, Clone, Default, PartialEq)]
-pub struct ValidRows {
-    /// 0-based input rows, in input order.
-    pub rows: Vec<u32>,
-    /// Trials or exposure per kept row.
-    pub sizes: Vec<f64>,
-    /// Successes or events per kept row.
-    pub counts: Vec<f64>,
 }
 
 /// Names of the input columns in play.
@@ -88,52 +76,6 @@ fn exposure(cell: &Cell) -> Result<f64, String> {
         Cell::Number(v) => Ok(v),
         ref other => whole_count(other),
     }
-}
-
-/// Checks every row; returns the good rows and the rejections (first fault
-/// of each bad row), both in input order. A repeated group id rejects every
-/// occurrence after the first.
-pub fn validate(
-    names: &ColumnNames,
-    kind: SizeKind,
-    groups: &[Option<String>],
-    counts: &[Cell],
-    sizes: &[Cell],
-) -> (ValidRows, Vec<Rejection>) {
-    let mut valid = ValidRows::default();
-    let mut rejected = Vec::new();
-    let mut first_row: HashMap<&str, usize> = HashMap::with_capacity(groups.len());
-    for row in 0..groups.len() {
-        let problem = check_row(names, kind, row, groups, counts, sizes, &mut first_row);
-        match problem {
-            Ok((size, count)) => {
-                valid.rows.push(row as u32);
-                valid.sizes.push(size);
-                valid.counts.push(count);
-            }
-            Err((column, reason)) => rejected.push(Rejection { row, column: column.to_string(), reason }),
-        }
-    }
-    (valid, rejected)
-}
-
-fn check_row<'a>(
-    names: &'a ColumnNames,
-    kind: SizeKind,
-    row: usize,
-    groups: &'a [Option<String>],
-    counts: &[Cell],
-    sizes: &[Cell],
-    first_row: &mut HashMap<&'a str, usize>,
-) -> Result<(f64, f64), (&'a str, String)> {
-    let Some(id) = groups[row].as_deref() else {
-        return Err((&names.group, MISSING_GROUP.to_string()));
-    };
-    if let Some(&first) = first_row.get(id) {
-        return Err((&names.group, format!("duplicate group id '{id}' (first at row {})", first + 1)));
-    }
-    first_row.insert(id, row);
-    check_values(names, kind, &counts[row], &sizes[row])
 }
 
 /// The reason given for a row without a group id.
@@ -195,49 +137,22 @@ mod tests {
 
     #[test]
     fn each_fault_is_named_with_its_column() {
-        let groups = vec![
-            Some("a".into()),
-            None,
-            Some("c".into()),
-            Some("a".into()),
-            Some("e".into()),
-            Some("f".into()),
-        ];
-        let counts = vec![
-            Cell::Integer(1),
-            Cell::Integer(1),
-            Cell::Integer(5),
-            Cell::Integer(0),
-            Cell::Number(0.5),
-            Cell::Integer(1),
-        ];
-        let sizes = vec![
-            Cell::Integer(3),
-            Cell::Integer(3),
-            Cell::Integer(4),
-            Cell::Integer(3),
-            Cell::Integer(2),
-            Cell::Text("x".into()),
-        ];
-        let (valid, rejected) = validate(&names(), SizeKind::Trials, &groups, &counts, &sizes);
-        assert_eq!(valid.rows, vec![0]);
-        let summary: Vec<(usize, &str)> = rejected.iter().map(|r| (r.row, r.column.as_str())).collect();
-        assert_eq!(summary, vec![(1, "g"), (2, "k"), (3, "g"), (4, "k"), (5, "n")]);
-        assert!(rejected[2].reason.contains("first at row 1"));
+        let names = names();
+        let check = |count: Cell, size: Cell| check_values(&names, SizeKind::Trials, &count, &size);
+        assert_eq!(check(Cell::Integer(1), Cell::Integer(3)), Ok((3.0, 1.0)));
+        assert_eq!(check(Cell::Integer(5), Cell::Integer(4)).unwrap_err().0, "k");
+        assert_eq!(check(Cell::Number(0.5), Cell::Integer(2)).unwrap_err().0, "k");
+        assert_eq!(check(Cell::Integer(1), Cell::Text("x".into())).unwrap_err().0, "n");
+        assert!(check(Cell::Integer(1), Cell::Missing).unwrap_err().1.contains("missing"));
     }
 
     #[test]
     fn exposure_may_be_zero_only_without_events() {
-        let groups = vec![Some("a".into()), Some("b".into())];
-        let (valid, rejected) = validate(
-            &names(),
-            SizeKind::Exposure,
-            &groups,
-            &[Cell::Integer(0), Cell::Integer(2)],
-            &[Cell::Number(0.0), Cell::Number(0.0)],
-        );
-        assert_eq!(valid.rows, vec![0]);
-        assert_eq!(rejected[0].column, "n");
+        let names = names();
+        let check =
+            |count: i128| check_values(&names, SizeKind::Exposure, &Cell::Integer(count), &Cell::Number(0.0));
+        assert_eq!(check(0), Ok((0.0, 0.0)));
+        assert_eq!(check(2).unwrap_err().0, "n");
     }
 
     #[test]

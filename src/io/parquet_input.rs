@@ -1,15 +1,11 @@
-//! Streaming Parquet input: one file, or a folder of Parquet parts taken in
-//! name order, read in batches of rows and only the columns asked for,
-//! through arrow-rs. Memory follows the batch size, not the file size.
+//! Parquet input: one file, or a folder of Parquet parts taken in name
+//! order, read in batches of rows and only the columns asked for, through
+//! arrow-rs. Memory follows the batch size, not the file size. Every codec a
+//! producer writes is read (snappy, gzip, both LZ4 codecs, zstd, brotli).
 
-use super::frame::{parse_text, Cell};
 use super::guard::guard_read;
-use super::sink::ColumnValues;
+use super::input::InputBatch;
 use crate::error::{Error, Result};
-use arrow_array::cast::AsArray;
-use arrow_array::types::{Float64Type, Int64Type, UInt64Type};
-use arrow_array::{Array, ArrayRef};
-use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 use parquet::arrow::ProjectionMask;
 use std::fs::File;
@@ -18,20 +14,11 @@ use std::path::{Path, PathBuf};
 /// A Parquet file or folder of parts, with the columns to read.
 pub struct ParquetParts {
     files: Vec<PathBuf>,
+    /// Rows of each file, from its footer.
+    file_rows: Vec<usize>,
     columns: Vec<String>,
     batch_rows: usize,
-}
-
-/// One batch of input rows.
-pub struct InputBatch<'a> {
-    /// The part file the rows come from.
-    pub file: &'a Path,
-    /// 0-based row of the batch's first row within its file.
-    pub first_row_in_file: usize,
-    /// 0-based row of the batch's first row over all parts.
-    pub first_row: usize,
-    /// The requested columns, in the order requested.
-    pub columns: Vec<ArrayRef>,
+    folder: bool,
 }
 
 fn read_error(path: &Path, e: impl std::fmt::Display) -> Error {
@@ -66,8 +53,10 @@ impl ParquetParts {
     /// available ones if not. `roles` says what each column is for.
     pub fn open(path: &Path, columns: &[(&str, &str)], batch_rows: usize) -> Result<Self> {
         let files = parquet_files(path)?;
+        let mut file_rows = Vec::with_capacity(files.len());
         for file in &files {
             let builder = Self::builder(file)?;
+            file_rows.push(builder.metadata().file_metadata().num_rows().max(0) as usize);
             let schema = builder.schema();
             for (name, role) in columns {
                 if schema.column_with_name(name).is_none() {
@@ -81,7 +70,7 @@ impl ParquetParts {
             }
         }
         let columns = columns.iter().map(|(name, _)| name.to_string()).collect();
-        Ok(ParquetParts { files, columns, batch_rows: batch_rows.max(1) })
+        Ok(ParquetParts { files, file_rows, columns, batch_rows: batch_rows.max(1), folder: path.is_dir() })
     }
 
     fn builder(file: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
@@ -89,13 +78,14 @@ impl ParquetParts {
         guard_read(file, || ParquetRecordBatchReaderBuilder::try_new(handle).map_err(|e| read_error(file, e)))
     }
 
-    /// Total rows over all parts, from the file footers.
-    pub fn rows(&self) -> Result<usize> {
-        let mut rows = 0;
-        for file in &self.files {
-            rows += Self::builder(file)?.metadata().file_metadata().num_rows().max(0) as usize;
-        }
-        Ok(rows)
+    /// True when the input is a folder of parts.
+    pub fn is_folder(&self) -> bool {
+        self.folder
+    }
+
+    /// The part files and their rows, from the footers, in reading order.
+    pub fn files(&self) -> impl Iterator<Item = (&Path, usize)> {
+        self.files.iter().map(PathBuf::as_path).zip(self.file_rows.iter().copied())
     }
 
     /// Calls `visit` on every batch, in file and row order.
@@ -131,64 +121,4 @@ impl ParquetParts {
         }
         Ok(())
     }
-}
-
-fn cast(array: &ArrayRef, to: &DataType) -> Result<ArrayRef> {
-    arrow_cast::cast(array, to).map_err(|e| Error::Input(format!("cannot read a column as {to}: {e}")))
-}
-
-/// The cells of a column, typed as stored (the streaming twin of
-/// `InputTable::cells`).
-pub fn cells_of(array: &ArrayRef) -> Result<Vec<Cell>> {
-    let dtype = array.data_type();
-    let cells = if *dtype == DataType::UInt64 {
-        array
-            .as_primitive::<UInt64Type>()
-            .iter()
-            .map(|v| v.map_or(Cell::Missing, |v| Cell::Integer(v.into())))
-            .collect()
-    } else if dtype.is_integer() {
-        let cast = cast(array, &DataType::Int64)?;
-        cast.as_primitive::<Int64Type>()
-            .iter()
-            .map(|v| v.map_or(Cell::Missing, |v| Cell::Integer(v.into())))
-            .collect()
-    } else if dtype.is_floating() {
-        let cast = cast(array, &DataType::Float64)?;
-        cast.as_primitive::<Float64Type>().iter().map(|v| v.map_or(Cell::Missing, Cell::Number)).collect()
-    } else {
-        let cast = cast(array, &DataType::Utf8)?;
-        cast.as_string::<i32>().iter().map(|v| v.map_or(Cell::Missing, parse_text)).collect()
-    };
-    Ok(cells)
-}
-
-/// A group column as output values of its own kind (integers stay integers,
-/// anything else is text), and beside it which rows have no id.
-pub fn group_values(array: &ArrayRef) -> Result<(ColumnValues, Vec<bool>)> {
-    if array.data_type().is_integer() && *array.data_type() != DataType::UInt64 {
-        let cast = cast(array, &DataType::Int64)?;
-        let values = cast.as_primitive::<Int64Type>();
-        let missing = (0..values.len()).map(|i| values.is_null(i)).collect();
-        return Ok((ColumnValues::Integers(values.iter().map(|v| v.unwrap_or_default()).collect()), missing));
-    }
-    let cast = cast(array, &DataType::Utf8)?;
-    let texts = cast.as_string::<i32>();
-    let missing = texts.iter().map(|v| v.is_none_or(|t| t.trim().is_empty())).collect();
-    Ok((ColumnValues::Texts(texts.iter().map(|v| v.unwrap_or_default().to_string()).collect()), missing))
-}
-
-/// The cell at one row of a column (for messages and the rejects file).
-pub fn cell_at(array: &ArrayRef, row: usize) -> Result<Cell> {
-    Ok(cells_of(&array.slice(row, 1))?.pop().unwrap_or(Cell::Missing))
-}
-
-/// The column's values when it is stored as 64-bit integers.
-pub fn int64_values(array: &ArrayRef) -> Option<&arrow_array::Int64Array> {
-    array.as_primitive_opt::<Int64Type>()
-}
-
-/// The column's values when it is stored as 64-bit floats.
-pub fn float64_values(array: &ArrayRef) -> Option<&arrow_array::Float64Array> {
-    array.as_primitive_opt::<Float64Type>()
 }

@@ -1,0 +1,379 @@
+//! The one pipeline for every input (a CSV file, a Parquet file, a folder
+//! of Parquet parts), in batches, so memory does not grow with the input
+//! beyond 8 bytes a row for repeated-id detection:
+//!
+//! 1. pass 1 validates every row, counts the distinct (size, count) pairs
+//!    (the sufficient statistic) and hashes every group id;
+//! 2. when some id hashes repeat, one more read compares those ids exactly
+//!    ([`super::duplicates`]);
+//! 3. the prior is fitted to the pairs (or loaded) and every pair scored;
+//! 4. pass 2 validates every row again with the same kernel, scores each
+//!    batch from the pair posteriors and hands it to a writer thread, so
+//!    encoding overlaps reading; the rejects are written beside it.
+//!
+//! Every output is staged and renamed into place only at the end.
+
+use super::duplicates::{IdHashes, RepeatFinder, Repeats};
+use super::prior::{score_pairs, Scored};
+use super::scoring::{commit_outputs, score_columns, summarise, RejectRows, RowCounts};
+use super::validate::{check_values, Rejection, MISSING_GROUP};
+use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
+use crate::core::pairs::{key, PairMap, PairTable, WeightedPair};
+use crate::error::{Error, Result};
+use crate::io::atomic::StagedOutputs;
+use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
+use crate::io::input::{Input, InputBatch};
+use crate::io::parquet_input::ParquetParts;
+use crate::io::sink::{ColumnValues, Columns, TableSink};
+use crate::report::Summary;
+use std::path::Path;
+
+/// The largest count held exactly in a double, as an integer.
+const MAX_EXACT: i64 = 1 << 53;
+
+/// One batch's columns, read once per batch in the forms the check needs.
+struct BatchView<'a> {
+    batch: &'a InputBatch<'a>,
+    group: GroupColumn,
+    counts: NumericColumn,
+    sizes: NumericColumn,
+}
+
+impl<'a> BatchView<'a> {
+    fn of(batch: &'a InputBatch<'a>) -> Result<Self> {
+        Ok(BatchView {
+            batch,
+            group: GroupColumn::of(&batch.columns[0])?,
+            counts: NumericColumn::of(&batch.columns[1])?,
+            sizes: NumericColumn::of(&batch.columns[2])?,
+        })
+    }
+
+    /// (size, count) of a row whose values are plainly valid as read; None
+    /// sends the row to the full check, which accepts the same rows with the
+    /// same values and names the fault of the others. This spares building a
+    /// cell per value.
+    fn plainly_valid(&self, model: ModelKind, row: usize) -> Option<(f64, f64)> {
+        let count = self.counts.integer(row).filter(|k| (0..=MAX_EXACT).contains(k))?;
+        let size = match model {
+            ModelKind::BetaBinomial => {
+                self.sizes.integer(row).filter(|n| (0..=MAX_EXACT).contains(n))? as f64
+            }
+            ModelKind::GammaPoisson => self.sizes.number(row).filter(|&e| e >= 0.0)?,
+        };
+        let fine = match model {
+            ModelKind::BetaBinomial => count as f64 <= size,
+            ModelKind::GammaPoisson => size > 0.0 || count == 0,
+        };
+        fine.then_some((size, count as f64))
+    }
+
+    /// The one validation kernel: (size, count) of a valid row, or the
+    /// first fault of an invalid one (`row` 0-based within the batch).
+    fn check(&self, job: &Job, row: usize) -> Result<std::result::Result<(f64, f64), Rejection>> {
+        let names = &job.columns;
+        let reject = |column: &str, reason: String| Rejection { row, column: column.to_string(), reason };
+        if self.group.is_missing(row) {
+            return Ok(Err(reject(&names.group, MISSING_GROUP.to_string())));
+        }
+        if let Some(pair) = self.plainly_valid(job.model, row) {
+            return Ok(Ok(pair));
+        }
+        let (count, size) = (cell_at(&self.batch.columns[1], row)?, cell_at(&self.batch.columns[2], row)?);
+        Ok(check_values(names, size_kind(job.model), &count, &size)
+            .map_err(|(column, reason)| reject(column, reason)))
+    }
+}
+
+/// The first row fault met, with where it lies.
+struct RowFault {
+    /// 0-based row over the whole input.
+    row: usize,
+    error: Error,
+}
+
+fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFault {
+    RowFault {
+        row: batch.first_row + rejection.row,
+        error: Error::InvalidRow {
+            path: batch.file.to_path_buf(),
+            row: batch.first_row_in_file + rejection.row + 1,
+            column: rejection.column,
+            reason: rejection.reason,
+        },
+    }
+}
+
+/// What pass 1 learns.
+struct PassOne {
+    weights: PairMap<WeightedPair>,
+    rows: usize,
+    rejected: usize,
+    first_fault: Option<RowFault>,
+    ids: IdHashes,
+}
+
+fn known_rows(input: &Input) -> Option<usize> {
+    match input {
+        Input::Parquet(parts) => Some(parts_rows(parts)),
+        Input::Csv { .. } => None,
+    }
+}
+
+fn parts_rows(parts: &ParquetParts) -> usize {
+    parts.files().map(|(_, rows)| rows).sum()
+}
+
+/// Runs a job over any input, two passes of `batch_rows` rows.
+pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
+    let mut clock = PhaseClock::start(job);
+    let (count_role, size_role) = roles(job.model);
+    let names = &job.columns;
+    let columns = [
+        (names.group.as_str(), "group"),
+        (names.count.as_str(), count_role),
+        (names.size.as_str(), size_role),
+    ];
+    let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
+    let mut first = count_pairs(job, &input, &mut clock)?;
+    clock.lap("pass 1: read, validate, count pairs");
+    if first.rows == 0 {
+        return Err(no_data_rows(job));
+    }
+    let repeats = find_repeats(job, &input, &mut first)?;
+    if let Some(fault) = earliest_fault(job, &input, first.first_fault.take(), &repeats) {
+        return Err(fault);
+    }
+    let table = PairTable::from_weighted(first.weights.into_values().filter(|p| p.weight > 0.0));
+    if table.pairs().is_empty() {
+        return Err(no_valid_rows(job, first.rejected));
+    }
+    let scored = score_pairs(job, table, &mut clock)?;
+    let rows = first.rows;
+    let (max_shift_group, staged) =
+        score_and_write(job, &input, &scored, output, &repeats, (&mut clock, rows))?;
+    clock.lap("pass 2: read, score, write");
+    let counts = RowCounts { read: rows as u64, rejected: first.rejected as u64 };
+    let summary = summarise(job, counts, &scored, max_shift_group);
+    commit_outputs(job, &summary, staged)?;
+    Ok(summary)
+}
+
+/// Pass 1: the pair counts of the valid rows, rows read and rejected, the
+/// first row fault, and a hash of every group id.
+fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassOne> {
+    let total = known_rows(input);
+    let mut pass = PassOne {
+        weights: PairMap::default(),
+        rows: 0,
+        rejected: 0,
+        first_fault: None,
+        ids: IdHashes::with_capacity(total.unwrap_or(0)),
+    };
+    input.for_each_batch(|batch| {
+        let view = BatchView::of(&batch)?;
+        for row in 0..batch.rows() {
+            if !view.group.is_missing(row) {
+                view.group.with_bytes(row, |id| pass.ids.push(id));
+            }
+            match view.check(job, row)? {
+                Ok((size, count)) => {
+                    pass.weights
+                        .entry(key(size, count))
+                        .or_insert(WeightedPair { size, count, weight: 0.0 })
+                        .weight += 1.0
+                }
+                Err(rejection) => {
+                    pass.rejected += 1;
+                    if pass.first_fault.is_none() {
+                        pass.first_fault = Some(row_error(&batch, rejection));
+                    }
+                }
+            }
+        }
+        pass.rows = batch.first_row + batch.rows();
+        clock.rows("pass 1 of 2", pass.rows, total);
+        Ok(())
+    })?;
+    Ok(pass)
+}
+
+/// Compares the ids whose hashes repeat, reading the input once more (only
+/// when some do). A repeating row is rejected: its pair, if it was counted,
+/// is taken back out of the counts.
+fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats> {
+    let candidates = std::mem::take(&mut pass.ids).repeated();
+    if candidates.is_empty() {
+        return Ok(Repeats::default());
+    }
+    let mut finder = RepeatFinder::new(candidates);
+    input.for_each_batch(|batch| {
+        let view = BatchView::of(&batch)?;
+        for row in 0..batch.rows() {
+            if view.group.is_missing(row) {
+                continue;
+            }
+            let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
+            if repeat.is_some() {
+                if let Ok((size, count)) = view.check(job, row)? {
+                    if let Some(pair) = pass.weights.get_mut(&key(size, count)) {
+                        pair.weight -= 1.0;
+                    }
+                    pass.rejected += 1;
+                }
+            }
+        }
+        Ok(())
+    })?;
+    Ok(finder.finish())
+}
+
+/// The reason given to a row whose id repeats an earlier row's.
+fn repeat_reason(input: &Input, group: &str, first: usize) -> String {
+    let place = input.place(first);
+    let part = if input.has_parts() { format!(" of {}", place.file.display()) } else { String::new() };
+    format!("duplicate group id '{group}' (first at row {}{part})", place.row_in_file + 1)
+}
+
+/// With `--on-invalid error`: the earliest row fault, a repeated id or a bad value.
+fn earliest_fault(job: &Job, input: &Input, fault: Option<RowFault>, repeats: &Repeats) -> Option<Error> {
+    if job.invalid != InvalidRows::Fail {
+        return None;
+    }
+    let repeat = repeats.earliest().filter(|&(row, _)| fault.as_ref().is_none_or(|f| row < f.row));
+    match repeat {
+        Some((row, first)) => {
+            let place = input.place(row);
+            let group = group_text_at(input, row).unwrap_or_default();
+            Some(Error::InvalidRow {
+                path: place.file,
+                row: place.row_in_file + 1,
+                column: job.columns.group.clone(),
+                reason: repeat_reason(input, &group, first),
+            })
+        }
+        None => fault.map(|f| f.error),
+    }
+}
+
+/// The group id of one row (read again: used only for a message).
+fn group_text_at(input: &Input, row: usize) -> Result<String> {
+    let mut text = String::new();
+    input.for_each_batch(|batch| {
+        if (batch.first_row..batch.first_row + batch.rows()).contains(&row) {
+            text = GroupColumn::of(&batch.columns[0])?.text(row - batch.first_row);
+        }
+        Ok(())
+    })?;
+    Ok(text)
+}
+
+fn changed_between_passes(file: &Path) -> Error {
+    Error::Input(format!(
+        "{}: the file changed while it was read (the second pass found rows the first did not); nothing was written",
+        file.display()
+    ))
+}
+
+/// Pass 2: scores every batch and hands it to a writer thread, so that
+/// encoding the output overlaps reading and scoring the next batch; writes
+/// the rejects; returns the id of the first group of the pair that moved
+/// furthest, and the table and rejects staged. Batches are written in input
+/// order, so the bytes do not depend on timing. Progress goes to `clock`,
+/// out of `rows`.
+fn score_and_write(
+    job: &Job,
+    input: &Input,
+    scored: &Scored,
+    output: &Path,
+    repeats: &Repeats,
+    (clock, rows): (&mut PhaseClock, usize),
+) -> Result<(Option<String>, StagedOutputs)> {
+    let index: PairMap<u32> =
+        scored.table.pairs().iter().enumerate().map(|(i, p)| (key(p.size, p.count), i as u32)).collect();
+    let furthest = scored.pull.max_shift_row.map(|p| p as u32);
+    let mut max_shift_group = None;
+    let mut sink = TableSink::create(output)?;
+    let mut rejects = match &job.invalid {
+        InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
+        InvalidRows::Fail => None,
+    };
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<Columns>(2);
+    let mut seen = 0;
+    let table = std::thread::scope(|scope| {
+        let writer = scope.spawn(move || -> Result<TableSink> {
+            for columns in receiver {
+                sink.write(columns)?;
+            }
+            Ok(sink)
+        });
+        let produced = input.for_each_batch(|batch| {
+            let view = BatchView::of(&batch)?;
+            let (mut kept, mut sizes, mut counts, mut pair_of_row) =
+                (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+            for row in 0..batch.rows() {
+                let mut outcome = view.check(job, row)?;
+                if let (false, Some(first)) =
+                    (view.group.is_missing(row), repeats.first_of(batch.first_row + row))
+                {
+                    let reason = repeat_reason(input, &view.group.text(row), first);
+                    outcome = Err(Rejection { row, column: job.columns.group.clone(), reason });
+                }
+                match outcome {
+                    Ok((size, count)) => {
+                        let pair = *index
+                            .get(&key(size, count))
+                            .ok_or_else(|| changed_between_passes(batch.file))?;
+                        if max_shift_group.is_none() && Some(pair) == furthest {
+                            max_shift_group = Some(view.group.text(row));
+                        }
+                        kept.push(row as u32);
+                        sizes.push(size);
+                        counts.push(count);
+                        pair_of_row.push(pair);
+                    }
+                    Err(r) => {
+                        if let Some((_, held, _)) = &mut rejects {
+                            let (count, size) =
+                                (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
+                            held.push(batch.first_row + row + 1, view.group.text(row), &count, &size, &r);
+                        }
+                    }
+                }
+            }
+            let mut columns = vec![(job.columns.group.clone(), ColumnValues::Arrow(view.group.take(&kept)))];
+            columns.extend(score_columns(job, &sizes, &counts, &pair_of_row, &scored.posteriors));
+            sender.send(columns).map_err(|_| Error::Other("the output writer stopped".to_string()))?;
+            if let Some((rejects_sink, held, wrote)) = &mut rejects {
+                if !held.is_empty() {
+                    rejects_sink.write(held.take_columns(&job.columns))?;
+                    *wrote = true;
+                }
+            }
+            seen = batch.first_row + batch.rows();
+            if seen > rows {
+                return Err(changed_between_passes(batch.file));
+            }
+            clock.rows("pass 2 of 2", seen, Some(rows));
+            Ok(())
+        });
+        drop(sender);
+        let written = writer.join().map_err(|_| Error::Other("the output writer panicked".to_string()))?;
+        // A writer failure (a full disk, say) explains a stopped producer: report it first.
+        let sink = written?;
+        produced?;
+        if seen != rows {
+            return Err(changed_between_passes(&job.input));
+        }
+        sink.finish()
+    })?;
+    let mut staged = StagedOutputs::default();
+    staged.add(table);
+    if let Some((mut rejects_sink, mut held, wrote)) = rejects {
+        if !wrote {
+            rejects_sink.write(held.take_columns(&job.columns))?;
+        }
+        staged.add(rejects_sink.finish()?);
+    }
+    Ok((max_shift_group, staged))
+}
