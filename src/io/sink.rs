@@ -6,7 +6,10 @@
 //! arrow-rs carries the Parquet output because it measured faster and far
 //! leaner than polars' writer on output-shaped tables (see DEVELOPERS.md). Row groups hold a fixed
 //! number of rows, so a table written in one batch and the same table written
-//! in many batches of a size dividing [`ROW_GROUP_ROWS`] are the same bytes.
+//! in batches of any sizes are the same bytes: the Parquet writer is handed
+//! rows in fixed chunks of [`CHUNK_ROWS`] at fixed offsets whatever batches
+//! arrive ([`ParquetChunks`]), because arrow-rs decides page boundaries and
+//! dictionary fallback per slice of 1024 rows of each batch it is given.
 
 use super::atomic::{AtomicFile, SealedFile};
 use super::TableFormat;
@@ -25,6 +28,60 @@ use std::sync::Arc;
 
 /// Rows per Parquet row group.
 pub const ROW_GROUP_ROWS: usize = 1 << 20;
+
+/// Rows handed to the Parquet writer at a time: a multiple of 1024 that
+/// divides [`ROW_GROUP_ROWS`].
+pub const CHUNK_ROWS: usize = 1 << 16;
+
+/// arrow-rs's Parquet writer, fed in chunks of exactly [`CHUNK_ROWS`] rows
+/// (the last one shorter), so the bytes do not depend on the batches given.
+pub struct ParquetChunks {
+    writer: ArrowWriter<File>,
+    pending: Vec<RecordBatch>,
+    pending_rows: usize,
+}
+
+impl ParquetChunks {
+    fn new(file: File, schema: arrow_schema::SchemaRef) -> parquet::errors::Result<Self> {
+        let props = WriterProperties::builder()
+            .set_compression(Compression::ZSTD(ZstdLevel::default()))
+            .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
+            .build();
+        let writer = ArrowWriter::try_new(file, schema, Some(props))?;
+        Ok(ParquetChunks { writer, pending: Vec::new(), pending_rows: 0 })
+    }
+
+    fn write(&mut self, batch: RecordBatch) -> std::result::Result<(), String> {
+        self.pending_rows += batch.num_rows();
+        self.pending.push(batch);
+        if self.pending_rows >= CHUNK_ROWS {
+            self.drain(false)?;
+        }
+        Ok(())
+    }
+
+    /// Writes the rows held in chunks of [`CHUNK_ROWS`]: only whole chunks
+    /// (keeping the rest) unless `all` is set.
+    fn drain(&mut self, all: bool) -> std::result::Result<(), String> {
+        let Some(first) = self.pending.first() else { return Ok(()) };
+        let held = arrow_select::concat::concat_batches(&first.schema(), &self.pending)
+            .map_err(|e| e.to_string())?;
+        let rows = held.num_rows();
+        let written = if all { rows } else { rows / CHUNK_ROWS * CHUNK_ROWS };
+        for offset in (0..written).step_by(CHUNK_ROWS) {
+            let chunk = held.slice(offset, CHUNK_ROWS.min(written - offset));
+            self.writer.write(&chunk).map_err(|e| e.to_string())?;
+        }
+        self.pending = vec![held.slice(written, rows - written)];
+        self.pending_rows = rows - written;
+        Ok(())
+    }
+
+    fn close(mut self) -> std::result::Result<(), String> {
+        self.drain(true)?;
+        self.writer.close().map(|_| ()).map_err(|e| e.to_string())
+    }
+}
 
 /// Values of one output column.
 #[derive(Debug, Clone, PartialEq)]
@@ -147,7 +204,7 @@ impl CsvWriter {
 pub type Columns = Vec<(String, ColumnValues)>;
 
 enum Writer {
-    Parquet(Box<ArrowWriter<File>>),
+    Parquet(Box<ParquetChunks>),
     Csv(CsvWriter),
 }
 
@@ -180,16 +237,12 @@ impl TableSink {
         match self.format {
             TableFormat::Parquet => {
                 if self.writer.is_none() {
-                    let props = WriterProperties::builder()
-                        .set_compression(Compression::ZSTD(ZstdLevel::default()))
-                        .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
-                        .build();
-                    let writer = ArrowWriter::try_new(self.file.handle()?, batch.schema(), Some(props))
+                    let writer = ParquetChunks::new(self.file.handle()?, batch.schema())
                         .map_err(|e| write_error(&path, e))?;
                     self.writer = Some(Writer::Parquet(Box::new(writer)));
                 }
                 if let Some(Writer::Parquet(writer)) = &mut self.writer {
-                    writer.write(&batch).map_err(|e| write_error(&path, e))?;
+                    writer.write(batch).map_err(|e| write_error(&path, e))?;
                 }
             }
             TableFormat::Csv => {

@@ -1,7 +1,8 @@
 //! The scale paths give the same answers as the plain one: a pre-aggregated
 //! pair table (made by DuckDB, `scripts/make_pair_tables.py`) fits the same
-//! prior as the raw rows, and the streamed two-pass layout writes the same
-//! table and summary as the in-memory layout, for a file or a folder of parts.
+//! prior as the raw rows; the same table as a Parquet file, a folder of
+//! parts or a CSV file, read in any batch size on any number of threads,
+//! writes the same bytes and summary; repeated ids are found across parts.
 
 use crate::util::{fixture, ratepool, stderr, summary};
 use arrow_array::{ArrayRef, Int64Array, RecordBatch, StringArray};
@@ -151,54 +152,66 @@ fn setup(faults: bool) -> tempfile::TempDir {
     dir
 }
 
-#[test]
-fn the_streamed_layout_writes_the_same_bytes_and_summary_as_the_in_memory_one() {
-    let dir = setup(false);
-    run_ok(dir.path(), &stream_args("all.parquet", "memory.parquet", "memory.json"));
-    let streamed: Vec<&str> = stream_args("all.parquet", "streamed.parquet", "streamed.json")
-        .into_iter()
-        .chain(["--stream", "--batch-rows", "256"])
-        .collect();
-    run_ok(dir.path(), &streamed);
-    let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
-    assert_eq!(read("memory.parquet"), read("streamed.parquet"), "same Parquet bytes");
-    assert_eq!(summary(&dir.path().join("memory.json")), summary(&dir.path().join("streamed.json")));
-    // A folder of two parts, batches not aligned to the parts, CSV out.
-    run_ok(dir.path(), &stream_args("all.parquet", "memory.csv", "m.json"));
-    let parts: Vec<&str> = stream_args("parts", "parts.csv", "p.json")
-        .into_iter()
-        .chain(["--stream", "--batch-rows", "1000"])
-        .collect();
-    run_ok(dir.path(), &parts);
-    assert_eq!(read("memory.csv"), read("parts.csv"), "same CSV bytes from a folder of parts");
+/// Writes the table as CSV.
+fn write_csv(path: &Path, (ids, ks, ns): &Table) {
+    let cell = |v: &Option<i64>| v.map(|v| v.to_string()).unwrap_or_default();
+    let mut text = String::from("id,k,n\n");
+    for ((id, k), n) in ids.iter().zip(ks).zip(ns) {
+        text.push_str(&format!("{},{},{}\n", id.as_deref().unwrap_or(""), cell(k), cell(n)));
+    }
+    std::fs::write(path, text).unwrap();
 }
 
 #[test]
-fn the_streamed_layout_rejects_the_same_rows_as_the_in_memory_one() {
+fn a_file_a_folder_of_parts_and_a_csv_give_the_same_bytes_in_any_batch_size() {
+    let dir = setup(false);
+    write_csv(&dir.path().join("all.csv"), &groups(3000, false));
+    run_ok(dir.path(), &stream_args("all.parquet", "whole.parquet", "whole.json"));
+    let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
+    for (input, batch) in [("all.parquet", "256"), ("parts", "1000"), ("all.csv", "77"), ("all.csv", "65536")]
+    {
+        let args: Vec<&str> = stream_args(input, "got.parquet", "got.json")
+            .into_iter()
+            .chain(["--batch-rows", batch])
+            .collect();
+        run_ok(dir.path(), &args);
+        assert_eq!(read("whole.parquet"), read("got.parquet"), "same Parquet bytes from {input} in {batch}");
+        assert_eq!(summary(&dir.path().join("whole.json")), summary(&dir.path().join("got.json")));
+    }
+    // CSV out, from a folder of two parts, batches not aligned to the parts.
+    run_ok(dir.path(), &stream_args("all.parquet", "whole.csv", "m.json"));
+    let parts: Vec<&str> =
+        stream_args("parts", "parts.csv", "p.json").into_iter().chain(["--batch-rows", "1000"]).collect();
+    run_ok(dir.path(), &parts);
+    assert_eq!(read("whole.csv"), read("parts.csv"), "same CSV bytes from a folder of parts");
+}
+
+#[test]
+fn a_file_a_folder_of_parts_and_a_csv_reject_the_same_rows() {
     let dir = setup(true);
+    write_csv(&dir.path().join("all.csv"), &groups(3000, true));
     let skip = ["--on-invalid", "skip", "--rejects"];
-    let memory: Vec<&str> = stream_args("all.parquet", "memory.csv", "m.json")
+    let whole: Vec<&str> = stream_args("all.parquet", "whole.csv", "m.json")
         .into_iter()
         .chain(skip)
         .chain(["m-rejects.csv"])
         .collect();
-    run_ok(dir.path(), &memory);
-    let streamed: Vec<&str> = stream_args("parts", "streamed.csv", "s.json")
-        .into_iter()
-        .chain(skip)
-        .chain(["s-rejects.csv", "--stream", "--batch-rows", "100"])
-        .collect();
-    run_ok(dir.path(), &streamed);
+    run_ok(dir.path(), &whole);
     let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
-    assert_eq!(read("memory.csv"), read("streamed.csv"));
-    assert_eq!(read("m-rejects.csv"), read("s-rejects.csv"));
+    for (input, batch) in [("parts", "100"), ("all.csv", "333")] {
+        let args: Vec<&str> = stream_args(input, "got.csv", "s.json")
+            .into_iter()
+            .chain(skip)
+            .chain(["s-rejects.csv", "--batch-rows", batch])
+            .collect();
+        run_ok(dir.path(), &args);
+        assert_eq!(read("whole.csv"), read("got.csv"), "{input}");
+        assert_eq!(read("m-rejects.csv"), read("s-rejects.csv"), "{input}");
+        assert_eq!(summary(&dir.path().join("m.json")), summary(&dir.path().join("s.json")));
+    }
     assert_eq!(read("m-rejects.csv").lines().count(), 5, "header and four bad rows");
-    assert_eq!(summary(&dir.path().join("m.json")), summary(&dir.path().join("s.json")));
-    // Without skip, the streamed run stops at the first bad row of its part, writing nothing.
-    let out = ratepool(
-        dir.path(),
-        &stream_args("parts", "fail.csv", "fail.json").into_iter().chain(["--stream"]).collect::<Vec<_>>(),
-    );
+    // Without skip, the run stops at the first bad row, naming its part, writing nothing.
+    let out = ratepool(dir.path(), &stream_args("parts", "fail.csv", "fail.json"));
     assert_eq!(out.status.code(), Some(2));
     assert!(stderr(&out).contains("part-0.parquet: row 6, column 'id'"), "{}", stderr(&out));
     assert!(!dir.path().join("fail.csv").exists() && !dir.path().join("fail.json").exists());
@@ -209,13 +222,13 @@ fn progress_reports_both_passes_to_the_last_row_and_changes_no_output() {
     let dir = setup(false);
     let plain: Vec<&str> = stream_args("parts", "plain.parquet", "plain.json")
         .into_iter()
-        .chain(["--stream", "--batch-rows", "500"])
+        .chain(["--batch-rows", "500"])
         .collect();
     run_ok(dir.path(), &plain);
     let watched: Vec<&str> = ["--progress"]
         .into_iter()
         .chain(stream_args("parts", "watched.parquet", "watched.json"))
-        .chain(["--stream", "--batch-rows", "500"])
+        .chain(["--batch-rows", "500"])
         .collect();
     let out = ratepool(dir.path(), &watched);
     assert!(out.status.success(), "{}", stderr(&out));
@@ -229,4 +242,113 @@ fn progress_reports_both_passes_to_the_last_row_and_changes_no_output() {
     let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
     assert_eq!(read("plain.parquet"), read("watched.parquet"));
     assert_eq!(summary(&dir.path().join("plain.json")), summary(&dir.path().join("watched.json")));
+}
+
+/// Invented groups with many distinct pairs (sizes to 5,000).
+fn many_pairs(count: usize) -> Table {
+    let mut state: u64 = 20261203;
+    let mut next = move || {
+        state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        state >> 33
+    };
+    let (mut ids, mut ks, mut ns) = (Vec::new(), Vec::new(), Vec::new());
+    for i in 0..count {
+        let n = (next() % 5000) as i64;
+        ids.push(Some(format!("g{i:07}")));
+        ks.push(Some((n * (next() % 100) as i64) / 100));
+        ns.push(Some(n));
+    }
+    (ids, ks, ns)
+}
+
+fn write_table(path: &Path, (ids, ks, ns): &Table, rows: std::ops::Range<usize>) {
+    let ids: Vec<Option<&str>> = ids[rows.clone()].iter().map(|s| s.as_deref()).collect();
+    write_parquet(path, &ids, &ks[rows.clone()], &ns[rows]);
+}
+
+/// 2^21 + 3 rows: past two output row groups, through batch sizes that are
+/// not multiples of 1024, a folder of unequal parts and the CSV of the table.
+#[test]
+fn a_large_input_gives_the_same_bytes_through_any_batches_and_parts() {
+    let rows = (1 << 21) + 3;
+    let table = many_pairs(rows);
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("all.parquet"), &table, 0..rows);
+    std::fs::create_dir(dir.path().join("parts")).unwrap();
+    let cuts = [0, 700_001, 1_700_000, rows];
+    for (i, w) in cuts.windows(2).enumerate() {
+        write_table(&dir.path().join(format!("parts/part-{i}.parquet")), &table, w[0]..w[1]);
+    }
+    write_csv(&dir.path().join("all.csv"), &table);
+    run_ok(dir.path(), &stream_args("all.parquet", "whole.parquet", "whole.json"));
+    let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
+    for (input, batch) in [("all.parquet", "1000"), ("parts", "100003"), ("all.csv", "65537")] {
+        let args: Vec<&str> = stream_args(input, "got.parquet", "got.json")
+            .into_iter()
+            .chain(["--batch-rows", batch])
+            .collect();
+        run_ok(dir.path(), &args);
+        assert!(read("whole.parquet") == read("got.parquet"), "Parquet bytes differ from {input} in {batch}");
+        assert_eq!(summary(&dir.path().join("whole.json")), summary(&dir.path().join("got.json")));
+    }
+}
+
+/// More than 2,048 distinct pairs, so the chunked sums over pairs really run
+/// in several chunks, in parallel with two threads.
+#[test]
+fn one_and_two_threads_give_the_same_bytes_over_many_chunks_of_pairs() {
+    let table = many_pairs(40_000);
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("all.parquet"), &table, 0..40_000);
+    let run = |threads: &str, out: &str, s: &str| {
+        let args: Vec<&str> =
+            ["--threads", threads].into_iter().chain(stream_args("all.parquet", out, s)).collect();
+        run_ok(dir.path(), &args);
+    };
+    run("1", "one.parquet", "one.json");
+    run("2", "two.parquet", "two.json");
+    let pairs = summary(&dir.path().join("one.json"))["groups"].as_u64().unwrap();
+    assert_eq!(pairs, 40_000);
+    let distinct: std::collections::HashSet<(i64, i64)> =
+        table.1.iter().zip(&table.2).map(|(k, n)| (k.unwrap(), n.unwrap())).collect();
+    assert!(distinct.len() > 3 * 2048, "{} distinct pairs", distinct.len());
+    assert_eq!(
+        std::fs::read(dir.path().join("one.parquet")).unwrap(),
+        std::fs::read(dir.path().join("two.parquet")).unwrap()
+    );
+    assert_eq!(summary(&dir.path().join("one.json")), summary(&dir.path().join("two.json")));
+}
+
+/// A repeated id between two parts, and one at the last row of the last
+/// part: refused naming both rows and both parts; with skip, rejected.
+#[test]
+fn repeated_ids_are_found_across_parts_and_at_the_last_row() {
+    let (mut ids, ks, ns) = groups(3000, false);
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::create_dir(dir.path().join("parts")).unwrap();
+    ids[1500] = ids[10].clone(); // part-1 repeats part-0
+    ids[2999] = ids[2000].clone(); // the last row of the last part
+    let table = (ids, ks, ns);
+    write_table(&dir.path().join("parts/part-0.parquet"), &table, 0..1200);
+    write_table(&dir.path().join("parts/part-1.parquet"), &table, 1200..3000);
+    let out = ratepool(dir.path(), &stream_args("parts", "o.csv", "s.json"));
+    let message = stderr(&out);
+    assert_eq!(out.status.code(), Some(2), "{message}");
+    assert!(message.contains("part-1.parquet: row 301, column 'id'"), "{message}");
+    assert!(message.contains("duplicate group id 'g00010' (first at row 11 of"), "{message}");
+    assert!(message.contains("part-0.parquet)"), "{message}");
+    assert!(!dir.path().join("o.csv").exists() && !dir.path().join("s.json").exists());
+    let skip: Vec<&str> = stream_args("parts", "o.csv", "s.json")
+        .into_iter()
+        .chain(["--on-invalid", "skip", "--rejects", "r.csv", "--batch-rows", "512"])
+        .collect();
+    run_ok(dir.path(), &skip);
+    let rejects = std::fs::read_to_string(dir.path().join("r.csv")).unwrap();
+    let lines: Vec<&str> = rejects.lines().collect();
+    assert_eq!(lines.len(), 3, "{rejects}");
+    assert!(lines[1].starts_with("1501,g00010,") && lines[1].contains("first at row 11 of"), "{rejects}");
+    assert!(lines[2].starts_with("3000,g02000,") && lines[2].contains("first at row 801 of"), "{rejects}");
+    let s = summary(&dir.path().join("s.json"));
+    assert_eq!((s["groups"].as_u64(), s["rows_rejected"].as_u64()), (Some(2998), Some(2)));
+    assert_eq!(std::fs::read_to_string(dir.path().join("o.csv")).unwrap().lines().count(), 2999);
 }
