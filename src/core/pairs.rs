@@ -69,6 +69,91 @@ impl Hasher for PairHasher {
 /// A hash map keyed by pairs.
 pub type PairMap<V> = HashMap<PairKey, V, BuildHasherDefault<PairHasher>>;
 
+/// Whole sizes below this take the dense part of a [`PairIndex`].
+const DENSE_SIZES: usize = 1024;
+
+/// Numbers a pair by where its counts fall: pairs of a whole size below
+/// [`DENSE_SIZES`] and a whole count no larger than the size (most groups,
+/// in practice) by a triangular array indexed by (size, count), the rest by
+/// a hash map. The array is 2 MB and fits the cache; a hash map of hundreds
+/// of thousands of pairs does not, and one lookup per input row made it a
+/// large part of a run's time.
+pub struct PairIndex {
+    dense: Vec<u32>,
+    sparse: PairMap<u32>,
+}
+
+impl Default for PairIndex {
+    fn default() -> Self {
+        PairIndex { dense: vec![u32::MAX; DENSE_SIZES * (DENSE_SIZES + 1) / 2], sparse: PairMap::default() }
+    }
+}
+
+impl PairIndex {
+    /// The dense slot of a pair, when it has one.
+    fn slot(size: f64, count: f64) -> Option<usize> {
+        let whole = |x: f64| x >= 0.0 && x.fract() == 0.0;
+        (whole(size) && whole(count) && size < DENSE_SIZES as f64 && count <= size).then(|| {
+            let n = size as usize;
+            n * (n + 1) / 2 + count as usize
+        })
+    }
+
+    /// The number of a pair, if it has one.
+    pub fn get(&self, size: f64, count: f64) -> Option<u32> {
+        match Self::slot(size, count) {
+            Some(slot) => Some(self.dense[slot]).filter(|&i| i != u32::MAX),
+            None => self.sparse.get(&key(size, count)).copied(),
+        }
+    }
+
+    /// The number of a pair, giving it `next()` when it has none yet.
+    pub fn get_or_insert(&mut self, size: f64, count: f64, next: impl FnOnce() -> u32) -> u32 {
+        match Self::slot(size, count) {
+            Some(slot) => {
+                if self.dense[slot] == u32::MAX {
+                    self.dense[slot] = next();
+                }
+                self.dense[slot]
+            }
+            None => *self.sparse.entry(key(size, count)).or_insert_with(next),
+        }
+    }
+
+    /// The index of a table: each pair numbered by its position.
+    pub fn of_table(table: &PairTable) -> Self {
+        let mut index = PairIndex::default();
+        for (i, pair) in table.pairs().iter().enumerate() {
+            index.get_or_insert(pair.size, pair.count, || i as u32);
+        }
+        index
+    }
+}
+
+/// Counts groups per pair, in the order pairs are first seen.
+#[derive(Default)]
+pub struct PairCounter {
+    index: PairIndex,
+    pairs: Vec<WeightedPair>,
+}
+
+impl PairCounter {
+    /// Adds `weight` groups to a pair (a negative weight takes them back).
+    pub fn add(&mut self, size: f64, count: f64, weight: f64) {
+        let pairs = &mut self.pairs;
+        let i = self.index.get_or_insert(size, count, || {
+            pairs.push(WeightedPair { size, count, weight: 0.0 });
+            (pairs.len() - 1) as u32
+        });
+        self.pairs[i as usize].weight += weight;
+    }
+
+    /// The table of the pairs still held by at least one group.
+    pub fn into_table(self) -> PairTable {
+        PairTable::from_weighted(self.pairs.into_iter().filter(|p| p.weight > 0.0))
+    }
+}
+
 impl PairTable {
     /// Builds the table from already weighted pairs (for example the output
     /// of a SQL `GROUP BY`); pairs that repeat are merged.
@@ -149,6 +234,27 @@ mod tests {
             assert_eq!((pair.size, pair.count), ([10.0, 3.0, 10.0, 3.0][g], [2.0, 1.0, 2.0, 0.0][g]));
         }
         assert_eq!(table.pairs()[2].weight, 2.0);
+    }
+
+    #[test]
+    fn the_index_numbers_dense_and_sparse_pairs_alike() {
+        let mut counter = PairCounter::default();
+        let pairs = [(3.0, 1.0), (3.0, 1.0), (2000.0, 5.0), (2.5, 1.0), (4.0, 7.0), (0.0, 0.0), (3.0, 1.0)];
+        for (size, count) in pairs {
+            counter.add(size, count, 1.0);
+        }
+        counter.add(2000.0, 5.0, -1.0);
+        let table = counter.into_table();
+        let sizes: Vec<(f64, f64, f64)> = table.pairs().iter().map(|p| (p.size, p.count, p.weight)).collect();
+        assert_eq!(sizes, vec![(0.0, 0.0, 1.0), (2.5, 1.0, 1.0), (3.0, 1.0, 3.0), (4.0, 7.0, 1.0)]);
+        let index = PairIndex::of_table(&table);
+        assert_eq!(index.get(3.0, 1.0), Some(2));
+        assert_eq!(index.get(4.0, 7.0), Some(3));
+        assert_eq!(index.get(2000.0, 5.0), None);
+        assert_eq!(index.get(3.0, 2.0), None);
+        assert_eq!(PairIndex::slot(1023.0, 1023.0), Some(1023 * 1024 / 2 + 1023));
+        assert_eq!(PairIndex::slot(1024.0, 0.0), None);
+        assert_eq!(PairIndex::slot(-0.0, 0.0), Some(0));
     }
 
     #[test]

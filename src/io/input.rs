@@ -90,8 +90,23 @@ impl Input {
         Ok(Input::Csv { file, columns, batch_rows: batch_rows.max(1) })
     }
 
-    /// Calls `visit` on every batch, in file and row order.
+    /// Calls `visit` on every batch, in file and row order. The batches are
+    /// decoded on a thread of their own, up to two ahead of `visit`, so that
+    /// reading overlaps the work done on them.
     pub fn for_each_batch(&self, mut visit: impl FnMut(InputBatch<'_>) -> Result<()>) -> Result<()> {
+        let (sender, receiver) = std::sync::mpsc::sync_channel::<InputBatch<'_>>(2);
+        std::thread::scope(|scope| {
+            let reader = scope.spawn(move || {
+                // A send fails only when `visit` has stopped, whose error is reported instead.
+                self.read_batches(|batch| sender.send(batch).map_err(|_| Error::Other("stopped".to_string())))
+            });
+            let visited = receiver.into_iter().try_for_each(&mut visit);
+            let read = reader.join().map_err(|_| Error::Other("the input reader panicked".to_string()))?;
+            visited.and(read)
+        })
+    }
+
+    fn read_batches<'s>(&'s self, mut visit: impl FnMut(InputBatch<'s>) -> Result<()>) -> Result<()> {
         match self {
             Input::Parquet(parts) => parts.for_each_batch(visit),
             Input::Csv { file, columns, batch_rows } => {

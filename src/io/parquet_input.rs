@@ -89,7 +89,7 @@ impl ParquetParts {
     }
 
     /// Calls `visit` on every batch, in file and row order.
-    pub fn for_each_batch(&self, mut visit: impl FnMut(InputBatch<'_>) -> Result<()>) -> Result<()> {
+    pub fn for_each_batch<'s>(&'s self, mut visit: impl FnMut(InputBatch<'s>) -> Result<()>) -> Result<()> {
         let mut first_row = 0;
         for file in &self.files {
             let builder = Self::builder(file)?;

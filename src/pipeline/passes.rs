@@ -18,7 +18,7 @@ use super::prior::{score_pairs, Scored};
 use super::scoring::{commit_outputs, score_columns, summarise, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
-use crate::core::pairs::{key, PairMap, PairTable, WeightedPair};
+use crate::core::pairs::{PairCounter, PairIndex};
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
@@ -106,7 +106,7 @@ fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFault {
 
 /// What pass 1 learns.
 struct PassOne {
-    weights: PairMap<WeightedPair>,
+    pairs: PairCounter,
     rows: usize,
     rejected: usize,
     first_fault: Option<RowFault>,
@@ -144,7 +144,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     if let Some(fault) = earliest_fault(job, &input, first.first_fault.take(), &repeats) {
         return Err(fault);
     }
-    let table = PairTable::from_weighted(first.weights.into_values().filter(|p| p.weight > 0.0));
+    let table = first.pairs.into_table();
     if table.pairs().is_empty() {
         return Err(no_valid_rows(job, first.rejected));
     }
@@ -164,7 +164,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
 fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassOne> {
     let total = known_rows(input);
     let mut pass = PassOne {
-        weights: PairMap::default(),
+        pairs: PairCounter::default(),
         rows: 0,
         rejected: 0,
         first_fault: None,
@@ -177,12 +177,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassO
                 view.group.with_bytes(row, |id| pass.ids.push(id));
             }
             match view.check(job, row)? {
-                Ok((size, count)) => {
-                    pass.weights
-                        .entry(key(size, count))
-                        .or_insert(WeightedPair { size, count, weight: 0.0 })
-                        .weight += 1.0
-                }
+                Ok((size, count)) => pass.pairs.add(size, count, 1.0),
                 Err(rejection) => {
                     pass.rejected += 1;
                     if pass.first_fault.is_none() {
@@ -216,9 +211,7 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
             let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
             if repeat.is_some() {
                 if let Ok((size, count)) = view.check(job, row)? {
-                    if let Some(pair) = pass.weights.get_mut(&key(size, count)) {
-                        pair.weight -= 1.0;
-                    }
+                    pass.pairs.add(size, count, -1.0);
                     pass.rejected += 1;
                 }
             }
@@ -289,8 +282,7 @@ fn score_and_write(
     repeats: &Repeats,
     (clock, rows): (&mut PhaseClock, usize),
 ) -> Result<(Option<String>, StagedOutputs)> {
-    let index: PairMap<u32> =
-        scored.table.pairs().iter().enumerate().map(|(i, p)| (key(p.size, p.count), i as u32)).collect();
+    let index = PairIndex::of_table(&scored.table);
     let furthest = scored.pull.max_shift_row.map(|p| p as u32);
     let mut max_shift_group = None;
     let mut sink = TableSink::create(output)?;
@@ -309,8 +301,8 @@ fn score_and_write(
         });
         let produced = input.for_each_batch(|batch| {
             let view = BatchView::of(&batch)?;
-            let (mut kept, mut sizes, mut counts, mut pair_of_row) =
-                (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+            let (mut kept, mut pair_of_row) =
+                (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
             for row in 0..batch.rows() {
                 let mut outcome = view.check(job, row)?;
                 if let (false, Some(first)) =
@@ -321,15 +313,12 @@ fn score_and_write(
                 }
                 match outcome {
                     Ok((size, count)) => {
-                        let pair = *index
-                            .get(&key(size, count))
-                            .ok_or_else(|| changed_between_passes(batch.file))?;
+                        let pair =
+                            index.get(size, count).ok_or_else(|| changed_between_passes(batch.file))?;
                         if max_shift_group.is_none() && Some(pair) == furthest {
                             max_shift_group = Some(view.group.text(row));
                         }
                         kept.push(row as u32);
-                        sizes.push(size);
-                        counts.push(count);
                         pair_of_row.push(pair);
                     }
                     Err(r) => {
@@ -342,7 +331,7 @@ fn score_and_write(
                 }
             }
             let mut columns = vec![(job.columns.group.clone(), ColumnValues::Arrow(view.group.take(&kept)))];
-            columns.extend(score_columns(job, &sizes, &counts, &pair_of_row, &scored.posteriors));
+            columns.extend(score_columns(job, scored.table.pairs(), &scored.posteriors, &pair_of_row));
             sender.send(columns).map_err(|_| Error::Other("the output writer stopped".to_string()))?;
             if let Some((rejects_sink, held, wrote)) = &mut rejects {
                 if !held.is_empty() {
