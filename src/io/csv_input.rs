@@ -49,9 +49,12 @@ trait RecordSink {
         &mut self,
         row: usize,
         fields: usize,
-        captured: &[Option<Vec<u8>>],
+        captured: &[Option<&[u8]>],
     ) -> std::result::Result<(), ShapeFault>;
 }
+
+/// Most wanted fields a line can have for [`Scanner::fast_line`].
+const FAST_SLOTS: usize = 8;
 
 /// Scans CSV text byte by byte, record by record.
 struct Scanner {
@@ -109,11 +112,12 @@ impl Scanner {
         if blank && self.header_seen {
             self.captured.iter_mut().for_each(|c| *c = None);
             self.record += 1;
-            sink.record(self.record, 0, &self.captured)?;
+            sink.record(self.record, 0, &vec![None; self.captured.len()])?;
         } else if !blank {
             self.end_field(sink);
             let row = if self.header_seen { self.record + 1 } else { 0 };
-            sink.record(row, self.fields, &self.captured)?;
+            let view: Vec<Option<&[u8]>> = self.captured.iter().map(Option::as_deref).collect();
+            sink.record(row, self.fields, &view)?;
             self.captured.iter_mut().for_each(|c| *c = None);
             self.record = row;
             self.header_seen = true;
@@ -174,6 +178,38 @@ impl Scanner {
         Ok(())
     }
 
+    /// Reads a whole line as one record without the byte-by-byte state
+    /// machine, when that gives the same result: the header has been read,
+    /// no record is in progress, the line holds no quote, and the wanted
+    /// fields fit [`FAST_SLOTS`]. None when the line needs the full scan.
+    fn fast_line(
+        &mut self,
+        line: &[u8],
+        sink: &mut impl RecordSink,
+    ) -> Option<std::result::Result<(), ShapeFault>> {
+        let at_start = self.state == State::FieldStart && self.record_bytes == 0 && self.header_seen;
+        if !at_start || line.contains(&b'"') {
+            return None;
+        }
+        let body = line.strip_suffix(b"\n").unwrap_or(line);
+        let body = body.strip_suffix(b"\r").unwrap_or(body);
+        if body.is_empty() || body.contains(&b'\r') {
+            return None;
+        }
+        let mut captured: [Option<&[u8]>; FAST_SLOTS] = [None; FAST_SLOTS];
+        let mut fields = 0;
+        for field in body.split(|&b| b == self.delimiter) {
+            match sink.slot(fields) {
+                Some(slot) if slot >= FAST_SLOTS => return None,
+                Some(slot) => captured[slot] = (!field.is_empty()).then_some(field),
+                None => {}
+            }
+            fields += 1;
+        }
+        self.record += 1;
+        Some(sink.record(self.record, fields, &captured[..self.captured.len().min(FAST_SLOTS)]))
+    }
+
     /// The row number the record in progress will have.
     fn next_row(&self) -> usize {
         if self.header_seen {
@@ -219,6 +255,11 @@ fn scan(
         }
         let text = if first && line.starts_with(b"\xEF\xBB\xBF") { &line[3..] } else { &line[..] };
         first = false;
+        match scanner.fast_line(text, sink) {
+            Some(Ok(())) => continue,
+            Some(Err(fault)) => return Ok(Some(fault)),
+            None => {}
+        }
         for &b in text {
             if let Err(fault) = scanner.byte(b, sink) {
                 return Ok(Some(fault));
@@ -249,7 +290,7 @@ impl RecordSink for ShapeOnly {
         &mut self,
         row: usize,
         fields: usize,
-        _: &[Option<Vec<u8>>],
+        _: &[Option<&[u8]>],
     ) -> std::result::Result<(), ShapeFault> {
         match self.header_fields {
             None => {
@@ -299,11 +340,11 @@ impl RecordSink for HeaderOnly {
         &mut self,
         _: usize,
         fields: usize,
-        captured: &[Option<Vec<u8>>],
+        captured: &[Option<&[u8]>],
     ) -> std::result::Result<(), ShapeFault> {
         if self.header.is_none() {
             let name = |i: usize| {
-                captured.get(i).cloned().flatten().map(|b| String::from_utf8_lossy(&b).into_owned())
+                captured.get(i).copied().flatten().map(|b| String::from_utf8_lossy(b).into_owned())
             };
             self.header = Some((0..fields).map(|i| name(i).unwrap_or_default()).collect());
         }
@@ -347,7 +388,7 @@ impl<V: FnMut(usize, Vec<ArrayRef>) -> Result<()>> RecordSink for BatchBuilder<'
         &mut self,
         row: usize,
         fields: usize,
-        captured: &[Option<Vec<u8>>],
+        captured: &[Option<&[u8]>],
     ) -> std::result::Result<(), ShapeFault> {
         if row == 0 {
             return Ok(());
@@ -355,7 +396,7 @@ impl<V: FnMut(usize, Vec<ArrayRef>) -> Result<()>> RecordSink for BatchBuilder<'
         field_count_fault(row, fields, self.expected_fields)?;
         for (builder, value) in self.builders.iter_mut().zip(captured) {
             // Each line was checked as UTF-8 and fields split on ASCII bytes.
-            match value.as_deref().map(std::str::from_utf8) {
+            match value.map(std::str::from_utf8) {
                 Some(Ok(text)) => builder.append_value(text),
                 _ => builder.append_null(),
             }

@@ -10,6 +10,7 @@ pub mod csv_input;
 pub mod guard;
 pub mod input;
 pub mod overlap;
+pub mod pair_chunks;
 pub mod parquet_input;
 pub mod sink;
 

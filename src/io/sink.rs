@@ -12,20 +12,24 @@
 //! dictionary fallback per slice of 1024 rows of each batch it is given.
 
 use super::atomic::{AtomicFile, SealedFile};
+pub use super::pair_chunks::PairValues;
+use super::pair_chunks::RowGroupPairs;
 use super::TableFormat;
 use crate::error::{Error, Result};
 use arrow_array::cast::AsArray;
 use arrow_array::types::{Float64Type, Int64Type};
 use arrow_array::{Array, ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
-use arrow_schema::DataType;
 use arrow_schema::SchemaRef;
+use arrow_schema::{DataType, Field, Schema};
 use parquet::arrow::arrow_writer::{
     compute_leaves, ArrowColumnChunk, ArrowColumnWriter, ArrowRowGroupWriterFactory,
 };
 use parquet::arrow::ArrowWriter;
 use parquet::basic::{Compression, ZstdLevel};
+use parquet::column::writer::ColumnCloseResult;
 use parquet::file::properties::WriterProperties;
 use parquet::file::writer::SerializedFileWriter;
+use parquet::schema::types::ColumnPath;
 use rayon::prelude::*;
 use std::fs::File;
 use std::io::{BufWriter, Write};
@@ -261,8 +265,164 @@ impl CsvWriter {
 /// Named columns of equal length: one batch of an output table.
 pub type Columns = Vec<(String, ColumnValues)>;
 
+/// A batch with a schema fixed by the kinds of its columns, not by the
+/// values of the batch: optional floats are nullable, everything else is
+/// not, so every batch of a table has the same schema.
+fn record_batch(columns: Columns) -> std::result::Result<RecordBatch, arrow_schema::ArrowError> {
+    let (fields, arrays): (Vec<Field>, Vec<ArrayRef>) = columns
+        .into_iter()
+        .map(|(name, values)| {
+            let nullable = matches!(values, ColumnValues::OptionalFloats(_));
+            let array = values.into_arrow();
+            (Field::new(name, array.data_type().clone(), nullable || array.null_count() > 0), array)
+        })
+        .unzip();
+    RecordBatch::try_new(Arc::new(Schema::new(fields)), arrays)
+}
+
+/// The output columns whose values are functions of the row's pair, each
+/// with its value per pair.
+pub type PairColumns = Vec<(String, PairValues)>;
+
+/// One pair-valued column's values at the given pairs.
+fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
+    let at = |i: &u32| *i as usize;
+    match values {
+        PairValues::Integers(v) => ColumnValues::Integers(pair_of_row.iter().map(|i| v[at(i)]).collect()),
+        PairValues::Floats(v) => ColumnValues::Floats(pair_of_row.iter().map(|i| v[at(i)]).collect()),
+        PairValues::OptionalFloats(v) => {
+            ColumnValues::OptionalFloats(pair_of_row.iter().map(|i| v[at(i)]).collect())
+        }
+    }
+}
+
+/// The scored table in Parquet: the group column through arrow-rs (plain
+/// pages: ids do not repeat), every pair-valued column through
+/// [`RowGroupPairs`], row groups of [`ROW_GROUP_ROWS`] rows.
+pub struct ScoredParquet {
+    file_writer: SerializedFileWriter<File>,
+    factory: ArrowRowGroupWriterFactory,
+    group_field: Field,
+    pair_columns: Arc<PairColumns>,
+    /// The group column's writer for the row group being written.
+    group_writer: Option<ArrowColumnWriter>,
+    /// Group ids not yet handed to the writer (fewer than a chunk).
+    pending_ids: Vec<ArrayRef>,
+    pending_rows: usize,
+    /// The pair of each row of the row group being written.
+    row_group_pairs: Vec<u32>,
+    /// One slot per pair, for numbering a row group's pairs.
+    local: Vec<u32>,
+    row_groups: usize,
+}
+
+impl ScoredParquet {
+    fn new(file: File, group_field: Field, pair_columns: Arc<PairColumns>) -> parquet::errors::Result<Self> {
+        let mut fields = vec![group_field.clone()];
+        fields.extend(pair_columns.iter().map(|(name, values)| {
+            let dtype =
+                if matches!(values, PairValues::Integers(_)) { DataType::Int64 } else { DataType::Float64 };
+            Field::new(name, dtype, values.nullable())
+        }));
+        let props = WriterProperties::builder()
+            .set_compression(Compression::ZSTD(ZstdLevel::default()))
+            .set_column_dictionary_enabled(ColumnPath::from(group_field.name().as_str()), false)
+            .build();
+        let schema = Arc::new(Schema::new(fields));
+        let (file_writer, factory) =
+            ArrowWriter::try_new(file, schema, Some(props))?.into_serialized_writer()?;
+        let pairs = pair_columns.first().map_or(0, |(_, v)| v.len());
+        Ok(ScoredParquet {
+            file_writer,
+            factory,
+            group_field,
+            pair_columns,
+            group_writer: None,
+            pending_ids: Vec::new(),
+            pending_rows: 0,
+            row_group_pairs: Vec::with_capacity(ROW_GROUP_ROWS),
+            local: vec![u32::MAX; pairs],
+            row_groups: 0,
+        })
+    }
+
+    /// Appends rows: their group ids and their pairs.
+    fn write(&mut self, ids: ArrayRef, pair_of_row: &[u32]) -> parquet::errors::Result<()> {
+        let mut offset = 0;
+        while offset < pair_of_row.len() {
+            let room = ROW_GROUP_ROWS - self.row_group_pairs.len();
+            let take = room.min(pair_of_row.len() - offset);
+            self.row_group_pairs.extend_from_slice(&pair_of_row[offset..offset + take]);
+            self.pending_ids.push(ids.slice(offset, take));
+            self.pending_rows += take;
+            self.encode_ids(false)?;
+            if self.row_group_pairs.len() == ROW_GROUP_ROWS {
+                self.close_row_group()?;
+            }
+            offset += take;
+        }
+        Ok(())
+    }
+
+    /// Hands the held ids to the group column's writer in chunks of
+    /// [`CHUNK_ROWS`] (all of them when `all`).
+    fn encode_ids(&mut self, all: bool) -> parquet::errors::Result<()> {
+        if self.pending_rows < CHUNK_ROWS && !all || self.pending_ids.is_empty() {
+            return Ok(());
+        }
+        let parts: Vec<&dyn Array> = self.pending_ids.iter().map(|a| a.as_ref()).collect();
+        let held = arrow_select::concat::concat(&parts)?;
+        let rows = held.len();
+        let written = if all { rows } else { rows / CHUNK_ROWS * CHUNK_ROWS };
+        if self.group_writer.is_none() {
+            self.group_writer = self.factory.create_column_writers(self.row_groups)?.into_iter().next();
+        }
+        let writer = self.group_writer.as_mut().expect("the schema has a group column");
+        for offset in (0..written).step_by(CHUNK_ROWS) {
+            let chunk = held.slice(offset, CHUNK_ROWS.min(written - offset));
+            for leaf in compute_leaves(&self.group_field, &chunk)? {
+                writer.write(&leaf)?;
+            }
+        }
+        self.pending_ids = vec![held.slice(written, rows - written)];
+        self.pending_rows = rows - written;
+        Ok(())
+    }
+
+    fn close_row_group(&mut self) -> parquet::errors::Result<()> {
+        if self.row_group_pairs.is_empty() {
+            return Ok(());
+        }
+        self.encode_ids(true)?;
+        let group_chunk = self.group_writer.take().expect("ids were written").close()?;
+        let pairs = RowGroupPairs::new(&self.row_group_pairs, &mut self.local)?;
+        let descriptors = self.file_writer.schema_descr().columns()[1..].to_vec();
+        let chunks: Vec<(bytes::Bytes, ColumnCloseResult)> = self
+            .pair_columns
+            .par_iter()
+            .zip(descriptors)
+            .map(|((_, values), descr)| pairs.encode_column(values, descr))
+            .collect::<parquet::errors::Result<_>>()?;
+        let mut row_group = self.file_writer.next_row_group()?;
+        group_chunk.append_to_row_group(&mut row_group)?;
+        for (bytes, close) in chunks {
+            row_group.append_column(&bytes, close)?;
+        }
+        row_group.close()?;
+        self.row_groups += 1;
+        self.row_group_pairs.clear();
+        Ok(())
+    }
+
+    fn close(mut self) -> parquet::errors::Result<()> {
+        self.close_row_group()?;
+        self.file_writer.close().map(|_| ())
+    }
+}
+
 enum Writer {
     Parquet(Box<ParquetChunks>),
+    Scored(Box<ScoredParquet>),
     Csv(CsvWriter),
 }
 
@@ -273,6 +433,8 @@ pub struct TableSink {
     file: AtomicFile,
     format: TableFormat,
     writer: Option<Writer>,
+    /// For a scored table: the pair-valued columns.
+    pair_columns: Option<Arc<PairColumns>>,
 }
 
 fn write_error(path: &Path, e: impl std::fmt::Display) -> Error {
@@ -283,15 +445,46 @@ impl TableSink {
     /// Starts a table at `path`, in the format its extension names.
     pub fn create(path: &Path) -> Result<Self> {
         let format = TableFormat::from_path(path)?;
-        Ok(TableSink { file: AtomicFile::create(path)?, format, writer: None })
+        Ok(TableSink { file: AtomicFile::create(path)?, format, writer: None, pair_columns: None })
+    }
+
+    /// Starts a scored table at `path`: a group column, then columns whose
+    /// values are functions of each row's pair, given per pair here and
+    /// chosen per row by [`TableSink::write_scored`].
+    pub fn create_scored(path: &Path, pair_columns: PairColumns) -> Result<Self> {
+        let mut sink = Self::create(path)?;
+        sink.pair_columns = Some(Arc::new(pair_columns));
+        Ok(sink)
+    }
+
+    /// Appends scored rows: their group ids (column `group`) and pairs.
+    pub fn write_scored(&mut self, group: &str, ids: ArrayRef, pair_of_row: &[u32]) -> Result<()> {
+        let path = self.file.target().to_path_buf();
+        let pair_columns =
+            self.pair_columns.clone().ok_or_else(|| write_error(&path, "not a scored table"))?;
+        if self.format == TableFormat::Csv {
+            let mut columns = vec![(group.to_string(), ColumnValues::Arrow(ids))];
+            columns.extend(
+                pair_columns.iter().map(|(name, values)| (name.clone(), gather(values, pair_of_row))),
+            );
+            return self.write(columns);
+        }
+        if self.writer.is_none() {
+            let field = Field::new(group, ids.data_type().clone(), false);
+            let writer = ScoredParquet::new(self.file.handle()?, field, pair_columns)
+                .map_err(|e| write_error(&path, e))?;
+            self.writer = Some(Writer::Scored(Box::new(writer)));
+        }
+        match &mut self.writer {
+            Some(Writer::Scored(writer)) => writer.write(ids, pair_of_row).map_err(|e| write_error(&path, e)),
+            _ => Err(write_error(&path, "a scored table takes only scored rows")),
+        }
     }
 
     /// Appends a batch of rows; every batch has the same columns.
     pub fn write(&mut self, columns: Columns) -> Result<()> {
         let path = self.file.target().to_path_buf();
-        let batch =
-            RecordBatch::try_from_iter(columns.into_iter().map(|(name, values)| (name, values.into_arrow())))
-                .map_err(|e| write_error(&path, e))?;
+        let batch = record_batch(columns).map_err(|e| write_error(&path, e))?;
         match self.format {
             TableFormat::Parquet => {
                 if self.writer.is_none() {
@@ -322,6 +515,7 @@ impl TableSink {
             Some(Writer::Parquet(writer)) => {
                 writer.close().map_err(|e| write_error(&path, e))?;
             }
+            Some(Writer::Scored(writer)) => writer.close().map_err(|e| write_error(&path, e))?,
             Some(Writer::Csv(writer)) => writer.finish().map_err(|e| write_error(&path, e))?,
             None => return Err(Error::Other(format!("{}: no rows were given to write", path.display()))),
         }

@@ -15,7 +15,7 @@
 
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::{score_pairs, Scored};
-use super::scoring::{commit_outputs, score_columns, summarise, RejectRows, RowCounts};
+use super::scoring::{commit_outputs, pair_columns, summarise, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
 use crate::core::pairs::{PairCounter, PairIndex};
@@ -24,8 +24,9 @@ use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch};
 use crate::io::parquet_input::ParquetParts;
-use crate::io::sink::{ColumnValues, Columns, TableSink};
+use crate::io::sink::TableSink;
 use crate::report::Summary;
+use arrow_array::ArrayRef;
 use std::path::Path;
 
 /// The largest count held exactly in a double, as an integer.
@@ -285,17 +286,18 @@ fn score_and_write(
     let index = PairIndex::of_table(&scored.table);
     let furthest = scored.pull.max_shift_row.map(|p| p as u32);
     let mut max_shift_group = None;
-    let mut sink = TableSink::create(output)?;
+    let mut sink =
+        TableSink::create_scored(output, pair_columns(job, scored.table.pairs(), &scored.posteriors))?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
     };
-    let (sender, receiver) = std::sync::mpsc::sync_channel::<Columns>(2);
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<(ArrayRef, Vec<u32>)>(2);
     let mut seen = 0;
     let table = std::thread::scope(|scope| {
         let writer = scope.spawn(move || -> Result<TableSink> {
-            for columns in receiver {
-                sink.write(columns)?;
+            for (ids, pair_of_row) in receiver {
+                sink.write_scored(&job.columns.group, ids, &pair_of_row)?;
             }
             Ok(sink)
         });
@@ -330,9 +332,9 @@ fn score_and_write(
                     }
                 }
             }
-            let mut columns = vec![(job.columns.group.clone(), ColumnValues::Arrow(view.group.take(&kept)))];
-            columns.extend(score_columns(job, scored.table.pairs(), &scored.posteriors, &pair_of_row));
-            sender.send(columns).map_err(|_| Error::Other("the output writer stopped".to_string()))?;
+            sender
+                .send((view.group.take(&kept), pair_of_row))
+                .map_err(|_| Error::Other("the output writer stopped".to_string()))?;
             if let Some((rejects_sink, held, wrote)) = &mut rejects {
                 if !held.is_empty() {
                     rejects_sink.write(held.take_columns(&job.columns))?;

@@ -10,60 +10,38 @@ use crate::core::pairs::{PairTable, WeightedPair};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
-use crate::io::sink::{ColumnValues, Columns};
+use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues};
 use crate::report::{PullReport, Summary};
 
-/// The output columns after the group column, for rows whose pairs are
-/// `pairs[pair_of_row[i]]` with posteriors `posteriors[pair_of_row[i]]`.
-/// Every value is a function of the pair, so each row is gathered once from
-/// its pair, row by row (one visit to the pair's memory for all columns).
-pub fn score_columns(
-    job: &Job,
-    pairs: &[WeightedPair],
-    posteriors: &[Posterior],
-    pair_of_row: &[u32],
-) -> Columns {
-    let rows = pair_of_row.len();
-    let floats = || Vec::<f64>::with_capacity(rows);
-    let optional = || Vec::<Option<f64>>::with_capacity(rows);
-    let (mut counts, mut whole_sizes) = (Vec::with_capacity(rows), Vec::with_capacity(rows));
-    let (mut sizes, mut raw, mut first, mut second) = (floats(), optional(), optional(), optional());
-    let (mut mean, mut sd, mut lower, mut upper, mut weight) =
-        (floats(), floats(), floats(), floats(), floats());
-    let whole = job.model == ModelKind::BetaBinomial;
-    for &i in pair_of_row {
-        let (pair, post) = (&pairs[i as usize], &posteriors[i as usize]);
-        counts.push(pair.count as i64);
-        if whole {
-            whole_sizes.push(pair.size as i64);
-        } else {
-            sizes.push(pair.size);
-        }
-        raw.push((pair.size > 0.0).then(|| pair.count / pair.size));
-        mean.push(post.mean);
-        sd.push(post.sd);
-        lower.push(post.lower);
-        upper.push(post.upper);
-        weight.push(post.pool_weight);
-        first.push(post.first);
-        second.push(post.second);
-    }
+/// The output columns after the group column, each as its value per pair
+/// of the table (every one is a function of the row's pair): the counts
+/// under their input names, the raw rate, the posterior summaries and
+/// parameters.
+pub fn pair_columns(job: &Job, pairs: &[WeightedPair], posteriors: &[Posterior]) -> PairColumns {
+    let each = |f: &dyn Fn(&Posterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
+    let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
+        PairValues::OptionalFloats(posteriors.iter().map(f).collect())
+    };
     let (first_name, second_name) = match job.model {
         ModelKind::BetaBinomial => ("posterior_alpha", "posterior_beta"),
         ModelKind::GammaPoisson => ("posterior_shape", "posterior_rate"),
     };
-    let size_values = if whole { ColumnValues::Integers(whole_sizes) } else { ColumnValues::Floats(sizes) };
+    let sizes = match job.model {
+        ModelKind::BetaBinomial => PairValues::Integers(pairs.iter().map(|p| p.size as i64).collect()),
+        ModelKind::GammaPoisson => PairValues::Floats(pairs.iter().map(|p| p.size).collect()),
+    };
+    let raw = pairs.iter().map(|p| (p.size > 0.0).then(|| p.count / p.size)).collect();
     vec![
-        (job.columns.count.clone(), ColumnValues::Integers(counts)),
-        (job.columns.size.clone(), size_values),
-        ("raw_rate".to_string(), ColumnValues::OptionalFloats(raw)),
-        ("posterior_mean".to_string(), ColumnValues::Floats(mean)),
-        ("posterior_sd".to_string(), ColumnValues::Floats(sd)),
-        ("interval_lo".to_string(), ColumnValues::Floats(lower)),
-        ("interval_hi".to_string(), ColumnValues::Floats(upper)),
-        ("pool_weight".to_string(), ColumnValues::Floats(weight)),
-        (first_name.to_string(), ColumnValues::OptionalFloats(first)),
-        (second_name.to_string(), ColumnValues::OptionalFloats(second)),
+        (job.columns.count.clone(), PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())),
+        (job.columns.size.clone(), sizes),
+        ("raw_rate".to_string(), PairValues::OptionalFloats(raw)),
+        ("posterior_mean".to_string(), each(&|p| p.mean)),
+        ("posterior_sd".to_string(), each(&|p| p.sd)),
+        ("interval_lo".to_string(), each(&|p| p.lower)),
+        ("interval_hi".to_string(), each(&|p| p.upper)),
+        ("pool_weight".to_string(), each(&|p| p.pool_weight)),
+        (first_name.to_string(), optional(&|p| p.first)),
+        (second_name.to_string(), optional(&|p| p.second)),
     ]
 }
 

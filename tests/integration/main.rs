@@ -9,6 +9,7 @@ mod faults;
 mod fits;
 mod fuzz_corpus;
 mod no_overwrite;
+mod output;
 mod producers;
 mod properties;
 mod reference;

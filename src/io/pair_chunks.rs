@@ -1,0 +1,351 @@
+//! Parquet column chunks for columns whose value is a function of the row's
+//! pair (the counts, the raw rate and every posterior column): each row group
+//! numbers the pairs it holds once, every such column gets a dictionary page
+//! of its values per pair, and all of them share one stream of dictionary
+//! indices, encoded and compressed once per page.
+//!
+//! A general writer would hash every value of every column into its own
+//! dictionary (ten columns, one lookup per row each); here the pair number,
+//! already known per row, is the dictionary index. Pages are format v2
+//! (levels stored uncompressed beside the compressed values), so a column
+//! that is optional but has no null in a page shares the same compressed
+//! values as the required ones. The layout is plain Parquet (dictionary page
+//! with PLAIN values, RLE_DICTIONARY data pages, zstd), read by every
+//! Parquet reader; `tests/integration/producers.rs` reads it back with
+//! arrow-rs and the reader test script with pyarrow, polars and DuckDB.
+
+use bytes::Bytes;
+use parquet::basic::{Compression, Encoding, ZstdLevel};
+use parquet::column::page::{CompressedPage, Page, PageWriter};
+use parquet::column::writer::ColumnCloseResult;
+use parquet::errors::{ParquetError, Result};
+use parquet::file::metadata::ColumnChunkMetaData;
+use parquet::file::statistics::Statistics;
+use parquet::file::writer::{SerializedPageWriter, TrackedWrite};
+use parquet::schema::types::ColumnDescPtr;
+use rayon::prelude::*;
+
+/// Rows per data page.
+const PAGE_ROWS: usize = 1 << 17;
+
+/// zstd level, as arrow-rs's default for the other columns.
+const ZSTD_LEVEL: i32 = 1;
+
+/// The value of an output column for each pair, indexed by pair number.
+#[derive(Debug, Clone, PartialEq)]
+pub enum PairValues {
+    /// Whole numbers.
+    Integers(Vec<i64>),
+    /// Numbers.
+    Floats(Vec<f64>),
+    /// Numbers, absent for some pairs.
+    OptionalFloats(Vec<Option<f64>>),
+}
+
+impl PairValues {
+    /// True when some pair has no value (the column is then optional).
+    pub fn nullable(&self) -> bool {
+        matches!(self, PairValues::OptionalFloats(_))
+    }
+
+    fn is_null(&self, pair: usize) -> bool {
+        matches!(self, PairValues::OptionalFloats(v) if v[pair].is_none())
+    }
+
+    /// PLAIN bytes of the values of `pairs` (a placeholder 0 where null:
+    /// never referenced), with the statistics of the non-null ones.
+    fn dictionary(&self, pairs: &[u32], null_count: u64) -> (Vec<u8>, Statistics) {
+        let mut bytes = Vec::with_capacity(pairs.len() * 8);
+        match self {
+            PairValues::Integers(v) => {
+                let (mut low, mut high) = (i64::MAX, i64::MIN);
+                for &p in pairs {
+                    let x = v[p as usize];
+                    (low, high) = (low.min(x), high.max(x));
+                    bytes.extend_from_slice(&x.to_le_bytes());
+                }
+                let some = !pairs.is_empty();
+                (
+                    bytes,
+                    Statistics::int64(
+                        some.then_some(low),
+                        some.then_some(high),
+                        None,
+                        Some(null_count),
+                        false,
+                    ),
+                )
+            }
+            PairValues::Floats(_) | PairValues::OptionalFloats(_) => {
+                let (mut low, mut high): (Option<f64>, Option<f64>) = (None, None);
+                for &p in pairs {
+                    let x = match self {
+                        PairValues::Floats(v) => Some(v[p as usize]),
+                        PairValues::OptionalFloats(v) => v[p as usize],
+                        PairValues::Integers(_) => unreachable!("handled above"),
+                    };
+                    if let Some(x) = x.filter(|x| !x.is_nan()) {
+                        low = Some(low.map_or(x, |l| l.min(x)));
+                        high = Some(high.map_or(x, |h| h.max(x)));
+                    }
+                    bytes.extend_from_slice(&x.unwrap_or(0.0).to_le_bytes());
+                }
+                // Parquet writes -0.0 as the smallest and +0.0 as the largest zero.
+                let low = low.map(|l| if l == 0.0 { -0.0 } else { l });
+                let high = high.map(|h| if h == 0.0 { 0.0 } else { h });
+                (bytes, Statistics::double(low, high, None, Some(null_count), false))
+            }
+        }
+    }
+
+    /// The number of pairs held.
+    pub fn len(&self) -> usize {
+        match self {
+            PairValues::Integers(v) => v.len(),
+            PairValues::Floats(v) => v.len(),
+            PairValues::OptionalFloats(v) => v.len(),
+        }
+    }
+
+    /// True when no pair is held.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// Appends `value` as an unsigned LEB128 varint.
+fn put_varint(out: &mut Vec<u8>, mut value: u64) {
+    while value >= 0x80 {
+        out.push((value as u8) | 0x80);
+        value >>= 7;
+    }
+    out.push(value as u8);
+}
+
+/// `values` in the RLE/bit-packing hybrid encoding as one bit-packed run
+/// (values padded with zeros to a multiple of eight; readers stop at the
+/// page's count).
+fn bit_packed(values: &[u32], width: u8, out: &mut Vec<u8>) {
+    let groups = values.len().div_ceil(8);
+    put_varint(out, ((groups as u64) << 1) | 1);
+    let start = out.len();
+    out.resize(start + groups * width as usize, 0);
+    let packed = &mut out[start..];
+    let mut bit = 0usize;
+    for &v in values {
+        let mut v = u64::from(v);
+        let mut left = width as usize;
+        while left > 0 {
+            let (byte, offset) = (bit / 8, bit % 8);
+            let take = left.min(8 - offset);
+            packed[byte] |= ((v & ((1 << take) - 1)) << offset) as u8;
+            v >>= take;
+            left -= take;
+            bit += take;
+        }
+    }
+}
+
+/// Definition levels (0 null, 1 present) as RLE runs of bit width 1.
+fn definition_levels(present: impl Iterator<Item = bool>, out: &mut Vec<u8>) {
+    let mut run: Option<(bool, u64)> = None;
+    let flush = |out: &mut Vec<u8>, (value, count): (bool, u64)| {
+        put_varint(out, count << 1);
+        out.push(u8::from(value));
+    };
+    for p in present {
+        run = match run {
+            Some((value, count)) if value == p => Some((value, count + 1)),
+            Some(done) => {
+                flush(out, done);
+                Some((p, 1))
+            }
+            None => Some((p, 1)),
+        };
+    }
+    if let Some(done) = run {
+        flush(out, done);
+    }
+}
+
+fn compress(bytes: &[u8]) -> Result<Vec<u8>> {
+    zstd::bulk::compress(bytes, ZSTD_LEVEL).map_err(|e| ParquetError::General(format!("zstd: {e}")))
+}
+
+/// One row group's pairs, numbered locally in order of first appearance.
+pub struct RowGroupPairs {
+    /// The pair number of each local number.
+    pairs: Vec<u32>,
+    /// Each row's local number.
+    rows: Vec<u32>,
+    /// Bits per local number.
+    width: u8,
+    /// Per page: the compressed index stream of every row.
+    shared_pages: Vec<(Bytes, usize)>,
+}
+
+impl RowGroupPairs {
+    /// Numbers the pairs of `pair_of_row` (a row group's rows) and encodes
+    /// the index pages every column without nulls shares. `local` is scratch
+    /// space of one slot per pair, all `u32::MAX`, and is left so.
+    pub fn new(pair_of_row: &[u32], local: &mut [u32]) -> Result<Self> {
+        let mut pairs = Vec::new();
+        let rows: Vec<u32> = pair_of_row
+            .iter()
+            .map(|&p| {
+                let slot = &mut local[p as usize];
+                if *slot == u32::MAX {
+                    *slot = pairs.len() as u32;
+                    pairs.push(p);
+                }
+                *slot
+            })
+            .collect();
+        for &p in &pairs {
+            local[p as usize] = u32::MAX;
+        }
+        let width = (u32::BITS - (pairs.len().max(2) as u32 - 1).leading_zeros()) as u8;
+        let shared_pages = rows
+            .par_chunks(PAGE_ROWS)
+            .map(|page| Self::encode_indices(page.iter().copied(), page.len(), width))
+            .collect::<Result<_>>()?;
+        Ok(RowGroupPairs { pairs, rows, width, shared_pages })
+    }
+
+    /// The compressed index stream of `count` local numbers, and its
+    /// uncompressed size.
+    fn encode_indices(indices: impl Iterator<Item = u32>, count: usize, width: u8) -> Result<(Bytes, usize)> {
+        let values: Vec<u32> = indices.collect();
+        let mut raw = Vec::with_capacity(2 + count * width as usize / 8 + 8);
+        raw.push(width);
+        bit_packed(&values, width, &mut raw);
+        Ok((Bytes::from(compress(&raw)?), raw.len()))
+    }
+
+    /// Rows in the row group.
+    pub fn rows(&self) -> usize {
+        self.rows.len()
+    }
+
+    /// The column chunk of one pair-valued column: its bytes (dictionary
+    /// page first) and what the row group writer needs to splice them in.
+    pub fn encode_column(
+        &self,
+        values: &PairValues,
+        descr: ColumnDescPtr,
+    ) -> Result<(Bytes, ColumnCloseResult)> {
+        let null_local: Vec<bool> = self.pairs.iter().map(|&p| values.is_null(p as usize)).collect();
+        let nulls = self.rows.iter().filter(|&&l| null_local[l as usize]).count();
+        let (dictionary, statistics) = values.dictionary(&self.pairs, nulls as u64);
+        let mut sink = TrackedWrite::new(Vec::new());
+        let mut specs = Vec::new();
+        {
+            let mut pages = SerializedPageWriter::new(&mut sink);
+            let compressed = compress(&dictionary)?;
+            let page = Page::DictionaryPage {
+                buf: Bytes::from(compressed),
+                num_values: self.pairs.len() as u32,
+                encoding: Encoding::PLAIN,
+                is_sorted: false,
+            };
+            specs.push(pages.write_page(CompressedPage::new(page, dictionary.len()))?);
+            for (i, page_rows) in self.rows.chunks(PAGE_ROWS).enumerate() {
+                let page_nulls = page_rows.iter().filter(|&&l| null_local[l as usize]).count();
+                let mut levels = Vec::new();
+                if values.nullable() {
+                    definition_levels(page_rows.iter().map(|&l| !null_local[l as usize]), &mut levels);
+                }
+                let (values_part, raw_size) = if page_nulls == 0 {
+                    self.shared_pages[i].clone()
+                } else {
+                    let present = page_rows.iter().copied().filter(|&l| !null_local[l as usize]);
+                    Self::encode_indices(present, page_rows.len() - page_nulls, self.width)?
+                };
+                let levels_len = levels.len();
+                let mut buf = levels;
+                buf.extend_from_slice(&values_part);
+                let page = Page::DataPageV2 {
+                    buf: Bytes::from(buf),
+                    num_values: page_rows.len() as u32,
+                    encoding: Encoding::RLE_DICTIONARY,
+                    num_nulls: page_nulls as u32,
+                    num_rows: page_rows.len() as u32,
+                    def_levels_byte_len: levels_len as u32,
+                    rep_levels_byte_len: 0,
+                    is_compressed: true,
+                    statistics: None,
+                };
+                specs.push(pages.write_page(CompressedPage::new(page, levels_len + raw_size))?);
+            }
+            pages.close()?;
+        }
+        let bytes = sink.into_inner()?;
+        let compressed: u64 = specs.iter().map(|s| s.bytes_written).sum();
+        let uncompressed: usize =
+            specs.iter().map(|s| s.uncompressed_size + (s.bytes_written as usize - s.compressed_size)).sum();
+        let metadata = ColumnChunkMetaData::builder(descr)
+            .set_compression(Compression::ZSTD(ZstdLevel::try_new(ZSTD_LEVEL)?))
+            .set_encodings(vec![Encoding::PLAIN, Encoding::RLE, Encoding::RLE_DICTIONARY])
+            .set_num_values(self.rows.len() as i64)
+            .set_total_compressed_size(compressed as i64)
+            .set_total_uncompressed_size(uncompressed as i64)
+            .set_dictionary_page_offset(Some(0))
+            .set_data_page_offset(specs[1].offset as i64)
+            .set_statistics(statistics)
+            .build()?;
+        let close = ColumnCloseResult {
+            bytes_written: compressed,
+            rows_written: self.rows.len() as u64,
+            metadata,
+            bloom_filter: None,
+            column_index: None,
+            offset_index: None,
+        };
+        Ok((Bytes::from(bytes), close))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn bit_packing_is_lsb_first_in_groups_of_eight() {
+        let mut out = Vec::new();
+        bit_packed(&[1, 2, 3, 4, 5, 6, 7], 3, &mut out);
+        // One group of eight (the last value padded with 0): header (1 << 1) | 1,
+        // then 0b10_001_000... as in the Parquet specification's example
+        // (values 0..7 at width 3 pack to 0x88 0xC6 0xFA); here 1..7 and 0.
+        assert_eq!(out[0], 3);
+        let mut expected = [0u8; 3];
+        for (i, v) in [1u32, 2, 3, 4, 5, 6, 7, 0].iter().enumerate() {
+            for b in 0..3 {
+                if v >> b & 1 == 1 {
+                    let bit = i * 3 + b;
+                    expected[bit / 8] |= 1 << (bit % 8);
+                }
+            }
+        }
+        assert_eq!(&out[1..], &expected);
+        let mut spec = Vec::new();
+        bit_packed(&[0, 1, 2, 3, 4, 5, 6, 7], 3, &mut spec);
+        assert_eq!(spec, vec![3, 0x88, 0xC6, 0xFA], "the specification's example");
+    }
+
+    #[test]
+    fn definition_levels_are_runs() {
+        let mut out = Vec::new();
+        definition_levels([true, true, false, true].into_iter(), &mut out);
+        assert_eq!(out, vec![4, 1, 2, 0, 2, 1]);
+    }
+
+    #[test]
+    fn local_numbers_follow_first_appearance_and_scratch_is_restored() {
+        let mut local = vec![u32::MAX; 10];
+        let group = RowGroupPairs::new(&[7, 3, 7, 9, 3], &mut local).unwrap();
+        assert_eq!(group.pairs, vec![7, 3, 9]);
+        assert_eq!(group.rows, vec![0, 1, 0, 2, 1]);
+        assert_eq!(group.width, 2);
+        assert!(local.iter().all(|&l| l == u32::MAX));
+    }
+}
