@@ -1,8 +1,9 @@
 //! The I/O floor of a scoring run: read the same input (CSV or Parquet) in
 //! the same batches, once, and write a table of the same rows and column
-//! count (the group column, the two count columns and eight float columns
-//! copied from the counts) with the same writer and compression, computing
-//! nothing.
+//! count with the same writer and compression: the group column, then ten
+//! columns whose values come from a table of 65,536 "pairs" indexed by a
+//! hash of the row's two counts (standing in for the pair number, which
+//! needs the first pass), computing nothing else.
 //!
 //! ```text
 //! cargo bench --bench io_floor -- IN.parquet|IN.csv ID_COLUMN COUNT_COLUMN SIZE_COLUMN OUT.parquet
@@ -11,14 +12,14 @@
 //! Without arguments, as `cargo test` runs it, it copies a small table of its
 //! own in a temporary folder and checks the row count, so the code cannot rot.
 
-use ratepool::io::cells::NumericColumn;
+use ratepool::io::cells::{GroupColumn, NumericColumn};
 use ratepool::io::input::Input;
-use ratepool::io::sink::{ColumnValues, TableSink};
+use ratepool::io::sink::{ColumnValues, PairValues, TableSink};
 use std::path::Path;
 use std::time::Instant;
 
 const BATCH_ROWS: usize = 65_536;
-const FLOAT_COLUMNS: usize = 8;
+const STAND_IN_PAIRS: usize = 1 << 16;
 
 fn main() {
     let args: Vec<String> = std::env::args().skip(1).filter(|a| a != "--bench").collect();
@@ -67,28 +68,35 @@ fn smoke() {
 fn copy(input: &str, id: &str, count: &str, size: &str, output: &str) {
     let columns = [(id, "group"), (count, "count"), (size, "size")];
     let parts = Input::open(Path::new(input), b',', &columns, BATCH_ROWS).expect("input opens");
-    let mut sink = TableSink::create(Path::new(output)).expect("output opens");
+    let stand_in = |f: fn(usize) -> f64| PairValues::Floats((0..STAND_IN_PAIRS).map(f).collect());
+    let mut pair_columns = vec![
+        (count.to_string(), PairValues::Integers((0..STAND_IN_PAIRS as i64).collect())),
+        (size.to_string(), PairValues::Integers((0..STAND_IN_PAIRS as i64).map(|i| i * 3).collect())),
+        (
+            "raw_rate".to_string(),
+            PairValues::OptionalFloats(
+                (0..STAND_IN_PAIRS).map(|i| (i > 0).then(|| 1.0 / i as f64)).collect(),
+            ),
+        ),
+    ];
+    for c in 0..7 {
+        pair_columns.push((format!("copy_{c}"), stand_in(|i| (i as f64).sqrt())));
+    }
+    let mut sink = TableSink::create_scored(Path::new(output), pair_columns).expect("output opens");
     parts
         .for_each_batch(|batch| {
-            let group = ColumnValues::Arrow(batch.columns[0].clone());
-            let ints = |i: usize| -> ratepool::error::Result<Vec<i64>> {
-                let column = NumericColumn::of(&batch.columns[i])?;
-                Ok((0..batch.rows()).map(|r| column.integer(r).unwrap_or_default()).collect())
-            };
-            let (counts, sizes) = (ints(1)?, ints(2)?);
-            let mut out = vec![
-                (id.to_string(), group),
-                (count.to_string(), ColumnValues::Integers(counts.clone())),
-                (size.to_string(), ColumnValues::Integers(sizes.clone())),
-            ];
-            for c in 0..FLOAT_COLUMNS {
-                let source = if c % 2 == 0 { &counts } else { &sizes };
-                out.push((
-                    format!("copy_{c}"),
-                    ColumnValues::Floats(source.iter().map(|&v| v as f64).collect()),
-                ));
-            }
-            sink.write(out)
+            let group = GroupColumn::of(&batch.columns[0])?;
+            let (counts, sizes) =
+                (NumericColumn::of(&batch.columns[1])?, NumericColumn::of(&batch.columns[2])?);
+            let rows: Vec<u32> = (0..batch.rows() as u32).collect();
+            let pair_of_row: Vec<u32> = (0..batch.rows())
+                .map(|r| {
+                    let key =
+                        counts.integer(r).unwrap_or_default() * 31 + sizes.integer(r).unwrap_or_default();
+                    (key as u64 % STAND_IN_PAIRS as u64) as u32
+                })
+                .collect();
+            sink.write_scored(id, group.take(&rows), &pair_of_row)
         })
         .expect("rows copied");
     sink.finish().and_then(|sealed| sealed.persist()).expect("output written");

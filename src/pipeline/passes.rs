@@ -142,6 +142,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
         return Err(no_data_rows(job));
     }
     let repeats = find_repeats(job, &input, &mut first)?;
+    clock.lap("repeated ids: sort the id hashes, compare any that repeat");
     if let Some(fault) = earliest_fault(job, &input, first.first_fault.take(), &repeats) {
         return Err(fault);
     }
