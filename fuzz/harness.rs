@@ -10,19 +10,19 @@
 //! of 3 rows (else the default), bit 3 skip bad rows. The rest is the file.
 
 use ratepool::pipeline::validate::ColumnNames;
-use ratepool::pipeline::{run, InvalidRows, Job, Layout, Level, ModelKind, PriorSource};
+use ratepool::pipeline::{run, InvalidRows, Job, Layout, Level, Model, PriorSource};
 
 /// Runs one input through the whole job and checks the contract.
 pub fn exercise(data: &[u8]) {
     let Some((&control, content)) = data.split_first() else { return };
     let dir = tempfile::tempdir().expect("scratch folder");
     let parquet = control & 1 == 1;
-    let model = if control & 2 == 0 { ModelKind::BetaBinomial } else { ModelKind::GammaPoisson };
+    let model = if control & 2 == 0 { Model::BetaBinomial } else { Model::GammaPoisson };
     let input = dir.path().join(if parquet { "in.parquet" } else { "in.csv" });
     std::fs::write(&input, content).expect("input written");
     let output = dir.path().join("out.csv");
     let (count, size) = match model {
-        ModelKind::BetaBinomial => ("k", "n"),
+        Model::BetaBinomial => ("k", "n"),
         _ => ("y", "e"),
     };
     let batch_rows = if control & 4 == 4 { 3 } else { ratepool::pipeline::DEFAULT_BATCH_ROWS };

@@ -4,7 +4,7 @@
 use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
-use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, ModelKind, PriorSource};
+use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, Model, PriorSource};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
@@ -46,15 +46,6 @@ pub enum Command {
     Fit(FitArgs),
     /// Score groups with a prior saved by an earlier fit, without refitting.
     Score(ScoreArgs),
-}
-
-/// The model names accepted on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
-pub enum ModelArg {
-    /// Successes out of trials, Beta prior.
-    BetaBinomial,
-    /// Events over exposure, Gamma prior.
-    GammaPoisson,
 }
 
 /// What to do with invalid rows.
@@ -117,9 +108,10 @@ pub struct TableArgs {
 /// Options of `fit`.
 #[derive(Debug, Args)]
 pub struct FitArgs {
-    /// The model.
-    #[arg(long, value_enum)]
-    pub model: ModelArg,
+    /// The model: beta-binomial (successes out of trials, Beta prior) or gamma-poisson
+    /// (events over exposure, Gamma prior).
+    #[arg(long, value_parser = parse_model)]
+    pub model: Model,
     /// The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL
     /// GROUP BY) and this column holds how many groups share each pair; only the summary
     /// (the prior) is written.
@@ -137,8 +129,8 @@ pub struct ScoreArgs {
     #[arg(long)]
     pub prior: PathBuf,
     /// The model; must match the prior file's (taken from it if omitted).
-    #[arg(long, value_enum)]
-    pub model: Option<ModelArg>,
+    #[arg(long, value_parser = parse_model)]
+    pub model: Option<Model>,
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
@@ -171,18 +163,49 @@ fn refuse_overlaps(table: &TableArgs, prior: Option<&PathBuf>) -> Result<()> {
     crate::io::overlap::refuse_overlaps(&inputs, &outputs)
 }
 
-fn model_of(arg: ModelArg) -> ModelKind {
-    match arg {
-        ModelArg::BetaBinomial => ModelKind::BetaBinomial,
-        ModelArg::GammaPoisson => ModelKind::GammaPoisson,
-    }
+/// A model by its name, as every registered model accepts it.
+fn parse_model(text: &str) -> std::result::Result<Model, String> {
+    Model::from_name(text).ok_or_else(|| {
+        let names: Vec<&str> = Model::ALL.iter().map(|m| m.name()).collect();
+        format!("unknown model '{text}'; the accepted values: {}", names.join(", "))
+    })
 }
 
-fn required(value: &Option<String>, flag: &str, model: ModelKind) -> Result<String> {
+/// The column options, by the role a model gives its columns
+/// ([`crate::core::model::ModelTerms`]); a model with a new role adds its
+/// option to [`TableArgs`] and a line here.
+fn column_options(table: &TableArgs) -> [(&'static str, &Option<String>); 4] {
+    [
+        ("successes", &table.successes),
+        ("trials", &table.trials),
+        ("events", &table.events),
+        ("exposure", &table.exposure),
+    ]
+}
+
+/// The count and size columns of the model, refusing the options of other
+/// models' roles.
+fn model_columns(table: &TableArgs, model: Model) -> Result<(String, String)> {
+    let terms = model.terms();
+    let options = column_options(table);
+    let option = |role: &str| options.iter().find(|(r, _)| *r == role).map(|(_, value)| *value);
+    for (role, value) in options {
+        if role != terms.count_role && role != terms.size_role {
+            refuse(value, role, model)?;
+        }
+    }
+    let column = |role: &str| match option(role) {
+        Some(value) => required(value, role, model),
+        None => Err(Error::Other(format!("no option for the {role} column; please report this"))),
+    };
+    Ok((column(terms.count_role)?, column(terms.size_role)?))
+}
+
+fn required(value: &Option<String>, flag: &str, model: Model) -> Result<String> {
     value.clone().ok_or_else(|| Error::Usage(format!("the {} model needs --{flag} COLUMN", model.name())))
 }
 
-fn refuse(value: &Option<String>, flag: &str, model: ModelKind) -> Result<()> {
+fn refuse(value: &Option<String>, flag: &str, model: Model) -> Result<()> {
     match value {
         Some(_) => Err(Error::Usage(format!("--{flag} does not apply to the {} model", model.name()))),
         None => Ok(()),
@@ -192,22 +215,11 @@ fn refuse(value: &Option<String>, flag: &str, model: ModelKind) -> Result<()> {
 fn job_of(
     table: &TableArgs,
     pair_counts: Option<&String>,
-    model: ModelKind,
+    model: Model,
     prior: PriorSource,
     report: Reporting,
 ) -> Result<Job> {
-    let (count, size) = match model {
-        ModelKind::BetaBinomial => {
-            refuse(&table.events, "events", model)?;
-            refuse(&table.exposure, "exposure", model)?;
-            (required(&table.successes, "successes", model)?, required(&table.trials, "trials", model)?)
-        }
-        ModelKind::GammaPoisson => {
-            refuse(&table.successes, "successes", model)?;
-            refuse(&table.trials, "trials", model)?;
-            (required(&table.events, "events", model)?, required(&table.exposure, "exposure", model)?)
-        }
-    };
+    let (count, size) = model_columns(table, model)?;
     let invalid = match (table.on_invalid, &table.rejects) {
         (InvalidArg::Error, None) => InvalidRows::Fail,
         (InvalidArg::Error, Some(_)) => {
@@ -265,19 +277,19 @@ impl Command {
         match self {
             Command::Fit(args) => {
                 refuse_overlaps(&args.table, None)?;
-                job_of(&args.table, args.pair_counts.as_ref(), model_of(args.model), PriorSource::Fit, report)
+                job_of(&args.table, args.pair_counts.as_ref(), args.model, PriorSource::Fit, report)
             }
             Command::Score(args) => {
                 refuse_overlaps(&args.table, Some(&args.prior))?;
                 let summary = load_summary(&args.prior)?;
-                let saved = ModelKind::from_name(&summary.model).ok_or_else(|| {
+                let saved = Model::from_name(&summary.model).ok_or_else(|| {
                     Error::Input(format!(
                         "{}: unknown model '{}' in the prior file",
                         args.prior.display(),
                         summary.model
                     ))
                 })?;
-                let model = args.model.map(model_of).unwrap_or(saved);
+                let model = args.model.unwrap_or(saved);
                 job_of(
                     &args.table,
                     None,
@@ -298,6 +310,28 @@ mod tests {
     #[test]
     fn the_flag_definitions_are_consistent() {
         Cli::command().debug_assert();
+    }
+
+    #[test]
+    fn every_model_names_columns_that_have_options() {
+        let roles: Vec<&str> = column_options(
+            &Cli::try_parse_from(["ratepool", "fit", "--model", "beta-binomial", "--input", "x.csv"])
+                .map(|cli| match cli.command {
+                    Command::Fit(args) => args.table,
+                    Command::Score(args) => args.table,
+                })
+                .expect("parses"),
+        )
+        .iter()
+        .map(|(role, _)| *role)
+        .collect();
+        for model in Model::ALL {
+            assert_eq!(parse_model(model.name()), Ok(*model));
+            for role in [model.terms().count_role, model.terms().size_role] {
+                assert!(roles.contains(&role), "{}: no option --{role}", model.name());
+            }
+        }
+        assert!(parse_model("beta-poisson").unwrap_err().contains("beta-binomial, gamma-poisson"));
     }
 
     #[test]

@@ -136,7 +136,73 @@ pub struct PullReport {
     pub rank_correlation: Option<f64>,
 }
 
+/// A hyperprior's figures, whatever its model: the natural parameters in
+/// the model's order (absent under complete pooling) and the summaries.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HyperpriorParts {
+    /// (alpha, beta) or (shape, rate).
+    pub natural: Option<[f64; 2]>,
+    /// Their standard errors.
+    pub natural_se: Option<[f64; 2]>,
+    /// Prior mean.
+    pub mean: f64,
+    /// Its standard error.
+    pub mean_se: f64,
+    /// Prior strength, None when infinite.
+    pub strength: Option<f64>,
+    /// Its standard error.
+    pub strength_se: Option<f64>,
+}
+
 impl Hyperprior {
+    /// The wire form of a hyperprior of the model named `model`: the one
+    /// place that knows which form each model's prior takes in the file.
+    pub fn of_model(model: &str, parts: HyperpriorParts) -> Option<Self> {
+        let (first, second) = (parts.natural.map(|n| n[0]), parts.natural.map(|n| n[1]));
+        let (first_se, second_se) = (parts.natural_se.map(|n| n[0]), parts.natural_se.map(|n| n[1]));
+        let (mean, mean_se, strength, strength_se) =
+            (parts.mean, parts.mean_se, parts.strength, parts.strength_se);
+        match model {
+            "beta-binomial" => Some(Hyperprior::Beta(BetaPrior {
+                alpha: first,
+                beta: second,
+                alpha_se: first_se,
+                beta_se: second_se,
+                mean,
+                mean_se,
+                strength,
+                strength_se,
+            })),
+            "gamma-poisson" => Some(Hyperprior::Gamma(GammaPrior {
+                shape: first,
+                rate: second,
+                shape_se: first_se,
+                rate_se: second_se,
+                mean,
+                mean_se,
+                strength,
+                strength_se,
+            })),
+            _ => None,
+        }
+    }
+
+    /// The name of the model whose prior this is.
+    pub fn model(&self) -> &'static str {
+        match self {
+            Hyperprior::Beta(_) => "beta-binomial",
+            Hyperprior::Gamma(_) => "gamma-poisson",
+        }
+    }
+
+    /// The natural parameters as written (either may be missing in a file).
+    pub fn natural(&self) -> (Option<f64>, Option<f64>) {
+        match self {
+            Hyperprior::Beta(p) => (p.alpha, p.beta),
+            Hyperprior::Gamma(p) => (p.shape, p.rate),
+        }
+    }
+
     /// Prior mean.
     pub fn mean(&self) -> f64 {
         match self {

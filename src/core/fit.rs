@@ -389,7 +389,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
     let mj = F::mean_strength_jacobian(u);
     let natural = F::natural(u);
     Ok(Fit {
-        prior: Prior::Conjugate { first: natural[0], second: natural[1] },
+        prior: Prior::Conjugate { natural: [natural[0], natural[1]] },
         mean,
         strength: Some(strength),
         natural_se: Some([delta_se(nj, 0), delta_se(nj, 1)]),

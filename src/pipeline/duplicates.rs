@@ -6,6 +6,7 @@
 //! two of 64-bit hashes collide is about n²/2^65 ≈ 3e-4, and a collision
 //! costs only that extra read.
 
+use rayon::slice::ParallelSliceMut;
 use std::collections::{HashMap, HashSet};
 
 /// The hash of a group id's bytes (XXH3, 64 bits).
@@ -28,9 +29,10 @@ impl IdHashes {
         self.0.push(hash_id(id));
     }
 
-    /// The hashes seen more than once: ids that may repeat.
+    /// The hashes seen more than once: ids that may repeat. The hashes are
+    /// sorted in place, in parallel (no memory beyond their own).
     pub fn repeated(mut self) -> HashSet<u64> {
-        self.0.sort_unstable();
+        self.0.par_sort_unstable();
         self.0.windows(2).filter(|w| w[0] == w[1]).map(|w| w[0]).collect()
     }
 }

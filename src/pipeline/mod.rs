@@ -11,38 +11,13 @@ mod prior;
 mod scoring;
 pub mod validate;
 
-use crate::core::model::beta_binomial::BetaBinomial;
-use crate::core::model::gamma_poisson::GammaPoisson;
-use crate::core::model::Family;
 use crate::error::{Error, Result};
 use crate::report::Summary;
 use std::path::{Path, PathBuf};
 use std::time::{Duration, Instant};
 use validate::ColumnNames;
 
-/// The two models.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum ModelKind {
-    /// Successes out of trials.
-    BetaBinomial,
-    /// Events over exposure.
-    GammaPoisson,
-}
-
-impl ModelKind {
-    /// The model's name in files and on the command line.
-    pub fn name(self) -> &'static str {
-        match self {
-            ModelKind::BetaBinomial => BetaBinomial::NAME,
-            ModelKind::GammaPoisson => GammaPoisson::NAME,
-        }
-    }
-
-    /// The model of a name, as written by [`ModelKind::name`].
-    pub fn from_name(name: &str) -> Option<Self> {
-        [ModelKind::BetaBinomial, ModelKind::GammaPoisson].into_iter().find(|m| m.name() == name)
-    }
-}
+pub use crate::core::model::Model;
 
 /// A credible level strictly between 0 and 1.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -125,7 +100,7 @@ pub struct Job {
     /// Input table.
     pub input: PathBuf,
     /// Model.
-    pub model: ModelKind,
+    pub model: Model,
     /// Columns in play.
     pub columns: ColumnNames,
     /// How the input is laid out and read, and where the table goes.
@@ -218,18 +193,16 @@ pub fn run(job: &Job) -> Result<Summary> {
     }
 }
 
-/// What the count and size columns hold, by model.
-fn roles(model: ModelKind) -> (&'static str, &'static str) {
-    match model {
-        ModelKind::BetaBinomial => ("successes", "trials"),
-        ModelKind::GammaPoisson => ("events", "exposure"),
-    }
+/// What the count and size columns hold, in the model's words.
+fn roles(model: Model) -> (&'static str, &'static str) {
+    (model.terms().count_role, model.terms().size_role)
 }
 
-fn size_kind(model: ModelKind) -> validate::SizeKind {
-    match model {
-        ModelKind::BetaBinomial => validate::SizeKind::Trials,
-        ModelKind::GammaPoisson => validate::SizeKind::Exposure,
+fn size_kind(model: Model) -> validate::SizeKind {
+    if model.terms().whole_sizes {
+        validate::SizeKind::Trials
+    } else {
+        validate::SizeKind::Exposure
     }
 }
 

@@ -17,7 +17,7 @@ use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::{score_pairs, Scored};
 use super::scoring::{commit_outputs, pair_columns, summarise, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
-use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, ModelKind, PhaseClock};
+use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, Model, PhaseClock};
 use crate::core::pairs::{PairCounter, PairIndex};
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
@@ -54,18 +54,15 @@ impl<'a> BatchView<'a> {
     /// sends the row to the full check, which accepts the same rows with the
     /// same values and names the fault of the others. This spares building a
     /// cell per value.
-    fn plainly_valid(&self, model: ModelKind, row: usize) -> Option<(f64, f64)> {
+    fn plainly_valid(&self, model: Model, row: usize) -> Option<(f64, f64)> {
+        let terms = model.terms();
         let count = self.counts.integer(row).filter(|k| (0..=MAX_EXACT).contains(k))?;
-        let size = match model {
-            ModelKind::BetaBinomial => {
-                self.sizes.integer(row).filter(|n| (0..=MAX_EXACT).contains(n))? as f64
-            }
-            ModelKind::GammaPoisson => self.sizes.number(row).filter(|&e| e >= 0.0)?,
+        let size = if terms.whole_sizes {
+            self.sizes.integer(row).filter(|n| (0..=MAX_EXACT).contains(n))? as f64
+        } else {
+            self.sizes.number(row).filter(|&e| e >= 0.0)?
         };
-        let fine = match model {
-            ModelKind::BetaBinomial => count as f64 <= size,
-            ModelKind::GammaPoisson => size > 0.0 || count == 0,
-        };
+        let fine = if terms.count_within_size { count as f64 <= size } else { size > 0.0 || count == 0 };
         fine.then_some((size, count as f64))
     }
 

@@ -2,15 +2,13 @@
 //! and the posterior of every distinct pair under it.
 
 use super::scoring::pull_of_pairs;
-use super::{Job, ModelKind, PhaseClock, PriorSource};
+use super::{Job, Model, PhaseClock, PriorSource};
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{fit, Boundary, Fit, FitFailure};
-use crate::core::model::beta_binomial::BetaBinomial;
-use crate::core::model::gamma_poisson::GammaPoisson;
-use crate::core::model::{Family, Posterior, Prior, Unidentifiable};
+use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
-use crate::report::{BetaPrior, FitReport, GammaPrior, Hyperprior, Summary, TestReport};
+use crate::report::{FitReport, Hyperprior, HyperpriorParts, Summary, TestReport};
 use rayon::prelude::*;
 use std::path::Path;
 
@@ -32,9 +30,21 @@ pub struct Scored {
 
 /// Fits or loads the prior for `table` and scores every pair.
 pub fn score_pairs(job: &Job, table: PairTable, clock: &mut PhaseClock) -> Result<Scored> {
-    match job.model {
-        ModelKind::BetaBinomial => score_with::<BetaBinomial>(job, table, clock),
-        ModelKind::GammaPoisson => score_with::<GammaPoisson>(job, table, clock),
+    job.model.visit(ScorePairs { job, table, clock })
+}
+
+/// [`score_with`] for the job's model.
+struct ScorePairs<'a> {
+    job: &'a Job,
+    table: PairTable,
+    clock: &'a mut PhaseClock,
+}
+
+impl FamilyVisitor for ScorePairs<'_> {
+    type Output = Result<Scored>;
+
+    fn visit<F: Family>(self) -> Result<Scored> {
+        score_with::<F>(self.job, self.table, self.clock)
     }
 }
 
@@ -74,14 +84,14 @@ fn fit_warnings(fitted: &Fit) -> Vec<String> {
     }
 }
 
-fn describe_failure(failure: FitFailure, model: ModelKind) -> Error {
+fn describe_failure(failure: FitFailure, model: Model) -> Error {
     Error::Fit(match failure {
         FitFailure::Unidentifiable(Unidentifiable::MeanOnly { mean }) => format!(
             "only the prior mean ({mean:.6}) is identifiable: every group has at most one trial, so the data say nothing about how much groups differ; no strength is reported"
         ),
         FitFailure::Unidentifiable(Unidentifiable::DegenerateMean { mean }) => format!(
             "the pooled rate is {mean}: every group is at the edge of the range (all {}), so no prior can be fitted",
-            if model == ModelKind::BetaBinomial { "successes or all failures" } else { "zero events" }
+            model.terms().degenerate_data
         ),
         FitFailure::Unidentifiable(Unidentifiable::NoData) => "no group has any trials or exposure".to_string(),
         FitFailure::NoPooling => "the marginal likelihood is maximised at zero prior strength: the groups share nothing to pool".to_string(),
@@ -98,34 +108,20 @@ fn boundary_name(boundary: Boundary) -> &'static str {
     }
 }
 
-fn hyperprior_of(model: ModelKind, fitted: &Fit) -> Hyperprior {
-    let (first, second) = match fitted.prior {
-        Prior::Conjugate { first, second } => (Some(first), Some(second)),
-        Prior::CompletePooling { .. } => (None, None),
+fn hyperprior_of(model: Model, fitted: &Fit) -> Hyperprior {
+    let natural = match fitted.prior {
+        Prior::Conjugate { natural } => Some(natural),
+        Prior::CompletePooling { .. } => None,
     };
-    let (first_se, second_se) = fitted.natural_se.map_or((None, None), |se| (Some(se[0]), Some(se[1])));
-    match model {
-        ModelKind::BetaBinomial => Hyperprior::Beta(BetaPrior {
-            alpha: first,
-            beta: second,
-            alpha_se: first_se,
-            beta_se: second_se,
-            mean: fitted.mean,
-            mean_se: fitted.mean_se,
-            strength: fitted.strength,
-            strength_se: fitted.strength_se,
-        }),
-        ModelKind::GammaPoisson => Hyperprior::Gamma(GammaPrior {
-            shape: first,
-            rate: second,
-            shape_se: first_se,
-            rate_se: second_se,
-            mean: fitted.mean,
-            mean_se: fitted.mean_se,
-            strength: fitted.strength,
-            strength_se: fitted.strength_se,
-        }),
-    }
+    let parts = HyperpriorParts {
+        natural,
+        natural_se: fitted.natural_se,
+        mean: fitted.mean,
+        mean_se: fitted.mean_se,
+        strength: fitted.strength,
+        strength_se: fitted.strength_se,
+    };
+    Hyperprior::of_model(model.name(), parts).expect("every registered model has a wire form")
 }
 
 fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
@@ -138,7 +134,7 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
         gradient_norm: fitted.gradient_norm,
         boundary: boundary_name(fitted.boundary).to_string(),
         overdispersion_test: TestReport {
-            name: F::OVERDISPERSION_TEST.to_string(),
+            name: F::TERMS.overdispersion_test.to_string(),
             statistic: fitted.overdispersion.statistic,
             p_value: fitted.overdispersion.p_value,
         },
@@ -146,7 +142,7 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
 }
 
 /// The prior held in a saved summary, checked against the model in use.
-fn prior_of_summary(summary: &Summary, path: &Path, model: ModelKind) -> Result<Prior> {
+fn prior_of_summary(summary: &Summary, path: &Path, model: Model) -> Result<Prior> {
     if summary.model != model.name() {
         return Err(Error::Input(format!(
             "{}: the prior is for the {} model, not {}",
@@ -155,21 +151,18 @@ fn prior_of_summary(summary: &Summary, path: &Path, model: ModelKind) -> Result<
             model.name()
         )));
     }
-    let (first, second, mean) = match (&summary.hyperprior, model) {
-        (Hyperprior::Beta(p), ModelKind::BetaBinomial) => (p.alpha, p.beta, p.mean),
-        (Hyperprior::Gamma(p), ModelKind::GammaPoisson) => (p.shape, p.rate, p.mean),
-        _ => {
-            return Err(Error::Input(format!(
-                "{}: the hyperprior does not match the model {}",
-                path.display(),
-                summary.model
-            )))
-        }
-    };
+    if summary.hyperprior.model() != model.name() {
+        return Err(Error::Input(format!(
+            "{}: the hyperprior does not match the model {}",
+            path.display(),
+            summary.model
+        )));
+    }
+    let ((first, second), mean) = (summary.hyperprior.natural(), summary.hyperprior.mean());
     let valid = |v: f64| v.is_finite() && v > 0.0;
     match (first, second) {
-        (Some(a), Some(b)) if valid(a) && valid(b) => Ok(Prior::Conjugate { first: a, second: b }),
-        (None, None) if valid(mean) && (model == ModelKind::GammaPoisson || mean < 1.0) => {
+        (Some(a), Some(b)) if valid(a) && valid(b) => Ok(Prior::Conjugate { natural: [a, b] }),
+        (None, None) if valid(mean) && (!model.terms().mean_below_one || mean < 1.0) => {
             Ok(Prior::CompletePooling { mean })
         }
         _ => Err(Error::Input(format!(

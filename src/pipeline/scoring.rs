@@ -3,7 +3,7 @@
 
 use super::prior::Scored;
 use super::validate::{cell_text, ColumnNames, Rejection};
-use super::{Job, ModelKind};
+use super::Job;
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -22,13 +22,15 @@ pub fn pair_columns(job: &Job, pairs: &[WeightedPair], posteriors: &[Posterior])
     let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
         PairValues::OptionalFloats(posteriors.iter().map(f).collect())
     };
-    let (first_name, second_name) = match job.model {
-        ModelKind::BetaBinomial => ("posterior_alpha", "posterior_beta"),
-        ModelKind::GammaPoisson => ("posterior_shape", "posterior_rate"),
+    let terms = job.model.terms();
+    let sizes = if terms.whole_sizes {
+        PairValues::Integers(pairs.iter().map(|p| p.size as i64).collect())
+    } else {
+        PairValues::Floats(pairs.iter().map(|p| p.size).collect())
     };
-    let sizes = match job.model {
-        ModelKind::BetaBinomial => PairValues::Integers(pairs.iter().map(|p| p.size as i64).collect()),
-        ModelKind::GammaPoisson => PairValues::Floats(pairs.iter().map(|p| p.size).collect()),
+    let parameter = |i: usize| {
+        let values = optional(&|p| p.natural.map(|natural| natural[i]));
+        (format!("posterior_{}", terms.parameter_names[i]), values)
     };
     let raw = pairs.iter().map(|p| (p.size > 0.0).then(|| p.count / p.size)).collect();
     vec![
@@ -40,8 +42,8 @@ pub fn pair_columns(job: &Job, pairs: &[WeightedPair], posteriors: &[Posterior])
         ("interval_lo".to_string(), each(&|p| p.lower)),
         ("interval_hi".to_string(), each(&|p| p.upper)),
         ("pool_weight".to_string(), each(&|p| p.pool_weight)),
-        (first_name.to_string(), optional(&|p| p.first)),
-        (second_name.to_string(), optional(&|p| p.second)),
+        parameter(0),
+        parameter(1),
     ]
 }
 

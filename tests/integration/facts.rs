@@ -9,17 +9,17 @@ const TAIL: f64 = 0.025;
 
 #[test]
 fn with_no_data_the_posterior_is_the_prior() {
-    let prior = Prior::Conjugate { first: 3.0, second: 7.0 };
+    let prior = Prior::Conjugate { natural: [3.0, 7.0] };
     let p = BetaBinomial::posterior(&prior, 0.0, 0.0, TAIL);
-    assert_eq!((p.first, p.second, p.pool_weight), (Some(3.0), Some(7.0), 1.0));
+    assert_eq!((p.natural, p.pool_weight), (Some([3.0, 7.0]), 1.0));
     assert!((p.mean - 0.3).abs() < 1e-15);
     let g = GammaPoisson::posterior(&prior, 0.0, 0.0, TAIL);
-    assert_eq!((g.first, g.second, g.pool_weight), (Some(3.0), Some(7.0), 1.0));
+    assert_eq!((g.natural, g.pool_weight), (Some([3.0, 7.0]), 1.0));
 }
 
 #[test]
 fn with_more_data_at_a_fixed_rate_the_posterior_mean_tends_to_the_raw_rate() {
-    let prior = Prior::Conjugate { first: 2.0, second: 8.0 };
+    let prior = Prior::Conjugate { natural: [2.0, 8.0] };
     let mut last_gap = f64::INFINITY;
     for n in [10.0, 1e3, 1e5, 1e7, 1e9] {
         let p = BetaBinomial::posterior(&prior, n, 0.7 * n, TAIL);
@@ -37,15 +37,15 @@ fn with_more_data_at_a_fixed_rate_the_posterior_mean_tends_to_the_raw_rate() {
 
 #[test]
 fn weak_priors_move_quickly_with_data_and_strong_ones_slowly() {
-    let weak = BetaBinomial::posterior(&Prior::Conjugate { first: 0.5, second: 0.5 }, 10.0, 9.0, TAIL);
-    let strong = BetaBinomial::posterior(&Prior::Conjugate { first: 500.0, second: 500.0 }, 10.0, 9.0, TAIL);
+    let weak = BetaBinomial::posterior(&Prior::Conjugate { natural: [0.5, 0.5] }, 10.0, 9.0, TAIL);
+    let strong = BetaBinomial::posterior(&Prior::Conjugate { natural: [500.0, 500.0] }, 10.0, 9.0, TAIL);
     assert!((weak.mean - 0.5).abs() > 0.3);
     assert!((strong.mean - 0.5).abs() < 0.01);
 }
 
 #[test]
 fn the_posterior_mean_lies_between_the_raw_rate_and_the_prior_mean() {
-    let prior = Prior::Conjugate { first: 4.0, second: 16.0 };
+    let prior = Prior::Conjugate { natural: [4.0, 16.0] };
     for (n, k) in [(1.0, 1.0), (30.0, 2.0), (300.0, 250.0), (5.0, 0.0)] {
         let p = BetaBinomial::posterior(&prior, n, k, TAIL);
         let (lo, hi) = if k / n < 0.2 { (k / n, 0.2) } else { (0.2, k / n) };
@@ -54,6 +54,6 @@ fn the_posterior_mean_lies_between_the_raw_rate_and_the_prior_mean() {
         let blend = (1.0 - p.pool_weight) * k / n + p.pool_weight * 0.2;
         assert!((p.mean - blend).abs() < 1e-14);
     }
-    let g = GammaPoisson::posterior(&Prior::Conjugate { first: 5.0, second: 5.0 }, 2.0, 9.0, TAIL);
+    let g = GammaPoisson::posterior(&Prior::Conjugate { natural: [5.0, 5.0] }, 2.0, 9.0, TAIL);
     assert!(1.0 < g.mean && g.mean < 4.5);
 }

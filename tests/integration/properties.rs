@@ -17,7 +17,7 @@ proptest! {
     ) {
         let k = (f64::from(n) * frac).floor();
         let n = f64::from(n);
-        let prior = Prior::Conjugate { first: alpha, second: beta };
+        let prior = Prior::Conjugate { natural: [alpha, beta] };
         let p = BetaBinomial::posterior(&prior, n, k, 0.025);
         prop_assert!((0.0..=1.0).contains(&p.pool_weight));
         let (raw, pool) = (k / n, alpha / (alpha + beta));
@@ -34,7 +34,7 @@ proptest! {
         shape in 0.05f64..200.0, rate in 0.05f64..200.0, exposure in 1e-3f64..1e5, y in 0u32..10_000,
     ) {
         let y = f64::from(y);
-        let prior = Prior::Conjugate { first: shape, second: rate };
+        let prior = Prior::Conjugate { natural: [shape, rate] };
         let p = GammaPoisson::posterior(&prior, exposure, y, 0.025);
         prop_assert!((0.0..=1.0).contains(&p.pool_weight));
         let (raw, pool) = (y / exposure, shape / rate);
@@ -55,9 +55,9 @@ proptest! {
         let k = (f64::from(n) * frac).floor();
         let n = f64::from(n);
         prop_assume!(alpha + k >= 1.0 && beta + n - k >= 1.0);
-        let p = BetaBinomial::posterior(&Prior::Conjugate { first: alpha, second: beta }, n, k, tail);
+        let p = BetaBinomial::posterior(&Prior::Conjugate { natural: [alpha, beta] }, n, k, tail);
         prop_assert!(p.lower <= p.mean && p.mean <= p.upper, "{:?}", p);
-        let g = GammaPoisson::posterior(&Prior::Conjugate { first: alpha, second: beta }, frac * 100.0, k, tail);
+        let g = GammaPoisson::posterior(&Prior::Conjugate { natural: [alpha, beta] }, frac * 100.0, k, tail);
         prop_assert!(g.lower <= g.mean && g.mean <= g.upper, "{:?}", g);
     }
 
@@ -68,7 +68,7 @@ proptest! {
         let sizes: Vec<f64> = sizes.into_iter().map(f64::from).collect();
         let counts: Vec<f64> = sizes.iter().map(|n| (n * frac).floor()).collect();
         let (table, pair_of_group) = PairTable::from_groups(&sizes, &counts);
-        let prior = Prior::Conjugate { first: 2.0, second: 3.0 };
+        let prior = Prior::Conjugate { natural: [2.0, 3.0] };
         for i in 0..sizes.len() {
             for j in 0..sizes.len() {
                 if (sizes[i], counts[i]) == (sizes[j], counts[j]) {

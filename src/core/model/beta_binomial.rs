@@ -11,7 +11,7 @@
 //! ln s use R(x, m) = ln Γ(x+m) − ln Γ(x) − m ln x style excesses while n ≤ s
 //! and plain digamma differences beyond (see `special`).
 
-use super::{Evaluation, Family, Posterior, Prior, Unidentifiable};
+use super::{Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{beta_quantile, Tail};
 use crate::core::special::{
@@ -58,8 +58,17 @@ fn log_pmf_at(k: f64, n: f64, mu: f64, nu: f64, s: f64) -> f64 {
 }
 
 impl Family for BetaBinomial {
-    const NAME: &'static str = "beta-binomial";
-    const OVERDISPERSION_TEST: &'static str = "Tarone";
+    const TERMS: ModelTerms = ModelTerms {
+        name: "beta-binomial",
+        count_role: "successes",
+        size_role: "trials",
+        whole_sizes: true,
+        count_within_size: true,
+        parameter_names: ["alpha", "beta"],
+        degenerate_data: "successes or all failures",
+        mean_below_one: true,
+        overdispersion_test: "Tarone",
+    };
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
         let (n, k) = (pair.size, pair.count);
@@ -187,7 +196,7 @@ impl Family for BetaBinomial {
     fn posterior(prior: &Prior, n: f64, k: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
-            Prior::Conjugate { first: alpha, second: beta } => {
+            Prior::Conjugate { natural: [alpha, beta] } => {
                 let (a, b) = (alpha + k, beta + (n - k));
                 let s = a + b;
                 let (mean, complement) = (a / s, b / s);
@@ -197,8 +206,7 @@ impl Family for BetaBinomial {
                     lower: beta_quantile(a, b, Tail::Lower, tail),
                     upper: beta_quantile(a, b, Tail::Upper, tail),
                     pool_weight: (alpha + beta) / (alpha + beta + n),
-                    first: Some(a),
-                    second: Some(b),
+                    natural: Some([a, b]),
                 }
             }
         }
@@ -208,7 +216,7 @@ impl Family for BetaBinomial {
 impl Posterior {
     /// The posterior under complete pooling: a point mass at the pooled rate.
     pub fn pooled(mean: f64) -> Self {
-        Posterior { mean, sd: 0.0, lower: mean, upper: mean, pool_weight: 1.0, first: None, second: None }
+        Posterior { mean, sd: 0.0, lower: mean, upper: mean, pool_weight: 1.0, natural: None }
     }
 }
 

@@ -10,7 +10,7 @@
 //! is ln Poisson(y; λ) + R(a, y) − a[ln(1+t) − t] − y ln(1+t), each extra term
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
-use super::{Evaluation, Family, Posterior, Prior, Unidentifiable};
+use super::{Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
 use crate::core::special::{
@@ -45,8 +45,17 @@ fn log_pmf_at(y: f64, lambda: f64, a: f64, t: f64) -> f64 {
 }
 
 impl Family for GammaPoisson {
-    const NAME: &'static str = "gamma-poisson";
-    const OVERDISPERSION_TEST: &'static str = "Dean";
+    const TERMS: ModelTerms = ModelTerms {
+        name: "gamma-poisson",
+        count_role: "events",
+        size_role: "exposure",
+        whole_sizes: false,
+        count_within_size: false,
+        parameter_names: ["shape", "rate"],
+        degenerate_data: "zero events",
+        mean_below_one: false,
+        overdispersion_test: "Dean",
+    };
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
         let (exposure, y) = (pair.size, pair.count);
@@ -167,7 +176,7 @@ impl Family for GammaPoisson {
     fn posterior(prior: &Prior, exposure: f64, y: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
-            Prior::Conjugate { first: shape, second: rate } => {
+            Prior::Conjugate { natural: [shape, rate] } => {
                 let (a, b) = (shape + y, rate + exposure);
                 Posterior {
                     mean: a / b,
@@ -175,8 +184,7 @@ impl Family for GammaPoisson {
                     lower: gamma_quantile(a, Tail::Lower, tail) / b,
                     upper: gamma_quantile(a, Tail::Upper, tail) / b,
                     pool_weight: rate / (rate + exposure),
-                    first: Some(a),
-                    second: Some(b),
+                    natural: Some([a, b]),
                 }
             }
         }

@@ -43,10 +43,9 @@ impl Evaluation {
 pub enum Prior {
     /// A proper conjugate prior: Beta(alpha, beta) or Gamma(shape, rate).
     Conjugate {
-        /// alpha (beta-binomial) or shape (gamma-Poisson).
-        first: f64,
-        /// beta (beta-binomial) or rate (gamma-Poisson).
-        second: f64,
+        /// The natural parameters, named by the model's
+        /// [`ModelTerms::parameter_names`]: (alpha, beta) or (shape, rate).
+        natural: [f64; 2],
     },
     /// No overdispersion: every group is taken to have the pooled rate.
     CompletePooling {
@@ -68,10 +67,9 @@ pub struct Posterior {
     pub upper: f64,
     /// Weight B of the prior mean in the posterior mean, in [0, 1].
     pub pool_weight: f64,
-    /// First posterior parameter (alpha or shape), absent under complete pooling.
-    pub first: Option<f64>,
-    /// Second posterior parameter (beta or rate), absent under complete pooling.
-    pub second: Option<f64>,
+    /// The posterior's natural parameters, (alpha, beta) or (shape, rate) as
+    /// [`ModelTerms::parameter_names`] names them; absent under complete pooling.
+    pub natural: Option<[f64; 2]>,
 }
 
 /// Why a model cannot be fitted to a table; these are results, not bugs.
@@ -92,12 +90,96 @@ pub enum Unidentifiable {
     NoData,
 }
 
+/// What differs between models outside the numerics: the name, the columns
+/// a model reads and what it accepts in them, the names of its parameters.
+/// Text here is for messages, options and output column names only.
+#[derive(Debug, PartialEq, Eq)]
+pub struct ModelTerms {
+    /// Name in files and on the command line.
+    pub name: &'static str,
+    /// What the count column holds; also the option naming it (`--successes`).
+    pub count_role: &'static str,
+    /// What the size column holds; also the option naming it (`--trials`).
+    pub size_role: &'static str,
+    /// Sizes are whole numbers (trials); otherwise any number ≥ 0 (exposure),
+    /// positive where there are counts.
+    pub whole_sizes: bool,
+    /// A count may not exceed its size (successes out of trials).
+    pub count_within_size: bool,
+    /// The natural parameters of prior and posterior, in order.
+    pub parameter_names: [&'static str; 2],
+    /// The data that leave the prior mean on the edge of its range, in words.
+    pub degenerate_data: &'static str,
+    /// The prior mean is a proportion, below 1.
+    pub mean_below_one: bool,
+    /// Name of the score test for overdispersion this model uses.
+    pub overdispersion_test: &'static str,
+}
+
+/// Code written once for every model: [`Model::visit`] calls
+/// [`FamilyVisitor::visit`] with the model's [`Family`].
+pub trait FamilyVisitor {
+    /// What the visit returns.
+    type Output;
+    /// Runs with the model's family.
+    fn visit<F: Family>(self) -> Self::Output;
+}
+
+/// The model registry: adding a model is a file in this folder implementing
+/// [`Family`] and one line in the `models!` call below it.
+macro_rules! models {
+    ($($variant:ident => $family:ty),+ $(,)?) => {
+        /// A model, as chosen on the command line or found in a summary file.
+        #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+        pub enum Model {
+            $(
+                #[doc = concat!("See [`", stringify!($family), "`].")]
+                $variant,
+            )+
+        }
+
+        impl Model {
+            /// Every model, in registration order.
+            pub const ALL: &'static [Model] = &[$(Model::$variant),+];
+
+            /// The model's names and column rules.
+            pub fn terms(self) -> &'static ModelTerms {
+                match self {
+                    $(Model::$variant => &<$family as Family>::TERMS,)+
+                }
+            }
+
+            /// Runs `visitor` with the model's family.
+            pub fn visit<V: FamilyVisitor>(self, visitor: V) -> V::Output {
+                match self {
+                    $(Model::$variant => visitor.visit::<$family>(),)+
+                }
+            }
+        }
+    };
+}
+
+models! {
+    BetaBinomial => beta_binomial::BetaBinomial,
+    GammaPoisson => gamma_poisson::GammaPoisson,
+}
+
+impl Model {
+    /// The model's name in files and on the command line.
+    pub fn name(self) -> &'static str {
+        self.terms().name
+    }
+
+    /// The model of a name, as written by [`Model::name`].
+    pub fn from_name(name: &str) -> Option<Self> {
+        Model::ALL.iter().copied().find(|m| m.name() == name)
+    }
+}
+
 /// What a fitting loop needs from a model.
 pub trait Family: Sync {
-    /// Name used in summaries and on the command line.
-    const NAME: &'static str;
-    /// Name of the score test for overdispersion this model uses.
-    const OVERDISPERSION_TEST: &'static str;
+    /// The model's names and column rules.
+    const TERMS: ModelTerms;
     /// Per-pair log pmf and its derivatives at working coordinates `u`.
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation;
     /// ln pmf under no overdispersion at rate `mean`.
