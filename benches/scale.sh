@@ -32,6 +32,7 @@ log="$data/timings.tsv"
 timed() { # timed TOOL FORMAT GROUPS RUN COMMAND...
   local tool=$1 format=$2 groups=$3 run=$4
   shift 4
+  sync  # earlier outputs are written back first, not during the next run
   /usr/bin/time -f "%e %M" -o "$data/time.txt" "$@" > /dev/null 2> "$data/stderr.txt" \
     || { cat "$data/stderr.txt"; exit 1; }
   read -r wall rss < "$data/time.txt"

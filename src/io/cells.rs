@@ -98,7 +98,7 @@ impl NumericColumn {
             NumericColumn::Integers(v) => v.is_valid(row).then(|| v.value(row)),
             NumericColumn::Floats(v) => {
                 let x = v.value(row);
-                (v.is_valid(row) && x.fract() == 0.0 && x.abs() <= 9_007_199_254_740_992.0)
+                (v.is_valid(row) && x.abs() <= 9_007_199_254_740_992.0 && (x as i64) as f64 == x)
                     .then_some(x as i64)
             }
         }

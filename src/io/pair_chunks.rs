@@ -235,7 +235,8 @@ impl RowGroupPairs {
         descr: ColumnDescPtr,
     ) -> Result<(Bytes, ColumnCloseResult)> {
         let null_local: Vec<bool> = self.pairs.iter().map(|&p| values.is_null(p as usize)).collect();
-        let nulls = self.rows.iter().filter(|&&l| null_local[l as usize]).count();
+        let any_null = null_local.contains(&true);
+        let nulls = if any_null { self.rows.iter().filter(|&&l| null_local[l as usize]).count() } else { 0 };
         let (dictionary, statistics) = values.dictionary(&self.pairs, nulls as u64);
         let mut sink = TrackedWrite::new(Vec::new());
         let mut specs = Vec::new();
@@ -250,9 +251,12 @@ impl RowGroupPairs {
             };
             specs.push(pages.write_page(CompressedPage::new(page, dictionary.len()))?);
             for (i, page_rows) in self.rows.chunks(PAGE_ROWS).enumerate() {
-                let page_nulls = page_rows.iter().filter(|&&l| null_local[l as usize]).count();
+                let page_nulls =
+                    if any_null { page_rows.iter().filter(|&&l| null_local[l as usize]).count() } else { 0 };
                 let mut levels = Vec::new();
-                if values.nullable() {
+                if values.nullable() && page_nulls == 0 {
+                    definition_levels(std::iter::repeat_n(true, page_rows.len()), &mut levels);
+                } else if values.nullable() {
                     definition_levels(page_rows.iter().map(|&l| !null_local[l as usize]), &mut levels);
                 }
                 let (values_part, raw_size) = if page_nulls == 0 {
