@@ -92,8 +92,10 @@ impl Default for PairIndex {
 impl PairIndex {
     /// The dense slot of a pair, when it has one.
     fn slot(size: f64, count: f64) -> Option<usize> {
-        let whole = |x: f64| x >= 0.0 && x.fract() == 0.0;
-        (whole(size) && whole(count) && size < DENSE_SIZES as f64 && count <= size).then(|| {
+        // Whole and in range, compared through an integer cast (`fract` is a
+        // library call on the baseline x86-64 target and showed in profiles).
+        let whole = |x: f64| x >= 0.0 && (x as u32) as f64 == x;
+        (size < DENSE_SIZES as f64 && count <= size && whole(size) && whole(count)).then(|| {
             let n = size as usize;
             n * (n + 1) / 2 + count as usize
         })
