@@ -366,3 +366,52 @@ fn score_and_write(
     }
     Ok((max_shift_group, staged))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::core::pairs::{PairTable, WeightedPair};
+    use crate::pipeline::validate::ColumnNames;
+    use crate::pipeline::{Layout, Level, PriorSource, DEFAULT_BATCH_ROWS};
+
+    fn job(input: &Path, output: &Path) -> Job {
+        Job {
+            input: input.to_path_buf(),
+            model: Model::BetaBinomial,
+            columns: ColumnNames { group: "id".into(), count: "k".into(), size: "n".into() },
+            layout: Layout::Groups { output: output.to_path_buf(), batch_rows: DEFAULT_BATCH_ROWS },
+            summary: None,
+            level: Level::new(0.95).unwrap(),
+            delimiter: b',',
+            invalid: InvalidRows::Fail,
+            prior: PriorSource::Fit,
+            timings: false,
+            progress: false,
+        }
+    }
+
+    /// Pass 2 of an input that changed after pass 1: here pass 1's pairs
+    /// lack one the file now holds, or its row count differs. Either is an
+    /// input error naming the file, and no output appears.
+    #[test]
+    fn a_file_that_changed_between_the_passes_is_an_input_error() {
+        let dir = tempfile::tempdir().unwrap();
+        let (input, output) = (dir.path().join("in.csv"), dir.path().join("out.csv"));
+        std::fs::write(&input, "id,k,n\na,1,4\nb,3,9\nc,0,2\nd,7,10\ne,2,6\n").unwrap();
+        let job = job(&input, &output);
+        let open = Input::open(&input, b',', &[("id", "group"), ("k", "k"), ("n", "n")], 2).unwrap();
+        let pair = |size: f64, count: f64| WeightedPair { size, count, weight: 1.0 };
+        let mut clock = PhaseClock::start(&job);
+        let pass_one = [pair(4.0, 1.0), pair(9.0, 3.0), pair(2.0, 0.0), pair(10.0, 7.0)];
+        let scored = score_pairs(&job, PairTable::from_weighted(pass_one), &mut clock).unwrap();
+        let outcome = score_and_write(&job, &open, &scored, &output, &Repeats::default(), (&mut clock, 5));
+        let message = outcome.err().expect("refused").to_string();
+        assert!(message.contains("in.csv") && message.contains("changed while it was read"), "{message}");
+        let all = [pass_one.to_vec(), vec![pair(6.0, 2.0)]].concat();
+        let scored = score_pairs(&job, PairTable::from_weighted(all), &mut clock).unwrap();
+        let outcome = score_and_write(&job, &open, &scored, &output, &Repeats::default(), (&mut clock, 4));
+        assert!(outcome.err().expect("refused").to_string().contains("changed while it was read"));
+        assert!(score_and_write(&job, &open, &scored, &output, &Repeats::default(), (&mut clock, 5)).is_ok());
+        assert!(!output.exists(), "staged, never committed here");
+    }
+}

@@ -352,3 +352,38 @@ fn repeated_ids_are_found_across_parts_and_at_the_last_row() {
     assert_eq!((s["groups"].as_u64(), s["rows_rejected"].as_u64()), (Some(2998), Some(2)));
     assert_eq!(std::fs::read_to_string(dir.path().join("o.csv")).unwrap().lines().count(), 2999);
 }
+
+/// A null integer id is written the same way in the rejects file whatever
+/// the input: an empty field.
+#[test]
+fn a_null_integer_id_is_an_empty_field_in_the_rejects_of_every_input() {
+    let dir = tempfile::tempdir().unwrap();
+    let ids: Vec<Option<i64>> = (0..40).map(|i| (i != 7).then_some(100 + i)).collect();
+    let ks: Vec<i64> = (0..40).map(|i| i % 5).collect();
+    let ns: Vec<i64> = (0..40).map(|i| 5 + i % 7).collect();
+    let columns: Vec<(&str, ArrayRef)> = vec![
+        ("id", Arc::new(Int64Array::from(ids.clone()))),
+        ("k", Arc::new(Int64Array::from(ks.clone()))),
+        ("n", Arc::new(Int64Array::from(ns.clone()))),
+    ];
+    let batch = RecordBatch::try_from_iter(columns).unwrap();
+    let file = std::fs::File::create(dir.path().join("in.parquet")).unwrap();
+    let mut writer = ArrowWriter::try_new(file, batch.schema(), None).unwrap();
+    writer.write(&batch).unwrap();
+    writer.close().unwrap();
+    let mut text = String::from("id,k,n\n");
+    for ((id, k), n) in ids.iter().zip(&ks).zip(&ns) {
+        text.push_str(&format!("{},{k},{n}\n", id.map(|i| i.to_string()).unwrap_or_default()));
+    }
+    std::fs::write(dir.path().join("in.csv"), text).unwrap();
+    for (input, rejects) in [("in.parquet", "r-parquet.csv"), ("in.csv", "r-csv.csv")] {
+        let args: Vec<&str> = stream_args(input, "o.csv", "s.json")
+            .into_iter()
+            .chain(["--on-invalid", "skip", "--rejects", rejects])
+            .collect();
+        run_ok(dir.path(), &args);
+    }
+    let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
+    assert_eq!(read("r-parquet.csv"), read("r-csv.csv"));
+    assert!(read("r-csv.csv").contains("\n8,,2,5,id,group id is missing\n"), "{}", read("r-csv.csv"));
+}
