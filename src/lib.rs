@@ -6,7 +6,7 @@
 //!
 //! Layers, each depending only on those before it:
 //! * [`core`]: pure numerics (special functions, models, fit, posteriors).
-//! * [`io`]: reading and writing tables (polars, Parquet, CSV), atomically.
+//! * [`io`]: reading and writing tables (CSV, Parquet through arrow-rs), in batches, atomically.
 //! * [`pipeline`]: validation, pair aggregation, fit and scoring, end to end.
 //! * [`report`]: the JSON summary (wire types) and the terminal text.
 //!
