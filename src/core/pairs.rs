@@ -132,27 +132,48 @@ impl PairIndex {
     }
 }
 
-/// Counts groups per pair, in the order pairs are first seen.
-#[derive(Default)]
+/// Counts groups per pair: pairs with a slot in the dense triangle of a
+/// [`PairIndex`] are counted straight in an array by slot (one memory access
+/// per row), the rest in a hash map.
 pub struct PairCounter {
-    index: PairIndex,
-    pairs: Vec<WeightedPair>,
+    dense: Vec<f64>,
+    sparse: PairMap<WeightedPair>,
+}
+
+impl Default for PairCounter {
+    fn default() -> Self {
+        PairCounter { dense: vec![0.0; DENSE_SIZES * (DENSE_SIZES + 1) / 2], sparse: PairMap::default() }
+    }
 }
 
 impl PairCounter {
     /// Adds `weight` groups to a pair (a negative weight takes them back).
     pub fn add(&mut self, size: f64, count: f64, weight: f64) {
-        let pairs = &mut self.pairs;
-        let i = self.index.get_or_insert(size, count, || {
-            pairs.push(WeightedPair { size, count, weight: 0.0 });
-            (pairs.len() - 1) as u32
-        });
-        self.pairs[i as usize].weight += weight;
+        match PairIndex::slot(size, count) {
+            Some(slot) => self.dense[slot] += weight,
+            None => {
+                self.sparse
+                    .entry(key(size, count))
+                    .or_insert(WeightedPair { size, count, weight: 0.0 })
+                    .weight += weight
+            }
+        }
     }
 
-    /// The table of the pairs still held by at least one group.
+    /// The table of the pairs held by at least one group.
     pub fn into_table(self) -> PairTable {
-        PairTable::from_weighted(self.pairs.into_iter().filter(|p| p.weight > 0.0))
+        let mut pairs: Vec<WeightedPair> = self.sparse.into_values().filter(|p| p.weight > 0.0).collect();
+        let mut slot = 0;
+        for size in 0..DENSE_SIZES {
+            for count in 0..=size {
+                let weight = self.dense[slot];
+                if weight > 0.0 {
+                    pairs.push(WeightedPair { size: size as f64, count: count as f64, weight });
+                }
+                slot += 1;
+            }
+        }
+        PairTable::from_weighted(pairs)
     }
 }
 
