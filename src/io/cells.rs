@@ -198,8 +198,16 @@ impl GroupColumn {
         }
     }
 
-    /// The ids at `rows`, in that order, as an output column.
+    /// The ids at `rows`, in that order, as an output column (the column
+    /// itself, not a copy, when `rows` is every row in order).
     pub fn take(&self, rows: &[u32]) -> ArrayRef {
+        let every_row = rows.len() == self.len() && rows.iter().enumerate().all(|(i, &r)| r as usize == i);
+        if every_row {
+            return match self {
+                GroupColumn::Integers(v) => std::sync::Arc::new(v.clone()),
+                GroupColumn::Texts(v) => std::sync::Arc::new(v.clone()),
+            };
+        }
         let indices = UInt32Array::from(rows.to_vec());
         let taken = match self {
             GroupColumn::Integers(v) => arrow_select::take::take(v, &indices, None),
@@ -251,5 +259,8 @@ mod tests {
         assert!(texts.is_missing(0) && !texts.is_missing(1));
         assert_eq!(texts.with_bytes(1, <[u8]>::to_vec), b"a".to_vec());
         assert_eq!(ints.with_bytes(0, <[u8]>::to_vec), b"5".to_vec());
+        assert_eq!(texts.take(&[0, 1]).len(), 2);
+        let second = texts.take(&[1]);
+        assert_eq!(second.as_string::<i32>().value(0), "a");
     }
 }

@@ -94,7 +94,7 @@ impl Input {
     /// decoded on a thread of their own, up to two ahead of `visit`, so that
     /// reading overlaps the work done on them.
     pub fn for_each_batch(&self, mut visit: impl FnMut(InputBatch<'_>) -> Result<()>) -> Result<()> {
-        let (sender, receiver) = std::sync::mpsc::sync_channel::<InputBatch<'_>>(2);
+        let (sender, receiver) = std::sync::mpsc::sync_channel::<InputBatch<'_>>(8);
         std::thread::scope(|scope| {
             let reader = scope.spawn(move || {
                 // A send fails only when `visit` has stopped, whose error is reported instead.

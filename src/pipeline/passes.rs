@@ -290,7 +290,7 @@ fn score_and_write(
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
     };
-    let (sender, receiver) = std::sync::mpsc::sync_channel::<(ArrayRef, Vec<u32>)>(2);
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<(ArrayRef, Vec<u32>)>(8);
     let mut seen = 0;
     let table = std::thread::scope(|scope| {
         let writer = scope.spawn(move || -> Result<TableSink> {
