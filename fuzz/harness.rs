@@ -1,7 +1,7 @@
 //! The fuzzing harness, shared by the fuzz target (`fuzz/fuzz_targets/`) and
 //! the regression test that replays `fuzz/seeds/` and `fuzz/regressions/`
 //! under `cargo test`: arbitrary bytes as an input table (CSV or Parquet,
-//! either model, in memory or streamed, failing or skipping bad rows),
+//! either model, in batches of 3 rows or the default, failing or skipping bad rows),
 //! through reading, validation, the fit and the writers. Whatever the bytes,
 //! the run must not panic; a failed run must leave no output and no summary;
 //! a successful one must write both, with finite figures.

@@ -25,7 +25,7 @@ pub struct Cli {
     #[arg(long, global = true)]
     pub timings: bool,
     /// Report progress on stderr: the end of each phase and, in the two
-    /// streamed passes, the rows done (at most once a second).
+    /// passes over the input, the rows done (at most once a second).
     #[arg(long, global = true)]
     pub progress: bool,
 }

@@ -38,8 +38,8 @@ pub fn key(size: f64, count: f64) -> PairKey {
 
 /// A multiply-rotate hasher for pair keys. Keys are not chosen by an
 /// adversary (they are counts from the input), so the DoS resistance of the
-/// standard SipHash is not needed, and its cost showed in profiles of
-/// streamed runs (one lookup per input row).
+/// standard SipHash is not needed, and its cost showed in profiles (one
+/// lookup per input row, when pairs beyond the dense triangle were common).
 #[derive(Default, Clone, Copy)]
 pub struct PairHasher(u64);
 

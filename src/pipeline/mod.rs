@@ -126,7 +126,7 @@ const REPORT_EVERY: Duration = Duration::from_secs(1);
 
 /// Reports on stderr, when asked to: the wall time of each phase
 /// (`--timings`), and progress (`--progress`): the end of each phase, and
-/// within the streamed passes the rows done, at most once a second. Progress
+/// within the two passes the rows done, at most once a second. Progress
 /// is looked at once per batch, never per row, so it costs nothing measurable.
 pub(crate) struct PhaseClock {
     timings: bool,

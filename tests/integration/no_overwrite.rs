@@ -104,9 +104,9 @@ fn an_output_inside_an_input_folder_is_refused() {
     let dir = tempfile::tempdir().unwrap();
     std::fs::create_dir(dir.path().join("parts")).unwrap();
     write(dir.path(), "parts/part-0.parquet", "stands in for a part: never read");
-    let args = fit("parts", &["--stream", "--output", "parts/scored.parquet"]);
+    let args = fit("parts", &["--output", "parts/scored.parquet"]);
     assert_clobber_refused(dir.path(), &args, ["--input", "--output"]);
-    let args = fit("parts", &["--stream", "--output", "o.parquet", "--summary", "./parts/../parts/s.json"]);
+    let args = fit("parts", &["--output", "o.parquet", "--summary", "./parts/../parts/s.json"]);
     assert_clobber_refused(dir.path(), &args, ["--input", "--summary"]);
 }
 

@@ -134,7 +134,7 @@ fn groups(count: usize, faults: bool) -> Table {
     (ids, ks, ns)
 }
 
-fn stream_args<'a>(input: &'a str, output: &'a str, summary: &'a str) -> Vec<&'a str> {
+fn fit_args<'a>(input: &'a str, output: &'a str, summary: &'a str) -> Vec<&'a str> {
     let args = ["--quiet", "fit", "--model", "beta-binomial", "--input", input, "--group", "id"];
     args.into_iter()
         .chain(["--successes", "k", "--trials", "n", "--output", output, "--summary", summary])
@@ -166,22 +166,20 @@ fn write_csv(path: &Path, (ids, ks, ns): &Table) {
 fn a_file_a_folder_of_parts_and_a_csv_give_the_same_bytes_in_any_batch_size() {
     let dir = setup(false);
     write_csv(&dir.path().join("all.csv"), &groups(3000, false));
-    run_ok(dir.path(), &stream_args("all.parquet", "whole.parquet", "whole.json"));
+    run_ok(dir.path(), &fit_args("all.parquet", "whole.parquet", "whole.json"));
     let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
     for (input, batch) in [("all.parquet", "256"), ("parts", "1000"), ("all.csv", "77"), ("all.csv", "65536")]
     {
-        let args: Vec<&str> = stream_args(input, "got.parquet", "got.json")
-            .into_iter()
-            .chain(["--batch-rows", batch])
-            .collect();
+        let args: Vec<&str> =
+            fit_args(input, "got.parquet", "got.json").into_iter().chain(["--batch-rows", batch]).collect();
         run_ok(dir.path(), &args);
         assert_eq!(read("whole.parquet"), read("got.parquet"), "same Parquet bytes from {input} in {batch}");
         assert_eq!(summary(&dir.path().join("whole.json")), summary(&dir.path().join("got.json")));
     }
     // CSV out, from a folder of two parts, batches not aligned to the parts.
-    run_ok(dir.path(), &stream_args("all.parquet", "whole.csv", "m.json"));
+    run_ok(dir.path(), &fit_args("all.parquet", "whole.csv", "m.json"));
     let parts: Vec<&str> =
-        stream_args("parts", "parts.csv", "p.json").into_iter().chain(["--batch-rows", "1000"]).collect();
+        fit_args("parts", "parts.csv", "p.json").into_iter().chain(["--batch-rows", "1000"]).collect();
     run_ok(dir.path(), &parts);
     assert_eq!(read("whole.csv"), read("parts.csv"), "same CSV bytes from a folder of parts");
 }
@@ -191,7 +189,7 @@ fn a_file_a_folder_of_parts_and_a_csv_reject_the_same_rows() {
     let dir = setup(true);
     write_csv(&dir.path().join("all.csv"), &groups(3000, true));
     let skip = ["--on-invalid", "skip", "--rejects"];
-    let whole: Vec<&str> = stream_args("all.parquet", "whole.csv", "m.json")
+    let whole: Vec<&str> = fit_args("all.parquet", "whole.csv", "m.json")
         .into_iter()
         .chain(skip)
         .chain(["m-rejects.csv"])
@@ -199,7 +197,7 @@ fn a_file_a_folder_of_parts_and_a_csv_reject_the_same_rows() {
     run_ok(dir.path(), &whole);
     let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
     for (input, batch) in [("parts", "100"), ("all.csv", "333")] {
-        let args: Vec<&str> = stream_args(input, "got.csv", "s.json")
+        let args: Vec<&str> = fit_args(input, "got.csv", "s.json")
             .into_iter()
             .chain(skip)
             .chain(["s-rejects.csv", "--batch-rows", batch])
@@ -211,7 +209,7 @@ fn a_file_a_folder_of_parts_and_a_csv_reject_the_same_rows() {
     }
     assert_eq!(read("m-rejects.csv").lines().count(), 5, "header and four bad rows");
     // Without skip, the run stops at the first bad row, naming its part, writing nothing.
-    let out = ratepool(dir.path(), &stream_args("parts", "fail.csv", "fail.json"));
+    let out = ratepool(dir.path(), &fit_args("parts", "fail.csv", "fail.json"));
     assert_eq!(out.status.code(), Some(2));
     assert!(stderr(&out).contains("part-0.parquet: row 6, column 'id'"), "{}", stderr(&out));
     assert!(!dir.path().join("fail.csv").exists() && !dir.path().join("fail.json").exists());
@@ -220,14 +218,12 @@ fn a_file_a_folder_of_parts_and_a_csv_reject_the_same_rows() {
 #[test]
 fn progress_reports_both_passes_to_the_last_row_and_changes_no_output() {
     let dir = setup(false);
-    let plain: Vec<&str> = stream_args("parts", "plain.parquet", "plain.json")
-        .into_iter()
-        .chain(["--batch-rows", "500"])
-        .collect();
+    let plain: Vec<&str> =
+        fit_args("parts", "plain.parquet", "plain.json").into_iter().chain(["--batch-rows", "500"]).collect();
     run_ok(dir.path(), &plain);
     let watched: Vec<&str> = ["--progress"]
         .into_iter()
-        .chain(stream_args("parts", "watched.parquet", "watched.json"))
+        .chain(fit_args("parts", "watched.parquet", "watched.json"))
         .chain(["--batch-rows", "500"])
         .collect();
     let out = ratepool(dir.path(), &watched);
@@ -280,13 +276,11 @@ fn a_large_input_gives_the_same_bytes_through_any_batches_and_parts() {
         write_table(&dir.path().join(format!("parts/part-{i}.parquet")), &table, w[0]..w[1]);
     }
     write_csv(&dir.path().join("all.csv"), &table);
-    run_ok(dir.path(), &stream_args("all.parquet", "whole.parquet", "whole.json"));
+    run_ok(dir.path(), &fit_args("all.parquet", "whole.parquet", "whole.json"));
     let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
     for (input, batch) in [("all.parquet", "1000"), ("parts", "100003"), ("all.csv", "65537")] {
-        let args: Vec<&str> = stream_args(input, "got.parquet", "got.json")
-            .into_iter()
-            .chain(["--batch-rows", batch])
-            .collect();
+        let args: Vec<&str> =
+            fit_args(input, "got.parquet", "got.json").into_iter().chain(["--batch-rows", batch]).collect();
         run_ok(dir.path(), &args);
         assert!(read("whole.parquet") == read("got.parquet"), "Parquet bytes differ from {input} in {batch}");
         assert_eq!(summary(&dir.path().join("whole.json")), summary(&dir.path().join("got.json")));
@@ -302,7 +296,7 @@ fn one_and_two_threads_give_the_same_bytes_over_many_chunks_of_pairs() {
     write_table(&dir.path().join("all.parquet"), &table, 0..40_000);
     let run = |threads: &str, out: &str, s: &str| {
         let args: Vec<&str> =
-            ["--threads", threads].into_iter().chain(stream_args("all.parquet", out, s)).collect();
+            ["--threads", threads].into_iter().chain(fit_args("all.parquet", out, s)).collect();
         run_ok(dir.path(), &args);
     };
     run("1", "one.parquet", "one.json");
@@ -331,14 +325,14 @@ fn repeated_ids_are_found_across_parts_and_at_the_last_row() {
     let table = (ids, ks, ns);
     write_table(&dir.path().join("parts/part-0.parquet"), &table, 0..1200);
     write_table(&dir.path().join("parts/part-1.parquet"), &table, 1200..3000);
-    let out = ratepool(dir.path(), &stream_args("parts", "o.csv", "s.json"));
+    let out = ratepool(dir.path(), &fit_args("parts", "o.csv", "s.json"));
     let message = stderr(&out);
     assert_eq!(out.status.code(), Some(2), "{message}");
     assert!(message.contains("part-1.parquet: row 301, column 'id'"), "{message}");
     assert!(message.contains("duplicate group id 'g00010' (first at row 11 of"), "{message}");
     assert!(message.contains("part-0.parquet)"), "{message}");
     assert!(!dir.path().join("o.csv").exists() && !dir.path().join("s.json").exists());
-    let skip: Vec<&str> = stream_args("parts", "o.csv", "s.json")
+    let skip: Vec<&str> = fit_args("parts", "o.csv", "s.json")
         .into_iter()
         .chain(["--on-invalid", "skip", "--rejects", "r.csv", "--batch-rows", "512"])
         .collect();
@@ -377,7 +371,7 @@ fn a_null_integer_id_is_an_empty_field_in_the_rejects_of_every_input() {
     }
     std::fs::write(dir.path().join("in.csv"), text).unwrap();
     for (input, rejects) in [("in.parquet", "r-parquet.csv"), ("in.csv", "r-csv.csv")] {
-        let args: Vec<&str> = stream_args(input, "o.csv", "s.json")
+        let args: Vec<&str> = fit_args(input, "o.csv", "s.json")
             .into_iter()
             .chain(["--on-invalid", "skip", "--rejects", rejects])
             .collect();
@@ -386,4 +380,18 @@ fn a_null_integer_id_is_an_empty_field_in_the_rejects_of_every_input() {
     let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
     assert_eq!(read("r-parquet.csv"), read("r-csv.csv"));
     assert!(read("r-csv.csv").contains("\n8,,2,5,id,group id is missing\n"), "{}", read("r-csv.csv"));
+}
+
+/// `--stream`, which once chose the batched layout, is accepted from old
+/// scripts and changes nothing.
+#[test]
+fn the_old_stream_flag_is_accepted_and_changes_nothing() {
+    let dir = setup(false);
+    run_ok(dir.path(), &fit_args("parts", "plain.parquet", "plain.json"));
+    let old: Vec<&str> =
+        fit_args("parts", "old.parquet", "old.json").into_iter().chain(["--stream"]).collect();
+    run_ok(dir.path(), &old);
+    let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
+    assert_eq!(read("plain.parquet"), read("old.parquet"));
+    assert_eq!(summary(&dir.path().join("plain.json")), summary(&dir.path().join("old.json")));
 }
