@@ -4,7 +4,7 @@
 use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
-use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, Model, PriorSource};
+use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, Model, PriorSource, Thresholds};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
@@ -84,6 +84,14 @@ pub struct TableArgs {
     /// Summary file (JSON), written last.
     #[arg(long)]
     pub summary: Option<PathBuf>,
+    /// Add `prob_above`: each group's posterior probability that its rate exceeds T (a
+    /// proportion for the beta-binomial; for standardised ratios T = 1 asks whether the
+    /// relative risk exceeds one).
+    #[arg(long, value_name = "T", allow_negative_numbers = true)]
+    pub above: Option<f64>,
+    /// Add `prob_below`: each group's posterior probability that its rate is below T.
+    #[arg(long, value_name = "T", allow_negative_numbers = true)]
+    pub below: Option<f64>,
     /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
     #[arg(long, default_value_t = 0.95)]
     pub level: f64,
@@ -201,6 +209,21 @@ fn model_columns(table: &TableArgs, model: Model) -> Result<(String, String)> {
     Ok((column(terms.count_role)?, column(terms.size_role)?))
 }
 
+/// The exceedance thresholds, each finite and within the model's range of
+/// rates (a proportion from 0 to 1, or a rate of at least 0).
+fn thresholds(table: &TableArgs, model: Model) -> Result<Thresholds> {
+    let check = |value: Option<f64>, flag: &str| -> Result<Option<f64>> {
+        let Some(t) = value else { return Ok(None) };
+        let within = t.is_finite() && t >= 0.0 && (!model.terms().mean_below_one || t <= 1.0);
+        if within {
+            return Ok(Some(t));
+        }
+        let range = if model.terms().mean_below_one { "from 0 to 1" } else { "of at least 0" };
+        Err(Error::Usage(format!("--{flag} must be a rate {range} for the {} model, got {t}", model.name())))
+    };
+    Ok(Thresholds { above: check(table.above, "above")?, below: check(table.below, "below")? })
+}
+
 fn required(value: &Option<String>, flag: &str, model: Model) -> Result<String> {
     value.clone().ok_or_else(|| Error::Usage(format!("the {} model needs --{flag} COLUMN", model.name())))
 }
@@ -239,6 +262,7 @@ fn job_of(
         summary: table.summary.clone(),
         level: Level::new(table.level)?,
         delimiter: table.delimiter,
+        thresholds: thresholds(table, model)?,
         invalid,
         prior,
         timings: report.timings,

@@ -19,6 +19,16 @@ use validate::ColumnNames;
 
 pub use crate::core::model::Model;
 
+/// Rates whose exceedance probabilities are asked for: `above` adds
+/// P(rate > T | data) per group, `below` P(rate < T | data).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Thresholds {
+    /// T of `--above`.
+    pub above: Option<f64>,
+    /// T of `--below`.
+    pub below: Option<f64>,
+}
+
 /// A credible level strictly between 0 and 1.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Level(f64);
@@ -111,6 +121,8 @@ pub struct Job {
     pub level: Level,
     /// Field separator of CSV input.
     pub delimiter: u8,
+    /// Thresholds for the exceedance columns (`prob_above`, `prob_below`).
+    pub thresholds: Thresholds,
     /// Invalid-row policy.
     pub invalid: InvalidRows,
     /// Prior source.

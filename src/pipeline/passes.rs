@@ -284,8 +284,7 @@ fn score_and_write(
     let index = PairIndex::of_table(&scored.table);
     let furthest = scored.pull.max_shift_row.map(|p| p as u32);
     let mut max_shift_group = None;
-    let mut sink =
-        TableSink::create_scored(output, pair_columns(job, scored.table.pairs(), &scored.posteriors))?;
+    let mut sink = TableSink::create_scored(output, pair_columns(job, scored))?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
@@ -383,6 +382,7 @@ mod tests {
             summary: None,
             level: Level::new(0.95).unwrap(),
             delimiter: b',',
+            thresholds: Default::default(),
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,
             timings: false,

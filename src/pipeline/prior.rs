@@ -26,6 +26,10 @@ pub struct Scored {
     pub warnings: Vec<String>,
     /// How far the groups were pulled; `max_shift_row` indexes the pairs.
     pub pull: Pull,
+    /// P(rate > T of `--above`) per pair, when asked for.
+    pub prob_above: Option<Vec<f64>>,
+    /// P(rate < T of `--below`) per pair, when asked for.
+    pub prob_below: Option<Vec<f64>>,
 }
 
 /// Fits or loads the prior for `table` and scores every pair.
@@ -69,9 +73,14 @@ fn score_with<F: Family>(job: &Job, table: PairTable, clock: &mut PhaseClock) ->
     let tail = job.level.tail();
     let posteriors: Vec<Posterior> =
         table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
+    let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
+        table.pairs().par_iter().map(|p| F::rate_tails(&prior, p.size, p.count, threshold)).collect()
+    };
+    let prob_above = job.thresholds.above.map(|t| tails_at(t).into_iter().map(|(_, above)| above).collect());
+    let prob_below = job.thresholds.below.map(|t| tails_at(t).into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors");
     let pull = pull_of_pairs(&table, &posteriors);
-    Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings, pull })
+    Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings, pull, prob_above, prob_below })
 }
 
 fn fit_warnings(fitted: &Fit) -> Vec<String> {

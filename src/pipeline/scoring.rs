@@ -6,7 +6,7 @@ use super::validate::{cell_text, ColumnNames, Rejection};
 use super::Job;
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
-use crate::core::pairs::{PairTable, WeightedPair};
+use crate::core::pairs::PairTable;
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
@@ -17,7 +17,8 @@ use crate::report::{PullReport, Summary};
 /// of the table (every one is a function of the row's pair): the counts
 /// under their input names, the raw rate, the posterior summaries and
 /// parameters.
-pub fn pair_columns(job: &Job, pairs: &[WeightedPair], posteriors: &[Posterior]) -> PairColumns {
+pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
+    let (pairs, posteriors) = (scored.table.pairs(), &scored.posteriors[..]);
     let each = |f: &dyn Fn(&Posterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
     let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
         PairValues::OptionalFloats(posteriors.iter().map(f).collect())
@@ -33,7 +34,7 @@ pub fn pair_columns(job: &Job, pairs: &[WeightedPair], posteriors: &[Posterior])
         (format!("posterior_{}", terms.parameter_names[i]), values)
     };
     let raw = pairs.iter().map(|p| (p.size > 0.0).then(|| p.count / p.size)).collect();
-    vec![
+    let mut columns = vec![
         (job.columns.count.clone(), PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())),
         (job.columns.size.clone(), sizes),
         ("raw_rate".to_string(), PairValues::OptionalFloats(raw)),
@@ -44,7 +45,14 @@ pub fn pair_columns(job: &Job, pairs: &[WeightedPair], posteriors: &[Posterior])
         ("pool_weight".to_string(), each(&|p| p.pool_weight)),
         parameter(0),
         parameter(1),
-    ]
+    ];
+    let exceedance = [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)];
+    for (name, values) in exceedance {
+        if let Some(values) = values {
+            columns.push((name.to_string(), PairValues::Floats(values.clone())));
+        }
+    }
+    columns
 }
 
 /// Rejected rows gathered for the rejects table, as found in the input.

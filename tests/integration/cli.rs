@@ -332,3 +332,44 @@ fn a_complete_pooling_prior_scores_every_group_at_the_pooled_rate() {
     assert!(scored.floats("posterior_mean").iter().all(|&m| m == mean));
     assert_eq!(scored.rows, Csv::read(&dir.path().join("fit.csv")).rows);
 }
+
+#[test]
+fn exceedance_columns_are_complementary_and_a_point_mass_under_complete_pooling() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", GOOD);
+    let mut args = fit_args(&input, "out.csv");
+    args.extend(["--above", "0.3", "--below", "0.3"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let table = Csv::read(&dir.path().join("out.csv"));
+    assert_eq!(&table.header[table.header.len() - 2..], ["prob_above", "prob_below"]);
+    for (above, below) in table.floats("prob_above").iter().zip(table.floats("prob_below")) {
+        assert!((above + below - 1.0).abs() < 1e-12 && (0.0..=1.0).contains(above), "{above} + {below}");
+    }
+    // No overdispersion: the posterior is a point mass at the pooled rate.
+    let fixture_input = fixture("binomial_groups.csv");
+    let columns = ["--group", "unit", "--successes", "hits", "--trials", "tries", "--output", "pooled.csv"];
+    let mut pooled =
+        vec!["--quiet", "fit", "--model", "beta-binomial", "--input", fixture_input.to_str().unwrap()];
+    pooled.extend(columns);
+    pooled.extend(["--above", "0.05", "--summary", "p.json"]);
+    let out = ratepool(dir.path(), &pooled);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let mean = summary(&dir.path().join("p.json"))["hyperprior"]["mean"].as_f64().unwrap();
+    let expected = if mean > 0.05 { 1.0 } else { 0.0 };
+    assert!(Csv::read(&dir.path().join("pooled.csv")).floats("prob_above").iter().all(|&p| p == expected));
+}
+
+#[test]
+fn an_exceedance_threshold_outside_the_models_range_is_a_usage_error() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "in.csv", GOOD);
+    for (flag, value) in [("--above", "1.5"), ("--below", "-0.1"), ("--above", "NaN")] {
+        let mut args = fit_args(&input, "out.csv");
+        args.extend([flag, value]);
+        let out = ratepool(dir.path(), &args);
+        assert_eq!(out.status.code(), Some(2), "{flag} {value}");
+        assert!(stderr(&out).contains(flag.trim_start_matches('-')), "{}", stderr(&out));
+        assert_only_input(dir.path());
+    }
+}

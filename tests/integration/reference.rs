@@ -130,3 +130,41 @@ fn gamma_tails_at_large_shapes_match_mpmath() {
     }
     eprintln!("worst gamma tail error at large shapes {worst:e}");
 }
+
+/// `prob_below` and `prob_above` (each model's `rate_tails`) against mpmath
+/// at 50 digits (`scripts/make_exceedance_fixtures.py`): Beta shapes 1e-3 to
+/// 1e5 at proportions 1e-9 to 1 − 1e-6, Gamma shapes 1e-3 to 1e7 at 1e-6 to
+/// 10 times the mean. Bar: 1e-12 absolute and 1e-9 relative wherever the
+/// probability exceeds 1e-300.
+#[test]
+fn exceedance_probabilities_match_mpmath() {
+    use ratepool::core::model::{Family, Prior};
+    let fixture = json_fixture("exceedance.json");
+    let mut checked = 0;
+    let mut worst: f64 = 0.0;
+    let mut check = |got: f64, expected: f64, what: &str| {
+        if expected > 1e-300 {
+            let error = (got - expected).abs();
+            assert!(error <= 1e-12 && error <= 1e-9 * expected, "{what}: {got:e} against {expected:e}");
+            worst = worst.max(error / expected);
+            checked += 1;
+        }
+    };
+    for row in fixture["beta"].as_array().unwrap() {
+        let [a, b, t, below, above] = ["a", "b", "t", "below", "above"].map(|k| row[k].as_f64().unwrap());
+        let prior = Prior::Conjugate { natural: [a, b] };
+        let (got_below, got_above) = beta_binomial::BetaBinomial::rate_tails(&prior, 0.0, 0.0, t);
+        check(got_below, below, &format!("Beta({a}, {b}) below {t}"));
+        check(got_above, above, &format!("Beta({a}, {b}) above {t}"));
+    }
+    for row in fixture["gamma"].as_array().unwrap() {
+        let [shape, rate, t, below, above] =
+            ["shape", "rate", "t", "below", "above"].map(|k| row[k].as_f64().unwrap());
+        let prior = Prior::Conjugate { natural: [shape, rate] };
+        let (got_below, got_above) = gamma_poisson::GammaPoisson::rate_tails(&prior, 0.0, 0.0, t);
+        check(got_below, below, &format!("Gamma({shape}, {rate}) below {t}"));
+        check(got_above, above, &format!("Gamma({shape}, {rate}) above {t}"));
+    }
+    assert!(checked > 900, "only {checked} values checked");
+    println!("exceedance: {checked} values, worst relative error {worst:.2e}");
+}

@@ -11,7 +11,8 @@
 //! ln s use R(x, m) = ln Γ(x+m) − ln Γ(x) − m ln x style excesses while n ≤ s
 //! and plain digamma differences beyond (see `special`).
 
-use super::{Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
+use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
+use crate::core::incomplete::beta_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{beta_quantile, Tail};
 use crate::core::special::{
@@ -191,6 +192,16 @@ impl Family for BetaBinomial {
     fn mean_strength_jacobian(u: [f64; 2]) -> [[f64; 2]; 2] {
         let (mu, nu) = mean_and_complement(u[0]);
         [[mu * nu, 0.0], [0.0, u[1].exp()]]
+    }
+
+    fn rate_tails(prior: &Prior, n: f64, k: f64, threshold: f64) -> (f64, f64) {
+        match *prior {
+            Prior::CompletePooling { mean } => point_mass_tails(mean, threshold),
+            Prior::Conjugate { natural: [alpha, beta] } => {
+                let tails = beta_tails(alpha + k, beta + (n - k), threshold, 1.0 - threshold);
+                (tails.lower, tails.upper)
+            }
+        }
     }
 
     fn posterior(prior: &Prior, n: f64, k: f64, tail: f64) -> Posterior {

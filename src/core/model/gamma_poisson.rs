@@ -10,7 +10,8 @@
 //! is ln Poisson(y; λ) + R(a, y) − a[ln(1+t) − t] − y ln(1+t), each extra term
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
-use super::{Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
+use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
+use crate::core::incomplete::gamma_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
 use crate::core::special::{
@@ -171,6 +172,16 @@ impl Family for GammaPoisson {
     fn mean_strength_jacobian(u: [f64; 2]) -> [[f64; 2]; 2] {
         let b = (u[1] - u[0]).exp();
         [[u[0].exp(), 0.0], [-b, b]]
+    }
+
+    fn rate_tails(prior: &Prior, exposure: f64, y: f64, threshold: f64) -> (f64, f64) {
+        match *prior {
+            Prior::CompletePooling { mean } => point_mass_tails(mean, threshold),
+            Prior::Conjugate { natural: [shape, rate] } => {
+                let tails = gamma_tails(shape + y, (rate + exposure) * threshold.max(0.0));
+                (tails.lower, tails.upper)
+            }
+        }
     }
 
     fn posterior(prior: &Prior, exposure: f64, y: f64, tail: f64) -> Posterior {

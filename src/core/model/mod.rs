@@ -164,6 +164,11 @@ models! {
     GammaPoisson => gamma_poisson::GammaPoisson,
 }
 
+/// The tails of a point mass at `mean`: P(rate < t) and P(rate > t).
+pub fn point_mass_tails(mean: f64, threshold: f64) -> (f64, f64) {
+    (f64::from(u8::from(mean < threshold)), f64::from(u8::from(mean > threshold)))
+}
+
 impl Model {
     /// The model's name in files and on the command line.
     pub fn name(self) -> &'static str {
@@ -209,4 +214,9 @@ pub trait Family: Sync {
     /// Posterior summary of one pair under `prior`, with an equal-tailed
     /// interval leaving `tail` probability in each tail.
     fn posterior(prior: &Prior, size: f64, count: f64, tail: f64) -> Posterior;
+    /// P(rate < threshold) and P(rate > threshold) under the posterior of one
+    /// pair: exact tails of the posterior Beta or Gamma, each formed directly
+    /// where it is the smaller; 0 or 1 under complete pooling, where the
+    /// posterior is a point mass at the pooled rate.
+    fn rate_tails(prior: &Prior, size: f64, count: f64, threshold: f64) -> (f64, f64);
 }
