@@ -10,7 +10,7 @@
 //! of 3 rows (else the default), bit 3 skip bad rows. The rest is the file.
 
 use ratepool::pipeline::validate::ColumnNames;
-use ratepool::pipeline::{run, InvalidRows, Job, Layout, Level, Model, PriorSource, Thresholds};
+use ratepool::pipeline::{run, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder, Thresholds};
 
 /// Runs one input through the whole job and checks the contract.
 pub fn exercise(data: &[u8]) {
@@ -41,6 +41,7 @@ pub fn exercise(data: &[u8]) {
         level: Level::new(0.95).expect("valid level"),
         delimiter: b',',
         thresholds: Thresholds { above: Some(0.5), below: Some(0.25) },
+        ranks: Some(RankOrder::HighestFirst),
         invalid,
         prior: PriorSource::Fit,
         timings: false,

@@ -4,7 +4,9 @@
 use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
-use crate::pipeline::{load_summary, InvalidRows, Job, Layout, Level, Model, PriorSource, Thresholds};
+use crate::pipeline::{
+    load_summary, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder, Thresholds,
+};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
@@ -92,6 +94,15 @@ pub struct TableArgs {
     /// Add `prob_below`: each group's posterior probability that its rate is below T.
     #[arg(long, value_name = "T", allow_negative_numbers = true)]
     pub below: Option<f64>,
+    /// Add `rank_mean` (1 = highest posterior mean) and `rank_conservative` (1 = highest lower
+    /// interval bound: a group must be reliably high to rank high), over the whole table; ties
+    /// take the lowest rank of the tie (1, 2, 2, 4).
+    #[arg(long)]
+    pub ranks: bool,
+    /// Rank the lowest rates first (implies --ranks; the conservative rank then orders by the
+    /// upper interval bound), for rates where low is good.
+    #[arg(long)]
+    pub rank_lowest_first: bool,
     /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
     #[arg(long, default_value_t = 0.95)]
     pub level: f64,
@@ -263,6 +274,11 @@ fn job_of(
         level: Level::new(table.level)?,
         delimiter: table.delimiter,
         thresholds: thresholds(table, model)?,
+        ranks: match (table.ranks, table.rank_lowest_first) {
+            (_, true) => Some(RankOrder::LowestFirst),
+            (true, false) => Some(RankOrder::HighestFirst),
+            (false, false) => None,
+        },
         invalid,
         prior,
         timings: report.timings,

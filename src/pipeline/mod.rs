@@ -29,6 +29,15 @@ pub struct Thresholds {
     pub below: Option<f64>,
 }
 
+/// Which end of the rates ranks first, when ranks are asked for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RankOrder {
+    /// Rank 1 is the highest rate (the conservative rank orders by the lower interval bound).
+    HighestFirst,
+    /// Rank 1 is the lowest rate (the conservative rank orders by the upper interval bound).
+    LowestFirst,
+}
+
 /// A credible level strictly between 0 and 1.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Level(f64);
@@ -123,6 +132,8 @@ pub struct Job {
     pub delimiter: u8,
     /// Thresholds for the exceedance columns (`prob_above`, `prob_below`).
     pub thresholds: Thresholds,
+    /// Rank columns (`rank_mean`, `rank_conservative`), when asked for.
+    pub ranks: Option<RankOrder>,
     /// Invalid-row policy.
     pub invalid: InvalidRows,
     /// Prior source.

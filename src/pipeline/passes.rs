@@ -383,6 +383,7 @@ mod tests {
             level: Level::new(0.95).unwrap(),
             delimiter: b',',
             thresholds: Default::default(),
+            ranks: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,
             timings: false,

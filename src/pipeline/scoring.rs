@@ -3,7 +3,7 @@
 
 use super::prior::Scored;
 use super::validate::{cell_text, ColumnNames, Rejection};
-use super::Job;
+use super::{Job, RankOrder};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
 use crate::core::pairs::PairTable;
@@ -46,6 +46,22 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         parameter(0),
         parameter(1),
     ];
+    if let Some(order) = job.ranks {
+        let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
+        let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
+        let bounds: Vec<f64> = match order {
+            RankOrder::HighestFirst => posteriors.iter().map(|p| p.lower).collect(),
+            RankOrder::LowestFirst => posteriors.iter().map(|p| p.upper).collect(),
+        };
+        columns.push((
+            "rank_mean".to_string(),
+            PairValues::Integers(competition_ranks(&means, &weights, order)),
+        ));
+        columns.push((
+            "rank_conservative".to_string(),
+            PairValues::Integers(competition_ranks(&bounds, &weights, order)),
+        ));
+    }
     let exceedance = [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)];
     for (name, values) in exceedance {
         if let Some(values) = values {
@@ -53,6 +69,33 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         }
     }
     columns
+}
+
+/// The rank of each pair's groups among all groups by `values` (the value
+/// per pair; `weights` groups share each pair): 1 + the number of groups
+/// with a strictly better value, so ties take the lowest rank of the tie
+/// (1, 2, 2, 4). Better is higher for [`RankOrder::HighestFirst`].
+pub fn competition_ranks(values: &[f64], weights: &[f64], order: RankOrder) -> Vec<i64> {
+    let mut by_rank: Vec<usize> = (0..values.len()).collect();
+    let better = |x: &usize, y: &usize| match order {
+        RankOrder::HighestFirst => values[*y].total_cmp(&values[*x]),
+        RankOrder::LowestFirst => values[*x].total_cmp(&values[*y]),
+    };
+    by_rank.sort_by(better);
+    let mut ranks = vec![0i64; values.len()];
+    let (mut ahead, mut start) = (0.0, 0);
+    while start < by_rank.len() {
+        let value = values[by_rank[start]];
+        // The tie holds at least its first pair (a NaN equals nothing).
+        let end = start + 1 + by_rank[start + 1..].iter().take_while(|&&i| values[i] == value).count();
+        let tie_weight: f64 = by_rank[start..end].iter().map(|&i| weights[i]).sum();
+        for &i in &by_rank[start..end] {
+            ranks[i] = ahead as i64 + 1;
+        }
+        ahead += tie_weight;
+        start = end;
+    }
+    ranks
 }
 
 /// Rejected rows gathered for the rejects table, as found in the input.
@@ -160,4 +203,17 @@ pub fn commit_outputs(job: &Job, summary: &Summary, mut staged: StagedOutputs) -
         staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
     }
     staged.commit()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn ties_take_the_lowest_rank_of_the_tie_counting_groups() {
+        let (values, weights) = ([0.5, 0.9, 0.5, 0.1], [1.0, 2.0, 1.0, 1.0]);
+        assert_eq!(competition_ranks(&values, &weights, RankOrder::HighestFirst), vec![3, 1, 3, 5]);
+        assert_eq!(competition_ranks(&values, &weights, RankOrder::LowestFirst), vec![2, 4, 2, 1]);
+        assert_eq!(competition_ranks(&[f64::NAN, 1.0], &[1.0, 1.0], RankOrder::HighestFirst).len(), 2);
+    }
 }

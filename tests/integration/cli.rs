@@ -373,3 +373,46 @@ fn an_exceedance_threshold_outside_the_models_range_is_a_usage_error() {
         assert_only_input(dir.path());
     }
 }
+
+/// Ranks by their definition, computed here row by row from the output:
+/// 1 + the number of groups with a strictly better value.
+#[test]
+fn ranks_count_the_groups_strictly_ahead_in_either_direction() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = fixture("beta_binomial_groups.csv");
+    let header = std::fs::read_to_string(&input).unwrap().lines().next().unwrap().to_string();
+    let columns: Vec<&str> = header.split(',').collect();
+    for (flag, lowest_first) in [("--ranks", false), ("--rank-lowest-first", true)] {
+        let args = [
+            "--quiet",
+            "fit",
+            "--model",
+            "beta-binomial",
+            "--input",
+            input.to_str().unwrap(),
+            "--group",
+            columns[0],
+            "--successes",
+            columns[1],
+            "--trials",
+            columns[2],
+            "--output",
+            "ranked.csv",
+            flag,
+        ];
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        let table = Csv::read(&dir.path().join("ranked.csv"));
+        let bound = if lowest_first { "interval_hi" } else { "interval_lo" };
+        for (values, ranks) in [("posterior_mean", "rank_mean"), (bound, "rank_conservative")] {
+            let values = table.floats(values);
+            let ranks = table.floats(ranks);
+            for (value, rank) in values.iter().zip(&ranks) {
+                let ahead =
+                    values.iter().filter(|v| if lowest_first { *v < value } else { *v > value }).count();
+                assert_eq!(*rank, (ahead + 1) as f64, "{flag}: {value}");
+            }
+            assert!(ranks.contains(&1.0));
+        }
+    }
+}
