@@ -42,6 +42,7 @@ pub fn exercise(data: &[u8]) {
         delimiter: b',',
         thresholds: Thresholds { above: Some(0.5), below: Some(0.25) },
         ranks: Some(RankOrder::HighestFirst),
+        pair_output: None,
         invalid,
         prior: PriorSource::Fit,
         timings: false,

@@ -83,6 +83,11 @@ pub struct TableArgs {
     /// Output table (.csv or .parquet), written atomically (not with --pair-counts).
     #[arg(long)]
     pub output: Option<PathBuf>,
+    /// Also write one row per distinct (size, count) pair with the number of groups sharing it
+    /// and every per-pair output column (.csv or .parquet), to join back to the rows on the two
+    /// count columns in a warehouse.
+    #[arg(long, value_name = "FILE")]
+    pub pair_output: Option<PathBuf>,
     /// Summary file (JSON), written last.
     #[arg(long)]
     pub summary: Option<PathBuf>,
@@ -174,11 +179,15 @@ fn parse_delimiter(text: &str) -> std::result::Result<u8, String> {
 fn refuse_overlaps(table: &TableArgs, prior: Option<&PathBuf>) -> Result<()> {
     let mut inputs = vec![RunPath { option: "--input", path: &table.input }];
     inputs.extend(prior.map(|path| RunPath { option: "--prior", path }));
-    let outputs: Vec<RunPath<'_>> =
-        [("--output", &table.output), ("--summary", &table.summary), ("--rejects", &table.rejects)]
-            .into_iter()
-            .filter_map(|(option, path)| path.as_deref().map(|path| RunPath { option, path }))
-            .collect();
+    let outputs: Vec<RunPath<'_>> = [
+        ("--output", &table.output),
+        ("--summary", &table.summary),
+        ("--rejects", &table.rejects),
+        ("--pair-output", &table.pair_output),
+    ]
+    .into_iter()
+    .filter_map(|(option, path)| path.as_deref().map(|path| RunPath { option, path }))
+    .collect();
     crate::io::overlap::refuse_overlaps(&inputs, &outputs)
 }
 
@@ -264,6 +273,9 @@ fn job_of(
             return Err(Error::Usage("--on-invalid skip needs --rejects FILE".to_string()))
         }
     };
+    if let Some(path) = &table.pair_output {
+        crate::io::TableFormat::from_path(path)?;
+    }
     let (group, layout) = layout_of(table, pair_counts)?;
     Ok(Job {
         input: table.input.clone(),
@@ -274,6 +286,7 @@ fn job_of(
         level: Level::new(table.level)?,
         delimiter: table.delimiter,
         thresholds: thresholds(table, model)?,
+        pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),
             (true, false) => Some(RankOrder::HighestFirst),

@@ -98,6 +98,16 @@ impl PairValues {
         }
     }
 
+    /// The values as an output column, one row per pair.
+    pub fn into_column(self) -> crate::io::sink::ColumnValues {
+        use crate::io::sink::ColumnValues;
+        match self {
+            PairValues::Integers(v) => ColumnValues::Integers(v),
+            PairValues::Floats(v) => ColumnValues::Floats(v),
+            PairValues::OptionalFloats(v) => ColumnValues::OptionalFloats(v),
+        }
+    }
+
     /// The number of pairs held.
     pub fn len(&self) -> usize {
         match self {

@@ -134,6 +134,8 @@ pub struct Job {
     pub thresholds: Thresholds,
     /// Rank columns (`rank_mean`, `rank_conservative`), when asked for.
     pub ranks: Option<RankOrder>,
+    /// Where to write one row per distinct pair with every per-pair column.
+    pub pair_output: Option<PathBuf>,
     /// Invalid-row policy.
     pub invalid: InvalidRows,
     /// Prior source.

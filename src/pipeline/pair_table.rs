@@ -4,7 +4,7 @@
 //! (the prior, reusable by `score`) is written.
 
 use super::prior::score_pairs;
-use super::scoring::{commit_outputs, summarise, RowCounts};
+use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts};
 use super::validate::{check_values, group_count};
 use super::{no_data_rows, roles, size_kind, Job, PhaseClock, DEFAULT_BATCH_ROWS};
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -46,6 +46,8 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     clock.lap("read and validate");
     let scored = score_pairs(job, PairTable::from_weighted(pairs), &mut clock)?;
     let summary = summarise(job, RowCounts { read: rows as u64, rejected: 0 }, &scored, None);
-    commit_outputs(job, &summary, Default::default())?;
+    let mut staged = Default::default();
+    stage_pair_output(job, &scored, &mut staged)?;
+    commit_outputs(job, &summary, staged)?;
     Ok(summary)
 }

@@ -15,7 +15,7 @@
 
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::{score_pairs, Scored};
-use super::scoring::{commit_outputs, pair_columns, summarise, RejectRows, RowCounts};
+use super::scoring::{commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, Model, PhaseClock};
 use crate::core::pairs::{PairCounter, PairIndex};
@@ -154,6 +154,8 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     clock.lap("pass 2: read, score, write");
     let counts = RowCounts { read: rows as u64, rejected: first.rejected as u64 };
     let summary = summarise(job, counts, &scored, max_shift_group);
+    let mut staged = staged;
+    stage_pair_output(job, &scored, &mut staged)?;
     commit_outputs(job, &summary, staged)?;
     Ok(summary)
 }
@@ -384,6 +386,7 @@ mod tests {
             delimiter: b',',
             thresholds: Default::default(),
             ranks: None,
+            pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,
             timings: false,

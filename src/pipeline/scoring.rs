@@ -98,6 +98,29 @@ pub fn competition_ranks(values: &[f64], weights: &[f64], order: RankOrder) -> V
     ranks
 }
 
+/// The pair posterior table: one row per distinct pair with the number of
+/// groups sharing it and every per-pair output column, for joining back to
+/// the rows on the two count columns.
+pub fn pair_table_columns(job: &Job, scored: &Scored) -> Columns {
+    let mut columns: Columns = Vec::new();
+    for (i, (name, values)) in pair_columns(job, scored).into_iter().enumerate() {
+        columns.push((name, values.into_column()));
+        if i == 1 {
+            let weights = scored.table.pairs().iter().map(|p| p.weight as i64).collect();
+            columns.push(("group_count".to_string(), ColumnValues::Integers(weights)));
+        }
+    }
+    columns
+}
+
+/// Stages the pair posterior table, when one was asked for.
+pub fn stage_pair_output(job: &Job, scored: &Scored, staged: &mut StagedOutputs) -> Result<()> {
+    if let Some(path) = &job.pair_output {
+        staged.add(crate::io::sink::write_table(pair_table_columns(job, scored), path)?);
+    }
+    Ok(())
+}
+
 /// Rejected rows gathered for the rejects table, as found in the input.
 #[derive(Default)]
 pub struct RejectRows {

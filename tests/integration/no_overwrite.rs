@@ -171,3 +171,13 @@ fn semicolon_and_tab_separated_input_read_with_delimiter() {
     assert!(stderr(&tab).contains("--delimiter tab"), "{}", stderr(&tab));
     assert!(!dir.path().join("x.csv").exists());
 }
+
+#[test]
+fn a_pair_output_naming_another_file_of_the_run_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "g.csv", GOOD);
+    let args = fit("g.csv", &["--output", "o.csv", "--pair-output", "./o.csv"]);
+    assert_clobber_refused(dir.path(), &args, ["--output", "--pair-output"]);
+    let args = fit("g.csv", &["--output", "o.csv", "--pair-output", "g.csv"]);
+    assert_clobber_refused(dir.path(), &args, ["--input", "--pair-output"]);
+}

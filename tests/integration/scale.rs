@@ -395,3 +395,46 @@ fn the_old_stream_flag_is_accepted_and_changes_nothing() {
     assert_eq!(read("plain.parquet"), read("old.parquet"));
     assert_eq!(summary(&dir.path().join("plain.json")), summary(&dir.path().join("old.json")));
 }
+
+/// `--pair-output`: one row per distinct pair. Joined back to the rows on
+/// the two counts it gives each row's own output, value for value; from the
+/// DuckDB-made pair table of the demo marketplace (`--pair-counts`, no pass
+/// over the rows) it is the same file as from the rows themselves.
+#[test]
+fn the_pair_output_joins_back_to_the_row_output_and_needs_no_rows() {
+    let dir = tempfile::tempdir().unwrap();
+    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data").join("marketplace.csv");
+    let columns =
+        ["--successes", "positive_ratings", "--trials", "total_ratings", "--above", "0.9", "--ranks"];
+    let rows: Vec<&str> = ["--quiet", "fit", "--model", "beta-binomial", "--input", demo.to_str().unwrap()]
+        .into_iter()
+        .chain(["--group", "seller_id", "--output", "rows.csv", "--pair-output", "pairs.csv"])
+        .chain(columns)
+        .collect();
+    run_ok(dir.path(), &rows);
+    let demo_pairs = fixture("marketplace_pairs.csv");
+    let from_pairs: Vec<&str> =
+        ["--quiet", "fit", "--model", "beta-binomial", "--input", demo_pairs.to_str().unwrap()]
+            .into_iter()
+            .chain(["--pair-counts", "sellers", "--summary", "p.json", "--pair-output", "pairs-only.csv"])
+            .chain(columns)
+            .collect();
+    run_ok(dir.path(), &from_pairs);
+    let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
+    assert_eq!(read("pairs.csv"), read("pairs-only.csv"), "the pair table alone gives the same pair output");
+    let (rows, pairs) = (
+        crate::util::Csv::read(&dir.path().join("rows.csv")),
+        crate::util::Csv::read(&dir.path().join("pairs.csv")),
+    );
+    assert_eq!(pairs.header[2], "group_count");
+    let by_pair: std::collections::HashMap<(String, String), &Vec<String>> =
+        pairs.rows.iter().map(|r| ((r[0].clone(), r[1].clone()), r)).collect();
+    assert_eq!(by_pair.len(), pairs.rows.len(), "one row per pair");
+    let groups: i64 = pairs.column("group_count").iter().map(|g| g.parse::<i64>().unwrap()).sum();
+    assert_eq!(groups as usize, rows.rows.len());
+    for row in &rows.rows {
+        let pair = by_pair[&(row[1].clone(), row[2].clone())];
+        // The row: group, counts, then the per-pair columns; the pair row: counts, group_count, the same.
+        assert_eq!(&row[3..], &pair[3..], "row {row:?}");
+    }
+}
