@@ -135,6 +135,14 @@ impl Input {
         }
     }
 
+    /// Rows in the input when known before reading it (Parquet footers), not for CSV.
+    pub fn known_rows(&self) -> Option<usize> {
+        match self {
+            Input::Parquet(parts) => Some(parts.files().map(|(_, rows)| rows).sum()),
+            Input::Csv { .. } => None,
+        }
+    }
+
     /// True when the input is a folder of parts (messages then name the part).
     pub fn has_parts(&self) -> bool {
         matches!(self, Input::Parquet(parts) if parts.is_folder())

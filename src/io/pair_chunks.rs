@@ -55,9 +55,9 @@ impl PairValues {
     /// PLAIN bytes of the values of `pairs` (a placeholder 0 where null:
     /// never referenced), with the statistics of the non-null ones.
     fn dictionary(&self, pairs: &[u32], null_count: u64) -> (Vec<u8>, Statistics) {
-        let mut bytes = Vec::with_capacity(pairs.len() * 8);
         match self {
             PairValues::Integers(v) => {
+                let mut bytes = Vec::with_capacity(pairs.len() * 8);
                 let (mut low, mut high) = (i64::MAX, i64::MIN);
                 for &p in pairs {
                     let x = v[p as usize];
@@ -76,24 +76,9 @@ impl PairValues {
                     ),
                 )
             }
-            PairValues::Floats(_) | PairValues::OptionalFloats(_) => {
-                let (mut low, mut high): (Option<f64>, Option<f64>) = (None, None);
-                for &p in pairs {
-                    let x = match self {
-                        PairValues::Floats(v) => Some(v[p as usize]),
-                        PairValues::OptionalFloats(v) => v[p as usize],
-                        PairValues::Integers(_) => unreachable!("handled above"),
-                    };
-                    if let Some(x) = x.filter(|x| !x.is_nan()) {
-                        low = Some(low.map_or(x, |l| l.min(x)));
-                        high = Some(high.map_or(x, |h| h.max(x)));
-                    }
-                    bytes.extend_from_slice(&x.unwrap_or(0.0).to_le_bytes());
-                }
-                // Parquet writes -0.0 as the smallest and +0.0 as the largest zero.
-                let low = low.map(|l| if l == 0.0 { -0.0 } else { l });
-                let high = high.map(|h| if h == 0.0 { 0.0 } else { h });
-                (bytes, Statistics::double(low, high, None, Some(null_count), false))
+            PairValues::Floats(v) => float_dictionary(pairs.iter().map(|&p| Some(v[p as usize])), null_count),
+            PairValues::OptionalFloats(v) => {
+                float_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
             }
         }
     }
@@ -121,6 +106,27 @@ impl PairValues {
     pub fn is_empty(&self) -> bool {
         self.len() == 0
     }
+}
+
+/// PLAIN bytes of float dictionary values (a placeholder 0 where null: never
+/// referenced), with the statistics of the non-null, non-NaN ones.
+fn float_dictionary(
+    values: impl ExactSizeIterator<Item = Option<f64>>,
+    null_count: u64,
+) -> (Vec<u8>, Statistics) {
+    let mut bytes = Vec::with_capacity(values.len() * 8);
+    let (mut low, mut high): (Option<f64>, Option<f64>) = (None, None);
+    for x in values {
+        if let Some(x) = x.filter(|x| !x.is_nan()) {
+            low = Some(low.map_or(x, |l| l.min(x)));
+            high = Some(high.map_or(x, |h| h.max(x)));
+        }
+        bytes.extend_from_slice(&x.unwrap_or(0.0).to_le_bytes());
+    }
+    // Parquet writes -0.0 as the smallest and +0.0 as the largest zero.
+    let low = low.map(|l| if l == 0.0 { -0.0 } else { l });
+    let high = high.map(|h| if h == 0.0 { 0.0 } else { h });
+    (bytes, Statistics::double(low, high, None, Some(null_count), false))
 }
 
 /// Appends `value` as an unsigned LEB128 varint.

@@ -21,9 +21,7 @@ use arrow_array::types::{Float64Type, Int64Type};
 use arrow_array::{Array, ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
 use arrow_schema::SchemaRef;
 use arrow_schema::{DataType, Field, Schema};
-use parquet::arrow::arrow_writer::{
-    compute_leaves, ArrowColumnChunk, ArrowColumnWriter, ArrowRowGroupWriterFactory,
-};
+use parquet::arrow::arrow_writer::{compute_leaves, ArrowColumnWriter, ArrowRowGroupWriterFactory};
 use parquet::arrow::ArrowWriter;
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::column::writer::ColumnCloseResult;
@@ -45,17 +43,8 @@ pub const CHUNK_ROWS: usize = 1 << 16;
 
 /// arrow-rs's Parquet writer, fed in chunks of exactly [`CHUNK_ROWS`] rows
 /// (the last one shorter), so the bytes do not depend on the batches given.
-/// The columns of each chunk are encoded in parallel (rayon), each by its
-/// own column writer, and appended to the row group in schema order: the
-/// bytes are those of encoding them one after another.
 pub struct ParquetChunks {
-    file_writer: SerializedFileWriter<File>,
-    factory: ArrowRowGroupWriterFactory,
-    schema: SchemaRef,
-    /// The column writers of the row group being written.
-    columns: Option<Vec<ArrowColumnWriter>>,
-    row_groups: usize,
-    rows_in_group: usize,
+    writer: ArrowWriter<File>,
     pending: Vec<RecordBatch>,
     pending_rows: usize,
 }
@@ -66,50 +55,8 @@ impl ParquetChunks {
             .set_compression(Compression::ZSTD(ZstdLevel::default()))
             .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
             .build();
-        let (file_writer, factory) =
-            ArrowWriter::try_new(file, schema.clone(), Some(props))?.into_serialized_writer()?;
-        Ok(ParquetChunks {
-            file_writer,
-            factory,
-            schema,
-            columns: None,
-            row_groups: 0,
-            rows_in_group: 0,
-            pending: Vec::new(),
-            pending_rows: 0,
-        })
-    }
-
-    /// Encodes one chunk, its columns in parallel.
-    fn encode(&mut self, chunk: &RecordBatch) -> parquet::errors::Result<()> {
-        if self.columns.is_none() {
-            self.columns = Some(self.factory.create_column_writers(self.row_groups)?);
-        }
-        let mut leaves = Vec::with_capacity(chunk.num_columns());
-        for (field, column) in self.schema.fields().iter().zip(chunk.columns()) {
-            leaves.extend(compute_leaves(field, column)?);
-        }
-        let writers = self.columns.as_mut().expect("made above");
-        writers.par_iter_mut().zip(leaves.par_iter()).try_for_each(|(writer, leaf)| writer.write(leaf))?;
-        self.rows_in_group += chunk.num_rows();
-        if self.rows_in_group >= ROW_GROUP_ROWS {
-            self.close_row_group()?;
-        }
-        Ok(())
-    }
-
-    fn close_row_group(&mut self) -> parquet::errors::Result<()> {
-        let Some(writers) = self.columns.take() else { return Ok(()) };
-        let chunks: Vec<ArrowColumnChunk> =
-            writers.into_par_iter().map(ArrowColumnWriter::close).collect::<parquet::errors::Result<_>>()?;
-        let mut row_group = self.file_writer.next_row_group()?;
-        for chunk in chunks {
-            chunk.append_to_row_group(&mut row_group)?;
-        }
-        row_group.close()?;
-        self.row_groups += 1;
-        self.rows_in_group = 0;
-        Ok(())
+        let writer = ArrowWriter::try_new(file, schema, Some(props))?;
+        Ok(ParquetChunks { writer, pending: Vec::new(), pending_rows: 0 })
     }
 
     fn write(&mut self, batch: RecordBatch) -> std::result::Result<(), String> {
@@ -131,7 +78,7 @@ impl ParquetChunks {
         let written = if all { rows } else { rows / CHUNK_ROWS * CHUNK_ROWS };
         for offset in (0..written).step_by(CHUNK_ROWS) {
             let chunk = held.slice(offset, CHUNK_ROWS.min(written - offset));
-            self.encode(&chunk).map_err(|e| e.to_string())?;
+            self.writer.write(&chunk).map_err(|e| e.to_string())?;
         }
         self.pending = vec![held.slice(written, rows - written)];
         self.pending_rows = rows - written;
@@ -140,8 +87,7 @@ impl ParquetChunks {
 
     fn close(mut self) -> std::result::Result<(), String> {
         self.drain(true)?;
-        self.close_row_group().map_err(|e| e.to_string())?;
-        self.file_writer.close().map(|_| ()).map_err(|e| e.to_string())
+        self.writer.close().map(|_| ()).map_err(|e| e.to_string())
     }
 }
 

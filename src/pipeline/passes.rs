@@ -23,7 +23,6 @@ use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch};
-use crate::io::parquet_input::ParquetParts;
 use crate::io::sink::TableSink;
 use crate::report::Summary;
 use arrow_array::ArrayRef;
@@ -111,17 +110,6 @@ struct PassOne {
     ids: IdHashes,
 }
 
-fn known_rows(input: &Input) -> Option<usize> {
-    match input {
-        Input::Parquet(parts) => Some(parts_rows(parts)),
-        Input::Csv { .. } => None,
-    }
-}
-
-fn parts_rows(parts: &ParquetParts) -> usize {
-    parts.files().map(|(_, rows)| rows).sum()
-}
-
 /// Runs a job over any input, two passes of `batch_rows` rows.
 pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     let mut clock = PhaseClock::start(job);
@@ -163,7 +151,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
 /// Pass 1: the pair counts of the valid rows, rows read and rejected, the
 /// first row fault, and a hash of every group id.
 fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassOne> {
-    let total = known_rows(input);
+    let total = input.known_rows();
     let mut pass = PassOne {
         pairs: PairCounter::default(),
         rows: 0,

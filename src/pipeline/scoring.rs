@@ -102,14 +102,13 @@ pub fn competition_ranks(values: &[f64], weights: &[f64], order: RankOrder) -> V
 /// groups sharing it and every per-pair output column, for joining back to
 /// the rows on the two count columns.
 pub fn pair_table_columns(job: &Job, scored: &Scored) -> Columns {
-    let mut columns: Columns = Vec::new();
-    for (i, (name, values)) in pair_columns(job, scored).into_iter().enumerate() {
-        columns.push((name, values.into_column()));
-        if i == 1 {
-            let weights = scored.table.pairs().iter().map(|p| p.weight as i64).collect();
-            columns.push(("group_count".to_string(), ColumnValues::Integers(weights)));
-        }
-    }
+    let mut columns: Columns =
+        pair_columns(job, scored).into_iter().map(|(name, values)| (name, values.into_column())).collect();
+    // The two count columns come first; the group count follows them.
+    let rest = columns.split_off(2);
+    let weights = scored.table.pairs().iter().map(|p| p.weight as i64).collect();
+    columns.push(("group_count".to_string(), ColumnValues::Integers(weights)));
+    columns.extend(rest);
     columns
 }
 
