@@ -10,7 +10,9 @@
 //! of 3 rows (else the default), bit 3 skip bad rows. The rest is the file.
 
 use ratepool::pipeline::validate::ColumnNames;
-use ratepool::pipeline::{run, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder, Thresholds};
+use ratepool::pipeline::{
+    run, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder, Thresholds,
+};
 
 /// Runs one input through the whole job and checks the contract.
 pub fn exercise(data: &[u8]) {
@@ -42,6 +44,7 @@ pub fn exercise(data: &[u8]) {
         delimiter: b',',
         thresholds: Thresholds { above: Some(0.5), below: Some(0.25) },
         ranks: Some(RankOrder::HighestFirst),
+        flag_fdr: Some(FlagRule { event: FlagEvent::Above, bound: 0.1 }),
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -40,6 +40,8 @@ def same(csv_value, value):
         return value is None
     if isinstance(value, str):
         return csv_value == value
+    if isinstance(value, bool):
+        return csv_value == ("true" if value else "false")
     if isinstance(value, int) and not isinstance(value, bool):
         return int(csv_value) == value
     return float(csv_value) == value or (math.isnan(float(csv_value)) and math.isnan(value))
@@ -61,15 +63,17 @@ def check(parquet_path, csv_path, label):
             for name in names:
                 if not same(want[name], got[name]):
                     raise SystemExit(f"{label} {reader}: row {i + 1} {name}: {got[name]!r} != {want[name]!r}")
-    total = duckdb.sql(f"SELECT count(*), count(raw_rate) FROM '{parquet_path}'").fetchall()[0]
+    total = duckdb.sql(
+        f"SELECT count(*), count(raw_rate), count(*) FILTER (WHERE flagged) FROM '{parquet_path}'"
+    ).fetchall()[0]
     print(f"{label}: pyarrow, polars and DuckDB read {len(expected)} rows equal to the CSV output; "
-          f"DuckDB counts {total[0]} rows, {total[0] - total[1]} null raw rates")
+          f"DuckDB counts {total[0]} rows, {total[0] - total[1]} null raw rates, {total[2]} flagged")
 
 
 def main():
     with tempfile.TemporaryDirectory() as tmp:
         demo = ["--model", "beta-binomial", "--group", "seller_id", "--successes", "positive_ratings",
-                "--trials", "total_ratings"]
+                "--trials", "total_ratings", "--above", "0.95", "--flag-fdr", "0.1", "--ranks"]
         for ext in ("parquet", "csv"):
             run("demo-data/marketplace.csv", os.path.join(tmp, f"demo.{ext}"), demo)
         check(os.path.join(tmp, "demo.parquet"), os.path.join(tmp, "demo.csv"), "demo marketplace")
@@ -81,7 +85,8 @@ def main():
             for i in range(1_200_000):
                 n = rng.choice([0, 1, 2, 3, 5, 8, 13, 40, 200])
                 f.write(f"g{i},{rng.randint(0, n)},{n}\n")
-        args = ["--model", "beta-binomial", "--group", "id", "--successes", "k", "--trials", "n"]
+        args = ["--model", "beta-binomial", "--group", "id", "--successes", "k", "--trials", "n",
+                "--below", "0.3", "--flag-fdr", "0.2"]
         for ext in ("parquet", "csv"):
             run(invented, os.path.join(tmp, f"invented.{ext}"), args)
         check(os.path.join(tmp, "invented.parquet"), os.path.join(tmp, "invented.csv"), "invented 1.2M rows")

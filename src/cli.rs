@@ -5,7 +5,8 @@ use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
-    load_summary, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder, Thresholds,
+    load_summary, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder,
+    Thresholds,
 };
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -99,6 +100,12 @@ pub struct TableArgs {
     /// Add `prob_below`: each group's posterior probability that its rate is below T.
     #[arg(long, value_name = "T", allow_negative_numbers = true)]
     pub below: Option<f64>,
+    /// Add `flagged` and `flag_fdr` for the event of --above or --below (give one of them):
+    /// the groups most probably showing the event are flagged, as many as keep the mean
+    /// posterior probability of no event among them at most Q (a Bayesian false-discovery
+    /// rate); `flag_fdr` is the smallest Q that flags the group.
+    #[arg(long, value_name = "Q")]
+    pub flag_fdr: Option<f64>,
     /// Add `rank_mean` (1 = highest posterior mean) and `rank_conservative` (1 = highest lower
     /// interval bound: a group must be reliably high to rank high), over the whole table; ties
     /// take the lowest rank of the tie (1, 2, 2, 4).
@@ -244,6 +251,31 @@ fn thresholds(table: &TableArgs, model: Model) -> Result<Thresholds> {
     Ok(Thresholds { above: check(table.above, "above")?, below: check(table.below, "below")? })
 }
 
+/// The flag rule of `--flag-fdr Q`: Q strictly between 0 and 1, for the
+/// event of the one threshold given.
+fn flag_rule(table: &TableArgs) -> Result<Option<FlagRule>> {
+    let Some(bound) = table.flag_fdr else { return Ok(None) };
+    if !(bound > 0.0 && bound < 1.0) {
+        return Err(Error::Usage(format!("--flag-fdr must be strictly between 0 and 1, got {bound}")));
+    }
+    let event = match (table.above, table.below) {
+        (Some(_), None) => FlagEvent::Above,
+        (None, Some(_)) => FlagEvent::Below,
+        (None, None) => {
+            return Err(Error::Usage(
+                "--flag-fdr needs the event to flag: --above T or --below T".to_string(),
+            ))
+        }
+        (Some(_), Some(_)) => {
+            return Err(Error::Usage(
+                "--flag-fdr flags one event: give --above T or --below T, not both (run twice for both)"
+                    .to_string(),
+            ))
+        }
+    };
+    Ok(Some(FlagRule { event, bound }))
+}
+
 fn required(value: &Option<String>, flag: &str, model: Model) -> Result<String> {
     value.clone().ok_or_else(|| Error::Usage(format!("the {} model needs --{flag} COLUMN", model.name())))
 }
@@ -286,6 +318,7 @@ fn job_of(
         level: Level::new(table.level)?,
         delimiter: table.delimiter,
         thresholds: thresholds(table, model)?,
+        flag_fdr: flag_rule(table)?,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),

@@ -25,8 +25,38 @@ pub struct Summary {
     pub fit: FitReport,
     /// How far the groups were pulled toward the pool.
     pub pull: PullReport,
+    /// The thresholds of the exceedance columns, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub thresholds: Option<ThresholdReport>,
+    /// The flags under a posterior false-discovery rate, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub flags: Option<FlagReport>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// The thresholds T of `prob_above` (P(rate > T)) and `prob_below` (P(rate < T)).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ThresholdReport {
+    /// T of `prob_above`.
+    pub above: Option<f64>,
+    /// T of `prob_below`.
+    pub below: Option<f64>,
+}
+
+/// What was flagged, and how many flags are expected to be false.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FlagReport {
+    /// "above" or "below": the event flagged.
+    pub event: String,
+    /// The threshold of the event.
+    pub threshold: f64,
+    /// Q: the bound on the mean posterior probability of no event among the flagged.
+    pub bound: f64,
+    /// Groups flagged.
+    pub groups_flagged: u64,
+    /// The expected number of flagged groups where the event does not hold.
+    pub expected_false_flags: f64,
 }
 
 /// The prior, in the parameters of its model.
@@ -273,6 +303,13 @@ pub fn render_text(summary: &Summary) -> String {
         pull.max_shift_group.as_deref().unwrap_or("n/a"),
         show(pull.rank_correlation)
     );
+    if let Some(flags) = &summary.flags {
+        let _ = writeln!(
+            out,
+            "  flags        {} groups flagged {} {} at Q = {} (expected false flags {:.3})",
+            flags.groups_flagged, flags.event, flags.threshold, flags.bound, flags.expected_false_flags
+        );
+    }
     for warning in &summary.warnings {
         let _ = writeln!(out, "  warning      {warning}");
     }

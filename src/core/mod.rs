@@ -7,5 +7,6 @@ pub mod incomplete;
 pub mod model;
 pub mod pairs;
 pub mod quantile;
+pub mod ranking;
 pub mod special;
 pub mod temme;

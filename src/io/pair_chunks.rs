@@ -40,6 +40,9 @@ pub enum PairValues {
     Floats(Vec<f64>),
     /// Numbers, absent for some pairs.
     OptionalFloats(Vec<Option<f64>>),
+    /// Yes or no (written PLAIN, one bit a row: Parquet has no dictionary
+    /// encoding for booleans).
+    Booleans(Vec<bool>),
 }
 
 impl PairValues {
@@ -80,6 +83,7 @@ impl PairValues {
             PairValues::OptionalFloats(v) => {
                 float_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
             }
+            PairValues::Booleans(_) => unreachable!("booleans are written without a dictionary"),
         }
     }
 
@@ -90,6 +94,7 @@ impl PairValues {
             PairValues::Integers(v) => ColumnValues::Integers(v),
             PairValues::Floats(v) => ColumnValues::Floats(v),
             PairValues::OptionalFloats(v) => ColumnValues::OptionalFloats(v),
+            PairValues::Booleans(v) => ColumnValues::Booleans(v),
         }
     }
 
@@ -99,6 +104,7 @@ impl PairValues {
             PairValues::Integers(v) => v.len(),
             PairValues::Floats(v) => v.len(),
             PairValues::OptionalFloats(v) => v.len(),
+            PairValues::Booleans(v) => v.len(),
         }
     }
 
@@ -250,72 +256,153 @@ impl RowGroupPairs {
         values: &PairValues,
         descr: ColumnDescPtr,
     ) -> Result<(Bytes, ColumnCloseResult)> {
+        if let PairValues::Booleans(flags) = values {
+            return self.encode_booleans(flags, descr);
+        }
         let null_local: Vec<bool> = self.pairs.iter().map(|&p| values.is_null(p as usize)).collect();
         let any_null = null_local.contains(&true);
         let nulls = if any_null { self.rows.iter().filter(|&&l| null_local[l as usize]).count() } else { 0 };
         let (dictionary, statistics) = values.dictionary(&self.pairs, nulls as u64);
-        let mut sink = TrackedWrite::new(Vec::new());
-        let mut specs = Vec::new();
-        {
-            let mut pages = SerializedPageWriter::new(&mut sink);
-            let compressed = compress(&dictionary)?;
-            let page = Page::DictionaryPage {
-                buf: Bytes::from(compressed),
-                num_values: self.pairs.len() as u32,
-                encoding: Encoding::PLAIN,
-                is_sorted: false,
-            };
-            specs.push(pages.write_page(CompressedPage::new(page, dictionary.len()))?);
-            for (i, page_rows) in self.rows.chunks(PAGE_ROWS).enumerate() {
-                let page_nulls =
-                    if any_null { page_rows.iter().filter(|&&l| null_local[l as usize]).count() } else { 0 };
-                let mut levels = Vec::new();
-                if values.nullable() && page_nulls == 0 {
-                    definition_levels(std::iter::repeat_n(true, page_rows.len()), &mut levels);
-                } else if values.nullable() {
-                    definition_levels(page_rows.iter().map(|&l| !null_local[l as usize]), &mut levels);
-                }
-                let (values_part, raw_size) = if page_nulls == 0 {
-                    self.shared_pages[i].clone()
-                } else {
-                    let present = page_rows.iter().copied().filter(|&l| !null_local[l as usize]);
-                    Self::encode_indices(present, page_rows.len() - page_nulls, self.width)?
-                };
-                let levels_len = levels.len();
-                let mut buf = levels;
-                buf.extend_from_slice(&values_part);
-                let page = Page::DataPageV2 {
-                    buf: Bytes::from(buf),
-                    num_values: page_rows.len() as u32,
-                    encoding: Encoding::RLE_DICTIONARY,
-                    num_nulls: page_nulls as u32,
-                    num_rows: page_rows.len() as u32,
-                    def_levels_byte_len: levels_len as u32,
-                    rep_levels_byte_len: 0,
-                    is_compressed: true,
-                    statistics: None,
-                };
-                specs.push(pages.write_page(CompressedPage::new(page, levels_len + raw_size))?);
+        let mut pages = ChunkPages::new();
+        let page = Page::DictionaryPage {
+            buf: Bytes::from(compress(&dictionary)?),
+            num_values: self.pairs.len() as u32,
+            encoding: Encoding::PLAIN,
+            is_sorted: false,
+        };
+        pages.write(CompressedPage::new(page, dictionary.len()))?;
+        for (i, page_rows) in self.rows.chunks(PAGE_ROWS).enumerate() {
+            let page_nulls =
+                if any_null { page_rows.iter().filter(|&&l| null_local[l as usize]).count() } else { 0 };
+            let mut levels = Vec::new();
+            if values.nullable() && page_nulls == 0 {
+                definition_levels(std::iter::repeat_n(true, page_rows.len()), &mut levels);
+            } else if values.nullable() {
+                definition_levels(page_rows.iter().map(|&l| !null_local[l as usize]), &mut levels);
             }
-            pages.close()?;
+            let (values_part, raw_size) = if page_nulls == 0 {
+                self.shared_pages[i].clone()
+            } else {
+                let present = page_rows.iter().copied().filter(|&l| !null_local[l as usize]);
+                Self::encode_indices(present, page_rows.len() - page_nulls, self.width)?
+            };
+            pages.write_data(
+                values_part,
+                raw_size,
+                levels,
+                page_rows.len(),
+                page_nulls,
+                Encoding::RLE_DICTIONARY,
+            )?;
         }
-        let bytes = sink.into_inner()?;
+        let encodings = vec![Encoding::PLAIN, Encoding::RLE, Encoding::RLE_DICTIONARY];
+        pages.finish(descr, self.rows.len(), encodings, statistics)
+    }
+
+    /// A boolean column: PLAIN pages of one bit a row, least significant first.
+    fn encode_booleans(&self, flags: &[bool], descr: ColumnDescPtr) -> Result<(Bytes, ColumnCloseResult)> {
+        let local: Vec<bool> = self.pairs.iter().map(|&p| flags[p as usize]).collect();
+        let mut pages = ChunkPages::new();
+        let (mut any_false, mut any_true) = (false, false);
+        for page_rows in self.rows.chunks(PAGE_ROWS) {
+            let mut bits = vec![0u8; page_rows.len().div_ceil(8)];
+            for (row, &l) in page_rows.iter().enumerate() {
+                let flag = local[l as usize];
+                (any_false, any_true) = (any_false || !flag, any_true || flag);
+                bits[row / 8] |= u8::from(flag) << (row % 8);
+            }
+            let raw_size = bits.len();
+            pages.write_data(
+                Bytes::from(compress(&bits)?),
+                raw_size,
+                Vec::new(),
+                page_rows.len(),
+                0,
+                Encoding::PLAIN,
+            )?;
+        }
+        let some = !self.rows.is_empty();
+        let statistics =
+            Statistics::boolean(some.then_some(!any_false), some.then_some(any_true), None, Some(0), false);
+        pages.finish(descr, self.rows.len(), vec![Encoding::PLAIN], statistics)
+    }
+}
+
+/// The pages of one column chunk, written in memory in order.
+struct ChunkPages {
+    sink: TrackedWrite<Vec<u8>>,
+    specs: Vec<parquet::column::page::PageWriteSpec>,
+    has_dictionary: bool,
+}
+
+impl ChunkPages {
+    fn new() -> Self {
+        ChunkPages { sink: TrackedWrite::new(Vec::new()), specs: Vec::new(), has_dictionary: false }
+    }
+
+    fn write(&mut self, page: CompressedPage) -> Result<()> {
+        self.has_dictionary |=
+            self.specs.is_empty() && matches!(page.compressed_page(), Page::DictionaryPage { .. });
+        let mut writer = SerializedPageWriter::new(&mut self.sink);
+        self.specs.push(writer.write_page(page)?);
+        writer.close()
+    }
+
+    /// A format v2 data page: `levels` (uncompressed definition levels, empty
+    /// for a required column) then `values` (compressed, `raw_size` bytes before).
+    fn write_data(
+        &mut self,
+        values: Bytes,
+        raw_size: usize,
+        levels: Vec<u8>,
+        rows: usize,
+        nulls: usize,
+        encoding: Encoding,
+    ) -> Result<()> {
+        let levels_len = levels.len();
+        let mut buf = levels;
+        buf.extend_from_slice(&values);
+        let page = Page::DataPageV2 {
+            buf: Bytes::from(buf),
+            num_values: rows as u32,
+            encoding,
+            num_nulls: nulls as u32,
+            num_rows: rows as u32,
+            def_levels_byte_len: levels_len as u32,
+            rep_levels_byte_len: 0,
+            is_compressed: true,
+            statistics: None,
+        };
+        self.write(CompressedPage::new(page, levels_len + raw_size))
+    }
+
+    /// The chunk's bytes and what the row group writer needs to splice them in.
+    fn finish(
+        self,
+        descr: ColumnDescPtr,
+        rows: usize,
+        encodings: Vec<Encoding>,
+        statistics: Statistics,
+    ) -> Result<(Bytes, ColumnCloseResult)> {
+        let specs = self.specs;
+        let bytes = self.sink.into_inner()?;
         let compressed: u64 = specs.iter().map(|s| s.bytes_written).sum();
         let uncompressed: usize =
             specs.iter().map(|s| s.uncompressed_size + (s.bytes_written as usize - s.compressed_size)).sum();
+        let first_data = usize::from(self.has_dictionary);
         let metadata = ColumnChunkMetaData::builder(descr)
             .set_compression(Compression::ZSTD(ZstdLevel::try_new(ZSTD_LEVEL)?))
-            .set_encodings(vec![Encoding::PLAIN, Encoding::RLE, Encoding::RLE_DICTIONARY])
-            .set_num_values(self.rows.len() as i64)
+            .set_encodings(encodings)
+            .set_num_values(rows as i64)
             .set_total_compressed_size(compressed as i64)
             .set_total_uncompressed_size(uncompressed as i64)
-            .set_dictionary_page_offset(Some(0))
-            .set_data_page_offset(specs[1].offset as i64)
+            .set_dictionary_page_offset(self.has_dictionary.then_some(0))
+            .set_data_page_offset(specs[first_data].offset as i64)
             .set_statistics(statistics)
             .build()?;
         let close = ColumnCloseResult {
             bytes_written: compressed,
-            rows_written: self.rows.len() as u64,
+            rows_written: rows as u64,
             metadata,
             bloom_filter: None,
             column_index: None,

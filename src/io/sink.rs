@@ -18,7 +18,7 @@ use super::TableFormat;
 use crate::error::{Error, Result};
 use arrow_array::cast::AsArray;
 use arrow_array::types::{Float64Type, Int64Type};
-use arrow_array::{Array, ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
+use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, Int64Array, RecordBatch, StringArray};
 use arrow_schema::SchemaRef;
 use arrow_schema::{DataType, Field, Schema};
 use parquet::arrow::arrow_writer::{compute_leaves, ArrowColumnWriter, ArrowRowGroupWriterFactory};
@@ -102,7 +102,9 @@ pub enum ColumnValues {
     OptionalFloats(Vec<Option<f64>>),
     /// Text.
     Texts(Vec<String>),
-    /// Values already in a column (64-bit integers, 64-bit floats or text).
+    /// Yes or no.
+    Booleans(Vec<bool>),
+    /// Values already in a column (64-bit integers, 64-bit floats, booleans or text).
     Arrow(ArrayRef),
 }
 
@@ -114,6 +116,7 @@ impl ColumnValues {
             ColumnValues::Floats(v) => v.len(),
             ColumnValues::OptionalFloats(v) => v.len(),
             ColumnValues::Texts(v) => v.len(),
+            ColumnValues::Booleans(v) => v.len(),
             ColumnValues::Arrow(v) => v.len(),
         }
     }
@@ -129,6 +132,7 @@ impl ColumnValues {
             ColumnValues::Floats(v) => Arc::new(Float64Array::from(v)),
             ColumnValues::OptionalFloats(v) => Arc::new(Float64Array::from(v)),
             ColumnValues::Texts(v) => Arc::new(StringArray::from(v)),
+            ColumnValues::Booleans(v) => Arc::new(BooleanArray::from(v)),
             ColumnValues::Arrow(v) => v,
         }
     }
@@ -171,6 +175,10 @@ impl CsvWriter {
             DataType::Float64 => {
                 let x = column.as_primitive::<Float64Type>().value(row);
                 out.extend_from_slice(ryu::Buffer::new().format(x).as_bytes())
+            }
+            DataType::Boolean => {
+                let yes = column.as_boolean().value(row);
+                out.extend_from_slice(if yes { b"true" } else { b"false" })
             }
             _ => Self::text(out, column.as_string::<i32>().value(row)),
         }
@@ -239,6 +247,7 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
         PairValues::OptionalFloats(v) => {
             ColumnValues::OptionalFloats(pair_of_row.iter().map(|i| v[at(i)]).collect())
         }
+        PairValues::Booleans(v) => ColumnValues::Booleans(pair_of_row.iter().map(|i| v[at(i)]).collect()),
     }
 }
 
@@ -266,8 +275,11 @@ impl ScoredParquet {
     fn new(file: File, group_field: Field, pair_columns: Arc<PairColumns>) -> parquet::errors::Result<Self> {
         let mut fields = vec![group_field.clone()];
         fields.extend(pair_columns.iter().map(|(name, values)| {
-            let dtype =
-                if matches!(values, PairValues::Integers(_)) { DataType::Int64 } else { DataType::Float64 };
+            let dtype = match values {
+                PairValues::Integers(_) => DataType::Int64,
+                PairValues::Booleans(_) => DataType::Boolean,
+                PairValues::Floats(_) | PairValues::OptionalFloats(_) => DataType::Float64,
+            };
             Field::new(name, dtype, values.nullable())
         }));
         let props = WriterProperties::builder()

@@ -18,6 +18,7 @@ use std::time::{Duration, Instant};
 use validate::ColumnNames;
 
 pub use crate::core::model::Model;
+pub use crate::core::ranking::RankOrder;
 
 /// Rates whose exceedance probabilities are asked for: `above` adds
 /// P(rate > T | data) per group, `below` P(rate < T | data).
@@ -29,13 +30,22 @@ pub struct Thresholds {
     pub below: Option<f64>,
 }
 
-/// Which end of the rates ranks first, when ranks are asked for.
+/// Which exceedance event a flag is about.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum RankOrder {
-    /// Rank 1 is the highest rate (the conservative rank orders by the lower interval bound).
-    HighestFirst,
-    /// Rank 1 is the lowest rate (the conservative rank orders by the upper interval bound).
-    LowestFirst,
+pub enum FlagEvent {
+    /// The rate exceeds the T of `--above`.
+    Above,
+    /// The rate is below the T of `--below`.
+    Below,
+}
+
+/// Flags under a posterior false-discovery rate (`--flag-fdr Q`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FlagRule {
+    /// The event flagged.
+    pub event: FlagEvent,
+    /// Q: the largest mean posterior probability of no event among the flagged.
+    pub bound: f64,
 }
 
 /// A credible level strictly between 0 and 1.
@@ -134,6 +144,8 @@ pub struct Job {
     pub thresholds: Thresholds,
     /// Rank columns (`rank_mean`, `rank_conservative`), when asked for.
     pub ranks: Option<RankOrder>,
+    /// Flags under a posterior false-discovery rate, when asked for.
+    pub flag_fdr: Option<FlagRule>,
     /// Where to write one row per distinct pair with every per-pair column.
     pub pair_output: Option<PathBuf>,
     /// Invalid-row policy.

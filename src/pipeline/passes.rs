@@ -374,6 +374,7 @@ mod tests {
             delimiter: b',',
             thresholds: Default::default(),
             ranks: None,
+            flag_fdr: None,
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

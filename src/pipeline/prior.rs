@@ -2,11 +2,12 @@
 //! and the posterior of every distinct pair under it.
 
 use super::scoring::pull_of_pairs;
-use super::{Job, Model, PhaseClock, PriorSource};
+use super::{FlagEvent, Job, Model, PhaseClock, PriorSource};
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{fit, Boundary, Fit, FitFailure};
 use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, Unidentifiable};
 use crate::core::pairs::PairTable;
+use crate::core::ranking::{posterior_fdr_flags, FdrFlags};
 use crate::error::{Error, Result};
 use crate::report::{FitReport, Hyperprior, HyperpriorParts, Summary, TestReport};
 use rayon::prelude::*;
@@ -30,6 +31,8 @@ pub struct Scored {
     pub prob_above: Option<Vec<f64>>,
     /// P(rate < T of `--below`) per pair, when asked for.
     pub prob_below: Option<Vec<f64>>,
+    /// Flags under the posterior false-discovery rate of `--flag-fdr`.
+    pub flags: Option<FdrFlags>,
 }
 
 /// Fits or loads the prior for `table` and scores every pair.
@@ -76,11 +79,31 @@ fn score_with<F: Family>(job: &Job, table: PairTable, clock: &mut PhaseClock) ->
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
         table.pairs().par_iter().map(|p| F::rate_tails(&prior, p.size, p.count, threshold)).collect()
     };
-    let prob_above = job.thresholds.above.map(|t| tails_at(t).into_iter().map(|(_, above)| above).collect());
-    let prob_below = job.thresholds.below.map(|t| tails_at(t).into_iter().map(|(below, _)| below).collect());
+    let (above, below) = (job.thresholds.above.map(tails_at), job.thresholds.below.map(tails_at));
+    let flags = job.flag_fdr.map(|rule| {
+        // The probability of no event, from the other tail (not 1 − P(event)).
+        let no_event: Vec<f64> = match rule.event {
+            FlagEvent::Above => above.iter().flatten().map(|&(below, _)| below).collect(),
+            FlagEvent::Below => below.iter().flatten().map(|&(_, above)| above).collect(),
+        };
+        let weights: Vec<f64> = table.pairs().iter().map(|p| p.weight).collect();
+        posterior_fdr_flags(&no_event, &weights, rule.bound)
+    });
+    let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
+    let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors");
     let pull = pull_of_pairs(&table, &posteriors);
-    Ok(Scored { table, posteriors, hyperprior, fit: fit_report, warnings, pull, prob_above, prob_below })
+    Ok(Scored {
+        table,
+        posteriors,
+        hyperprior,
+        fit: fit_report,
+        warnings,
+        pull,
+        prob_above,
+        prob_below,
+        flags,
+    })
 }
 
 fn fit_warnings(fitted: &Fit) -> Vec<String> {

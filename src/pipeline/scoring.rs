@@ -3,15 +3,16 @@
 
 use super::prior::Scored;
 use super::validate::{cell_text, ColumnNames, Rejection};
-use super::{Job, RankOrder};
+use super::{FlagEvent, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
 use crate::core::pairs::PairTable;
+use crate::core::ranking::{competition_ranks, RankOrder};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues};
-use crate::report::{PullReport, Summary};
+use crate::report::{FlagReport, PullReport, Summary, ThresholdReport};
 
 /// The output columns after the group column, each as its value per pair
 /// of the table (every one is a function of the row's pair): the counts
@@ -68,34 +69,11 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
             columns.push((name.to_string(), PairValues::Floats(values.clone())));
         }
     }
-    columns
-}
-
-/// The rank of each pair's groups among all groups by `values` (the value
-/// per pair; `weights` groups share each pair): 1 + the number of groups
-/// with a strictly better value, so ties take the lowest rank of the tie
-/// (1, 2, 2, 4). Better is higher for [`RankOrder::HighestFirst`].
-pub fn competition_ranks(values: &[f64], weights: &[f64], order: RankOrder) -> Vec<i64> {
-    let mut by_rank: Vec<usize> = (0..values.len()).collect();
-    let better = |x: &usize, y: &usize| match order {
-        RankOrder::HighestFirst => values[*y].total_cmp(&values[*x]),
-        RankOrder::LowestFirst => values[*x].total_cmp(&values[*y]),
-    };
-    by_rank.sort_by(better);
-    let mut ranks = vec![0i64; values.len()];
-    let (mut ahead, mut start) = (0.0, 0);
-    while start < by_rank.len() {
-        let value = values[by_rank[start]];
-        // The tie holds at least its first pair (a NaN equals nothing).
-        let end = start + 1 + by_rank[start + 1..].iter().take_while(|&&i| values[i] == value).count();
-        let tie_weight: f64 = by_rank[start..end].iter().map(|&i| weights[i]).sum();
-        for &i in &by_rank[start..end] {
-            ranks[i] = ahead as i64 + 1;
-        }
-        ahead += tie_weight;
-        start = end;
+    if let Some(flags) = &scored.flags {
+        columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
+        columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr.clone())));
     }
-    ranks
+    columns
 }
 
 /// The pair posterior table: one row per distinct pair with the number of
@@ -211,6 +189,23 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, max_shift_group: O
             max_shift_group,
             rank_correlation: p.rank_correlation,
         },
+        thresholds: (job.thresholds != Thresholds::default())
+            .then_some(ThresholdReport { above: job.thresholds.above, below: job.thresholds.below }),
+        flags: job.flag_fdr.zip(scored.flags.as_ref()).map(|(rule, flags)| FlagReport {
+            event: match rule.event {
+                FlagEvent::Above => "above",
+                FlagEvent::Below => "below",
+            }
+            .to_string(),
+            threshold: match rule.event {
+                FlagEvent::Above => job.thresholds.above,
+                FlagEvent::Below => job.thresholds.below,
+            }
+            .expect("a flag rule has its threshold"),
+            bound: rule.bound,
+            groups_flagged: flags.groups_flagged as u64,
+            expected_false_flags: flags.expected_false,
+        }),
         warnings,
     }
 }
@@ -225,17 +220,4 @@ pub fn commit_outputs(job: &Job, summary: &Summary, mut staged: StagedOutputs) -
         staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
     }
     staged.commit()
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn ties_take_the_lowest_rank_of_the_tie_counting_groups() {
-        let (values, weights) = ([0.5, 0.9, 0.5, 0.1], [1.0, 2.0, 1.0, 1.0]);
-        assert_eq!(competition_ranks(&values, &weights, RankOrder::HighestFirst), vec![3, 1, 3, 5]);
-        assert_eq!(competition_ranks(&values, &weights, RankOrder::LowestFirst), vec![2, 4, 2, 1]);
-        assert_eq!(competition_ranks(&[f64::NAN, 1.0], &[1.0, 1.0], RankOrder::HighestFirst).len(), 2);
-    }
 }

@@ -1,0 +1,100 @@
+//! Decisions over the scored table: flags under the posterior
+//! false-discovery rate, checked against a reference computed outside
+//! ratepool, and the refusals of bad requests.
+
+use crate::util::{json_fixture, ratepool, stderr, summary, write, Csv};
+use serde_json::Value;
+use std::path::Path;
+
+/// The column options of a model in the fixtures' CSV (`id,count,size`).
+fn column_args(model: &str) -> [&'static str; 4] {
+    match model {
+        "beta-binomial" => ["--successes", "count", "--trials", "size"],
+        _ => ["--events", "count", "--exposure", "size"],
+    }
+}
+
+/// A summary holding `prior` for `model`, made by fitting the groups and
+/// replacing the fitted prior's two parameters.
+fn saved_prior(dir: &Path, model: &str, prior: &[f64]) -> String {
+    let mut args = vec!["fit", "--model", model, "--input", "groups.csv", "--group", "id"];
+    args.extend(column_args(model));
+    args.extend(["--output", "fitted.csv", "--summary", "fitted.json", "--quiet"]);
+    let out = ratepool(dir, &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let mut saved = summary(&dir.join("fitted.json"));
+    let names = if model == "beta-binomial" { ["alpha", "beta"] } else { ["shape", "rate"] };
+    for (name, value) in names.iter().zip(prior) {
+        saved["hyperprior"][*name] = Value::from(*value);
+    }
+    write(dir, "prior.json", &saved.to_string())
+}
+
+#[test]
+fn flags_match_the_direct_posterior_probability_rule_computed_with_scipy() {
+    // Source: tests/fixtures/flags.json, written by scripts/make_flag_fixtures.py:
+    // scipy.stats tail probabilities at a fixed prior and the rule of Newton,
+    // Noueiry, Sarkar and Ahlquist (Biostatistics 2004) in numpy.
+    for case in json_fixture("flags.json")["cases"].as_array().unwrap() {
+        let dir = tempfile::tempdir().unwrap();
+        let model = case["model"].as_str().unwrap();
+        let (counts, sizes) = (case["counts"].as_array().unwrap(), case["sizes"].as_array().unwrap());
+        let mut text = String::from("id,count,size\n");
+        for (i, (count, size)) in counts.iter().zip(sizes).enumerate() {
+            text.push_str(&format!("g{i},{count},{size}\n"));
+        }
+        write(dir.path(), "groups.csv", &text);
+        let prior: Vec<f64> = case["prior"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+        let prior_file = saved_prior(dir.path(), model, &prior);
+        let (event, threshold, bound) = (
+            format!("--{}", case["event"].as_str().unwrap()),
+            case["threshold"].as_f64().unwrap().to_string(),
+            case["bound"].as_f64().unwrap().to_string(),
+        );
+        let mut args = vec!["score", "--prior", &prior_file, "--input", "groups.csv", "--group", "id"];
+        args.extend(column_args(model));
+        args.extend([event.as_str(), &threshold, "--flag-fdr", &bound]);
+        args.extend(["--output", "scored.csv", "--summary", "scored.json", "--quiet"]);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        let table = Csv::read(&dir.path().join("scored.csv"));
+        let expected_flags: Vec<String> =
+            case["flagged"].as_array().unwrap().iter().map(|f| f.as_bool().unwrap().to_string()).collect();
+        assert_eq!(table.column("flagged"), expected_flags, "{}", case["name"]);
+        for (got, want) in table.floats("flag_fdr").iter().zip(case["flag_fdr"].as_array().unwrap()) {
+            let want = want.as_f64().unwrap();
+            assert!((got - want).abs() <= 1e-12, "{}: flag_fdr {got} vs {want}", case["name"]);
+        }
+        let report = &summary(&dir.path().join("scored.json"))["flags"];
+        let flagged = expected_flags.iter().filter(|f| *f == "true").count() as u64;
+        assert_eq!(report["groups_flagged"].as_u64(), Some(flagged), "{}", case["name"]);
+        assert!(flagged > 0, "{}: the case flags something", case["name"]);
+        // The expected false flags are the flagged groups' probabilities of
+        // no event: their mean is at most Q.
+        let expected_false = report["expected_false_flags"].as_f64().unwrap();
+        assert!(expected_false / flagged as f64 <= case["bound"].as_f64().unwrap());
+    }
+}
+
+#[test]
+fn a_flag_needs_exactly_one_event_and_a_bound_strictly_between_0_and_1() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "groups.csv", "id,count,size\na,1,4\nb,3,9\nc,0,2\nd,7,10\n");
+    let base = ["fit", "--model", "beta-binomial", "--input", "groups.csv", "--group", "id"];
+    let refusals: [(&[&str], &str); 4] = [
+        (&["--flag-fdr", "0.1"], "--flag-fdr needs the event to flag"),
+        (&["--flag-fdr", "0.1", "--above", "0.5", "--below", "0.2"], "not both"),
+        (&["--flag-fdr", "0", "--above", "0.5"], "strictly between 0 and 1"),
+        (&["--flag-fdr", "1.5", "--above", "0.5"], "strictly between 0 and 1"),
+    ];
+    for (extra, message) in refusals {
+        let mut args = base.to_vec();
+        args.extend(column_args("beta-binomial"));
+        args.extend(["--output", "out.csv"]);
+        args.extend(extra);
+        let out = ratepool(dir.path(), &args);
+        assert_eq!(out.status.code(), Some(2), "{extra:?}");
+        assert!(stderr(&out).contains(message), "{extra:?}: {}", stderr(&out));
+        assert!(!dir.path().join("out.csv").exists());
+    }
+}
