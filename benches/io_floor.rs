@@ -96,7 +96,7 @@ fn copy(input: &str, id: &str, count: &str, size: &str, output: &str) {
                     (key as u64 % STAND_IN_PAIRS as u64) as u32
                 })
                 .collect();
-            sink.write_scored(id, group.take(&rows), &pair_of_row)
+            sink.write_scored(vec![(id.to_string(), group.take(&rows))], &pair_of_row)
         })
         .expect("rows copied");
     sink.finish().and_then(|sealed| sealed.persist()).expect("output written");

@@ -45,6 +45,8 @@ pub fn exercise(data: &[u8]) {
         thresholds: Thresholds { above: Some(0.5), below: Some(0.25) },
         ranks: Some(RankOrder::HighestFirst),
         flag_fdr: Some(FlagRule { event: FlagEvent::Above, bound: 0.1 }),
+        segments: Vec::new(),
+        min_groups: ratepool::pipeline::DEFAULT_MIN_GROUPS,
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -100,6 +100,14 @@ pub struct TableArgs {
     /// Add `prob_below`: each group's posterior probability that its rate is below T.
     #[arg(long, value_name = "T", allow_negative_numbers = true)]
     pub below: Option<f64>,
+    /// Fit one prior per segment: the rows sharing the values of these columns (comma-separated
+    /// names). The segment columns are written beside the group id, and `prior_fallback` says
+    /// which rows took the prior fitted to all groups.
+    #[arg(long, value_name = "COLUMN[,COLUMN...]", value_delimiter = ',')]
+    pub by: Vec<String>,
+    /// A segment with fewer groups takes the prior fitted to all groups (with --by).
+    #[arg(long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_MIN_GROUPS)]
+    pub min_groups: usize,
     /// Add `flagged` and `flag_fdr` for the event of --above or --below (give one of them):
     /// the groups most probably showing the event are flagged, as many as keep the mean
     /// posterior probability of no event among them at most Q (a Bayesian false-discovery
@@ -251,6 +259,25 @@ fn thresholds(table: &TableArgs, model: Model) -> Result<Thresholds> {
     Ok(Thresholds { above: check(table.above, "above")?, below: check(table.below, "below")? })
 }
 
+/// The segment columns of `--by`: each named once, and none of the other
+/// columns in play.
+fn segment_columns(table: &TableArgs, others: [&String; 3]) -> Result<Vec<String>> {
+    for (i, column) in table.by.iter().enumerate() {
+        if column.is_empty() {
+            return Err(Error::Usage("--by has an empty column name".to_string()));
+        }
+        if table.by[..i].contains(column) {
+            return Err(Error::Usage(format!("--by names the column '{column}' twice")));
+        }
+        if others.contains(&column) {
+            return Err(Error::Usage(format!(
+                "--by cannot name '{column}': it is already the group or a count column"
+            )));
+        }
+    }
+    Ok(table.by.clone())
+}
+
 /// The flag rule of `--flag-fdr Q`: Q strictly between 0 and 1, for the
 /// event of the one threshold given.
 fn flag_rule(table: &TableArgs) -> Result<Option<FlagRule>> {
@@ -309,6 +336,7 @@ fn job_of(
         crate::io::TableFormat::from_path(path)?;
     }
     let (group, layout) = layout_of(table, pair_counts)?;
+    let segments = segment_columns(table, [&group, &count, &size])?;
     Ok(Job {
         input: table.input.clone(),
         model,
@@ -319,6 +347,8 @@ fn job_of(
         delimiter: table.delimiter,
         thresholds: thresholds(table, model)?,
         flag_fdr: flag_rule(table)?,
+        segments,
+        min_groups: table.min_groups,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),

@@ -25,6 +25,15 @@ pub struct Summary {
     pub fit: FitReport,
     /// How far the groups were pulled toward the pool.
     pub pull: PullReport,
+    /// The segment columns of `--by` (empty: one prior for all groups).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub segment_columns: Vec<String>,
+    /// Per segment: its key, groups, prior, fit, pull and fallback reason.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub segments: Vec<SegmentReport>,
+    /// One prior for all groups against one per segment.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub segment_test: Option<SegmentTest>,
     /// The thresholds of the exceedance columns, when asked for.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub thresholds: Option<ThresholdReport>,
@@ -33,6 +42,36 @@ pub struct Summary {
     pub flags: Option<FlagReport>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// One segment of a run with `--by`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SegmentReport {
+    /// Segment column to value (null for a null value).
+    pub key: std::collections::BTreeMap<String, Option<String>>,
+    /// Groups in the segment.
+    pub groups: u64,
+    /// The prior its groups were scored with (the all-groups prior on a fallback).
+    pub hyperprior: Hyperprior,
+    /// Its own fit; null when it fell back to the all-groups prior.
+    pub fit: Option<FitReport>,
+    /// How far its groups were pulled.
+    pub pull: PullReport,
+    /// Why it took the all-groups prior; null when it has its own.
+    pub fallback: Option<String>,
+}
+
+/// A likelihood-ratio test of one prior for all groups against one per segment.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SegmentTest {
+    /// What is tested.
+    pub name: String,
+    /// Twice the gain in log marginal likelihood.
+    pub statistic: f64,
+    /// Degrees of freedom of the chi-square reference.
+    pub degrees_of_freedom: u64,
+    /// Upper tail of the chi-square distribution at the statistic.
+    pub p_value: f64,
 }
 
 /// The thresholds T of `prob_above` (P(rate > T)) and `prob_below` (P(rate < T)).
@@ -303,6 +342,24 @@ pub fn render_text(summary: &Summary) -> String {
         pull.max_shift_group.as_deref().unwrap_or("n/a"),
         show(pull.rank_correlation)
     );
+    if !summary.segments.is_empty() {
+        let fallbacks = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
+        let _ = writeln!(
+            out,
+            "  segments     {} by {} ({} with a prior of their own, {} on the all-groups prior)",
+            summary.segments.len(),
+            summary.segment_columns.join(", "),
+            summary.segments.len() - fallbacks,
+            fallbacks
+        );
+    }
+    if let Some(test) = &summary.segment_test {
+        let _ = writeln!(
+            out,
+            "  segment test one prior for all against one per segment: chi-square {:.3} on {} df, p = {:.3e}",
+            test.statistic, test.degrees_of_freedom, test.p_value
+        );
+    }
     if let Some(flags) = &summary.flags {
         let _ = writeln!(
             out,

@@ -90,6 +90,12 @@ impl Default for PairIndex {
 }
 
 impl PairIndex {
+    /// An index with no dense part (every pair in the hash map), for the
+    /// tables of many small segments, where 2 MB each would add up.
+    pub fn sparse() -> Self {
+        PairIndex { dense: Vec::new(), sparse: PairMap::default() }
+    }
+
     /// The dense slot of a pair, when it has one.
     fn slot(size: f64, count: f64) -> Option<usize> {
         // Whole and in range, compared through an integer cast (`fract` is a
@@ -103,7 +109,7 @@ impl PairIndex {
 
     /// The number of a pair, if it has one.
     pub fn get(&self, size: f64, count: f64) -> Option<u32> {
-        match Self::slot(size, count) {
+        match Self::slot(size, count).filter(|_| !self.dense.is_empty()) {
             Some(slot) => Some(self.dense[slot]).filter(|&i| i != u32::MAX),
             None => self.sparse.get(&key(size, count)).copied(),
         }
@@ -111,7 +117,7 @@ impl PairIndex {
 
     /// The number of a pair, giving it `next()` when it has none yet.
     pub fn get_or_insert(&mut self, size: f64, count: f64, next: impl FnOnce() -> u32) -> u32 {
-        match Self::slot(size, count) {
+        match Self::slot(size, count).filter(|_| !self.dense.is_empty()) {
             Some(slot) => {
                 if self.dense[slot] == u32::MAX {
                     self.dense[slot] = next();
@@ -122,11 +128,13 @@ impl PairIndex {
         }
     }
 
-    /// The index of a table: each pair numbered by its position.
-    pub fn of_table(table: &PairTable) -> Self {
-        let mut index = PairIndex::default();
-        for (i, pair) in table.pairs().iter().enumerate() {
-            index.get_or_insert(pair.size, pair.count, || i as u32);
+    /// The index of distinct pairs: each numbered by its position plus
+    /// `first`; with a dense part when `dense`.
+    pub fn of_pairs(pairs: &[WeightedPair], first: u32, dense: bool) -> Self {
+        let mut index = if dense { PairIndex::default() } else { PairIndex::sparse() };
+        for (i, pair) in pairs.iter().enumerate() {
+            let i = first + i as u32;
+            index.get_or_insert(pair.size, pair.count, || i);
         }
         index
     }
@@ -147,9 +155,15 @@ impl Default for PairCounter {
 }
 
 impl PairCounter {
+    /// A counter with no dense part (every pair in the hash map), for many
+    /// small segments, where 4 MB each would add up.
+    pub fn sparse() -> Self {
+        PairCounter { dense: Vec::new(), sparse: PairMap::default() }
+    }
+
     /// Adds `weight` groups to a pair (a negative weight takes them back).
     pub fn add(&mut self, size: f64, count: f64, weight: f64) {
-        match PairIndex::slot(size, count) {
+        match PairIndex::slot(size, count).filter(|_| !self.dense.is_empty()) {
             Some(slot) => self.dense[slot] += weight,
             None => {
                 self.sparse
@@ -164,7 +178,7 @@ impl PairCounter {
     pub fn into_table(self) -> PairTable {
         let mut pairs: Vec<WeightedPair> = self.sparse.into_values().filter(|p| p.weight > 0.0).collect();
         let mut slot = 0;
-        for size in 0..DENSE_SIZES {
+        for size in (0..DENSE_SIZES).take_while(|_| !self.dense.is_empty()) {
             for count in 0..=size {
                 let weight = self.dense[slot];
                 if weight > 0.0 {
@@ -270,11 +284,19 @@ mod tests {
         let table = counter.into_table();
         let sizes: Vec<(f64, f64, f64)> = table.pairs().iter().map(|p| (p.size, p.count, p.weight)).collect();
         assert_eq!(sizes, vec![(0.0, 0.0, 1.0), (2.5, 1.0, 1.0), (3.0, 1.0, 3.0), (4.0, 7.0, 1.0)]);
-        let index = PairIndex::of_table(&table);
-        assert_eq!(index.get(3.0, 1.0), Some(2));
-        assert_eq!(index.get(4.0, 7.0), Some(3));
-        assert_eq!(index.get(2000.0, 5.0), None);
-        assert_eq!(index.get(3.0, 2.0), None);
+        for dense in [true, false] {
+            let index = PairIndex::of_pairs(table.pairs(), 10, dense);
+            assert_eq!(index.get(3.0, 1.0), Some(12));
+            assert_eq!(index.get(4.0, 7.0), Some(13));
+            assert_eq!(index.get(2000.0, 5.0), None);
+            assert_eq!(index.get(3.0, 2.0), None);
+        }
+        let mut sparse = PairCounter::sparse();
+        for (size, count) in pairs {
+            sparse.add(size, count, 1.0);
+        }
+        sparse.add(2000.0, 5.0, -1.0);
+        assert_eq!(sparse.into_table(), table, "a sparse counter counts the same");
         assert_eq!(PairIndex::slot(1023.0, 1023.0), Some(1023 * 1024 / 2 + 1023));
         assert_eq!(PairIndex::slot(1024.0, 0.0), None);
         assert_eq!(PairIndex::slot(-0.0, 0.0), Some(0));

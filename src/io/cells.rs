@@ -178,6 +178,20 @@ impl GroupColumn {
         }
     }
 
+    /// True where the value is null (a blank text is a value).
+    pub fn is_null(&self, row: usize) -> bool {
+        match self {
+            GroupColumn::Integers(v) => v.is_null(row),
+            GroupColumn::Texts(v) => v.is_null(row),
+        }
+    }
+
+    /// The value as text, None where null (a blank text is kept as it is).
+    pub fn value_text(&self, row: usize) -> Option<String> {
+        (!self.is_null(row))
+            .then(|| self.with_bytes(row, |bytes| String::from_utf8_lossy(bytes).into_owned()))
+    }
+
     /// The id as text: empty where missing, whatever the column's type.
     pub fn text(&self, row: usize) -> String {
         if self.is_missing(row) {

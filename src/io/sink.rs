@@ -41,12 +41,48 @@ pub const ROW_GROUP_ROWS: usize = 1 << 20;
 /// divides [`ROW_GROUP_ROWS`].
 pub const CHUNK_ROWS: usize = 1 << 16;
 
+/// Rows held until they make whole chunks of [`CHUNK_ROWS`] rows at fixed
+/// offsets, whatever the sizes of the batches given.
+#[derive(Default)]
+struct FixedChunks {
+    pending: Vec<RecordBatch>,
+    pending_rows: usize,
+}
+
+impl FixedChunks {
+    /// Adds rows; returns the whole chunks now held (all the rows held, the
+    /// last chunk shorter, when `all`).
+    fn push(
+        &mut self,
+        batch: Option<RecordBatch>,
+        all: bool,
+    ) -> std::result::Result<Vec<RecordBatch>, arrow_schema::ArrowError> {
+        if let Some(batch) = batch {
+            self.pending_rows += batch.num_rows();
+            self.pending.push(batch);
+        }
+        let Some(first) = self.pending.first() else { return Ok(Vec::new()) };
+        if self.pending_rows < CHUNK_ROWS && !all {
+            return Ok(Vec::new());
+        }
+        let held = arrow_select::concat::concat_batches(&first.schema(), &self.pending)?;
+        let rows = held.num_rows();
+        let written = if all { rows } else { rows / CHUNK_ROWS * CHUNK_ROWS };
+        let chunks = (0..written)
+            .step_by(CHUNK_ROWS)
+            .map(|offset| held.slice(offset, CHUNK_ROWS.min(written - offset)))
+            .collect();
+        self.pending = vec![held.slice(written, rows - written)];
+        self.pending_rows = rows - written;
+        Ok(chunks)
+    }
+}
+
 /// arrow-rs's Parquet writer, fed in chunks of exactly [`CHUNK_ROWS`] rows
 /// (the last one shorter), so the bytes do not depend on the batches given.
 pub struct ParquetChunks {
     writer: ArrowWriter<File>,
-    pending: Vec<RecordBatch>,
-    pending_rows: usize,
+    chunks: FixedChunks,
 }
 
 impl ParquetChunks {
@@ -56,38 +92,19 @@ impl ParquetChunks {
             .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
             .build();
         let writer = ArrowWriter::try_new(file, schema, Some(props))?;
-        Ok(ParquetChunks { writer, pending: Vec::new(), pending_rows: 0 })
+        Ok(ParquetChunks { writer, chunks: FixedChunks::default() })
     }
 
-    fn write(&mut self, batch: RecordBatch) -> std::result::Result<(), String> {
-        self.pending_rows += batch.num_rows();
-        self.pending.push(batch);
-        if self.pending_rows >= CHUNK_ROWS {
-            self.drain(false)?;
+    fn write(&mut self, batch: Option<RecordBatch>, all: bool) -> parquet::errors::Result<()> {
+        for chunk in self.chunks.push(batch, all)? {
+            self.writer.write(&chunk)?;
         }
         Ok(())
     }
 
-    /// Writes the rows held in chunks of [`CHUNK_ROWS`]: only whole chunks
-    /// (keeping the rest) unless `all` is set.
-    fn drain(&mut self, all: bool) -> std::result::Result<(), String> {
-        let Some(first) = self.pending.first() else { return Ok(()) };
-        let held = arrow_select::concat::concat_batches(&first.schema(), &self.pending)
-            .map_err(|e| e.to_string())?;
-        let rows = held.num_rows();
-        let written = if all { rows } else { rows / CHUNK_ROWS * CHUNK_ROWS };
-        for offset in (0..written).step_by(CHUNK_ROWS) {
-            let chunk = held.slice(offset, CHUNK_ROWS.min(written - offset));
-            self.writer.write(&chunk).map_err(|e| e.to_string())?;
-        }
-        self.pending = vec![held.slice(written, rows - written)];
-        self.pending_rows = rows - written;
-        Ok(())
-    }
-
-    fn close(mut self) -> std::result::Result<(), String> {
-        self.drain(true)?;
-        self.writer.close().map(|_| ()).map_err(|e| e.to_string())
+    fn close(mut self) -> parquet::errors::Result<()> {
+        self.write(None, true)?;
+        self.writer.close().map(|_| ())
     }
 }
 
@@ -251,19 +268,19 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
     }
 }
 
-/// The scored table in Parquet: the group column through arrow-rs (plain
-/// pages: ids do not repeat), every pair-valued column through
+/// The scored table in Parquet: the row columns (the group id, and the
+/// segment values with `--by`) through arrow-rs (the group column in plain
+/// pages: ids do not repeat), then every pair-valued column through
 /// [`RowGroupPairs`], row groups of [`ROW_GROUP_ROWS`] rows.
 pub struct ScoredParquet {
     file_writer: SerializedFileWriter<File>,
     factory: ArrowRowGroupWriterFactory,
-    group_field: Field,
+    row_schema: SchemaRef,
     pair_columns: Arc<PairColumns>,
-    /// The group column's writer for the row group being written.
-    group_writer: Option<ArrowColumnWriter>,
-    /// Group ids not yet handed to the writer (fewer than a chunk).
-    pending_ids: Vec<ArrayRef>,
-    pending_rows: usize,
+    /// The row columns' writers for the row group being written.
+    row_writers: Vec<ArrowColumnWriter>,
+    /// Row column values not yet handed to the writers (less than a chunk).
+    chunks: FixedChunks,
     /// The pair of each row of the row group being written.
     row_group_pairs: Vec<u32>,
     /// One slot per pair, for numbering a row group's pairs.
@@ -272,8 +289,12 @@ pub struct ScoredParquet {
 }
 
 impl ScoredParquet {
-    fn new(file: File, group_field: Field, pair_columns: Arc<PairColumns>) -> parquet::errors::Result<Self> {
-        let mut fields = vec![group_field.clone()];
+    fn new(
+        file: File,
+        row_schema: SchemaRef,
+        pair_columns: Arc<PairColumns>,
+    ) -> parquet::errors::Result<Self> {
+        let mut fields: Vec<Field> = row_schema.fields().iter().map(|f| f.as_ref().clone()).collect();
         fields.extend(pair_columns.iter().map(|(name, values)| {
             let dtype = match values {
                 PairValues::Integers(_) => DataType::Int64,
@@ -282,9 +303,10 @@ impl ScoredParquet {
             };
             Field::new(name, dtype, values.nullable())
         }));
+        let group = ColumnPath::from(row_schema.field(0).name().as_str());
         let props = WriterProperties::builder()
             .set_compression(Compression::ZSTD(ZstdLevel::default()))
-            .set_column_dictionary_enabled(ColumnPath::from(group_field.name().as_str()), false)
+            .set_column_dictionary_enabled(group, false)
             .build();
         let schema = Arc::new(Schema::new(fields));
         let (file_writer, factory) =
@@ -293,27 +315,24 @@ impl ScoredParquet {
         Ok(ScoredParquet {
             file_writer,
             factory,
-            group_field,
+            row_schema,
             pair_columns,
-            group_writer: None,
-            pending_ids: Vec::new(),
-            pending_rows: 0,
+            row_writers: Vec::new(),
+            chunks: FixedChunks::default(),
             row_group_pairs: Vec::with_capacity(ROW_GROUP_ROWS),
             local: vec![u32::MAX; pairs],
             row_groups: 0,
         })
     }
 
-    /// Appends rows: their group ids and their pairs.
-    fn write(&mut self, ids: ArrayRef, pair_of_row: &[u32]) -> parquet::errors::Result<()> {
+    /// Appends rows: their row columns and their pairs.
+    fn write(&mut self, rows: RecordBatch, pair_of_row: &[u32]) -> parquet::errors::Result<()> {
         let mut offset = 0;
         while offset < pair_of_row.len() {
             let room = ROW_GROUP_ROWS - self.row_group_pairs.len();
             let take = room.min(pair_of_row.len() - offset);
             self.row_group_pairs.extend_from_slice(&pair_of_row[offset..offset + take]);
-            self.pending_ids.push(ids.slice(offset, take));
-            self.pending_rows += take;
-            self.encode_ids(false)?;
+            self.encode_rows(Some(rows.slice(offset, take)), false)?;
             if self.row_group_pairs.len() == ROW_GROUP_ROWS {
                 self.close_row_group()?;
             }
@@ -322,28 +341,23 @@ impl ScoredParquet {
         Ok(())
     }
 
-    /// Hands the held ids to the group column's writer in chunks of
-    /// [`CHUNK_ROWS`] (all of them when `all`).
-    fn encode_ids(&mut self, all: bool) -> parquet::errors::Result<()> {
-        if self.pending_rows < CHUNK_ROWS && !all || self.pending_ids.is_empty() {
-            return Ok(());
-        }
-        let parts: Vec<&dyn Array> = self.pending_ids.iter().map(|a| a.as_ref()).collect();
-        let held = arrow_select::concat::concat(&parts)?;
-        let rows = held.len();
-        let written = if all { rows } else { rows / CHUNK_ROWS * CHUNK_ROWS };
-        if self.group_writer.is_none() {
-            self.group_writer = self.factory.create_column_writers(self.row_groups)?.into_iter().next();
-        }
-        let writer = self.group_writer.as_mut().expect("the schema has a group column");
-        for offset in (0..written).step_by(CHUNK_ROWS) {
-            let chunk = held.slice(offset, CHUNK_ROWS.min(written - offset));
-            for leaf in compute_leaves(&self.group_field, &chunk)? {
-                writer.write(&leaf)?;
+    /// Hands the row columns to their writers in chunks of [`CHUNK_ROWS`]
+    /// (all of those held when `all`).
+    fn encode_rows(&mut self, rows: Option<RecordBatch>, all: bool) -> parquet::errors::Result<()> {
+        for chunk in self.chunks.push(rows, all)? {
+            if self.row_writers.is_empty() {
+                let mut writers = self.factory.create_column_writers(self.row_groups)?;
+                writers.truncate(self.row_schema.fields().len());
+                self.row_writers = writers;
+            }
+            for ((writer, field), column) in
+                self.row_writers.iter_mut().zip(self.row_schema.fields()).zip(chunk.columns())
+            {
+                for leaf in compute_leaves(field, column)? {
+                    writer.write(&leaf)?;
+                }
             }
         }
-        self.pending_ids = vec![held.slice(written, rows - written)];
-        self.pending_rows = rows - written;
         Ok(())
     }
 
@@ -351,10 +365,13 @@ impl ScoredParquet {
         if self.row_group_pairs.is_empty() {
             return Ok(());
         }
-        self.encode_ids(true)?;
-        let group_chunk = self.group_writer.take().expect("ids were written").close()?;
+        self.encode_rows(None, true)?;
+        let row_chunks = std::mem::take(&mut self.row_writers)
+            .into_iter()
+            .map(|w| w.close())
+            .collect::<parquet::errors::Result<Vec<_>>>()?;
         let pairs = RowGroupPairs::new(&self.row_group_pairs, &mut self.local)?;
-        let descriptors = self.file_writer.schema_descr().columns()[1..].to_vec();
+        let descriptors = self.file_writer.schema_descr().columns()[row_chunks.len()..].to_vec();
         let chunks: Vec<(bytes::Bytes, ColumnCloseResult)> = self
             .pair_columns
             .par_iter()
@@ -362,7 +379,9 @@ impl ScoredParquet {
             .map(|((_, values), descr)| pairs.encode_column(values, descr))
             .collect::<parquet::errors::Result<_>>()?;
         let mut row_group = self.file_writer.next_row_group()?;
-        group_chunk.append_to_row_group(&mut row_group)?;
+        for chunk in row_chunks {
+            chunk.append_to_row_group(&mut row_group)?;
+        }
         for (bytes, close) in chunks {
             row_group.append_column(&bytes, close)?;
         }
@@ -415,26 +434,37 @@ impl TableSink {
         Ok(sink)
     }
 
-    /// Appends scored rows: their group ids (column `group`) and pairs.
-    pub fn write_scored(&mut self, group: &str, ids: ArrayRef, pair_of_row: &[u32]) -> Result<()> {
+    /// Appends scored rows: their row columns (the group id first, never
+    /// null; then any segment values, which may be) and their pairs.
+    pub fn write_scored(&mut self, row_columns: Vec<(String, ArrayRef)>, pair_of_row: &[u32]) -> Result<()> {
         let path = self.file.target().to_path_buf();
         let pair_columns =
             self.pair_columns.clone().ok_or_else(|| write_error(&path, "not a scored table"))?;
         if self.format == TableFormat::Csv {
-            let mut columns = vec![(group.to_string(), ColumnValues::Arrow(ids))];
+            let mut columns: Columns =
+                row_columns.into_iter().map(|(name, values)| (name, ColumnValues::Arrow(values))).collect();
             columns.extend(
                 pair_columns.iter().map(|(name, values)| (name.clone(), gather(values, pair_of_row))),
             );
             return self.write(columns);
         }
+        let fields: Vec<Field> = row_columns
+            .iter()
+            .enumerate()
+            .map(|(i, (name, values))| Field::new(name, values.data_type().clone(), i > 0))
+            .collect();
+        let arrays = row_columns.into_iter().map(|(_, values)| values).collect();
+        let rows =
+            RecordBatch::try_new(Arc::new(Schema::new(fields)), arrays).map_err(|e| write_error(&path, e))?;
         if self.writer.is_none() {
-            let field = Field::new(group, ids.data_type().clone(), false);
-            let writer = ScoredParquet::new(self.file.handle()?, field, pair_columns)
+            let writer = ScoredParquet::new(self.file.handle()?, rows.schema(), pair_columns)
                 .map_err(|e| write_error(&path, e))?;
             self.writer = Some(Writer::Scored(Box::new(writer)));
         }
         match &mut self.writer {
-            Some(Writer::Scored(writer)) => writer.write(ids, pair_of_row).map_err(|e| write_error(&path, e)),
+            Some(Writer::Scored(writer)) => {
+                writer.write(rows, pair_of_row).map_err(|e| write_error(&path, e))
+            }
             _ => Err(write_error(&path, "a scored table takes only scored rows")),
         }
     }
@@ -451,7 +481,7 @@ impl TableSink {
                     self.writer = Some(Writer::Parquet(Box::new(writer)));
                 }
                 if let Some(Writer::Parquet(writer)) = &mut self.writer {
-                    writer.write(batch).map_err(|e| write_error(&path, e))?;
+                    writer.write(Some(batch), false).map_err(|e| write_error(&path, e))?;
                 }
             }
             TableFormat::Csv => {

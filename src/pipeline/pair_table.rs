@@ -5,9 +5,9 @@
 
 use super::prior::score_pairs;
 use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts};
+use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{check_values, group_count};
 use super::{no_data_rows, roles, size_kind, Job, PhaseClock, DEFAULT_BATCH_ROWS};
-use crate::core::pairs::{PairTable, WeightedPair};
 use crate::error::{Error, Result};
 use crate::io::cells::cell_at;
 use crate::io::input::Input;
@@ -18,11 +18,13 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     let mut clock = PhaseClock::start(job);
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
-    let columns =
-        [(weights, "group count"), (names.count.as_str(), count_role), (names.size.as_str(), size_role)];
+    let mut columns =
+        vec![(weights, "group count"), (names.count.as_str(), count_role), (names.size.as_str(), size_role)];
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), "segment")));
     let input = Input::open(&job.input, job.delimiter, &columns, DEFAULT_BATCH_ROWS)?;
-    let mut pairs = Vec::new();
+    let (mut counters, mut index, mut rows) = (SegmentCounters::new(), SegmentIndex::default(), 0);
     input.for_each_batch(|batch| {
+        let segments = SegmentColumns::of(&batch.columns[3..])?;
         for row in 0..batch.rows() {
             let invalid = |column: &str, reason: String| Error::InvalidRow {
                 path: batch.file.to_path_buf(),
@@ -35,17 +37,20 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
                 .map_err(|(column, reason)| invalid(column, reason))?;
             let weight =
                 group_count(&cell_at(&batch.columns[0], row)?).map_err(|reason| invalid(weights, reason))?;
-            pairs.push(WeightedPair { size, count, weight });
+            let segment = if segments.is_empty() { 0 } else { index.number(&segments, row) };
+            counters.of(segment).add(size, count, weight);
+            rows += 1;
         }
         Ok(())
     })?;
-    if pairs.is_empty() {
+    if rows == 0 {
         return Err(no_data_rows(job));
     }
-    let rows = pairs.len();
     clock.lap("read and validate");
-    let scored = score_pairs(job, PairTable::from_weighted(pairs), &mut clock)?;
-    let summary = summarise(job, RowCounts { read: rows as u64, rejected: 0 }, &scored, None);
+    let segments: Vec<SegmentPairs> =
+        counters.into_segments(&mut index).into_iter().map(|(_, s)| s).collect();
+    let scored = score_pairs(job, segments, &mut clock)?;
+    let summary = summarise(job, RowCounts { read: rows as u64, rejected: 0 }, &scored, Default::default());
     let mut staged = Default::default();
     stage_pair_output(job, &scored, &mut staged)?;
     commit_outputs(job, &summary, staged)?;

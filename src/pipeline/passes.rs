@@ -15,10 +15,13 @@
 
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::{score_pairs, Scored};
-use super::scoring::{commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts};
+use super::scoring::{
+    commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts, ShiftGroups,
+};
+use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, Model, PhaseClock};
-use crate::core::pairs::{PairCounter, PairIndex};
+use crate::core::pairs::WeightedPair;
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
@@ -37,6 +40,7 @@ struct BatchView<'a> {
     group: GroupColumn,
     counts: NumericColumn,
     sizes: NumericColumn,
+    segments: SegmentColumns,
 }
 
 impl<'a> BatchView<'a> {
@@ -46,7 +50,27 @@ impl<'a> BatchView<'a> {
             group: GroupColumn::of(&batch.columns[0])?,
             counts: NumericColumn::of(&batch.columns[1])?,
             sizes: NumericColumn::of(&batch.columns[2])?,
+            segments: SegmentColumns::of(&batch.columns[3..])?,
         })
+    }
+
+    /// The number of the row's segment as met in pass 1 (0 without segments),
+    /// numbering it if new.
+    fn number_segment(&self, index: &mut SegmentIndex, row: usize) -> u32 {
+        if self.segments.is_empty() {
+            0
+        } else {
+            index.number(&self.segments, row)
+        }
+    }
+
+    /// The number of the row's segment as met in pass 1 (0 without segments).
+    fn find_segment(&self, index: &mut SegmentIndex, row: usize) -> Option<u32> {
+        if self.segments.is_empty() {
+            Some(0)
+        } else {
+            index.find(&self.segments, row)
+        }
     }
 
     /// (size, count) of a row whose values are plainly valid as read; None
@@ -103,7 +127,8 @@ fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFault {
 
 /// What pass 1 learns.
 struct PassOne {
-    pairs: PairCounter,
+    pairs: SegmentCounters,
+    segments: SegmentIndex,
     rows: usize,
     rejected: usize,
     first_fault: Option<RowFault>,
@@ -115,11 +140,12 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     let mut clock = PhaseClock::start(job);
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
-    let columns = [
+    let mut columns = vec![
         (names.group.as_str(), "group"),
         (names.count.as_str(), count_role),
         (names.size.as_str(), size_role),
     ];
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), "segment")));
     let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
     let mut first = count_pairs(job, &input, &mut clock)?;
     clock.lap("pass 1: read, validate, count pairs");
@@ -131,17 +157,21 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     if let Some(fault) = earliest_fault(job, &input, first.first_fault.take(), &repeats) {
         return Err(fault);
     }
-    let table = first.pairs.into_table();
-    if table.pairs().is_empty() {
+    let mut segment_index = std::mem::take(&mut first.segments);
+    let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
+        std::mem::take(&mut first.pairs).into_segments(&mut segment_index).into_iter().unzip();
+    if segments.iter().all(|s| s.table.pairs().is_empty()) {
         return Err(no_valid_rows(job, first.rejected));
     }
-    let scored = score_pairs(job, table, &mut clock)?;
+    let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
+    let lookup = PairLookup::new(&met, &tables);
+    let scored = score_pairs(job, segments, &mut clock)?;
     let rows = first.rows;
-    let (max_shift_group, staged) =
-        score_and_write(job, &input, &scored, output, &repeats, (&mut clock, rows))?;
+    let found = Found { segments: segment_index, pairs: lookup, repeats };
+    let (shift_groups, staged) = score_and_write(job, &input, &scored, output, found, (&mut clock, rows))?;
     clock.lap("pass 2: read, score, write");
     let counts = RowCounts { read: rows as u64, rejected: first.rejected as u64 };
-    let summary = summarise(job, counts, &scored, max_shift_group);
+    let summary = summarise(job, counts, &scored, shift_groups);
     let mut staged = staged;
     stage_pair_output(job, &scored, &mut staged)?;
     commit_outputs(job, &summary, staged)?;
@@ -153,7 +183,8 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
 fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassOne> {
     let total = input.known_rows();
     let mut pass = PassOne {
-        pairs: PairCounter::default(),
+        pairs: SegmentCounters::new(),
+        segments: SegmentIndex::default(),
         rows: 0,
         rejected: 0,
         first_fault: None,
@@ -166,7 +197,10 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassO
                 view.group.with_bytes(row, |id| pass.ids.push(id));
             }
             match view.check(job, row)? {
-                Ok((size, count)) => pass.pairs.add(size, count, 1.0),
+                Ok((size, count)) => {
+                    let segment = view.number_segment(&mut pass.segments, row);
+                    pass.pairs.of(segment).add(size, count, 1.0)
+                }
                 Err(rejection) => {
                     pass.rejected += 1;
                     if pass.first_fault.is_none() {
@@ -200,7 +234,8 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
             let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
             if repeat.is_some() {
                 if let Ok((size, count)) = view.check(job, row)? {
-                    pass.pairs.add(size, count, -1.0);
+                    let segment = view.find_segment(&mut pass.segments, row).expect("counted in pass 1");
+                    pass.pairs.of(segment).add(size, count, -1.0);
                     pass.rejected += 1;
                 }
             }
@@ -257,34 +292,44 @@ fn changed_between_passes(file: &Path) -> Error {
     ))
 }
 
+/// What pass 1 found, for pass 2 to place each row: its segment, its pair
+/// in the scored table, and whether its id repeats an earlier row's.
+struct Found {
+    segments: SegmentIndex,
+    pairs: PairLookup,
+    repeats: Repeats,
+}
+
 /// Pass 2: scores every batch and hands it to a writer thread, so that
 /// encoding the output overlaps reading and scoring the next batch; writes
-/// the rejects; returns the id of the first group of the pair that moved
-/// furthest, and the table and rejects staged. Batches are written in input
-/// order, so the bytes do not depend on timing. Progress goes to `clock`,
-/// out of `rows`.
+/// the rejects; returns the ids of the groups that moved furthest (over all
+/// groups and per segment), and the table and rejects staged. Batches are
+/// written in input order, so the bytes do not depend on timing. Progress
+/// goes to `clock`, out of `rows`.
 fn score_and_write(
     job: &Job,
     input: &Input,
     scored: &Scored,
     output: &Path,
-    repeats: &Repeats,
+    mut found: Found,
     (clock, rows): (&mut PhaseClock, usize),
-) -> Result<(Option<String>, StagedOutputs)> {
-    let index = PairIndex::of_table(&scored.table);
-    let furthest = scored.pull.max_shift_row.map(|p| p as u32);
-    let mut max_shift_group = None;
+) -> Result<(ShiftGroups, StagedOutputs)> {
+    let no_pair = u32::MAX;
+    let furthest = scored.pull.max_shift_row.map_or(no_pair, |p| p as u32);
+    let furthest_in: Vec<u32> =
+        scored.segments.iter().map(|s| s.pull.max_shift_row.map_or(no_pair, |p| p as u32)).collect();
+    let mut shift_groups = ShiftGroups { all: None, segments: vec![None; scored.segments.len()] };
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored))?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
     };
-    let (sender, receiver) = std::sync::mpsc::sync_channel::<(ArrayRef, Vec<u32>)>(8);
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<(Vec<(String, ArrayRef)>, Vec<u32>)>(8);
     let mut seen = 0;
     let table = std::thread::scope(|scope| {
         let writer = scope.spawn(move || -> Result<TableSink> {
-            for (ids, pair_of_row) in receiver {
-                sink.write_scored(&job.columns.group, ids, &pair_of_row)?;
+            for (row_columns, pair_of_row) in receiver {
+                sink.write_scored(row_columns, &pair_of_row)?;
             }
             Ok(sink)
         });
@@ -295,17 +340,22 @@ fn score_and_write(
             for row in 0..batch.rows() {
                 let mut outcome = view.check(job, row)?;
                 if let (false, Some(first)) =
-                    (view.group.is_missing(row), repeats.first_of(batch.first_row + row))
+                    (view.group.is_missing(row), found.repeats.first_of(batch.first_row + row))
                 {
                     let reason = repeat_reason(input, &view.group.text(row), first);
                     outcome = Err(Rejection { row, column: job.columns.group.clone(), reason });
                 }
                 match outcome {
                     Ok((size, count)) => {
-                        let pair =
-                            index.get(size, count).ok_or_else(|| changed_between_passes(batch.file))?;
-                        if max_shift_group.is_none() && Some(pair) == furthest {
-                            max_shift_group = Some(view.group.text(row));
+                        let (pair, place) = view
+                            .find_segment(&mut found.segments, row)
+                            .and_then(|segment| found.pairs.get(segment, size, count))
+                            .ok_or_else(|| changed_between_passes(batch.file))?;
+                        if pair == furthest && shift_groups.all.is_none() {
+                            shift_groups.all = Some(view.group.text(row));
+                        }
+                        if furthest_in.get(place as usize) == Some(&pair) {
+                            shift_groups.segments[place as usize].get_or_insert_with(|| view.group.text(row));
                         }
                         kept.push(row as u32);
                         pair_of_row.push(pair);
@@ -319,8 +369,10 @@ fn score_and_write(
                     }
                 }
             }
+            let mut row_columns = vec![(job.columns.group.clone(), view.group.take(&kept))];
+            row_columns.extend(job.segments.iter().cloned().zip(view.segments.take(&kept)));
             sender
-                .send((view.group.take(&kept), pair_of_row))
+                .send((row_columns, pair_of_row))
                 .map_err(|_| Error::Other("the output writer stopped".to_string()))?;
             if let Some((rejects_sink, held, wrote)) = &mut rejects {
                 if !held.is_empty() {
@@ -353,13 +405,13 @@ fn score_and_write(
         }
         staged.add(rejects_sink.finish()?);
     }
-    Ok((max_shift_group, staged))
+    Ok((shift_groups, staged))
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::core::pairs::{PairTable, WeightedPair};
+    use crate::core::pairs::PairTable;
     use crate::pipeline::validate::ColumnNames;
     use crate::pipeline::{Layout, Level, PriorSource, DEFAULT_BATCH_ROWS};
 
@@ -375,12 +427,25 @@ mod tests {
             thresholds: Default::default(),
             ranks: None,
             flag_fdr: None,
+            segments: Vec::new(),
+            min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,
             timings: false,
             progress: false,
         }
+    }
+
+    /// Scores `pairs` as one segment and runs pass 2 over `open`, expecting `rows` rows.
+    fn pass_two(job: &Job, open: &Input, output: &Path, pairs: &[WeightedPair], rows: usize) -> Result<()> {
+        let mut clock = PhaseClock::start(job);
+        let table = PairTable::from_weighted(pairs.iter().copied());
+        let lookup = PairLookup::new(&[0], &[table.pairs()]);
+        let segment = SegmentPairs { key: Vec::new(), samples: Vec::new(), table };
+        let scored = score_pairs(job, vec![segment], &mut clock)?;
+        let found = Found { segments: SegmentIndex::default(), pairs: lookup, repeats: Repeats::default() };
+        score_and_write(job, open, &scored, output, found, (&mut clock, rows)).map(|_| ())
     }
 
     /// Pass 2 of an input that changed after pass 1: here pass 1's pairs
@@ -394,17 +459,13 @@ mod tests {
         let job = job(&input, &output);
         let open = Input::open(&input, b',', &[("id", "group"), ("k", "k"), ("n", "n")], 2).unwrap();
         let pair = |size: f64, count: f64| WeightedPair { size, count, weight: 1.0 };
-        let mut clock = PhaseClock::start(&job);
         let pass_one = [pair(4.0, 1.0), pair(9.0, 3.0), pair(2.0, 0.0), pair(10.0, 7.0)];
-        let scored = score_pairs(&job, PairTable::from_weighted(pass_one), &mut clock).unwrap();
-        let outcome = score_and_write(&job, &open, &scored, &output, &Repeats::default(), (&mut clock, 5));
-        let message = outcome.err().expect("refused").to_string();
+        let message = pass_two(&job, &open, &output, &pass_one, 5).expect_err("refused").to_string();
         assert!(message.contains("in.csv") && message.contains("changed while it was read"), "{message}");
         let all = [pass_one.to_vec(), vec![pair(6.0, 2.0)]].concat();
-        let scored = score_pairs(&job, PairTable::from_weighted(all), &mut clock).unwrap();
-        let outcome = score_and_write(&job, &open, &scored, &output, &Repeats::default(), (&mut clock, 4));
-        assert!(outcome.err().expect("refused").to_string().contains("changed while it was read"));
-        assert!(score_and_write(&job, &open, &scored, &output, &Repeats::default(), (&mut clock, 5)).is_ok());
+        let outcome = pass_two(&job, &open, &output, &all, 4);
+        assert!(outcome.expect_err("refused").to_string().contains("changed while it was read"));
+        assert!(pass_two(&job, &open, &output, &all, 5).is_ok());
         assert!(!output.exists(), "staged, never committed here");
     }
 }

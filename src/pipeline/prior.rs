@@ -1,31 +1,63 @@
-//! Where the prior comes from (a fit to the pair table, or a saved summary)
-//! and the posterior of every distinct pair under it.
+//! Where the priors come from (fits to the pair tables, or a saved summary)
+//! and the posterior of every distinct pair under its prior.
+//!
+//! Without segments there is one prior, fitted to all groups. With segments
+//! (`--by`) the prior fitted to all groups is kept, each segment gets a fit
+//! of its own pairs alone (in parallel), and a segment falls back to the
+//! all-groups prior when it has fewer than `--min-groups` groups or its fit
+//! fails (only the mean identifiable, no pooling, no convergence); a
+//! boundary (no overdispersion) is a result, not a fallback. A likelihood-
+//! ratio test says whether one prior per segment fits better than one for all.
 
 use super::scoring::pull_of_pairs;
+use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Job, Model, PhaseClock, PriorSource};
 use crate::core::diagnostics::Pull;
-use crate::core::fit::{fit, Boundary, Fit, FitFailure};
+use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure};
+use crate::core::incomplete::gamma_tails;
 use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, Unidentifiable};
-use crate::core::pairs::PairTable;
+use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{posterior_fdr_flags, FdrFlags};
 use crate::error::{Error, Result};
-use crate::report::{FitReport, Hyperprior, HyperpriorParts, Summary, TestReport};
+use crate::report::{FitReport, Hyperprior, HyperpriorParts, SegmentTest, TestReport};
+use arrow_array::ArrayRef;
 use rayon::prelude::*;
+use std::ops::Range;
 use std::path::Path;
 
-/// The prior in use, how it was obtained, and each pair's posterior.
+/// One segment's prior and how it was obtained.
+pub struct SegmentScore {
+    /// Its values.
+    pub key: SegmentKey,
+    /// One row of each segment column holding the values.
+    pub samples: Vec<ArrayRef>,
+    /// Its pairs' place in [`Scored::pairs`].
+    pub pairs: Range<usize>,
+    /// Its groups.
+    pub groups: f64,
+    /// The prior its groups were scored with.
+    pub hyperprior: Hyperprior,
+    /// Its own fit (None when it fell back to the all-groups prior).
+    pub fit: Option<FitReport>,
+    /// How far its groups were pulled; `max_shift_row` indexes [`Scored::pairs`].
+    pub pull: Pull,
+    /// Why it took the all-groups prior, when it did.
+    pub fallback: Option<String>,
+}
+
+/// The priors in use, how they were obtained, and each pair's posterior.
 pub struct Scored {
-    /// The distinct pairs.
-    pub table: PairTable,
-    /// Posterior of each pair, in table order.
+    /// The distinct (segment, size, count) pairs, segment after segment.
+    pub pairs: Vec<WeightedPair>,
+    /// Posterior of each pair, in that order.
     pub posteriors: Vec<Posterior>,
-    /// The prior for the summary.
+    /// The prior fitted to (or saved for) all groups.
     pub hyperprior: Hyperprior,
     /// How it was obtained.
     pub fit: FitReport,
-    /// Boundary and pooling warnings.
+    /// Boundary, pooling and fallback warnings.
     pub warnings: Vec<String>,
-    /// How far the groups were pulled; `max_shift_row` indexes the pairs.
+    /// How far all the groups were pulled; `max_shift_row` indexes the pairs.
     pub pull: Pull,
     /// P(rate > T of `--above`) per pair, when asked for.
     pub prob_above: Option<Vec<f64>>,
@@ -33,17 +65,33 @@ pub struct Scored {
     pub prob_below: Option<Vec<f64>>,
     /// Flags under the posterior false-discovery rate of `--flag-fdr`.
     pub flags: Option<FdrFlags>,
+    /// Per segment, with `--by` (empty without).
+    pub segments: Vec<SegmentScore>,
+    /// One prior for all against one per segment, when priors were fitted per segment.
+    pub segment_test: Option<SegmentTest>,
 }
 
-/// Fits or loads the prior for `table` and scores every pair.
-pub fn score_pairs(job: &Job, table: PairTable, clock: &mut PhaseClock) -> Result<Scored> {
-    job.model.visit(ScorePairs { job, table, clock })
+impl Scored {
+    /// Per pair: its segment's place in [`Scored::segments`] (all 0 without segments).
+    pub fn segment_of_pair(&self) -> Vec<u32> {
+        let mut places = vec![0u32; self.pairs.len()];
+        for (place, segment) in self.segments.iter().enumerate() {
+            places[segment.pairs.clone()].fill(place as u32);
+        }
+        places
+    }
+}
+
+/// Fits or loads the priors for the segments' pairs (one segment of every
+/// pair when not segmented) and scores every pair.
+pub fn score_pairs(job: &Job, segments: Vec<SegmentPairs>, clock: &mut PhaseClock) -> Result<Scored> {
+    job.model.visit(ScorePairs { job, segments, clock })
 }
 
 /// [`score_with`] for the job's model.
 struct ScorePairs<'a> {
     job: &'a Job,
-    table: PairTable,
+    segments: Vec<SegmentPairs>,
     clock: &'a mut PhaseClock,
 }
 
@@ -51,33 +99,155 @@ impl FamilyVisitor for ScorePairs<'_> {
     type Output = Result<Scored>;
 
     fn visit<F: Family>(self) -> Result<Scored> {
-        score_with::<F>(self.job, self.table, self.clock)
+        score_with::<F>(self.job, self.segments, self.clock)
     }
 }
 
-fn score_with<F: Family>(job: &Job, table: PairTable, clock: &mut PhaseClock) -> Result<Scored> {
-    let (prior, hyperprior, fit_report, mut warnings) = match &job.prior {
+/// A prior with its wire form, its account and its log marginal likelihood.
+#[derive(Clone)]
+struct Chosen {
+    prior: Prior,
+    hyperprior: Hyperprior,
+    fit: FitReport,
+    warnings: Vec<String>,
+    log_likelihood: f64,
+}
+
+/// The prior for all groups: fitted, or the saved one.
+fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
+    match &job.prior {
         PriorSource::Fit => {
-            let fitted = fit::<F>(&table).map_err(|failure| describe_failure(failure, job.model))?;
-            let warnings = fit_warnings(&fitted);
-            (fitted.prior, hyperprior_of(job.model, &fitted), fit_report_of::<F>(&fitted, "fit"), warnings)
+            let fitted =
+                fit::<F>(table).map_err(|failure| Error::Fit(describe_failure(failure, job.model)))?;
+            Ok(chosen_of_fit::<F>(job.model, &fitted))
         }
         PriorSource::Saved { path, summary } => {
-            let prior = prior_of_summary(summary, path, job.model)?;
+            let prior = prior_of_hyperprior(&summary.hyperprior, &summary.model, path, job.model)?;
             let mut fit = summary.fit.clone();
             fit.source = path.display().to_string();
-            (prior, summary.hyperprior.clone(), fit, Vec::new())
+            let log_likelihood = log_marginal_at::<F>(table, &summary.hyperprior);
+            Ok(Chosen {
+                prior,
+                hyperprior: summary.hyperprior.clone(),
+                fit,
+                warnings: Vec::new(),
+                log_likelihood,
+            })
         }
+    }
+}
+
+fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
+    Chosen {
+        prior: fitted.prior,
+        hyperprior: hyperprior_of(model, fitted),
+        fit: fit_report_of::<F>(fitted, "fit"),
+        warnings: fit_warnings(fitted),
+        log_likelihood: fitted.log_marginal_likelihood,
+    }
+}
+
+/// The log marginal likelihood of `table` under a prior given by its mean
+/// and strength (pooled when the strength is infinite).
+fn log_marginal_at<F: Family>(table: &PairTable, hyperprior: &Hyperprior) -> f64 {
+    match hyperprior.strength() {
+        Some(strength) => evaluate::<F>(table, F::working(hyperprior.mean(), strength)).log_likelihood,
+        None => pooled_log_likelihood::<F>(table, hyperprior.mean()),
+    }
+}
+
+/// A segment's own prior, or why it takes the all-groups prior.
+fn segment_prior<F: Family>(
+    job: &Job,
+    segment: &SegmentPairs,
+) -> Result<std::result::Result<Chosen, String>> {
+    let groups = segment.table.groups();
+    match &job.prior {
+        PriorSource::Fit if groups < job.min_groups as f64 => {
+            Ok(Err(format!("fewer than {} groups ({groups})", job.min_groups)))
+        }
+        PriorSource::Fit => Ok(match fit::<F>(&segment.table) {
+            Ok(fitted) => Ok(chosen_of_fit::<F>(job.model, &fitted)),
+            Err(failure) => Err(describe_failure(failure, job.model)),
+        }),
+        PriorSource::Saved { path, summary } => {
+            let saved = summary.segments.iter().find(|s| key_of_report(&job.segments, s) == segment.key);
+            let Some(saved) = saved else {
+                return Ok(Err("not in the saved prior's segments".to_string()));
+            };
+            if let Some(reason) = &saved.fallback {
+                return Ok(Err(format!("the saved prior gave it the all-groups prior: {reason}")));
+            }
+            let prior = prior_of_hyperprior(&saved.hyperprior, &summary.model, path, job.model)?;
+            let Some(fit) = saved.fit.clone() else {
+                return Err(Error::Input(format!("{}: a segment's fit report is missing", path.display())));
+            };
+            let log_likelihood = log_marginal_at::<F>(&segment.table, &saved.hyperprior);
+            Ok(Ok(Chosen {
+                prior,
+                hyperprior: saved.hyperprior.clone(),
+                fit,
+                warnings: Vec::new(),
+                log_likelihood,
+            }))
+        }
+    }
+}
+
+/// A saved segment's key in the order of the run's segment columns.
+fn key_of_report(columns: &[String], saved: &crate::report::SegmentReport) -> SegmentKey {
+    columns.iter().map(|c| saved.key.get(c).cloned().flatten()).collect()
+}
+
+fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut PhaseClock) -> Result<Scored> {
+    let segmented = !job.segments.is_empty();
+    if let (true, PriorSource::Saved { path, summary }) = (segmented, &job.prior) {
+        if summary.segment_columns != job.segments {
+            return Err(Error::Input(format!(
+                "{}: the prior was fitted with segments by [{}], not by [{}]; fit again with these --by columns",
+                path.display(),
+                summary.segment_columns.join(", "),
+                job.segments.join(", ")
+            )));
+        }
+    }
+    let all_pairs: Vec<WeightedPair> =
+        segments.iter().flat_map(|s| s.table.pairs().iter().copied()).collect();
+    let all_table = if segmented {
+        PairTable::from_weighted(all_pairs.iter().copied())
+    } else {
+        segments[0].table.clone()
     };
-    clock.lap(&format!("fit ({} distinct pairs)", table.pairs().len()));
-    if let Prior::CompletePooling { .. } = prior {
-        warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
+    let all = all_groups_prior::<F>(job, &all_table)?;
+    clock.lap(&format!("fit ({} distinct pairs)", all_table.pairs().len()));
+    let choices: Vec<std::result::Result<Chosen, String>> = if segmented {
+        segments.par_iter().map(|segment| segment_prior::<F>(job, segment)).collect::<Result<_>>()?
+    } else {
+        vec![Ok(all.clone())]
+    };
+    if segmented {
+        clock.lap(&format!("segment fits ({} segments)", segments.len()));
+    }
+    let priors: Vec<Prior> = choices.iter().map(|c| c.as_ref().map_or(all.prior, |own| own.prior)).collect();
+    let mut ranges = Vec::with_capacity(segments.len());
+    let mut place_of_pair = Vec::with_capacity(all_pairs.len());
+    for (place, segment) in segments.iter().enumerate() {
+        let start = place_of_pair.len();
+        place_of_pair.extend(std::iter::repeat_n(place, segment.table.pairs().len()));
+        ranges.push(start..place_of_pair.len());
     }
     let tail = job.level.tail();
-    let posteriors: Vec<Posterior> =
-        table.pairs().par_iter().map(|p| F::posterior(&prior, p.size, p.count, tail)).collect();
+    let posteriors: Vec<Posterior> = all_pairs
+        .par_iter()
+        .zip(&place_of_pair)
+        .map(|(p, &place)| F::posterior(&priors[place], p.size, p.count, tail))
+        .collect();
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
-        table.pairs().par_iter().map(|p| F::rate_tails(&prior, p.size, p.count, threshold)).collect()
+        all_pairs
+            .par_iter()
+            .zip(&place_of_pair)
+            .map(|(p, &place)| F::rate_tails(&priors[place], p.size, p.count, threshold))
+            .collect()
     };
     let (above, below) = (job.thresholds.above.map(tails_at), job.thresholds.below.map(tails_at));
     let flags = job.flag_fdr.map(|rule| {
@@ -86,23 +256,103 @@ fn score_with<F: Family>(job: &Job, table: PairTable, clock: &mut PhaseClock) ->
             FlagEvent::Above => above.iter().flatten().map(|&(below, _)| below).collect(),
             FlagEvent::Below => below.iter().flatten().map(|&(_, above)| above).collect(),
         };
-        let weights: Vec<f64> = table.pairs().iter().map(|p| p.weight).collect();
+        let weights: Vec<f64> = all_pairs.iter().map(|p| p.weight).collect();
         posterior_fdr_flags(&no_event, &weights, rule.bound)
     });
     let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
     let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors");
-    let pull = pull_of_pairs(&table, &posteriors);
+    let pull = pull_of_pairs(&all_pairs, &posteriors);
+    let mut warnings = all.warnings.clone();
+    if let Prior::CompletePooling { .. } = all.prior {
+        warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
+    }
+    let segment_test = match (segmented, &job.prior) {
+        (true, PriorSource::Fit) => likelihood_ratio_test::<F>(&all, &choices, &segments),
+        _ => None,
+    };
+    let scores: Vec<SegmentScore> = if segmented {
+        segments
+            .into_iter()
+            .zip(choices)
+            .zip(&ranges)
+            .map(|((segment, choice), range)| {
+                let mut pull = pull_of_pairs(&all_pairs[range.clone()], &posteriors[range.clone()]);
+                pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
+                let (hyperprior, fit, fallback) = match choice {
+                    Ok(own) => (own.hyperprior, Some(own.fit), None),
+                    Err(reason) => (all.hyperprior.clone(), None, Some(reason)),
+                };
+                SegmentScore {
+                    groups: segment.table.groups(),
+                    key: segment.key,
+                    samples: segment.samples,
+                    pairs: range.clone(),
+                    hyperprior,
+                    fit,
+                    pull,
+                    fallback,
+                }
+            })
+            .collect()
+    } else {
+        Vec::new()
+    };
+    let fallbacks = scores.iter().filter(|s| s.fallback.is_some()).count();
+    if fallbacks > 0 {
+        warnings.push(format!(
+            "{fallbacks} of {} segments took the prior fitted to all groups (prior_fallback = true); the summary's segments say why",
+            scores.len()
+        ));
+    }
     Ok(Scored {
-        table,
+        pairs: all_pairs,
         posteriors,
-        hyperprior,
-        fit: fit_report,
+        hyperprior: all.hyperprior,
+        fit: all.fit,
         warnings,
         pull,
         prob_above,
         prob_below,
         flags,
+        segments: scores,
+        segment_test,
+    })
+}
+
+/// The likelihood-ratio test of one prior for all groups against the priors
+/// per segment as used: twice the gain in log marginal likelihood, on two
+/// degrees of freedom per segment with a prior of its own, less the two of
+/// the all-groups prior when every segment has its own (when some fall
+/// back, they share the all-groups prior, whose two parameters stay). The
+/// p-value is the upper tail of the chi-square distribution (Wilks); where
+/// a segment sits at the boundary of no overdispersion it is conservative.
+fn likelihood_ratio_test<F: Family>(
+    all: &Chosen,
+    choices: &[std::result::Result<Chosen, String>],
+    segments: &[SegmentPairs],
+) -> Option<SegmentTest> {
+    let own = choices.iter().filter(|c| c.is_ok()).count();
+    let fallbacks = choices.len() - own;
+    let degrees = 2 * own - if fallbacks == 0 { 2 } else { 0 };
+    if own == 0 || degrees == 0 {
+        return None;
+    }
+    let segmented: f64 = choices
+        .iter()
+        .zip(segments)
+        .map(|(choice, segment)| match choice {
+            Ok(own) => own.log_likelihood,
+            Err(_) => log_marginal_at::<F>(&segment.table, &all.hyperprior),
+        })
+        .sum();
+    let statistic = (2.0 * (segmented - all.log_likelihood)).max(0.0);
+    let p_value = gamma_tails(degrees as f64 / 2.0, statistic / 2.0).upper;
+    Some(SegmentTest {
+        name: "likelihood ratio: one prior for all groups against one per segment".to_string(),
+        statistic,
+        degrees_of_freedom: degrees as u64,
+        p_value,
     })
 }
 
@@ -116,8 +366,8 @@ fn fit_warnings(fitted: &Fit) -> Vec<String> {
     }
 }
 
-fn describe_failure(failure: FitFailure, model: Model) -> Error {
-    Error::Fit(match failure {
+fn describe_failure(failure: FitFailure, model: Model) -> String {
+    match failure {
         FitFailure::Unidentifiable(Unidentifiable::MeanOnly { mean }) => format!(
             "only the prior mean ({mean:.6}) is identifiable: every group has at most one trial, so the data say nothing about how much groups differ; no strength is reported"
         ),
@@ -130,7 +380,7 @@ fn describe_failure(failure: FitFailure, model: Model) -> Error {
         FitFailure::NotConverged { iterations, gradient_norm } => {
             format!("the optimiser did not converge ({iterations} iterations, gradient norm {gradient_norm:.3e}); please report this with the input")
         }
-    })
+    }
 }
 
 fn boundary_name(boundary: Boundary) -> &'static str {
@@ -173,24 +423,30 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
     }
 }
 
-/// The prior held in a saved summary, checked against the model in use.
-fn prior_of_summary(summary: &Summary, path: &Path, model: Model) -> Result<Prior> {
-    if summary.model != model.name() {
+/// The prior held in a saved summary (its hyperprior, or a segment's),
+/// checked against the model in use.
+fn prior_of_hyperprior(
+    hyperprior: &Hyperprior,
+    saved_model: &str,
+    path: &Path,
+    model: Model,
+) -> Result<Prior> {
+    if saved_model != model.name() {
         return Err(Error::Input(format!(
             "{}: the prior is for the {} model, not {}",
             path.display(),
-            summary.model,
+            saved_model,
             model.name()
         )));
     }
-    if summary.hyperprior.model() != model.name() {
+    if hyperprior.model() != model.name() {
         return Err(Error::Input(format!(
             "{}: the hyperprior does not match the model {}",
             path.display(),
-            summary.model
+            saved_model
         )));
     }
-    let ((first, second), mean) = (summary.hyperprior.natural(), summary.hyperprior.mean());
+    let ((first, second), mean) = (hyperprior.natural(), hyperprior.mean());
     let valid = |v: f64| v.is_finite() && v > 0.0;
     match (first, second) {
         (Some(a), Some(b)) if valid(a) && valid(b) => Ok(Prior::Conjugate { natural: [a, b] }),

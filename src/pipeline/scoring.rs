@@ -2,24 +2,26 @@
 //! table, and the summary, all from the pair table and its posteriors.
 
 use super::prior::Scored;
+use super::segments::segment_values_per_pair;
 use super::validate::{cell_text, ColumnNames, Rejection};
 use super::{FlagEvent, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
-use crate::core::pairs::PairTable;
+use crate::core::pairs::WeightedPair;
 use crate::core::ranking::{competition_ranks, RankOrder};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues};
-use crate::report::{FlagReport, PullReport, Summary, ThresholdReport};
+use crate::report::{FlagReport, PullReport, SegmentReport, Summary, ThresholdReport};
+use arrow_array::ArrayRef;
 
 /// The output columns after the group column, each as its value per pair
 /// of the table (every one is a function of the row's pair): the counts
 /// under their input names, the raw rate, the posterior summaries and
 /// parameters.
 pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
-    let (pairs, posteriors) = (scored.table.pairs(), &scored.posteriors[..]);
+    let (pairs, posteriors) = (&scored.pairs[..], &scored.posteriors[..]);
     let each = |f: &dyn Fn(&Posterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
     let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
         PairValues::OptionalFloats(posteriors.iter().map(f).collect())
@@ -47,6 +49,13 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         parameter(0),
         parameter(1),
     ];
+    if !scored.segments.is_empty() {
+        let mut fallback = vec![false; pairs.len()];
+        for segment in scored.segments.iter().filter(|s| s.fallback.is_some()) {
+            fallback[segment.pairs.clone()].fill(true);
+        }
+        columns.push(("prior_fallback".to_string(), PairValues::Booleans(fallback)));
+    }
     if let Some(order) = job.ranks {
         let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
         let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
@@ -76,24 +85,33 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
     columns
 }
 
-/// The pair posterior table: one row per distinct pair with the number of
-/// groups sharing it and every per-pair output column, for joining back to
-/// the rows on the two count columns.
-pub fn pair_table_columns(job: &Job, scored: &Scored) -> Columns {
-    let mut columns: Columns =
+/// The pair posterior table: one row per distinct (segment, size, count)
+/// with the number of groups sharing it and every per-pair output column,
+/// for joining back to the rows on the segment and count columns.
+pub fn pair_table_columns(job: &Job, scored: &Scored) -> Result<Columns> {
+    let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
+    let segment_values = segment_values_per_pair(&samples, &scored.segment_of_pair())?;
+    let mut columns: Columns = job
+        .segments
+        .iter()
+        .zip(segment_values)
+        .map(|(name, values)| (name.clone(), ColumnValues::Arrow(values)))
+        .collect();
+    let mut per_pair: Columns =
         pair_columns(job, scored).into_iter().map(|(name, values)| (name, values.into_column())).collect();
     // The two count columns come first; the group count follows them.
-    let rest = columns.split_off(2);
-    let weights = scored.table.pairs().iter().map(|p| p.weight as i64).collect();
+    let rest = per_pair.split_off(2);
+    columns.extend(per_pair);
+    let weights = scored.pairs.iter().map(|p| p.weight as i64).collect();
     columns.push(("group_count".to_string(), ColumnValues::Integers(weights)));
     columns.extend(rest);
-    columns
+    Ok(columns)
 }
 
 /// Stages the pair posterior table, when one was asked for.
 pub fn stage_pair_output(job: &Job, scored: &Scored, staged: &mut StagedOutputs) -> Result<()> {
     if let Some(path) = &job.pair_output {
-        staged.add(crate::io::sink::write_table(pair_table_columns(job, scored), path)?);
+        staged.add(crate::io::sink::write_table(pair_table_columns(job, scored)?, path)?);
     }
     Ok(())
 }
@@ -140,9 +158,8 @@ impl RejectRows {
 }
 
 /// The pull summary over all groups, from each distinct pair and its posterior.
-pub fn pull_of_pairs(table: &PairTable, posteriors: &[Posterior]) -> Pull {
-    let outcomes: Vec<PairOutcome> = table
-        .pairs()
+pub fn pull_of_pairs(pairs: &[WeightedPair], posteriors: &[Posterior]) -> Pull {
+    let outcomes: Vec<PairOutcome> = pairs
         .iter()
         .zip(posteriors)
         .map(|(pair, post)| PairOutcome {
@@ -163,32 +180,62 @@ pub struct RowCounts {
     pub rejected: u64,
 }
 
-/// The run's summary; `max_shift_group` names a group of the pair that moved
-/// furthest (None when the groups themselves were not read).
-pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, max_shift_group: Option<String>) -> Summary {
-    let p = &scored.pull;
+/// The pull report of a pull summary, naming the group that moved furthest.
+fn pull_report(p: &Pull, max_shift_group: Option<String>) -> PullReport {
+    PullReport {
+        pool_weight_mean: p.pool_weight_mean,
+        pool_weight_median: p.pool_weight_median,
+        pool_weight_p10: p.pool_weight_p10,
+        pool_weight_p90: p.pool_weight_p90,
+        mean_abs_shift: p.mean_abs_shift,
+        max_abs_shift: p.max_abs_shift,
+        max_shift_group,
+        rank_correlation: p.rank_correlation,
+    }
+}
+
+/// Groups whose ids the summary names: the one that moved furthest over
+/// all groups and in each segment (None when the groups were not read).
+#[derive(Debug, Default)]
+pub struct ShiftGroups {
+    /// Over all groups.
+    pub all: Option<String>,
+    /// Per segment, in the order of [`Scored::segments`].
+    pub segments: Vec<Option<String>>,
+}
+
+/// The run's summary.
+pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGroups) -> Summary {
     let mut warnings = scored.warnings.clone();
     if rows.rejected > 0 {
         warnings.push(format!("{} rows were rejected and left out of the fit and the output", rows.rejected));
     }
+    named.segments.resize(scored.segments.len(), None);
+    let segments = scored
+        .segments
+        .iter()
+        .zip(named.segments)
+        .map(|(segment, shift_group)| SegmentReport {
+            key: job.segments.iter().cloned().zip(segment.key.iter().cloned()).collect(),
+            groups: segment.groups as u64,
+            hyperprior: segment.hyperprior.clone(),
+            fit: segment.fit.clone(),
+            pull: pull_report(&segment.pull, shift_group),
+            fallback: segment.fallback.clone(),
+        })
+        .collect();
     Summary {
         model: job.model.name().to_string(),
-        groups: scored.table.pairs().iter().map(|p| p.weight).sum::<f64>() as u64,
+        groups: scored.pairs.iter().map(|p| p.weight).sum::<f64>() as u64,
         rows_read: rows.read,
         rows_rejected: rows.rejected,
         level: job.level.get(),
         hyperprior: scored.hyperprior.clone(),
         fit: scored.fit.clone(),
-        pull: PullReport {
-            pool_weight_mean: p.pool_weight_mean,
-            pool_weight_median: p.pool_weight_median,
-            pool_weight_p10: p.pool_weight_p10,
-            pool_weight_p90: p.pool_weight_p90,
-            mean_abs_shift: p.mean_abs_shift,
-            max_abs_shift: p.max_abs_shift,
-            max_shift_group,
-            rank_correlation: p.rank_correlation,
-        },
+        pull: pull_report(&scored.pull, named.all),
+        segment_columns: job.segments.clone(),
+        segments,
+        segment_test: scored.segment_test.clone(),
         thresholds: (job.thresholds != Thresholds::default())
             .then_some(ThresholdReport { above: job.thresholds.above, below: job.thresholds.below }),
         flags: job.flag_fdr.zip(scored.flags.as_ref()).map(|(rule, flags)| FlagReport {

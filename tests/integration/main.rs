@@ -15,4 +15,5 @@ mod producers;
 mod properties;
 mod reference;
 mod scale;
+mod segments;
 mod util;

@@ -1,0 +1,292 @@
+//! Segments (`--by COL[,COL...]`): every row's segment from the values of
+//! the segment columns (a null is a value of its own, never merged with
+//! another), the segments numbered as they are met and then put in the
+//! order of their keys, and each segment's pairs.
+//!
+//! A segment is keyed by the text of its values (an integer by its decimal
+//! digits), so the same key read from CSV and from Parquet is one segment.
+
+use super::Job;
+use crate::core::pairs::{PairCounter, PairHasher, PairIndex, PairTable, WeightedPair};
+use crate::error::{Error, Result};
+use crate::io::cells::GroupColumn;
+use arrow_array::{Array, ArrayRef, UInt32Array};
+use std::collections::HashMap;
+use std::hash::BuildHasherDefault;
+
+/// A segment's values, one per segment column (None for null).
+pub type SegmentKey = Vec<Option<String>>;
+
+/// Segments past this many count their pairs without the dense array of a
+/// [`PairCounter`] (4 MB each), so many small segments stay small.
+const DENSE_SEGMENTS: usize = 16;
+
+/// The segment columns of one batch.
+pub struct SegmentColumns {
+    columns: Vec<GroupColumn>,
+}
+
+impl SegmentColumns {
+    /// The segment columns among a batch's columns.
+    pub fn of(arrays: &[ArrayRef]) -> Result<Self> {
+        Ok(SegmentColumns { columns: arrays.iter().map(GroupColumn::of).collect::<Result<_>>()? })
+    }
+
+    /// True when the run has no segment columns.
+    pub fn is_empty(&self) -> bool {
+        self.columns.is_empty()
+    }
+
+    /// The row's key as bytes: per column a tag (0 null, 1 a value), the
+    /// value's length and its bytes, so no two keys share an encoding.
+    fn encode(&self, row: usize, out: &mut Vec<u8>) {
+        out.clear();
+        for column in &self.columns {
+            if column.is_null(row) {
+                out.push(0);
+            } else {
+                out.push(1);
+                column.with_bytes(row, |bytes| {
+                    out.extend_from_slice(&(bytes.len() as u64).to_le_bytes());
+                    out.extend_from_slice(bytes);
+                });
+            }
+        }
+    }
+
+    /// The row's key.
+    fn key(&self, row: usize) -> SegmentKey {
+        self.columns.iter().map(|c| c.value_text(row)).collect()
+    }
+
+    /// The values at `rows`, one output column per segment column.
+    pub fn take(&self, rows: &[u32]) -> Vec<ArrayRef> {
+        self.columns.iter().map(|c| c.take(rows)).collect()
+    }
+}
+
+/// By the hash of a key's bytes: the keys with that hash and their numbers.
+type KeysByHash = HashMap<u64, Vec<(Vec<u8>, u32)>, BuildHasherDefault<PairHasher>>;
+
+/// Numbers segments in the order they are met.
+#[derive(Default)]
+pub struct SegmentIndex {
+    numbers: KeysByHash,
+    keys: Vec<SegmentKey>,
+    /// Per segment, one row of each segment column (for writing the key in
+    /// the column's own type).
+    samples: Vec<Vec<ArrayRef>>,
+    scratch: Vec<u8>,
+}
+
+impl SegmentIndex {
+    /// The number of the row's segment, numbering it if new.
+    pub fn number(&mut self, columns: &SegmentColumns, row: usize) -> u32 {
+        if let Some(found) = self.find(columns, row) {
+            return found;
+        }
+        let number = self.keys.len() as u32;
+        let hash = crate::pipeline::duplicates::hash_id(&self.scratch);
+        self.numbers.entry(hash).or_default().push((self.scratch.clone(), number));
+        self.keys.push(columns.key(row));
+        self.samples.push(columns.take(&[row as u32]));
+        number
+    }
+
+    /// The number of the row's segment, if it has been met.
+    pub fn find(&mut self, columns: &SegmentColumns, row: usize) -> Option<u32> {
+        columns.encode(row, &mut self.scratch);
+        let hash = crate::pipeline::duplicates::hash_id(&self.scratch);
+        let bucket = self.numbers.get(&hash)?;
+        bucket.iter().find(|(key, _)| *key == self.scratch).map(|&(_, number)| number)
+    }
+
+    /// Segments met.
+    pub fn len(&self) -> usize {
+        self.keys.len()
+    }
+
+    /// True when no segment was met.
+    pub fn is_empty(&self) -> bool {
+        self.keys.is_empty()
+    }
+}
+
+/// One segment's key and pairs.
+pub struct SegmentPairs {
+    /// Its values.
+    pub key: SegmentKey,
+    /// One row of each segment column holding the values.
+    pub samples: Vec<ArrayRef>,
+    /// Its distinct pairs.
+    pub table: PairTable,
+}
+
+/// Pair counts per segment, by the number the segment was met with.
+pub struct SegmentCounters {
+    counters: Vec<PairCounter>,
+}
+
+impl SegmentCounters {
+    /// No counts yet.
+    pub fn new() -> Self {
+        SegmentCounters { counters: Vec::new() }
+    }
+
+    /// The counter of segment `number`, made when first needed.
+    pub fn of(&mut self, number: u32) -> &mut PairCounter {
+        let number = number as usize;
+        while self.counters.len() <= number {
+            let counter = if self.counters.len() < DENSE_SEGMENTS {
+                PairCounter::default()
+            } else {
+                PairCounter::sparse()
+            };
+            self.counters.push(counter);
+        }
+        &mut self.counters[number]
+    }
+
+    /// The segments holding at least one group, in the order of their keys
+    /// (by text, nulls last), with each segment's number as met.
+    pub fn into_segments(self, index: &mut SegmentIndex) -> Vec<(u32, SegmentPairs)> {
+        if index.is_empty() {
+            // Not segmented: one segment of every pair.
+            let table = self.counters.into_iter().next().map(PairCounter::into_table).unwrap_or_default();
+            return vec![(0, SegmentPairs { key: Vec::new(), samples: Vec::new(), table })];
+        }
+        let mut segments: Vec<(u32, SegmentPairs)> = self
+            .counters
+            .into_iter()
+            .enumerate()
+            .map(|(number, counter)| {
+                let key = std::mem::take(&mut index.keys[number]);
+                let samples = std::mem::take(&mut index.samples[number]);
+                (number as u32, SegmentPairs { key, samples, table: counter.into_table() })
+            })
+            .filter(|(_, segment)| !segment.table.pairs().is_empty())
+            .collect();
+        segments.sort_by(|(_, x), (_, y)| compare_keys(&x.key, &y.key));
+        segments
+    }
+}
+
+impl Default for SegmentCounters {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+/// Keys in order: value by value, text order, a null after every text.
+fn compare_keys(x: &SegmentKey, y: &SegmentKey) -> std::cmp::Ordering {
+    let value = |a: &Option<String>, b: &Option<String>| match (a, b) {
+        (Some(a), Some(b)) => a.cmp(b),
+        (Some(_), None) => std::cmp::Ordering::Less,
+        (None, Some(_)) => std::cmp::Ordering::Greater,
+        (None, None) => std::cmp::Ordering::Equal,
+    };
+    x.iter().zip(y).map(|(a, b)| value(a, b)).find(|o| o.is_ne()).unwrap_or(std::cmp::Ordering::Equal)
+}
+
+/// Finds a row's pair number in the scored table from its segment (as met
+/// in pass 1) and its counts.
+pub struct PairLookup {
+    /// By the number a segment was met with: its pairs' index (numbered
+    /// over the whole table) and its place among the scored segments.
+    segments: Vec<Option<(PairIndex, u32)>>,
+}
+
+impl PairLookup {
+    /// The lookup for segments scored in the order given (`met` the number
+    /// each was met with), whose pairs lie in the table segment after segment.
+    pub fn new(met: &[u32], tables: &[&[WeightedPair]]) -> Self {
+        let mut segments: Vec<Option<(PairIndex, u32)>> = Vec::new();
+        let mut first = 0u32;
+        for (place, (&number, pairs)) in met.iter().zip(tables).enumerate() {
+            let number = number as usize;
+            if segments.len() <= number {
+                segments.resize_with(number + 1, || None);
+            }
+            let index = PairIndex::of_pairs(pairs, first, place < DENSE_SEGMENTS);
+            segments[number] = Some((index, place as u32));
+            first += pairs.len() as u32;
+        }
+        PairLookup { segments }
+    }
+
+    /// The pair number of (size, count) in the segment met as `segment`,
+    /// with the segment's place among the scored ones.
+    pub fn get(&self, segment: u32, size: f64, count: f64) -> Option<(u32, u32)> {
+        let (index, place) = self.segments.get(segment as usize)?.as_ref()?;
+        Some((index.get(size, count)?, *place))
+    }
+}
+
+/// Each pair's segment values as output columns (the column's own type),
+/// from each segment's sample row; `segment_of_pair` gives each pair's place.
+pub fn segment_values_per_pair(samples: &[&[ArrayRef]], segment_of_pair: &[u32]) -> Result<Vec<ArrayRef>> {
+    let columns = samples.first().map_or(0, |s| s.len());
+    let indices = UInt32Array::from(segment_of_pair.to_vec());
+    (0..columns)
+        .map(|c| {
+            let rows: Vec<&dyn Array> = samples.iter().map(|s| s[c].as_ref()).collect();
+            let values = arrow_select::concat::concat(&rows)?;
+            arrow_select::take::take(&values, &indices, None)
+        })
+        .collect::<std::result::Result<_, arrow_schema::ArrowError>>()
+        .map_err(|e| Error::Other(format!("cannot gather the segment values: {e}")))
+}
+
+/// The key as `column=value` text for messages.
+pub fn describe_key(job: &Job, key: &SegmentKey) -> String {
+    job.segments
+        .iter()
+        .zip(key)
+        .map(|(column, value)| format!("{column}={}", value.as_deref().unwrap_or("null")))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use arrow_array::{Int64Array, StringArray};
+    use std::sync::Arc;
+
+    #[test]
+    fn a_null_is_its_own_segment_and_keys_sort_with_nulls_last() {
+        let region: ArrayRef = Arc::new(StringArray::from(vec![Some("b"), None, Some("a"), Some(""), None]));
+        let tier: ArrayRef = Arc::new(Int64Array::from(vec![Some(1), Some(1), Some(1), Some(1), Some(1)]));
+        let columns = SegmentColumns::of(&[region, tier]).unwrap();
+        let mut index = SegmentIndex::default();
+        let numbers: Vec<u32> = (0..5).map(|row| index.number(&columns, row)).collect();
+        assert_eq!(numbers, vec![0, 1, 2, 3, 1], "null apart from the blank text, and the same null twice");
+        let mut counters = SegmentCounters::new();
+        for (row, &number) in numbers.iter().enumerate() {
+            counters.of(number).add(3.0, row as f64 % 2.0, 1.0);
+        }
+        let keys: Vec<SegmentKey> =
+            counters.into_segments(&mut index).into_iter().map(|(_, s)| s.key).collect();
+        let text = |v: &str| Some(v.to_string());
+        assert_eq!(
+            keys,
+            vec![
+                vec![text(""), text("1")],
+                vec![text("a"), text("1")],
+                vec![text("b"), text("1")],
+                vec![None, text("1")]
+            ]
+        );
+    }
+
+    #[test]
+    fn pairs_are_numbered_over_the_table_segment_after_segment() {
+        let pair = |size: f64, count: f64| WeightedPair { size, count, weight: 1.0 };
+        let (first, second) = ([pair(3.0, 1.0), pair(5.0, 2.0)], [pair(3.0, 1.0)]);
+        let lookup = PairLookup::new(&[4, 0], &[&first, &second]);
+        assert_eq!(lookup.get(4, 5.0, 2.0), Some((1, 0)));
+        assert_eq!(lookup.get(0, 3.0, 1.0), Some((2, 1)));
+        assert_eq!(lookup.get(0, 5.0, 2.0), None);
+        assert_eq!(lookup.get(2, 3.0, 1.0), None);
+    }
+}
