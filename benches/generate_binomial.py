@@ -9,10 +9,13 @@ share and a binomial number of positive ratings. Two mixes:
 - `lognormal`: ratings = min(20000, round(lognormal(ln 20, 1.8))), shares
   from Beta(3, 12); about 300,000 distinct pairs at 10M groups, a heavier
   mix.
+With a fourth argument K > 0 a `category` column of K invented labels
+(`category-0` ...) is added, drawn after the other columns from the same
+stream, so the other columns are the same with or without it.
 Rows are made in chunks of 1M, each chunk from its own stream of a fixed seed,
 so a file of N groups is the same whatever machine makes it.
 
-usage: python3 benches/generate_binomial.py GROUPS OUT.parquet|OUT.csv [pareto|lognormal]
+usage: python3 benches/generate_binomial.py GROUPS OUT.parquet|OUT.csv [pareto|lognormal] [K]
 """
 import sys
 
@@ -25,7 +28,7 @@ SEED = 20261202
 CHUNK = 1_000_000
 
 
-def chunk(stream: np.random.Generator, first_id: int, rows: int, mix: str) -> pa.Table:
+def chunk(stream: np.random.Generator, first_id: int, rows: int, mix: str, categories: int) -> pa.Table:
     if mix == "lognormal":
         ratings = np.minimum(20_000, np.round(stream.lognormal(np.log(20.0), 1.8, rows))).astype(np.int64)
         share = stream.beta(3.0, 12.0, rows)
@@ -34,18 +37,23 @@ def chunk(stream: np.random.Generator, first_id: int, rows: int, mix: str) -> pa
         share = stream.beta(18.0, 2.0, rows)
     positive = stream.binomial(ratings, share).astype(np.int64)
     ids = np.arange(first_id, first_id + rows, dtype=np.int64)
-    return pa.table({"seller_id": ids, "positive_ratings": positive, "total_ratings": ratings})
+    columns = {"seller_id": ids, "positive_ratings": positive, "total_ratings": ratings}
+    if categories > 0:
+        labels = np.array([f"category-{i}" for i in range(categories)])
+        columns["category"] = labels[stream.integers(0, categories, rows)]
+    return pa.table(columns)
 
 
 def main() -> None:
     groups, out = int(sys.argv[1]), sys.argv[2]
     mix = sys.argv[3] if len(sys.argv) > 3 else "pareto"
+    categories = int(sys.argv[4]) if len(sys.argv) > 4 else 0
     chunks = (groups + CHUNK - 1) // CHUNK
     streams = [np.random.default_rng(s) for s in np.random.SeedSequence(SEED).spawn(chunks)]
     writer = None
     for index, stream in enumerate(streams):
         rows = min(CHUNK, groups - index * CHUNK)
-        table = chunk(stream, index * CHUNK, rows, mix)
+        table = chunk(stream, index * CHUNK, rows, mix, categories)
         if writer is None and out.endswith(".csv"):
             writer = pacsv.CSVWriter(out, table.schema)
         elif writer is None:

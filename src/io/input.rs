@@ -10,6 +10,10 @@ use crate::error::{Error, Result};
 use arrow_array::ArrayRef;
 use std::path::{Path, PathBuf};
 
+/// The role of a column that keys segments: Parquet text in this role is
+/// read dictionary-encoded (see [`crate::pipeline::segments`]).
+pub const SEGMENT_ROLE: &str = "segment";
+
 /// One batch of input rows.
 pub struct InputBatch<'a> {
     /// The file the rows come from (a part, for a folder of parts).

@@ -5,11 +5,14 @@
 
 use super::guard::guard_read;
 use super::input::InputBatch;
+use super::input::SEGMENT_ROLE;
 use crate::error::{Error, Result};
-use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+use arrow_schema::{DataType, Field, Schema};
+use parquet::arrow::arrow_reader::{ArrowReaderOptions, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
 use std::fs::File;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 /// A Parquet file or folder of parts, with the columns to read.
 pub struct ParquetParts {
@@ -17,6 +20,8 @@ pub struct ParquetParts {
     /// Rows of each file, from its footer.
     file_rows: Vec<usize>,
     columns: Vec<String>,
+    /// Columns read dictionary-encoded where they hold text.
+    dictionary: Vec<String>,
     batch_rows: usize,
     folder: bool,
 }
@@ -69,13 +74,58 @@ impl ParquetParts {
                 }
             }
         }
+        let dictionary = columns
+            .iter()
+            .filter(|(_, role)| *role == SEGMENT_ROLE)
+            .map(|(name, _)| name.to_string())
+            .collect();
         let columns = columns.iter().map(|(name, _)| name.to_string()).collect();
-        Ok(ParquetParts { files, file_rows, columns, batch_rows: batch_rows.max(1), folder: path.is_dir() })
+        Ok(ParquetParts {
+            files,
+            file_rows,
+            columns,
+            dictionary,
+            batch_rows: batch_rows.max(1),
+            folder: path.is_dir(),
+        })
     }
 
     fn builder(file: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
         let handle = File::open(file).map_err(|e| read_error(file, e))?;
         guard_read(file, || ParquetRecordBatchReaderBuilder::try_new(handle).map_err(|e| read_error(file, e)))
+    }
+
+    /// The reader of `file`, with the text columns of `dictionary` read as
+    /// dictionaries: pages already dictionary-encoded then decode to their
+    /// indices, and no text is copied per row.
+    fn reader_builder(&self, file: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
+        let builder = Self::builder(file)?;
+        if self.dictionary.is_empty() {
+            return Ok(builder);
+        }
+        let schema = builder.schema();
+        let fields: Vec<Field> = schema
+            .fields()
+            .iter()
+            .map(|field| match field.data_type() {
+                DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View
+                    if self.dictionary.contains(field.name()) =>
+                {
+                    let text = Box::new(DataType::Utf8);
+                    field
+                        .as_ref()
+                        .clone()
+                        .with_data_type(DataType::Dictionary(Box::new(DataType::Int32), text))
+                }
+                _ => field.as_ref().clone(),
+            })
+            .collect();
+        let options = ArrowReaderOptions::new().with_schema(Arc::new(Schema::new(fields)));
+        let handle = File::open(file).map_err(|e| read_error(file, e))?;
+        guard_read(file, || {
+            ParquetRecordBatchReaderBuilder::try_new_with_options(handle, options)
+                .map_err(|e| read_error(file, e))
+        })
     }
 
     /// True when the input is a folder of parts.
@@ -92,7 +142,7 @@ impl ParquetParts {
     pub fn for_each_batch<'s>(&'s self, mut visit: impl FnMut(InputBatch<'s>) -> Result<()>) -> Result<()> {
         let mut first_row = 0;
         for file in &self.files {
-            let builder = Self::builder(file)?;
+            let builder = self.reader_builder(file)?;
             let schema = builder.schema().clone();
             let roots: Vec<usize> =
                 self.columns.iter().filter_map(|name| schema.index_of(name).ok()).collect();

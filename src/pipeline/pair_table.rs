@@ -20,7 +20,7 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     let names = &job.columns;
     let mut columns =
         vec![(weights, "group count"), (names.count.as_str(), count_role), (names.size.as_str(), size_role)];
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), "segment")));
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
     let input = Input::open(&job.input, job.delimiter, &columns, DEFAULT_BATCH_ROWS)?;
     let (mut counters, mut index, mut rows) = (SegmentCounters::new(), SegmentIndex::default(), 0);
     input.for_each_batch(|batch| {

@@ -145,7 +145,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
         (names.count.as_str(), count_role),
         (names.size.as_str(), size_role),
     ];
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), "segment")));
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
     let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
     let mut first = count_pairs(job, &input, &mut clock)?;
     clock.lap("pass 1: read, validate, count pairs");

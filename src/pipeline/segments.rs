@@ -10,7 +10,10 @@ use super::Job;
 use crate::core::pairs::{PairCounter, PairHasher, PairIndex, PairTable, WeightedPair};
 use crate::error::{Error, Result};
 use crate::io::cells::GroupColumn;
+use arrow_array::cast::AsArray;
 use arrow_array::{Array, ArrayRef, UInt32Array};
+use arrow_schema::DataType;
+use std::cell::Cell;
 use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
 
@@ -21,15 +24,87 @@ pub type SegmentKey = Vec<Option<String>>;
 /// [`PairCounter`] (4 MB each), so many small segments stay small.
 const DENSE_SEGMENTS: usize = 16;
 
+/// One segment column of a batch: plain values, or dictionary-encoded
+/// (Parquet text is read so: see [`crate::io::input::SEGMENT_ROLE`]).
+enum SegmentColumn {
+    Plain(GroupColumn),
+    Dictionary {
+        /// The column as read.
+        column: ArrayRef,
+        /// Each row's index into `values`.
+        keys: Vec<usize>,
+        values: GroupColumn,
+    },
+}
+
+impl SegmentColumn {
+    fn of(array: &ArrayRef) -> Result<Self> {
+        match array.as_any_dictionary_opt() {
+            Some(dictionary) => Ok(SegmentColumn::Dictionary {
+                column: array.clone(),
+                keys: dictionary.normalized_keys(),
+                values: GroupColumn::of(dictionary.values())?,
+            }),
+            None => Ok(SegmentColumn::Plain(GroupColumn::of(array)?)),
+        }
+    }
+
+    /// Where the row's value lies: a column and a row of it, None for null.
+    fn value(&self, row: usize) -> Option<(&GroupColumn, usize)> {
+        match self {
+            SegmentColumn::Plain(values) => (!values.is_null(row)).then_some((values, row)),
+            SegmentColumn::Dictionary { column, keys, values } => {
+                let at = keys[row];
+                (!column.is_null(row) && !values.is_null(at)).then_some((values, at))
+            }
+        }
+    }
+
+    /// The values at `rows`, in the column's own type (a dictionary's values' type).
+    fn take(&self, rows: &[u32]) -> ArrayRef {
+        match self {
+            SegmentColumn::Plain(values) => values.take(rows),
+            SegmentColumn::Dictionary { column, .. } => {
+                let taken = arrow_select::take::take(column, &UInt32Array::from(rows.to_vec()), None)
+                    .expect("indices are rows of the batch");
+                plain(&taken)
+            }
+        }
+    }
+}
+
+/// A dictionary-encoded column as plain values of its values' type (any
+/// other column as it is).
+fn plain(array: &ArrayRef) -> ArrayRef {
+    match array.data_type() {
+        DataType::Dictionary(_, values) => {
+            arrow_cast::cast(array, values).expect("a dictionary casts to its values' type")
+        }
+        _ => array.clone(),
+    }
+}
+
 /// The segment columns of one batch.
 pub struct SegmentColumns {
-    columns: Vec<GroupColumn>,
+    columns: Vec<SegmentColumn>,
+    /// With one dictionary-encoded column: the segment number of each
+    /// dictionary entry (the last slot for null) once it has been looked up,
+    /// so a row costs one array access, not a hash of its text.
+    by_entry: Vec<Cell<u32>>,
 }
+
+/// A slot of [`SegmentColumns::by_entry`] not yet looked up.
+const NOT_LOOKED_UP: u32 = u32::MAX;
 
 impl SegmentColumns {
     /// The segment columns among a batch's columns.
     pub fn of(arrays: &[ArrayRef]) -> Result<Self> {
-        Ok(SegmentColumns { columns: arrays.iter().map(GroupColumn::of).collect::<Result<_>>()? })
+        let columns: Vec<SegmentColumn> = arrays.iter().map(SegmentColumn::of).collect::<Result<_>>()?;
+        let by_entry = match &columns[..] {
+            [SegmentColumn::Dictionary { values, .. }] => vec![Cell::new(NOT_LOOKED_UP); values.len() + 1],
+            _ => Vec::new(),
+        };
+        Ok(SegmentColumns { columns, by_entry })
     }
 
     /// True when the run has no segment columns.
@@ -37,26 +112,34 @@ impl SegmentColumns {
         self.columns.is_empty()
     }
 
+    /// The row's slot in [`SegmentColumns::by_entry`], when there is one.
+    fn entry(&self, row: usize) -> Option<&Cell<u32>> {
+        let [SegmentColumn::Dictionary { column, keys, .. }] = &self.columns[..] else { return None };
+        let slot = if column.is_null(row) { self.by_entry.len() - 1 } else { keys[row] };
+        self.by_entry.get(slot)
+    }
+
     /// The row's key as bytes: per column a tag (0 null, 1 a value), the
     /// value's length and its bytes, so no two keys share an encoding.
     fn encode(&self, row: usize, out: &mut Vec<u8>) {
         out.clear();
         for column in &self.columns {
-            if column.is_null(row) {
-                out.push(0);
-            } else {
-                out.push(1);
-                column.with_bytes(row, |bytes| {
-                    out.extend_from_slice(&(bytes.len() as u64).to_le_bytes());
-                    out.extend_from_slice(bytes);
-                });
+            match column.value(row) {
+                None => out.push(0),
+                Some((values, at)) => {
+                    out.push(1);
+                    values.with_bytes(at, |bytes| {
+                        out.extend_from_slice(&(bytes.len() as u64).to_le_bytes());
+                        out.extend_from_slice(bytes);
+                    });
+                }
             }
         }
     }
 
     /// The row's key.
     fn key(&self, row: usize) -> SegmentKey {
-        self.columns.iter().map(|c| c.value_text(row)).collect()
+        self.columns.iter().map(|c| c.value(row).and_then(|(values, at)| values.value_text(at))).collect()
     }
 
     /// The values at `rows`, one output column per segment column.
@@ -85,16 +168,38 @@ impl SegmentIndex {
         if let Some(found) = self.find(columns, row) {
             return found;
         }
+        self.insert(columns, row)
+    }
+
+    /// Numbers the segment of a row not yet met (its key in `scratch`).
+    fn insert(&mut self, columns: &SegmentColumns, row: usize) -> u32 {
         let number = self.keys.len() as u32;
         let hash = crate::pipeline::duplicates::hash_id(&self.scratch);
         self.numbers.entry(hash).or_default().push((self.scratch.clone(), number));
         self.keys.push(columns.key(row));
         self.samples.push(columns.take(&[row as u32]));
+        if let Some(entry) = columns.entry(row) {
+            entry.set(number);
+        }
         number
     }
 
     /// The number of the row's segment, if it has been met.
     pub fn find(&mut self, columns: &SegmentColumns, row: usize) -> Option<u32> {
+        let entry = columns.entry(row);
+        if let Some(known) = entry.map(Cell::get).filter(|&n| n != NOT_LOOKED_UP) {
+            return Some(known);
+        }
+        let found = self.find_by_key(columns, row);
+        if let (Some(entry), Some(number)) = (entry, found) {
+            entry.set(number);
+        }
+        found
+    }
+
+    /// The number of the row's segment, if it has been met, by its key's bytes
+    /// (left in `scratch`).
+    fn find_by_key(&mut self, columns: &SegmentColumns, row: usize) -> Option<u32> {
         columns.encode(row, &mut self.scratch);
         let hash = crate::pipeline::duplicates::hash_id(&self.scratch);
         let bucket = self.numbers.get(&hash)?;

@@ -299,3 +299,67 @@ fn segmented_output_is_the_same_bytes_for_any_batch_size_and_thread_count() {
     assert_eq!(read("a.parquet"), read("b.parquet"));
     assert_eq!(read("a.parquet"), read("c.parquet"));
 }
+
+/// Writes `input`'s rows as Parquet with the segment column `kind` as
+/// `dictionary` (an arrow dictionary column) or plain text (arrow-rs still
+/// writes dictionary pages), nulls where the CSV field is empty.
+fn as_parquet(dir: &Path, input: &str, output: &str, dictionary: bool) {
+    use arrow_array::types::Int32Type;
+    use arrow_array::{ArrayRef, DictionaryArray, Int64Array, RecordBatch, StringArray};
+    use std::sync::Arc;
+    let table = Csv::read(&dir.join(input));
+    let kinds: Vec<Option<String>> =
+        table.column("kind").into_iter().map(|k| (!k.is_empty()).then_some(k)).collect();
+    let kind: ArrayRef = if dictionary {
+        Arc::new(kinds.iter().map(|k| k.as_deref()).collect::<DictionaryArray<Int32Type>>())
+    } else {
+        Arc::new(StringArray::from(kinds))
+    };
+    let int = |name: &str| -> ArrayRef {
+        Arc::new(Int64Array::from(
+            table.column(name).iter().map(|v| v.parse::<i64>().unwrap()).collect::<Vec<_>>(),
+        ))
+    };
+    let batch = RecordBatch::try_from_iter([
+        ("unit", Arc::new(StringArray::from(table.column("unit"))) as ArrayRef),
+        ("kind", kind),
+        ("hits", int("hits")),
+        ("tries", int("tries")),
+    ])
+    .unwrap();
+    let file = std::fs::File::create(dir.join(output)).unwrap();
+    let mut writer = parquet::arrow::ArrowWriter::try_new(file, batch.schema(), None).unwrap();
+    writer.write(&batch).unwrap();
+    writer.close().unwrap();
+}
+
+#[test]
+fn parquet_segments_read_as_dictionaries_or_text_give_the_csv_output() {
+    let dir = tempfile::tempdir().unwrap();
+    let both = two_reference_segments(dir.path());
+    // Some null segment values, a third segment of their own.
+    let text = std::fs::read_to_string(dir.path().join(&both)).unwrap();
+    let text: String = text
+        .lines()
+        .enumerate()
+        .map(|(i, l)| if i % 7 == 3 { l.replacen(",spread,", ",,", 1) } else { l.to_string() } + "\n")
+        .collect();
+    let input = write(dir.path(), "with-nulls.csv", &text);
+    as_parquet(dir.path(), &input, "dictionary.parquet", true);
+    as_parquet(dir.path(), &input, "text.parquet", false);
+    let args = ["--by", "kind", "--above", "0.3", "--pair-output"];
+    fit(dir.path(), &input, &[&args[..], &["csv-pairs.csv", "--output", "from-csv.csv"]].concat());
+    for parquet in ["dictionary.parquet", "text.parquet"] {
+        let (output, pairs) = (format!("{parquet}.csv"), format!("{parquet}-pairs.csv"));
+        fit(
+            dir.path(),
+            parquet,
+            &[&args[..], &[&pairs, "--output", &output, "--batch-rows", "100"]].concat(),
+        );
+        let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
+        assert_eq!(read(&output), read("from-csv.csv"), "{parquet}");
+        assert_eq!(read(&pairs), read("csv-pairs.csv"), "{parquet}");
+    }
+    let out = Csv::read(&dir.path().join("from-csv.csv"));
+    assert!(out.column("kind").iter().any(String::is_empty), "the null segment is written as null");
+}
