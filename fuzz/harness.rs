@@ -47,6 +47,7 @@ pub fn exercise(data: &[u8]) {
         flag_fdr: Some(FlagRule { event: FlagEvent::Above, bound: 0.1 }),
         segments: Vec::new(),
         min_groups: ratepool::pipeline::DEFAULT_MIN_GROUPS,
+        aggregation: Default::default(),
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -5,8 +5,8 @@ use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
-    load_summary, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder,
-    Thresholds,
+    load_summary, Aggregation, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource,
+    RankOrder, Thresholds,
 };
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -100,6 +100,15 @@ pub struct TableArgs {
     /// Add `prob_below`: each group's posterior probability that its rate is below T.
     #[arg(long, value_name = "T", allow_negative_numbers = true)]
     pub below: Option<f64>,
+    /// Rows are trials: this column holds each trial's outcome (1 or 0, true or false), and
+    /// trials and successes are counted per group before the fit (beta-binomial; --successes
+    /// and --trials then name the output's count columns, by default `successes` and `trials`).
+    #[arg(long, value_name = "COLUMN")]
+    pub outcome: Option<String>,
+    /// Rows are parts of groups (one row per store per day, say): counts and sizes are summed
+    /// per group id (per segment with --by) before the fit. Memory grows with the groups.
+    #[arg(long)]
+    pub aggregate: bool,
     /// Fit one prior per segment: the rows sharing the values of these columns (comma-separated
     /// names). The segment columns are written beside the group id, and `prior_fallback` says
     /// which rows took the prior fitted to all groups.
@@ -314,6 +323,47 @@ fn refuse(value: &Option<String>, flag: &str, model: Model) -> Result<()> {
     }
 }
 
+/// What a row is, and the count and size columns (read, or with `--outcome`
+/// the names the summed trials are written under).
+fn rows_and_columns(
+    table: &TableArgs,
+    model: Model,
+    pair_counts: bool,
+) -> Result<(Aggregation, String, String)> {
+    let refused =
+        |what: &str| Err(Error::Usage(format!("{what} does not apply to a pair table (--pair-counts)")));
+    match (&table.outcome, table.aggregate) {
+        (Some(_), _) | (None, true) if pair_counts => {
+            refused(if table.aggregate { "--aggregate" } else { "--outcome" })
+        }
+        (Some(column), _) => {
+            if !model.terms().whole_sizes {
+                return Err(Error::Usage(format!(
+                    "--outcome reads trials of 0 or 1, for the beta-binomial model, not {}",
+                    model.name()
+                )));
+            }
+            let terms = model.terms();
+            let named = |role: &str| {
+                let given =
+                    column_options(table).iter().find(|(r, _)| *r == role).and_then(|(_, v)| (*v).clone());
+                given.unwrap_or_else(|| role.to_string())
+            };
+            let (count, size) = (named(terms.count_role), named(terms.size_role));
+            if [&count, &size].contains(&column) {
+                return Err(Error::Usage(format!(
+                    "--outcome '{column}' is also named as an output count column"
+                )));
+            }
+            Ok((Aggregation::Outcome(column.clone()), count, size))
+        }
+        (None, aggregate) => {
+            let (count, size) = model_columns(table, model)?;
+            Ok((if aggregate { Aggregation::Sum } else { Aggregation::Groups }, count, size))
+        }
+    }
+}
+
 fn job_of(
     table: &TableArgs,
     pair_counts: Option<&String>,
@@ -321,7 +371,7 @@ fn job_of(
     prior: PriorSource,
     report: Reporting,
 ) -> Result<Job> {
-    let (count, size) = model_columns(table, model)?;
+    let (aggregation, count, size) = rows_and_columns(table, model, pair_counts.is_some())?;
     let invalid = match (table.on_invalid, &table.rejects) {
         (InvalidArg::Error, None) => InvalidRows::Fail,
         (InvalidArg::Error, Some(_)) => {
@@ -349,6 +399,7 @@ fn job_of(
         flag_fdr: flag_rule(table)?,
         segments,
         min_groups: table.min_groups,
+        aggregation,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),

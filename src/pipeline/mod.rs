@@ -4,6 +4,7 @@
 //! group (any input, read in two batched passes: [`passes`]), and a
 //! pre-aggregated pair table that yields only the summary.
 
+mod aggregate;
 pub mod duplicates;
 mod pair_table;
 pub mod passes;
@@ -47,6 +48,19 @@ pub struct FlagRule {
     pub event: FlagEvent,
     /// Q: the largest mean posterior probability of no event among the flagged.
     pub bound: f64,
+}
+
+/// What a row of the input is.
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
+pub enum Aggregation {
+    /// A group: its id appears once.
+    #[default]
+    Groups,
+    /// One trial of a group, its outcome (0/1, true/false) in this column;
+    /// trials and successes are counted per group.
+    Outcome(String),
+    /// A part of a group: counts and sizes are summed per group id.
+    Sum,
 }
 
 /// A credible level strictly between 0 and 1.
@@ -154,6 +168,8 @@ pub struct Job {
     pub ranks: Option<RankOrder>,
     /// Flags under a posterior false-discovery rate, when asked for.
     pub flag_fdr: Option<FlagRule>,
+    /// What a row is: a group, a trial, or a part of a group.
+    pub aggregation: Aggregation,
     /// Segment columns: one prior per segment (empty: one prior for all).
     pub segments: Vec<String>,
     /// A segment with fewer groups takes the prior fitted to all groups.
@@ -237,7 +253,10 @@ pub fn load_summary(path: &Path) -> Result<Summary> {
 /// Runs a job and returns its summary (also written to the summary file).
 pub fn run(job: &Job) -> Result<Summary> {
     match &job.layout {
-        Layout::Groups { output, batch_rows } => passes::run(job, output, *batch_rows),
+        Layout::Groups { output, batch_rows } if job.aggregation == Aggregation::Groups => {
+            passes::run(job, output, *batch_rows)
+        }
+        Layout::Groups { output, batch_rows } => aggregate::run(job, output, *batch_rows),
         Layout::PairCounts { weights } => pair_table::run(job, weights),
     }
 }

@@ -35,7 +35,7 @@ use std::path::Path;
 const MAX_EXACT: i64 = 1 << 53;
 
 /// One batch's columns, read once per batch in the forms the check needs.
-struct BatchView<'a> {
+pub(super) struct BatchView<'a> {
     batch: &'a InputBatch<'a>,
     group: GroupColumn,
     counts: NumericColumn,
@@ -44,7 +44,7 @@ struct BatchView<'a> {
 }
 
 impl<'a> BatchView<'a> {
-    fn of(batch: &'a InputBatch<'a>) -> Result<Self> {
+    pub(super) fn of(batch: &'a InputBatch<'a>) -> Result<Self> {
         Ok(BatchView {
             batch,
             group: GroupColumn::of(&batch.columns[0])?,
@@ -91,7 +91,7 @@ impl<'a> BatchView<'a> {
 
     /// The one validation kernel: (size, count) of a valid row, or the
     /// first fault of an invalid one (`row` 0-based within the batch).
-    fn check(&self, job: &Job, row: usize) -> Result<std::result::Result<(f64, f64), Rejection>> {
+    pub(super) fn check(&self, job: &Job, row: usize) -> Result<std::result::Result<(f64, f64), Rejection>> {
         let names = &job.columns;
         let reject = |column: &str, reason: String| Rejection { row, column: column.to_string(), reason };
         if self.group.is_missing(row) {
@@ -107,13 +107,15 @@ impl<'a> BatchView<'a> {
 }
 
 /// The first row fault met, with where it lies.
-struct RowFault {
+pub(super) struct RowFault {
     /// 0-based row over the whole input.
     row: usize,
-    error: Error,
+    /// The error naming the row and column.
+    pub(super) error: Error,
 }
 
-fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFault {
+/// The fault of a row of `batch`, placed in its file.
+pub(super) fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFault {
     RowFault {
         row: batch.first_row + rejection.row,
         error: Error::InvalidRow {
@@ -429,6 +431,7 @@ mod tests {
             flag_fdr: None,
             segments: Vec::new(),
             min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
+            aggregation: Default::default(),
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

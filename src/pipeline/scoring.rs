@@ -2,7 +2,7 @@
 //! table, and the summary, all from the pair table and its posteriors.
 
 use super::prior::Scored;
-use super::segments::segment_values_per_pair;
+use super::segments::segment_values_at;
 use super::validate::{cell_text, ColumnNames, Rejection};
 use super::{FlagEvent, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
@@ -90,7 +90,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
 /// for joining back to the rows on the segment and count columns.
 pub fn pair_table_columns(job: &Job, scored: &Scored) -> Result<Columns> {
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
-    let segment_values = segment_values_per_pair(&samples, &scored.segment_of_pair())?;
+    let segment_values = segment_values_at(&samples, &scored.segment_of_pair())?;
     let mut columns: Columns = job
         .segments
         .iter()
@@ -143,17 +143,21 @@ impl RejectRows {
         self.rows.is_empty()
     }
 
-    /// Takes the rows held, as the columns of the rejects table.
+    /// Takes the rows held, as the columns of the rejects table (without a
+    /// size column when `names.size` is empty: rows of trials have none).
     pub fn take_columns(&mut self, names: &ColumnNames) -> Columns {
         let taken = std::mem::take(self);
-        vec![
+        let mut columns = vec![
             ("row".to_string(), ColumnValues::Integers(taken.rows)),
             (names.group.clone(), ColumnValues::Texts(taken.groups)),
             (names.count.clone(), ColumnValues::Texts(taken.counts)),
-            (names.size.clone(), ColumnValues::Texts(taken.sizes)),
-            ("column".to_string(), ColumnValues::Texts(taken.columns)),
-            ("reason".to_string(), ColumnValues::Texts(taken.reasons)),
-        ]
+        ];
+        if !names.size.is_empty() {
+            columns.push((names.size.clone(), ColumnValues::Texts(taken.sizes)));
+        }
+        columns.push(("column".to_string(), ColumnValues::Texts(taken.columns)));
+        columns.push(("reason".to_string(), ColumnValues::Texts(taken.reasons)));
+        columns
     }
 }
 

@@ -327,11 +327,12 @@ impl PairLookup {
     }
 }
 
-/// Each pair's segment values as output columns (the column's own type),
-/// from each segment's sample row; `segment_of_pair` gives each pair's place.
-pub fn segment_values_per_pair(samples: &[&[ArrayRef]], segment_of_pair: &[u32]) -> Result<Vec<ArrayRef>> {
+/// The segment values of rows (or pairs) as output columns, in each
+/// column's own type, from each segment's sample row; `places` gives each
+/// row's segment by its place among `samples`.
+pub fn segment_values_at(samples: &[&[ArrayRef]], places: &[u32]) -> Result<Vec<ArrayRef>> {
     let columns = samples.first().map_or(0, |s| s.len());
-    let indices = UInt32Array::from(segment_of_pair.to_vec());
+    let indices = UInt32Array::from(places.to_vec());
     (0..columns)
         .map(|c| {
             let rows: Vec<&dyn Array> = samples.iter().map(|s| s[c].as_ref()).collect();

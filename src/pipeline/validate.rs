@@ -108,6 +108,20 @@ pub fn check_values<'a>(
     }
 }
 
+/// One trial's outcome (`--outcome`): 1 or 0 (as whole numbers, 1.0 and
+/// 0.0 included), or true or false in any case.
+pub fn outcome(cell: &Cell) -> Result<f64, String> {
+    const RULE: &str = "an outcome is 1 or 0 (or true or false)";
+    match cell {
+        Cell::Missing => Err(format!("missing value; {RULE}")),
+        Cell::Integer(v @ (0 | 1)) => Ok(*v as f64),
+        Cell::Number(v) if *v == 0.0 || *v == 1.0 => Ok(*v),
+        Cell::Text(t) if t.eq_ignore_ascii_case("true") => Ok(1.0),
+        Cell::Text(t) if t.eq_ignore_ascii_case("false") => Ok(0.0),
+        other => Err(format!("{} is not an outcome; {RULE}", describe(other))),
+    }
+}
+
 /// A number of groups sharing a pair, in a pre-aggregated pair table: a whole
 /// count, at least 1.
 pub fn group_count(cell: &Cell) -> Result<f64, String> {
@@ -153,6 +167,18 @@ mod tests {
             |count: i128| check_values(&names, SizeKind::Exposure, &Cell::Integer(count), &Cell::Number(0.0));
         assert_eq!(check(0), Ok((0.0, 0.0)));
         assert_eq!(check(2).unwrap_err().0, "n");
+    }
+
+    #[test]
+    fn outcomes_are_one_or_zero_or_true_or_false() {
+        assert_eq!(outcome(&Cell::Integer(1)), Ok(1.0));
+        assert_eq!(outcome(&Cell::Number(0.0)), Ok(0.0));
+        assert_eq!(outcome(&Cell::Text("TRUE".into())), Ok(1.0));
+        assert_eq!(outcome(&Cell::Text("false".into())), Ok(0.0));
+        assert!(outcome(&Cell::Integer(2)).unwrap_err().starts_with("2 is not an outcome"));
+        assert!(outcome(&Cell::Number(0.5)).is_err());
+        assert!(outcome(&Cell::Text("yes".into())).unwrap_err().contains("'yes'"));
+        assert!(outcome(&Cell::Missing).unwrap_err().starts_with("missing value"));
     }
 
     #[test]

@@ -2,6 +2,7 @@
 //! libraries outside the project, end-to-end fits against them, facts of the
 //! trade, and the command line's contract (exit codes, errors, files).
 
+mod aggregation;
 mod cli;
 mod decisions;
 mod edges;
