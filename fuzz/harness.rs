@@ -48,6 +48,7 @@ pub fn exercise(data: &[u8]) {
         segments: Vec::new(),
         min_groups: ratepool::pipeline::DEFAULT_MIN_GROUPS,
         aggregation: Default::default(),
+        top: None,
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -6,7 +6,7 @@ use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
     load_summary, Aggregation, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource,
-    RankOrder, Thresholds,
+    RankOrder, Thresholds, TopChoice, TopRule,
 };
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -58,6 +58,17 @@ pub enum InvalidArg {
     Error,
     /// Leave invalid rows out and write them to --rejects.
     Skip,
+}
+
+/// How prob_top is computed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum TopMethodArg {
+    /// Draws up to 50,000 groups, the threshold beyond.
+    Auto,
+    /// Joint draws from every posterior.
+    Draws,
+    /// The threshold with K groups expected beyond it.
+    Threshold,
 }
 
 /// Options shared by fit and score.
@@ -132,6 +143,24 @@ pub struct TableArgs {
     /// upper interval bound), for rates where low is good.
     #[arg(long)]
     pub rank_lowest_first: bool,
+    /// Add `prob_top`: each group's posterior probability of being among the K highest rates
+    /// (the K lowest with --rank-lowest-first), jointly over all groups.
+    #[arg(long, value_name = "K")]
+    pub top: Option<usize>,
+    /// How prob_top is computed: `draws` (joint draws from every posterior), `threshold`
+    /// (each group's probability beyond the rate c where K groups are expected beyond it:
+    /// exact in the limit of many groups), or `auto`: draws up to 50,000 groups (1e8 group
+    /// draws), the threshold beyond.
+    #[arg(long, value_enum, default_value_t = TopMethodArg::Auto)]
+    pub top_method: TopMethodArg,
+    /// Draws for prob_top (default: 1e8 / groups, at least 2,000 and at most 100,000; each
+    /// draw averages exact posterior tail probabilities: see benches/results/prob-top-accuracy.txt).
+    #[arg(long, value_name = "N")]
+    pub top_draws: Option<usize>,
+    /// Seed of the draws for prob_top (recorded in the summary): the same seed gives the
+    /// same bits on any number of threads.
+    #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
+    pub seed: u64,
     /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
     #[arg(long, default_value_t = 0.95)]
     pub level: f64,
@@ -287,6 +316,23 @@ fn segment_columns(table: &TableArgs, others: [&String; 3]) -> Result<Vec<String
     Ok(table.by.clone())
 }
 
+/// The rule of `--top K`.
+fn top_rule(table: &TableArgs) -> Result<Option<TopRule>> {
+    let Some(k) = table.top else { return Ok(None) };
+    if k == 0 {
+        return Err(Error::Usage("--top must be at least 1".to_string()));
+    }
+    if table.top_draws == Some(0) {
+        return Err(Error::Usage("--top-draws must be at least 1".to_string()));
+    }
+    let method = match table.top_method {
+        TopMethodArg::Auto => TopChoice::Auto,
+        TopMethodArg::Draws => TopChoice::Draws,
+        TopMethodArg::Threshold => TopChoice::Threshold,
+    };
+    Ok(Some(TopRule { k, draws: table.top_draws, seed: table.seed, method }))
+}
+
 /// The flag rule of `--flag-fdr Q`: Q strictly between 0 and 1, for the
 /// event of the one threshold given.
 fn flag_rule(table: &TableArgs) -> Result<Option<FlagRule>> {
@@ -400,6 +446,7 @@ fn job_of(
         segments,
         min_groups: table.min_groups,
         aggregation,
+        top: top_rule(table)?,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),

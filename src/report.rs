@@ -40,8 +40,28 @@ pub struct Summary {
     /// The flags under a posterior false-discovery rate, when asked for.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub flags: Option<FlagReport>,
+    /// How `prob_top` was computed, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top: Option<TopReport>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// `prob_top`: the probability of being among the K best rates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TopReport {
+    /// K.
+    pub k: u64,
+    /// "highest" or "lowest": which rates are best.
+    pub best: String,
+    /// "draws" (joint draws from every posterior) or "threshold".
+    pub method: String,
+    /// Draws made (method "draws").
+    pub draws: Option<u64>,
+    /// Seed of the draws (method "draws").
+    pub seed: Option<u64>,
+    /// The threshold c with K groups expected beyond it (method "threshold").
+    pub threshold: Option<f64>,
 }
 
 /// One segment of a run with `--by`.

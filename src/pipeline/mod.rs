@@ -50,6 +50,53 @@ pub struct FlagRule {
     pub bound: f64,
 }
 
+/// How `prob_top` is computed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TopChoice {
+    /// Joint draws when groups × draws is at most [`DRAW_BUDGET`] (at least
+    /// [`MIN_DRAWS`] draws), else the threshold.
+    Auto,
+    /// Joint draws from every posterior.
+    Draws,
+    /// The threshold where the expected number of groups beyond it is K.
+    Threshold,
+}
+
+/// Group draws (groups × draws) that the default number of draws and
+/// `--top-method auto` spend at most: about 3 s on 2 cores.
+pub const DRAW_BUDGET: f64 = 1e8;
+
+/// The fewest draws taken by default (50,000 groups fill the budget).
+pub const MIN_DRAWS: usize = 2_000;
+
+/// The most draws taken by default (tables of up to 1,000 groups).
+pub const MAX_DRAWS: usize = 100_000;
+
+impl TopRule {
+    /// The draws for a table of `groups` groups: as asked, or as many as
+    /// the budget affords within [`MIN_DRAWS`] and [`MAX_DRAWS`].
+    pub fn draws_for(&self, groups: f64) -> usize {
+        self.draws.unwrap_or(((DRAW_BUDGET / groups.max(1.0)) as usize).clamp(MIN_DRAWS, MAX_DRAWS))
+    }
+}
+
+/// `--top K`: the probability of being among the K best rates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct TopRule {
+    /// K.
+    pub k: usize,
+    /// Draws, when drawing (None: as many as [`DRAW_BUDGET`] affords,
+    /// between [`MIN_DRAWS`] and [`MAX_DRAWS`]).
+    pub draws: Option<usize>,
+    /// Seed of the draws.
+    pub seed: u64,
+    /// How.
+    pub method: TopChoice,
+}
+
+/// The seed of the draws unless one is given.
+pub const DEFAULT_SEED: u64 = 20_261_202;
+
 /// What a row of the input is.
 #[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub enum Aggregation {
@@ -168,6 +215,8 @@ pub struct Job {
     pub ranks: Option<RankOrder>,
     /// Flags under a posterior false-discovery rate, when asked for.
     pub flag_fdr: Option<FlagRule>,
+    /// `prob_top`, when asked for (ordered as the ranks are).
+    pub top: Option<TopRule>,
     /// What a row is: a group, a trial, or a part of a group.
     pub aggregation: Aggregation,
     /// Segment columns: one prior per segment (empty: one prior for all).

@@ -432,6 +432,7 @@ mod tests {
             segments: Vec::new(),
             min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
             aggregation: Default::default(),
+            top: None,
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

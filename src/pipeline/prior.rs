@@ -11,13 +11,16 @@
 
 use super::scoring::pull_of_pairs;
 use super::segments::{SegmentKey, SegmentPairs};
-use super::{FlagEvent, Job, Model, PhaseClock, PriorSource};
+use super::{FlagEvent, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure};
 use crate::core::incomplete::gamma_tails;
-use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, Unidentifiable};
+use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, RateLaw, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
-use crate::core::ranking::{posterior_fdr_flags, FdrFlags};
+use crate::core::ranking::{
+    posterior_fdr_flags, top_probabilities_by_draws, top_probabilities_by_threshold, FdrFlags, RankOrder,
+    TopMethod,
+};
 use crate::error::{Error, Result};
 use crate::report::{FitReport, Hyperprior, HyperpriorParts, SegmentTest, TestReport};
 use arrow_array::ArrayRef;
@@ -65,6 +68,8 @@ pub struct Scored {
     pub prob_below: Option<Vec<f64>>,
     /// Flags under the posterior false-discovery rate of `--flag-fdr`.
     pub flags: Option<FdrFlags>,
+    /// P(among the K best) per pair, and how it was computed, with `--top K`.
+    pub prob_top: Option<(Vec<f64>, TopMethod)>,
     /// Per segment, with `--by` (empty without).
     pub segments: Vec<SegmentScore>,
     /// One prior for all against one per segment, when priors were fitted per segment.
@@ -259,6 +264,36 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         let weights: Vec<f64> = all_pairs.iter().map(|p| p.weight).collect();
         posterior_fdr_flags(&no_event, &weights, rule.bound)
     });
+    let prob_top = job.top.map(|rule| {
+        let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
+        let laws: Vec<RateLaw> = posteriors.iter().map(F::rate_law).collect();
+        let weights: Vec<f64> = all_pairs.iter().map(|p| p.weight).collect();
+        let groups: f64 = weights.iter().sum();
+        let by_draws = match rule.method {
+            TopChoice::Draws => true,
+            TopChoice::Threshold => false,
+            TopChoice::Auto => groups * rule.draws_for(groups) as f64 <= DRAW_BUDGET,
+        };
+        let draws = rule.draws_for(groups);
+        let beyond = |i: usize, c: f64| {
+            let pair = &all_pairs[i];
+            let (below, above) = F::rate_tails(&priors[place_of_pair[i]], pair.size, pair.count, c);
+            if order == RankOrder::HighestFirst {
+                above
+            } else {
+                below
+            }
+        };
+        if by_draws {
+            let p = top_probabilities_by_draws(&laws, &weights, (rule.k, order), (draws, rule.seed), beyond);
+            (p, TopMethod::Draws { draws, seed: rule.seed })
+        } else {
+            let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
+            let (p, threshold) =
+                top_probabilities_by_threshold(&means, &weights, &laws, rule.k, order, beyond);
+            (p, TopMethod::Threshold { threshold })
+        }
+    });
     let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
     let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors");
@@ -315,6 +350,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         prob_above,
         prob_below,
         flags,
+        prob_top,
         segments: scores,
         segment_test,
     })

@@ -8,12 +8,12 @@ use super::{FlagEvent, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
 use crate::core::pairs::WeightedPair;
-use crate::core::ranking::{competition_ranks, RankOrder};
+use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues};
-use crate::report::{FlagReport, PullReport, SegmentReport, Summary, ThresholdReport};
+use crate::report::{FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport};
 use arrow_array::ArrayRef;
 
 /// The output columns after the group column, each as its value per pair
@@ -77,6 +77,9 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         if let Some(values) = values {
             columns.push((name.to_string(), PairValues::Floats(values.clone())));
         }
+    }
+    if let Some((values, _)) = &scored.prob_top {
+        columns.push(("prob_top".to_string(), PairValues::Floats(values.clone())));
     }
     if let Some(flags) = &scored.flags {
         columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
@@ -256,6 +259,24 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             bound: rule.bound,
             groups_flagged: flags.groups_flagged as u64,
             expected_false_flags: flags.expected_false,
+        }),
+        top: job.top.zip(scored.prob_top.as_ref()).map(|(rule, (_, method))| TopReport {
+            k: rule.k as u64,
+            best: if job.ranks == Some(RankOrder::LowestFirst) { "lowest" } else { "highest" }.to_string(),
+            method: match method {
+                TopMethod::Draws { .. } => "draws",
+                TopMethod::Threshold { .. } => "threshold",
+            }
+            .to_string(),
+            draws: match method {
+                TopMethod::Draws { draws, .. } => Some(*draws as u64),
+                TopMethod::Threshold { .. } => None,
+            },
+            seed: matches!(method, TopMethod::Draws { .. }).then_some(rule.seed),
+            threshold: match method {
+                TopMethod::Threshold { threshold } => Some(*threshold),
+                TopMethod::Draws { .. } => None,
+            },
         }),
         warnings,
     }

@@ -98,3 +98,61 @@ fn a_flag_needs_exactly_one_event_and_a_bound_strictly_between_0_and_1() {
         assert!(!dir.path().join("out.csv").exists());
     }
 }
+
+#[test]
+fn prob_top_by_draws_is_within_0_005_of_the_exact_integral_and_the_same_bits_on_any_threads() {
+    // Source: tests/fixtures/top.json, written by scripts/make_top_fixtures.py:
+    // P(among the K highest) by scipy.integrate.quad over scipy.stats.beta
+    // densities and the exact Poisson-binomial count of the others.
+    let reference = json_fixture("top.json");
+    let dir = tempfile::tempdir().unwrap();
+    let mut text = String::from("id,count,size\n");
+    for (i, group) in reference["groups"].as_array().unwrap().iter().enumerate() {
+        text.push_str(&format!("g{i},{},{}\n", group[0], group[1]));
+    }
+    write(dir.path(), "groups.csv", &text);
+    let prior: Vec<f64> =
+        reference["prior"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+    let prior_file = saved_prior(dir.path(), "beta-binomial", &prior);
+    let k = reference["k"].to_string();
+    let run = |threads: &str, output: &str| {
+        let mut args =
+            vec!["--threads", threads, "--quiet", "score", "--prior", &prior_file, "--input", "groups.csv"];
+        args.extend(["--group", "id"]);
+        args.extend(column_args("beta-binomial"));
+        args.extend(["--top", &k, "--top-method", "draws", "--output", output, "--summary", "top.json"]);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        Csv::read(&dir.path().join(output)).floats("prob_top")
+    };
+    let (two, one) = (run("2", "two.csv"), run("1", "one.csv"));
+    assert_eq!(two, one, "the same bits on one thread and two");
+    for (got, want) in two.iter().zip(reference["prob_top"].as_array().unwrap()) {
+        let want = want.as_f64().unwrap();
+        assert!((got - want).abs() < 0.005, "prob_top {got} vs exact {want}");
+    }
+    let report = &summary(&dir.path().join("top.json"))["top"];
+    assert_eq!(report["method"], "draws");
+    assert_eq!(report["seed"], 20_261_202, "the default seed is recorded");
+    assert_eq!(report["draws"], 100_000, "a small table gets the most draws");
+}
+
+#[test]
+fn prob_top_by_threshold_expects_k_groups_and_reverses_with_lowest_first() {
+    let dir = tempfile::tempdir().unwrap();
+    let demo = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data").join("marketplace.csv");
+    for (extra, best) in [(None, "highest"), (Some("--rank-lowest-first"), "lowest")] {
+        let mut args = vec!["--quiet", "fit", "--model", "beta-binomial", "--input", demo.to_str().unwrap()];
+        args.extend(["--group", "seller_id", "--successes", "positive_ratings", "--trials", "total_ratings"]);
+        args.extend(["--top", "50", "--top-method", "threshold", "--output", "t.csv", "--summary", "t.json"]);
+        args.extend(extra);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        let top = Csv::read(&dir.path().join("t.csv")).floats("prob_top");
+        let expected: f64 = top.iter().sum();
+        assert!((expected - 50.0).abs() < 1e-6, "{best}: {expected}");
+        let report = summary(&dir.path().join("t.json"));
+        assert_eq!(report["top"]["best"], best);
+        assert!(report["top"]["threshold"].as_f64().unwrap() > 0.0);
+    }
+}

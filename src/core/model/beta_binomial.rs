@@ -11,7 +11,7 @@
 //! ln s use R(x, m) = ln Γ(x+m) − ln Γ(x) − m ln x style excesses while n ≤ s
 //! and plain digamma differences beyond (see `special`).
 
-use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
+use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, Unidentifiable};
 use crate::core::incomplete::beta_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{beta_quantile, Tail};
@@ -201,6 +201,13 @@ impl Family for BetaBinomial {
                 let tails = beta_tails(alpha + k, beta + (n - k), threshold, 1.0 - threshold);
                 (tails.lower, tails.upper)
             }
+        }
+    }
+
+    fn rate_law(posterior: &Posterior) -> RateLaw {
+        match posterior.natural {
+            Some([a, b]) => RateLaw::Beta { alpha: a, beta: b },
+            None => RateLaw::Point(posterior.mean),
         }
     }
 

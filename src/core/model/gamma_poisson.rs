@@ -10,7 +10,7 @@
 //! is ln Poisson(y; λ) + R(a, y) − a[ln(1+t) − t] − y ln(1+t), each extra term
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
-use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, Unidentifiable};
+use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, Unidentifiable};
 use crate::core::incomplete::gamma_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
@@ -181,6 +181,13 @@ impl Family for GammaPoisson {
                 let tails = gamma_tails(shape + y, (rate + exposure) * threshold.max(0.0));
                 (tails.lower, tails.upper)
             }
+        }
+    }
+
+    fn rate_law(posterior: &Posterior) -> RateLaw {
+        match posterior.natural {
+            Some([a, b]) => RateLaw::Gamma { shape: a, rate: b },
+            None => RateLaw::Point(posterior.mean),
         }
     }
 

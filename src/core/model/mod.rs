@@ -164,6 +164,27 @@ models! {
     GammaPoisson => gamma_poisson::GammaPoisson,
 }
 
+/// The law of a group's rate under its posterior, for drawing from it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum RateLaw {
+    /// Beta(alpha, beta).
+    Beta {
+        /// α.
+        alpha: f64,
+        /// β.
+        beta: f64,
+    },
+    /// Gamma(shape, rate).
+    Gamma {
+        /// Shape.
+        shape: f64,
+        /// Rate.
+        rate: f64,
+    },
+    /// A point mass (complete pooling).
+    Point(f64),
+}
+
 /// The tails of a point mass at `mean`: P(rate < t) and P(rate > t).
 pub fn point_mass_tails(mean: f64, threshold: f64) -> (f64, f64) {
     (f64::from(u8::from(mean < threshold)), f64::from(u8::from(mean > threshold)))
@@ -219,4 +240,6 @@ pub trait Family: Sync {
     /// where it is the smaller; 0 or 1 under complete pooling, where the
     /// posterior is a point mass at the pooled rate.
     fn rate_tails(prior: &Prior, size: f64, count: f64, threshold: f64) -> (f64, f64);
+    /// The law of the rate under a posterior of this model.
+    fn rate_law(posterior: &Posterior) -> RateLaw;
 }
