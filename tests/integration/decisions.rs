@@ -156,3 +156,34 @@ fn prob_top_by_threshold_expects_k_groups_and_reverses_with_lowest_first() {
         assert!(report["top"]["threshold"].as_f64().unwrap() > 0.0);
     }
 }
+
+#[test]
+fn a_duckdb_join_of_the_pair_output_gives_the_row_output() {
+    // Source: tests/fixtures/pair_join, written by scripts/make_pair_join_fixtures.py:
+    // ratepool's pair output and DuckDB's join of it back to the rows on
+    // (kind, successes, trials).
+    let dir = tempfile::tempdir().unwrap();
+    let input = crate::util::fixture("rows/returns_summed.csv");
+    let mut args = vec!["--quiet", "fit", "--model", "beta-binomial", "--input", input.to_str().unwrap()];
+    args.extend(["--group", "store", "--successes", "successes", "--trials", "trials", "--by", "kind"]);
+    args.extend(["--above", "0.1", "--flag-fdr", "0.1", "--ranks"]);
+    args.extend(["--output", "rows.csv", "--pair-output", "pairs.parquet"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let committed = std::fs::read(crate::util::fixture("pair_join/pairs.parquet")).unwrap();
+    assert_eq!(
+        std::fs::read(dir.path().join("pairs.parquet")).unwrap(),
+        committed,
+        "the pair output DuckDB joined"
+    );
+    let (ours, joined) =
+        (Csv::read(&dir.path().join("rows.csv")), Csv::read(&crate::util::fixture("pair_join/joined.csv")));
+    assert_eq!(ours.header, joined.header);
+    assert_eq!(ours.rows.len(), joined.rows.len());
+    for (a, b) in ours.rows.iter().zip(&joined.rows) {
+        for ((x, y), name) in a.iter().zip(b).zip(&ours.header) {
+            let same = x == y || matches!((x.parse::<f64>(), y.parse::<f64>()), (Ok(u), Ok(v)) if u == v);
+            assert!(same, "{name}: ours {x}, DuckDB's join {y}");
+        }
+    }
+}
