@@ -5,8 +5,10 @@ output of the same run.
 The Parquet writer of the pair-valued columns is the project's own
 (src/io/pair_chunks.rs: per-column dictionaries, one shared index stream,
 format v2 pages); this script is the check that other readers agree. It
-runs ratepool on the demo data and on an invented table with rows of zero
-trials (nulls in raw_rate), more than one row group and many pages.
+runs ratepool on the demo data (the marketplace with flags and ranks, the
+returns by store kind from trial rows) and on an invented table with rows
+of zero trials (nulls in raw_rate), segments with a null one, more than one
+row group and many pages.
 
 usage (from the repository root, after `cargo build --release`):
     python3 scripts/check_output_readers.py [path/to/ratepool]
@@ -81,15 +83,22 @@ def main():
         rng = random.Random(20261204)
         invented = os.path.join(tmp, "invented-input.csv")
         with open(invented, "w") as f:
-            f.write("id,k,n\n")
+            f.write("id,zone,k,n\n")
             for i in range(1_200_000):
                 n = rng.choice([0, 1, 2, 3, 5, 8, 13, 40, 200])
-                f.write(f"g{i},{rng.randint(0, n)},{n}\n")
+                zone = rng.choice(["north", "south", "east", ""])  # empty: a null segment
+                f.write(f"g{i},{zone},{rng.randint(0, n)},{n}\n")
         args = ["--model", "beta-binomial", "--group", "id", "--successes", "k", "--trials", "n",
-                "--below", "0.3", "--flag-fdr", "0.2"]
+                "--below", "0.3", "--flag-fdr", "0.2", "--by", "zone"]
         for ext in ("parquet", "csv"):
             run(invented, os.path.join(tmp, f"invented.{ext}"), args)
         check(os.path.join(tmp, "invented.parquet"), os.path.join(tmp, "invented.csv"), "invented 1.2M rows")
+
+        trials = ["--model", "beta-binomial", "--group", "store_id", "--outcome", "returned",
+                  "--by", "store_kind", "--top", "10", "--ranks", "--above", "0.1", "--flag-fdr", "0.1"]
+        for ext in ("parquet", "csv"):
+            run("demo-data/returns.csv", os.path.join(tmp, f"returns.{ext}"), trials)
+        check(os.path.join(tmp, "returns.parquet"), os.path.join(tmp, "returns.csv"), "demo returns by kind")
 
 
 if __name__ == "__main__":

@@ -8,6 +8,11 @@ marketplace.csv  about 20,000 invented sellers: positive and total ratings.
 districts.csv    about 3,000 invented districts: observed cases and expected
                  counts (indirect standardisation); true relative risks
                  ~ Gamma(shape 6, rate 6), so the SMR is centred on 1.
+returns.csv      about 40,000 invented orders, one row per order: the store,
+                 the kind of store (four kinds, each with its own spread of
+                 return rates) and whether the order came back (0/1). Drawn
+                 from a stream of its own (seed 20261202), so adding it left
+                 the two files above unchanged.
 No real people, sellers, brands or places are represented.
 """
 
@@ -41,11 +46,29 @@ def districts(rng):
     (OUT / "districts.csv").write_text("\n".join(lines) + "\n")
 
 
+def returns():
+    rng = np.random.default_rng(20261202)
+    kinds = ["arcade", "kiosk", "warehouse", "web"]
+    # Return rates by kind: Beta(mean * 40, (1 - mean) * 40) around each mean.
+    means = {"arcade": 0.06, "kiosk": 0.04, "warehouse": 0.09, "web": 0.16}
+    stores = 400
+    kind_of = [kinds[i % 4] for i in range(stores)]
+    rate = np.array([rng.beta(means[k] * 40, (1 - means[k]) * 40) for k in kind_of])
+    # Busy and quiet stores: orders per store heavy-tailed, at least one.
+    weight = rng.lognormal(0.0, 1.3, size=stores)
+    orders = rng.choice(stores, size=40_000, p=weight / weight.sum())
+    returned = rng.random(orders.size) < rate[orders]
+    lines = ["store_id,store_kind,returned"]
+    lines += [f"store-{s:03d},{kind_of[s]},{int(r)}" for s, r in zip(orders, returned)]
+    (OUT / "returns.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
     marketplace(rng)
     districts(rng)
+    returns()
 
 
 if __name__ == "__main__":

@@ -14,10 +14,12 @@
 //! Parquet reader; `tests/integration/producers.rs` reads it back with
 //! arrow-rs and the reader test script with pyarrow, polars and DuckDB.
 
+use arrow_array::{Int64Array, StringArray};
 use bytes::Bytes;
 use parquet::basic::{Compression, Encoding, ZstdLevel};
 use parquet::column::page::{CompressedPage, Page, PageWriter};
 use parquet::column::writer::ColumnCloseResult;
+use parquet::data_type::ByteArray;
 use parquet::errors::{ParquetError, Result};
 use parquet::file::metadata::ColumnChunkMetaData;
 use parquet::file::statistics::Statistics;
@@ -43,16 +45,25 @@ pub enum PairValues {
     /// Yes or no (written PLAIN, one bit a row: Parquet has no dictionary
     /// encoding for booleans).
     Booleans(Vec<bool>),
+    /// Whole numbers, absent for some pairs (segment values).
+    OptionalIntegers(Vec<Option<i64>>),
+    /// Text, absent for some pairs (segment values).
+    Texts(Vec<Option<String>>),
 }
 
 impl PairValues {
     /// True when some pair has no value (the column is then optional).
     pub fn nullable(&self) -> bool {
-        matches!(self, PairValues::OptionalFloats(_))
+        matches!(self, PairValues::OptionalFloats(_) | PairValues::OptionalIntegers(_) | PairValues::Texts(_))
     }
 
     fn is_null(&self, pair: usize) -> bool {
-        matches!(self, PairValues::OptionalFloats(v) if v[pair].is_none())
+        match self {
+            PairValues::OptionalFloats(v) => v[pair].is_none(),
+            PairValues::OptionalIntegers(v) => v[pair].is_none(),
+            PairValues::Texts(v) => v[pair].is_none(),
+            PairValues::Integers(_) | PairValues::Floats(_) | PairValues::Booleans(_) => false,
+        }
     }
 
     /// PLAIN bytes of the values of `pairs` (a placeholder 0 where null:
@@ -60,24 +71,26 @@ impl PairValues {
     fn dictionary(&self, pairs: &[u32], null_count: u64) -> (Vec<u8>, Statistics) {
         match self {
             PairValues::Integers(v) => {
-                let mut bytes = Vec::with_capacity(pairs.len() * 8);
-                let (mut low, mut high) = (i64::MAX, i64::MIN);
+                integer_dictionary(pairs.iter().map(|&p| Some(v[p as usize])), null_count)
+            }
+            PairValues::OptionalIntegers(v) => {
+                integer_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
+            }
+            PairValues::Texts(v) => {
+                let mut bytes = Vec::new();
+                let (mut low, mut high): (Option<&str>, Option<&str>) = (None, None);
                 for &p in pairs {
-                    let x = v[p as usize];
-                    (low, high) = (low.min(x), high.max(x));
-                    bytes.extend_from_slice(&x.to_le_bytes());
+                    let text = v[p as usize].as_deref();
+                    if let Some(t) = text {
+                        low = Some(low.map_or(t, |l| l.min(t)));
+                        high = Some(high.map_or(t, |h| h.max(t)));
+                    }
+                    let t = text.unwrap_or("").as_bytes();
+                    bytes.extend_from_slice(&(t.len() as u32).to_le_bytes());
+                    bytes.extend_from_slice(t);
                 }
-                let some = !pairs.is_empty();
-                (
-                    bytes,
-                    Statistics::int64(
-                        some.then_some(low),
-                        some.then_some(high),
-                        None,
-                        Some(null_count),
-                        false,
-                    ),
-                )
+                let value = |t: Option<&str>| t.map(|t| ByteArray::from(t.as_bytes().to_vec()));
+                (bytes, Statistics::byte_array(value(low), value(high), None, Some(null_count), false))
             }
             PairValues::Floats(v) => float_dictionary(pairs.iter().map(|&p| Some(v[p as usize])), null_count),
             PairValues::OptionalFloats(v) => {
@@ -95,6 +108,8 @@ impl PairValues {
             PairValues::Floats(v) => ColumnValues::Floats(v),
             PairValues::OptionalFloats(v) => ColumnValues::OptionalFloats(v),
             PairValues::Booleans(v) => ColumnValues::Booleans(v),
+            PairValues::OptionalIntegers(v) => ColumnValues::Arrow(std::sync::Arc::new(Int64Array::from(v))),
+            PairValues::Texts(v) => ColumnValues::Arrow(std::sync::Arc::new(StringArray::from(v))),
         }
     }
 
@@ -105,6 +120,8 @@ impl PairValues {
             PairValues::Floats(v) => v.len(),
             PairValues::OptionalFloats(v) => v.len(),
             PairValues::Booleans(v) => v.len(),
+            PairValues::OptionalIntegers(v) => v.len(),
+            PairValues::Texts(v) => v.len(),
         }
     }
 
@@ -112,6 +129,24 @@ impl PairValues {
     pub fn is_empty(&self) -> bool {
         self.len() == 0
     }
+}
+
+/// PLAIN bytes of integer dictionary values (a placeholder 0 where null:
+/// never referenced), with the statistics of the non-null ones.
+fn integer_dictionary(
+    values: impl ExactSizeIterator<Item = Option<i64>>,
+    null_count: u64,
+) -> (Vec<u8>, Statistics) {
+    let mut bytes = Vec::with_capacity(values.len() * 8);
+    let (mut low, mut high): (Option<i64>, Option<i64>) = (None, None);
+    for x in values {
+        if let Some(x) = x {
+            low = Some(low.map_or(x, |l| l.min(x)));
+            high = Some(high.map_or(x, |h| h.max(x)));
+        }
+        bytes.extend_from_slice(&x.unwrap_or(0).to_le_bytes());
+    }
+    (bytes, Statistics::int64(low, high, None, Some(null_count), false))
 }
 
 /// PLAIN bytes of float dictionary values (a placeholder 0 where null: never

@@ -265,6 +265,12 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
             ColumnValues::OptionalFloats(pair_of_row.iter().map(|i| v[at(i)]).collect())
         }
         PairValues::Booleans(v) => ColumnValues::Booleans(pair_of_row.iter().map(|i| v[at(i)]).collect()),
+        PairValues::OptionalIntegers(v) => {
+            ColumnValues::Arrow(Arc::new(pair_of_row.iter().map(|i| v[at(i)]).collect::<Int64Array>()))
+        }
+        PairValues::Texts(v) => ColumnValues::Arrow(Arc::new(
+            pair_of_row.iter().map(|i| v[at(i)].as_deref()).collect::<StringArray>(),
+        )),
     }
 }
 
@@ -297,9 +303,10 @@ impl ScoredParquet {
         let mut fields: Vec<Field> = row_schema.fields().iter().map(|f| f.as_ref().clone()).collect();
         fields.extend(pair_columns.iter().map(|(name, values)| {
             let dtype = match values {
-                PairValues::Integers(_) => DataType::Int64,
+                PairValues::Integers(_) | PairValues::OptionalIntegers(_) => DataType::Int64,
                 PairValues::Booleans(_) => DataType::Boolean,
                 PairValues::Floats(_) | PairValues::OptionalFloats(_) => DataType::Float64,
+                PairValues::Texts(_) => DataType::Utf8,
             };
             Field::new(name, dtype, values.nullable())
         }));

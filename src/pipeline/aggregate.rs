@@ -12,9 +12,7 @@ use super::prior::score_pairs;
 use super::scoring::{
     commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts, ShiftGroups,
 };
-use super::segments::{
-    segment_values_at, PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs,
-};
+use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{outcome, Rejection, MAX_EXACT_COUNT, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, Aggregation, InvalidRows, Job, PhaseClock};
 use crate::core::pairs::{PairHasher, WeightedPair};
@@ -300,14 +298,12 @@ fn write_groups(
     let furthest_in: Vec<u32> =
         scored.segments.iter().map(|s| s.pull.max_shift_row.map_or(no_pair, |p| p as u32)).collect();
     let mut shift_groups = ShiftGroups { all: None, segments: vec![None; scored.segments.len()] };
-    let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
-    let mut sink = TableSink::create_scored(output, pair_columns(job, scored))?;
+    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?;
     let group_text = |g: usize| String::from_utf8_lossy(&totals.key(g)[4..]).into_owned();
     let mut start = 0;
     while start < totals.len() {
         let end = (start + batch_rows.max(1)).min(totals.len());
         let mut pair_of_row = Vec::with_capacity(end - start);
-        let mut places = Vec::with_capacity(end - start);
         for g in start..end {
             let (pair, place) = lookup
                 .get(totals.segments[g], totals.sizes[g], totals.counts[g])
@@ -319,14 +315,8 @@ fn write_groups(
                 shift_groups.segments[place as usize].get_or_insert_with(|| group_text(g));
             }
             pair_of_row.push(pair);
-            places.push(place);
         }
-        let mut row_columns = vec![(job.columns.group.clone(), totals.ids(start..end))];
-        if !job.segments.is_empty() {
-            let values = segment_values_at(&samples, &places)?;
-            row_columns.extend(job.segments.iter().cloned().zip(values));
-        }
-        sink.write_scored(row_columns, &pair_of_row)?;
+        sink.write_scored(vec![(job.columns.group.clone(), totals.ids(start..end))], &pair_of_row)?;
         start = end;
     }
     let mut staged = StagedOutputs::default();

@@ -321,7 +321,7 @@ fn score_and_write(
     let furthest_in: Vec<u32> =
         scored.segments.iter().map(|s| s.pull.max_shift_row.map_or(no_pair, |p| p as u32)).collect();
     let mut shift_groups = ShiftGroups { all: None, segments: vec![None; scored.segments.len()] };
-    let mut sink = TableSink::create_scored(output, pair_columns(job, scored))?;
+    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
@@ -371,8 +371,7 @@ fn score_and_write(
                     }
                 }
             }
-            let mut row_columns = vec![(job.columns.group.clone(), view.group.take(&kept))];
-            row_columns.extend(job.segments.iter().cloned().zip(view.segments.take(&kept)));
+            let row_columns = vec![(job.columns.group.clone(), view.group.take(&kept))];
             sender
                 .send((row_columns, pair_of_row))
                 .map_err(|_| Error::Other("the output writer stopped".to_string()))?;

@@ -2,7 +2,7 @@
 //! table, and the summary, all from the pair table and its posteriors.
 
 use super::prior::Scored;
-use super::segments::segment_values_at;
+use super::segments::segment_pair_values;
 use super::validate::{cell_text, ColumnNames, Rejection};
 use super::{FlagEvent, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
@@ -17,10 +17,10 @@ use crate::report::{FlagReport, PullReport, SegmentReport, Summary, ThresholdRep
 use arrow_array::ArrayRef;
 
 /// The output columns after the group column, each as its value per pair
-/// of the table (every one is a function of the row's pair): the counts
-/// under their input names, the raw rate, the posterior summaries and
-/// parameters.
-pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
+/// of the table (every one is a function of the row's pair): the segment
+/// values, the counts under their input names, the raw rate, the posterior
+/// summaries and parameters, and the columns asked for.
+pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let (pairs, posteriors) = (&scored.pairs[..], &scored.posteriors[..]);
     let each = |f: &dyn Fn(&Posterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
     let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
@@ -37,7 +37,10 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         (format!("posterior_{}", terms.parameter_names[i]), values)
     };
     let raw = pairs.iter().map(|p| (p.size > 0.0).then(|| p.count / p.size)).collect();
-    let mut columns = vec![
+    let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
+    let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
+    let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
+    columns.extend([
         (job.columns.count.clone(), PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())),
         (job.columns.size.clone(), sizes),
         ("raw_rate".to_string(), PairValues::OptionalFloats(raw)),
@@ -48,7 +51,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         ("pool_weight".to_string(), each(&|p| p.pool_weight)),
         parameter(0),
         parameter(1),
-    ];
+    ]);
     if !scored.segments.is_empty() {
         let mut fallback = vec![false; pairs.len()];
         for segment in scored.segments.iter().filter(|s| s.fallback.is_some()) {
@@ -85,26 +88,17 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> PairColumns {
         columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
         columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr.clone())));
     }
-    columns
+    Ok(columns)
 }
 
 /// The pair posterior table: one row per distinct (segment, size, count)
 /// with the number of groups sharing it and every per-pair output column,
 /// for joining back to the rows on the segment and count columns.
 pub fn pair_table_columns(job: &Job, scored: &Scored) -> Result<Columns> {
-    let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
-    let segment_values = segment_values_at(&samples, &scored.segment_of_pair())?;
-    let mut columns: Columns = job
-        .segments
-        .iter()
-        .zip(segment_values)
-        .map(|(name, values)| (name.clone(), ColumnValues::Arrow(values)))
-        .collect();
-    let mut per_pair: Columns =
-        pair_columns(job, scored).into_iter().map(|(name, values)| (name, values.into_column())).collect();
-    // The two count columns come first; the group count follows them.
-    let rest = per_pair.split_off(2);
-    columns.extend(per_pair);
+    let mut columns: Columns =
+        pair_columns(job, scored)?.into_iter().map(|(name, values)| (name, values.into_column())).collect();
+    // The segment and count columns come first; the group count follows them.
+    let rest = columns.split_off(job.segments.len() + 2);
     let weights = scored.pairs.iter().map(|p| p.weight as i64).collect();
     columns.push(("group_count".to_string(), ColumnValues::Integers(weights)));
     columns.extend(rest);

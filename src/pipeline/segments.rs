@@ -8,8 +8,9 @@
 
 use super::Job;
 use crate::core::pairs::{PairCounter, PairHasher, PairIndex, PairTable, WeightedPair};
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::io::cells::GroupColumn;
+use crate::io::sink::PairValues;
 use arrow_array::cast::AsArray;
 use arrow_array::{Array, ArrayRef, UInt32Array};
 use arrow_schema::DataType;
@@ -142,8 +143,8 @@ impl SegmentColumns {
         self.columns.iter().map(|c| c.value(row).and_then(|(values, at)| values.value_text(at))).collect()
     }
 
-    /// The values at `rows`, one output column per segment column.
-    pub fn take(&self, rows: &[u32]) -> Vec<ArrayRef> {
+    /// The values at `rows`, one column per segment column.
+    fn take(&self, rows: &[u32]) -> Vec<ArrayRef> {
         self.columns.iter().map(|c| c.take(rows)).collect()
     }
 }
@@ -327,20 +328,25 @@ impl PairLookup {
     }
 }
 
-/// The segment values of rows (or pairs) as output columns, in each
-/// column's own type, from each segment's sample row; `places` gives each
-/// row's segment by its place among `samples`.
-pub fn segment_values_at(samples: &[&[ArrayRef]], places: &[u32]) -> Result<Vec<ArrayRef>> {
+/// The segment values of each pair (`places` gives each pair's segment by
+/// its place among `samples`), one column per segment column: whole numbers
+/// where every segment's value is one, text otherwise; null for a null value.
+pub fn segment_pair_values(samples: &[&[ArrayRef]], places: &[u32]) -> Result<Vec<PairValues>> {
     let columns = samples.first().map_or(0, |s| s.len());
-    let indices = UInt32Array::from(places.to_vec());
     (0..columns)
         .map(|c| {
-            let rows: Vec<&dyn Array> = samples.iter().map(|s| s[c].as_ref()).collect();
-            let values = arrow_select::concat::concat(&rows)?;
-            arrow_select::take::take(&values, &indices, None)
+            let values: Vec<GroupColumn> =
+                samples.iter().map(|s| GroupColumn::of(&s[c])).collect::<Result<_>>()?;
+            let at = |place: u32| &values[place as usize];
+            Ok(if values.iter().all(|v| matches!(v, GroupColumn::Integers(_))) {
+                PairValues::OptionalIntegers(
+                    places.iter().map(|&p| at(p).value_text(0).and_then(|t| t.parse().ok())).collect(),
+                )
+            } else {
+                PairValues::Texts(places.iter().map(|&p| at(p).value_text(0)).collect())
+            })
         })
-        .collect::<std::result::Result<_, arrow_schema::ArrowError>>()
-        .map_err(|e| Error::Other(format!("cannot gather the segment values: {e}")))
+        .collect()
 }
 
 /// The key as `column=value` text for messages.
