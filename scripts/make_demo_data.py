@@ -13,6 +13,9 @@ returns.csv      about 40,000 invented orders, one row per order: the store,
                  return rates) and whether the order came back (0/1). Drawn
                  from a stream of its own (seed 20261202), so adding it left
                  the two files above unchanged.
+district_quarters.csv  the districts' cases and expected counts split over
+                 four quarters (seed 20261203), one row per district per
+                 quarter, for summing back per district (--aggregate).
 No real people, sellers, brands or places are represented.
 """
 
@@ -63,12 +66,27 @@ def returns():
     (OUT / "returns.csv").write_text("\n".join(lines) + "\n")
 
 
+def district_quarters():
+    rng = np.random.default_rng(20261203)
+    rows = [line.split(",") for line in (OUT / "districts.csv").read_text().splitlines()[1:]]
+    lines = ["district_id,quarter,observed_cases,expected_cases"]
+    for district, observed, expected in rows:
+        share = rng.dirichlet([5.0] * 4)
+        cases = rng.multinomial(int(observed), share)
+        # Expected counts in whole ten-thousandths, so the quarters sum back exactly.
+        units = rng.multinomial(round(float(expected) * 10_000), share)
+        for quarter in range(4):
+            lines.append(f"{district},{quarter + 1},{cases[quarter]},{units[quarter] / 10_000:.4f}")
+    (OUT / "district_quarters.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
     marketplace(rng)
     districts(rng)
     returns()
+    district_quarters()
 
 
 if __name__ == "__main__":
