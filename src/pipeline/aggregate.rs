@@ -174,20 +174,24 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
             };
             let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
             let index = group.with_bytes(row, |id| totals.group_of(segment, id));
-            totals.counts[index] += count;
-            totals.sizes[index] += size;
-            if totals.counts[index] > MAX_EXACT_COUNT || totals.sizes[index] > MAX_EXACT_COUNT {
+            // Compared before adding: a sum past 2^53 would round back to it.
+            let (count_over, size_over) = (
+                count > MAX_EXACT_COUNT - totals.counts[index],
+                size > MAX_EXACT_COUNT - totals.sizes[index],
+            );
+            if count_over || size_over {
                 return Err(Error::InvalidRow {
                     path: batch.file.to_path_buf(),
                     row: batch.first_row_in_file + row + 1,
-                    column: if totals.counts[index] > MAX_EXACT_COUNT { &names.count } else { &names.size }
-                        .clone(),
+                    column: if count_over { &names.count } else { &names.size }.clone(),
                     reason: format!(
                         "the sum for group '{}' exceeds 2^53, the largest count held exactly",
                         group.text(row)
                     ),
                 });
             }
+            totals.counts[index] += count;
+            totals.sizes[index] += size;
         }
         rows = batch.first_row + batch.rows();
         clock.rows("read and sum", rows, input.known_rows());

@@ -144,3 +144,20 @@ fn outcome_is_for_proportions_and_not_for_pair_tables() {
         assert!(stderr(&out).contains(message), "{extra:?}: {}", stderr(&out));
     }
 }
+
+#[test]
+fn a_sum_beyond_2_to_the_53_names_the_row_column_and_group() {
+    let dir = tempfile::tempdir().unwrap();
+    let half = 1u64 << 52;
+    let text = format!("store,k,n\na,1,{half}\nb,0,3\na,1,{half}\na,0,1\n");
+    write(dir.path(), "days.csv", &text);
+    let args = ["fit", "--model", "beta-binomial", "--input", "days.csv", "--group", "store", "--aggregate"];
+    let mut args = args.to_vec();
+    args.extend(["--successes", "k", "--trials", "n", "--output", "out.csv"]);
+    let out = ratepool(dir.path(), &args);
+    assert_eq!(out.status.code(), Some(2));
+    let message = stderr(&out);
+    assert!(message.contains("row 4") && message.contains("'n'") || message.contains("n:"), "{message}");
+    assert!(message.contains("group 'a'") && message.contains("2^53"), "{message}");
+    assert!(!dir.path().join("out.csv").exists());
+}

@@ -77,11 +77,13 @@ fn flags_match_the_direct_posterior_probability_rule_computed_with_scipy() {
 }
 
 #[test]
-fn a_flag_needs_exactly_one_event_and_a_bound_strictly_between_0_and_1() {
+fn a_flag_needs_one_event_and_a_bound_strictly_between_0_and_1_and_top_needs_a_place() {
     let dir = tempfile::tempdir().unwrap();
     write(dir.path(), "groups.csv", "id,count,size\na,1,4\nb,3,9\nc,0,2\nd,7,10\n");
     let base = ["fit", "--model", "beta-binomial", "--input", "groups.csv", "--group", "id"];
-    let refusals: [(&[&str], &str); 4] = [
+    let refusals: [(&[&str], &str); 6] = [
+        (&["--top", "0"], "--top must be at least 1"),
+        (&["--top", "3", "--top-draws", "0"], "--top-draws must be at least 1"),
         (&["--flag-fdr", "0.1"], "--flag-fdr needs the event to flag"),
         (&["--flag-fdr", "0.1", "--above", "0.5", "--below", "0.2"], "not both"),
         (&["--flag-fdr", "0", "--above", "0.5"], "strictly between 0 and 1"),
