@@ -11,6 +11,7 @@ use super::passes::{row_error, BatchView, RowFault};
 use super::prior::score_pairs;
 use super::scoring::{
     commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts, ShiftGroups,
+    ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{outcome, Rejection, MAX_EXACT_COUNT, MISSING_GROUP};
@@ -297,11 +298,7 @@ fn write_groups(
     totals: &GroupTotals,
     lookup: &PairLookup,
 ) -> Result<(ShiftGroups, StagedOutputs)> {
-    let no_pair = u32::MAX;
-    let furthest = scored.pull.max_shift_row.map_or(no_pair, |p| p as u32);
-    let furthest_in: Vec<u32> =
-        scored.segments.iter().map(|s| s.pull.max_shift_row.map_or(no_pair, |p| p as u32)).collect();
-    let mut shift_groups = ShiftGroups { all: None, segments: vec![None; scored.segments.len()] };
+    let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?;
     let group_text = |g: usize| String::from_utf8_lossy(&totals.key(g)[4..]).into_owned();
     let mut start = 0;
@@ -312,12 +309,7 @@ fn write_groups(
             let (pair, place) = lookup
                 .get(totals.segments[g], totals.sizes[g], totals.counts[g])
                 .expect("every group's pair was counted");
-            if pair == furthest && shift_groups.all.is_none() {
-                shift_groups.all = Some(group_text(g));
-            }
-            if furthest_in.get(place as usize) == Some(&pair) {
-                shift_groups.segments[place as usize].get_or_insert_with(|| group_text(g));
-            }
+            shifts.observe(pair, place, || group_text(g));
             pair_of_row.push(pair);
         }
         sink.write_scored(vec![(job.columns.group.clone(), totals.ids(start..end))], &pair_of_row)?;
@@ -325,5 +317,5 @@ fn write_groups(
     }
     let mut staged = StagedOutputs::default();
     staged.add(sink.finish()?);
-    Ok((shift_groups, staged))
+    Ok((shifts.finish(), staged))
 }

@@ -17,6 +17,7 @@ use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::{score_pairs, Scored};
 use super::scoring::{
     commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts, ShiftGroups,
+    ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
@@ -316,11 +317,7 @@ fn score_and_write(
     mut found: Found,
     (clock, rows): (&mut PhaseClock, usize),
 ) -> Result<(ShiftGroups, StagedOutputs)> {
-    let no_pair = u32::MAX;
-    let furthest = scored.pull.max_shift_row.map_or(no_pair, |p| p as u32);
-    let furthest_in: Vec<u32> =
-        scored.segments.iter().map(|s| s.pull.max_shift_row.map_or(no_pair, |p| p as u32)).collect();
-    let mut shift_groups = ShiftGroups { all: None, segments: vec![None; scored.segments.len()] };
+    let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
@@ -353,12 +350,7 @@ fn score_and_write(
                             .find_segment(&mut found.segments, row)
                             .and_then(|segment| found.pairs.get(segment, size, count))
                             .ok_or_else(|| changed_between_passes(batch.file))?;
-                        if pair == furthest && shift_groups.all.is_none() {
-                            shift_groups.all = Some(view.group.text(row));
-                        }
-                        if furthest_in.get(place as usize) == Some(&pair) {
-                            shift_groups.segments[place as usize].get_or_insert_with(|| view.group.text(row));
-                        }
+                        shifts.observe(pair, place, || view.group.text(row));
                         kept.push(row as u32);
                         pair_of_row.push(pair);
                     }
@@ -406,7 +398,7 @@ fn score_and_write(
         }
         staged.add(rejects_sink.finish()?);
     }
-    Ok((shift_groups, staged))
+    Ok((shifts.finish(), staged))
 }
 
 #[cfg(test)]

@@ -205,6 +205,42 @@ pub struct ShiftGroups {
     pub segments: Vec<Option<String>>,
 }
 
+/// Finds, as rows are written, the ids of the groups the summary names:
+/// the first group of the pair that moved furthest over all groups, and of
+/// the one that moved furthest in each segment.
+pub struct ShiftTracker {
+    furthest: u32,
+    furthest_in: Vec<u32>,
+    found: ShiftGroups,
+}
+
+impl ShiftTracker {
+    /// The pairs to look for, from the pull summaries.
+    pub fn new(scored: &Scored) -> Self {
+        let pair = |p: Option<usize>| p.map_or(u32::MAX, |p| p as u32);
+        ShiftTracker {
+            furthest: pair(scored.pull.max_shift_row),
+            furthest_in: scored.segments.iter().map(|s| pair(s.pull.max_shift_row)).collect(),
+            found: ShiftGroups { all: None, segments: vec![None; scored.segments.len()] },
+        }
+    }
+
+    /// A row of `pair` in the segment at `place`, its id given by `id` when needed.
+    pub fn observe(&mut self, pair: u32, place: u32, id: impl Fn() -> String) {
+        if pair == self.furthest && self.found.all.is_none() {
+            self.found.all = Some(id());
+        }
+        if self.furthest_in.get(place as usize) == Some(&pair) {
+            self.found.segments[place as usize].get_or_insert_with(id);
+        }
+    }
+
+    /// The ids found.
+    pub fn finish(self) -> ShiftGroups {
+        self.found
+    }
+}
+
 /// The run's summary.
 pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGroups) -> Summary {
     let mut warnings = scored.warnings.clone();

@@ -94,10 +94,7 @@ fn a_flag_needs_one_event_and_a_bound_strictly_between_0_and_1_and_top_needs_a_p
         args.extend(column_args("beta-binomial"));
         args.extend(["--output", "out.csv"]);
         args.extend(extra);
-        let out = ratepool(dir.path(), &args);
-        assert_eq!(out.status.code(), Some(2), "{extra:?}");
-        assert!(stderr(&out).contains(message), "{extra:?}: {}", stderr(&out));
-        assert!(!dir.path().join("out.csv").exists());
+        crate::util::assert_refused(dir.path(), &args, message, "out.csv");
     }
 }
 

@@ -269,10 +269,7 @@ fn bad_segment_requests_are_refused_before_anything_is_written() {
         args.extend(BETA);
         args.extend(["--output", "out.csv"]);
         args.extend(extra);
-        let out = ratepool(dir.path(), &args);
-        assert_eq!(out.status.code(), Some(2), "{extra:?}");
-        assert!(stderr(&out).contains(message), "{extra:?}: {}", stderr(&out));
-        assert!(!dir.path().join("out.csv").exists());
+        crate::util::assert_refused(dir.path(), &args, message, "out.csv");
     }
 }
 

@@ -70,3 +70,12 @@ pub fn relative(a: f64, b: f64) -> f64 {
 pub fn summary(path: &Path) -> Value {
     serde_json::from_str(&std::fs::read_to_string(path).expect("summary exists")).expect("summary is JSON")
 }
+
+/// Runs `args` in `dir` and checks the run is refused as bad usage or input:
+/// exit 2, `message` on stderr, and no `output` written.
+pub fn assert_refused(dir: &Path, args: &[&str], message: &str, output: &str) {
+    let out = ratepool(dir, args);
+    assert_eq!(out.status.code(), Some(2), "{args:?}: {}", stderr(&out));
+    assert!(stderr(&out).contains(message), "{args:?}: {}", stderr(&out));
+    assert!(!dir.join(output).exists(), "{args:?} left {output}");
+}
