@@ -185,12 +185,21 @@ pub struct FitReport {
     pub converged: bool,
     /// Iterations used.
     pub iterations: u64,
-    /// Per-group gradient norm at the result.
+    /// Per-group gradient norm at the result (at the boundary: with respect
+    /// to the mean, 0 at the pooled rate).
     pub gradient_norm: f64,
     /// "none" or "no-overdispersion".
     pub boundary: String,
     /// Score test for overdispersion.
     pub overdispersion_test: TestReport,
+    /// At the boundary: the per-group score ∂ℓ/∂(1/strength) there (at most
+    /// 0 where the boundary is a maximum); null for an interior maximum.
+    #[serde(default)]
+    pub boundary_score: Option<f64>,
+    /// Likelihood-ratio test against complete pooling (p-value from the 50:50
+    /// mixture of chi-square(0) and chi-square(1)); null in older files.
+    #[serde(default)]
+    pub pooling_test: Option<TestReport>,
 }
 
 /// A test statistic with its p-value.
@@ -198,9 +207,9 @@ pub struct FitReport {
 pub struct TestReport {
     /// Name of the test.
     pub name: String,
-    /// Standardised statistic.
+    /// The statistic (standardised for a score test).
     pub statistic: f64,
-    /// One-sided p-value.
+    /// Its p-value (one-sided for a score test).
     pub p_value: f64,
 }
 
@@ -348,6 +357,13 @@ pub fn render_text(summary: &Summary) -> String {
         "  dispersion   {} Z = {:.3}, one-sided p = {:.3e}",
         test.name, test.statistic, test.p_value
     );
+    if let Some(test) = &fit.pooling_test {
+        let _ = writeln!(
+            out,
+            "  pooling      likelihood ratio against complete pooling {:.3}, p = {:.3e} (50:50 chi-square(0):chi-square(1))",
+            test.statistic, test.p_value
+        );
+    }
     let pull = &summary.pull;
     let _ = writeln!(
         out,

@@ -56,6 +56,30 @@ pub struct OverdispersionTest {
     pub p_value: f64,
 }
 
+/// The likelihood-ratio test of the fitted prior against complete pooling
+/// (no overdispersion). The null sits on the boundary of the parameter
+/// space, so the statistic's null distribution is the 50:50 mixture of
+/// chi-square(0) and chi-square(1) (Self and Liang, JASA 1987): the p-value
+/// is half the chi-square(1) tail above a positive statistic, and 1 at zero.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PoolingTest {
+    /// 2 (ℓ at the fit − ℓ under complete pooling), at least 0.
+    pub statistic: f64,
+    /// P(mixture ≥ statistic).
+    pub p_value: f64,
+}
+
+impl PoolingTest {
+    /// The test from the two log likelihoods.
+    pub fn new(fitted: f64, pooled: f64) -> Self {
+        let statistic = (2.0 * (fitted - pooled)).max(0.0);
+        // P(chi-square(1) > x) = erfc(√(x/2)).
+        let p_value =
+            if statistic > 0.0 { 0.5 * crate::core::incomplete::erfc((statistic / 2.0).sqrt()) } else { 1.0 };
+        PoolingTest { statistic, p_value }
+    }
+}
+
 /// Result of a fit.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Fit {
@@ -79,12 +103,44 @@ pub struct Fit {
     pub converged: bool,
     /// Optimiser iterations, polishing steps included.
     pub iterations: u64,
-    /// Norm of the per-group gradient at the result (working coordinates).
+    /// Norm of the per-group gradient at the result: in the working
+    /// coordinates for an interior maximum; at the boundary, the derivative
+    /// with respect to the mean (0 at the pooled rate, which maximises the
+    /// pooled likelihood).
     pub gradient_norm: f64,
     /// Which boundary the fit ended on.
     pub boundary: Boundary,
+    /// At the boundary: the per-group score ∂ℓ/∂φ at φ = 1/strength = 0,
+    /// which is at most 0 where the boundary is a maximum.
+    pub boundary_score: Option<f64>,
     /// Score test for overdispersion.
     pub overdispersion: OverdispersionTest,
+    /// Likelihood-ratio test against complete pooling.
+    pub pooling: PoolingTest,
+}
+
+/// What the end of a search means, given the boundary's score: an interior
+/// maximum, the boundary, or a failed search. The boundary is the result
+/// when its score is not positive (no interior point does better near it),
+/// or when the search ran past the largest strength told apart from it; with
+/// a positive score any other ending is a search that failed, never a
+/// boundary result.
+fn judge(interior_ok: bool, beats_boundary: bool, boundary_score: f64, strength: f64) -> Ending {
+    if interior_ok && beats_boundary {
+        Ending::Interior
+    } else if boundary_score <= 0.0 || strength > MAX_STRENGTH {
+        Ending::Boundary
+    } else {
+        Ending::Failed
+    }
+}
+
+/// How a search ended.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Ending {
+    Interior,
+    Boundary,
+    Failed,
 }
 
 /// Why a fit produced no prior.
@@ -340,7 +396,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
     let start = F::working(pooled_mean, start_strength);
     let start_ll = evaluate::<F>(table, start).log_likelihood;
 
-    let boundary_fit = |iterations: u64, gradient_norm: f64| Fit {
+    let boundary_fit = |iterations: u64| Fit {
         prior: Prior::CompletePooling { mean: pooled_mean },
         mean: pooled_mean,
         strength: None,
@@ -351,14 +407,16 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         start_log_likelihood: if moment.is_some() { start_ll } else { boundary_ll },
         converged: true,
         iterations,
-        gradient_norm,
+        gradient_norm: 0.0,
         boundary: Boundary::NoOverdispersion,
+        boundary_score: Some(boundary_score / groups),
         overdispersion,
+        pooling: PoolingTest::new(boundary_ll, boundary_ll),
     };
 
     let (u, iterations) = match maximise::<F>(table, start) {
         Ok(found) => found,
-        Err(_) if boundary_score <= 0.0 => return Ok(boundary_fit(0, 0.0)),
+        Err(_) if boundary_score <= 0.0 => return Ok(boundary_fit(0)),
         Err(_) => return Err(FitFailure::NotConverged { iterations: 0, gradient_norm: f64::NAN }),
     };
     let at = evaluate::<F>(table, u);
@@ -368,11 +426,10 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
     if strength < MIN_STRENGTH {
         return Err(FitFailure::NoPooling);
     }
-    if !interior_ok || at.log_likelihood <= boundary_ll {
-        if boundary_score <= 0.0 || strength > MAX_STRENGTH || at.log_likelihood <= boundary_ll {
-            return Ok(boundary_fit(iterations, boundary_score.abs() / groups));
-        }
-        return Err(FitFailure::NotConverged { iterations, gradient_norm });
+    match judge(interior_ok, at.log_likelihood > boundary_ll, boundary_score, strength) {
+        Ending::Interior => {}
+        Ending::Boundary => return Ok(boundary_fit(iterations)),
+        Ending::Failed => return Err(FitFailure::NotConverged { iterations, gradient_norm }),
     }
 
     // Observed information → covariance in working coordinates, then the delta method.
@@ -401,6 +458,34 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         iterations,
         gradient_norm,
         boundary: Boundary::None,
+        boundary_score: None,
         overdispersion,
+        pooling: PoolingTest::new(at.log_likelihood, boundary_ll),
     })
+}
+
+#[cfg(test)]
+mod judging {
+    use super::*;
+
+    #[test]
+    fn a_failed_search_with_a_positive_boundary_score_is_a_failure_not_the_boundary() {
+        assert_eq!(judge(true, true, 3.0, 10.0), Ending::Interior);
+        assert_eq!(judge(false, false, -1.0, 10.0), Ending::Boundary);
+        assert_eq!(judge(true, false, 0.0, 10.0), Ending::Boundary);
+        // The score says an interior point beats the boundary, and the search did not find one.
+        assert_eq!(judge(false, true, 2.0, 10.0), Ending::Failed);
+        assert_eq!(judge(true, false, 2.0, 10.0), Ending::Failed);
+        // Unless the search went beyond the strengths told apart from the boundary.
+        assert_eq!(judge(false, false, 2.0, 2.0 * MAX_STRENGTH), Ending::Boundary);
+    }
+
+    #[test]
+    fn the_pooling_test_halves_the_chi_square_tail_and_is_one_at_zero() {
+        // Source: the chi-square(1) tail at 3.841459 is 0.05 (common practice: the 95% point).
+        let test = PoolingTest::new(10.0 + 3.841458820694124 / 2.0, 10.0);
+        assert!((test.p_value - 0.025).abs() < 1e-12, "{}", test.p_value);
+        assert_eq!(PoolingTest::new(5.0, 5.0).p_value, 1.0);
+        assert_eq!(PoolingTest::new(5.0, 5.0 + 1e-12).statistic, 0.0);
+    }
 }

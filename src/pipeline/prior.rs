@@ -13,7 +13,7 @@ use super::scoring::pull_of_pairs;
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
 use crate::core::diagnostics::Pull;
-use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure};
+use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure, PoolingTest};
 use crate::core::incomplete::gamma_tails;
 use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, RateLaw, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -456,6 +456,18 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
             statistic: fitted.overdispersion.statistic,
             p_value: fitted.overdispersion.p_value,
         },
+        boundary_score: fitted.boundary_score,
+        pooling_test: Some(pooling_report(&fitted.pooling)),
+    }
+}
+
+/// The wire form of the likelihood-ratio test against complete pooling.
+fn pooling_report(test: &PoolingTest) -> TestReport {
+    TestReport {
+        name: "likelihood ratio against complete pooling, p from the 50:50 mixture of chi-square(0) and chi-square(1)"
+            .to_string(),
+        statistic: test.statistic,
+        p_value: test.p_value,
     }
 }
 

@@ -125,3 +125,32 @@ fn binomial_data_without_overdispersion_end_at_the_boundary_with_finite_output()
     assert!(table.floats("pool_weight").iter().all(|&w| w == 1.0));
     assert!(table.column("posterior_alpha").iter().all(|v| v.is_empty()));
 }
+
+#[test]
+fn the_likelihood_ratio_against_complete_pooling_matches_scipy() {
+    // Source: tests/fixtures/pooling.json (scripts/make_pooling_fixtures.py):
+    // scipy.stats binom/poisson logpmf at the pooled rate, the fitted maxima
+    // of fits.json, and scipy.stats.chi2.sf(x, 1) / 2 for the boundary null.
+    let reference = json_fixture("pooling.json");
+    let (_dir, s, _) = fit_beta_binomial("beta_binomial_groups.csv");
+    let (_dir2, _, s2, _) =
+        run_fit("gamma_poisson_areas.csv", "gamma-poisson", ["area", "cases", "expected"]);
+    for (summary, key) in [(&s, "beta_binomial"), (&s2, "gamma_poisson")] {
+        let test = &summary["fit"]["pooling_test"];
+        let (statistic, p) = (test["statistic"].as_f64().unwrap(), test["p_value"].as_f64().unwrap());
+        let want = &reference[key];
+        assert!((statistic - want["statistic"].as_f64().unwrap()).abs() < 1e-5, "{key}: {statistic}");
+        let want_p = want["p_value"].as_f64().unwrap();
+        if want_p == 0.0 {
+            assert!(p < 1e-300, "{key}: {p}");
+        } else {
+            assert!(relative(p, want_p) < 1e-6, "{key}: {p} vs {want_p}");
+        }
+    }
+    // At the boundary the statistic is 0 and the p-value 1.
+    let (_dir3, _, s3, _) = run_fit("binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
+    assert_eq!(s3["fit"]["pooling_test"]["statistic"], 0.0);
+    assert_eq!(s3["fit"]["pooling_test"]["p_value"], 1.0);
+    assert!(s3["fit"]["boundary_score"].as_f64().unwrap() <= 0.0, "the boundary is a maximum");
+    assert_eq!(s3["fit"]["gradient_norm"], 0.0);
+}
