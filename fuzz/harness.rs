@@ -49,6 +49,7 @@ pub fn exercise(data: &[u8]) {
         min_groups: ratepool::pipeline::DEFAULT_MIN_GROUPS,
         aggregation: Default::default(),
         top: None,
+        seed: ratepool::pipeline::DEFAULT_SEED,
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -157,8 +157,8 @@ pub struct TableArgs {
     /// draw averages exact posterior tail probabilities: see benches/results/prob-top-accuracy.txt).
     #[arg(long, value_name = "N")]
     pub top_draws: Option<usize>,
-    /// Seed of the draws for prob_top (recorded in the summary): the same seed gives the
-    /// same bits on any number of threads.
+    /// Seed of every random draw: prob_top's and the calibration check's (recorded in the
+    /// summary); the same seed gives the same bits on any number of threads.
     #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
     pub seed: u64,
     /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
@@ -330,7 +330,7 @@ fn top_rule(table: &TableArgs) -> Result<Option<TopRule>> {
         TopMethodArg::Draws => TopChoice::Draws,
         TopMethodArg::Threshold => TopChoice::Threshold,
     };
-    Ok(Some(TopRule { k, draws: table.top_draws, seed: table.seed, method }))
+    Ok(Some(TopRule { k, draws: table.top_draws, method }))
 }
 
 /// The flag rule of `--flag-fdr Q`: Q strictly between 0 and 1, for the
@@ -447,6 +447,7 @@ fn job_of(
         min_groups: table.min_groups,
         aggregation,
         top: top_rule(table)?,
+        seed: table.seed,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),

@@ -40,11 +40,63 @@ pub struct Summary {
     /// The flags under a posterior false-discovery rate, when asked for.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub flags: Option<FlagReport>,
+    /// Does the model fit the data scored? Computed on the fitted data in a
+    /// `fit`, and on the scored data under the saved prior in a `score`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub checks: Option<ChecksReport>,
     /// How `prob_top` was computed, when asked for.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub top: Option<TopReport>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// Checks of the model against the data scored.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ChecksReport {
+    /// "the fitted data", or "the scored data under the saved prior".
+    pub data: String,
+    /// Log marginal likelihood of these data under the prior in use.
+    pub log_marginal_likelihood: f64,
+    /// The same per group.
+    pub log_marginal_likelihood_per_group: f64,
+    /// The overdispersion score test on these data.
+    pub overdispersion_test: TestReport,
+    /// Randomised probability integral transform of each count in its prior predictive.
+    pub calibration: CalibrationReport,
+    /// Variance of the raw rates around their prior means: observed and expected.
+    pub raw_rate_variance: VarianceReport,
+    /// "fits", or "poor fit" with the reason in the warnings.
+    pub verdict: String,
+}
+
+/// The calibration histogram and its test.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CalibrationReport {
+    /// Groups in each tenth of (0, 1); equal under the model, up to noise.
+    pub bins: Vec<u64>,
+    /// Pearson's chi-square against equal bins.
+    pub statistic: f64,
+    /// Degrees of freedom (9).
+    pub degrees_of_freedom: u64,
+    /// Upper chi-square tail.
+    pub p_value: f64,
+    /// Groups located (all, or a seeded sample of 100,000).
+    pub groups: u64,
+    /// Seed of the randomisation.
+    pub seed: u64,
+}
+
+/// Observed against expected variance of the raw rates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VarianceReport {
+    /// Mean squared difference of raw rate and prior mean, over groups with data.
+    pub observed: f64,
+    /// Its expectation under the prior predictive.
+    pub expected: f64,
+    /// observed / expected: near 1 when the prior's spread is right (null
+    /// when no group has data or no variance is expected).
+    pub ratio: Option<f64>,
 }
 
 /// `prob_top`: the probability of being among the K best rates.
@@ -346,10 +398,19 @@ pub fn render_text(summary: &Summary) -> String {
         prior.strength().map_or("infinite".to_string(), |s| format!("{s:.4}"))
     );
     let fit = &summary.fit;
+    let fitted_here = fit.source == "fit";
     let _ = writeln!(
         out,
-        "  fit          log marginal likelihood {:.4}, {} iterations, converged {}, boundary {}",
-        fit.log_marginal_likelihood, fit.iterations, fit.converged, fit.boundary
+        "  {}log marginal likelihood {:.4}, {} iterations, converged {}, boundary {}",
+        if fitted_here {
+            "fit          ".to_string()
+        } else {
+            format!("prior fit    (saved in {}, on the data it was fitted to) ", fit.source)
+        },
+        fit.log_marginal_likelihood,
+        fit.iterations,
+        fit.converged,
+        fit.boundary
     );
     let test = &fit.overdispersion_test;
     let _ = writeln!(
@@ -394,6 +455,20 @@ pub fn render_text(summary: &Summary) -> String {
             out,
             "  segment test one prior for all against one per segment: chi-square {:.3} on {} df, p = {:.3e}",
             test.statistic, test.degrees_of_freedom, test.p_value
+        );
+    }
+    if let Some(checks) = &summary.checks {
+        let c = &checks.calibration;
+        let _ = writeln!(
+            out,
+            "  calibration  {}: chi-square {:.2} on {} df, p = {:.3e} over {} groups; raw-rate variance observed/expected {:.3}: {}",
+            checks.data,
+            c.statistic,
+            c.degrees_of_freedom,
+            c.p_value,
+            c.groups,
+            checks.raw_rate_variance.ratio.unwrap_or(f64::NAN),
+            checks.verdict
         );
     }
     if let Some(flags) = &summary.flags {

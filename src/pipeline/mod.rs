@@ -88,8 +88,6 @@ pub struct TopRule {
     /// Draws, when drawing (None: as many as [`DRAW_BUDGET`] affords,
     /// between [`MIN_DRAWS`] and [`MAX_DRAWS`]).
     pub draws: Option<usize>,
-    /// Seed of the draws.
-    pub seed: u64,
     /// How.
     pub method: TopChoice,
 }
@@ -217,6 +215,8 @@ pub struct Job {
     pub flag_fdr: Option<FlagRule>,
     /// `prob_top`, when asked for (ordered as the ranks are).
     pub top: Option<TopRule>,
+    /// Seed of every random draw (`prob_top`, the calibration check).
+    pub seed: u64,
     /// What a row is: a group, a trial, or a part of a group.
     pub aggregation: Aggregation,
     /// Segment columns: one prior per segment (empty: one prior for all).

@@ -424,6 +424,7 @@ mod tests {
             min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
             aggregation: Default::default(),
             top: None,
+            seed: crate::pipeline::DEFAULT_SEED,
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

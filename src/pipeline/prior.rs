@@ -12,6 +12,7 @@
 use super::scoring::pull_of_pairs;
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
+use crate::core::diagnostics::calibration;
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure, PoolingTest};
 use crate::core::incomplete::gamma_tails;
@@ -22,7 +23,10 @@ use crate::core::ranking::{
     TopMethod,
 };
 use crate::error::{Error, Result};
-use crate::report::{FitReport, Hyperprior, HyperpriorParts, SegmentTest, TestReport};
+use crate::report::{
+    CalibrationReport, ChecksReport, FitReport, Hyperprior, HyperpriorParts, SegmentTest, TestReport,
+    VarianceReport,
+};
 use arrow_array::ArrayRef;
 use rayon::prelude::*;
 use std::ops::Range;
@@ -74,6 +78,8 @@ pub struct Scored {
     pub segments: Vec<SegmentScore>,
     /// One prior for all against one per segment, when priors were fitted per segment.
     pub segment_test: Option<SegmentTest>,
+    /// Does the model (each pair under its prior) fit the data scored?
+    pub checks: ChecksReport,
 }
 
 impl Scored {
@@ -285,8 +291,8 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
             }
         };
         if by_draws {
-            let p = top_probabilities_by_draws(&laws, &weights, (rule.k, order), (draws, rule.seed), beyond);
-            (p, TopMethod::Draws { draws, seed: rule.seed })
+            let p = top_probabilities_by_draws(&laws, &weights, (rule.k, order), (draws, job.seed), beyond);
+            (p, TopMethod::Draws { draws, seed: job.seed })
         } else {
             let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
             let (p, threshold) =
@@ -301,6 +307,16 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     let mut warnings = all.warnings.clone();
     if let Prior::CompletePooling { .. } = all.prior {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
+    }
+    let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
+    if checks.verdict != "fits" {
+        warnings.push(format!(
+            "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, p = {:.1e}; raw-rate variance {:.2} times the expected). One prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags",
+            checks.data,
+            checks.calibration.statistic,
+            checks.calibration.p_value,
+            checks.raw_rate_variance.ratio.unwrap_or(f64::NAN)
+        ));
     }
     let segment_test = match (segmented, &job.prior) {
         (true, PriorSource::Fit) => likelihood_ratio_test::<F>(&all, &choices, &segments),
@@ -353,7 +369,88 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         prob_top,
         segments: scores,
         segment_test,
+        checks,
     })
+}
+
+/// A calibration p-value below this calls the fit poor: a false alarm one
+/// time in a thousand when the model holds.
+const POOR_FIT_P: f64 = 1e-3;
+
+/// The checks of the model against the data scored (each pair under its
+/// prior): log marginal likelihood, the overdispersion test, the calibration
+/// histogram and the variance of the raw rates.
+fn model_checks<F: Family>(
+    job: &Job,
+    pairs: &[WeightedPair],
+    table: &PairTable,
+    priors: &[Prior],
+    place_of_pair: &[usize],
+) -> ChecksReport {
+    let prior_of = |i: usize| &priors[place_of_pair[i]];
+    let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
+    let calibration =
+        calibration(&weights, |i| F::predictive_cdf(prior_of(i), pairs[i].size, pairs[i].count), job.seed);
+    let (mut observed, mut expected, mut with_data) = (0.0, 0.0, 0.0);
+    for (i, pair) in pairs.iter().enumerate().filter(|(_, p)| p.size > 0.0) {
+        let mean = match *prior_of(i) {
+            Prior::CompletePooling { mean } => mean,
+            Prior::Conjugate { natural } => F::mean_strength_of_natural(natural).0,
+        };
+        observed += pair.weight * (pair.count / pair.size - mean).powi(2);
+        expected += pair.weight * F::raw_rate_variance(prior_of(i), pair.size);
+        with_data += pair.weight;
+    }
+    let (observed, expected) = (observed / with_data.max(1.0), expected / with_data.max(1.0));
+    // Terms in parallel, summed in table order: the same bits on any number of threads.
+    let terms: Vec<f64> = pairs
+        .par_iter()
+        .zip(place_of_pair)
+        .map(|(p, &place)| p.weight * prior_log_pmf::<F>(&priors[place], p))
+        .collect();
+    let log_likelihood: f64 = terms.iter().sum();
+    let pooled_mean = F::pooled_mean(table);
+    let z = F::overdispersion_z(table, pooled_mean);
+    let groups = table.groups();
+    ChecksReport {
+        data: match job.prior {
+            PriorSource::Fit => "the fitted data",
+            PriorSource::Saved { .. } => "the scored data under the saved prior",
+        }
+        .to_string(),
+        log_marginal_likelihood: log_likelihood,
+        log_marginal_likelihood_per_group: log_likelihood / groups,
+        overdispersion_test: TestReport {
+            name: F::TERMS.overdispersion_test.to_string(),
+            statistic: z,
+            p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
+        },
+        verdict: if calibration.p_value < POOR_FIT_P { "poor fit" } else { "fits" }.to_string(),
+        calibration: CalibrationReport {
+            bins: calibration.bins.to_vec(),
+            statistic: calibration.statistic,
+            degrees_of_freedom: 9,
+            p_value: calibration.p_value,
+            groups: calibration.groups,
+            seed: job.seed,
+        },
+        raw_rate_variance: VarianceReport {
+            observed,
+            expected,
+            ratio: (expected > 0.0).then(|| observed / expected),
+        },
+    }
+}
+
+/// The log marginal pmf of one pair under a prior (the pooled pmf under complete pooling).
+fn prior_log_pmf<F: Family>(prior: &Prior, pair: &WeightedPair) -> f64 {
+    match *prior {
+        Prior::CompletePooling { mean } => F::pooled_log_pmf(mean, pair),
+        Prior::Conjugate { natural } => {
+            let (mean, strength) = F::mean_strength_of_natural(natural);
+            F::pair_terms(F::working(mean, strength), pair).log_likelihood
+        }
+    }
 }
 
 /// The likelihood-ratio test of one prior for all groups against the priors

@@ -273,6 +273,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         segment_columns: job.segments.clone(),
         segments,
         segment_test: scored.segment_test.clone(),
+        checks: Some(scored.checks.clone()),
         thresholds: (job.thresholds != Thresholds::default())
             .then_some(ThresholdReport { above: job.thresholds.above, below: job.thresholds.below }),
         flags: job.flag_fdr.zip(scored.flags.as_ref()).map(|(rule, flags)| FlagReport {
@@ -302,7 +303,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
                 TopMethod::Draws { draws, .. } => Some(*draws as u64),
                 TopMethod::Threshold { .. } => None,
             },
-            seed: matches!(method, TopMethod::Draws { .. }).then_some(rule.seed),
+            seed: matches!(method, TopMethod::Draws { .. }).then_some(job.seed),
             threshold: match method {
                 TopMethod::Threshold { threshold } => Some(*threshold),
                 TopMethod::Draws { .. } => None,

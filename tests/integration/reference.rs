@@ -168,3 +168,26 @@ fn exceedance_probabilities_match_mpmath() {
     assert!(checked > 900, "only {checked} values checked");
     println!("exceedance: {checked} values, worst relative error {worst:.2e}");
 }
+
+#[test]
+fn prior_predictive_cdfs_match_scipy() {
+    // Source: scipy.stats betabinom.cdf and nbinom.cdf (scripts/make_predictive_fixtures.py).
+    use ratepool::core::model::{Family, Prior};
+    let fixture = json_fixture("predictive_cdf.json");
+    let mut worst: f64 = 0.0;
+    for row in fixture["rows"].as_array().unwrap() {
+        let (size, count) = (row["size"].as_f64().unwrap(), row["count"].as_f64().unwrap());
+        let prior =
+            Prior::Conjugate { natural: [row["first"].as_f64().unwrap(), row["second"].as_f64().unwrap()] };
+        let (below, at_most) = match row["model"].as_str().unwrap() {
+            "beta-binomial" => beta_binomial::BetaBinomial::predictive_cdf(&prior, size, count),
+            _ => gamma_poisson::GammaPoisson::predictive_cdf(&prior, size, count),
+        };
+        for (got, key) in [(below, "below"), (at_most, "at_most")] {
+            let want = row[key].as_f64().unwrap();
+            worst = worst.max((got - want).abs());
+            assert!((got - want).abs() < 1e-10, "{row}: {key} {got} vs {want}");
+        }
+    }
+    println!("predictive CDFs: worst absolute difference {worst:.1e}");
+}

@@ -41,6 +41,56 @@ pub fn ln_pmf(k: f64, n: f64, alpha: f64, beta: f64) -> f64 {
     log_pmf_at(k, n, alpha / s, beta / s, s)
 }
 
+/// (P(K < k), P(K ≤ k)) for K ~ BetaBinomial(n, α, β), by summing the pmf
+/// out from k in both directions with the ratio of neighbouring terms,
+/// p(j + 1)/p(j) = (n − j)(j + α) / ((j + 1)(n − j − 1 + β)), each side until
+/// its terms fall below 1e-17 of its sum, in units of p(k) and rescaled by
+/// 2^-600 when a side grows past 2^600, so a count deep in a tail neither
+/// overflows nor loses the other side. The work follows the spread of the
+/// distribution around k (a few standard deviations), not n.
+pub fn beta_binomial_cdf(n: f64, k: f64, alpha: f64, beta: f64) -> (f64, f64) {
+    const BIG: f64 = 4.149515568880993e180; // 2^600
+    let step_up = |j: f64| (n - j) * (j + alpha) / ((j + 1.0) * (n - j - 1.0 + beta));
+    // Each side: (sum, number of 2^-600 rescalings), in units of p(k).
+    let side = |down: bool| -> (f64, i32) {
+        let (mut sum, mut term, mut scale, mut j) = (0.0, 1.0, 0, k);
+        loop {
+            if down {
+                if j <= 0.0 {
+                    break;
+                }
+                term /= step_up(j - 1.0);
+                j -= 1.0;
+            } else {
+                if j >= n {
+                    break;
+                }
+                term *= step_up(j);
+                j += 1.0;
+            }
+            sum += term;
+            if sum > BIG {
+                (sum, term, scale) = (sum / BIG, term / BIG, scale + 1);
+            }
+            if term <= 1e-17 * sum || !term.is_finite() {
+                break;
+            }
+        }
+        (sum, scale)
+    };
+    let ((below, below_scale), (above, above_scale)) = (side(true), side(false));
+    // In logs: total = below + 1 + above, each side at its own scale.
+    let ln_big = 600.0 * std::f64::consts::LN_2;
+    let ln_below = below.ln() + f64::from(below_scale) * ln_big;
+    let ln_above = above.ln() + f64::from(above_scale) * ln_big;
+    let top = ln_below.max(ln_above).max(0.0);
+    let ln_total = top + ((ln_below - top).exp() + (-top).exp() + (ln_above - top).exp()).ln();
+    let share = |ln_part: f64| (ln_part - ln_total).exp();
+    let less = if below > 0.0 { share(ln_below) } else { 0.0 };
+    let greater = if above > 0.0 { share(ln_above) } else { 0.0 };
+    (less, 1.0 - greater)
+}
+
 /// The log pmf from the prior mean μ, its complement ν and strength s, taken
 /// about the posterior mean p₁ = (k + a)/(n + s):
 /// ln Binomial(k; n, p₁) − bd0(a, s p₁) − bd0(b, s(1 − p₁)) + L(k + a, n − k + b)
@@ -172,6 +222,10 @@ impl Family for BetaBinomial {
         [(mean / (1.0 - mean)).ln(), strength.ln()]
     }
 
+    fn mean_strength_of_natural([alpha, beta]: [f64; 2]) -> (f64, f64) {
+        (alpha / (alpha + beta), alpha + beta)
+    }
+
     fn mean_strength(u: [f64; 2]) -> (f64, f64) {
         (mean_and_complement(u[0]).0, u[1].exp())
     }
@@ -200,6 +254,36 @@ impl Family for BetaBinomial {
             Prior::Conjugate { natural: [alpha, beta] } => {
                 let tails = beta_tails(alpha + k, beta + (n - k), threshold, 1.0 - threshold);
                 (tails.lower, tails.upper)
+            }
+        }
+    }
+
+    fn predictive_cdf(prior: &Prior, n: f64, k: f64) -> (f64, f64) {
+        match *prior {
+            // Binomial(n, p): P(K ≤ k) = I_{1−p}(n − k, k + 1).
+            Prior::CompletePooling { mean } => {
+                let at_most = |k: f64| {
+                    if k < 0.0 {
+                        0.0
+                    } else if k >= n {
+                        1.0
+                    } else {
+                        beta_tails(n - k, k + 1.0, 1.0 - mean, mean).lower
+                    }
+                };
+                (at_most(k - 1.0), at_most(k))
+            }
+            Prior::Conjugate { natural: [alpha, beta] } => beta_binomial_cdf(n, k, alpha, beta),
+        }
+    }
+
+    fn raw_rate_variance(prior: &Prior, n: f64) -> f64 {
+        match *prior {
+            Prior::CompletePooling { mean } => mean * (1.0 - mean) / n,
+            Prior::Conjugate { natural: [alpha, beta] } => {
+                let s = alpha + beta;
+                let mean = alpha / s;
+                mean * (1.0 - mean) * (s + n) / (n * (s + 1.0))
             }
         }
     }

@@ -11,7 +11,7 @@
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
 use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, Unidentifiable};
-use crate::core::incomplete::gamma_tails;
+use crate::core::incomplete::{beta_tails, gamma_tails};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
 use crate::core::special::{
@@ -156,6 +156,10 @@ impl Family for GammaPoisson {
         [mean.ln(), (mean * strength).ln()]
     }
 
+    fn mean_strength_of_natural([alpha, beta]: [f64; 2]) -> (f64, f64) {
+        (alpha / beta, beta)
+    }
+
     fn mean_strength(u: [f64; 2]) -> (f64, f64) {
         (u[0].exp(), (u[1] - u[0]).exp())
     }
@@ -180,6 +184,34 @@ impl Family for GammaPoisson {
             Prior::Conjugate { natural: [shape, rate] } => {
                 let tails = gamma_tails(shape + y, (rate + exposure) * threshold.max(0.0));
                 (tails.lower, tails.upper)
+            }
+        }
+    }
+
+    fn predictive_cdf(prior: &Prior, exposure: f64, y: f64) -> (f64, f64) {
+        match *prior {
+            // Poisson(λ): P(Y ≤ y) = Q(y + 1, λ).
+            Prior::CompletePooling { mean } => {
+                let lambda = mean * exposure;
+                let at_most = |y: f64| if y < 0.0 { 0.0 } else { gamma_tails(y + 1.0, lambda).upper };
+                (at_most(y - 1.0), at_most(y))
+            }
+            // Negative binomial with a failures and success chance E/(b + E):
+            // P(Y ≤ y) = I_{b/(b+E)}(a, y + 1).
+            Prior::Conjugate { natural: [shape, rate] } => {
+                let (p, q) = (rate / (rate + exposure), exposure / (rate + exposure));
+                let at_most = |y: f64| if y < 0.0 { 0.0 } else { beta_tails(shape, y + 1.0, p, q).lower };
+                (at_most(y - 1.0), at_most(y))
+            }
+        }
+    }
+
+    fn raw_rate_variance(prior: &Prior, exposure: f64) -> f64 {
+        match *prior {
+            Prior::CompletePooling { mean } => mean / exposure,
+            Prior::Conjugate { natural: [shape, rate] } => {
+                let mean = shape / rate;
+                mean / exposure + mean / rate
             }
         }
     }

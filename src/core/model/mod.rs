@@ -226,6 +226,8 @@ pub trait Family: Sync {
     fn working(mean: f64, strength: f64) -> [f64; 2];
     /// Prior mean and strength at working coordinates.
     fn mean_strength(u: [f64; 2]) -> (f64, f64);
+    /// Prior mean and strength of natural parameters (alpha, beta) or (shape, rate).
+    fn mean_strength_of_natural(natural: [f64; 2]) -> (f64, f64);
     /// Natural parameters (alpha, beta) or (shape, rate) at `u`.
     fn natural(u: [f64; 2]) -> [f64; 2];
     /// ∂(natural)/∂u, rows the natural parameters.
@@ -242,4 +244,10 @@ pub trait Family: Sync {
     fn rate_tails(prior: &Prior, size: f64, count: f64, threshold: f64) -> (f64, f64);
     /// The law of the rate under a posterior of this model.
     fn rate_law(posterior: &Posterior) -> RateLaw;
+    /// Where a group's count falls in its prior predictive distribution
+    /// (the marginal of the count given its size): (P(K < count), P(K ≤ count)).
+    fn predictive_cdf(prior: &Prior, size: f64, count: f64) -> (f64, f64);
+    /// The variance of a group's raw rate (count / size, size > 0) under
+    /// its prior predictive distribution.
+    fn raw_rate_variance(prior: &Prior, size: f64) -> f64;
 }
