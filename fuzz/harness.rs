@@ -50,6 +50,7 @@ pub fn exercise(data: &[u8]) {
         aggregation: Default::default(),
         top: None,
         seed: ratepool::pipeline::DEFAULT_SEED,
+        intervals: Default::default(),
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

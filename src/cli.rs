@@ -5,8 +5,8 @@ use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
-    load_summary, Aggregation, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource,
-    RankOrder, Thresholds, TopChoice, TopRule,
+    load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Model,
+    PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
 };
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -58,6 +58,15 @@ pub enum InvalidArg {
     Error,
     /// Leave invalid rows out and write them to --rejects.
     Skip,
+}
+
+/// How intervals treat the estimated prior.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum IntervalsArg {
+    /// The fitted prior taken as known.
+    PlugIn,
+    /// Kass and Steffey's first-order correction for its estimation.
+    Corrected,
 }
 
 /// How prob_top is computed.
@@ -161,6 +170,11 @@ pub struct TableArgs {
     /// summary); the same seed gives the same bits on any number of threads.
     #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
     pub seed: u64,
+    /// How intervals treat the estimated prior: `plug-in` (as known) or `corrected` (Kass and
+    /// Steffey's first-order correction: the posterior variance plus the delta-method term of
+    /// the prior's covariance, the interval of the Beta or Gamma matched to it).
+    #[arg(long, value_enum, default_value_t = IntervalsArg::PlugIn)]
+    pub intervals: IntervalsArg,
     /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
     #[arg(long, default_value_t = 0.95)]
     pub level: f64,
@@ -448,6 +462,10 @@ fn job_of(
         aggregation,
         top: top_rule(table)?,
         seed: table.seed,
+        intervals: match table.intervals {
+            IntervalsArg::PlugIn => Intervals::PlugIn,
+            IntervalsArg::Corrected => Intervals::Corrected,
+        },
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),

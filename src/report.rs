@@ -19,6 +19,10 @@ pub struct Summary {
     pub rows_rejected: u64,
     /// Credible level of the intervals.
     pub level: f64,
+    /// "plug-in" (the fitted prior taken as known) or "corrected" (Kass and
+    /// Steffey's first-order correction for its estimation).
+    #[serde(default = "plug_in")]
+    pub intervals: String,
     /// The prior.
     pub hyperprior: Hyperprior,
     /// How the prior was obtained.
@@ -170,6 +174,10 @@ pub struct FlagReport {
     pub expected_false_flags: f64,
 }
 
+fn plug_in() -> String {
+    "plug-in".to_string()
+}
+
 /// The prior, in the parameters of its model.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(untagged)]
@@ -252,6 +260,10 @@ pub struct FitReport {
     /// mixture of chi-square(0) and chi-square(1)); null in older files.
     #[serde(default)]
     pub pooling_test: Option<TestReport>,
+    /// Covariance of the working coordinates (inverse observed information)
+    /// of an interior fit, for corrected intervals; null at the boundary.
+    #[serde(default)]
+    pub working_covariance: Option<[[f64; 2]; 2]>,
 }
 
 /// A test statistic with its p-value.
@@ -358,6 +370,14 @@ impl Hyperprior {
         match self {
             Hyperprior::Beta(p) => p.mean,
             Hyperprior::Gamma(p) => p.mean,
+        }
+    }
+
+    /// Standard error of the prior mean.
+    pub fn mean_se(&self) -> f64 {
+        match self {
+            Hyperprior::Beta(p) => p.mean_se,
+            Hyperprior::Gamma(p) => p.mean_se,
         }
     }
 

@@ -13,7 +13,7 @@
 //! positive and no interior point beats it, the fit reports that boundary as
 //! its result: complete pooling at the pooled rate.
 
-use crate::core::model::{Evaluation, Family, Prior, Unidentifiable};
+use crate::core::model::{Evaluation, Family, Prior, PriorUncertainty, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
 use argmin::core::{
     CostFunction, Error as ArgminError, Executor, Gradient, Hessian, IterState, Problem, Solver, State,
@@ -117,6 +117,8 @@ pub struct Fit {
     pub overdispersion: OverdispersionTest,
     /// Likelihood-ratio test against complete pooling.
     pub pooling: PoolingTest,
+    /// What is known of the estimate's uncertainty, for corrected intervals.
+    pub uncertainty: PriorUncertainty,
 }
 
 /// What the end of a search means, given the boundary's score: an interior
@@ -412,6 +414,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         boundary_score: Some(boundary_score / groups),
         overdispersion,
         pooling: PoolingTest::new(boundary_ll, boundary_ll),
+        uncertainty: PriorUncertainty::PooledMean(F::pooled_mean_se(table, pooled_mean).powi(2)),
     };
 
     let (u, iterations) = match maximise::<F>(table, start) {
@@ -461,6 +464,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         boundary_score: None,
         overdispersion,
         pooling: PoolingTest::new(at.log_likelihood, boundary_ll),
+        uncertainty: PriorUncertainty::Working(cov_u),
     })
 }
 

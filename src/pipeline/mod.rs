@@ -95,6 +95,16 @@ pub struct TopRule {
 /// The seed of the draws unless one is given.
 pub const DEFAULT_SEED: u64 = 20_261_202;
 
+/// How the intervals treat the estimated prior.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Intervals {
+    /// As known (the plug-in posterior).
+    #[default]
+    PlugIn,
+    /// Kass and Steffey's first-order correction, moment-matched.
+    Corrected,
+}
+
 /// What a row of the input is.
 #[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub enum Aggregation {
@@ -217,6 +227,8 @@ pub struct Job {
     pub top: Option<TopRule>,
     /// Seed of every random draw (`prob_top`, the calibration check).
     pub seed: u64,
+    /// Plug-in or corrected intervals.
+    pub intervals: Intervals,
     /// What a row is: a group, a trial, or a part of a group.
     pub aggregation: Aggregation,
     /// Segment columns: one prior per segment (empty: one prior for all).

@@ -425,6 +425,7 @@ mod tests {
             aggregation: Default::default(),
             top: None,
             seed: crate::pipeline::DEFAULT_SEED,
+            intervals: Default::default(),
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

@@ -11,12 +11,14 @@
 
 use super::scoring::pull_of_pairs;
 use super::segments::{SegmentKey, SegmentPairs};
-use super::{FlagEvent, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
+use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure, PoolingTest};
 use crate::core::incomplete::gamma_tails;
-use crate::core::model::{Family, FamilyVisitor, Posterior, Prior, RateLaw, Unidentifiable};
+use crate::core::model::{
+    corrected_posterior, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw, Unidentifiable,
+};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{
     posterior_fdr_flags, top_probabilities_by_draws, top_probabilities_by_threshold, FdrFlags, RankOrder,
@@ -122,6 +124,8 @@ struct Chosen {
     fit: FitReport,
     warnings: Vec<String>,
     log_likelihood: f64,
+    /// For corrected intervals (None: a saved prior without its covariance).
+    uncertainty: Option<PriorUncertainty>,
 }
 
 /// The prior for all groups: fitted, or the saved one.
@@ -133,19 +137,34 @@ fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
             Ok(chosen_of_fit::<F>(job.model, &fitted))
         }
         PriorSource::Saved { path, summary } => {
-            let prior = prior_of_hyperprior(&summary.hyperprior, &summary.model, path, job.model)?;
             let mut fit = summary.fit.clone();
             fit.source = path.display().to_string();
-            let log_likelihood = log_marginal_at::<F>(table, &summary.hyperprior);
-            Ok(Chosen {
-                prior,
-                hyperprior: summary.hyperprior.clone(),
-                fit,
-                warnings: Vec::new(),
-                log_likelihood,
-            })
+            chosen_of_saved::<F>(job.model, (&summary.hyperprior, fit), (&summary.model, path), table)
         }
     }
+}
+
+/// A saved prior (the all-groups one or a segment's) as the prior in use,
+/// with the log marginal likelihood of `table` under it.
+fn chosen_of_saved<F: Family>(
+    model: Model,
+    (hyperprior, fit): (&Hyperprior, FitReport),
+    (saved_model, path): (&str, &Path),
+    table: &PairTable,
+) -> Result<Chosen> {
+    let prior = prior_of_hyperprior(hyperprior, saved_model, path, model)?;
+    let uncertainty = match prior {
+        Prior::Conjugate { .. } => fit.working_covariance.map(PriorUncertainty::Working),
+        Prior::CompletePooling { .. } => Some(PriorUncertainty::PooledMean(hyperprior.mean_se().powi(2))),
+    };
+    Ok(Chosen {
+        prior,
+        hyperprior: hyperprior.clone(),
+        log_likelihood: log_marginal_at::<F>(table, hyperprior),
+        fit,
+        warnings: Vec::new(),
+        uncertainty,
+    })
 }
 
 fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
@@ -155,6 +174,7 @@ fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
         fit: fit_report_of::<F>(fitted, "fit"),
         warnings: fit_warnings(fitted),
         log_likelihood: fitted.log_marginal_likelihood,
+        uncertainty: Some(fitted.uncertainty),
     }
 }
 
@@ -189,18 +209,11 @@ fn segment_prior<F: Family>(
             if let Some(reason) = &saved.fallback {
                 return Ok(Err(format!("the saved prior gave it the all-groups prior: {reason}")));
             }
-            let prior = prior_of_hyperprior(&saved.hyperprior, &summary.model, path, job.model)?;
             let Some(fit) = saved.fit.clone() else {
                 return Err(Error::Input(format!("{}: a segment's fit report is missing", path.display())));
             };
-            let log_likelihood = log_marginal_at::<F>(&segment.table, &saved.hyperprior);
-            Ok(Ok(Chosen {
-                prior,
-                hyperprior: saved.hyperprior.clone(),
-                fit,
-                warnings: Vec::new(),
-                log_likelihood,
-            }))
+            let saved_at = (summary.model.as_str(), path.as_path());
+            Ok(Ok(chosen_of_saved::<F>(job.model, (&saved.hyperprior, fit), saved_at, &segment.table)?))
         }
     }
 }
@@ -240,6 +253,17 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         clock.lap(&format!("segment fits ({} segments)", segments.len()));
     }
     let priors: Vec<Prior> = choices.iter().map(|c| c.as_ref().map_or(all.prior, |own| own.prior)).collect();
+    let uncertainties: Vec<Option<PriorUncertainty>> =
+        choices.iter().map(|c| c.as_ref().map_or(all.uncertainty, |own| own.uncertainty)).collect();
+    if job.intervals == Intervals::Corrected && uncertainties.iter().any(Option::is_none) {
+        let path = match &job.prior {
+            PriorSource::Saved { path, .. } => path.display().to_string(),
+            PriorSource::Fit => "the fit".to_string(),
+        };
+        return Err(Error::Input(format!(
+            "{path}: the prior's covariance is not saved (a summary from an older ratepool); fit again for --intervals corrected"
+        )));
+    }
     let mut ranges = Vec::with_capacity(segments.len());
     let mut place_of_pair = Vec::with_capacity(all_pairs.len());
     for (place, segment) in segments.iter().enumerate() {
@@ -251,7 +275,12 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     let posteriors: Vec<Posterior> = all_pairs
         .par_iter()
         .zip(&place_of_pair)
-        .map(|(p, &place)| F::posterior(&priors[place], p.size, p.count, tail))
+        .map(|(p, &place)| match (job.intervals, uncertainties[place]) {
+            (Intervals::Corrected, Some(uncertainty)) => {
+                corrected_posterior::<F>(&priors[place], uncertainty, p.size, p.count, tail)
+            }
+            _ => F::posterior(&priors[place], p.size, p.count, tail),
+        })
         .collect();
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
         all_pairs
@@ -555,6 +584,10 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
         },
         boundary_score: fitted.boundary_score,
         pooling_test: Some(pooling_report(&fitted.pooling)),
+        working_covariance: match fitted.uncertainty {
+            PriorUncertainty::Working(cov) => Some(cov),
+            PriorUncertainty::PooledMean(_) => None,
+        },
     }
 }
 

@@ -4,7 +4,7 @@
 use super::prior::Scored;
 use super::segments::segment_pair_values;
 use super::validate::{cell_text, ColumnNames, Rejection};
-use super::{FlagEvent, Job, Thresholds};
+use super::{FlagEvent, Intervals, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
 use crate::core::pairs::WeightedPair;
@@ -267,6 +267,11 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         rows_read: rows.read,
         rows_rejected: rows.rejected,
         level: job.level.get(),
+        intervals: match job.intervals {
+            Intervals::PlugIn => "plug-in",
+            Intervals::Corrected => "corrected",
+        }
+        .to_string(),
         hyperprior: scored.hyperprior.clone(),
         fit: scored.fit.clone(),
         pull: pull_report(&scored.pull, named.all),

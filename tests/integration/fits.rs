@@ -7,30 +7,33 @@ use std::process::Output;
 /// Fits a fixture with the given model and columns; returns the scratch
 /// folder, the process output, the summary and the output table.
 fn run_fit(input: &str, model: &str, columns: [&str; 3]) -> (tempfile::TempDir, Output, Value, Csv) {
+    run_fit_with(input, model, columns, &[])
+}
+
+/// Fits a fixture with `extra` arguments; returns the folder, the process, the summary and the table.
+fn run_fit_with(
+    input: &str,
+    model: &str,
+    columns: [&str; 3],
+    extra: &[&str],
+) -> (tempfile::TempDir, Output, Value, Csv) {
     let dir = tempfile::tempdir().unwrap();
     let input = fixture(input);
     let (count_flag, size_flag) =
         if model == "beta-binomial" { ("--successes", "--trials") } else { ("--events", "--exposure") };
-    let out = ratepool(
-        dir.path(),
-        &[
-            "fit",
-            "--input",
-            input.to_str().unwrap(),
-            "--model",
-            model,
-            "--group",
-            columns[0],
-            count_flag,
-            columns[1],
-            size_flag,
-            columns[2],
-            "--output",
-            "out.csv",
-            "--summary",
-            "summary.json",
-        ],
-    );
+    let mut args = vec!["fit", "--input", input.to_str().unwrap(), "--model", model, "--group", columns[0]];
+    args.extend([
+        count_flag,
+        columns[1],
+        size_flag,
+        columns[2],
+        "--output",
+        "out.csv",
+        "--summary",
+        "summary.json",
+    ]);
+    args.extend(extra);
+    let out = ratepool(dir.path(), &args);
     assert!(out.status.success(), "{}", stderr(&out));
     let s = summary(&dir.path().join("summary.json"));
     let table = Csv::read(&dir.path().join("out.csv"));
@@ -153,4 +156,73 @@ fn the_likelihood_ratio_against_complete_pooling_matches_scipy() {
     assert_eq!(s3["fit"]["pooling_test"]["p_value"], 1.0);
     assert!(s3["fit"]["boundary_score"].as_f64().unwrap() <= 0.0, "the boundary is a maximum");
     assert_eq!(s3["fit"]["gradient_norm"], 0.0);
+}
+
+#[test]
+fn corrected_intervals_match_kass_and_steffey_computed_with_scipy() {
+    // Source: tests/fixtures/corrected.json (scripts/make_corrected_fixtures.py):
+    // the covariance from a numerical Hessian of scipy's betabinom.logpmf sum,
+    // the delta-method term by finite differences, the matched Beta by beta.ppf.
+    let reference = json_fixture("corrected.json");
+    let (_dir, _, s, table) = run_fit_with(
+        "beta_binomial_groups.csv",
+        "beta-binomial",
+        ["unit", "hits", "tries"],
+        &["--intervals", "corrected"],
+    );
+    assert_eq!(s["intervals"], "corrected");
+    let cov = &s["fit"]["working_covariance"];
+    for i in 0..2 {
+        for j in 0..2 {
+            let (got, want) = (cov[i][j].as_f64().unwrap(), reference["covariance"][i][j].as_f64().unwrap());
+            assert!(relative(got, want) < 1e-4, "covariance [{i}][{j}]: {got} vs {want}");
+        }
+    }
+    for (column, key) in [("posterior_sd", "sd"), ("interval_lo", "lower"), ("interval_hi", "upper")] {
+        for (got, want) in table.floats(column).iter().zip(reference[key].as_array().unwrap()) {
+            let want = want.as_f64().unwrap();
+            assert!(relative(*got, want) < 1e-5, "{column}: {got} vs {want}");
+        }
+    }
+    // Wider than the plug-in intervals, never narrower.
+    let (_dir2, _, _, plug) = run_fit("beta_binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
+    for (c, p) in table.floats("interval_hi").iter().zip(plug.floats("interval_hi")) {
+        assert!(*c >= p);
+    }
+}
+
+#[test]
+fn score_reuses_the_saved_covariance_and_refuses_a_summary_without_one() {
+    let (dir, _, mut s, _) = run_fit_with(
+        "beta_binomial_groups.csv",
+        "beta-binomial",
+        ["unit", "hits", "tries"],
+        &["--intervals", "corrected"],
+    );
+    let input = fixture("beta_binomial_groups.csv");
+    let score = |prior: &str, output: &str| {
+        let args = ["score", "--prior", prior, "--input", input.to_str().unwrap(), "--group", "unit"];
+        let mut args = args.to_vec();
+        args.extend([
+            "--successes",
+            "hits",
+            "--trials",
+            "tries",
+            "--intervals",
+            "corrected",
+            "--output",
+            output,
+        ]);
+        ratepool(dir.path(), &args)
+    };
+    let out = score("summary.json", "again.csv");
+    assert!(out.status.success(), "{}", stderr(&out));
+    let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
+    assert_eq!(read("again.csv"), read("out.csv"), "the saved covariance gives the same intervals");
+    s["fit"].as_object_mut().unwrap().remove("working_covariance");
+    std::fs::write(dir.path().join("old.json"), s.to_string()).unwrap();
+    let out = score("old.json", "old.csv");
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("covariance is not saved"), "{}", stderr(&out));
+    assert!(!dir.path().join("old.csv").exists());
 }

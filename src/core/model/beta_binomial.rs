@@ -277,6 +277,19 @@ impl Family for BetaBinomial {
         }
     }
 
+    fn posterior_mean_gradient([alpha, beta]: [f64; 2], n: f64, k: f64) -> [f64; 2] {
+        // E = (α + k)/(α + β + n).
+        let total = alpha + beta + n;
+        [(beta + n - k) / (total * total), -(alpha + k) / (total * total)]
+    }
+
+    fn matched_interval(mean: f64, variance: f64, tail: f64) -> (f64, f64) {
+        // Beta(m s, (1 − m) s) has variance m(1 − m)/(s + 1); keep s above 1e-6.
+        let strength = (mean * (1.0 - mean) / variance - 1.0).max(1e-6);
+        let (a, b) = (mean * strength, (1.0 - mean) * strength);
+        (beta_quantile(a, b, Tail::Lower, tail), beta_quantile(a, b, Tail::Upper, tail))
+    }
+
     fn raw_rate_variance(prior: &Prior, n: f64) -> f64 {
         match *prior {
             Prior::CompletePooling { mean } => mean * (1.0 - mean) / n,

@@ -206,6 +206,18 @@ impl Family for GammaPoisson {
         }
     }
 
+    fn posterior_mean_gradient([shape, rate]: [f64; 2], exposure: f64, y: f64) -> [f64; 2] {
+        // E = (a + y)/(b + E).
+        let total = rate + exposure;
+        [1.0 / total, -(shape + y) / (total * total)]
+    }
+
+    fn matched_interval(mean: f64, variance: f64, tail: f64) -> (f64, f64) {
+        // Gamma(shape m²/v, rate m/v).
+        let (shape, rate) = (mean * mean / variance, mean / variance);
+        (gamma_quantile(shape, Tail::Lower, tail) / rate, gamma_quantile(shape, Tail::Upper, tail) / rate)
+    }
+
     fn raw_rate_variance(prior: &Prior, exposure: f64) -> f64 {
         match *prior {
             Prior::CompletePooling { mean } => mean / exposure,

@@ -185,6 +185,52 @@ pub enum RateLaw {
     Point(f64),
 }
 
+/// What is known of the uncertainty of the fitted prior: the covariance of
+/// the working coordinates of an interior fit, or the variance of the
+/// pooled mean at complete pooling.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum PriorUncertainty {
+    /// Covariance of the working coordinates (inverse observed information).
+    Working([[f64; 2]; 2]),
+    /// Variance of the pooled rate.
+    PooledMean(f64),
+}
+
+/// The posterior of one pair with Kass and Steffey's (1989) first-order
+/// correction for the estimated prior: the plug-in posterior variance plus
+/// g′ Σ g, g the gradient of the posterior mean in the prior's working
+/// coordinates and Σ their covariance (at complete pooling the posterior
+/// mean is the pooled rate itself, so the term is the pooled rate's
+/// variance); the interval is that of the model's posterior law matched to
+/// the mean and corrected variance, so it stays inside the parameter space.
+/// The posterior mean and parameters are the plug-in ones.
+pub fn corrected_posterior<F: Family>(
+    prior: &Prior,
+    uncertainty: PriorUncertainty,
+    size: f64,
+    count: f64,
+    tail: f64,
+) -> Posterior {
+    let plug_in = F::posterior(prior, size, count, tail);
+    let extra = match (*prior, uncertainty) {
+        (Prior::Conjugate { natural }, PriorUncertainty::Working(cov)) => {
+            let (mean, strength) = F::mean_strength_of_natural(natural);
+            let jacobian = F::natural_jacobian(F::working(mean, strength));
+            let by_natural = F::posterior_mean_gradient(natural, size, count);
+            let g = [0, 1].map(|j| by_natural[0] * jacobian[0][j] + by_natural[1] * jacobian[1][j]);
+            (0..2).map(|p| (0..2).map(|q| g[p] * cov[p][q] * g[q]).sum::<f64>()).sum::<f64>().max(0.0)
+        }
+        (Prior::CompletePooling { .. }, PriorUncertainty::PooledMean(variance)) => variance.max(0.0),
+        _ => 0.0,
+    };
+    if extra == 0.0 {
+        return plug_in;
+    }
+    let variance = plug_in.sd * plug_in.sd + extra;
+    let (lower, upper) = F::matched_interval(plug_in.mean, variance, tail);
+    Posterior { sd: variance.sqrt(), lower, upper, ..plug_in }
+}
+
 /// The tails of a point mass at `mean`: P(rate < t) and P(rate > t).
 pub fn point_mass_tails(mean: f64, threshold: f64) -> (f64, f64) {
     (f64::from(u8::from(mean < threshold)), f64::from(u8::from(mean > threshold)))
@@ -244,6 +290,12 @@ pub trait Family: Sync {
     fn rate_tails(prior: &Prior, size: f64, count: f64, threshold: f64) -> (f64, f64);
     /// The law of the rate under a posterior of this model.
     fn rate_law(posterior: &Posterior) -> RateLaw;
+    /// ∂(posterior mean)/∂(natural parameters of the prior) for one pair.
+    fn posterior_mean_gradient(natural: [f64; 2], size: f64, count: f64) -> [f64; 2];
+    /// The equal-tailed interval (`tail` in each tail) of the posterior law
+    /// of this model with the given mean and variance (a Beta or a Gamma
+    /// matched to the two moments; a Beta's variance is held below m(1 − m)).
+    fn matched_interval(mean: f64, variance: f64, tail: f64) -> (f64, f64);
     /// Where a group's count falls in its prior predictive distribution
     /// (the marginal of the count given its size): (P(K < count), P(K ≤ count)).
     fn predictive_cdf(prior: &Prior, size: f64, count: f64) -> (f64, f64);
