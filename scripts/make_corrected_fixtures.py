@@ -1,14 +1,16 @@
-"""Corrected intervals (Kass and Steffey, JASA 1989, first order) computed
-outside ratepool for the beta-binomial fit fixture: the fitted prior from
-tests/fixtures/fits.json (scipy's maximiser), the covariance of the working
-coordinates (logit mean, log strength) as the inverse of the numerical
-Hessian of the summed scipy.stats.betabinom.logpmf (central differences),
-each group's posterior-mean gradient by central differences, the corrected
-variance v + g' Cov g, and the interval of the Beta matched to the posterior
-mean and that variance by scipy.stats.beta.ppf.
+"""Corrected intervals computed outside ratepool for the beta-binomial fit
+fixture: the posterior with the fitted prior's estimation uncertainty
+integrated out (the target of Kass and Steffey, JASA 1989), over the normal
+approximation N(u, Cov) to the working coordinates (logit mean, log
+strength). The fitted prior is tests/fixtures/fits.json's (scipy's
+maximiser); Cov is the inverse of the numerical Hessian of the summed
+scipy.stats.betabinom.logpmf (central differences); the integral is the
+7 x 7 Gauss-Hermite rule of numpy's hermegauss; each group's mixture of
+scipy.stats.beta posteriors gives its mean and sd, and its interval ends by
+scipy.optimize.brentq on the mixture CDF.
 
 `tests/integration/fits.rs` compares ratepool's `--intervals corrected`
-within 1e-5 relative (the finite differences bound the agreement).
+within 1e-4 relative (the numerical Hessian bounds the agreement).
 
 Run from the repository root: python3 scripts/make_corrected_fixtures.py
 """
@@ -16,7 +18,7 @@ import csv
 import json
 
 import numpy as np
-from scipy import stats
+from scipy import optimize, stats
 from scipy.special import expit
 
 fits = json.load(open("tests/fixtures/fits.json"))["beta_binomial"]
@@ -46,19 +48,20 @@ for i in range(2):
 cov = np.linalg.inv(-hessian)
 
 
-def post_mean(u):
-    a, b = natural(u)
-    return (a + k) / (a + b + n)
-
-
-grad = np.array([(post_mean(u0 + np.eye(2)[i] * 1e-6) - post_mean(u0 - np.eye(2)[i] * 1e-6)) / 2e-6 for i in range(2)])
-a, b = a0 + k, b0 + n - k
-mean = a / (a + b)
-variance = mean * (1 - mean) / (a + b + 1) + np.einsum("ig,ij,jg->g", grad, cov, grad)
-strength = mean * (1 - mean) / variance - 1
-lower = stats.beta.ppf(0.025, mean * strength, (1 - mean) * strength)
-upper = stats.beta.isf(0.025, mean * strength, (1 - mean) * strength)
-json.dump({"source": "scripts/make_corrected_fixtures.py (scipy betabinom, numerical Hessian, beta.ppf)",
-           "covariance": cov.tolist(), "sd": np.sqrt(variance).tolist(), "lower": lower.tolist(),
-           "upper": upper.tolist()}, open("tests/fixtures/corrected.json", "w"))
+x, w = np.polynomial.hermite_e.hermegauss(7)
+w = w / w.sum()
+chol = np.linalg.cholesky(cov)
+nodes = [(wi * wj, natural(u0 + chol @ np.array([xi, xj]))) for xi, wi in zip(x, w) for xj, wj in zip(x, w)]
+sd, lower, upper = [], [], []
+for ki, ni in zip(k, n):
+    comps = [(weight, stats.beta(a + ki, b + ni - ki)) for weight, (a, b) in nodes]
+    mean = sum(weight * c.mean() for weight, c in comps)
+    second = sum(weight * (c.var() + c.mean() ** 2) for weight, c in comps)
+    sd.append(np.sqrt(second - mean ** 2))
+    cdf = lambda t: sum(weight * c.cdf(t) for weight, c in comps)
+    lower.append(optimize.brentq(lambda t: cdf(t) - 0.025, 1e-15, 1 - 1e-15, xtol=1e-15, rtol=1e-14))
+    upper.append(optimize.brentq(lambda t: cdf(t) - 0.975, 1e-15, 1 - 1e-15, xtol=1e-15, rtol=1e-14))
+json.dump({"source": "scripts/make_corrected_fixtures.py (scipy betabinom, numerical Hessian, Gauss-Hermite, brentq)",
+           "covariance": cov.tolist(), "sd": sd, "lower": lower, "upper": upper},
+          open("tests/fixtures/corrected.json", "w"))
 print(cov, lower[:3], upper[:3])

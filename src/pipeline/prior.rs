@@ -17,7 +17,8 @@ use crate::core::diagnostics::Pull;
 use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure, PoolingTest};
 use crate::core::incomplete::gamma_tails;
 use crate::core::model::{
-    corrected_posterior, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw, Unidentifiable,
+    corrected_posterior, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw, Uncertainty,
+    Unidentifiable,
 };
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{
@@ -272,14 +273,21 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         ranges.push(start..place_of_pair.len());
     }
     let tail = job.level.tail();
+    // Per segment, once: the fitted prior's uncertainty spread over quadrature nodes.
+    let spreads: Vec<Option<Uncertainty>> = priors
+        .iter()
+        .zip(&uncertainties)
+        .map(|(prior, known)| match (job.intervals, known) {
+            (Intervals::Corrected, Some(known)) => Some(Uncertainty::of::<F>(prior, *known)),
+            _ => None,
+        })
+        .collect();
     let posteriors: Vec<Posterior> = all_pairs
         .par_iter()
         .zip(&place_of_pair)
-        .map(|(p, &place)| match (job.intervals, uncertainties[place]) {
-            (Intervals::Corrected, Some(uncertainty)) => {
-                corrected_posterior::<F>(&priors[place], uncertainty, p.size, p.count, tail)
-            }
-            _ => F::posterior(&priors[place], p.size, p.count, tail),
+        .map(|(p, &place)| match &spreads[place] {
+            Some(uncertainty) => corrected_posterior::<F>(&priors[place], uncertainty, p.size, p.count, tail),
+            None => F::posterior(&priors[place], p.size, p.count, tail),
         })
         .collect();
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {

@@ -159,10 +159,10 @@ fn the_likelihood_ratio_against_complete_pooling_matches_scipy() {
 }
 
 #[test]
-fn corrected_intervals_match_kass_and_steffey_computed_with_scipy() {
+fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
     // Source: tests/fixtures/corrected.json (scripts/make_corrected_fixtures.py):
     // the covariance from a numerical Hessian of scipy's betabinom.logpmf sum,
-    // the delta-method term by finite differences, the matched Beta by beta.ppf.
+    // numpy's Gauss-Hermite nodes, scipy's beta mixture and brentq.
     let reference = json_fixture("corrected.json");
     let (_dir, _, s, table) = run_fit_with(
         "beta_binomial_groups.csv",
@@ -181,14 +181,20 @@ fn corrected_intervals_match_kass_and_steffey_computed_with_scipy() {
     for (column, key) in [("posterior_sd", "sd"), ("interval_lo", "lower"), ("interval_hi", "upper")] {
         for (got, want) in table.floats(column).iter().zip(reference[key].as_array().unwrap()) {
             let want = want.as_f64().unwrap();
-            assert!(relative(*got, want) < 1e-5, "{column}: {got} vs {want}");
+            assert!(relative(*got, want) < 1e-4, "{column}: {got} vs {want}");
         }
     }
-    // Wider than the plug-in intervals, never narrower.
+    // Wider than the plug-in intervals: the uncertainty of the prior adds to the group's own.
     let (_dir2, _, _, plug) = run_fit("beta_binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
-    for (c, p) in table.floats("interval_hi").iter().zip(plug.floats("interval_hi")) {
-        assert!(*c >= p);
+    let width = |t: &Csv| -> Vec<f64> {
+        t.floats("interval_hi").iter().zip(t.floats("interval_lo")).map(|(h, l)| h - l).collect()
+    };
+    // (For a group with much data the mixture can be a hair narrower: 1e-4 of slack.)
+    for (c, p) in width(&table).iter().zip(width(&plug)) {
+        assert!(*c >= p * (1.0 - 1e-4), "corrected width {c} below plug-in {p}");
     }
+    let (total_corrected, total_plug): (f64, f64) = (width(&table).iter().sum(), width(&plug).iter().sum());
+    assert!(total_corrected > total_plug, "{total_corrected} vs {total_plug}");
 }
 
 #[test]

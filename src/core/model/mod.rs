@@ -196,39 +196,197 @@ pub enum PriorUncertainty {
     PooledMean(f64),
 }
 
-/// The posterior of one pair with Kass and Steffey's (1989) first-order
-/// correction for the estimated prior: the plug-in posterior variance plus
-/// g′ Σ g, g the gradient of the posterior mean in the prior's working
-/// coordinates and Σ their covariance (at complete pooling the posterior
-/// mean is the pooled rate itself, so the term is the pooled rate's
-/// variance); the interval is that of the model's posterior law matched to
-/// the mean and corrected variance, so it stays inside the parameter space.
-/// The posterior mean and parameters are the plug-in ones.
+/// Nodes and weights of the 7-point Gauss–Hermite rule for the standard
+/// normal (probabilists' Hermite polynomials; from numpy's `hermegauss(7)`,
+/// weights divided by their sum √(2π)): exact for polynomials to degree 13.
+const HERMITE_NODES: [f64; 7] = [
+    -3.7504397177257425,
+    -2.366759410734541,
+    -1.1544053947399682,
+    0.0,
+    1.1544053947399682,
+    2.366759410734541,
+    3.7504397177257425,
+];
+const HERMITE_WEIGHTS: [f64; 7] = [
+    0.000548268855972217,
+    0.03075712396758652,
+    0.2401231786050127,
+    0.45714285714285724,
+    0.2401231786050127,
+    0.03075712396758652,
+    0.000548268855972217,
+];
+
+/// The strengths a quadrature node may take: the range the fit itself
+/// tells apart (below it no pooling, above it complete pooling).
+const NODE_STRENGTHS: (f64, f64) = (1e-3, 1e12);
+
+/// A fitted prior with its estimation uncertainty spread over quadrature
+/// nodes: the 7 × 7 Gauss–Hermite rule on the normal approximation
+/// N(û, Σ) to the working coordinates' sampling distribution, each node a
+/// prior in natural parameters with its weight.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SpreadPrior {
+    nodes: Vec<(f64, [f64; 2])>,
+}
+
+impl SpreadPrior {
+    /// The nodes of `natural` (the fitted prior) spread by `covariance` of
+    /// its working coordinates.
+    pub fn new<F: Family>(natural: [f64; 2], covariance: [[f64; 2]; 2]) -> Option<Self> {
+        let (mean, strength) = F::mean_strength_of_natural(natural);
+        let u = F::working(mean, strength);
+        // Cholesky factor of the covariance.
+        let l00 = covariance[0][0].sqrt();
+        let l10 = covariance[1][0] / l00;
+        let l11 = (covariance[1][1] - l10 * l10).sqrt();
+        if !(l00.is_finite() && l11.is_finite()) {
+            return None;
+        }
+        let mut nodes = Vec::with_capacity(49);
+        for (x, wx) in HERMITE_NODES.iter().zip(HERMITE_WEIGHTS) {
+            for (y, wy) in HERMITE_NODES.iter().zip(HERMITE_WEIGHTS) {
+                let at = [u[0] + l00 * x, u[1] + l10 * x + l11 * y];
+                // A wide spread (few groups) reaches strengths no data set
+                // tells apart: hold each node's strength within the fit's range.
+                let (mean, strength) = F::mean_strength(at);
+                let held = strength.clamp(NODE_STRENGTHS.0, NODE_STRENGTHS.1);
+                nodes.push((wx * wy, F::natural(F::working(mean, held))));
+            }
+        }
+        Some(SpreadPrior { nodes })
+    }
+}
+
+/// The posterior of one pair with the fitted prior's estimation
+/// uncertainty integrated out: the mixture, over the [`SpreadPrior`]
+/// nodes, of the conjugate posteriors the pair has under each. This is the
+/// posterior Kass and Steffey (JASA 1989) approximate to first order, computed
+/// here by quadrature instead, because the first-order term undercovered in
+/// the coverage study (benches/coverage.py: 89.8% at 50 groups, against
+/// 93.9% for the mixture in a prototype). Its mean and variance are the
+/// mixture's; its interval ends solve Σ wⱼ P(rate < x | node j) = tail and
+/// 1 − tail (regula falsi, Illinois, bracketed from the interval of the law
+/// matched to the mixture's mean and variance). The posterior parameters
+/// written are the plug-in ones. At complete pooling the posterior mean is
+/// the pooled rate itself, so the mixture is over it: the law matched to the
+/// pooled rate and its variance.
 pub fn corrected_posterior<F: Family>(
     prior: &Prior,
-    uncertainty: PriorUncertainty,
+    uncertainty: &Uncertainty,
     size: f64,
     count: f64,
     tail: f64,
 ) -> Posterior {
     let plug_in = F::posterior(prior, size, count, tail);
-    let extra = match (*prior, uncertainty) {
-        (Prior::Conjugate { natural }, PriorUncertainty::Working(cov)) => {
-            let (mean, strength) = F::mean_strength_of_natural(natural);
-            let jacobian = F::natural_jacobian(F::working(mean, strength));
-            let by_natural = F::posterior_mean_gradient(natural, size, count);
-            let g = [0, 1].map(|j| by_natural[0] * jacobian[0][j] + by_natural[1] * jacobian[1][j]);
-            (0..2).map(|p| (0..2).map(|q| g[p] * cov[p][q] * g[q]).sum::<f64>()).sum::<f64>().max(0.0)
+    match uncertainty {
+        Uncertainty::Spread(spread) => {
+            let components: Vec<(f64, Prior)> =
+                spread.nodes.iter().map(|&(w, natural)| (w, Prior::Conjugate { natural })).collect();
+            let (mut mean, mut second) = (0.0, 0.0);
+            for (w, component) in &components {
+                let p = F::posterior(component, size, count, 0.25);
+                mean += w * p.mean;
+                second += w * (p.sd * p.sd + p.mean * p.mean);
+            }
+            let variance = (second - mean * mean).max(0.0);
+            let (start_low, start_high) = F::matched_interval(mean, variance, tail);
+            let below = |x: f64| -> f64 {
+                components.iter().map(|(w, c)| w * F::rate_tails(c, size, count, x).0).sum()
+            };
+            let lower = solve_increasing(&below, tail, start_low);
+            let upper = solve_increasing(&below, 1.0 - tail, start_high);
+            Posterior { mean, sd: variance.sqrt(), lower, upper, ..plug_in }
         }
-        (Prior::CompletePooling { .. }, PriorUncertainty::PooledMean(variance)) => variance.max(0.0),
-        _ => 0.0,
-    };
-    if extra == 0.0 {
-        return plug_in;
+        Uncertainty::PooledMean(variance) => {
+            let variance = plug_in.sd * plug_in.sd + variance.max(0.0);
+            if variance == 0.0 {
+                return plug_in;
+            }
+            let (lower, upper) = F::matched_interval(plug_in.mean, variance, tail);
+            Posterior { sd: variance.sqrt(), lower, upper, ..plug_in }
+        }
+        Uncertainty::Unknown => plug_in,
     }
-    let variance = plug_in.sd * plug_in.sd + extra;
-    let (lower, upper) = F::matched_interval(plug_in.mean, variance, tail);
-    Posterior { sd: variance.sqrt(), lower, upper, ..plug_in }
+}
+
+/// The estimation uncertainty of a fitted prior, ready for corrected intervals.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Uncertainty {
+    /// An interior fit: its quadrature nodes.
+    Spread(SpreadPrior),
+    /// Complete pooling: the variance of the pooled rate.
+    PooledMean(f64),
+    /// Nothing known (a covariance that is not positive definite): plug-in.
+    Unknown,
+}
+
+impl Uncertainty {
+    /// From a prior and what the fit knew of its uncertainty.
+    pub fn of<F: Family>(prior: &Prior, known: PriorUncertainty) -> Self {
+        match (*prior, known) {
+            (Prior::Conjugate { natural }, PriorUncertainty::Working(cov)) => {
+                SpreadPrior::new::<F>(natural, cov).map_or(Uncertainty::Unknown, Uncertainty::Spread)
+            }
+            (Prior::CompletePooling { .. }, PriorUncertainty::PooledMean(variance)) => {
+                Uncertainty::PooledMean(variance)
+            }
+            _ => Uncertainty::Unknown,
+        }
+    }
+}
+
+/// The x where the increasing function `f` equals `target`, from `start`:
+/// a bracket found by stepping out geometrically, then regula falsi with
+/// the Illinois modification, to a relative width of 1e-12.
+fn solve_increasing(f: &dyn Fn(f64) -> f64, target: f64, start: f64) -> f64 {
+    let g = |x: f64| f(x) - target;
+    let mut x0 = start.max(f64::MIN_POSITIVE);
+    let g0 = g(x0);
+    let mut x1 = x0;
+    let mut g1 = g0;
+    let mut factor = 1.1;
+    for _ in 0..200 {
+        if g0.signum() != g1.signum() || g1 == 0.0 {
+            break;
+        }
+        x1 = if g0 > 0.0 { x1 / factor } else { x1 * factor };
+        g1 = g(x1);
+        factor *= 1.5;
+    }
+    if g0 == 0.0 {
+        return x0;
+    }
+    let (mut low, mut f_low, mut high, mut f_high) =
+        if x0 < x1 { (x0, g0, x1, g1) } else { (x1, g1, x0, g0) };
+    let mut side = 0;
+    for _ in 0..100 {
+        let x = if f_high != f_low {
+            (low * f_high - high * f_low) / (f_high - f_low)
+        } else {
+            0.5 * (low + high)
+        };
+        let gx = g(x);
+        if gx == 0.0 || (high - low) <= 1e-12 * high.abs() {
+            return x;
+        }
+        if gx < 0.0 {
+            (low, f_low) = (x, gx);
+            if side == -1 {
+                f_high /= 2.0;
+            }
+            side = -1;
+        } else {
+            (high, f_high) = (x, gx);
+            if side == 1 {
+                f_low /= 2.0;
+            }
+            side = 1;
+        }
+        x0 = x;
+    }
+    x0
 }
 
 /// The tails of a point mass at `mean`: P(rate < t) and P(rate > t).
@@ -302,4 +460,28 @@ pub trait Family: Sync {
     /// The variance of a group's raw rate (count / size, size > 0) under
     /// its prior predictive distribution.
     fn raw_rate_variance(prior: &Prior, size: f64) -> f64;
+}
+
+#[cfg(test)]
+mod quadrature {
+    use super::*;
+
+    #[test]
+    fn the_hermite_rule_integrates_the_normal_moments() {
+        // E[Z^0] = 1, E[Z²] = 1, E[Z⁴] = 3, E[Z⁶] = 15, E[Z¹²] = 10395 (double factorials).
+        let moment =
+            |p: i32| HERMITE_NODES.iter().zip(HERMITE_WEIGHTS).map(|(x, w)| w * x.powi(p)).sum::<f64>();
+        for (p, want) in [(0, 1.0), (2, 1.0), (4, 3.0), (6, 15.0), (12, 10395.0)] {
+            assert!((moment(p) - want).abs() < 1e-9 * want, "E[Z^{p}] = {}", moment(p));
+        }
+    }
+
+    #[test]
+    fn the_solver_finds_a_quantile_from_either_side() {
+        let cdf = |x: f64| 1.0 - (-x).exp();
+        for start in [0.01, 1.0, 40.0] {
+            let x = solve_increasing(&cdf, 0.975, start);
+            assert!((x - 40f64.ln()).abs() < 1e-9, "{x} from {start}");
+        }
+    }
 }
