@@ -65,6 +65,9 @@ def check(parquet_path, csv_path, label):
             for name in names:
                 if not same(want[name], got[name]):
                     raise SystemExit(f"{label} {reader}: row {i + 1} {name}: {got[name]!r} != {want[name]!r}")
+    footer = pq.read_metadata(parquet_path).metadata or {}
+    assert footer.get(b"ratepool.model") in (b"beta-binomial", b"gamma-poisson"), f"{label}: no model in the footer"
+    assert b"ratepool.hyperprior" in footer, f"{label}: no prior in the footer"
     total = duckdb.sql(
         f"SELECT count(*), count(raw_rate), count(*) FILTER (WHERE flagged) FROM '{parquet_path}'"
     ).fetchall()[0]

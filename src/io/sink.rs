@@ -86,10 +86,11 @@ pub struct ParquetChunks {
 }
 
 impl ParquetChunks {
-    fn new(file: File, schema: SchemaRef) -> parquet::errors::Result<Self> {
+    fn new(file: File, schema: SchemaRef, metadata: &Metadata) -> parquet::errors::Result<Self> {
         let props = WriterProperties::builder()
             .set_compression(Compression::ZSTD(ZstdLevel::default()))
             .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
+            .set_key_value_metadata(key_values(metadata))
             .build();
         let writer = ArrowWriter::try_new(file, schema, Some(props))?;
         Ok(ParquetChunks { writer, chunks: FixedChunks::default() })
@@ -299,6 +300,7 @@ impl ScoredParquet {
         file: File,
         row_schema: SchemaRef,
         pair_columns: Arc<PairColumns>,
+        metadata: &Metadata,
     ) -> parquet::errors::Result<Self> {
         let mut fields: Vec<Field> = row_schema.fields().iter().map(|f| f.as_ref().clone()).collect();
         fields.extend(pair_columns.iter().map(|(name, values)| {
@@ -314,6 +316,7 @@ impl ScoredParquet {
         let props = WriterProperties::builder()
             .set_compression(Compression::ZSTD(ZstdLevel::default()))
             .set_column_dictionary_enabled(group, false)
+            .set_key_value_metadata(key_values(metadata))
             .build();
         let schema = Arc::new(Schema::new(fields));
         let (file_writer, factory) =
@@ -419,6 +422,17 @@ pub struct TableSink {
     writer: Option<Writer>,
     /// For a scored table: the pair-valued columns.
     pair_columns: Option<Arc<PairColumns>>,
+    /// Key-value pairs for a Parquet file's footer.
+    metadata: Metadata,
+}
+
+/// Key-value pairs written in a Parquet file's footer (CSV has no place for them).
+pub type Metadata = Vec<(String, String)>;
+
+fn key_values(metadata: &Metadata) -> Option<Vec<parquet::file::metadata::KeyValue>> {
+    (!metadata.is_empty()).then(|| {
+        metadata.iter().map(|(k, v)| parquet::file::metadata::KeyValue::new(k.clone(), v.clone())).collect()
+    })
 }
 
 fn write_error(path: &Path, e: impl std::fmt::Display) -> Error {
@@ -429,7 +443,19 @@ impl TableSink {
     /// Starts a table at `path`, in the format its extension names.
     pub fn create(path: &Path) -> Result<Self> {
         let format = TableFormat::from_path(path)?;
-        Ok(TableSink { file: AtomicFile::create(path)?, format, writer: None, pair_columns: None })
+        Ok(TableSink {
+            file: AtomicFile::create(path)?,
+            format,
+            writer: None,
+            pair_columns: None,
+            metadata: Vec::new(),
+        })
+    }
+
+    /// The same table with `metadata` in its Parquet footer.
+    pub fn with_metadata(mut self, metadata: Metadata) -> Self {
+        self.metadata = metadata;
+        self
     }
 
     /// Starts a scored table at `path`: a group column, then columns whose
@@ -464,7 +490,7 @@ impl TableSink {
         let rows =
             RecordBatch::try_new(Arc::new(Schema::new(fields)), arrays).map_err(|e| write_error(&path, e))?;
         if self.writer.is_none() {
-            let writer = ScoredParquet::new(self.file.handle()?, rows.schema(), pair_columns)
+            let writer = ScoredParquet::new(self.file.handle()?, rows.schema(), pair_columns, &self.metadata)
                 .map_err(|e| write_error(&path, e))?;
             self.writer = Some(Writer::Scored(Box::new(writer)));
         }
@@ -483,7 +509,7 @@ impl TableSink {
         match self.format {
             TableFormat::Parquet => {
                 if self.writer.is_none() {
-                    let writer = ParquetChunks::new(self.file.handle()?, batch.schema())
+                    let writer = ParquetChunks::new(self.file.handle()?, batch.schema(), &self.metadata)
                         .map_err(|e| write_error(&path, e))?;
                     self.writer = Some(Writer::Parquet(Box::new(writer)));
                 }
@@ -518,9 +544,9 @@ impl TableSink {
     }
 }
 
-/// Writes a whole table in one batch, sealed for staging.
-pub fn write_table(columns: Columns, path: &Path) -> Result<SealedFile> {
-    let mut sink = TableSink::create(path)?;
+/// Writes a whole table in one batch (with `metadata` in a Parquet footer), sealed for staging.
+pub fn write_table(columns: Columns, path: &Path, metadata: Metadata) -> Result<SealedFile> {
+    let mut sink = TableSink::create(path)?.with_metadata(metadata);
     sink.write(columns)?;
     sink.finish()
 }

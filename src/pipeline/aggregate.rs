@@ -10,8 +10,8 @@
 use super::passes::{row_error, BatchView, RowFault};
 use super::prior::score_pairs;
 use super::scoring::{
-    commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts, ShiftGroups,
-    ShiftTracker,
+    commit_outputs, pair_columns, stage_pair_output, summarise, table_metadata, RejectRows, RowCounts,
+    ShiftGroups, ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{outcome, Rejection, MAX_EXACT_COUNT, MISSING_GROUP};
@@ -300,7 +300,8 @@ fn write_groups(
     lookup: &PairLookup,
 ) -> Result<(ShiftGroups, StagedOutputs)> {
     let mut shifts = ShiftTracker::new(scored);
-    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?;
+    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
+        .with_metadata(table_metadata(job, scored));
     let group_text = |g: usize| String::from_utf8_lossy(&totals.key(g)[4..]).into_owned();
     let mut start = 0;
     while start < totals.len() {

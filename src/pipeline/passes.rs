@@ -16,8 +16,8 @@
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::{score_pairs, Scored};
 use super::scoring::{
-    commit_outputs, pair_columns, stage_pair_output, summarise, RejectRows, RowCounts, ShiftGroups,
-    ShiftTracker,
+    commit_outputs, pair_columns, stage_pair_output, summarise, table_metadata, RejectRows, RowCounts,
+    ShiftGroups, ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{check_values, Rejection, MISSING_GROUP};
@@ -318,7 +318,8 @@ fn score_and_write(
     (clock, rows): (&mut PhaseClock, usize),
 ) -> Result<(ShiftGroups, StagedOutputs)> {
     let mut shifts = ShiftTracker::new(scored);
-    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?;
+    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
+        .with_metadata(table_metadata(job, scored));
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,

@@ -12,7 +12,7 @@ use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
-use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues};
+use crate::io::sink::{ColumnValues, Columns, Metadata, PairColumns, PairValues};
 use crate::report::{FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport};
 use arrow_array::ArrayRef;
 
@@ -108,9 +108,47 @@ pub fn pair_table_columns(job: &Job, scored: &Scored) -> Result<Columns> {
 /// Stages the pair posterior table, when one was asked for.
 pub fn stage_pair_output(job: &Job, scored: &Scored, staged: &mut StagedOutputs) -> Result<()> {
     if let Some(path) = &job.pair_output {
-        staged.add(crate::io::sink::write_table(pair_table_columns(job, scored)?, path)?);
+        staged.add(crate::io::sink::write_table(
+            pair_table_columns(job, scored)?,
+            path,
+            table_metadata(job, scored),
+        )?);
     }
     Ok(())
+}
+
+/// What a scored table says of itself in its Parquet footer, under keys of
+/// its own: the ratepool version, the model, the level, the interval method,
+/// the prior (as in the summary) and each segment's prior.
+pub fn table_metadata(job: &Job, scored: &Scored) -> Metadata {
+    let json = |value: serde_json::Value| value.to_string();
+    let mut metadata = vec![
+        ("ratepool.version".to_string(), env!("CARGO_PKG_VERSION").to_string()),
+        ("ratepool.model".to_string(), job.model.name().to_string()),
+        ("ratepool.level".to_string(), job.level.get().to_string()),
+        (
+            "ratepool.intervals".to_string(),
+            match job.intervals {
+                Intervals::PlugIn => "plug-in",
+                Intervals::Corrected => "corrected",
+            }
+            .to_string(),
+        ),
+        ("ratepool.hyperprior".to_string(), json(serde_json::json!(scored.hyperprior))),
+    ];
+    if !scored.segments.is_empty() {
+        let segments: Vec<serde_json::Value> = scored
+            .segments
+            .iter()
+            .map(|s| {
+                let key: std::collections::BTreeMap<&String, &Option<String>> =
+                    job.segments.iter().zip(&s.key).collect();
+                serde_json::json!({ "key": key, "hyperprior": s.hyperprior, "fallback": s.fallback })
+            })
+            .collect();
+        metadata.push(("ratepool.segments".to_string(), json(serde_json::Value::Array(segments))));
+    }
+    metadata
 }
 
 /// Rejected rows gathered for the rejects table, as found in the input.

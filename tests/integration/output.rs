@@ -87,3 +87,55 @@ fn parquet_output_of_the_gamma_model_and_of_complete_pooling_hold_the_csv_values
     let groups = ["--model", "beta-binomial", "--group", "unit", "--successes", "hits", "--trials", "tries"];
     assert_parquet_matches_csv(&fixture("binomial_groups.csv"), &groups);
 }
+
+#[test]
+fn the_parquet_footer_says_what_model_and_prior_made_the_table() {
+    use parquet::file::reader::{FileReader, SerializedFileReader};
+    let dir = tempfile::tempdir().unwrap();
+    let input = crate::util::fixture("rows/returns_summed.csv");
+    let args = [
+        "--quiet",
+        "fit",
+        "--model",
+        "beta-binomial",
+        "--input",
+        input.to_str().unwrap(),
+        "--group",
+        "store",
+    ];
+    let mut args = args.to_vec();
+    args.extend([
+        "--successes",
+        "successes",
+        "--trials",
+        "trials",
+        "--by",
+        "kind",
+        "--intervals",
+        "corrected",
+    ]);
+    args.extend(["--output", "out.parquet", "--summary", "s.json", "--pair-output", "pairs.parquet"]);
+    let out = crate::util::ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", crate::util::stderr(&out));
+    let s = crate::util::summary(&dir.path().join("s.json"));
+    for file in ["out.parquet", "pairs.parquet"] {
+        let reader = SerializedFileReader::new(std::fs::File::open(dir.path().join(file)).unwrap()).unwrap();
+        let pairs = reader.metadata().file_metadata().key_value_metadata().cloned().unwrap_or_default();
+        let value = |key: &str| {
+            pairs
+                .iter()
+                .find(|kv| kv.key == key)
+                .and_then(|kv| kv.value.clone())
+                .unwrap_or_else(|| panic!("{file}: no {key}"))
+        };
+        assert_eq!(value("ratepool.model"), "beta-binomial");
+        assert_eq!(value("ratepool.intervals"), "corrected");
+        assert_eq!(value("ratepool.level"), "0.95");
+        assert_eq!(value("ratepool.version"), env!("CARGO_PKG_VERSION"));
+        let hyperprior: serde_json::Value = serde_json::from_str(&value("ratepool.hyperprior")).unwrap();
+        assert_eq!(hyperprior, s["hyperprior"], "{file}");
+        let segments: serde_json::Value = serde_json::from_str(&value("ratepool.segments")).unwrap();
+        assert_eq!(segments.as_array().unwrap().len(), s["segments"].as_array().unwrap().len());
+        assert_eq!(segments[0]["hyperprior"], s["segments"][0]["hyperprior"]);
+    }
+}
