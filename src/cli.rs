@@ -21,7 +21,8 @@ pub struct Cli {
     /// Worker threads (default: all cores). Output is identical for any value.
     #[arg(long, global = true)]
     pub threads: Option<usize>,
-    /// Do not print the summary on the terminal.
+    /// Print nothing but errors: no summary and no warnings on the terminal (the warnings
+    /// stay in the summary file).
     #[arg(long, global = true)]
     pub quiet: bool,
     /// Print the wall time of each phase on stderr.

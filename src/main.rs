@@ -15,10 +15,11 @@ fn run(cli: Cli) -> ratepool::error::Result<()> {
     let quiet = cli.quiet;
     let job = cli.command.into_job(Reporting { timings: cli.timings, progress: cli.progress })?;
     let summary = ratepool::pipeline::run(&job)?;
-    for warning in &summary.warnings {
-        eprintln!("ratepool: warning: {warning}");
-    }
+    // --quiet leaves only errors on the terminal; the warnings stay in the summary file.
     if !quiet {
+        for warning in &summary.warnings {
+            eprintln!("ratepool: warning: {warning}");
+        }
         print!("{}", ratepool::report::render_text(&summary));
     }
     Ok(())

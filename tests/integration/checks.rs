@@ -102,3 +102,22 @@ fn score_checks_the_scored_data_under_the_saved_prior() {
     );
     assert!(String::from_utf8_lossy(&out.stdout).contains("prior fit    (saved in prior.json"));
 }
+
+#[test]
+fn quiet_prints_nothing_but_keeps_the_warnings_in_the_summary() {
+    let dir = tempfile::tempdir().unwrap();
+    let (low, high) = (Beta::new(60.0, 140.0).unwrap(), Beta::new(140.0, 60.0).unwrap());
+    write(
+        dir.path(),
+        "bimodal.csv",
+        &groups(12, 800, |i, rng| if i % 2 == 0 { low.sample(rng) } else { high.sample(rng) }),
+    );
+    let args = ["--quiet", "fit", "--model", "beta-binomial", "--input", "bimodal.csv", "--group", "id"];
+    let mut args = args.to_vec();
+    args.extend(["--successes", "k", "--trials", "n", "--output", "out.csv", "--summary", "s.json"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success());
+    assert!(out.stdout.is_empty() && out.stderr.is_empty(), "{}", stderr(&out));
+    let s = summary(&dir.path().join("s.json"));
+    assert!(!s["warnings"].as_array().unwrap().is_empty(), "the warning is kept in the summary");
+}
