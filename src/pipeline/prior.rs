@@ -124,7 +124,9 @@ struct Chosen {
     hyperprior: Hyperprior,
     fit: FitReport,
     warnings: Vec<String>,
-    log_likelihood: f64,
+    /// The maximised log marginal likelihood of a fitted prior, for the
+    /// segment test (None for a saved prior: the test compares fits).
+    log_likelihood: Option<f64>,
     /// For corrected intervals (None: a saved prior without its covariance).
     uncertainty: Option<PriorUncertainty>,
 }
@@ -140,18 +142,16 @@ fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
         PriorSource::Saved { path, summary } => {
             let mut fit = summary.fit.clone();
             fit.source = path.display().to_string();
-            chosen_of_saved::<F>(job.model, (&summary.hyperprior, fit), (&summary.model, path), table)
+            chosen_of_saved(job.model, (&summary.hyperprior, fit), (&summary.model, path))
         }
     }
 }
 
-/// A saved prior (the all-groups one or a segment's) as the prior in use,
-/// with the log marginal likelihood of `table` under it.
-fn chosen_of_saved<F: Family>(
+/// A saved prior (the all-groups one or a segment's) as the prior in use.
+fn chosen_of_saved(
     model: Model,
     (hyperprior, fit): (&Hyperprior, FitReport),
     (saved_model, path): (&str, &Path),
-    table: &PairTable,
 ) -> Result<Chosen> {
     let prior = prior_of_hyperprior(hyperprior, saved_model, path, model)?;
     let uncertainty = match prior {
@@ -161,7 +161,7 @@ fn chosen_of_saved<F: Family>(
     Ok(Chosen {
         prior,
         hyperprior: hyperprior.clone(),
-        log_likelihood: log_marginal_at::<F>(table, hyperprior),
+        log_likelihood: None,
         fit,
         warnings: Vec::new(),
         uncertainty,
@@ -174,7 +174,7 @@ fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
         hyperprior: hyperprior_of(model, fitted),
         fit: fit_report_of::<F>(fitted, "fit"),
         warnings: fit_warnings(fitted),
-        log_likelihood: fitted.log_marginal_likelihood,
+        log_likelihood: Some(fitted.log_marginal_likelihood),
         uncertainty: Some(fitted.uncertainty),
     }
 }
@@ -214,7 +214,7 @@ fn segment_prior<F: Family>(
                 return Err(Error::Input(format!("{}: a segment's fit report is missing", path.display())));
             };
             let saved_at = (summary.model.as_str(), path.as_path());
-            Ok(Ok(chosen_of_saved::<F>(job.model, (&saved.hyperprior, fit), saved_at, &segment.table)?))
+            Ok(Ok(chosen_of_saved(job.model, (&saved.hyperprior, fit), saved_at)?))
         }
     }
 }
@@ -508,15 +508,14 @@ fn likelihood_ratio_test<F: Family>(
     if own == 0 || degrees == 0 {
         return None;
     }
-    let segmented: f64 = choices
-        .iter()
-        .zip(segments)
-        .map(|(choice, segment)| match choice {
-            Ok(own) => own.log_likelihood,
+    let mut segmented = 0.0;
+    for (choice, segment) in choices.iter().zip(segments) {
+        segmented += match choice {
+            Ok(own) => own.log_likelihood?,
             Err(_) => log_marginal_at::<F>(&segment.table, &all.hyperprior),
-        })
-        .sum();
-    let statistic = (2.0 * (segmented - all.log_likelihood)).max(0.0);
+        };
+    }
+    let statistic = (2.0 * (segmented - all.log_likelihood?)).max(0.0);
     let p_value = gamma_tails(degrees as f64 / 2.0, statistic / 2.0).upper;
     Some(SegmentTest {
         name: "likelihood ratio: one prior for all groups against one per segment".to_string(),

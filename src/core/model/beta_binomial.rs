@@ -308,16 +308,27 @@ impl Family for BetaBinomial {
         }
     }
 
+    fn posterior_mean_sd(prior: &Prior, n: f64, k: f64) -> (f64, f64) {
+        match *prior {
+            Prior::CompletePooling { mean } => (mean, 0.0),
+            Prior::Conjugate { natural: [alpha, beta] } => {
+                let (a, b) = (alpha + k, beta + (n - k));
+                let s = a + b;
+                let (mean, complement) = (a / s, b / s);
+                (mean, (mean * complement / (s + 1.0)).sqrt())
+            }
+        }
+    }
+
     fn posterior(prior: &Prior, n: f64, k: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
             Prior::Conjugate { natural: [alpha, beta] } => {
                 let (a, b) = (alpha + k, beta + (n - k));
-                let s = a + b;
-                let (mean, complement) = (a / s, b / s);
+                let (mean, sd) = Self::posterior_mean_sd(prior, n, k);
                 Posterior {
                     mean,
-                    sd: (mean * complement / (s + 1.0)).sqrt(),
+                    sd,
                     lower: beta_quantile(a, b, Tail::Lower, tail),
                     upper: beta_quantile(a, b, Tail::Upper, tail),
                     pool_weight: (alpha + beta) / (alpha + beta + n),

@@ -235,14 +235,25 @@ impl Family for GammaPoisson {
         }
     }
 
+    fn posterior_mean_sd(prior: &Prior, exposure: f64, y: f64) -> (f64, f64) {
+        match *prior {
+            Prior::CompletePooling { mean } => (mean, 0.0),
+            Prior::Conjugate { natural: [shape, rate] } => {
+                let (a, b) = (shape + y, rate + exposure);
+                (a / b, a.sqrt() / b)
+            }
+        }
+    }
+
     fn posterior(prior: &Prior, exposure: f64, y: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
             Prior::Conjugate { natural: [shape, rate] } => {
                 let (a, b) = (shape + y, rate + exposure);
+                let (mean, sd) = Self::posterior_mean_sd(prior, exposure, y);
                 Posterior {
-                    mean: a / b,
-                    sd: a.sqrt() / b,
+                    mean,
+                    sd,
                     lower: gamma_quantile(a, Tail::Lower, tail) / b,
                     upper: gamma_quantile(a, Tail::Upper, tail) / b,
                     pool_weight: rate / (rate + exposure),

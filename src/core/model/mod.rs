@@ -228,7 +228,7 @@ const NODE_STRENGTHS: (f64, f64) = (1e-3, 1e12);
 /// prior in natural parameters with its weight.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SpreadPrior {
-    nodes: Vec<(f64, [f64; 2])>,
+    nodes: Vec<(f64, Prior)>,
 }
 
 impl SpreadPrior {
@@ -252,7 +252,7 @@ impl SpreadPrior {
                 // tells apart: hold each node's strength within the fit's range.
                 let (mean, strength) = F::mean_strength(at);
                 let held = strength.clamp(NODE_STRENGTHS.0, NODE_STRENGTHS.1);
-                nodes.push((wx * wy, F::natural(F::working(mean, held))));
+                nodes.push((wx * wy, Prior::Conjugate { natural: F::natural(F::working(mean, held)) }));
             }
         }
         Some(SpreadPrior { nodes })
@@ -282,13 +282,12 @@ pub fn corrected_posterior<F: Family>(
     let plug_in = F::posterior(prior, size, count, tail);
     match uncertainty {
         Uncertainty::Spread(spread) => {
-            let components: Vec<(f64, Prior)> =
-                spread.nodes.iter().map(|&(w, natural)| (w, Prior::Conjugate { natural })).collect();
+            let components = &spread.nodes;
             let (mut mean, mut second) = (0.0, 0.0);
-            for (w, component) in &components {
-                let p = F::posterior(component, size, count, 0.25);
-                mean += w * p.mean;
-                second += w * (p.sd * p.sd + p.mean * p.mean);
+            for (w, component) in components {
+                let (m, sd) = F::posterior_mean_sd(component, size, count);
+                mean += w * m;
+                second += w * (sd * sd + m * m);
             }
             let variance = (second - mean * mean).max(0.0);
             let (start_low, start_high) = F::matched_interval(mean, variance, tail);
@@ -438,6 +437,9 @@ pub trait Family: Sync {
     fn natural_jacobian(u: [f64; 2]) -> [[f64; 2]; 2];
     /// Derivatives of (mean, strength) with respect to u, rows mean and strength.
     fn mean_strength_jacobian(u: [f64; 2]) -> [[f64; 2]; 2];
+    /// Posterior mean and sd of one pair under `prior`, as
+    /// [`Family::posterior`] gives them, without its interval.
+    fn posterior_mean_sd(prior: &Prior, size: f64, count: f64) -> (f64, f64);
     /// Posterior summary of one pair under `prior`, with an equal-tailed
     /// interval leaving `tail` probability in each tail.
     fn posterior(prior: &Prior, size: f64, count: f64, tail: f64) -> Posterior;
