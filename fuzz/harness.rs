@@ -7,11 +7,14 @@
 //! a successful one must write both, with finite figures.
 //!
 //! The first byte chooses: bit 0 Parquet, bit 1 gamma-Poisson, bit 2 batches
-//! of 3 rows (else the default), bit 3 skip bad rows. The rest is the file.
+//! of 3 rows (else the default), bit 3 skip bad rows, bit 4 normal-normal
+//! (over bit 1; columns y and e hold estimates and standard errors), bit 5
+//! restricted likelihood with it. The rest is the file.
 
 use ratepool::pipeline::validate::ColumnNames;
 use ratepool::pipeline::{
-    run, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Model, PriorSource, RankOrder, Thresholds,
+    run, FlagEvent, FlagRule, InvalidRows, Job, Layout, Level, Likelihood, Model, PriorSource, RankOrder,
+    Thresholds,
 };
 
 /// Runs one input through the whole job and checks the contract.
@@ -19,7 +22,12 @@ pub fn exercise(data: &[u8]) {
     let Some((&control, content)) = data.split_first() else { return };
     let dir = tempfile::tempdir().expect("scratch folder");
     let parquet = control & 1 == 1;
-    let model = if control & 2 == 0 { Model::BetaBinomial } else { Model::GammaPoisson };
+    let model = match (control & 16 == 16, control & 2 == 2) {
+        (true, _) => Model::NormalNormal,
+        (false, false) => Model::BetaBinomial,
+        (false, true) => Model::GammaPoisson,
+    };
+    let restricted = model == Model::NormalNormal && control & 32 == 32;
     let input = dir.path().join(if parquet { "in.parquet" } else { "in.csv" });
     std::fs::write(&input, content).expect("input written");
     let output = dir.path().join("out.csv");
@@ -51,6 +59,7 @@ pub fn exercise(data: &[u8]) {
         top: None,
         seed: ratepool::pipeline::DEFAULT_SEED,
         intervals: Default::default(),
+        likelihood: if restricted { Likelihood::Restricted } else { Likelihood::Marginal },
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -3,10 +3,10 @@
 
 use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
-use crate::pipeline::validate::ColumnNames;
+use crate::pipeline::validate::{ColumnNames, SizeKind};
 use crate::pipeline::{
-    load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Model,
-    PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
+    load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Likelihood,
+    Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
 };
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -70,6 +70,15 @@ pub enum IntervalsArg {
     Corrected,
 }
 
+/// How the normal-normal model estimates the prior variance.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum VarianceMethodArg {
+    /// Maximum marginal likelihood.
+    Ml,
+    /// Restricted maximum likelihood: the usual choice when groups are few.
+    Reml,
+}
+
 /// How prob_top is computed.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum TopMethodArg {
@@ -102,6 +111,13 @@ pub struct TableArgs {
     /// Column of exposure: person-time, or expected counts (gamma-poisson).
     #[arg(long)]
     pub exposure: Option<String>,
+    /// Column of estimates, one per group: a mean rating, a mean waiting time, an effect size
+    /// (normal-normal).
+    #[arg(long)]
+    pub estimate: Option<String>,
+    /// Column of the estimates' standard errors, each finite and above zero (normal-normal).
+    #[arg(long)]
+    pub std_error: Option<String>,
     /// Output table (.csv or .parquet), written atomically (not with --pair-counts).
     #[arg(long)]
     pub output: Option<PathBuf>,
@@ -200,10 +216,16 @@ pub struct TableArgs {
 /// Options of `fit`.
 #[derive(Debug, Args)]
 pub struct FitArgs {
-    /// The model: beta-binomial (successes out of trials, Beta prior) or gamma-poisson
-    /// (events over exposure, Gamma prior).
+    /// The model: beta-binomial (successes out of trials, Beta prior), gamma-poisson
+    /// (events over exposure, Gamma prior) or normal-normal (estimates with known standard
+    /// errors, normal prior).
     #[arg(long, value_parser = parse_model)]
     pub model: Model,
+    /// How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal
+    /// likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated
+    /// mean: the usual choice when groups are few).
+    #[arg(long, value_enum, default_value_t = VarianceMethodArg::Ml)]
+    pub variance_method: VarianceMethodArg,
     /// The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL
     /// GROUP BY) and this column holds how many groups share each pair; only the summary
     /// (the prior) is written.
@@ -270,12 +292,14 @@ fn parse_model(text: &str) -> std::result::Result<Model, String> {
 /// The column options, by the role a model gives its columns
 /// ([`crate::core::model::ModelTerms`]); a model with a new role adds its
 /// option to [`TableArgs`] and a line here.
-fn column_options(table: &TableArgs) -> [(&'static str, &Option<String>); 4] {
+fn column_options(table: &TableArgs) -> [(&'static str, &Option<String>); 6] {
     [
         ("successes", &table.successes),
         ("trials", &table.trials),
         ("events", &table.events),
         ("exposure", &table.exposure),
+        ("estimate", &table.estimate),
+        ("std-error", &table.std_error),
     ]
 }
 
@@ -302,11 +326,10 @@ fn model_columns(table: &TableArgs, model: Model) -> Result<(String, String)> {
 fn thresholds(table: &TableArgs, model: Model) -> Result<Thresholds> {
     let check = |value: Option<f64>, flag: &str| -> Result<Option<f64>> {
         let Some(t) = value else { return Ok(None) };
-        let within = t.is_finite() && t >= 0.0 && (!model.terms().mean_below_one || t <= 1.0);
-        if within {
+        if model.terms().rates.contains(t) {
             return Ok(Some(t));
         }
-        let range = if model.terms().mean_below_one { "from 0 to 1" } else { "of at least 0" };
+        let range = model.terms().rates.describe();
         Err(Error::Usage(format!("--{flag} must be a rate {range} for the {} model, got {t}", model.name())))
     };
     Ok(Thresholds { above: check(table.above, "above")?, below: check(table.below, "below")? })
@@ -397,8 +420,15 @@ fn rows_and_columns(
         (Some(_), _) | (None, true) if pair_counts => {
             refused(if table.aggregate { "--aggregate" } else { "--outcome" })
         }
+        (outcome, true) | (outcome @ Some(_), false) if !model.terms().size_kind.whole_counts() => {
+            Err(Error::Usage(format!(
+                "{} does not apply to the {} model: estimates and their standard errors cannot be summed; give one row per group",
+                if outcome.is_some() { "--outcome" } else { "--aggregate" },
+                model.name()
+            )))
+        }
         (Some(column), _) => {
-            if !model.terms().whole_sizes {
+            if !model.terms().size_kind.whole_sizes() {
                 return Err(Error::Usage(format!(
                     "--outcome reads trials of 0 or 1, for the beta-binomial model, not {}",
                     model.name()
@@ -427,7 +457,7 @@ fn rows_and_columns(
 
 fn job_of(
     table: &TableArgs,
-    pair_counts: Option<&String>,
+    (pair_counts, likelihood): (Option<&String>, Likelihood),
     model: Model,
     prior: PriorSource,
     report: Reporting,
@@ -467,6 +497,7 @@ fn job_of(
             IntervalsArg::PlugIn => Intervals::PlugIn,
             IntervalsArg::Corrected => Intervals::Corrected,
         },
+        likelihood,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),
@@ -511,7 +542,20 @@ impl Command {
         match self {
             Command::Fit(args) => {
                 refuse_overlaps(&args.table, None)?;
-                job_of(&args.table, args.pair_counts.as_ref(), args.model, PriorSource::Fit, report)
+                let likelihood = match args.variance_method {
+                    VarianceMethodArg::Ml => Likelihood::Marginal,
+                    VarianceMethodArg::Reml if args.model.terms().size_kind == SizeKind::StandardError => {
+                        Likelihood::Restricted
+                    }
+                    VarianceMethodArg::Reml => {
+                        return Err(Error::Usage(format!(
+                            "--variance-method reml applies to the normal-normal model, not {}",
+                            args.model.name()
+                        )))
+                    }
+                };
+                let rows = (args.pair_counts.as_ref(), likelihood);
+                job_of(&args.table, rows, args.model, PriorSource::Fit, report)
             }
             Command::Score(args) => {
                 refuse_overlaps(&args.table, Some(&args.prior))?;
@@ -526,7 +570,7 @@ impl Command {
                 let model = args.model.unwrap_or(saved);
                 job_of(
                     &args.table,
-                    None,
+                    (None, Likelihood::Marginal),
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
                     report,
@@ -565,7 +609,9 @@ mod tests {
                 assert!(roles.contains(&role), "{}: no option --{role}", model.name());
             }
         }
-        assert!(parse_model("beta-poisson").unwrap_err().contains("beta-binomial, gamma-poisson"));
+        assert!(parse_model("beta-poisson")
+            .unwrap_err()
+            .contains("beta-binomial, gamma-poisson, normal-normal"));
     }
 
     #[test]

@@ -186,6 +186,27 @@ pub enum Hyperprior {
     Beta(BetaPrior),
     /// Gamma(shape, rate) of the gamma-Poisson.
     Gamma(GammaPrior),
+    /// Normal(mean, variance) of the normal-normal model.
+    Normal(NormalPrior),
+}
+
+/// Normal prior N(μ, τ²); τ² is 0 and the strength null under complete pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct NormalPrior {
+    /// Prior mean μ.
+    pub mean: f64,
+    /// Standard error of the mean.
+    pub mean_se: f64,
+    /// Prior variance τ² of the groups' true values (0: no variation beyond
+    /// the standard errors).
+    pub variance: f64,
+    /// Standard error of τ² (observed information); null at τ² = 0.
+    pub variance_se: Option<f64>,
+    /// Strength 1/τ² (the prior's precision); null when τ² = 0.
+    pub strength: Option<f64>,
+    /// Standard error of the strength.
+    pub strength_se: Option<f64>,
 }
 
 /// Beta prior; alpha and beta are null under complete pooling.
@@ -256,14 +277,27 @@ pub struct FitReport {
     /// 0 where the boundary is a maximum); null for an interior maximum.
     #[serde(default)]
     pub boundary_score: Option<f64>,
+    /// The likelihood maximised: "marginal", or "restricted" (REML, with
+    /// `--variance-method reml`).
+    #[serde(default = "marginal")]
+    pub likelihood: String,
+    /// The maximised restricted log likelihood, when that was the criterion
+    /// (`log_marginal_likelihood` is then the marginal one at the estimate).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub restricted_log_likelihood: Option<f64>,
     /// Likelihood-ratio test against complete pooling (p-value from the 50:50
-    /// mixture of chi-square(0) and chi-square(1)); null in older files.
+    /// mixture of chi-square(0) and chi-square(1); of restricted likelihoods
+    /// under REML); null in older files.
     #[serde(default)]
     pub pooling_test: Option<TestReport>,
     /// Covariance of the working coordinates (inverse observed information)
     /// of an interior fit, for corrected intervals; null at the boundary.
     #[serde(default)]
     pub working_covariance: Option<[[f64; 2]; 2]>,
+}
+
+fn marginal() -> String {
+    "marginal".to_string()
 }
 
 /// A test statistic with its p-value.
@@ -345,6 +379,14 @@ impl Hyperprior {
                 strength,
                 strength_se,
             })),
+            "normal-normal" => Some(Hyperprior::Normal(NormalPrior {
+                mean,
+                mean_se,
+                variance: second.unwrap_or(0.0),
+                variance_se: second_se,
+                strength,
+                strength_se,
+            })),
             _ => None,
         }
     }
@@ -354,6 +396,7 @@ impl Hyperprior {
         match self {
             Hyperprior::Beta(_) => "beta-binomial",
             Hyperprior::Gamma(_) => "gamma-poisson",
+            Hyperprior::Normal(_) => "normal-normal",
         }
     }
 
@@ -362,6 +405,10 @@ impl Hyperprior {
         match self {
             Hyperprior::Beta(p) => (p.alpha, p.beta),
             Hyperprior::Gamma(p) => (p.shape, p.rate),
+            Hyperprior::Normal(p) => match p.strength {
+                Some(_) => (Some(p.mean), Some(p.variance)),
+                None => (None, None),
+            },
         }
     }
 
@@ -370,6 +417,7 @@ impl Hyperprior {
         match self {
             Hyperprior::Beta(p) => p.mean,
             Hyperprior::Gamma(p) => p.mean,
+            Hyperprior::Normal(p) => p.mean,
         }
     }
 
@@ -378,6 +426,7 @@ impl Hyperprior {
         match self {
             Hyperprior::Beta(p) => p.mean_se,
             Hyperprior::Gamma(p) => p.mean_se,
+            Hyperprior::Normal(p) => p.mean_se,
         }
     }
 
@@ -386,6 +435,7 @@ impl Hyperprior {
         match self {
             Hyperprior::Beta(p) => p.strength,
             Hyperprior::Gamma(p) => p.strength,
+            Hyperprior::Normal(p) => p.strength,
         }
     }
 }
@@ -406,15 +456,15 @@ pub fn render_text(summary: &Summary) -> String {
     let shape = match prior {
         Hyperprior::Beta(p) => format!("Beta(alpha = {}, beta = {})", show(p.alpha), show(p.beta)),
         Hyperprior::Gamma(p) => format!("Gamma(shape = {}, rate = {})", show(p.shape), show(p.rate)),
+        Hyperprior::Normal(p) => {
+            format!("Normal(mean = {:.4}, variance = {:.4e}, se {})", p.mean, p.variance, show(p.variance_se))
+        }
     };
     let _ = writeln!(
         out,
         "  prior        {shape}; mean {:.6} (se {:.2e}), strength {}",
         prior.mean(),
-        match prior {
-            Hyperprior::Beta(p) => p.mean_se,
-            Hyperprior::Gamma(p) => p.mean_se,
-        },
+        prior.mean_se(),
         prior.strength().map_or("infinite".to_string(), |s| format!("{s:.4}"))
     );
     let fit = &summary.fit;

@@ -12,6 +12,11 @@
 //! strength) is the boundary φ = 1/strength = 0; when the score there is not
 //! positive and no interior point beats it, the fit reports that boundary as
 //! its result: complete pooling at the pooled rate.
+//!
+//! With [`Likelihood::Restricted`] the objective adds the model's
+//! whole-table restricted term (the normal-normal model's REML), at the
+//! boundary as well as inside, so the tests against complete pooling
+//! compare restricted likelihoods.
 
 use crate::core::model::{Evaluation, Family, Prior, PriorUncertainty, Unidentifiable};
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -33,9 +38,10 @@ const MAX_ITERATIONS: u64 = 200;
 /// Relative size of the rounding in a log likelihood summed over many pairs
 /// (about a thousand units in the last place).
 const ROUNDING_NOISE: f64 = 1e-13;
-/// A strength beyond this is indistinguishable from no overdispersion.
+/// A strength beyond this (in the model's [`Family::strength_unit`]) is
+/// indistinguishable from no overdispersion.
 const MAX_STRENGTH: f64 = 1e15;
-/// A strength below this means no pooling at all.
+/// A strength below this (in the same unit) means no pooling at all.
 const MIN_STRENGTH: f64 = 1e-8;
 
 /// Which edge of the parameter space the fit ended on, if any.
@@ -115,7 +121,10 @@ pub struct Fit {
     pub boundary_score: Option<f64>,
     /// Score test for overdispersion.
     pub overdispersion: OverdispersionTest,
-    /// Likelihood-ratio test against complete pooling.
+    /// The maximised restricted log likelihood, when that was the criterion.
+    pub restricted_log_likelihood: Option<f64>,
+    /// Likelihood-ratio test against complete pooling (of restricted
+    /// likelihoods when that was the criterion).
     pub pooling: PoolingTest,
     /// What is known of the estimate's uncertainty, for corrected intervals.
     pub uncertainty: PriorUncertainty,
@@ -161,6 +170,29 @@ pub enum FitFailure {
     },
 }
 
+/// Which likelihood a fit maximises.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Likelihood {
+    /// The marginal likelihood of the data.
+    #[default]
+    Marginal,
+    /// The restricted (residual) likelihood: the marginal likelihood with
+    /// the model's whole-table term for the estimated mean.
+    Restricted,
+}
+
+/// The objective of a fit at `u`: the marginal log likelihood, plus the
+/// restricted term when asked for.
+fn criterion<F: Family>(table: &PairTable, u: [f64; 2], likelihood: Likelihood) -> Evaluation {
+    let mut total = evaluate::<F>(table, u);
+    if likelihood == Likelihood::Restricted {
+        if let Some(term) = F::restricted_term(table, u) {
+            total.add_weighted(&term, 1.0);
+        }
+    }
+    total
+}
+
 /// Log-likelihood, gradient and Hessian summed over the table at `u`.
 pub fn evaluate<F: Family>(table: &PairTable, u: [f64; 2]) -> Evaluation {
     let parts: Vec<Evaluation> = table
@@ -191,6 +223,7 @@ pub fn pooled_log_likelihood<F: Family>(table: &PairTable, mean: f64) -> f64 {
 /// at the same point, so the last evaluation is kept.
 struct Objective<'a, F> {
     table: &'a PairTable,
+    likelihood: Likelihood,
     scale: f64,
     last: std::cell::RefCell<Option<([f64; 2], Evaluation)>>,
     family: std::marker::PhantomData<F>,
@@ -204,7 +237,7 @@ impl<F: Family> Objective<'_, F> {
                 return *evaluation;
             }
         }
-        let evaluation = evaluate::<F>(self.table, u);
+        let evaluation = criterion::<F>(self.table, u, self.likelihood);
         *self.last.borrow_mut() = Some((u, evaluation));
         evaluation
     }
@@ -316,9 +349,14 @@ fn information_is_definite(h: [[f64; 2]; 2]) -> bool {
 }
 
 /// Runs the trust region from `start`, then polishes with Newton steps.
-fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], u64), ArgminError> {
+fn maximise<F: Family>(
+    table: &PairTable,
+    start: [f64; 2],
+    likelihood: Likelihood,
+) -> Result<([f64; 2], u64), ArgminError> {
     let objective = Objective::<F> {
         table,
+        likelihood,
         scale: 1.0 / table.groups(),
         last: std::cell::RefCell::new(None),
         family: std::marker::PhantomData,
@@ -336,7 +374,7 @@ fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], 
         result.state().get_best_param().or(result.state().get_param()).cloned().unwrap_or(start.to_vec());
     let mut u = [best[0], best[1]];
     let mut iterations = result.state().get_iter();
-    let mut current = evaluate::<F>(table, u);
+    let mut current = criterion::<F>(table, u, likelihood);
     for _ in 0..8 {
         let Some(inv) = inverse(current.hessian) else { break };
         if !information_is_definite(current.hessian) {
@@ -352,7 +390,7 @@ fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], 
         let noise = ROUNDING_NOISE * current.log_likelihood.abs();
         for _ in 0..30 {
             let trial = [u[0] + scale * step[0], u[1] + scale * step[1]];
-            let at = evaluate::<F>(table, trial);
+            let at = criterion::<F>(table, trial, likelihood);
             let better = at.log_likelihood >= current.log_likelihood
                 || (at.log_likelihood >= current.log_likelihood - noise
                     && norm(&at.gradient) < norm(&current.gradient));
@@ -378,7 +416,19 @@ fn maximise<F: Family>(table: &PairTable, start: [f64; 2]) -> Result<([f64; 2], 
 
 /// Fits the prior of family `F` to `table` by maximum marginal likelihood.
 pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
+    fit_by::<F>(table, Likelihood::Marginal)
+}
+
+/// Fits the prior of family `F` to `table` by maximising `likelihood`.
+/// Under [`Likelihood::Restricted`] the reported log marginal likelihood is
+/// still the marginal one at the estimate; the restricted one is beside it,
+/// and the test against complete pooling compares restricted likelihoods.
+pub fn fit_by<F: Family>(table: &PairTable, likelihood: Likelihood) -> Result<Fit, FitFailure> {
     F::check_identifiable(table).map_err(FitFailure::Unidentifiable)?;
+    let restricted_boundary = match likelihood {
+        Likelihood::Marginal => None,
+        Likelihood::Restricted => Some(F::restricted_boundary(table).unwrap_or((0.0, 0.0))),
+    };
     let groups = table.groups();
     let pooled_mean = F::pooled_mean(table);
     let z = F::overdispersion_z(table, pooled_mean);
@@ -387,14 +437,18 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
     };
     let boundary_ll = pooled_log_likelihood::<F>(table, pooled_mean);
+    let (restricted_ll, restricted_score) = restricted_boundary.unwrap_or((0.0, 0.0));
+    let boundary_criterion = boundary_ll + restricted_ll;
     let boundary_score: f64 =
-        table.pairs().iter().map(|p| p.weight * F::boundary_score_term(pooled_mean, p)).sum();
+        table.pairs().iter().map(|p| p.weight * F::boundary_score_term(pooled_mean, p)).sum::<f64>()
+            + restricted_score;
+    let unit = F::strength_unit(table);
 
     // Method-of-moments start; with no overdispersion in the moments, start
-    // where the strength equals a typical group size, to look for an interior
-    // maximum the moments missed.
+    // where the strength equals that of a typical group, to look for an
+    // interior maximum the moments missed.
     let moment = F::moment_strength(table, pooled_mean);
-    let start_strength = moment.unwrap_or(table.max_size().max(1.0)).clamp(1e-3, 1e10);
+    let start_strength = moment.unwrap_or_else(|| F::typical_strength(table)).clamp(1e-3 * unit, 1e10 * unit);
     let start = F::working(pooled_mean, start_strength);
     let start_ll = evaluate::<F>(table, start).log_likelihood;
 
@@ -413,23 +467,29 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         boundary: Boundary::NoOverdispersion,
         boundary_score: Some(boundary_score / groups),
         overdispersion,
-        pooling: PoolingTest::new(boundary_ll, boundary_ll),
+        restricted_log_likelihood: restricted_boundary.map(|_| boundary_criterion),
+        pooling: PoolingTest::new(boundary_criterion, boundary_criterion),
         uncertainty: PriorUncertainty::PooledMean(F::pooled_mean_se(table, pooled_mean).powi(2)),
     };
 
-    let (u, iterations) = match maximise::<F>(table, start) {
+    let (u, iterations) = match maximise::<F>(table, start, likelihood) {
         Ok(found) => found,
         Err(_) if boundary_score <= 0.0 => return Ok(boundary_fit(0)),
         Err(_) => return Err(FitFailure::NotConverged { iterations: 0, gradient_norm: f64::NAN }),
     };
-    let at = evaluate::<F>(table, u);
+    let at = criterion::<F>(table, u, likelihood);
+    let marginal_ll = match likelihood {
+        Likelihood::Marginal => at.log_likelihood,
+        Likelihood::Restricted => evaluate::<F>(table, u).log_likelihood,
+    };
     let gradient_norm = norm(&at.gradient) / groups;
     let (mean, strength) = F::mean_strength(u);
-    let interior_ok = gradient_norm < 1e-7 && information_is_definite(at.hessian) && strength <= MAX_STRENGTH;
-    if strength < MIN_STRENGTH {
+    let relative = strength / unit;
+    let interior_ok = gradient_norm < 1e-7 && information_is_definite(at.hessian) && relative <= MAX_STRENGTH;
+    if relative < MIN_STRENGTH {
         return Err(FitFailure::NoPooling);
     }
-    match judge(interior_ok, at.log_likelihood > boundary_ll, boundary_score, strength) {
+    match judge(interior_ok, at.log_likelihood > boundary_criterion, boundary_score, relative) {
         Ending::Interior => {}
         Ending::Boundary => return Ok(boundary_fit(iterations)),
         Ending::Failed => return Err(FitFailure::NotConverged { iterations, gradient_norm }),
@@ -455,7 +515,7 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         natural_se: Some([delta_se(nj, 0), delta_se(nj, 1)]),
         mean_se: delta_se(mj, 0),
         strength_se: Some(delta_se(mj, 1)),
-        log_marginal_likelihood: at.log_likelihood,
+        log_marginal_likelihood: marginal_ll,
         start_log_likelihood: start_ll,
         converged: true,
         iterations,
@@ -463,7 +523,8 @@ pub fn fit<F: Family>(table: &PairTable) -> Result<Fit, FitFailure> {
         boundary: Boundary::None,
         boundary_score: None,
         overdispersion,
-        pooling: PoolingTest::new(at.log_likelihood, boundary_ll),
+        restricted_log_likelihood: restricted_boundary.map(|_| at.log_likelihood),
+        pooling: PoolingTest::new(at.log_likelihood, boundary_criterion),
         uncertainty: PriorUncertainty::Working(cov_u),
     })
 }

@@ -44,6 +44,15 @@ fn normal_quantile(p: f64) -> f64 {
     -std::f64::consts::SQRT_2 * statrs::function::erf::erfc_inv(2.0 * p)
 }
 
+/// The standard normal deviate with `p` in the given tail, from that tail
+/// itself: 1 − p would round to 1 for upper tails below 1e-17.
+fn normal_deviate(tail: Tail, p: f64) -> f64 {
+    match tail {
+        Tail::Lower => normal_quantile(p),
+        Tail::Upper => -normal_quantile(p),
+    }
+}
+
 /// The iteration ends when the error predicted to remain after its last step
 /// is below this, in u. Relative error in x is at most the error in u, in both
 /// parametrisations (u = ln x, and u = logit x, where it is (1 − x) times it),
@@ -125,10 +134,6 @@ fn solve_increasing(mut u: f64, eval: impl Fn(f64) -> Local) -> f64 {
 /// Quantile of Gamma(shape, rate 1) for the tail probability `p` in (0, 1).
 pub fn gamma_quantile(shape: f64, tail: Tail, p: f64) -> f64 {
     let ln_p = p.ln();
-    let p_lower = match tail {
-        Tail::Lower => p,
-        Tail::Upper => 1.0 - p,
-    };
     let start = if shape < 1.0 && tail == Tail::Lower {
         // P(a, x) ≈ x^a / Γ(a + 1) for small x.
         let ln_x = (ln_p + ln_gamma(shape + 1.0)) / shape;
@@ -137,7 +142,7 @@ pub fn gamma_quantile(shape: f64, tail: Tail, p: f64) -> f64 {
         }
         ln_x.min(0.0)
     } else {
-        let z = normal_quantile(p_lower);
+        let z = normal_deviate(tail, p);
         let cube = 1.0 - 1.0 / (9.0 * shape) + z / (3.0 * shape.sqrt());
         if cube > 0.0 {
             (shape * cube * cube * cube).ln()
@@ -225,10 +230,6 @@ fn logit_start(a: f64, b: f64, z: f64) -> f64 {
 pub fn beta_quantile(a: f64, b: f64, tail: Tail, p: f64) -> f64 {
     let ln_p = p.ln();
     let ln_beta = || ln_gamma(a) + ln_gamma(b) - ln_gamma(a + b);
-    let p_lower = match tail {
-        Tail::Lower => p,
-        Tail::Upper => 1.0 - p,
-    };
     let start = if a < 1.0 && tail == Tail::Lower {
         // I_x(a, b) ≈ x^a / (a B(a, b)) for small x.
         let ln_x = (ln_p + a.ln() + ln_beta()) / a;
@@ -243,7 +244,7 @@ pub fn beta_quantile(a: f64, b: f64, tail: Tail, p: f64) -> f64 {
         }
         -ln_y.min(-0.7)
     } else {
-        logit_start(a, b, normal_quantile(p_lower))
+        logit_start(a, b, normal_deviate(tail, p))
     };
     let sign = match tail {
         Tail::Lower => 1.0,

@@ -9,7 +9,7 @@
 use super::model::RateLaw;
 use rand::{RngCore, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use rand_distr::{Beta, Distribution, Gamma};
+use rand_distr::{Beta, Distribution, Gamma, Normal};
 use rayon::prelude::*;
 
 /// Which end of the rates ranks first.
@@ -142,6 +142,7 @@ fn draw(law: &RateLaw, rng: &mut ChaCha8Rng) -> f64 {
         RateLaw::Gamma { shape, rate } => {
             Gamma::new(shape, 1.0 / rate).map_or(shape / rate, |d| d.sample(rng))
         }
+        RateLaw::Normal { mean, sd } => Normal::new(mean, sd).map_or(mean, |d| d.sample(rng)),
         RateLaw::Point(mean) => mean,
     }
 }
@@ -283,9 +284,11 @@ pub fn top_probabilities_by_threshold(
     let (mut low, mut high) = (start, start);
     let (mut f_low, mut f_high) = (excess(low), excess(high));
     let mut step = scale * 0.5;
+    // Beta and Gamma rates are at least 0; normal values may take any sign.
+    let floored = !laws.iter().any(|l| matches!(l, RateLaw::Normal { .. }));
     while f_low < 0.0 {
         low -= step;
-        if low <= 0.0 {
+        if floored && low <= 0.0 {
             low = 0.0;
             f_low = excess(low);
             break;

@@ -19,6 +19,7 @@ use std::path::{Path, PathBuf};
 use std::time::{Duration, Instant};
 use validate::ColumnNames;
 
+pub use crate::core::fit::Likelihood;
 pub use crate::core::model::Model;
 pub use crate::core::ranking::RankOrder;
 
@@ -229,6 +230,8 @@ pub struct Job {
     pub seed: u64,
     /// Plug-in or corrected intervals.
     pub intervals: Intervals,
+    /// The likelihood a fit maximises (restricted: `--variance-method reml`).
+    pub likelihood: Likelihood,
     /// What a row is: a group, a trial, or a part of a group.
     pub aggregation: Aggregation,
     /// Segment columns: one prior per segment (empty: one prior for all).
@@ -325,14 +328,6 @@ pub fn run(job: &Job) -> Result<Summary> {
 /// What the count and size columns hold, in the model's words.
 fn roles(model: Model) -> (&'static str, &'static str) {
     (model.terms().count_role, model.terms().size_role)
-}
-
-fn size_kind(model: Model) -> validate::SizeKind {
-    if model.terms().whole_sizes {
-        validate::SizeKind::Trials
-    } else {
-        validate::SizeKind::Exposure
-    }
 }
 
 fn no_data_rows(job: &Job) -> Error {

@@ -7,7 +7,7 @@ use super::prior::score_pairs;
 use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts};
 use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::validate::{check_values, group_count};
-use super::{no_data_rows, roles, size_kind, Job, PhaseClock, DEFAULT_BATCH_ROWS};
+use super::{no_data_rows, roles, Job, PhaseClock, DEFAULT_BATCH_ROWS};
 use crate::error::{Error, Result};
 use crate::io::cells::cell_at;
 use crate::io::input::Input;
@@ -33,7 +33,7 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
                 reason,
             };
             let (count, size) = (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
-            let (size, count) = check_values(names, size_kind(job.model), &count, &size)
+            let (size, count) = check_values(names, job.model.terms().size_kind, &count, &size)
                 .map_err(|(column, reason)| invalid(column, reason))?;
             let weight =
                 group_count(&cell_at(&batch.columns[0], row)?).map_err(|reason| invalid(weights, reason))?;

@@ -20,8 +20,8 @@ use super::scoring::{
     ShiftGroups, ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::validate::{check_values, Rejection, MISSING_GROUP};
-use super::{no_data_rows, no_valid_rows, roles, size_kind, InvalidRows, Job, Model, PhaseClock};
+use super::validate::{check_values, Rejection, SizeKind, MISSING_GROUP};
+use super::{no_data_rows, no_valid_rows, roles, InvalidRows, Job, Model, PhaseClock};
 use crate::core::pairs::WeightedPair;
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
@@ -79,14 +79,19 @@ impl<'a> BatchView<'a> {
     /// same values and names the fault of the others. This spares building a
     /// cell per value.
     fn plainly_valid(&self, model: Model, row: usize) -> Option<(f64, f64)> {
-        let terms = model.terms();
+        let kind = model.terms().size_kind;
+        if kind == SizeKind::StandardError {
+            let estimate = self.counts.number(row).filter(|y| y.is_finite())?;
+            let se = self.sizes.number(row).filter(|&s| s > 0.0 && s.is_finite())?;
+            return Some((se, estimate));
+        }
         let count = self.counts.integer(row).filter(|k| (0..=MAX_EXACT).contains(k))?;
-        let size = if terms.whole_sizes {
+        let size = if kind.whole_sizes() {
             self.sizes.integer(row).filter(|n| (0..=MAX_EXACT).contains(n))? as f64
         } else {
             self.sizes.number(row).filter(|&e| e >= 0.0)?
         };
-        let fine = if terms.count_within_size { count as f64 <= size } else { size > 0.0 || count == 0 };
+        let fine = if kind == SizeKind::Trials { count as f64 <= size } else { size > 0.0 || count == 0 };
         fine.then_some((size, count as f64))
     }
 
@@ -102,7 +107,7 @@ impl<'a> BatchView<'a> {
             return Ok(Ok(pair));
         }
         let (count, size) = (cell_at(&self.batch.columns[1], row)?, cell_at(&self.batch.columns[2], row)?);
-        Ok(check_values(names, size_kind(job.model), &count, &size)
+        Ok(check_values(names, job.model.terms().size_kind, &count, &size)
             .map_err(|(column, reason)| reject(column, reason)))
     }
 }
@@ -427,6 +432,7 @@ mod tests {
             top: None,
             seed: crate::pipeline::DEFAULT_SEED,
             intervals: Default::default(),
+            likelihood: Default::default(),
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

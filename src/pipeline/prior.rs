@@ -14,11 +14,13 @@ use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
 use crate::core::diagnostics::Pull;
-use crate::core::fit::{evaluate, fit, pooled_log_likelihood, Boundary, Fit, FitFailure, PoolingTest};
+use crate::core::fit::{
+    evaluate, fit_by, pooled_log_likelihood, Boundary, Fit, FitFailure, Likelihood, PoolingTest,
+};
 use crate::core::incomplete::gamma_tails;
 use crate::core::model::{
-    corrected_posterior, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw, Uncertainty,
-    Unidentifiable,
+    corrected_posterior, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw, RateRange,
+    Uncertainty, Unidentifiable,
 };
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{
@@ -135,8 +137,8 @@ struct Chosen {
 fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
     match &job.prior {
         PriorSource::Fit => {
-            let fitted =
-                fit::<F>(table).map_err(|failure| Error::Fit(describe_failure(failure, job.model)))?;
+            let fitted = fit_by::<F>(table, job.likelihood)
+                .map_err(|failure| Error::Fit(describe_failure(failure, job.model)))?;
             Ok(chosen_of_fit::<F>(job.model, &fitted))
         }
         PriorSource::Saved { path, summary } => {
@@ -198,7 +200,7 @@ fn segment_prior<F: Family>(
         PriorSource::Fit if groups < job.min_groups as f64 => {
             Ok(Err(format!("fewer than {} groups ({groups})", job.min_groups)))
         }
-        PriorSource::Fit => Ok(match fit::<F>(&segment.table) {
+        PriorSource::Fit => Ok(match fit_by::<F>(&segment.table, job.likelihood) {
             Ok(fitted) => Ok(chosen_of_fit::<F>(job.model, &fitted)),
             Err(failure) => Err(describe_failure(failure, job.model)),
         }),
@@ -340,7 +342,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
     let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors");
-    let pull = pull_of_pairs(&all_pairs, &posteriors);
+    let pull = pull_of_pairs(F::TERMS.size_kind, &all_pairs, &posteriors);
     let mut warnings = all.warnings.clone();
     if let Prior::CompletePooling { .. } = all.prior {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
@@ -355,8 +357,12 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
             checks.raw_rate_variance.ratio.unwrap_or(f64::NAN)
         ));
     }
-    let segment_test = match (segmented, &job.prior) {
-        (true, PriorSource::Fit) => likelihood_ratio_test::<F>(&all, &choices, &segments),
+    // Restricted likelihoods of fits with different means (one per segment)
+    // are not comparable (common practice), so REML fits get no segment test.
+    let segment_test = match (segmented, &job.prior, job.likelihood) {
+        (true, PriorSource::Fit, Likelihood::Marginal) => {
+            likelihood_ratio_test::<F>(&all, &choices, &segments)
+        }
         _ => None,
     };
     let scores: Vec<SegmentScore> = if segmented {
@@ -365,7 +371,8 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
             .zip(choices)
             .zip(&ranges)
             .map(|((segment, choice), range)| {
-                let mut pull = pull_of_pairs(&all_pairs[range.clone()], &posteriors[range.clone()]);
+                let mut pull =
+                    pull_of_pairs(F::TERMS.size_kind, &all_pairs[range.clone()], &posteriors[range.clone()]);
                 pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
                 let (hyperprior, fit, fallback) = match choice {
                     Ok(own) => (own.hyperprior, Some(own.fit), None),
@@ -429,12 +436,13 @@ fn model_checks<F: Family>(
     let calibration =
         calibration(&weights, |i| F::predictive_cdf(prior_of(i), pairs[i].size, pairs[i].count), job.seed);
     let (mut observed, mut expected, mut with_data) = (0.0, 0.0, 0.0);
-    for (i, pair) in pairs.iter().enumerate().filter(|(_, p)| p.size > 0.0) {
+    for (i, pair) in pairs.iter().enumerate() {
+        let Some(raw) = F::TERMS.size_kind.raw_value(pair.size, pair.count) else { continue };
         let mean = match *prior_of(i) {
             Prior::CompletePooling { mean } => mean,
             Prior::Conjugate { natural } => F::mean_strength_of_natural(natural).0,
         };
-        observed += pair.weight * (pair.count / pair.size - mean).powi(2);
+        observed += pair.weight * (raw - mean).powi(2);
         expected += pair.weight * F::raw_rate_variance(prior_of(i), pair.size);
         with_data += pair.weight;
     }
@@ -538,7 +546,8 @@ fn fit_warnings(fitted: &Fit) -> Vec<String> {
 fn describe_failure(failure: FitFailure, model: Model) -> String {
     match failure {
         FitFailure::Unidentifiable(Unidentifiable::MeanOnly { mean }) => format!(
-            "only the prior mean ({mean:.6}) is identifiable: every group has at most one trial, so the data say nothing about how much groups differ; no strength is reported"
+            "only the prior mean ({mean:.6}) is identifiable: {}; no strength is reported",
+            model.terms().mean_only_data
         ),
         FitFailure::Unidentifiable(Unidentifiable::DegenerateMean { mean }) => format!(
             "the pooled rate is {mean}: every group is at the edge of the range (all {}), so no prior can be fitted",
@@ -590,6 +599,12 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
             p_value: fitted.overdispersion.p_value,
         },
         boundary_score: fitted.boundary_score,
+        likelihood: match fitted.restricted_log_likelihood {
+            Some(_) => "restricted",
+            None => "marginal",
+        }
+        .to_string(),
+        restricted_log_likelihood: fitted.restricted_log_likelihood,
         pooling_test: Some(pooling_report(&fitted.pooling)),
         working_covariance: match fitted.uncertainty {
             PriorUncertainty::Working(cov) => Some(cov),
@@ -633,11 +648,12 @@ fn prior_of_hyperprior(
     }
     let ((first, second), mean) = (hyperprior.natural(), hyperprior.mean());
     let valid = |v: f64| v.is_finite() && v > 0.0;
+    // The first natural parameter is a location of either sign for a model of real values.
+    let rates = model.terms().rates;
+    let first_valid = |v: f64| if rates == RateRange::Real { v.is_finite() } else { valid(v) };
     match (first, second) {
-        (Some(a), Some(b)) if valid(a) && valid(b) => Ok(Prior::Conjugate { natural: [a, b] }),
-        (None, None) if valid(mean) && (!model.terms().mean_below_one || mean < 1.0) => {
-            Ok(Prior::CompletePooling { mean })
-        }
+        (Some(a), Some(b)) if first_valid(a) && valid(b) => Ok(Prior::Conjugate { natural: [a, b] }),
+        (None, None) if rates.holds_inside(mean) => Ok(Prior::CompletePooling { mean }),
         _ => Err(Error::Input(format!(
             "{}: the hyperprior parameters are missing or out of range",
             path.display()

@@ -3,7 +3,7 @@
 
 use super::prior::Scored;
 use super::segments::segment_pair_values;
-use super::validate::{cell_text, ColumnNames, Rejection};
+use super::validate::{cell_text, ColumnNames, Rejection, SizeKind};
 use super::{FlagEvent, Intervals, Job, Thresholds};
 use crate::core::diagnostics::{pull, PairOutcome, Pull};
 use crate::core::model::Posterior;
@@ -27,21 +27,27 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         PairValues::OptionalFloats(posteriors.iter().map(f).collect())
     };
     let terms = job.model.terms();
-    let sizes = if terms.whole_sizes {
+    let kind = terms.size_kind;
+    let sizes = if kind.whole_sizes() {
         PairValues::Integers(pairs.iter().map(|p| p.size as i64).collect())
     } else {
         PairValues::Floats(pairs.iter().map(|p| p.size).collect())
+    };
+    let counts = if kind.whole_counts() {
+        PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())
+    } else {
+        PairValues::Floats(pairs.iter().map(|p| p.count).collect())
     };
     let parameter = |i: usize| {
         let values = optional(&|p| p.natural.map(|natural| natural[i]));
         (format!("posterior_{}", terms.parameter_names[i]), values)
     };
-    let raw = pairs.iter().map(|p| (p.size > 0.0).then(|| p.count / p.size)).collect();
+    let raw = pairs.iter().map(|p| kind.raw_value(p.size, p.count)).collect();
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
     columns.extend([
-        (job.columns.count.clone(), PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())),
+        (job.columns.count.clone(), counts),
         (job.columns.size.clone(), sizes),
         ("raw_rate".to_string(), PairValues::OptionalFloats(raw)),
         ("posterior_mean".to_string(), each(&|p| p.mean)),
@@ -197,12 +203,12 @@ impl RejectRows {
 }
 
 /// The pull summary over all groups, from each distinct pair and its posterior.
-pub fn pull_of_pairs(pairs: &[WeightedPair], posteriors: &[Posterior]) -> Pull {
+pub fn pull_of_pairs(kind: SizeKind, pairs: &[WeightedPair], posteriors: &[Posterior]) -> Pull {
     let outcomes: Vec<PairOutcome> = pairs
         .iter()
         .zip(posteriors)
         .map(|(pair, post)| PairOutcome {
-            raw_rate: (pair.size > 0.0).then(|| pair.count / pair.size),
+            raw_rate: kind.raw_value(pair.size, pair.count),
             posterior_mean: post.mean,
             pool_weight: post.pool_weight,
             groups: pair.weight,

@@ -6,14 +6,7 @@ use crate::io::cells::Cell;
 /// Counts above 2^53 cannot all be held exactly in a double.
 pub const MAX_EXACT_COUNT: f64 = 9_007_199_254_740_992.0;
 
-/// The two count columns of a model, in domain terms.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum SizeKind {
-    /// Number of trials: a whole number ≥ 0.
-    Trials,
-    /// Exposure: a number ≥ 0, and > 0 when there are events.
-    Exposure,
-}
+pub use crate::core::model::SizeKind;
 
 /// A rejected row.
 #[derive(Debug, Clone, PartialEq)]
@@ -78,6 +71,25 @@ fn exposure(cell: &Cell) -> Result<f64, String> {
     }
 }
 
+/// A finite number (an estimate).
+fn finite(cell: &Cell) -> Result<f64, String> {
+    match *cell {
+        Cell::Missing => Err("missing value".to_string()),
+        Cell::Text(ref t) => Err(format!("'{t}' is not a number")),
+        Cell::Integer(v) => Ok(v as f64),
+        Cell::Number(v) if !v.is_finite() => Err(format!("{v} is not a finite number")),
+        Cell::Number(v) => Ok(v),
+    }
+}
+
+/// A finite standard error above zero.
+fn standard_error(cell: &Cell) -> Result<f64, String> {
+    match finite(cell)? {
+        v if v > 0.0 => Ok(v),
+        v => Err(format!("standard error {v} is not above zero")),
+    }
+}
+
 /// The reason given for a row without a group id.
 pub const MISSING_GROUP: &str = "group id is missing";
 
@@ -92,9 +104,14 @@ pub fn check_values<'a>(
     let size = match kind {
         SizeKind::Trials => whole_count(size_cell),
         SizeKind::Exposure => exposure(size_cell),
+        SizeKind::StandardError => standard_error(size_cell),
     }
     .map_err(|reason| (names.size.as_str(), reason))?;
-    let count = whole_count(count_cell).map_err(|reason| (names.count.as_str(), reason))?;
+    let count = match kind {
+        SizeKind::StandardError => finite(count_cell),
+        _ => whole_count(count_cell),
+    }
+    .map_err(|reason| (names.count.as_str(), reason))?;
     match kind {
         SizeKind::Trials if count > size => Err((
             names.count.as_str(),
@@ -167,6 +184,20 @@ mod tests {
             |count: i128| check_values(&names, SizeKind::Exposure, &Cell::Integer(count), &Cell::Number(0.0));
         assert_eq!(check(0), Ok((0.0, 0.0)));
         assert_eq!(check(2).unwrap_err().0, "n");
+    }
+
+    #[test]
+    fn standard_errors_are_finite_and_above_zero_and_estimates_finite() {
+        let names = names();
+        let check = |count: Cell, size: Cell| check_values(&names, SizeKind::StandardError, &count, &size);
+        assert_eq!(check(Cell::Number(-2.5), Cell::Number(0.5)), Ok((0.5, -2.5)));
+        assert_eq!(check(Cell::Integer(3), Cell::Integer(2)), Ok((2.0, 3.0)));
+        for bad in [Cell::Number(0.0), Cell::Number(-1.0), Cell::Missing, Cell::Number(f64::INFINITY)] {
+            assert_eq!(check(Cell::Number(1.0), bad).unwrap_err().0, "n");
+        }
+        assert_eq!(check(Cell::Number(f64::NAN), Cell::Number(1.0)).unwrap_err().0, "k");
+        assert_eq!(check(Cell::Missing, Cell::Number(1.0)).unwrap_err().0, "k");
+        assert!(check(Cell::Number(1.0), Cell::Number(0.0)).unwrap_err().1.contains("not above zero"));
     }
 
     #[test]

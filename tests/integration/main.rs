@@ -12,6 +12,7 @@ mod faults;
 mod fits;
 mod fuzz_corpus;
 mod no_overwrite;
+mod normal;
 mod output;
 mod producers;
 mod properties;

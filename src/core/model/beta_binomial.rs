@@ -11,7 +11,10 @@
 //! ln s use R(x, m) = ln Γ(x+m) − ln Γ(x) − m ln x style excesses while n ≤ s
 //! and plain digamma differences beyond (see `special`).
 
-use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, Unidentifiable};
+use super::{
+    point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, RateRange, SizeKind,
+    Unidentifiable,
+};
 use crate::core::incomplete::beta_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{beta_quantile, Tail};
@@ -113,11 +116,12 @@ impl Family for BetaBinomial {
         name: "beta-binomial",
         count_role: "successes",
         size_role: "trials",
-        whole_sizes: true,
-        count_within_size: true,
+        size_kind: SizeKind::Trials,
         parameter_names: ["alpha", "beta"],
         degenerate_data: "successes or all failures",
-        mean_below_one: true,
+        rates: RateRange::Proportion,
+        mean_only_data:
+            "every group has at most one trial, so the data say nothing about how much groups differ",
         overdispersion_test: "Tarone",
     };
 

@@ -10,7 +10,10 @@
 //! is ln Poisson(y; λ) + R(a, y) − a[ln(1+t) − t] − y ln(1+t), each extra term
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
-use super::{point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, Unidentifiable};
+use super::{
+    point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, RateRange, SizeKind,
+    Unidentifiable,
+};
 use crate::core::incomplete::{beta_tails, gamma_tails};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
@@ -50,11 +53,11 @@ impl Family for GammaPoisson {
         name: "gamma-poisson",
         count_role: "events",
         size_role: "exposure",
-        whole_sizes: false,
-        count_within_size: false,
+        size_kind: SizeKind::Exposure,
         parameter_names: ["shape", "rate"],
         degenerate_data: "zero events",
-        mean_below_one: false,
+        rates: RateRange::NonNegative,
+        mean_only_data: "the data say nothing about how much groups differ",
         overdispersion_test: "Dean",
     };
 

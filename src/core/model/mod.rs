@@ -1,6 +1,8 @@
 //! The two hierarchical models, behind one trait the fitting loop is written
 //! against.
 //!
+//! Three models: Beta priors for proportions, Gamma priors for event rates
+//! with exposure, normal priors for estimates with known standard errors.
 //! Each model is fitted in *working coordinates* u = (u₁, u₂): an unbounded
 //! transform of the prior mean and of the prior strength (or shape). Every
 //! per-pair term is written directly in those coordinates, in forms that tend
@@ -11,6 +13,7 @@
 
 pub mod beta_binomial;
 pub mod gamma_poisson;
+pub mod normal_normal;
 
 use crate::core::pairs::{PairTable, WeightedPair};
 
@@ -101,19 +104,96 @@ pub struct ModelTerms {
     pub count_role: &'static str,
     /// What the size column holds; also the option naming it (`--trials`).
     pub size_role: &'static str,
-    /// Sizes are whole numbers (trials); otherwise any number ≥ 0 (exposure),
-    /// positive where there are counts.
-    pub whole_sizes: bool,
-    /// A count may not exceed its size (successes out of trials).
-    pub count_within_size: bool,
+    /// What the size column holds, and so what each column accepts.
+    pub size_kind: SizeKind,
     /// The natural parameters of prior and posterior, in order.
     pub parameter_names: [&'static str; 2],
     /// The data that leave the prior mean on the edge of its range, in words.
     pub degenerate_data: &'static str,
-    /// The prior mean is a proportion, below 1.
-    pub mean_below_one: bool,
+    /// The range of a group's rate (or mean), and so of a threshold.
+    pub rates: RateRange,
+    /// When only the prior mean is identifiable, in words.
+    pub mean_only_data: &'static str,
     /// Name of the score test for overdispersion this model uses.
     pub overdispersion_test: &'static str,
+}
+
+/// What a model's size column holds; it decides what each column accepts.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SizeKind {
+    /// Number of trials: a whole number ≥ 0; the count (successes) is a
+    /// whole number no larger.
+    Trials,
+    /// Exposure: a number ≥ 0, and > 0 when there are events; the count
+    /// (events) is a whole number ≥ 0.
+    Exposure,
+    /// A standard error: a finite number > 0; the count is an estimate,
+    /// any finite number.
+    StandardError,
+}
+
+impl SizeKind {
+    /// Sizes are whole numbers (trials).
+    pub fn whole_sizes(self) -> bool {
+        self == SizeKind::Trials
+    }
+
+    /// Counts are whole numbers (successes or events), not estimates.
+    pub fn whole_counts(self) -> bool {
+        self != SizeKind::StandardError
+    }
+
+    /// A group's raw value: count / size for rates (None without trials or
+    /// exposure), the estimate itself for estimates.
+    pub fn raw_value(self, size: f64, count: f64) -> Option<f64> {
+        match self {
+            SizeKind::StandardError => Some(count),
+            _ => (size > 0.0).then(|| count / size),
+        }
+    }
+}
+
+/// The range of a model's rates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RateRange {
+    /// A proportion, from 0 to 1.
+    Proportion,
+    /// A rate of at least 0.
+    NonNegative,
+    /// Any finite number (a mean of estimates).
+    Real,
+}
+
+impl RateRange {
+    /// Whether `value` lies in the range.
+    pub fn contains(self, value: f64) -> bool {
+        value.is_finite()
+            && match self {
+                RateRange::Proportion => (0.0..=1.0).contains(&value),
+                RateRange::NonNegative => value >= 0.0,
+                RateRange::Real => true,
+            }
+    }
+
+    /// Whether `value` lies strictly inside the range (a pooled mean that
+    /// leaves every group room on both sides).
+    pub fn holds_inside(self, value: f64) -> bool {
+        value.is_finite()
+            && match self {
+                RateRange::Proportion => value > 0.0 && value < 1.0,
+                RateRange::NonNegative => value > 0.0,
+                RateRange::Real => true,
+            }
+    }
+
+    /// The range in words, after "a rate" or "a value".
+    pub fn describe(self) -> &'static str {
+        match self {
+            RateRange::Proportion => "from 0 to 1",
+            RateRange::NonNegative => "of at least 0",
+            RateRange::Real => "that is finite",
+        }
+    }
 }
 
 /// Code written once for every model: [`Model::visit`] calls
@@ -162,6 +242,7 @@ macro_rules! models {
 models! {
     BetaBinomial => beta_binomial::BetaBinomial,
     GammaPoisson => gamma_poisson::GammaPoisson,
+    NormalNormal => normal_normal::NormalNormal,
 }
 
 /// The law of a group's rate under its posterior, for drawing from it.
@@ -180,6 +261,13 @@ pub enum RateLaw {
         shape: f64,
         /// Rate.
         rate: f64,
+    },
+    /// Normal(mean, sd²).
+    Normal {
+        /// Mean.
+        mean: f64,
+        /// Standard deviation.
+        sd: f64,
     },
     /// A point mass (complete pooling).
     Point(f64),
@@ -218,10 +306,6 @@ const HERMITE_WEIGHTS: [f64; 7] = [
     0.000548268855972217,
 ];
 
-/// The strengths a quadrature node may take: the range the fit itself
-/// tells apart (below it no pooling, above it complete pooling).
-const NODE_STRENGTHS: (f64, f64) = (1e-3, 1e12);
-
 /// A fitted prior with its estimation uncertainty spread over quadrature
 /// nodes: the 7 × 7 Gauss–Hermite rule on the normal approximation
 /// N(û, Σ) to the working coordinates' sampling distribution, each node a
@@ -251,7 +335,8 @@ impl SpreadPrior {
                 // A wide spread (few groups) reaches strengths no data set
                 // tells apart: hold each node's strength within the fit's range.
                 let (mean, strength) = F::mean_strength(at);
-                let held = strength.clamp(NODE_STRENGTHS.0, NODE_STRENGTHS.1);
+                let (least, most) = F::node_strengths();
+                let held = strength.clamp(least, most);
                 nodes.push((wx * wy, Prior::Conjugate { natural: F::natural(F::working(mean, held)) }));
             }
         }
@@ -294,8 +379,12 @@ pub fn corrected_posterior<F: Family>(
             let below = |x: f64| -> f64 {
                 components.iter().map(|(w, c)| w * F::rate_tails(c, size, count, x).0).sum()
             };
-            let lower = solve_increasing(&below, tail, start_low);
-            let upper = solve_increasing(&below, 1.0 - tail, start_high);
+            let step = match F::TERMS.rates {
+                RateRange::Real => Step::Add(variance.sqrt()),
+                _ => Step::Multiply,
+            };
+            let lower = solve_increasing(&below, tail, start_low, step);
+            let upper = solve_increasing(&below, 1.0 - tail, start_high, step);
             Posterior { mean, sd: variance.sqrt(), lower, upper, ..plug_in }
         }
         Uncertainty::PooledMean(variance) => {
@@ -336,12 +425,25 @@ impl Uncertainty {
     }
 }
 
+/// How [`solve_increasing`] steps out from its start to find a bracket.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Step {
+    /// By growing factors (positive rates).
+    Multiply,
+    /// By growing multiples of a scale (values of either sign).
+    Add(f64),
+}
+
 /// The x where the increasing function `f` equals `target`, from `start`:
 /// a bracket found by stepping out geometrically, then regula falsi with
-/// the Illinois modification, to a relative width of 1e-12.
-fn solve_increasing(f: &dyn Fn(f64) -> f64, target: f64, start: f64) -> f64 {
+/// the Illinois modification, to a relative width of 1e-12 (of the
+/// bracket's scale for values of either sign).
+fn solve_increasing(f: &dyn Fn(f64) -> f64, target: f64, start: f64, step: Step) -> f64 {
     let g = |x: f64| f(x) - target;
-    let mut x0 = start.max(f64::MIN_POSITIVE);
+    let mut x0 = match step {
+        Step::Multiply => start.max(f64::MIN_POSITIVE),
+        Step::Add(_) => start,
+    };
     let g0 = g(x0);
     let mut x1 = x0;
     let mut g1 = g0;
@@ -350,10 +452,20 @@ fn solve_increasing(f: &dyn Fn(f64) -> f64, target: f64, start: f64) -> f64 {
         if g0.signum() != g1.signum() || g1 == 0.0 {
             break;
         }
-        x1 = if g0 > 0.0 { x1 / factor } else { x1 * factor };
+        let down = g0 > 0.0;
+        x1 = match step {
+            Step::Multiply if down => x1 / factor,
+            Step::Multiply => x1 * factor,
+            Step::Add(scale) if down => x1 - scale * (factor - 1.0),
+            Step::Add(scale) => x1 + scale * (factor - 1.0),
+        };
         g1 = g(x1);
         factor *= 1.5;
     }
+    let width = match step {
+        Step::Multiply => 0.0,
+        Step::Add(scale) => scale,
+    };
     if g0 == 0.0 {
         return x0;
     }
@@ -367,7 +479,7 @@ fn solve_increasing(f: &dyn Fn(f64) -> f64, target: f64, start: f64) -> f64 {
             0.5 * (low + high)
         };
         let gx = g(x);
-        if gx == 0.0 || (high - low) <= 1e-12 * high.abs() {
+        if gx == 0.0 || (high - low) <= 1e-12 * high.abs().max(width) {
             return x;
         }
         if gx < 0.0 {
@@ -425,6 +537,35 @@ pub trait Family: Sync {
     fn overdispersion_z(table: &PairTable, mean: f64) -> f64;
     /// Method-of-moments strength, or None if the moments show no overdispersion.
     fn moment_strength(table: &PairTable, mean: f64) -> Option<f64>;
+    /// The unit the fit measures strengths in, when it tells an interior
+    /// strength from no pooling or no overdispersion: 1 where the strength
+    /// is a number of trials or an exposure; the precision of a typical
+    /// group where it is a precision, which has the data's own scale.
+    fn strength_unit(_table: &PairTable) -> f64 {
+        1.0
+    }
+    /// A strength of the size of a typical group's data, where a fit starts
+    /// when the moments show no overdispersion: the largest group size.
+    fn typical_strength(table: &PairTable) -> f64 {
+        table.max_size().max(1.0)
+    }
+    /// The strengths a quadrature node of corrected intervals may take:
+    /// the range the fit itself tells apart (below it no pooling, above it
+    /// complete pooling), where the posterior's forms keep their digits.
+    fn node_strengths() -> (f64, f64) {
+        (1e-3, 1e12)
+    }
+    /// The whole-table term restricted maximum likelihood adds to the log
+    /// likelihood at `u`, with its derivatives; None for a model without a
+    /// restricted form.
+    fn restricted_term(_table: &PairTable, _u: [f64; 2]) -> Option<Evaluation> {
+        None
+    }
+    /// That term at the no-overdispersion boundary, and its derivative with
+    /// respect to φ = 1/strength there.
+    fn restricted_boundary(_table: &PairTable) -> Option<(f64, f64)> {
+        None
+    }
     /// Working coordinates of a prior mean and strength.
     fn working(mean: f64, strength: f64) -> [f64; 2];
     /// Prior mean and strength at working coordinates.
@@ -482,8 +623,14 @@ mod quadrature {
     fn the_solver_finds_a_quantile_from_either_side() {
         let cdf = |x: f64| 1.0 - (-x).exp();
         for start in [0.01, 1.0, 40.0] {
-            let x = solve_increasing(&cdf, 0.975, start);
+            let x = solve_increasing(&cdf, 0.975, start, Step::Multiply);
             assert!((x - 40f64.ln()).abs() < 1e-9, "{x} from {start}");
+        }
+        // Values of either sign: the logistic distribution's quantile ln(p/(1 − p)).
+        let logistic = |x: f64| 1.0 / (1.0 + (-x).exp());
+        for start in [-30.0, 0.0, 2.0] {
+            let x = solve_increasing(&logistic, 0.025, start, Step::Add(1.0));
+            assert!((x - (0.025f64 / 0.975).ln()).abs() < 1e-9, "{x} from {start}");
         }
     }
 }
