@@ -1,4 +1,4 @@
-"""Writes the two invented demo scenarios in demo-data/ (fixed seed).
+"""Writes the invented demo scenarios in demo-data/ (fixed seed).
 
 Run: python3 scripts/make_demo_data.py   (needs numpy)
 
@@ -16,6 +16,11 @@ returns.csv      about 40,000 invented orders, one row per order: the store,
 district_quarters.csv  the districts' cases and expected counts split over
                  four quarters (seed 20261203), one row per district per
                  quarter, for summing back per district (--aggregate).
+clinic_waits.csv  600 invented clinics' mean waiting times in minutes with
+                 their standard errors (seed 20261204): true means
+                 ~ Normal(24, 5^2); each clinic's mean is over its patients
+                 (3 to about 2,000, heavy-tailed), whose waits vary with
+                 sd 12, so the standard error is the sample sd over root n.
 No real people, sellers, brands or places are represented.
 """
 
@@ -80,6 +85,20 @@ def district_quarters():
     (OUT / "district_quarters.csv").write_text("\n".join(lines) + "\n")
 
 
+def clinic_waits():
+    rng = np.random.default_rng(20261204)
+    clinics = 600
+    truth = rng.normal(24.0, 5.0, size=clinics)
+    patients = np.minimum(3 + np.floor(rng.lognormal(3.0, 1.4, size=clinics)), 2000).astype(int)
+    lines = ["clinic_id,zone,patients,mean_wait_minutes,wait_se"]
+    for i in range(clinics):
+        n = patients[i]
+        waits = rng.normal(truth[i], 12.0, size=n)
+        se = waits.std(ddof=1) / np.sqrt(n)
+        lines.append(f"clinic-{i:03d},zone-{'abcd'[i % 4]},{n},{waits.mean():.2f},{se:.3f}")
+    (OUT / "clinic_waits.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
@@ -87,6 +106,7 @@ def main():
     districts(rng)
     returns()
     district_quarters()
+    clinic_waits()
 
 
 if __name__ == "__main__":

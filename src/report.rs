@@ -482,6 +482,12 @@ pub fn render_text(summary: &Summary) -> String {
         fit.converged,
         fit.boundary
     );
+    if let Some(restricted) = fit.restricted_log_likelihood {
+        let _ = writeln!(
+            out,
+            "  criterion    restricted likelihood (REML), maximised at {restricted:.4}; the pooling test compares restricted likelihoods"
+        );
+    }
     let test = &fit.overdispersion_test;
     let _ = writeln!(
         out,

@@ -20,7 +20,7 @@ use super::scoring::{
     ShiftGroups, ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::validate::{check_values, Rejection, SizeKind, MISSING_GROUP};
+use super::validate::{check_values, plain_estimate, Rejection, SizeKind, MISSING_GROUP};
 use super::{no_data_rows, no_valid_rows, roles, InvalidRows, Job, Model, PhaseClock};
 use crate::core::pairs::WeightedPair;
 use crate::error::{Error, Result};
@@ -81,9 +81,8 @@ impl<'a> BatchView<'a> {
     fn plainly_valid(&self, model: Model, row: usize) -> Option<(f64, f64)> {
         let kind = model.terms().size_kind;
         if kind == SizeKind::StandardError {
-            let estimate = self.counts.number(row).filter(|y| y.is_finite())?;
-            let se = self.sizes.number(row).filter(|&s| s > 0.0 && s.is_finite())?;
-            return Some((se, estimate));
+            let (estimate, se) = (self.counts.number(row)?, self.sizes.number(row)?);
+            return plain_estimate(estimate, se).then_some((se, estimate));
         }
         let count = self.counts.integer(row).filter(|k| (0..=MAX_EXACT).contains(k))?;
         let size = if kind.whole_sizes() {

@@ -71,23 +71,40 @@ fn exposure(cell: &Cell) -> Result<f64, String> {
     }
 }
 
-/// A finite number (an estimate).
-fn finite(cell: &Cell) -> Result<f64, String> {
-    match *cell {
-        Cell::Missing => Err("missing value".to_string()),
-        Cell::Text(ref t) => Err(format!("'{t}' is not a number")),
-        Cell::Integer(v) => Ok(v as f64),
-        Cell::Number(v) if !v.is_finite() => Err(format!("{v} is not a finite number")),
-        Cell::Number(v) => Ok(v),
+/// The largest magnitude of an estimate or a standard error, and the
+/// reciprocal the smallest standard error: beyond them their squares
+/// overflow or underflow a double.
+pub const MAX_MAGNITUDE: f64 = 1e150;
+
+/// A finite number (an estimate), within ±[`MAX_MAGNITUDE`].
+fn estimate(cell: &Cell) -> Result<f64, String> {
+    let value = match *cell {
+        Cell::Missing => return Err("missing value".to_string()),
+        Cell::Text(ref t) => return Err(format!("'{t}' is not a number")),
+        Cell::Integer(v) => v as f64,
+        Cell::Number(v) if !v.is_finite() => return Err(format!("{v} is not a finite number")),
+        Cell::Number(v) => v,
+    };
+    if value.abs() > MAX_MAGNITUDE {
+        return Err(format!("{value:e} is beyond ±1e150, where its square overflows"));
+    }
+    Ok(value)
+}
+
+/// A standard error above zero, from 1e-150 to 1e150.
+fn standard_error(cell: &Cell) -> Result<f64, String> {
+    match estimate(cell)? {
+        v if v <= 0.0 => Err(format!("standard error {v} is not above zero")),
+        v if v < 1.0 / MAX_MAGNITUDE => {
+            Err(format!("standard error {v:e} is below 1e-150, where its square underflows"))
+        }
+        v => Ok(v),
     }
 }
 
-/// A finite standard error above zero.
-fn standard_error(cell: &Cell) -> Result<f64, String> {
-    match finite(cell)? {
-        v if v > 0.0 => Ok(v),
-        v => Err(format!("standard error {v} is not above zero")),
-    }
+/// Whether an estimate and a standard error as read are plainly valid.
+pub fn plain_estimate(estimate: f64, se: f64) -> bool {
+    estimate.abs() <= MAX_MAGNITUDE && (1.0 / MAX_MAGNITUDE..=MAX_MAGNITUDE).contains(&se)
 }
 
 /// The reason given for a row without a group id.
@@ -108,7 +125,7 @@ pub fn check_values<'a>(
     }
     .map_err(|reason| (names.size.as_str(), reason))?;
     let count = match kind {
-        SizeKind::StandardError => finite(count_cell),
+        SizeKind::StandardError => estimate(count_cell),
         _ => whole_count(count_cell),
     }
     .map_err(|reason| (names.count.as_str(), reason))?;
@@ -198,6 +215,12 @@ mod tests {
         assert_eq!(check(Cell::Number(f64::NAN), Cell::Number(1.0)).unwrap_err().0, "k");
         assert_eq!(check(Cell::Missing, Cell::Number(1.0)).unwrap_err().0, "k");
         assert!(check(Cell::Number(1.0), Cell::Number(0.0)).unwrap_err().1.contains("not above zero"));
+        assert!(check(Cell::Number(1.0), Cell::Number(1e-200)).unwrap_err().1.contains("underflows"));
+        assert!(check(Cell::Number(1.0), Cell::Number(1e200)).unwrap_err().1.contains("overflows"));
+        assert!(check(Cell::Number(-1e151), Cell::Number(1.0)).unwrap_err().1.contains("overflows"));
+        assert!(
+            plain_estimate(-1e150, 1e-150) && !plain_estimate(1e151, 1.0) && !plain_estimate(1.0, 1e-151)
+        );
     }
 
     #[test]

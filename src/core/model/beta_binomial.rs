@@ -354,36 +354,12 @@ impl Posterior {
 mod tests {
     use super::*;
 
-    fn central_difference(u: [f64; 2], pair: &WeightedPair, i: usize) -> ([f64; 2], f64) {
-        let h = 1e-5;
-        let mut up = u;
-        let mut down = u;
-        up[i] += h;
-        down[i] -= h;
-        let (eu, ed) = (BetaBinomial::pair_terms(up, pair), BetaBinomial::pair_terms(down, pair));
-        let grad_row =
-            [(eu.gradient[0] - ed.gradient[0]) / (2.0 * h), (eu.gradient[1] - ed.gradient[1]) / (2.0 * h)];
-        (grad_row, (eu.log_likelihood - ed.log_likelihood) / (2.0 * h))
-    }
-
     #[test]
     fn derivatives_match_finite_differences() {
-        for &(n, k) in &[(12.0, 5.0), (300.0, 7.0), (40.0, 40.0), (1.0, 0.0)] {
-            let pair = WeightedPair { size: n, count: k, weight: 1.0 };
-            for &u in &[[0.3, 1.5], [-2.0, 4.0], [1.0, -0.5]] {
-                let e = BetaBinomial::pair_terms(u, &pair);
-                for i in 0..2 {
-                    let (hess_row, grad) = central_difference(u, &pair, i);
-                    assert!(
-                        (e.gradient[i] - grad).abs() < 1e-6 * (1.0 + grad.abs()),
-                        "g{i} n={n} k={k} u={u:?}"
-                    );
-                    for (j, fd) in hess_row.iter().enumerate() {
-                        assert!((e.hessian[j][i] - fd).abs() < 1e-5 * (1.0 + fd.abs()));
-                    }
-                }
-            }
-        }
+        super::super::assert_derivatives_match::<BetaBinomial>(
+            &[(12.0, 5.0), (300.0, 7.0), (40.0, 40.0), (1.0, 0.0)],
+            &[[0.3, 1.5], [-2.0, 4.0], [1.0, -0.5]],
+        );
     }
 
     #[test]

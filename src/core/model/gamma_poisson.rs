@@ -273,26 +273,10 @@ mod tests {
 
     #[test]
     fn derivatives_match_finite_differences() {
-        let h = 1e-5;
-        for &(e, y) in &[(2.5, 3.0), (0.01, 0.0), (400.0, 250.0), (1.0, 40.0)] {
-            let pair = WeightedPair { size: e, count: y, weight: 1.0 };
-            for &u in &[[0.1, 0.5], [-1.0, 3.0], [0.5, -1.0]] {
-                let at = GammaPoisson::pair_terms(u, &pair);
-                for i in 0..2 {
-                    let (mut up, mut down) = (u, u);
-                    up[i] += h;
-                    down[i] -= h;
-                    let (eu, ed) =
-                        (GammaPoisson::pair_terms(up, &pair), GammaPoisson::pair_terms(down, &pair));
-                    let g = (eu.log_likelihood - ed.log_likelihood) / (2.0 * h);
-                    assert!((at.gradient[i] - g).abs() < 1e-6 * (1.0 + g.abs()), "g{i} e={e} y={y} u={u:?}");
-                    for j in 0..2 {
-                        let hij = (eu.gradient[j] - ed.gradient[j]) / (2.0 * h);
-                        assert!((at.hessian[j][i] - hij).abs() < 1e-5 * (1.0 + hij.abs()));
-                    }
-                }
-            }
-        }
+        super::super::assert_derivatives_match::<GammaPoisson>(
+            &[(2.5, 3.0), (0.01, 0.0), (400.0, 250.0), (1.0, 40.0)],
+            &[[0.1, 0.5], [-1.0, 3.0], [0.5, -1.0]],
+        );
     }
 
     #[test]

@@ -605,6 +605,38 @@ pub trait Family: Sync {
     fn raw_rate_variance(prior: &Prior, size: f64) -> f64;
 }
 
+/// Checks a family's per-pair gradient and Hessian against central
+/// differences of its log pmf and gradient, at each (size, count) pair and
+/// each point u.
+#[cfg(test)]
+pub(crate) fn assert_derivatives_match<F: Family>(pairs: &[(f64, f64)], points: &[[f64; 2]]) {
+    let h = 1e-5;
+    for &(size, count) in pairs {
+        let pair = WeightedPair { size, count, weight: 1.0 };
+        for &u in points {
+            let at = F::pair_terms(u, &pair);
+            for i in 0..2 {
+                let (mut up, mut down) = (u, u);
+                up[i] += h;
+                down[i] -= h;
+                let (eu, ed) = (F::pair_terms(up, &pair), F::pair_terms(down, &pair));
+                let g = (eu.log_likelihood - ed.log_likelihood) / (2.0 * h);
+                assert!(
+                    (at.gradient[i] - g).abs() < 1e-6 * (1.0 + g.abs()),
+                    "g{i} at {size}, {count}, u = {u:?}"
+                );
+                for j in 0..2 {
+                    let hij = (eu.gradient[j] - ed.gradient[j]) / (2.0 * h);
+                    assert!(
+                        (at.hessian[j][i] - hij).abs() < 1e-5 * (1.0 + hij.abs()),
+                        "h{j}{i} at {size}, {count}"
+                    );
+                }
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod quadrature {
     use super::*;

@@ -297,26 +297,10 @@ mod tests {
 
     #[test]
     fn derivatives_match_finite_differences() {
-        let h = 1e-5;
-        for &(s, y) in &[(0.5, 1.3), (2.0, -4.0), (0.01, 0.02), (10.0, 30.0)] {
-            let pair = WeightedPair { size: s, count: y, weight: 1.0 };
-            for &u in &[[0.1, 0.5], [-1.0, 3.0], [0.5, -2.0]] {
-                let at = NormalNormal::pair_terms(u, &pair);
-                for i in 0..2 {
-                    let (mut up, mut down) = (u, u);
-                    up[i] += h;
-                    down[i] -= h;
-                    let (eu, ed) =
-                        (NormalNormal::pair_terms(up, &pair), NormalNormal::pair_terms(down, &pair));
-                    let g = (eu.log_likelihood - ed.log_likelihood) / (2.0 * h);
-                    assert!((at.gradient[i] - g).abs() < 1e-6 * (1.0 + g.abs()), "g{i} s={s} y={y} u={u:?}");
-                    for j in 0..2 {
-                        let hij = (eu.gradient[j] - ed.gradient[j]) / (2.0 * h);
-                        assert!((at.hessian[j][i] - hij).abs() < 1e-5 * (1.0 + hij.abs()));
-                    }
-                }
-            }
-        }
+        super::super::assert_derivatives_match::<NormalNormal>(
+            &[(0.5, 1.3), (2.0, -4.0), (0.01, 0.02), (10.0, 30.0)],
+            &[[0.1, 0.5], [-1.0, 3.0], [0.5, -2.0]],
+        );
     }
 
     #[test]
