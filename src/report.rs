@@ -135,6 +135,9 @@ pub struct SegmentReport {
     pub pull: PullReport,
     /// Why it took the all-groups prior; null when it has its own.
     pub fallback: Option<String>,
+    /// Does the prior it was scored with fit its groups (its own checks)?
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub checks: Option<ChecksReport>,
 }
 
 /// A likelihood-ratio test of one prior for all groups against one per segment.

@@ -55,6 +55,8 @@ pub struct SegmentScore {
     pub pull: Pull,
     /// Why it took the all-groups prior, when it did.
     pub fallback: Option<String>,
+    /// Does the prior it was scored with fit its groups?
+    pub checks: ChecksReport,
 }
 
 /// The priors in use, how they were obtained, and each pair's posterior.
@@ -370,7 +372,17 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
             .into_iter()
             .zip(choices)
             .zip(&ranges)
-            .map(|((segment, choice), range)| {
+            .enumerate()
+            .map(|(place, ((segment, choice), range))| {
+                // The segment's own checks: its pairs under the prior it was scored with.
+                let own_places = vec![0; range.len()];
+                let checks = model_checks::<F>(
+                    job,
+                    &all_pairs[range.clone()],
+                    &segment.table,
+                    std::slice::from_ref(&priors[place]),
+                    &own_places,
+                );
                 let mut pull =
                     pull_of_pairs(F::TERMS.size_kind, &all_pairs[range.clone()], &posteriors[range.clone()]);
                 pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
@@ -387,12 +399,20 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
                     fit,
                     pull,
                     fallback,
+                    checks,
                 }
             })
             .collect()
     } else {
         Vec::new()
     };
+    let poor = scores.iter().filter(|s| s.checks.verdict != "fits").count();
+    if poor > 0 {
+        warnings.push(format!(
+            "the prior does not describe the groups of {poor} of {} segments well (their calibration p-value is below 0.001; the summary's segments hold each one's checks): look at those segments for mixed kinds of group",
+            scores.len()
+        ));
+    }
     let fallbacks = scores.iter().filter(|s| s.fallback.is_some()).count();
     if fallbacks > 0 {
         warnings.push(format!(

@@ -303,6 +303,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             fit: segment.fit.clone(),
             pull: pull_report(&segment.pull, shift_group),
             fallback: segment.fallback.clone(),
+            checks: Some(segment.checks.clone()),
         })
         .collect();
     Summary {

@@ -50,6 +50,36 @@ fn a_bimodal_input_is_a_poor_fit_and_says_what_to_do() {
 }
 
 #[test]
+fn each_segment_is_checked_under_its_own_prior() {
+    // Segment "mixed" holds the bimodal rates, segment "plain" rates from one Beta.
+    let dir = tempfile::tempdir().unwrap();
+    let (low, high) = (Beta::new(60.0, 140.0).unwrap(), Beta::new(140.0, 60.0).unwrap());
+    let plain = Beta::new(3.0, 12.0).unwrap();
+    let mixed = groups(21, 1500, |i, rng| if i % 2 == 0 { low.sample(rng) } else { high.sample(rng) });
+    let single = groups(22, 1500, |_, rng| plain.sample(rng));
+    let mut text = String::from("id,k,n,kind\n");
+    for (kind, rows) in [("mixed", &mixed), ("plain", &single)] {
+        for line in rows.lines().skip(1) {
+            text.push_str(&format!("{kind}-{line},{kind}\n"));
+        }
+    }
+    write(dir.path(), "segments.csv", &text);
+    let (s, printed) = fit(dir.path(), "segments.csv", &["--by", "kind"]);
+    let verdicts: Vec<(&str, &str)> = s["segments"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|seg| (seg["key"]["kind"].as_str().unwrap(), seg["checks"]["verdict"].as_str().unwrap()))
+        .collect();
+    assert!(verdicts.contains(&("mixed", "poor fit")), "{verdicts:?}");
+    assert!(verdicts.contains(&("plain", "fits")), "{verdicts:?}");
+    for seg in s["segments"].as_array().unwrap() {
+        assert_eq!(seg["checks"]["calibration"]["groups"], 1500);
+    }
+    assert!(printed.contains("1 of 2 segments"), "{printed}");
+}
+
+#[test]
 fn well_specified_inputs_pass_at_the_stated_false_alarm_rate() {
     // 40 inputs drawn from the beta-binomial model itself: at p < 0.001 the
     // chance of two or more alarms is below 0.001 (binomial, 40 trials).
