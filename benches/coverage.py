@@ -12,7 +12,12 @@ the all-groups prior; those are left out and counted. Coverage is the share
 of true rates inside their interval: the empirical-Bayes coverage,
 averaged over the prior.
 
-usage: python3 benches/coverage.py [path/to/ratepool] > benches/results/coverage.txt
+With MODEL=normal-normal (or normal-normal-reml, the restricted likelihood)
+the data sets are drawn from N(0, 1) with standard errors drawn from 0.25,
+0.5, 1, 2 and 4 (three in five at 1 or more, the noisy groups that stand in
+for the small ones), the same cells and seed.
+
+usage: [MODEL=...] python3 benches/coverage.py [path/to/ratepool] > benches/results/coverage.txt
 """
 import csv
 import os
@@ -26,12 +31,21 @@ RATEPOOL = sys.argv[1] if len(sys.argv) > 1 else "target/release/ratepool"
 SIZES = np.array([1, 2, 3, 5, 8, 13, 30, 100])
 CELLS = [20, 50, 200, 1000]
 DATA_SETS = 1000
+MODEL = os.environ.get("MODEL", "beta-binomial")
+NORMAL = MODEL.startswith("normal-normal")
+SES = np.array([0.25, 0.5, 1.0, 2.0, 4.0])
 rng = np.random.default_rng(20261204)
 
 
 def run(path, out, intervals):
-    subprocess.run([RATEPOOL, "--quiet", "fit", "--model", "beta-binomial", "--input", path, "--group", "id",
-                    "--successes", "k", "--trials", "n", "--by", "dataset", "--min-groups", "1",
+    if NORMAL:
+        model = ["--model", "normal-normal", "--estimate", "k", "--std-error", "n"]
+        if MODEL.endswith("reml"):
+            model += ["--variance-method", "reml"]
+    else:
+        model = ["--model", "beta-binomial", "--successes", "k", "--trials", "n"]
+    subprocess.run([RATEPOOL, "--quiet", "fit", *model, "--input", path, "--group", "id",
+                    "--by", "dataset", "--min-groups", "1",
                     "--intervals", intervals, "--output", out], check=True, stderr=subprocess.DEVNULL)
     rows = {}
     with open(out) as f:
@@ -41,8 +55,13 @@ def run(path, out, intervals):
     return rows
 
 
-print(f"prior Beta(2, 18); sizes {list(SIZES)}; {DATA_SETS} data sets per cell; seed 20261204")
-print(f"{'groups':>7} {'kept':>5}  {'plug-in <10':>11} {'corrected <10':>13}  {'plug-in all':>11} {'corrected all':>13}"
+if NORMAL:
+    print(f"{MODEL}: prior N(0, 1); standard errors {[float(x) for x in SES]}; {DATA_SETS} data sets per cell; seed 20261204")
+    print(f"{'groups':>7} {'kept':>5}  {'plug-in se>=1':>11} {'corrected se>=1':>13}  {'plug-in all':>11} {'corrected all':>13}"
+          f"  {'pooled':>7}  {'interior: plug-in':>10} {'corrected':>12}")
+else:
+    print(f"prior Beta(2, 18); sizes {list(SIZES)}; {DATA_SETS} data sets per cell; seed 20261204")
+    print(f"{'groups':>7} {'kept':>5}  {'plug-in <10':>11} {'corrected <10':>13}  {'plug-in all':>11} {'corrected all':>13}"
       f"  {'pooled':>7}  {'interior: plug-in':>10} {'corrected':>12}")
 with tempfile.TemporaryDirectory() as tmp:
     for groups in CELLS:
@@ -51,12 +70,20 @@ with tempfile.TemporaryDirectory() as tmp:
         with open(path, "w") as f:
             f.write("id,dataset,k,n\n")
             for d in range(DATA_SETS):
-                theta = rng.beta(2.0, 18.0, size=groups)
-                n = rng.choice(SIZES, size=groups)
-                k = rng.binomial(n, theta)
+                if NORMAL:
+                    theta = rng.normal(0.0, 1.0, size=groups)
+                    n = rng.choice(SES, size=groups)
+                    k = rng.normal(theta, n)
+                    # "Small" below means noisy: a standard error of 1 or more.
+                    small = 9.99 / n
+                else:
+                    theta = rng.beta(2.0, 18.0, size=groups)
+                    n = rng.choice(SIZES, size=groups)
+                    k = rng.binomial(n, theta)
+                    small = n
                 for i in range(groups):
                     gid = f"d{d}g{i}"
-                    truth[gid] = (theta[i], n[i], d)
+                    truth[gid] = (theta[i], small[i], d)
                     f.write(f"{gid},d{d},{k[i]},{n[i]}\n")
         plug = run(path, os.path.join(tmp, "plug.csv"), "plug-in")
         corrected = run(path, os.path.join(tmp, "corrected.csv"), "corrected")
