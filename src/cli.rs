@@ -50,6 +50,28 @@ pub enum Command {
     Fit(FitArgs),
     /// Score groups with a prior saved by an earlier fit, without refitting.
     Score(ScoreArgs),
+    /// Write the HTML report of a run from its output table and summary.
+    Report(ReportArgs),
+}
+
+/// Options of `report`.
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    /// The run's output table (.csv or .parquet).
+    #[arg(long)]
+    pub table: PathBuf,
+    /// The run's summary file.
+    #[arg(long)]
+    pub summary: PathBuf,
+    /// The HTML file to write (one self-contained page).
+    #[arg(long)]
+    pub output: PathBuf,
+    /// Also write each plot as its own SVG file into this folder.
+    #[arg(long, value_name = "FOLDER")]
+    pub plots: Option<PathBuf>,
+    /// Seed of the samples drawn for the scatter plots.
+    #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
+    pub seed: u64,
 }
 
 /// What to do with invalid rows.
@@ -129,6 +151,13 @@ pub struct TableArgs {
     /// Summary file (JSON), written last.
     #[arg(long)]
     pub summary: Option<PathBuf>,
+    /// Also write the HTML report of the run (read back from the output table, after the
+    /// table and summary are written).
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
+    /// With --report, also write each plot as its own SVG file into this folder.
+    #[arg(long, value_name = "FOLDER", requires = "report")]
+    pub plots: Option<PathBuf>,
     /// Add `prob_above`: each group's posterior probability that its rate exceeds T (a
     /// proportion for the beta-binomial; for standardised ratios T = 1 asks whether the
     /// relative risk exceeds one).
@@ -274,6 +303,8 @@ fn refuse_overlaps(table: &TableArgs, prior: Option<&PathBuf>) -> Result<()> {
         ("--summary", &table.summary),
         ("--rejects", &table.rejects),
         ("--pair-output", &table.pair_output),
+        ("--report", &table.report),
+        ("--plots", &table.plots),
     ]
     .into_iter()
     .filter_map(|(option, path)| path.as_deref().map(|path| RunPath { option, path }))
@@ -518,6 +549,7 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
             (table.group.is_some(), "--group"),
             (table.output.is_some(), "--output"),
             (table.on_invalid == InvalidArg::Skip, "--on-invalid skip"),
+            (table.report.is_some(), "--report"),
         ];
         if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
             return Err(Error::Usage(format!("{flag} does not apply to a pair table (--pair-counts)")));
@@ -536,10 +568,56 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
     Ok((group, layout))
 }
 
+/// Writes the HTML report of `report` from its table and summary.
+fn run_report(args: &ReportArgs) -> Result<()> {
+    let inputs = [
+        RunPath { option: "--table", path: &args.table },
+        RunPath { option: "--summary", path: &args.summary },
+    ];
+    let mut outputs = vec![RunPath { option: "--output", path: &args.output }];
+    outputs.extend(args.plots.as_deref().map(|path| RunPath { option: "--plots", path }));
+    crate::io::overlap::refuse_overlaps(&inputs, &outputs)?;
+    let summary = load_summary(&args.summary)?;
+    crate::view::write_report(&crate::view::ReportRequest {
+        table: &args.table,
+        summary: &summary,
+        output: &args.output,
+        plots: args.plots.as_deref(),
+        seed: args.seed,
+    })
+}
+
 impl Command {
+    /// Runs the command: a fit or a score (with its report when asked for),
+    /// or a report of an earlier run. Returns the summary of a fit or score.
+    pub fn execute(self, reporting: Reporting) -> Result<Option<crate::report::Summary>> {
+        let table = match &self {
+            Command::Report(args) => return run_report(args).map(|()| None),
+            Command::Fit(args) => &args.table,
+            Command::Score(args) => &args.table,
+        };
+        let report = table.report.clone().map(|html| (html, table.plots.clone()));
+        let job = self.into_job(reporting)?;
+        let summary = crate::pipeline::run(&job)?;
+        if let (Some((html, plots)), Layout::Groups { output, .. }) = (report, &job.layout) {
+            crate::view::write_report(&crate::view::ReportRequest {
+                table: output,
+                summary: &summary,
+                output: &html,
+                plots: plots.as_deref(),
+                seed: job.seed,
+            })
+            .map_err(|e| {
+                Error::Other(format!("the table and summary were written, but not the report: {e}"))
+            })?;
+        }
+        Ok(Some(summary))
+    }
+
     /// Validates the arguments into a job (reading the prior file for `score`).
     pub fn into_job(self, report: Reporting) -> Result<Job> {
         match self {
+            Command::Report(_) => Err(Error::Usage("report runs no fit".to_string())),
             Command::Fit(args) => {
                 refuse_overlaps(&args.table, None)?;
                 let likelihood = match args.variance_method {
@@ -597,6 +675,7 @@ mod tests {
                 .map(|cli| match cli.command {
                     Command::Fit(args) => args.table,
                     Command::Score(args) => args.table,
+                    Command::Report(_) => unreachable!("a fit was parsed"),
                 })
                 .expect("parses"),
         )

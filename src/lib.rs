@@ -1,14 +1,16 @@
 //! ratepool: empirical-Bayes shrinkage of rates over many groups.
 //!
 //! One prior is fitted to all groups by maximum marginal likelihood, a Beta
-//! prior for proportions (beta-binomial) or a Gamma prior for event rates with
-//! exposure (gamma-Poisson), and each group gets its conjugate posterior.
+//! prior for proportions (beta-binomial), a Gamma prior for event rates with
+//! exposure (gamma-Poisson) or a normal prior for estimates with known
+//! standard errors (normal-normal), and each group gets its conjugate posterior.
 //!
 //! Layers, each depending only on those before it:
 //! * [`core`]: pure numerics (special functions, models, fit, posteriors).
 //! * [`io`]: reading and writing tables (CSV, Parquet through arrow-rs), in batches, atomically.
 //! * [`pipeline`]: validation, pair aggregation, fit and scoring, end to end.
 //! * [`report`]: the JSON summary (wire types) and the terminal text.
+//! * [`view`]: the HTML report of a run, from its output table and summary.
 //!
 //! ```
 //! use ratepool::core::fit::fit;
@@ -29,3 +31,4 @@ pub mod error;
 pub mod io;
 pub mod pipeline;
 pub mod report;
+pub mod view;

@@ -13,10 +13,9 @@ fn run(cli: Cli) -> ratepool::error::Result<()> {
             .map_err(|e| ratepool::error::Error::Other(format!("cannot start {threads} threads: {e}")))?;
     }
     let quiet = cli.quiet;
-    let job = cli.command.into_job(Reporting { timings: cli.timings, progress: cli.progress })?;
-    let summary = ratepool::pipeline::run(&job)?;
+    let summary = cli.command.execute(Reporting { timings: cli.timings, progress: cli.progress })?;
     // --quiet leaves only errors on the terminal; the warnings stay in the summary file.
-    if !quiet {
+    if let (false, Some(summary)) = (quiet, summary) {
         for warning in &summary.warnings {
             eprintln!("ratepool: warning: {warning}");
         }

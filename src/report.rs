@@ -51,8 +51,26 @@ pub struct Summary {
     /// How `prob_top` was computed, when asked for.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub top: Option<TopReport>,
+    /// The input's column names, as the output table carries them; null
+    /// in files from before they were recorded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub columns: Option<ColumnsReport>,
+    /// "highest-first" or "lowest-first" with ranks; null without.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub rank_order: Option<String>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// The names of the group, count and size columns of a run.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ColumnsReport {
+    /// The group id column.
+    pub group: String,
+    /// The count column (successes, events or estimates).
+    pub count: String,
+    /// The size column (trials, exposure or standard errors).
+    pub size: String,
 }
 
 /// Checks of the model against the data scored.

@@ -26,9 +26,13 @@ impl AtomicFile {
             Some(p) if !p.as_os_str().is_empty() => p,
             _ => Path::new("."),
         };
-        let temporary = tempfile::Builder::new()
-            .prefix(".ratepool-")
-            .suffix(".partial")
+        let mut builder = tempfile::Builder::new();
+        builder.prefix(".ratepool-").suffix(".partial");
+        // Outputs are for other tools and users: created like any new file
+        // (0666 less the umask), not private as temporary files are (0600).
+        #[cfg(unix)]
+        builder.permissions(std::os::unix::fs::PermissionsExt::from_mode(0o666));
+        let temporary = builder
             .tempfile_in(folder)
             .map_err(|e| Error::io(format!("cannot create a file in {}", folder.display()), e))?;
         Ok(AtomicFile { temporary, target: target.to_path_buf() })

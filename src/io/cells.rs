@@ -113,6 +113,13 @@ impl NumericColumn {
     }
 }
 
+/// Any numeric or text column as 64-bit floats, text parsed as decimal
+/// numbers (a value that is not one, or missing, is null): for reading back
+/// tables this crate wrote.
+pub fn float_column(array: &ArrayRef) -> Result<Float64Array> {
+    Ok(cast(array, &DataType::Float64)?.as_primitive::<Float64Type>().clone())
+}
+
 /// Text that is a plain decimal integer (optional sign, digits, at most 18
 /// of them so it cannot overflow): the common case, parsed without
 /// allocating. Anything else is left to the full check.

@@ -13,7 +13,9 @@ use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns, Metadata, PairColumns, PairValues};
-use crate::report::{FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport};
+use crate::report::{
+    ColumnsReport, FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport,
+};
 use arrow_array::ArrayRef;
 
 /// The output columns after the group column, each as its value per pair
@@ -340,6 +342,18 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             bound: rule.bound,
             groups_flagged: flags.groups_flagged as u64,
             expected_false_flags: flags.expected_false,
+        }),
+        columns: Some(ColumnsReport {
+            group: job.columns.group.clone(),
+            count: job.columns.count.clone(),
+            size: job.columns.size.clone(),
+        }),
+        rank_order: job.ranks.map(|order| {
+            match order {
+                RankOrder::HighestFirst => "highest-first",
+                RankOrder::LowestFirst => "lowest-first",
+            }
+            .to_string()
         }),
         top: job.top.zip(scored.prob_top.as_ref()).map(|(rule, (_, method))| TopReport {
             k: rule.k as u64,

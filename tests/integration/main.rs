@@ -17,6 +17,7 @@ mod output;
 mod producers;
 mod properties;
 mod reference;
+mod report;
 mod scale;
 mod segments;
 mod util;

@@ -181,3 +181,21 @@ fn a_pair_output_naming_another_file_of_the_run_is_refused() {
     let args = fit("g.csv", &["--output", "o.csv", "--pair-output", "g.csv"]);
     assert_clobber_refused(dir.path(), &args, ["--input", "--pair-output"]);
 }
+
+#[cfg(unix)]
+#[test]
+fn outputs_are_created_like_any_new_file_readable_by_other_tools() {
+    // A temporary file is private (0600); an output is not: it takes 0666
+    // less the umask, as a file made by File::create does.
+    use std::os::unix::fs::PermissionsExt;
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", GOOD);
+    let out = ratepool(dir.path(), &fit("in.csv", &["--output", "out.parquet", "--summary", "s.json"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let plain = dir.path().join("plain");
+    std::fs::File::create(&plain).unwrap();
+    let mode = |name: &str| std::fs::metadata(dir.path().join(name)).unwrap().permissions().mode() & 0o777;
+    for name in ["out.parquet", "s.json"] {
+        assert_eq!(mode(name), mode("plain"), "{name}");
+    }
+}

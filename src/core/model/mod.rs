@@ -273,6 +273,37 @@ pub enum RateLaw {
     Point(f64),
 }
 
+impl RateLaw {
+    /// The law's density at `x` (0 outside its support; infinite at a point mass's point).
+    pub fn density(&self, x: f64) -> f64 {
+        use crate::core::special::ln_gamma;
+        match *self {
+            RateLaw::Beta { alpha, beta } if x > 0.0 && x < 1.0 => {
+                let ln_norm = ln_gamma(alpha) + ln_gamma(beta) - ln_gamma(alpha + beta);
+                ((alpha - 1.0) * x.ln() + (beta - 1.0) * (-x).ln_1p() - ln_norm).exp()
+            }
+            RateLaw::Gamma { shape, rate } if x > 0.0 => {
+                (shape * rate.ln() + (shape - 1.0) * x.ln() - rate * x - ln_gamma(shape)).exp()
+            }
+            RateLaw::Normal { mean, sd } => {
+                let z = (x - mean) / sd;
+                (-0.5 * z * z).exp() / (sd * (2.0 * std::f64::consts::PI).sqrt())
+            }
+            RateLaw::Point(at) if x == at => f64::INFINITY,
+            _ => 0.0,
+        }
+    }
+
+    /// The law of a prior of `model` with natural parameters `natural`.
+    pub fn of_prior(model: Model, natural: [f64; 2]) -> Self {
+        match model.terms().size_kind {
+            SizeKind::Trials => RateLaw::Beta { alpha: natural[0], beta: natural[1] },
+            SizeKind::Exposure => RateLaw::Gamma { shape: natural[0], rate: natural[1] },
+            SizeKind::StandardError => RateLaw::Normal { mean: natural[0], sd: natural[1].sqrt() },
+        }
+    }
+}
+
 /// What is known of the uncertainty of the fitted prior: the covariance of
 /// the working coordinates of an interior fit, or the variance of the
 /// pooled mean at complete pooling.
@@ -649,6 +680,18 @@ mod quadrature {
         for (p, want) in [(0, 1.0), (2, 1.0), (4, 3.0), (6, 15.0), (12, 10395.0)] {
             assert!((moment(p) - want).abs() < 1e-9 * want, "E[Z^{p}] = {}", moment(p));
         }
+    }
+
+    #[test]
+    fn densities_are_the_textbook_ones() {
+        // Beta(2, 3): 12 x (1 − x)²; Gamma(2, rate 3): 9 x e^(−3x); N(1, 2²) at 1: 1/(2√(2π))
+        // (textbook forms, common practice).
+        let close = |a: f64, b: f64| (a - b).abs() < 1e-13 * b.abs().max(1e-300);
+        assert!(close(RateLaw::Beta { alpha: 2.0, beta: 3.0 }.density(0.3), 12.0 * 0.3 * 0.49));
+        assert!(close(RateLaw::Gamma { shape: 2.0, rate: 3.0 }.density(0.5), 9.0 * 0.5 * (-1.5f64).exp()));
+        let peak = 1.0 / (2.0 * (2.0 * std::f64::consts::PI).sqrt());
+        assert!(close(RateLaw::Normal { mean: 1.0, sd: 2.0 }.density(1.0), peak));
+        assert_eq!(RateLaw::Beta { alpha: 2.0, beta: 3.0 }.density(1.5), 0.0);
     }
 
     #[test]

@@ -1,0 +1,31 @@
+#!/usr/bin/env bash
+# Checks the HTML report in a real browser on a clean machine: installs
+# Debian's chromium (when missing) and playwright-core (pinned in
+# scripts/browser/package-lock.json), writes reports of the demo data (a plain
+# fit with flags and ranks, the normal model, and a segmented fit through
+# `ratepool report`), opens each headless, screenshots every plot into
+# SCREENSHOTS (default target/report-check), and fails when a plot is missing
+# or empty or the page logs an error.
+#
+# usage: bash scripts/check_report_in_browser.sh [SCREENSHOTS]
+set -euo pipefail
+cd "$(dirname "$0")/.."
+shots="${1:-target/report-check}"
+if ! command -v chromium >/dev/null; then
+  apt-get update -qq && apt-get install -y -qq chromium >/dev/null
+fi
+(cd scripts/browser && npm ci --no-audit --no-fund --silent)
+cargo build --quiet --locked
+bin="${CARGO_TARGET_DIR:-target}/debug/ratepool"
+work="$(mktemp -d)"
+trap 'rm -rf "$work"' EXIT
+"$bin" --quiet fit --input demo-data/districts.csv --model gamma-poisson --group district_id \
+  --events observed_cases --exposure expected_cases --above 1 --flag-fdr 0.1 --ranks \
+  --output "$work/districts.parquet" --summary "$work/districts.json" --report "$work/districts.html"
+"$bin" --quiet fit --input demo-data/clinic_waits.csv --model normal-normal --group clinic_id \
+  --estimate mean_wait_minutes --std-error wait_se --above 30 --flag-fdr 0.1 --rank-lowest-first \
+  --output "$work/clinics.csv" --summary "$work/clinics.json" --report "$work/clinics.html"
+"$bin" --quiet fit --input demo-data/returns.csv --model beta-binomial --group store_id --outcome returned \
+  --by store_kind --ranks --output "$work/returns.parquet" --summary "$work/returns.json"
+"$bin" report --table "$work/returns.parquet" --summary "$work/returns.json" --output "$work/returns.html"
+node scripts/browser/check_report.mjs "$shots" "$work/districts.html" "$work/clinics.html" "$work/returns.html"

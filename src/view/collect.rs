@@ -1,0 +1,377 @@
+//! One pass over a run's output table, keeping what the report shows in
+//! bounded memory whatever the number of groups: a seeded sample for the
+//! scatter plots, the few groups each table lists, and histograms.
+
+use crate::core::model::{Model, SizeKind};
+use crate::error::{Error, Result};
+use crate::io::cells::{float_column, GroupColumn};
+use crate::io::input::Input;
+use crate::report::Summary;
+use arrow_array::{Array, Float64Array};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use std::collections::HashMap;
+use std::path::Path;
+
+/// Groups drawn for the scatter plots (and per segment, a quarter of it).
+pub const SAMPLE: usize = 4000;
+/// Well-measured groups drawn for the histogram of raw rates.
+const RAW_SAMPLE: usize = 100_000;
+/// Rows each table lists.
+pub const LISTED: usize = 15;
+/// A group is well measured when its own data carry at least 80% of its posterior mean.
+pub const WELL_MEASURED: f64 = 0.2;
+/// Bins of the pool-weight histogram over [0, 1].
+pub const POOL_BINS: usize = 20;
+
+/// One group as the report shows it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupRow {
+    /// Its id.
+    pub id: String,
+    /// Trials, exposure or standard error.
+    pub size: f64,
+    /// Successes, events or estimate.
+    pub count: f64,
+    /// The raw rate (or estimate); None without trials or exposure.
+    pub raw: Option<f64>,
+    /// Posterior mean.
+    pub mean: f64,
+    /// Interval ends.
+    pub lower: f64,
+    /// Upper interval end.
+    pub upper: f64,
+    /// Pool weight.
+    pub pool_weight: f64,
+    /// The posterior probability of the flagged event, with flags.
+    pub event_probability: Option<f64>,
+    /// Flagged under the run's false-discovery bound.
+    pub flagged: bool,
+    /// Its segment's place in the summary's segments (0 without segments).
+    pub segment: usize,
+}
+
+/// Keeps the `n` rows with the largest keys, first come first kept on ties.
+#[derive(Debug, Default)]
+pub struct Best {
+    n: usize,
+    rows: Vec<(f64, GroupRow)>,
+}
+
+impl Best {
+    fn new(n: usize) -> Self {
+        Best { n, rows: Vec::with_capacity(n + 1) }
+    }
+
+    /// Whether a row of this key would be kept (so it is built only then).
+    fn wants(&self, key: f64) -> bool {
+        key.is_finite() && (self.rows.len() < self.n || key > self.rows[self.rows.len() - 1].0)
+    }
+
+    fn offer(&mut self, key: f64, row: GroupRow) {
+        let at = self.rows.partition_point(|(k, _)| *k >= key);
+        self.rows.insert(at, (key, row));
+        self.rows.truncate(self.n);
+    }
+
+    /// The rows kept, largest key first.
+    pub fn rows(&self) -> impl Iterator<Item = &GroupRow> {
+        self.rows.iter().map(|(_, row)| row)
+    }
+}
+
+/// A seeded uniform sample of a stream (Algorithm R).
+#[derive(Debug)]
+struct Reservoir<T> {
+    n: usize,
+    seen: u64,
+    items: Vec<T>,
+}
+
+impl<T> Reservoir<T> {
+    fn new(n: usize) -> Self {
+        Reservoir { n, seen: 0, items: Vec::new() }
+    }
+
+    /// The slot the next item takes, if any.
+    fn slot(&mut self, rng: &mut ChaCha8Rng) -> Option<usize> {
+        self.seen += 1;
+        if self.items.len() < self.n {
+            return Some(self.items.len());
+        }
+        let j = rng.random_range(0..self.seen) as usize;
+        (j < self.n).then_some(j)
+    }
+
+    fn put(&mut self, slot: usize, item: T) {
+        if slot == self.items.len() {
+            self.items.push(item);
+        } else {
+            self.items[slot] = item;
+        }
+    }
+}
+
+/// What one pass over the table keeps.
+#[derive(Debug)]
+pub struct Collected {
+    /// Groups read.
+    pub groups: u64,
+    /// A seeded sample of groups for the scatter plots.
+    pub sample: Vec<GroupRow>,
+    /// Per segment, a seeded sample of its groups.
+    pub segment_samples: Vec<Vec<GroupRow>>,
+    /// The groups whose posterior mean moved furthest from their raw rate.
+    pub moved: Best,
+    /// The top of the conservative ranking.
+    pub top: Best,
+    /// The bottom of the conservative ranking.
+    pub bottom: Best,
+    /// The flagged groups of highest event probability.
+    pub flagged: Best,
+    /// Groups flagged.
+    pub flagged_count: u64,
+    /// Counts of pool weights in [`POOL_BINS`] equal bins over [0, 1].
+    pub pool_weights: Vec<u64>,
+    /// A seeded sample of the raw rates of well-measured groups.
+    pub well_measured: Vec<f64>,
+    /// Well-measured groups in all.
+    pub well_measured_count: u64,
+    /// The pooled rate (Σ count / Σ size; for estimates the inverse-variance mean).
+    pub pooled: f64,
+    /// The smallest and largest positive funnel abscissa (size, or precision for estimates).
+    pub funnel_range: (f64, f64),
+}
+
+/// The conservative ranking's key: the lower end for the highest first, minus
+/// the upper end for the lowest first (larger is better either way).
+fn conservative_key(lowest_first: bool, lower: f64, upper: f64) -> f64 {
+    if lowest_first {
+        -upper
+    } else {
+        lower
+    }
+}
+
+/// The abscissa of a group in the funnel plot: its size, or for an estimate its precision.
+pub fn funnel_x(kind: SizeKind, size: f64) -> f64 {
+    match kind {
+        SizeKind::StandardError => 1.0 / (size * size),
+        _ => size,
+    }
+}
+
+/// Reads the output table `table` of the run described by `summary`.
+pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Result<Collected> {
+    let columns = summary.columns.as_ref().ok_or_else(|| {
+        Error::Input(
+            "the summary does not name the table's columns (written by an older ratepool); run the fit again"
+                .into(),
+        )
+    })?;
+    let kind = model.terms().size_kind;
+    let flag_bound = summary.flags.as_ref().map(|f| f.bound);
+    let event_column = summary.flags.as_ref().map(|f| format!("prob_{}", f.event));
+    let mut wanted: Vec<(&str, &str)> = vec![
+        (columns.group.as_str(), "group"),
+        (columns.count.as_str(), model.terms().count_role),
+        (columns.size.as_str(), model.terms().size_role),
+        ("raw_rate", "raw rate"),
+        ("posterior_mean", "posterior mean"),
+        ("interval_lo", "interval"),
+        ("interval_hi", "interval"),
+        ("pool_weight", "pool weight"),
+    ];
+    if let Some(event) = &event_column {
+        wanted.extend([(event.as_str(), "event probability"), ("flag_fdr", "flag")]);
+    }
+    let first_segment = wanted.len();
+    wanted.extend(summary.segment_columns.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
+    let input = Input::open(table, b',', &wanted, crate::pipeline::DEFAULT_BATCH_ROWS)?;
+    let segment_places: HashMap<Vec<Option<String>>, usize> = summary
+        .segments
+        .iter()
+        .enumerate()
+        .map(|(i, s)| (summary.segment_columns.iter().map(|c| s.key.get(c).cloned().flatten()).collect(), i))
+        .collect();
+    let lowest_first = summary.rank_order.as_deref() == Some("lowest-first");
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut sample = Reservoir::new(SAMPLE);
+    let mut segment_samples: Vec<Reservoir<GroupRow>> =
+        (0..summary.segments.len()).map(|_| Reservoir::new(SAMPLE / 4)).collect();
+    let mut raw_sample = Reservoir::new(RAW_SAMPLE);
+    let mut out = Collected {
+        groups: 0,
+        sample: Vec::new(),
+        segment_samples: Vec::new(),
+        moved: Best::new(LISTED),
+        top: Best::new(LISTED),
+        bottom: Best::new(LISTED),
+        flagged: Best::new(LISTED),
+        flagged_count: 0,
+        pool_weights: vec![0; POOL_BINS],
+        well_measured: Vec::new(),
+        well_measured_count: 0,
+        pooled: f64::NAN,
+        funnel_range: (f64::INFINITY, 0.0),
+    };
+    let (mut pooled_numerator, mut pooled_denominator) = (0.0, 0.0);
+    input.for_each_batch(|batch| {
+        let c = &batch.columns;
+        let group = GroupColumn::of(&c[0])?;
+        let numbers: Vec<Float64Array> = c[1..first_segment].iter().map(float_column).collect::<Result<_>>()?;
+        let segments: Vec<GroupColumn> = c[first_segment..].iter().map(GroupColumn::of).collect::<Result<_>>()?;
+        for row in 0..batch.rows() {
+            let value = |i: usize| Some(numbers[i].value(row)).filter(|v| numbers[i].is_valid(row) && v.is_finite());
+            let fault = |what: &str| {
+                Error::Input(format!(
+                    "{}: row {}: the {what} is missing or not a number; is this the table the summary describes?",
+                    batch.file.display(),
+                    batch.first_row_in_file + row + 1
+                ))
+            };
+            let (Some(count), Some(size)) = (value(0), value(1)) else { return Err(fault("count or size")) };
+            let (Some(mean), Some(lower), Some(upper), Some(pool_weight)) = (value(3), value(4), value(5), value(6))
+            else {
+                return Err(fault("posterior"));
+            };
+            let raw = value(2);
+            let event_probability = event_column.as_ref().and_then(|_| value(7));
+            let flagged = flag_bound.zip(event_column.as_ref().and_then(|_| value(8))).is_some_and(|(q, fdr)| fdr <= q);
+            let segment = if segments.is_empty() {
+                0
+            } else {
+                let key: Vec<Option<String>> =
+                    segments.iter().map(|s| (!s.is_null(row)).then(|| s.text(row))).collect();
+                *segment_places.get(&key).ok_or_else(|| fault("segment (not among the summary's segments)"))?
+            };
+            out.groups += 1;
+            let build = || GroupRow {
+                id: group.text(row),
+                size,
+                count,
+                raw,
+                mean,
+                lower,
+                upper,
+                pool_weight,
+                event_probability,
+                flagged,
+                segment,
+            };
+            // Pooled rate and the funnel's range.
+            match kind {
+                SizeKind::StandardError => {
+                    pooled_numerator += count / (size * size);
+                    pooled_denominator += 1.0 / (size * size);
+                }
+                _ => {
+                    pooled_numerator += count;
+                    pooled_denominator += size;
+                }
+            }
+            let x = funnel_x(kind, size);
+            if x > 0.0 {
+                out.funnel_range = (out.funnel_range.0.min(x), out.funnel_range.1.max(x));
+            }
+            let bin = ((pool_weight * POOL_BINS as f64) as usize).min(POOL_BINS - 1);
+            out.pool_weights[bin] += 1;
+            if let (Some(raw), true) = (raw, pool_weight <= WELL_MEASURED) {
+                out.well_measured_count += 1;
+                if let Some(slot) = raw_sample.slot(&mut rng) {
+                    raw_sample.put(slot, raw);
+                }
+            }
+            if let Some(slot) = sample.slot(&mut rng) {
+                sample.put(slot, build());
+            }
+            if let Some(own) = segment_samples.get_mut(segment) {
+                if let Some(slot) = own.slot(&mut rng) {
+                    own.put(slot, build());
+                }
+            }
+            if let Some(raw) = raw {
+                let shift = (mean - raw).abs();
+                if out.moved.wants(shift) {
+                    out.moved.offer(shift, build());
+                }
+            }
+            let key = conservative_key(lowest_first, lower, upper);
+            if out.top.wants(key) {
+                out.top.offer(key, build());
+            }
+            if out.bottom.wants(-key) {
+                out.bottom.offer(-key, build());
+            }
+            if flagged {
+                out.flagged_count += 1;
+                let p = event_probability.unwrap_or(f64::NAN);
+                if out.flagged.wants(p) {
+                    out.flagged.offer(p, build());
+                }
+            }
+        }
+        Ok(())
+    })?;
+    out.pooled = pooled_numerator / pooled_denominator;
+    out.sample = sample.items;
+    out.segment_samples = segment_samples.into_iter().map(|r| r.items).collect();
+    out.well_measured = raw_sample.items;
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn row(id: &str) -> GroupRow {
+        GroupRow {
+            id: id.into(),
+            size: 1.0,
+            count: 0.0,
+            raw: None,
+            mean: 0.0,
+            lower: 0.0,
+            upper: 0.0,
+            pool_weight: 0.0,
+            event_probability: None,
+            flagged: false,
+            segment: 0,
+        }
+    }
+
+    #[test]
+    fn best_keeps_the_largest_keys_first_come_first_kept() {
+        let mut best = Best::new(2);
+        for (key, id) in [(1.0, "a"), (3.0, "b"), (3.0, "c"), (2.0, "d"), (f64::NAN, "e")] {
+            if best.wants(key) {
+                best.offer(key, row(id));
+            }
+        }
+        let ids: Vec<&str> = best.rows().map(|r| r.id.as_str()).collect();
+        assert_eq!(ids, ["b", "c"]);
+    }
+
+    #[test]
+    fn the_reservoir_is_uniform_and_seeded() {
+        // Each of 10 items should land in a 3-item sample with probability 3/10
+        // (Algorithm R, common practice); 20,000 seeded runs.
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        let mut hits = [0u32; 10];
+        for _ in 0..20_000 {
+            let mut r = Reservoir::new(3);
+            for i in 0..10 {
+                if let Some(slot) = r.slot(&mut rng) {
+                    r.put(slot, i);
+                }
+            }
+            for &i in &r.items {
+                hits[i] += 1;
+            }
+        }
+        for h in hits {
+            // 6,000 expected, sd about 65.
+            assert!((5700..6300).contains(&h), "{hits:?}");
+        }
+    }
+}

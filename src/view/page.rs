@@ -1,0 +1,526 @@
+//! The HTML page: the run in figures, the diagnostics in words, the tables
+//! and one section per segment. Escaped text, inline SVG, inline style.
+
+use super::collect::{Collected, GroupRow, LISTED, SAMPLE, WELL_MEASURED};
+use super::plots;
+use super::Figure;
+use crate::core::model::{Model, RateLaw, SizeKind};
+use crate::error::Result;
+use crate::report::{ChecksReport, Hyperprior, Summary};
+use std::fmt::Write;
+
+/// Segments drawn with a plot of their own; the rest are in the table only.
+const SEGMENT_PLOTS: usize = 12;
+
+/// Text made safe for HTML.
+fn escape(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for c in text.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&#39;"),
+            _ => out.push(c),
+        }
+    }
+    out
+}
+
+/// A number for a reader: four significant digits, or a plain integer.
+fn num(v: f64) -> String {
+    if !v.is_finite() {
+        return "n/a".to_string();
+    }
+    if v == v.trunc() && v.abs() < 1e15 {
+        return format!("{v:.0}");
+    }
+    let magnitude = v.abs();
+    if !(1e-3..1e6).contains(&magnitude) {
+        format!("{v:.3e}")
+    } else {
+        let decimals = (3 - magnitude.log10().floor() as i32).clamp(0, 6) as usize;
+        format!("{v:.decimals$}")
+    }
+}
+
+/// Words for the model's columns: (raw value, size, funnel abscissa, its axis).
+fn labels(model: Model) -> (&'static str, &'static str, &'static str, &'static str) {
+    match model.terms().size_kind {
+        SizeKind::Trials => ("raw rate (successes / trials)", "trials", "trials", "trials (log scale)"),
+        SizeKind::Exposure => {
+            ("raw rate (events / exposure)", "exposure", "exposure", "exposure (log scale)")
+        }
+        SizeKind::StandardError => {
+            ("estimate", "standard error", "precision (1/se²)", "precision 1/se² (log scale)")
+        }
+    }
+}
+
+/// The plots of the whole run, and of each segment drawn.
+pub fn figures(
+    summary: &Summary,
+    model: Model,
+    collected: &Collected,
+    prior: Option<RateLaw>,
+) -> Result<(Vec<Figure>, Vec<Option<Figure>>)> {
+    let kind = model.terms().size_kind;
+    let (raw_label, _, funnel_noun, funnel_label) = labels(model);
+    let prior_mean = summary.hyperprior.mean();
+    let sampled = |n: usize, total: u64| {
+        if (n as u64) < total {
+            format!("a seeded sample of {n} of the {total} groups")
+        } else {
+            format!("all {total} groups")
+        }
+    };
+    let mut figures = vec![Figure {
+        name: "shrinkage".into(),
+        title: "Shrinkage".into(),
+        caption: format!(
+            "Raw value against posterior mean for {}; marker size grows with the group's data. Groups on the diagonal kept their own value; groups pulled to the horizontal line (the prior mean, {}) took the pool's. Small groups move, large ones stay.",
+            sampled(collected.sample.len(), collected.groups),
+            num(prior_mean)
+        ),
+        svg: plots::shrinkage(&collected.sample, prior_mean, raw_label, kind)?,
+    }];
+    let flagged: Vec<&GroupRow> = collected.flagged.rows().collect();
+    figures.push(Figure {
+        name: "funnel".into(),
+        title: "Funnel plot".into(),
+        caption: format!(
+            "Raw value against {} for {}, with the pooled value {} and its 95% and 99.8% control limits (Spiegelhalter, Statistics in Medicine 2005). {}Points outside the limits vary more than sampling noise alone explains; the funnel ignores the prior, the posterior does not.",
+            funnel_noun,
+            sampled(collected.sample.len(), collected.groups),
+            num(collected.pooled),
+            if collected.flagged_count > 0 { "Flagged groups are red. " } else { "" }
+        ),
+        svg: plots::funnel(
+            &collected.sample,
+            &flagged,
+            (kind, collected.pooled),
+            (collected.funnel_range, funnel_label, raw_label),
+        )?,
+    });
+    figures.push(Figure {
+        name: "prior".into(),
+        title: "The prior over the raw values".into(),
+        caption: format!(
+            "Histogram (as a density) of the raw values of {} well-measured groups (pool weight at most {WELL_MEASURED}, so their own data carry at least 80% of their posterior mean){}, under the fitted prior's density{}.",
+            collected.well_measured_count,
+            if (collected.well_measured.len() as u64) < collected.well_measured_count {
+                format!(", a seeded sample of {}", collected.well_measured.len())
+            } else {
+                String::new()
+            },
+            if prior.is_some() { "" } else { " (here a line at the pooled value: complete pooling)" }
+        ),
+        svg: plots::prior_over_raw(&collected.well_measured, prior, prior_mean, raw_label)?,
+    });
+    if let Some(checks) = &summary.checks {
+        figures.push(Figure {
+            name: "calibration".into(),
+            title: "Calibration".into(),
+            caption: format!(
+                "Where each of {} groups falls in its prior predictive distribution (randomised PIT, seed {}), in tenths. When the model holds the bars are level at the line; chi-square {} on 9 df, p = {}.",
+                checks.calibration.groups,
+                checks.calibration.seed,
+                num(checks.calibration.statistic),
+                num(checks.calibration.p_value)
+            ),
+            svg: plots::calibration(&checks.calibration.bins)?,
+        });
+    }
+    figures.push(Figure {
+        name: "pool-weights".into(),
+        title: "Pool weights".into(),
+        caption: format!(
+            "How much of each group's posterior mean is the pool's, over all {} groups: median {}.",
+            collected.groups,
+            num(summary.pull.pool_weight_median)
+        ),
+        svg: plots::pool_weights(&collected.pool_weights)?,
+    });
+    let mut segment_figures = Vec::new();
+    for (i, sample) in collected.segment_samples.iter().enumerate() {
+        if i >= SEGMENT_PLOTS {
+            segment_figures.push(None);
+            continue;
+        }
+        let segment = &summary.segments[i];
+        segment_figures.push(Some(Figure {
+            name: format!("segment-{}-shrinkage", i + 1),
+            title: format!("Shrinkage in {}", segment_name(summary, i)),
+            caption: format!(
+                "Raw value against posterior mean for {} of the segment, toward its prior mean {}.",
+                sampled(sample.len(), segment.groups),
+                num(segment.hyperprior.mean())
+            ),
+            svg: plots::shrinkage(sample, segment.hyperprior.mean(), raw_label, kind)?,
+        }));
+    }
+    Ok((figures, segment_figures))
+}
+
+/// A segment's name: its columns and values.
+fn segment_name(summary: &Summary, i: usize) -> String {
+    let key = &summary.segments[i].key;
+    summary
+        .segment_columns
+        .iter()
+        .map(|c| format!("{c} = {}", key.get(c).cloned().flatten().unwrap_or_else(|| "(null)".into())))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// A prior in words.
+fn prior_text(prior: &Hyperprior) -> String {
+    let shape = match prior {
+        Hyperprior::Beta(p) => match (p.alpha, p.beta) {
+            (Some(a), Some(b)) => format!("Beta(α = {}, β = {})", num(a), num(b)),
+            _ => "complete pooling".into(),
+        },
+        Hyperprior::Gamma(p) => match (p.shape, p.rate) {
+            (Some(a), Some(b)) => format!("Gamma(shape {}, rate {})", num(a), num(b)),
+            _ => "complete pooling".into(),
+        },
+        Hyperprior::Normal(p) => format!("Normal(mean {}, variance {})", num(p.mean), num(p.variance)),
+    };
+    let strength = prior.strength().map_or("infinite (no overdispersion)".to_string(), num);
+    format!(
+        "{shape}; mean {} (standard error {}), strength {strength}",
+        num(prior.mean()),
+        num(prior.mean_se())
+    )
+}
+
+/// The checks in plain words.
+fn checks_text(checks: &ChecksReport) -> String {
+    let calibration = &checks.calibration;
+    let variance = checks.raw_rate_variance.ratio.map_or(String::new(), |r| {
+        format!(" The raw values vary {} times as much as the prior predicts.", num(r))
+    });
+    if checks.verdict == "fits" {
+        format!(
+            "Calibration: the groups sit evenly in their prior predictive distributions (chi-square {} on 9 df, p = {}): one prior describes them.{variance}",
+            num(calibration.statistic),
+            num(calibration.p_value)
+        )
+    } else {
+        format!(
+            "Calibration: <strong>poor fit</strong>. The groups sit unevenly in their prior predictive distributions (chi-square {} on 9 df, p = {}).{variance} One prior cannot describe groups of different kinds (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags.",
+            num(calibration.statistic),
+            num(calibration.p_value)
+        )
+    }
+}
+
+/// The diagnostics of the fit in words.
+fn diagnostics(summary: &Summary, out: &mut String) {
+    let fit = &summary.fit;
+    let fitted_here = fit.source == "fit";
+    let _ = writeln!(out, "<section id=\"diagnostics\"><h2>Diagnostics</h2><ul>");
+    let convergence = if fitted_here {
+        format!(
+            "The fit {} in {} iterations (log marginal likelihood {}{}).",
+            if fit.converged { "converged" } else { "did <strong>not</strong> converge" },
+            fit.iterations,
+            num(fit.log_marginal_likelihood),
+            fit.restricted_log_likelihood
+                .map_or(String::new(), |r| format!("; restricted likelihood {} maximised", num(r)))
+        )
+    } else {
+        format!("The prior was not fitted here: it was read from {}.", escape(&fit.source))
+    };
+    let _ = writeln!(out, "<li>{convergence}</li>");
+    let boundary = if fit.boundary == "none" {
+        "The prior is a proper one: the groups differ, and each is pulled toward the pool by how little data it has.".to_string()
+    } else {
+        "The fit ended at the boundary of no overdispersion: the groups differ no more than sampling noise allows, so every group is given the pooled value (complete pooling) and the intervals are those of the pooled value.".to_string()
+    };
+    let _ = writeln!(out, "<li>{boundary}</li>");
+    let test = &fit.overdispersion_test;
+    let _ = writeln!(
+        out,
+        "<li>Overdispersion ({}): Z = {}, one-sided p = {}. {}</li>",
+        escape(&test.name),
+        num(test.statistic),
+        num(test.p_value),
+        if test.p_value < 0.05 {
+            "The groups vary more than sampling noise alone allows."
+        } else {
+            "The data show little variation beyond sampling noise."
+        }
+    );
+    if let Some(pooling) = &fit.pooling_test {
+        let _ = writeln!(
+            out,
+            "<li>Against complete pooling: likelihood ratio {}, p = {} (50:50 mixture of chi-square(0) and chi-square(1)).</li>",
+            num(pooling.statistic),
+            num(pooling.p_value)
+        );
+    }
+    if let Some(checks) = &summary.checks {
+        let _ = writeln!(out, "<li>{} (on {})</li>", checks_text(checks), escape(&checks.data));
+    }
+    let _ = writeln!(
+        out,
+        "<li>Intervals: {}% equal-tailed, {}.</li>",
+        num(100.0 * summary.level),
+        if summary.intervals == "corrected" {
+            "corrected for the estimation of the prior"
+        } else {
+            "plug-in (the fitted prior taken as known; they run short when groups are few)"
+        }
+    );
+    if let Some(flags) = &summary.flags {
+        let _ = writeln!(
+            out,
+            "<li>Flags: {} groups flagged as {} {} at a posterior false-discovery rate of {}; about {} of them are expected to be false.</li>",
+            flags.groups_flagged,
+            escape(&flags.event),
+            num(flags.threshold),
+            num(flags.bound),
+            num(flags.expected_false_flags)
+        );
+    }
+    for warning in &summary.warnings {
+        let _ = writeln!(out, "<li class=\"warning\">Warning: {}</li>", escape(warning));
+    }
+    let _ = writeln!(out, "</ul></section>");
+}
+
+/// A table of groups.
+fn group_table(title: &str, note: &str, rows: &[&GroupRow], model: Model, out: &mut String) {
+    let (_, size_label, _, _) = labels(model);
+    let count_label = model.terms().count_role;
+    let _ = writeln!(out, "<h3>{}</h3><p>{}</p>", escape(title), escape(note));
+    if rows.is_empty() {
+        let _ = writeln!(out, "<p>None.</p>");
+        return;
+    }
+    let with_probability = rows.iter().any(|r| r.event_probability.is_some());
+    let _ = write!(
+        out,
+        "<table><thead><tr><th>group</th><th>{count_label}</th><th>{size_label}</th><th>raw</th><th>posterior mean</th><th>interval</th><th>pool weight</th>"
+    );
+    if with_probability {
+        let _ = write!(out, "<th>event probability</th>");
+    }
+    let _ = writeln!(out, "</tr></thead><tbody>");
+    for r in rows {
+        let _ = write!(
+            out,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{} to {}</td><td>{}</td>",
+            escape(&r.id),
+            num(r.count),
+            num(r.size),
+            r.raw.map_or("n/a".into(), num),
+            num(r.mean),
+            num(r.lower),
+            num(r.upper),
+            num(r.pool_weight)
+        );
+        if with_probability {
+            let _ = write!(out, "<td>{}</td>", r.event_probability.map_or("n/a".into(), num));
+        }
+        let _ = writeln!(out, "</tr>");
+    }
+    let _ = writeln!(out, "</tbody></table>");
+}
+
+fn figure_html(figure: &Figure, out: &mut String) {
+    let _ = writeln!(
+        out,
+        "<figure class=\"plot\" id=\"plot-{0}\" data-plot=\"{0}\"><h3>{1}</h3>{2}<figcaption>{3}</figcaption></figure>",
+        figure.name,
+        escape(&figure.title),
+        figure.svg,
+        escape(&figure.caption)
+    );
+}
+
+/// The cautions every report carries (as the README gives them).
+const CAUTIONS: [&str; 6] = [
+    "Read the calibration before the ranks and flags: a poor fit means one prior does not describe the groups, and every posterior leans on that prior.",
+    "Plug-in intervals treat the fitted prior as known and run short when groups are few; corrected intervals do better, and below about 200 groups even they run somewhat short.",
+    "Rankings of sellers affect livelihoods: a posterior mean ranks by expected rate, not by certainty. Read the interval and the pool weight before acting on a rank, and defer to the rules of your platform and jurisdiction.",
+    "A smoothed disease rate is not a diagnosis and not proof of a cluster. This does not replace epidemiological judgement, case review or licensed practice; small-area counts may be disclosive, so follow local rules on suppression before publishing.",
+    "A flag is a statement about a set: at a false-discovery rate of 0.1 about one flag in ten is expected to be wrong. Look at a group's data before acting on its flag, and do not lower the rate after seeing the result.",
+    "Groups that differ systematically (by category or region type) should be fitted per segment; a segment of few groups borrows the all-groups prior.",
+];
+
+const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}\
+h1{font-size:1.6em}h2{margin-top:2em;border-bottom:1px solid #ccc}\
+figure.plot{display:inline-block;vertical-align:top;width:660px;margin:0 1em 1.5em 0}\
+figure.plot h3{margin:.2em 0;font-size:1.05em}figcaption{font-size:.9em;color:#444}\
+table{border-collapse:collapse;font-size:.9em;margin-bottom:1em}td,th{border:1px solid #ddd;padding:.25em .5em;text-align:right}\
+td:first-child,th:first-child{text-align:left}.warning{color:#a33}dl{display:grid;grid-template-columns:max-content auto;gap:.2em 1em}";
+
+/// The whole page.
+pub fn render(
+    summary: &Summary,
+    model: Model,
+    collected: &Collected,
+    figures: &[Figure],
+    segment_figures: &[Option<Figure>],
+) -> String {
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>ratepool report: {} groups, {}</title><style>{STYLE}</style></head><body>",
+        collected.groups,
+        escape(&summary.model)
+    );
+    let _ =
+        writeln!(out, "<h1>ratepool report: {} groups, {}</h1>", collected.groups, escape(&summary.model));
+    let _ = writeln!(
+        out,
+        "<section id=\"overview\"><dl><dt>groups</dt><dd>{}</dd><dt>rows read</dt><dd>{} ({} rejected)</dd><dt>prior</dt><dd>{}</dd><dt>pool weight</dt><dd>mean {}, median {}, 10th to 90th percentile {} to {}</dd><dt>rank correlation, raw and posterior</dt><dd>{}</dd></dl></section>",
+        collected.groups,
+        summary.rows_read,
+        summary.rows_rejected,
+        escape(&prior_text(&summary.hyperprior)),
+        num(summary.pull.pool_weight_mean),
+        num(summary.pull.pool_weight_median),
+        num(summary.pull.pool_weight_p10),
+        num(summary.pull.pool_weight_p90),
+        summary.pull.rank_correlation.map_or("n/a".into(), num)
+    );
+    diagnostics(summary, &mut out);
+    let _ = writeln!(out, "<section id=\"plots\"><h2>Plots</h2>");
+    for figure in figures {
+        figure_html(figure, &mut out);
+    }
+    let _ = writeln!(out, "</section><section id=\"tables\"><h2>Groups</h2>");
+    let moved: Vec<&GroupRow> = collected.moved.rows().collect();
+    group_table(
+        "Moved most",
+        &format!("The {LISTED} groups whose posterior mean is furthest from their raw value: mostly groups with little data."),
+        &moved,
+        model,
+        &mut out,
+    );
+    let lowest_first = summary.rank_order.as_deref() == Some("lowest-first");
+    let (bound, best) = if lowest_first { ("upper", "lowest") } else { ("lower", "highest") };
+    let top: Vec<&GroupRow> = collected.top.rows().collect();
+    group_table(
+        "Top of the conservative ranking",
+        &format!("The {LISTED} groups with the {best} {bound} interval ends: reliably among the {best}."),
+        &top,
+        model,
+        &mut out,
+    );
+    let bottom: Vec<&GroupRow> = collected.bottom.rows().collect();
+    group_table(
+        "Bottom of the conservative ranking",
+        &format!("The {LISTED} groups last by their {bound} interval ends."),
+        &bottom,
+        model,
+        &mut out,
+    );
+    if summary.flags.is_some() {
+        let flagged: Vec<&GroupRow> = collected.flagged.rows().collect();
+        group_table(
+            "Flagged",
+            &format!(
+                "{} groups flagged; the {} of highest posterior probability of the event are listed.",
+                collected.flagged_count,
+                flagged.len()
+            ),
+            &flagged,
+            model,
+            &mut out,
+        );
+    }
+    let _ = writeln!(out, "</section>");
+    if !summary.segments.is_empty() {
+        segments(summary, segment_figures, &mut out);
+    }
+    let _ = writeln!(out, "<section id=\"cautions\"><h2>Cautions</h2><ul>");
+    for caution in CAUTIONS {
+        let _ = writeln!(out, "<li>{}</li>", escape(caution));
+    }
+    let _ = writeln!(
+        out,
+        "</ul><p>Scatter plots show at most {SAMPLE} groups, drawn with a fixed seed, so the same inputs give the same page.</p></section></body></html>"
+    );
+    out
+}
+
+/// The segments: a table of all, then a section each for the first few.
+fn segments(summary: &Summary, segment_figures: &[Option<Figure>], out: &mut String) {
+    let _ = writeln!(out, "<section id=\"segments\"><h2>Segments</h2>");
+    if let Some(test) = &summary.segment_test {
+        let _ = writeln!(
+            out,
+            "<p>One prior for all groups against one per segment: likelihood ratio {} on {} df, p = {}.</p>",
+            num(test.statistic),
+            test.degrees_of_freedom,
+            num(test.p_value)
+        );
+    }
+    let _ = writeln!(
+        out,
+        "<table><thead><tr><th>segment</th><th>groups</th><th>prior mean</th><th>strength</th><th>calibration p</th><th>verdict</th><th>prior</th></tr></thead><tbody>"
+    );
+    for (i, segment) in summary.segments.iter().enumerate() {
+        let checks = segment.checks.as_ref();
+        let _ = writeln!(
+            out,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            escape(&segment_name(summary, i)),
+            segment.groups,
+            num(segment.hyperprior.mean()),
+            segment.hyperprior.strength().map_or("infinite".into(), num),
+            checks.map_or("n/a".into(), |c| num(c.calibration.p_value)),
+            checks.map_or("n/a", |c| c.verdict.as_str()),
+            segment
+                .fallback
+                .as_ref()
+                .map_or("its own".to_string(), |why| format!("all groups' ({})", escape(why)))
+        );
+    }
+    let _ = writeln!(out, "</tbody></table>");
+    for (i, figure) in segment_figures.iter().enumerate() {
+        let Some(figure) = figure else { continue };
+        let segment = &summary.segments[i];
+        let _ = writeln!(
+            out,
+            "<section class=\"segment\" id=\"segment-{}\"><h3>{}</h3><p>{} groups; prior {}.</p>",
+            i + 1,
+            escape(&segment_name(summary, i)),
+            segment.groups,
+            escape(&prior_text(&segment.hyperprior))
+        );
+        if let Some(checks) = &segment.checks {
+            let _ = writeln!(out, "<p>{}</p>", checks_text(checks));
+        }
+        figure_html(figure, out);
+        let _ = writeln!(out, "</section>");
+    }
+    if summary.segments.len() > SEGMENT_PLOTS {
+        let _ = writeln!(
+            out,
+            "<p>The first {SEGMENT_PLOTS} of {} segments have a plot of their own; the table lists all.</p>",
+            summary.segments.len()
+        );
+    }
+    let _ = writeln!(out, "</section>");
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn text_is_escaped_and_numbers_read_well() {
+        assert_eq!(escape("<a & 'b'>"), "&lt;a &amp; &#39;b&#39;&gt;");
+        assert_eq!(num(20000.0), "20000");
+        assert_eq!(num(0.90083), "0.9008");
+        assert_eq!(num(18.2958), "18.30");
+        assert_eq!(num(3e-7), "3.000e-7");
+        assert_eq!(num(f64::NAN), "n/a");
+    }
+}

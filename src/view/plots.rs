@@ -1,0 +1,279 @@
+//! The report's plots, each an SVG document drawn by plotters: shrinkage,
+//! funnel, the prior over the raw rates, calibration, pool weights.
+
+use super::collect::{funnel_x, GroupRow, POOL_BINS};
+use crate::core::model::{RateLaw, SizeKind};
+use crate::error::{Error, Result};
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+/// Width and height of every plot, in pixels.
+const SIZE: (u32, u32) = (640, 400);
+/// The 95% and 99.8% two-sided normal points (common practice: Spiegelhalter's funnel limits).
+const LIMITS: [(f64, &str); 2] = [(1.959_963_984_540_054, "95%"), (3.090_232_306_167_813_5, "99.8%")];
+const POINT: RGBColor = RGBColor(44, 95, 138);
+const FLAG: RGBColor = RGBColor(196, 54, 44);
+const LINE: RGBColor = RGBColor(90, 90, 90);
+
+type Area<'a> = DrawingArea<SVGBackend<'a>, Shift>;
+type Drawn = std::result::Result<(), Box<dyn std::error::Error>>;
+
+/// Draws onto a fresh white canvas and returns the SVG text.
+fn svg(draw: impl FnOnce(&Area<'_>) -> Drawn) -> Result<String> {
+    let mut text = String::new();
+    {
+        let root = SVGBackend::with_string(&mut text, SIZE).into_drawing_area();
+        let fail = |e: Box<dyn std::error::Error>| Error::Other(format!("cannot draw a plot: {e}"));
+        root.fill(&WHITE).map_err(|e| fail(e.into()))?;
+        draw(&root).map_err(fail)?;
+        root.present().map_err(|e| fail(e.into()))?;
+    }
+    Ok(text)
+}
+
+/// A range holding every value, padded by 4%; widened when it is a point.
+fn span(values: impl Iterator<Item = f64>) -> (f64, f64) {
+    let (mut low, mut high) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in values.filter(|v| v.is_finite()) {
+        low = low.min(v);
+        high = high.max(v);
+    }
+    if !low.is_finite() {
+        return (0.0, 1.0);
+    }
+    let pad = if high > low { 0.04 * (high - low) } else { 0.5 * low.abs().max(1e-9) };
+    (low - pad, high + pad)
+}
+
+/// Marker radius by size, 1.5 to 7 pixels on a log scale of `largest`.
+fn radius(size: f64, largest: f64) -> i32 {
+    let share = (1.0 + size.max(0.0)).ln() / (1.0 + largest.max(1.0)).ln();
+    (1.5 + 5.5 * share).round() as i32
+}
+
+/// Raw rate against posterior mean, marker size by the group's size: small
+/// groups move toward the prior mean, large ones stay on the diagonal.
+pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, raw_label: &str, size_of: SizeKind) -> Result<String> {
+    let points: Vec<(f64, f64, f64)> =
+        sample.iter().filter_map(|g| g.raw.map(|raw| (raw, g.mean, funnel_x(size_of, g.size)))).collect();
+    let (low, high) = span(points.iter().flat_map(|p| [p.0, p.1]).chain([prior_mean]));
+    let largest = points.iter().map(|p| p.2).fold(0.0, f64::max);
+    svg(|root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(60)
+            .build_cartesian_2d(low..high, low..high)?;
+        chart.configure_mesh().x_desc(raw_label).y_desc("posterior mean").light_line_style(WHITE).draw()?;
+        chart.draw_series(LineSeries::new([(low, low), (high, high)], LINE.stroke_width(1)))?;
+        chart.draw_series(LineSeries::new(
+            [(low, prior_mean), (high, prior_mean)],
+            LINE.mix(0.5).stroke_width(1),
+        ))?;
+        chart.draw_series(
+            points.iter().map(|&(x, y, n)| Circle::new((x, y), radius(n, largest), POINT.mix(0.35).filled())),
+        )?;
+        Ok(())
+    })
+}
+
+/// The funnel's control limits at abscissa `x` (size, or precision for estimates)
+/// around the pooled rate, `z` standard errors out.
+pub fn funnel_limit(kind: SizeKind, pooled: f64, x: f64, z: f64) -> (f64, f64) {
+    let se = match kind {
+        SizeKind::Trials => (pooled * (1.0 - pooled) / x).sqrt(),
+        SizeKind::Exposure => (pooled / x).sqrt(),
+        SizeKind::StandardError => 1.0 / x.sqrt(),
+    };
+    let (low, high) = (pooled - z * se, pooled + z * se);
+    match kind {
+        SizeKind::Trials => (low.max(0.0), high.min(1.0)),
+        SizeKind::Exposure => (low.max(0.0), high),
+        SizeKind::StandardError => (low, high),
+    }
+}
+
+/// Spiegelhalter's funnel plot: raw rate against size (log axis) with the
+/// pooled rate and its 95% and 99.8% limits; flagged groups in red.
+pub fn funnel(
+    sample: &[GroupRow],
+    flagged: &[&GroupRow],
+    (kind, pooled): (SizeKind, f64),
+    (x_range, x_label, raw_label): ((f64, f64), &str, &str),
+) -> Result<String> {
+    let point = |g: &GroupRow| g.raw.map(|raw| (funnel_x(kind, g.size), raw)).filter(|(x, _)| *x > 0.0);
+    let plain: Vec<(f64, f64)> = sample.iter().filter(|g| !g.flagged).filter_map(point).collect();
+    let marked: Vec<(f64, f64)> =
+        sample.iter().filter(|g| g.flagged).chain(flagged.iter().copied()).filter_map(point).collect();
+    let (x_low, x_high) = if x_range.0 < x_range.1 { x_range } else { (x_range.0 * 0.5, x_range.0 * 2.0) };
+    let grid: Vec<f64> = (0..=200).map(|i| x_low * (x_high / x_low).powf(f64::from(i) / 200.0)).collect();
+    let inner = funnel_limit(kind, pooled, grid[grid.len() / 20], LIMITS[1].0);
+    let (y_low, y_high) = span(plain.iter().chain(&marked).map(|p| p.1).chain([inner.0, inner.1, pooled]));
+    svg(|root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(60)
+            .build_cartesian_2d((x_low..x_high).log_scale(), y_low..y_high)?;
+        chart.configure_mesh().x_desc(x_label).y_desc(raw_label).light_line_style(WHITE).draw()?;
+        chart.draw_series(plain.iter().map(|&p| Circle::new(p, 2, POINT.mix(0.35).filled())))?;
+        chart.draw_series(LineSeries::new(grid.iter().map(|&x| (x, pooled)), LINE.stroke_width(2)))?;
+        for (z, _) in LIMITS {
+            let style = if z < 2.5 { LINE.stroke_width(1) } else { LINE.mix(0.6).stroke_width(1) };
+            for side in [0, 1] {
+                let curve = grid.iter().map(|&x| {
+                    let (low, high) = funnel_limit(kind, pooled, x, z);
+                    (x, if side == 0 { low } else { high }.clamp(y_low, y_high))
+                });
+                chart.draw_series(LineSeries::new(curve, style))?;
+            }
+        }
+        chart.draw_series(marked.iter().map(|&p| Circle::new(p, 3, FLAG.filled())))?;
+        Ok(())
+    })
+}
+
+/// Counts over equal bins of [low, high] (values outside go to the end bins).
+pub fn bin(values: &[f64], (low, high): (f64, f64), bins: usize) -> Vec<u64> {
+    let mut counts = vec![0u64; bins];
+    for v in values.iter().filter(|v| v.is_finite()) {
+        let at = ((v - low) / (high - low) * bins as f64).floor().clamp(0.0, (bins - 1) as f64) as usize;
+        counts[at] += 1;
+    }
+    counts
+}
+
+/// Bars of `counts` over equal bins of [low, high], scaled by `scale`.
+fn bars(counts: &[u64], (low, high): (f64, f64), scale: f64) -> Vec<Rectangle<(f64, f64)>> {
+    let width = (high - low) / counts.len() as f64;
+    counts
+        .iter()
+        .enumerate()
+        .map(|(i, &c)| {
+            let left = low + i as f64 * width;
+            Rectangle::new([(left, 0.0), (left + width, c as f64 * scale)], POINT.mix(0.45).filled())
+        })
+        .collect()
+}
+
+/// The histogram of the raw rates of well-measured groups, as a density,
+/// under the fitted prior's density (or the pooled rate, at complete pooling).
+pub fn prior_over_raw(
+    raw: &[f64],
+    prior: Option<RateLaw>,
+    prior_mean: f64,
+    raw_label: &str,
+) -> Result<String> {
+    const BINS: usize = 40;
+    let (mut low, mut high) = span(raw.iter().copied().chain([prior_mean]));
+    if let Some(RateLaw::Beta { .. }) = prior {
+        (low, high) = (low.max(0.0), high.min(1.0));
+    }
+    if let Some(RateLaw::Gamma { .. }) = prior {
+        low = low.max(0.0);
+    }
+    let counts = bin(raw, (low, high), BINS);
+    let scale = 1.0 / (raw.len().max(1) as f64 * (high - low) / BINS as f64);
+    let curve: Vec<(f64, f64)> = match prior {
+        Some(law) => (0..=300)
+            .map(|i| low + (high - low) * f64::from(i) / 300.0)
+            .map(|x| (x, law.density(x)))
+            .filter(|p| p.1.is_finite())
+            .collect(),
+        None => Vec::new(),
+    };
+    let top = counts.iter().map(|&c| c as f64 * scale).chain(curve.iter().map(|p| p.1)).fold(0.0, f64::max);
+    let top = if top > 0.0 { top * 1.08 } else { 1.0 };
+    svg(|root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(60)
+            .build_cartesian_2d(low..high, 0.0..top)?;
+        chart.configure_mesh().x_desc(raw_label).y_desc("density").light_line_style(WHITE).draw()?;
+        chart.draw_series(bars(&counts, (low, high), scale))?;
+        if curve.is_empty() {
+            chart
+                .draw_series(LineSeries::new([(prior_mean, 0.0), (prior_mean, top)], FLAG.stroke_width(2)))?;
+        } else {
+            chart.draw_series(LineSeries::new(curve, FLAG.stroke_width(2)))?;
+        }
+        Ok(())
+    })
+}
+
+/// The calibration histogram: the groups in each tenth of their prior
+/// predictive distribution, with the count expected when the model holds.
+pub fn calibration(bins: &[u64]) -> Result<String> {
+    let total: u64 = bins.iter().sum();
+    let expected = total as f64 / bins.len().max(1) as f64;
+    let top = bins.iter().map(|&b| b as f64).fold(expected, f64::max) * 1.12;
+    svg(|root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(60)
+            .build_cartesian_2d(0.0..1.0, 0.0..top.max(1.0))?;
+        chart
+            .configure_mesh()
+            .x_desc("place in the prior predictive distribution (randomised PIT)")
+            .y_desc("groups")
+            .light_line_style(WHITE)
+            .draw()?;
+        chart.draw_series(bars(bins, (0.0, 1.0), 1.0))?;
+        chart.draw_series(LineSeries::new([(0.0, expected), (1.0, expected)], FLAG.stroke_width(2)))?;
+        Ok(())
+    })
+}
+
+/// The distribution of pool weights over [0, 1].
+pub fn pool_weights(counts: &[u64]) -> Result<String> {
+    debug_assert_eq!(counts.len(), POOL_BINS);
+    let top = counts.iter().copied().max().unwrap_or(1).max(1) as f64 * 1.1;
+    svg(|root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(70)
+            .build_cartesian_2d(0.0..1.0, 0.0..top)?;
+        chart
+            .configure_mesh()
+            .x_desc("pool weight (0: own data only, 1: the prior only)")
+            .y_desc("groups")
+            .light_line_style(WHITE)
+            .draw()?;
+        chart.draw_series(bars(counts, (0.0, 1.0), 1.0))?;
+        Ok(())
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn funnel_limits_are_the_binomial_and_poisson_ones() {
+        // p0 ± z √(p0(1 − p0)/n) and θ0 ± z √(θ0/E) (Spiegelhalter, Statistics in Medicine 2005).
+        let (low, high) = funnel_limit(SizeKind::Trials, 0.2, 100.0, 2.0);
+        assert!((low - 0.12).abs() < 1e-12 && (high - 0.28).abs() < 1e-12);
+        let (low, high) = funnel_limit(SizeKind::Exposure, 1.0, 25.0, 2.0);
+        assert!((low - 0.6).abs() < 1e-12 && (high - 1.4).abs() < 1e-12);
+        // For estimates the abscissa is the precision 1/se²: se = 0.5 at x = 4.
+        let (low, high) = funnel_limit(SizeKind::StandardError, 3.0, 4.0, 2.0);
+        assert!((low - 2.0).abs() < 1e-12 && (high - 4.0).abs() < 1e-12);
+        // Proportions stay within [0, 1].
+        assert_eq!(funnel_limit(SizeKind::Trials, 0.05, 2.0, 3.0).0, 0.0);
+    }
+
+    #[test]
+    fn bins_put_outliers_in_the_end_bins() {
+        assert_eq!(bin(&[-1.0, 0.05, 0.5, 0.99, 7.0, f64::NAN], (0.0, 1.0), 4), vec![2, 0, 1, 2]);
+    }
+
+    #[test]
+    fn plots_are_svg_documents_and_the_same_bytes_each_time() {
+        let a = calibration(&[10, 12, 9, 11, 10, 8, 10, 12, 9, 9]).unwrap();
+        assert!(a.starts_with("<svg") && a.trim_end().ends_with("</svg>"));
+        assert_eq!(a, calibration(&[10, 12, 9, 11, 10, 8, 10, 12, 9, 9]).unwrap());
+    }
+}

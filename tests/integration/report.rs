@@ -1,0 +1,161 @@
+//! The HTML report: the same bytes from `fit --report` and from `report`,
+//! self-contained, every plot present, its tables agreeing with the summary
+//! and the table, and refusals that write nothing. (The check in a real
+//! browser is scripts/check_report_in_browser.sh.)
+
+use crate::util::{assert_refused, fixture, ratepool, stderr, summary, write, Csv};
+use std::path::Path;
+
+const PLOTS: [&str; 5] = ["shrinkage", "funnel", "prior", "calibration", "pool-weights"];
+
+/// The demo districts with flags and ranks, fitted in `dir` with the report.
+fn districts(dir: &Path, output: &str, extra: &[&str]) -> std::process::Output {
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/districts.csv");
+    let mut args = vec!["--quiet", "fit", "--input", input.to_str().unwrap(), "--model", "gamma-poisson"];
+    args.extend(["--group", "district_id", "--events", "observed_cases", "--exposure", "expected_cases"]);
+    args.extend(["--above", "1", "--flag-fdr", "0.1", "--ranks", "--output", output, "--summary", "s.json"]);
+    args.extend(extra);
+    ratepool(dir, &args)
+}
+
+fn read(dir: &Path, name: &str) -> String {
+    std::fs::read_to_string(dir.join(name)).unwrap_or_else(|e| panic!("{name}: {e}"))
+}
+
+#[test]
+fn fit_with_report_and_report_later_give_the_same_self_contained_page() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = districts(dir.path(), "d.parquet", &["--report", "fit.html", "--plots", "plots"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let args = ["report", "--table", "d.parquet", "--summary", "s.json", "--output", "later.html"];
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = read(dir.path(), "fit.html");
+    assert_eq!(page, read(dir.path(), "later.html"), "the two ways give the same bytes");
+    // The same again: no timestamps, seeded samples.
+    let out = ratepool(
+        dir.path(),
+        &["report", "--table", "d.parquet", "--summary", "s.json", "--output", "again.html"],
+    );
+    assert!(out.status.success());
+    assert_eq!(page, read(dir.path(), "again.html"));
+    // Self-contained: no scripts, no external references.
+    assert!(page.starts_with("<!DOCTYPE html>"));
+    for outside in ["<script", " src=", "href=", "@import", "url("] {
+        assert!(!page.contains(outside), "the page holds {outside}");
+    }
+    for plot in PLOTS {
+        assert!(page.contains(&format!("data-plot=\"{plot}\"")), "{plot} missing");
+        let alone = read(&dir.path().join("plots"), &format!("{plot}.svg"));
+        assert!(alone.starts_with("<svg") && page.contains(&alone), "{plot}.svg is the plot on the page");
+    }
+    for words in [
+        "Diagnostics",
+        "The fit converged",
+        "Calibration:",
+        "Cautions",
+        "Rankings of sellers affect livelihoods",
+    ] {
+        assert!(page.contains(words), "{words}");
+    }
+}
+
+/// The group in the first row of the table under the heading `title`.
+fn first_group<'a>(page: &'a str, title: &str) -> &'a str {
+    let section = &page[page.find(&format!("<h3>{title}</h3>")).unwrap()..];
+    let body = &section[section.find("<tbody>").unwrap()..];
+    body[body.find("<tr><td>").unwrap() + 8..].split('<').next().unwrap()
+}
+
+#[test]
+fn the_tables_agree_with_the_summary_and_the_output() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = districts(dir.path(), "d.csv", &["--report", "r.html"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let (page, s) = (read(dir.path(), "r.html"), summary(&dir.path().join("s.json")));
+    // The group that moved furthest, as the pipeline's own pull summary names it, heads "Moved most".
+    let furthest = s["pull"]["max_shift_group"].as_str().unwrap();
+    assert_eq!(first_group(&page, "Moved most"), furthest);
+    // The flag count is the summary's, and the flagged table lists flagged groups only.
+    let flagged = s["flags"]["groups_flagged"].as_u64().unwrap();
+    assert!(page.contains(&format!("{flagged} groups flagged;")), "{flagged}");
+    let table = Csv::read(&dir.path().join("d.csv"));
+    let (ids, flags) = (table.column("district_id"), table.column("flagged"));
+    let listed = &page[page.find("<h3>Flagged</h3>").unwrap()..];
+    let listed = &listed[..listed.find("</table>").unwrap()];
+    let rows: Vec<&str> = listed.split("<tr><td>").skip(1).map(|r| r.split('<').next().unwrap()).collect();
+    assert_eq!(rows.len(), 15);
+    for id in rows {
+        let at = ids.iter().position(|i| i == id).unwrap();
+        assert_eq!(flags[at], "true", "{id} is listed as flagged");
+    }
+    // The top of the conservative ranking is rank 1 of rank_conservative.
+    let first = first_group(&page, "Top of the conservative ranking");
+    let ranks = table.column("rank_conservative");
+    assert_eq!(ranks[ids.iter().position(|i| i == first).unwrap()], "1");
+}
+
+#[test]
+fn segments_and_the_normal_model_get_their_sections() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/returns.csv");
+    let mut args = vec!["--quiet", "fit", "--input", input.to_str().unwrap(), "--model", "beta-binomial"];
+    args.extend(["--group", "store_id", "--outcome", "returned", "--by", "store_kind"]);
+    args.extend(["--output", "r.parquet", "--summary", "s.json", "--report", "r.html"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = read(dir.path(), "r.html");
+    for kind in ["arcade", "kiosk", "warehouse", "web"] {
+        assert!(page.contains(&format!("store_kind = {kind}")), "{kind}");
+    }
+    assert_eq!(page.matches("class=\"segment\"").count(), 4);
+    let input = fixture("normal_groups.csv");
+    let mut args = vec!["--quiet", "fit", "--input", input.to_str().unwrap(), "--model", "normal-normal"];
+    args.extend(["--group", "clinic", "--estimate", "wait_minutes", "--std-error", "wait_se"]);
+    args.extend(["--output", "n.csv", "--summary", "n.json", "--report", "n.html"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = read(dir.path(), "n.html");
+    assert!(page.contains("Normal(mean") && page.contains("precision 1/se"), "normal words");
+}
+
+#[test]
+fn a_table_that_is_not_the_summarys_or_an_overlap_is_refused_and_nothing_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = districts(dir.path(), "d.parquet", &[]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    // Another run's table (fewer groups) under this summary.
+    write(dir.path(), "small.csv", "district_id,observed_cases,expected_cases\na,1,2.0\nb,3,1.5\nc,0,0.4\n");
+    let small = [
+        "--quiet",
+        "fit",
+        "--input",
+        "small.csv",
+        "--model",
+        "gamma-poisson",
+        "--group",
+        "district_id",
+        "--events",
+        "observed_cases",
+        "--exposure",
+        "expected_cases",
+        "--above",
+        "1",
+        "--flag-fdr",
+        "0.1",
+        "--output",
+        "small-out.csv",
+    ];
+    assert!(ratepool(dir.path(), &small).status.success());
+    let mismatched = ["report", "--table", "small-out.csv", "--summary", "s.json", "--output", "r.html"];
+    assert_refused(dir.path(), &mismatched, "give the table and summary of the same run", "r.html");
+    let overlap = ["report", "--table", "d.parquet", "--summary", "s.json", "--output", "d.parquet"];
+    assert_refused(dir.path(), &overlap, "--output", "r.html");
+    assert!(Path::new(&dir.path().join("d.parquet")).exists());
+    let clobber = ["report", "--table", "d.parquet", "--summary", "s.json", "--output", "s.json"];
+    assert_refused(dir.path(), &clobber, "--summary", "r.html");
+    assert!(
+        summary(&dir.path().join("s.json"))["groups"].as_u64() == Some(3000),
+        "the summary kept its bytes"
+    );
+}
