@@ -47,11 +47,25 @@ pub struct Reporting {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Fit a prior to all groups and write every group's posterior.
+    #[command(args_override_self = true)]
     Fit(FitArgs),
     /// Score groups with a prior saved by an earlier fit, without refitting.
+    #[command(args_override_self = true)]
     Score(ScoreArgs),
     /// Write the HTML report of a run from its output table and summary.
     Report(ReportArgs),
+    /// Check a job file (--config) without running it, naming the key and line of each mistake.
+    CheckConfig(CheckConfigArgs),
+}
+
+/// Options of `check-config`.
+#[derive(Debug, Args)]
+pub struct CheckConfigArgs {
+    /// The job file (TOML).
+    pub file: PathBuf,
+    /// The subcommand it is for (default: its `command` key, else fit).
+    #[arg(long, value_parser = ["fit", "score"])]
+    pub command: Option<String>,
 }
 
 /// Options of `report`.
@@ -115,6 +129,10 @@ pub enum TopMethodArg {
 /// Options shared by fit and score.
 #[derive(Debug, Args)]
 pub struct TableArgs {
+    /// A job file (TOML) holding options, keys named as the long options (`successes = "k"`,
+    /// `flag-fdr = 0.1`, `by = ["kind"]`, `ranks = true`); options given here override it.
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
     /// Input table (.csv or .parquet).
     #[arg(long)]
     pub input: PathBuf,
@@ -298,6 +316,7 @@ fn parse_delimiter(text: &str) -> std::result::Result<u8, String> {
 fn refuse_overlaps(table: &TableArgs, prior: Option<&PathBuf>) -> Result<()> {
     let mut inputs = vec![RunPath { option: "--input", path: &table.input }];
     inputs.extend(prior.map(|path| RunPath { option: "--prior", path }));
+    inputs.extend(table.config.as_deref().map(|path| RunPath { option: "--config", path }));
     let outputs: Vec<RunPath<'_>> = [
         ("--output", &table.output),
         ("--summary", &table.summary),
@@ -593,6 +612,10 @@ impl Command {
     pub fn execute(self, reporting: Reporting) -> Result<Option<crate::report::Summary>> {
         let table = match &self {
             Command::Report(args) => return run_report(args).map(|()| None),
+            Command::CheckConfig(args) => {
+                println!("{}", crate::config::check(&args.file, args.command.as_deref())?);
+                return Ok(None);
+            }
             Command::Fit(args) => &args.table,
             Command::Score(args) => &args.table,
         };
@@ -617,7 +640,9 @@ impl Command {
     /// Validates the arguments into a job (reading the prior file for `score`).
     pub fn into_job(self, report: Reporting) -> Result<Job> {
         match self {
-            Command::Report(_) => Err(Error::Usage("report runs no fit".to_string())),
+            Command::Report(_) | Command::CheckConfig(_) => {
+                Err(Error::Usage("this command runs no fit".to_string()))
+            }
             Command::Fit(args) => {
                 refuse_overlaps(&args.table, None)?;
                 let likelihood = match args.variance_method {
@@ -675,7 +700,7 @@ mod tests {
                 .map(|cli| match cli.command {
                     Command::Fit(args) => args.table,
                     Command::Score(args) => args.table,
-                    Command::Report(_) => unreachable!("a fit was parsed"),
+                    _ => unreachable!("a fit was parsed"),
                 })
                 .expect("parses"),
         )

@@ -26,6 +26,7 @@
 #![deny(missing_docs)]
 
 pub mod cli;
+pub mod config;
 pub mod core;
 pub mod error;
 pub mod io;

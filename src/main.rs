@@ -25,7 +25,14 @@ fn run(cli: Cli) -> ratepool::error::Result<()> {
 }
 
 fn main() -> ExitCode {
-    let cli = Cli::parse();
+    let args = match ratepool::config::expand(std::env::args_os().collect()) {
+        Ok(args) => args,
+        Err(e) => {
+            eprintln!("ratepool: error: {e}");
+            return ExitCode::from(e.exit_code() as u8);
+        }
+    };
+    let cli = Cli::parse_from(args);
     // Panics inside a reader are turned into input errors where they happen
     // (`io::guard`); the default hook would still print each one as a crash.
     // Print nothing there, and report a panic that escapes as an internal error.

@@ -5,6 +5,7 @@
 mod aggregation;
 mod checks;
 mod cli;
+mod config;
 mod decisions;
 mod edges;
 mod facts;
