@@ -63,8 +63,7 @@ pub fn exercise(data: &[u8]) {
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,
-        timings: false,
-        progress: false,
+        watch: Default::default(),
     };
     match run(&job) {
         Ok(summary) => {

@@ -6,7 +6,7 @@ use crate::io::overlap::RunPath;
 use crate::pipeline::validate::{ColumnNames, SizeKind};
 use crate::pipeline::{
     load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Likelihood,
-    Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
+    Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule, Watch,
 };
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -32,15 +32,44 @@ pub struct Cli {
     /// passes over the input, the rows done (at most once a second).
     #[arg(long, global = true)]
     pub progress: bool,
+    /// How stderr speaks: `text`, or `json` for schedulers: one JSON object per line for each
+    /// phase (name, seconds, rows, pairs), each warning, and the end (exit status, outputs
+    /// written, or the error).
+    #[arg(long, global = true, value_enum, default_value_t = LogFormat::Text)]
+    pub log_format: LogFormat,
 }
 
-/// What is reported on stderr besides errors (the global flags).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct Reporting {
-    /// `--timings`.
-    pub timings: bool,
-    /// `--progress`.
-    pub progress: bool,
+/// How stderr speaks.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum LogFormat {
+    /// Words for people.
+    Text,
+    /// One JSON object per line.
+    Json,
+}
+
+impl Cli {
+    /// What the run reports on stderr: progress bars only when stderr is a
+    /// terminal and nothing else was asked of it.
+    pub fn watch(&self) -> Watch {
+        use std::io::IsTerminal;
+        let json = self.log_format == LogFormat::Json;
+        let asked = self.quiet || json || self.progress || self.timings;
+        Watch {
+            timings: self.timings,
+            progress: self.progress,
+            json,
+            bars: !asked && std::io::stderr().is_terminal(),
+        }
+    }
+}
+
+/// What a command did: the summary of a fit or score, and the files written.
+pub struct Outcome {
+    /// The summary of a fit or score.
+    pub summary: Option<crate::report::Summary>,
+    /// Every file written, in the order written.
+    pub outputs: Vec<PathBuf>,
 }
 
 /// Subcommands.
@@ -510,7 +539,7 @@ fn job_of(
     (pair_counts, likelihood): (Option<&String>, Likelihood),
     model: Model,
     prior: PriorSource,
-    report: Reporting,
+    watch: Watch,
 ) -> Result<Job> {
     let (aggregation, count, size) = rows_and_columns(table, model, pair_counts.is_some())?;
     let invalid = match (table.on_invalid, &table.rejects) {
@@ -556,8 +585,7 @@ fn job_of(
         },
         invalid,
         prior,
-        timings: report.timings,
-        progress: report.progress,
+        watch,
     })
 }
 
@@ -609,18 +637,28 @@ fn run_report(args: &ReportArgs) -> Result<()> {
 impl Command {
     /// Runs the command: a fit or a score (with its report when asked for),
     /// or a report of an earlier run. Returns the summary of a fit or score.
-    pub fn execute(self, reporting: Reporting) -> Result<Option<crate::report::Summary>> {
+    pub fn execute(self, watch: Watch) -> Result<Outcome> {
         let table = match &self {
-            Command::Report(args) => return run_report(args).map(|()| None),
+            Command::Report(args) => {
+                run_report(args)?;
+                let mut outputs = vec![args.output.clone()];
+                outputs.extend(args.plots.clone());
+                return Ok(Outcome { summary: None, outputs });
+            }
             Command::CheckConfig(args) => {
                 println!("{}", crate::config::check(&args.file, args.command.as_deref())?);
-                return Ok(None);
+                return Ok(Outcome { summary: None, outputs: Vec::new() });
             }
             Command::Fit(args) => &args.table,
             Command::Score(args) => &args.table,
         };
         let report = table.report.clone().map(|html| (html, table.plots.clone()));
-        let job = self.into_job(reporting)?;
+        let mut outputs: Vec<PathBuf> = [&table.output, &table.rejects, &table.pair_output, &table.summary]
+            .into_iter()
+            .flatten()
+            .cloned()
+            .collect();
+        let job = self.into_job(watch)?;
         let summary = crate::pipeline::run(&job)?;
         if let (Some((html, plots)), Layout::Groups { output, .. }) = (report, &job.layout) {
             crate::view::write_report(&crate::view::ReportRequest {
@@ -633,12 +671,14 @@ impl Command {
             .map_err(|e| {
                 Error::Other(format!("the table and summary were written, but not the report: {e}"))
             })?;
+            outputs.push(html);
+            outputs.extend(plots);
         }
-        Ok(Some(summary))
+        Ok(Outcome { summary: Some(summary), outputs })
     }
 
     /// Validates the arguments into a job (reading the prior file for `score`).
-    pub fn into_job(self, report: Reporting) -> Result<Job> {
+    pub fn into_job(self, watch: Watch) -> Result<Job> {
         match self {
             Command::Report(_) | Command::CheckConfig(_) => {
                 Err(Error::Usage("this command runs no fit".to_string()))
@@ -658,7 +698,7 @@ impl Command {
                     }
                 };
                 let rows = (args.pair_counts.as_ref(), likelihood);
-                job_of(&args.table, rows, args.model, PriorSource::Fit, report)
+                job_of(&args.table, rows, args.model, PriorSource::Fit, watch)
             }
             Command::Score(args) => {
                 refuse_overlaps(&args.table, Some(&args.prior))?;
@@ -676,7 +716,7 @@ impl Command {
                     (None, Likelihood::Marginal),
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
-                    report,
+                    watch,
                 )
             }
         }

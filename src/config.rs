@@ -216,8 +216,8 @@ pub fn check(path: &Path, command: Option<&str>) -> Result<String> {
         let first = text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string();
         report(vec![file.mistake_of(&first)])
     })?;
-    let reporting = crate::cli::Reporting { timings: cli.timings, progress: cli.progress };
-    cli.command.into_job(reporting).map_err(|e| report(vec![file.mistake_of(&e.to_string())]))?;
+    let watch = cli.watch();
+    cli.command.into_job(watch).map_err(|e| report(vec![file.mistake_of(&e.to_string())]))?;
     Ok(format!("{}: a valid `{command}` job ({} keys)", path.display(), file.table.len()))
 }
 

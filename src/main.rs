@@ -1,38 +1,90 @@
 //! The `ratepool` binary: parse, run, print, map the outcome to an exit code
 //! (0 success, 2 bad usage or input, 3 model not fitted, 1 anything else).
 
+use clap::error::ErrorKind;
 use clap::Parser;
-use ratepool::cli::{Cli, Reporting};
+use ratepool::cli::{Cli, LogFormat, Outcome};
+use ratepool::error::Error;
 use std::process::ExitCode;
 
-fn run(cli: Cli) -> ratepool::error::Result<()> {
+fn run(cli: Cli) -> ratepool::error::Result<Outcome> {
     if let Some(threads) = cli.threads {
         rayon::ThreadPoolBuilder::new()
             .num_threads(threads.max(1))
             .build_global()
-            .map_err(|e| ratepool::error::Error::Other(format!("cannot start {threads} threads: {e}")))?;
+            .map_err(|e| Error::Other(format!("cannot start {threads} threads: {e}")))?;
     }
-    let quiet = cli.quiet;
-    let summary = cli.command.execute(Reporting { timings: cli.timings, progress: cli.progress })?;
-    // --quiet leaves only errors on the terminal; the warnings stay in the summary file.
-    if let (false, Some(summary)) = (quiet, summary) {
-        for warning in &summary.warnings {
-            eprintln!("ratepool: warning: {warning}");
+    let (quiet, json) = (cli.quiet, cli.log_format == LogFormat::Json);
+    let watch = cli.watch();
+    let outcome = cli.command.execute(watch)?;
+    if let Some(summary) = &outcome.summary {
+        // --quiet leaves only errors on the terminal; the warnings stay in the summary file.
+        for warning in summary.warnings.iter().filter(|_| !quiet) {
+            if json {
+                eprintln!("{}", serde_json::json!({ "event": "warning", "message": warning }));
+            } else {
+                eprintln!("ratepool: warning: {warning}");
+            }
         }
-        print!("{}", ratepool::report::render_text(&summary));
+        if !quiet {
+            print!("{}", ratepool::report::render_text(summary));
+        }
     }
-    Ok(())
+    Ok(outcome)
+}
+
+/// The last line of a JSON log: the exit status and what was written, or the error.
+fn end_event(result: &ratepool::error::Result<Outcome>) -> serde_json::Value {
+    match result {
+        Ok(outcome) => serde_json::json!({
+            "event": "end",
+            "status": "ok",
+            "exit_code": 0,
+            "outputs": outcome.outputs,
+            "warnings": outcome.summary.as_ref().map_or(0, |s| s.warnings.len()),
+        }),
+        Err(error) => serde_json::json!({
+            "event": "end",
+            "status": "error",
+            "exit_code": error.exit_code(),
+            "error": error.to_string(),
+            "outputs": [],
+        }),
+    }
 }
 
 fn main() -> ExitCode {
-    let args = match ratepool::config::expand(std::env::args_os().collect()) {
-        Ok(args) => args,
-        Err(e) => {
-            eprintln!("ratepool: error: {e}");
-            return ExitCode::from(e.exit_code() as u8);
+    let json = std::env::args().any(|a| a == "--log-format=json")
+        || std::env::args().collect::<Vec<_>>().windows(2).any(|w| w[0] == "--log-format" && w[1] == "json");
+    let finish = |result: ratepool::error::Result<Outcome>| {
+        if json {
+            eprintln!("{}", end_event(&result));
+        }
+        match result {
+            Ok(_) => ExitCode::SUCCESS,
+            Err(error) => {
+                if !json {
+                    eprintln!("ratepool: error: {error}");
+                }
+                ExitCode::from(error.exit_code() as u8)
+            }
         }
     };
-    let cli = Cli::parse_from(args);
+    let args = match ratepool::config::expand(std::env::args_os().collect()) {
+        Ok(args) => args,
+        Err(e) => return finish(Err(e)),
+    };
+    let cli = match Cli::try_parse_from(args) {
+        Ok(cli) => cli,
+        // A usage mistake ends a JSON log like any error.
+        Err(e) if json && !matches!(e.kind(), ErrorKind::DisplayHelp | ErrorKind::DisplayVersion) => {
+            let text = e.to_string();
+            let first = text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string();
+            return finish(Err(Error::Usage(first)));
+        }
+        // Help, the version and usage mistakes, as clap words them.
+        Err(e) => e.exit(),
+    };
     // Panics inside a reader are turned into input errors where they happen
     // (`io::guard`); the default hook would still print each one as a crash.
     // Print nothing there, and report a panic that escapes as an internal error.
@@ -40,16 +92,10 @@ fn main() -> ExitCode {
         std::panic::set_hook(Box::new(|_| {}));
     }
     let outcome = std::panic::catch_unwind(|| run(cli)).unwrap_or_else(|payload| {
-        Err(ratepool::error::Error::Other(format!(
+        Err(Error::Other(format!(
             "internal error: {}; please report this with the input",
             ratepool::io::guard::panic_message(payload.as_ref())
         )))
     });
-    match outcome {
-        Ok(()) => ExitCode::SUCCESS,
-        Err(error) => {
-            eprintln!("ratepool: error: {error}");
-            ExitCode::from(error.exit_code() as u8)
-        }
-    }
+    finish(outcome)
 }

@@ -130,7 +130,7 @@ impl OutcomeColumn {
 
 /// Runs a job whose rows are trials or parts of groups.
 pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
-    let mut clock = PhaseClock::start(job);
+    let mut clock = PhaseClock::start(job.watch);
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let mut columns = vec![(names.group.as_str(), "group")];
@@ -199,7 +199,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
         clock.rows("read and sum", rows, input.known_rows());
         Ok(())
     })?;
-    clock.lap(&format!("read and sum ({} groups)", totals.len()));
+    clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
     if rows == 0 {
         return Err(no_data_rows(job));
     }
@@ -219,7 +219,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     let lookup = PairLookup::new(&met, &tables);
     let scored = score_pairs(job, segments, &mut clock)?;
     let (shift_groups, mut staged) = write_groups(job, output, batch_rows, &scored, &totals, &lookup)?;
-    clock.lap("score and write");
+    clock.lap("score-and-write", "score and write");
     if let InvalidRows::Skip { rejects: path } = &job.invalid {
         let mut sink = TableSink::create(path)?;
         sink.write(rejects.take_columns(&reject_names(job)))?;

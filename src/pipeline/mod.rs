@@ -5,6 +5,7 @@
 //! pre-aggregated pair table that yields only the summary.
 
 mod aggregate;
+mod clock;
 pub mod duplicates;
 mod pair_table;
 pub mod passes;
@@ -16,12 +17,13 @@ pub mod validate;
 use crate::error::{Error, Result};
 use crate::report::Summary;
 use std::path::{Path, PathBuf};
-use std::time::{Duration, Instant};
 use validate::ColumnNames;
 
 pub use crate::core::fit::Likelihood;
 pub use crate::core::model::Model;
 pub use crate::core::ranking::RankOrder;
+pub(crate) use clock::PhaseClock;
+pub use clock::Watch;
 
 /// Rates whose exceedance probabilities are asked for: `above` adds
 /// P(rate > T | data) per group, `below` P(rate < T | data).
@@ -244,66 +246,8 @@ pub struct Job {
     pub invalid: InvalidRows,
     /// Prior source.
     pub prior: PriorSource,
-    /// Print each phase's wall time on stderr.
-    pub timings: bool,
-    /// Report progress through the phases on stderr.
-    pub progress: bool,
-}
-
-/// How often progress through a long phase is reported, at most.
-const REPORT_EVERY: Duration = Duration::from_secs(1);
-
-/// Reports on stderr, when asked to: the wall time of each phase
-/// (`--timings`), and progress (`--progress`): the end of each phase, and
-/// within the two passes the rows done, at most once a second. Progress
-/// is looked at once per batch, never per row, so it costs nothing measurable.
-pub(crate) struct PhaseClock {
-    timings: bool,
-    progress: bool,
-    started: Instant,
-    last: Instant,
-    last_report: Instant,
-}
-
-impl PhaseClock {
-    fn start(job: &Job) -> Self {
-        let now = Instant::now();
-        PhaseClock { timings: job.timings, progress: job.progress, started: now, last: now, last_report: now }
-    }
-
-    /// Ends the current phase, naming it.
-    fn lap(&mut self, phase: &str) {
-        let now = Instant::now();
-        if self.timings {
-            eprintln!("timing {phase}: {:.3} s", (now - self.last).as_secs_f64());
-        }
-        if self.progress {
-            eprintln!("progress {phase}: done at {:.1} s", (now - self.started).as_secs_f64());
-        }
-        self.last = now;
-    }
-
-    /// Within a phase: `done` of `total` rows (when known) are through.
-    /// Reported when a second has passed since the last report, and always
-    /// at the end.
-    fn rows(&mut self, phase: &str, done: usize, total: Option<usize>) {
-        if !self.progress {
-            return;
-        }
-        let now = Instant::now();
-        if total.is_none_or(|total| done < total) && now - self.last_report < REPORT_EVERY {
-            return;
-        }
-        self.last_report = now;
-        let at = (now - self.started).as_secs_f64();
-        match total {
-            Some(total) => {
-                let share = 100.0 * done as f64 / total.max(1) as f64;
-                eprintln!("progress {phase}: {done} of {total} rows ({share:.1}%) at {at:.1} s");
-            }
-            None => eprintln!("progress {phase}: {done} rows at {at:.1} s"),
-        }
-    }
+    /// What is reported on stderr as the run goes.
+    pub watch: Watch,
 }
 
 /// Reads a summary file written by an earlier run, to reuse its prior.

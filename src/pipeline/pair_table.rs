@@ -15,7 +15,7 @@ use crate::report::Summary;
 
 /// Fits the prior to a pair table; every row must be valid.
 pub fn run(job: &Job, weights: &str) -> Result<Summary> {
-    let mut clock = PhaseClock::start(job);
+    let mut clock = PhaseClock::start(job.watch);
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let mut columns =
@@ -46,7 +46,7 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     if rows == 0 {
         return Err(no_data_rows(job));
     }
-    clock.lap("read and validate");
+    clock.lap("read-and-validate", "read and validate");
     let segments: Vec<SegmentPairs> =
         counters.into_segments(&mut index).into_iter().map(|(_, s)| s).collect();
     let scored = score_pairs(job, segments, &mut clock)?;

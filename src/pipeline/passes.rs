@@ -144,7 +144,7 @@ struct PassOne {
 
 /// Runs a job over any input, two passes of `batch_rows` rows.
 pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
-    let mut clock = PhaseClock::start(job);
+    let mut clock = PhaseClock::start(job.watch);
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let mut columns = vec![
@@ -155,12 +155,12 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     columns.extend(job.segments.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
     let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
     let mut first = count_pairs(job, &input, &mut clock)?;
-    clock.lap("pass 1: read, validate, count pairs");
+    clock.lap("pass-1", "pass 1: read, validate, count pairs");
     if first.rows == 0 {
         return Err(no_data_rows(job));
     }
     let repeats = find_repeats(job, &input, &mut first)?;
-    clock.lap("repeated ids: sort the id hashes, compare any that repeat");
+    clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat");
     if let Some(fault) = earliest_fault(job, &input, first.first_fault.take(), &repeats) {
         return Err(fault);
     }
@@ -176,7 +176,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     let rows = first.rows;
     let found = Found { segments: segment_index, pairs: lookup, repeats };
     let (shift_groups, staged) = score_and_write(job, &input, &scored, output, found, (&mut clock, rows))?;
-    clock.lap("pass 2: read, score, write");
+    clock.lap("pass-2", "pass 2: read, score, write");
     let counts = RowCounts { read: rows as u64, rejected: first.rejected as u64 };
     let summary = summarise(job, counts, &scored, shift_groups);
     let mut staged = staged;
@@ -435,14 +435,13 @@ mod tests {
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,
-            timings: false,
-            progress: false,
+            watch: Default::default(),
         }
     }
 
     /// Scores `pairs` as one segment and runs pass 2 over `open`, expecting `rows` rows.
     fn pass_two(job: &Job, open: &Input, output: &Path, pairs: &[WeightedPair], rows: usize) -> Result<()> {
-        let mut clock = PhaseClock::start(job);
+        let mut clock = PhaseClock::start(job.watch);
         let table = PairTable::from_weighted(pairs.iter().copied());
         let lookup = PairLookup::new(&[0], &[table.pairs()]);
         let segment = SegmentPairs { key: Vec::new(), samples: Vec::new(), table };

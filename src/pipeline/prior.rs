@@ -248,14 +248,15 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         segments[0].table.clone()
     };
     let all = all_groups_prior::<F>(job, &all_table)?;
-    clock.lap(&format!("fit ({} distinct pairs)", all_table.pairs().len()));
+    clock.pairs(all_table.pairs().len());
+    clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()));
     let choices: Vec<std::result::Result<Chosen, String>> = if segmented {
         segments.par_iter().map(|segment| segment_prior::<F>(job, segment)).collect::<Result<_>>()?
     } else {
         vec![Ok(all.clone())]
     };
     if segmented {
-        clock.lap(&format!("segment fits ({} segments)", segments.len()));
+        clock.lap("segment-fits", &format!("segment fits ({} segments)", segments.len()));
     }
     let priors: Vec<Prior> = choices.iter().map(|c| c.as_ref().map_or(all.prior, |own| own.prior)).collect();
     let uncertainties: Vec<Option<PriorUncertainty>> =
@@ -343,7 +344,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     });
     let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
     let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
-    clock.lap("posteriors");
+    clock.lap("posteriors", "posteriors");
     let pull = pull_of_pairs(F::TERMS.size_kind, &all_pairs, &posteriors);
     let mut warnings = all.warnings.clone();
     if let Prior::CompletePooling { .. } = all.prior {

@@ -12,6 +12,7 @@ mod facts;
 mod faults;
 mod fits;
 mod fuzz_corpus;
+mod logs;
 mod no_overwrite;
 mod normal;
 mod output;

@@ -1,0 +1,118 @@
+//! What a run says on stderr: one JSON object per line with
+//! `--log-format json` (each phase, each warning, the end), and nothing but
+//! errors when stderr is not a terminal and nothing was asked (no progress
+//! bars in logs or pipes).
+
+use crate::util::{ratepool, stderr, write};
+use serde_json::Value;
+
+const DATA: &str = "id,k,n\na,1,4\nb,3,9\nc,0,2\nd,7,10\ne,2,2\nf,5,12\ng,0,0\nh,9,30\ni,4,11\nj,2,19\n";
+
+fn lines(text: &str) -> Vec<Value> {
+    text.lines().map(|l| serde_json::from_str(l).unwrap_or_else(|e| panic!("not JSON: {l}: {e}"))).collect()
+}
+
+#[test]
+fn a_json_log_has_one_object_per_phase_and_one_for_the_end() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", DATA);
+    let args = [
+        "--log-format",
+        "json",
+        "fit",
+        "--input",
+        "in.csv",
+        "--model",
+        "beta-binomial",
+        "--group",
+        "id",
+        "--successes",
+        "k",
+        "--trials",
+        "n",
+        "--output",
+        "out.parquet",
+        "--summary",
+        "s.json",
+        "--report",
+        "r.html",
+    ];
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let events = lines(&stderr(&out));
+    let phases: Vec<&str> =
+        events.iter().filter(|e| e["event"] == "phase").map(|e| e["name"].as_str().unwrap()).collect();
+    assert_eq!(phases, ["pass-1", "repeated-ids", "fit", "posteriors", "pass-2"]);
+    for phase in events.iter().filter(|e| e["event"] == "phase") {
+        assert!(phase["seconds"].as_f64().unwrap() >= 0.0);
+    }
+    assert_eq!(events[0]["rows"], 10);
+    let fit = events.iter().find(|e| e["name"] == "fit").unwrap();
+    assert_eq!(fit["pairs"].as_u64(), Some(10));
+    let end = events.last().unwrap();
+    assert_eq!(
+        (end["event"].as_str(), end["status"].as_str(), end["exit_code"].as_i64()),
+        (Some("end"), Some("ok"), Some(0))
+    );
+    assert_eq!(end["outputs"], serde_json::json!(["out.parquet", "s.json", "r.html"]));
+    // The summary still goes to stdout, for people.
+    assert!(String::from_utf8_lossy(&out.stdout).starts_with("ratepool beta-binomial"));
+}
+
+#[test]
+fn errors_and_warnings_are_json_too() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", DATA);
+    let bad =
+        ["--log-format", "json", "fit", "--input", "in.csv", "--model", "beta-binomial", "--group", "id"];
+    let out = ratepool(
+        dir.path(),
+        &[&bad[..], &["--successes", "k", "--trials", "nope", "--output", "o.csv"]].concat(),
+    );
+    assert_eq!(out.status.code(), Some(2));
+    let events = lines(&stderr(&out));
+    assert_eq!(events.len(), 1, "{events:?}");
+    assert_eq!(events[0]["status"], "error");
+    assert_eq!(events[0]["exit_code"], 2);
+    assert!(events[0]["error"].as_str().unwrap().contains("no column 'nope'"));
+    // A usage mistake, caught by the parser, ends the log the same way.
+    let out = ratepool(dir.path(), &["--log-format", "json", "fit", "--levle", "0.9"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert_eq!(lines(&stderr(&out))[0]["status"], "error");
+    // A warning (every group has the same rate: no overdispersion) is an object of its own.
+    write(dir.path(), "flat.csv", "id,k,n\na,5,10\nb,5,10\nc,5,10\nd,5,10\n");
+    let flat =
+        ["--log-format", "json", "fit", "--input", "flat.csv", "--model", "beta-binomial", "--group", "id"];
+    let out = ratepool(
+        dir.path(),
+        &[&flat[..], &["--successes", "k", "--trials", "n", "--output", "f.csv"]].concat(),
+    );
+    assert!(out.status.success(), "{}", stderr(&out));
+    let events = lines(&stderr(&out));
+    assert!(events.iter().any(|e| e["event"] == "warning"), "{events:?}");
+}
+
+#[test]
+fn without_a_terminal_nothing_but_the_asked_for_reaches_stderr() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", DATA);
+    let args = [
+        "fit",
+        "--input",
+        "in.csv",
+        "--model",
+        "beta-binomial",
+        "--group",
+        "id",
+        "--successes",
+        "k",
+        "--trials",
+        "n",
+        "--output",
+        "out.csv",
+    ];
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success());
+    // No progress bar (stderr is a pipe here), no control characters.
+    assert!(stderr(&out).is_empty(), "{:?}", stderr(&out));
+}
