@@ -19,23 +19,23 @@ pub struct Cli {
     #[command(subcommand)]
     pub command: Command,
     /// Worker threads (default: all cores). Output is identical for any value.
-    #[arg(long, global = true)]
+    #[arg(long, global = true, help_heading = "Run")]
     pub threads: Option<usize>,
     /// Print nothing but errors: no summary and no warnings on the terminal (the warnings
     /// stay in the summary file).
-    #[arg(long, global = true)]
+    #[arg(long, global = true, help_heading = "Run")]
     pub quiet: bool,
     /// Print the wall time of each phase on stderr.
-    #[arg(long, global = true)]
+    #[arg(long, global = true, help_heading = "Run")]
     pub timings: bool,
     /// Report progress on stderr: the end of each phase and, in the two
     /// passes over the input, the rows done (at most once a second).
-    #[arg(long, global = true)]
+    #[arg(long, global = true, help_heading = "Run")]
     pub progress: bool,
     /// How stderr speaks: `text`, or `json` for schedulers: one JSON object per line for each
     /// phase (name, seconds, rows, pairs), each warning, and the end (exit status, outputs
     /// written, or the error).
-    #[arg(long, global = true, value_enum, default_value_t = LogFormat::Text)]
+    #[arg(long, global = true, value_enum, default_value_t = LogFormat::Text, help_heading = "Run")]
     pub log_format: LogFormat,
 }
 
@@ -76,16 +76,48 @@ pub struct Outcome {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Fit a prior to all groups and write every group's posterior.
-    #[command(args_override_self = true)]
+    #[command(args_override_self = true, after_help = FIT_EXAMPLE)]
     Fit(FitArgs),
     /// Score groups with a prior saved by an earlier fit, without refitting.
-    #[command(args_override_self = true)]
+    #[command(args_override_self = true, after_help = SCORE_EXAMPLE)]
     Score(ScoreArgs),
     /// Write the HTML report of a run from its output table and summary.
+    #[command(after_help = REPORT_EXAMPLE)]
     Report(ReportArgs),
     /// Check a job file (--config) without running it, naming the key and line of each mistake.
+    #[command(after_help = CHECK_EXAMPLE)]
     CheckConfig(CheckConfigArgs),
+    /// Print a shell completion script for ratepool (bash, zsh, fish, elvish or powershell).
+    #[command(
+        after_help = "Example:\n  ratepool completions bash > ~/.local/share/bash-completion/completions/ratepool"
+    )]
+    Completions {
+        /// The shell.
+        shell: clap_complete::Shell,
+    },
+    /// Print the manual page (roff), generated from these options.
+    #[command(after_help = "Example:\n  ratepool manpage > ratepool.1 && man ./ratepool.1")]
+    Manpage,
 }
+
+const FIT_EXAMPLE: &str = "Examples (from the repository root, on the invented demo data):
+  ratepool fit --input demo-data/marketplace.csv --model beta-binomial --group seller_id \\
+    --successes positive_ratings --trials total_ratings --ranks --output sellers.parquet --summary sellers.json
+  ratepool fit --input demo-data/districts.csv --model gamma-poisson --group district_id \\
+    --events observed_cases --exposure expected_cases --above 1 --flag-fdr 0.1 \\
+    --output districts.parquet --summary districts.json --report districts.html
+  ratepool fit --input demo-data/clinic_waits.csv --model normal-normal --group clinic_id \\
+    --estimate mean_wait_minutes --std-error wait_se --variance-method reml --output clinics.csv";
+
+const SCORE_EXAMPLE: &str = "Example (from the repository root; the prior from the fit example above):
+  ratepool score --prior districts.json --input demo-data/districts.csv --group district_id \\
+    --events observed_cases --exposure expected_cases --output scored.parquet --summary scored.json";
+
+const REPORT_EXAMPLE: &str = "Example (from the repository root, after `ratepool fit ... --output districts.parquet --summary districts.json`):
+  ratepool report --table districts.parquet --summary districts.json --output districts.html --plots plots/";
+
+const CHECK_EXAMPLE: &str = "Example (from the repository root):
+  ratepool check-config demo-data/jobs/weekly-fit.toml";
 
 /// Options of `check-config`.
 #[derive(Debug, Args)]
@@ -131,7 +163,7 @@ pub enum InvalidArg {
 pub enum IntervalsArg {
     /// The fitted prior taken as known.
     PlugIn,
-    /// Kass and Steffey's first-order correction for its estimation.
+    /// The prior's estimation uncertainty integrated out.
     Corrected,
 }
 
@@ -160,170 +192,171 @@ pub enum TopMethodArg {
 pub struct TableArgs {
     /// A job file (TOML) holding options, keys named as the long options (`successes = "k"`,
     /// `flag-fdr = 0.1`, `by = ["kind"]`, `ranks = true`); options given here override it.
-    #[arg(long, value_name = "FILE")]
+    #[arg(long, value_name = "FILE", help_heading = "Input")]
     pub config: Option<PathBuf>,
     /// Input table (.csv or .parquet).
-    #[arg(long)]
+    #[arg(long, help_heading = "Input")]
     pub input: PathBuf,
-    /// Column holding the group id (not with --pair-counts).
-    #[arg(long)]
-    pub group: Option<String>,
-    /// Column of successes (beta-binomial).
-    #[arg(long)]
-    pub successes: Option<String>,
-    /// Column of trials (beta-binomial).
-    #[arg(long)]
-    pub trials: Option<String>,
-    /// Column of events (gamma-poisson).
-    #[arg(long)]
-    pub events: Option<String>,
-    /// Column of exposure: person-time, or expected counts (gamma-poisson).
-    #[arg(long)]
-    pub exposure: Option<String>,
-    /// Column of estimates, one per group: a mean rating, a mean waiting time, an effect size
-    /// (normal-normal).
-    #[arg(long)]
-    pub estimate: Option<String>,
-    /// Column of the estimates' standard errors, each finite and above zero (normal-normal).
-    #[arg(long)]
-    pub std_error: Option<String>,
-    /// Output table (.csv or .parquet), written atomically (not with --pair-counts).
-    #[arg(long)]
-    pub output: Option<PathBuf>,
-    /// Also write one row per distinct (size, count) pair with the number of groups sharing it
-    /// and every per-pair output column (.csv or .parquet), to join back to the rows on the two
-    /// count columns in a warehouse.
-    #[arg(long, value_name = "FILE")]
-    pub pair_output: Option<PathBuf>,
-    /// Summary file (JSON), written last.
-    #[arg(long)]
-    pub summary: Option<PathBuf>,
-    /// Also write the HTML report of the run (read back from the output table, after the
-    /// table and summary are written).
-    #[arg(long, value_name = "FILE")]
-    pub report: Option<PathBuf>,
-    /// With --report, also write each plot as its own SVG file into this folder.
-    #[arg(long, value_name = "FOLDER", requires = "report")]
-    pub plots: Option<PathBuf>,
-    /// Add `prob_above`: each group's posterior probability that its rate exceeds T (a
-    /// proportion for the beta-binomial; for standardised ratios T = 1 asks whether the
-    /// relative risk exceeds one).
-    #[arg(long, value_name = "T", allow_negative_numbers = true)]
-    pub above: Option<f64>,
-    /// Add `prob_below`: each group's posterior probability that its rate is below T.
-    #[arg(long, value_name = "T", allow_negative_numbers = true)]
-    pub below: Option<f64>,
     /// Rows are trials: this column holds each trial's outcome (1 or 0, true or false), and
     /// trials and successes are counted per group before the fit (beta-binomial; --successes
     /// and --trials then name the output's count columns, by default `successes` and `trials`).
-    #[arg(long, value_name = "COLUMN")]
+    #[arg(long, value_name = "COLUMN", help_heading = "Input")]
     pub outcome: Option<String>,
     /// Rows are parts of groups (one row per store per day, say): counts and sizes are summed
     /// per group id (per segment with --by) before the fit. Memory grows with the groups.
-    #[arg(long)]
+    #[arg(long, help_heading = "Input")]
     pub aggregate: bool,
+    /// What to do with invalid rows.
+    #[arg(long, value_enum, default_value_t = InvalidArg::Error, help_heading = "Input")]
+    pub on_invalid: InvalidArg,
+    /// Where invalid rows go with --on-invalid skip (.csv or .parquet).
+    #[arg(long, help_heading = "Input")]
+    pub rejects: Option<PathBuf>,
+    /// Accepted for old scripts and changes nothing: every input is now read in batches.
+    #[arg(long, hide = true, help_heading = "Input")]
+    pub stream: bool,
+    /// Field separator of CSV input: one character, or `tab` (default `,`).
+    /// CSV output is always comma-separated.
+    #[arg(long, default_value = ",", value_parser = parse_delimiter, help_heading = "Input")]
+    pub delimiter: u8,
+    /// Rows per batch read (the output is the same for any value).
+    #[arg(long, default_value_t = crate::pipeline::DEFAULT_BATCH_ROWS, help_heading = "Input")]
+    pub batch_rows: usize,
+    /// Column holding the group id (not with --pair-counts).
+    #[arg(long, help_heading = "Model columns")]
+    pub group: Option<String>,
+    /// Column of successes (beta-binomial).
+    #[arg(long, help_heading = "Model columns")]
+    pub successes: Option<String>,
+    /// Column of trials (beta-binomial).
+    #[arg(long, help_heading = "Model columns")]
+    pub trials: Option<String>,
+    /// Column of events (gamma-poisson).
+    #[arg(long, help_heading = "Model columns")]
+    pub events: Option<String>,
+    /// Column of exposure: person-time, or expected counts (gamma-poisson).
+    #[arg(long, help_heading = "Model columns")]
+    pub exposure: Option<String>,
+    /// Column of estimates, one per group: a mean rating, a mean waiting time, an effect size
+    /// (normal-normal).
+    #[arg(long, help_heading = "Model columns")]
+    pub estimate: Option<String>,
+    /// Column of the estimates' standard errors, each finite and above zero (normal-normal).
+    #[arg(long, help_heading = "Model columns")]
+    pub std_error: Option<String>,
+    /// Add `prob_above`: each group's posterior probability that its rate exceeds T (a
+    /// proportion for the beta-binomial; for standardised ratios T = 1 asks whether the
+    /// relative risk exceeds one).
+    #[arg(long, value_name = "T", allow_negative_numbers = true, help_heading = "Analysis")]
+    pub above: Option<f64>,
+    /// Add `prob_below`: each group's posterior probability that its rate is below T.
+    #[arg(long, value_name = "T", allow_negative_numbers = true, help_heading = "Analysis")]
+    pub below: Option<f64>,
     /// Fit one prior per segment: the rows sharing the values of these columns (comma-separated
     /// names). The segment columns are written beside the group id, and `prior_fallback` says
     /// which rows took the prior fitted to all groups.
-    #[arg(long, value_name = "COLUMN[,COLUMN...]", value_delimiter = ',')]
+    #[arg(long, value_name = "COLUMN[,COLUMN...]", value_delimiter = ',', help_heading = "Analysis")]
     pub by: Vec<String>,
     /// A segment with fewer groups takes the prior fitted to all groups (with --by).
-    #[arg(long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_MIN_GROUPS)]
+    #[arg(long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_MIN_GROUPS, help_heading = "Analysis")]
     pub min_groups: usize,
     /// Add `flagged` and `flag_fdr` for the event of --above or --below (give one of them):
     /// the groups most probably showing the event are flagged, as many as keep the mean
     /// posterior probability of no event among them at most Q (a Bayesian false-discovery
     /// rate); `flag_fdr` is the smallest Q that flags the group.
-    #[arg(long, value_name = "Q")]
+    #[arg(long, value_name = "Q", help_heading = "Analysis")]
     pub flag_fdr: Option<f64>,
     /// Add `rank_mean` (1 = highest posterior mean) and `rank_conservative` (1 = highest lower
     /// interval bound: a group must be reliably high to rank high), over the whole table; ties
     /// take the lowest rank of the tie (1, 2, 2, 4).
-    #[arg(long)]
+    #[arg(long, help_heading = "Analysis")]
     pub ranks: bool,
     /// Rank the lowest rates first (implies --ranks; the conservative rank then orders by the
     /// upper interval bound), for rates where low is good.
-    #[arg(long)]
+    #[arg(long, help_heading = "Analysis")]
     pub rank_lowest_first: bool,
     /// Add `prob_top`: each group's posterior probability of being among the K highest rates
     /// (the K lowest with --rank-lowest-first), jointly over all groups.
-    #[arg(long, value_name = "K")]
+    #[arg(long, value_name = "K", help_heading = "Analysis")]
     pub top: Option<usize>,
     /// How prob_top is computed: `draws` (joint draws from every posterior), `threshold`
     /// (each group's probability beyond the rate c where K groups are expected beyond it:
     /// exact in the limit of many groups), or `auto`: draws up to 50,000 groups (1e8 group
     /// draws), the threshold beyond.
-    #[arg(long, value_enum, default_value_t = TopMethodArg::Auto)]
+    #[arg(long, value_enum, default_value_t = TopMethodArg::Auto, help_heading = "Analysis")]
     pub top_method: TopMethodArg,
     /// Draws for prob_top (default: 1e8 / groups, at least 2,000 and at most 100,000; each
     /// draw averages exact posterior tail probabilities: see benches/results/prob-top-accuracy.txt).
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", help_heading = "Analysis")]
     pub top_draws: Option<usize>,
     /// Seed of every random draw: prob_top's and the calibration check's (recorded in the
     /// summary); the same seed gives the same bits on any number of threads.
-    #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
+    #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED, help_heading = "Analysis")]
     pub seed: u64,
-    /// How intervals treat the estimated prior: `plug-in` (as known) or `corrected` (Kass and
-    /// Steffey's first-order correction: the posterior variance plus the delta-method term of
-    /// the prior's covariance, the interval of the Beta or Gamma matched to it).
-    #[arg(long, value_enum, default_value_t = IntervalsArg::PlugIn)]
+    /// How intervals treat the estimated prior: `plug-in` (as known) or `corrected` (its
+    /// estimation uncertainty integrated out: the mixture of each group's posteriors over a
+    /// Gauss-Hermite rule on the fitted prior's sampling distribution, the posterior Kass and
+    /// Steffey approximate; slower, better coverage when groups are few).
+    #[arg(long, value_enum, default_value_t = IntervalsArg::PlugIn, help_heading = "Analysis")]
     pub intervals: IntervalsArg,
     /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
-    #[arg(long, default_value_t = 0.95)]
+    #[arg(long, default_value_t = 0.95, help_heading = "Analysis")]
     pub level: f64,
-    /// What to do with invalid rows.
-    #[arg(long, value_enum, default_value_t = InvalidArg::Error)]
-    pub on_invalid: InvalidArg,
-    /// Where invalid rows go with --on-invalid skip (.csv or .parquet).
-    #[arg(long)]
-    pub rejects: Option<PathBuf>,
-    /// Accepted for old scripts and changes nothing: every input is now read in batches.
-    #[arg(long, hide = true)]
-    pub stream: bool,
-    /// Field separator of CSV input: one character, or `tab` (default `,`).
-    /// CSV output is always comma-separated.
-    #[arg(long, default_value = ",", value_parser = parse_delimiter)]
-    pub delimiter: u8,
-    /// Rows per batch read (the output is the same for any value).
-    #[arg(long, default_value_t = crate::pipeline::DEFAULT_BATCH_ROWS)]
-    pub batch_rows: usize,
+    /// Output table (.csv or .parquet), written atomically (not with --pair-counts).
+    #[arg(long, help_heading = "Output")]
+    pub output: Option<PathBuf>,
+    /// Also write one row per distinct (size, count) pair with the number of groups sharing it
+    /// and every per-pair output column (.csv or .parquet), to join back to the rows on the two
+    /// count columns in a warehouse.
+    #[arg(long, value_name = "FILE", help_heading = "Output")]
+    pub pair_output: Option<PathBuf>,
+    /// Summary file (JSON), written last.
+    #[arg(long, help_heading = "Output")]
+    pub summary: Option<PathBuf>,
+    /// Also write the HTML report of the run (read back from the output table, after the
+    /// table and summary are written).
+    #[arg(long, value_name = "FILE", help_heading = "Output")]
+    pub report: Option<PathBuf>,
+    /// With --report, also write each plot as its own SVG file into this folder.
+    #[arg(long, value_name = "FOLDER", requires = "report", help_heading = "Output")]
+    pub plots: Option<PathBuf>,
 }
 
 /// Options of `fit`.
 #[derive(Debug, Args)]
 pub struct FitArgs {
+    /// Input, columns and outputs.
+    #[command(flatten)]
+    pub table: TableArgs,
     /// The model: beta-binomial (successes out of trials, Beta prior), gamma-poisson
     /// (events over exposure, Gamma prior) or normal-normal (estimates with known standard
     /// errors, normal prior).
-    #[arg(long, value_parser = parse_model)]
+    #[arg(long, value_parser = parse_model, help_heading = "Model columns")]
     pub model: Model,
     /// How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal
     /// likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated
     /// mean: the usual choice when groups are few).
-    #[arg(long, value_enum, default_value_t = VarianceMethodArg::Ml)]
+    #[arg(long, value_enum, default_value_t = VarianceMethodArg::Ml, help_heading = "Analysis")]
     pub variance_method: VarianceMethodArg,
     /// The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL
     /// GROUP BY) and this column holds how many groups share each pair; only the summary
     /// (the prior) is written.
-    #[arg(long, value_name = "COLUMN")]
+    #[arg(long, value_name = "COLUMN", help_heading = "Input")]
     pub pair_counts: Option<String>,
-    /// Input, columns and outputs.
-    #[command(flatten)]
-    pub table: TableArgs,
 }
 
 /// Options of `score`.
 #[derive(Debug, Args)]
 pub struct ScoreArgs {
-    /// A summary file written by `ratepool fit`; its prior is reused.
-    #[arg(long)]
-    pub prior: PathBuf,
-    /// The model; must match the prior file's (taken from it if omitted).
-    #[arg(long, value_parser = parse_model)]
-    pub model: Option<Model>,
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
+    /// A summary file written by `ratepool fit`; its prior is reused.
+    #[arg(long, help_heading = "Input")]
+    pub prior: PathBuf,
+    /// The model; must match the prior file's (taken from it if omitted).
+    #[arg(long, value_parser = parse_model, help_heading = "Model columns")]
+    pub model: Option<Model>,
 }
 
 /// A CSV field separator: one ASCII character other than a quote or a line
@@ -615,6 +648,17 @@ fn layout_of(table: &TableArgs, pair_counts: Option<&String>) -> Result<(String,
     Ok((group, layout))
 }
 
+/// Writes generated text to stdout; a reader that stopped early (`| head`) is no error.
+fn print_bytes(bytes: &[u8], what: &str) -> Result<()> {
+    use std::io::Write;
+    match std::io::stdout().write_all(bytes) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            Err(Error::io(format!("cannot write {what}"), e))
+        }
+        _ => Ok(()),
+    }
+}
+
 /// Writes the HTML report of `report` from its table and summary.
 fn run_report(args: &ReportArgs) -> Result<()> {
     let inputs = [
@@ -649,6 +693,22 @@ impl Command {
                 println!("{}", crate::config::check(&args.file, args.command.as_deref())?);
                 return Ok(Outcome { summary: None, outputs: Vec::new() });
             }
+            Command::Completions { shell } => {
+                use clap::CommandFactory;
+                let mut text = Vec::new();
+                clap_complete::generate(*shell, &mut Cli::command(), "ratepool", &mut text);
+                print_bytes(&text, "the completion script")?;
+                return Ok(Outcome { summary: None, outputs: Vec::new() });
+            }
+            Command::Manpage => {
+                use clap::CommandFactory;
+                let mut text = Vec::new();
+                clap_mangen::Man::new(Cli::command())
+                    .render(&mut text)
+                    .map_err(|e| Error::io("cannot render the manual page", e))?;
+                print_bytes(&text, "the manual page")?;
+                return Ok(Outcome { summary: None, outputs: Vec::new() });
+            }
             Command::Fit(args) => &args.table,
             Command::Score(args) => &args.table,
         };
@@ -680,7 +740,7 @@ impl Command {
     /// Validates the arguments into a job (reading the prior file for `score`).
     pub fn into_job(self, watch: Watch) -> Result<Job> {
         match self {
-            Command::Report(_) | Command::CheckConfig(_) => {
+            Command::Report(_) | Command::CheckConfig(_) | Command::Completions { .. } | Command::Manpage => {
                 Err(Error::Usage("this command runs no fit".to_string()))
             }
             Command::Fit(args) => {

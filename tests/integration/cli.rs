@@ -416,3 +416,62 @@ fn ranks_count_the_groups_strictly_ahead_in_either_direction() {
         }
     }
 }
+
+/// The worked examples at the end of a subcommand's help, each as its arguments.
+fn help_examples(subcommand: &str) -> Vec<Vec<String>> {
+    let out = ratepool(Path::new("."), &[subcommand, "--help"]);
+    assert!(out.status.success());
+    let help = String::from_utf8_lossy(&out.stdout).into_owned();
+    let examples = &help[help.find("Example").unwrap_or_else(|| panic!("{subcommand}: no example"))..];
+    let joined = examples.lines().skip(1).collect::<Vec<_>>().join("\n").replace("\\\n", " ");
+    joined
+        .lines()
+        .map(|line| line.split_whitespace().map(str::to_string).collect::<Vec<_>>())
+        .filter(|words| words.first().is_some_and(|w| w == "ratepool"))
+        .map(|words| words[1..].to_vec())
+        .collect()
+}
+
+#[test]
+fn every_worked_example_in_the_help_runs_on_the_demo_data() {
+    // Run in a scratch folder, with the demo files where the examples name them.
+    let dir = tempfile::tempdir().unwrap();
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    std::os::unix::fs::symlink(root.join("demo-data"), dir.path().join("demo-data")).unwrap();
+    let mut ran = 0;
+    for subcommand in ["fit", "score", "report", "check-config"] {
+        for args in help_examples(subcommand) {
+            let args: Vec<&str> = args.iter().map(String::as_str).collect();
+            let out = ratepool(dir.path(), &[&["--quiet"], &args[..]].concat());
+            assert!(out.status.success(), "{args:?}: {}", stderr(&out));
+            ran += 1;
+        }
+    }
+    assert_eq!(ran, 6);
+    for written in ["sellers.parquet", "districts.html", "clinics.csv", "scored.parquet", "plots/funnel.svg"]
+    {
+        assert!(dir.path().join(written).exists(), "{written}");
+    }
+}
+
+#[test]
+fn completions_and_the_manual_page_come_from_the_definition() {
+    let out = ratepool(Path::new("."), &["completions", "bash"]);
+    assert!(out.status.success());
+    let script = String::from_utf8_lossy(&out.stdout);
+    for word in ["check-config", "--flag-fdr", "--variance-method", "--log-format"] {
+        assert!(script.contains(word), "{word}");
+    }
+    let out = ratepool(Path::new("."), &["manpage"]);
+    assert!(out.status.success());
+    let page = String::from_utf8_lossy(&out.stdout);
+    assert!(page.contains(".TH ratepool 1") && page.contains("fit"), "{}", &page[..200]);
+    // Options come in groups.
+    let out = ratepool(Path::new("."), &["fit", "--help"]);
+    let help = String::from_utf8_lossy(&out.stdout);
+    let headings: Vec<usize> = ["Input:", "Model columns:", "Analysis:", "Output:", "Run:"]
+        .iter()
+        .map(|h| help.find(h).expect(h))
+        .collect();
+    assert!(headings.windows(2).all(|w| w[0] < w[1]), "{headings:?}");
+}
