@@ -10,9 +10,17 @@ returns by store kind from trial rows) and on an invented table with rows
 of zero trials (nulls in raw_rate), segments with a null one, more than one
 row group and many pages.
 
-usage (from the repository root, after `cargo build --release`):
+Besides the values it checks the schema pyarrow reports (counts int64, or
+float64 for exposure and estimates; rates and posteriors float64; the group
+id text; flags boolean), that every column chunk is zstd-compressed, that the
+pair-valued columns are dictionary-encoded, and the footer's key-value
+metadata (model, hyperprior, level, interval method, version).
+
+usage (from the repository root, after `cargo build --release`), or
+`bash scripts/check_output_readers.sh`, which installs the readers first:
     python3 scripts/check_output_readers.py [path/to/ratepool]
 """
+import json
 import csv
 import math
 import os
@@ -66,13 +74,52 @@ def check(parquet_path, csv_path, label):
                 if not same(want[name], got[name]):
                     raise SystemExit(f"{label} {reader}: row {i + 1} {name}: {got[name]!r} != {want[name]!r}")
     footer = pq.read_metadata(parquet_path).metadata or {}
-    assert footer.get(b"ratepool.model") in (b"beta-binomial", b"gamma-poisson"), f"{label}: no model in the footer"
-    assert b"ratepool.hyperprior" in footer, f"{label}: no prior in the footer"
+    model = footer.get(b"ratepool.model", b"").decode()
+    assert model in ("beta-binomial", "gamma-poisson", "normal-normal"), f"{label}: no model in the footer"
+    prior = json.loads(footer[b"ratepool.hyperprior"])
+    assert "mean" in prior and "mean_se" in prior, f"{label}: the footer's prior {prior}"
+    for key in (b"ratepool.version", b"ratepool.level", b"ratepool.intervals"):
+        assert key in footer, f"{label}: no {key} in the footer"
+    check_schema(parquet_path, model, names, label)
     total = duckdb.sql(
         f"SELECT count(*), count(raw_rate), count(*) FILTER (WHERE flagged) FROM '{parquet_path}'"
     ).fetchall()[0]
     print(f"{label}: pyarrow, polars and DuckDB read {len(expected)} rows equal to the CSV output; "
           f"DuckDB counts {total[0]} rows, {total[0] - total[1]} null raw rates, {total[2]} flagged")
+
+
+FLOATS = {"raw_rate", "posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
+          "prob_above", "prob_below", "prob_top", "flag_fdr"}
+INTEGERS = {"rank_mean", "rank_conservative"}
+BOOLEANS = {"flagged", "prior_fallback"}
+
+
+def check_schema(parquet_path, model, names, label):
+    """Types as pyarrow reads them, zstd everywhere, dictionaries for the pair-valued columns."""
+    import pyarrow as pa
+    file = pq.ParquetFile(parquet_path)
+    schema = file.schema_arrow
+    assert pa.types.is_string(schema.field(0).type) or pa.types.is_integer(schema.field(0).type), schema.field(0)
+    for field in schema:
+        if field.name in FLOATS or field.name.startswith("posterior_"):
+            assert field.type == pa.float64(), f"{label}: {field}"
+        elif field.name in INTEGERS:
+            assert field.type == pa.int64(), f"{label}: {field}"
+        elif field.name in BOOLEANS:
+            assert field.type == pa.bool_(), f"{label}: {field}"
+    # The count and size columns follow the group (and segment) columns.
+    counted = [f for f in schema if f.name not in FLOATS | INTEGERS | BOOLEANS and not f.name.startswith("posterior_")]
+    count, size = counted[-2], counted[-1]
+    whole = {"beta-binomial": (pa.int64(), pa.int64()), "gamma-poisson": (pa.int64(), pa.float64()),
+             "normal-normal": (pa.float64(), pa.float64())}[model]
+    assert (count.type, size.type) == whole, f"{label}: {count}, {size} for {model}"
+    metadata = file.metadata
+    for g in range(metadata.num_row_groups):
+        for c in range(metadata.num_columns):
+            chunk = metadata.row_group(g).column(c)
+            assert chunk.compression == "ZSTD", f"{label}: {chunk.path_in_schema} is {chunk.compression}"
+            if c > 0 and chunk.physical_type != "BOOLEAN":
+                assert "RLE_DICTIONARY" in chunk.encodings, f"{label}: {chunk.path_in_schema} {chunk.encodings}"
 
 
 def main():
@@ -102,6 +149,19 @@ def main():
         for ext in ("parquet", "csv"):
             run("demo-data/returns.csv", os.path.join(tmp, f"returns.{ext}"), trials)
         check(os.path.join(tmp, "returns.parquet"), os.path.join(tmp, "returns.csv"), "demo returns by kind")
+
+        for name, args in [
+            ("districts", ["--input", "demo-data/districts.csv", "--model", "gamma-poisson", "--group",
+                           "district_id", "--events", "observed_cases", "--exposure", "expected_cases",
+                           "--above", "1", "--flag-fdr", "0.1", "--intervals", "corrected"]),
+            ("clinics", ["--input", "demo-data/clinic_waits.csv", "--model", "normal-normal", "--group",
+                         "clinic_id", "--estimate", "mean_wait_minutes", "--std-error", "wait_se", "--by", "zone",
+                         "--rank-lowest-first", "--below", "20", "--flag-fdr", "0.1"]),
+        ]:
+            for ext in ("parquet", "csv"):
+                subprocess.run([RATEPOOL, "--quiet", "fit", *args, "--output", os.path.join(tmp, f"{name}.{ext}")],
+                               check=True)
+            check(os.path.join(tmp, f"{name}.parquet"), os.path.join(tmp, f"{name}.csv"), f"demo {name}")
 
 
 if __name__ == "__main__":

@@ -141,9 +141,12 @@ pub struct ReportArgs {
     /// The HTML file to write (one self-contained page).
     #[arg(long)]
     pub output: PathBuf,
-    /// Also write each plot as its own SVG file into this folder.
+    /// Also write each plot as its own file into this folder.
     #[arg(long, value_name = "FOLDER")]
     pub plots: Option<PathBuf>,
+    /// The format of the plots written with --plots.
+    #[arg(long, value_enum, default_value_t = PlotFormatArg::Svg, requires = "plots")]
+    pub plot_format: PlotFormatArg,
     /// Seed of the samples drawn for the scatter plots.
     #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
     pub seed: u64,
@@ -165,6 +168,24 @@ pub enum IntervalsArg {
     PlugIn,
     /// The prior's estimation uncertainty integrated out.
     Corrected,
+}
+
+/// The format of the plots written alone.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum PlotFormatArg {
+    /// SVG, as on the page.
+    Svg,
+    /// PNG.
+    Png,
+}
+
+impl PlotFormatArg {
+    fn format(self) -> crate::view::PlotFormat {
+        match self {
+            PlotFormatArg::Svg => crate::view::PlotFormat::Svg,
+            PlotFormatArg::Png => crate::view::PlotFormat::Png,
+        }
+    }
 }
 
 /// How the normal-normal model estimates the prior variance.
@@ -317,9 +338,12 @@ pub struct TableArgs {
     /// table and summary are written).
     #[arg(long, value_name = "FILE", help_heading = "Output")]
     pub report: Option<PathBuf>,
-    /// With --report, also write each plot as its own SVG file into this folder.
+    /// With --report, also write each plot as its own file into this folder (--plot-format).
     #[arg(long, value_name = "FOLDER", requires = "report", help_heading = "Output")]
     pub plots: Option<PathBuf>,
+    /// The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans).
+    #[arg(long, value_enum, default_value_t = PlotFormatArg::Svg, requires = "plots", help_heading = "Output")]
+    pub plot_format: PlotFormatArg,
 }
 
 /// Options of `fit`.
@@ -674,6 +698,7 @@ fn run_report(args: &ReportArgs) -> Result<()> {
         summary: &summary,
         output: &args.output,
         plots: args.plots.as_deref(),
+        plot_format: args.plot_format.format(),
         seed: args.seed,
     })
 }
@@ -713,6 +738,7 @@ impl Command {
             Command::Score(args) => &args.table,
         };
         let report = table.report.clone().map(|html| (html, table.plots.clone()));
+        let plot_format = table.plot_format.format();
         let mut outputs: Vec<PathBuf> = [&table.output, &table.rejects, &table.pair_output, &table.summary]
             .into_iter()
             .flatten()
@@ -726,6 +752,7 @@ impl Command {
                 summary: &summary,
                 output: &html,
                 plots: plots.as_deref(),
+                plot_format,
                 seed: job.seed,
             })
             .map_err(|e| {

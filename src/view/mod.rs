@@ -22,10 +22,22 @@ pub struct ReportRequest<'a> {
     pub summary: &'a Summary,
     /// The HTML file to write.
     pub output: &'a Path,
-    /// A folder to write each plot into as its own SVG file, too.
+    /// A folder to write each plot into as its own file, too.
     pub plots: Option<&'a Path>,
+    /// The format of those files.
+    pub plot_format: PlotFormat,
     /// Seed of the samples drawn for the scatter plots.
     pub seed: u64,
+}
+
+/// The format of the plots written alone.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum PlotFormat {
+    /// SVG, as on the page.
+    #[default]
+    Svg,
+    /// PNG, rasterised from the SVG.
+    Png,
 }
 
 /// One plot of the page.
@@ -70,7 +82,14 @@ pub fn write_report(request: &ReportRequest<'_>) -> Result<()> {
         std::fs::create_dir_all(folder)
             .map_err(|e| Error::io(format!("cannot create the folder {}", folder.display()), e))?;
         for figure in figures.iter().chain(segment_figures.iter().flatten()) {
-            staged.add(stage_bytes(&folder.join(format!("{}.svg", figure.name)), figure.svg.as_bytes())?);
+            match request.plot_format {
+                PlotFormat::Svg => staged
+                    .add(stage_bytes(&folder.join(format!("{}.svg", figure.name)), figure.svg.as_bytes())?),
+                PlotFormat::Png => {
+                    let png = plots::to_png(&figure.svg)?;
+                    staged.add(stage_bytes(&folder.join(format!("{}.png", figure.name)), &png)?)
+                }
+            }
         }
     }
     staged.commit()

@@ -247,6 +247,22 @@ pub fn pool_weights(counts: &[u64]) -> Result<String> {
     })
 }
 
+/// A plot's SVG rasterised to PNG at its own size, its text set in the
+/// bundled DejaVu Sans (the same bytes on every machine).
+pub fn to_png(svg: &str) -> Result<Vec<u8>> {
+    use resvg::{tiny_skia, usvg};
+    let fail = |what: &str| Error::Other(format!("cannot draw a plot as PNG: {what}"));
+    let mut fonts = usvg::fontdb::Database::new();
+    fonts.load_font_data(dejavu::sans::regular().to_vec());
+    fonts.set_sans_serif_family("DejaVu Sans");
+    let options = usvg::Options { fontdb: std::sync::Arc::new(fonts), ..Default::default() };
+    let tree = usvg::Tree::from_str(svg, &options).map_err(|e| fail(&e.to_string()))?;
+    let size = tree.size().to_int_size();
+    let mut pixmap = tiny_skia::Pixmap::new(size.width(), size.height()).ok_or_else(|| fail("no canvas"))?;
+    resvg::render(&tree, tiny_skia::Transform::default(), &mut pixmap.as_mut());
+    pixmap.encode_png().map_err(|e| fail(&e.to_string()))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -268,6 +284,16 @@ mod tests {
     #[test]
     fn bins_put_outliers_in_the_end_bins() {
         assert_eq!(bin(&[-1.0, 0.05, 0.5, 0.99, 7.0, f64::NAN], (0.0, 1.0), 4), vec![2, 0, 1, 2]);
+    }
+
+    #[test]
+    fn png_copies_are_pngs_of_the_plots_size() {
+        let png = to_png(&calibration(&[10, 12, 9, 11, 10, 8, 10, 12, 9, 9]).unwrap()).unwrap();
+        assert_eq!(&png[..8], b"\x89PNG\r\n\x1a\n");
+        // Width and height, big-endian, in the IHDR chunk (PNG specification).
+        let width = u32::from_be_bytes([png[16], png[17], png[18], png[19]]);
+        let height = u32::from_be_bytes([png[20], png[21], png[22], png[23]]);
+        assert_eq!((width, height), SIZE);
     }
 
     #[test]

@@ -159,3 +159,37 @@ fn a_table_that_is_not_the_summarys_or_an_overlap_is_refused_and_nothing_written
         "the summary kept its bytes"
     );
 }
+
+#[test]
+fn plots_alone_come_as_png_too_the_same_bytes_each_time() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = districts(dir.path(), "d.parquet", &[]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    for folder in ["png-1", "png-2"] {
+        let args = [
+            "report",
+            "--table",
+            "d.parquet",
+            "--summary",
+            "s.json",
+            "--output",
+            "r.html",
+            "--plots",
+            folder,
+            "--plot-format",
+            "png",
+        ];
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+    }
+    for plot in PLOTS {
+        let first = std::fs::read(dir.path().join("png-1").join(format!("{plot}.png"))).unwrap();
+        assert!(first.starts_with(b"\x89PNG\r\n\x1a\n"), "{plot}");
+        assert!(first.len() > 5_000, "{plot}: {} bytes", first.len());
+        assert_eq!(
+            first,
+            std::fs::read(dir.path().join("png-2").join(format!("{plot}.png"))).unwrap(),
+            "{plot}"
+        );
+    }
+}
