@@ -6,8 +6,9 @@ strength). The fitted prior is tests/fixtures/fits.json's (scipy's
 maximiser); Cov is the inverse of the numerical Hessian of the summed
 scipy.stats.betabinom.logpmf (central differences); the integral is the
 7 x 7 Gauss-Hermite rule of numpy's hermegauss; each group's mixture of
-scipy.stats.beta posteriors gives its mean and sd, and its interval ends by
-scipy.optimize.brentq on the mixture CDF.
+scipy.stats.beta posteriors gives its mean and sd, its interval ends by
+scipy.optimize.brentq on the mixture CDF, and its P(rate > T) at the prior
+mean T by the weighted sum of the components' sf.
 
 `tests/integration/fits.rs` compares ratepool's `--intervals corrected`
 within 1e-4 relative (the numerical Hessian bounds the agreement).
@@ -52,7 +53,8 @@ x, w = np.polynomial.hermite_e.hermegauss(7)
 w = w / w.sum()
 chol = np.linalg.cholesky(cov)
 nodes = [(wi * wj, natural(u0 + chol @ np.array([xi, xj]))) for xi, wi in zip(x, w) for xj, wj in zip(x, w)]
-sd, lower, upper = [], [], []
+threshold = a0 / (a0 + b0)
+sd, lower, upper, above = [], [], [], []
 for ki, ni in zip(k, n):
     comps = [(weight, stats.beta(a + ki, b + ni - ki)) for weight, (a, b) in nodes]
     mean = sum(weight * c.mean() for weight, c in comps)
@@ -61,7 +63,9 @@ for ki, ni in zip(k, n):
     cdf = lambda t: sum(weight * c.cdf(t) for weight, c in comps)
     lower.append(optimize.brentq(lambda t: cdf(t) - 0.025, 1e-15, 1 - 1e-15, xtol=1e-15, rtol=1e-14))
     upper.append(optimize.brentq(lambda t: cdf(t) - 0.975, 1e-15, 1 - 1e-15, xtol=1e-15, rtol=1e-14))
+    above.append(sum(weight * c.sf(threshold) for weight, c in comps))
 json.dump({"source": "scripts/make_corrected_fixtures.py (scipy betabinom, numerical Hessian, Gauss-Hermite, brentq)",
-           "covariance": cov.tolist(), "sd": sd, "lower": lower, "upper": upper},
+           "covariance": cov.tolist(), "sd": sd, "lower": lower, "upper": upper,
+           "threshold": threshold, "prob_above": above},
           open("tests/fixtures/corrected.json", "w"))
 print(cov, lower[:3], upper[:3])

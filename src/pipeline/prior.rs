@@ -19,8 +19,8 @@ use crate::core::fit::{
 };
 use crate::core::incomplete::gamma_tails;
 use crate::core::model::{
-    corrected_posterior, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw, RateRange,
-    Uncertainty, Unidentifiable,
+    corrected_posterior, corrected_tails, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw,
+    RateRange, Uncertainty, Unidentifiable,
 };
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{
@@ -295,11 +295,17 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
             None => F::posterior(&priors[place], p.size, p.count, tail),
         })
         .collect();
+    // Exceedance (and so the flags) as the intervals: corrected when they are.
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
         all_pairs
             .par_iter()
             .zip(&place_of_pair)
-            .map(|(p, &place)| F::rate_tails(&priors[place], p.size, p.count, threshold))
+            .map(|(p, &place)| match &spreads[place] {
+                Some(uncertainty) => {
+                    corrected_tails::<F>(&priors[place], uncertainty, p.size, p.count, threshold)
+                }
+                None => F::rate_tails(&priors[place], p.size, p.count, threshold),
+            })
             .collect()
     };
     let (above, below) = (job.thresholds.above.map(tails_at), job.thresholds.below.map(tails_at));

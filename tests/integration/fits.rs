@@ -184,6 +184,19 @@ fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
             assert!(relative(*got, want) < 1e-4, "{column}: {got} vs {want}");
         }
     }
+    // Exceedance integrates the prior's uncertainty out as the intervals do
+    // (the mixture's P(rate > T) at the prior mean, from scipy's beta sf).
+    let threshold = reference["threshold"].as_f64().unwrap().to_string();
+    let (_dir3, _, _, above) = run_fit_with(
+        "beta_binomial_groups.csv",
+        "beta-binomial",
+        ["unit", "hits", "tries"],
+        &["--intervals", "corrected", "--above", &threshold],
+    );
+    for (got, want) in above.floats("prob_above").iter().zip(reference["prob_above"].as_array().unwrap()) {
+        let want = want.as_f64().unwrap();
+        assert!((got - want).abs() < 1e-6 + 1e-4 * want, "prob_above: {got} vs {want}");
+    }
     // Wider than the plug-in intervals: the uncertainty of the prior adds to the group's own.
     let (_dir2, _, _, plug) = run_fit("beta_binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
     let width = |t: &Csv| -> Vec<f64> {

@@ -294,6 +294,12 @@ impl Family for BetaBinomial {
         (beta_quantile(a, b, Tail::Lower, tail), beta_quantile(a, b, Tail::Upper, tail))
     }
 
+    fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64) {
+        let strength = (mean * (1.0 - mean) / variance - 1.0).max(1e-6);
+        let tails = beta_tails(mean * strength, (1.0 - mean) * strength, t, 1.0 - t);
+        (tails.lower, tails.upper)
+    }
+
     fn raw_rate_variance(prior: &Prior, n: f64) -> f64 {
         match *prior {
             Prior::CompletePooling { mean } => mean * (1.0 - mean) / n,

@@ -221,6 +221,11 @@ impl Family for GammaPoisson {
         (gamma_quantile(shape, Tail::Lower, tail) / rate, gamma_quantile(shape, Tail::Upper, tail) / rate)
     }
 
+    fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64) {
+        let tails = gamma_tails(mean * mean / variance, mean / variance * t.max(0.0));
+        (tails.lower, tails.upper)
+    }
+
     fn raw_rate_variance(prior: &Prior, exposure: f64) -> f64 {
         match *prior {
             Prior::CompletePooling { mean } => mean / exposure,

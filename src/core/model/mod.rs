@@ -430,6 +430,36 @@ pub fn corrected_posterior<F: Family>(
     }
 }
 
+/// P(rate < threshold) and P(rate > threshold) for one pair with the
+/// fitted prior's estimation uncertainty integrated out, as
+/// [`corrected_posterior`] integrates it: the node-weighted sums of each
+/// node's exact tails (each tail summed directly, so a small one keeps its
+/// digits); at complete pooling the tails of the law matched to the pooled
+/// rate and its variance.
+pub fn corrected_tails<F: Family>(
+    prior: &Prior,
+    uncertainty: &Uncertainty,
+    size: f64,
+    count: f64,
+    threshold: f64,
+) -> (f64, f64) {
+    match uncertainty {
+        Uncertainty::Spread(spread) => spread.nodes.iter().fold((0.0, 0.0), |(below, above), (w, node)| {
+            let (b, a) = F::rate_tails(node, size, count, threshold);
+            (below + w * b, above + w * a)
+        }),
+        Uncertainty::PooledMean(variance) => {
+            let (mean, sd) = F::posterior_mean_sd(prior, size, count);
+            let variance = sd * sd + variance.max(0.0);
+            if variance == 0.0 {
+                return F::rate_tails(prior, size, count, threshold);
+            }
+            F::matched_tails(mean, variance, threshold)
+        }
+        Uncertainty::Unknown => F::rate_tails(prior, size, count, threshold),
+    }
+}
+
 /// The estimation uncertainty of a fitted prior, ready for corrected intervals.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Uncertainty {
@@ -628,6 +658,9 @@ pub trait Family: Sync {
     /// of this model with the given mean and variance (a Beta or a Gamma
     /// matched to the two moments; a Beta's variance is held below m(1 − m)).
     fn matched_interval(mean: f64, variance: f64, tail: f64) -> (f64, f64);
+    /// P(rate < t) and P(rate > t) under the law [`Family::matched_interval`] matches
+    /// to `mean` and `variance`.
+    fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64);
     /// Where a group's count falls in its prior predictive distribution
     /// (the marginal of the count given its size): (P(K < count), P(K ≤ count)).
     fn predictive_cdf(prior: &Prior, size: f64, count: f64) -> (f64, f64);
@@ -692,6 +725,19 @@ mod quadrature {
         let peak = 1.0 / (2.0 * (2.0 * std::f64::consts::PI).sqrt());
         assert!(close(RateLaw::Normal { mean: 1.0, sd: 2.0 }.density(1.0), peak));
         assert_eq!(RateLaw::Beta { alpha: 2.0, beta: 3.0 }.density(1.5), 0.0);
+    }
+
+    #[test]
+    fn corrected_tails_at_complete_pooling_are_those_of_the_matched_law() {
+        use super::normal_normal::NormalNormal;
+        // The law matched to the pooled mean is symmetric for the normal model:
+        // half its mass either side of the mean (common practice).
+        let prior = Prior::CompletePooling { mean: 2.5 };
+        let (below, above) =
+            corrected_tails::<NormalNormal>(&prior, &Uncertainty::PooledMean(0.04), 1.0, 3.0, 2.5);
+        assert!((below - 0.5).abs() < 1e-15 && (above - 0.5).abs() < 1e-15);
+        // With nothing known of the uncertainty, the plug-in point mass.
+        assert_eq!(corrected_tails::<NormalNormal>(&prior, &Uncertainty::Unknown, 1.0, 3.0, 2.0), (0.0, 1.0));
     }
 
     #[test]

@@ -273,6 +273,10 @@ impl Family for NormalNormal {
         normal_interval(mean, variance.sqrt(), tail)
     }
 
+    fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64) {
+        normal_tails(mean, variance.sqrt(), t)
+    }
+
     fn predictive_cdf(prior: &Prior, se: f64, y: f64) -> (f64, f64) {
         // A continuous predictive: both ends are Φ((y − μ)/√(s² + τ²)).
         let (mean, variance) = match *prior {
