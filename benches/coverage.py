@@ -60,7 +60,7 @@ if NORMAL:
     print(f"{'groups':>7} {'kept':>5}  {'plug-in se>=1':>11} {'corrected se>=1':>13}  {'plug-in all':>11} {'corrected all':>13}"
           f"  {'pooled':>7}  {'interior: plug-in':>10} {'corrected':>12}")
 else:
-    print(f"prior Beta(2, 18); sizes {list(SIZES)}; {DATA_SETS} data sets per cell; seed 20261204")
+    print(f"prior Beta(2, 18); sizes {[int(x) for x in SIZES]}; {DATA_SETS} data sets per cell; seed 20261204")
     print(f"{'groups':>7} {'kept':>5}  {'plug-in <10':>11} {'corrected <10':>13}  {'plug-in all':>11} {'corrected all':>13}"
       f"  {'pooled':>7}  {'interior: plug-in':>10} {'corrected':>12}")
 with tempfile.TemporaryDirectory() as tmp:

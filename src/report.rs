@@ -311,6 +311,11 @@ pub struct FitReport {
     /// under REML); null in older files.
     #[serde(default)]
     pub pooling_test: Option<TestReport>,
+    /// With corrected intervals of a fit of at most 20,000 groups: the
+    /// median bias of the working coordinates by parametric bootstrap
+    /// (the quadrature nodes are centred on the fit less it); null otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub working_bias: Option<[f64; 2]>,
     /// Covariance of the working coordinates (inverse observed information)
     /// of an interior fit, for corrected intervals; null at the boundary.
     #[serde(default)]

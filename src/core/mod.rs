@@ -1,6 +1,8 @@
-//! The pure numerical core: special functions, distributions, the two models,
-//! the fit and the posterior summaries. Nothing here reads or writes files.
+//! The pure numerical core: special functions, distributions, the three
+//! models, the fit, the bootstrap of a fitted prior and the posterior
+//! summaries. Nothing here reads or writes files.
 
+pub mod bootstrap;
 pub mod diagnostics;
 pub mod fit;
 pub mod incomplete;

@@ -9,7 +9,6 @@
 use super::model::RateLaw;
 use rand::{RngCore, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use rand_distr::{Beta, Distribution, Gamma, Normal};
 use rayon::prelude::*;
 
 /// Which end of the rates ranks first.
@@ -133,20 +132,6 @@ pub enum TopMethod {
     },
 }
 
-/// Draws from a rate law.
-fn draw(law: &RateLaw, rng: &mut ChaCha8Rng) -> f64 {
-    match *law {
-        RateLaw::Beta { alpha, beta } => {
-            Beta::new(alpha, beta).map_or(alpha / (alpha + beta), |d| d.sample(rng))
-        }
-        RateLaw::Gamma { shape, rate } => {
-            Gamma::new(shape, 1.0 / rate).map_or(shape / rate, |d| d.sample(rng))
-        }
-        RateLaw::Normal { mean, sd } => Normal::new(mean, sd).map_or(mean, |d| d.sample(rng)),
-        RateLaw::Point(mean) => mean,
-    }
-}
-
 /// P(a group is among the `k` best of all groups) per pair, by joint draws
 /// from every group's posterior (`weights[i]` groups share the law
 /// `laws[i]`), Rao–Blackwellised: in each draw, a group is among the best
@@ -183,7 +168,7 @@ pub fn top_probabilities_by_draws(
                 values.clear();
                 for (pair, (law, &weight)) in laws.iter().zip(weights).enumerate() {
                     for _ in 0..weight as usize {
-                        let value = draw(law, &mut rng);
+                        let value = law.sample(&mut rng);
                         let value = if order == RankOrder::LowestFirst { -value } else { value };
                         values.push((value, rng.next_u32(), pair as u32));
                     }

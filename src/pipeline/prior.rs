@@ -247,17 +247,34 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     } else {
         segments[0].table.clone()
     };
-    let all = all_groups_prior::<F>(job, &all_table)?;
+    let mut all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(all_table.pairs().len());
     clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()));
-    let choices: Vec<std::result::Result<Chosen, String>> = if segmented {
+    // Corrected intervals of a fit: the median bias of each prior, by parametric bootstrap.
+    let bootstrap = job.intervals == Intervals::Corrected && matches!(job.prior, PriorSource::Fit);
+    if bootstrap {
+        all.fit.working_bias = bias_of::<F>(job, &all, &all_table, 0);
+    }
+    let mut choices: Vec<std::result::Result<Chosen, String>> = if segmented {
         segments.par_iter().map(|segment| segment_prior::<F>(job, segment)).collect::<Result<_>>()?
     } else {
         vec![Ok(all.clone())]
     };
+    if segmented && bootstrap {
+        for (place, (choice, segment)) in choices.iter_mut().zip(&segments).enumerate() {
+            if let Ok(own) = choice {
+                own.fit.working_bias = bias_of::<F>(job, own, &segment.table, place as u64 + 1);
+            }
+        }
+    }
     if segmented {
         clock.lap("segment-fits", &format!("segment fits ({} segments)", segments.len()));
     }
+    if bootstrap {
+        clock.lap("bootstrap", "median bias of the priors (parametric bootstrap)");
+    }
+    let biases: Vec<Option<[f64; 2]>> =
+        choices.iter().map(|c| c.as_ref().map_or(all.fit.working_bias, |own| own.fit.working_bias)).collect();
     let priors: Vec<Prior> = choices.iter().map(|c| c.as_ref().map_or(all.prior, |own| own.prior)).collect();
     let uncertainties: Vec<Option<PriorUncertainty>> =
         choices.iter().map(|c| c.as_ref().map_or(all.uncertainty, |own| own.uncertainty)).collect();
@@ -282,8 +299,9 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     let spreads: Vec<Option<Uncertainty>> = priors
         .iter()
         .zip(&uncertainties)
-        .map(|(prior, known)| match (job.intervals, known) {
-            (Intervals::Corrected, Some(known)) => Some(Uncertainty::of::<F>(prior, *known)),
+        .enumerate()
+        .map(|(place, (prior, known))| match (job.intervals, known) {
+            (Intervals::Corrected, Some(known)) => Some(Uncertainty::of::<F>(prior, *known, biases[place])),
             _ => None,
         })
         .collect();
@@ -442,6 +460,21 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         segment_test,
         checks,
     })
+}
+
+/// Tables of more groups than this get no bootstrap: the median bias of a
+/// fit shrinks as 1/groups, and at 1,000 groups the corrected coverage was
+/// already within 0.1 point of 95% without it (benches/coverage.py).
+const BOOTSTRAP_MAX_GROUPS: f64 = 20_000.0;
+
+/// The median bias of a chosen prior fitted to `table`, for corrected
+/// intervals (None for complete pooling, a large table or failed refits).
+fn bias_of<F: Family>(job: &Job, chosen: &Chosen, table: &PairTable, salt: u64) -> Option<[f64; 2]> {
+    let Prior::Conjugate { natural } = chosen.prior else { return None };
+    if table.groups() > BOOTSTRAP_MAX_GROUPS {
+        return None;
+    }
+    crate::core::bootstrap::median_bias::<F>(natural, table, job.likelihood, job.seed.wrapping_add(salt))
 }
 
 /// A calibration p-value below this calls the fit poor: a false alarm one
@@ -633,6 +666,7 @@ fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
         .to_string(),
         restricted_log_likelihood: fitted.restricted_log_likelihood,
         pooling_test: Some(pooling_report(&fitted.pooling)),
+        working_bias: None,
         working_covariance: match fitted.uncertainty {
             PriorUncertainty::Working(cov) => Some(cov),
             PriorUncertainty::PooledMean(_) => None,

@@ -344,7 +344,7 @@ fn figure_html(figure: &Figure, out: &mut String) {
 /// The cautions every report carries (as the README gives them).
 const CAUTIONS: [&str; 6] = [
     "Read the calibration before the ranks and flags: a poor fit means one prior does not describe the groups, and every posterior leans on that prior.",
-    "Plug-in intervals treat the fitted prior as known and run short when groups are few; corrected intervals do better, and below about 200 groups even they run somewhat short.",
+    "Plug-in intervals treat the fitted prior as known and run short when groups are few; corrected intervals do better, and below about 50 groups even they run short.",
     "Rankings of sellers affect livelihoods: a posterior mean ranks by expected rate, not by certainty. Read the interval and the pool weight before acting on a rank, and defer to the rules of your platform and jurisdiction.",
     "A smoothed disease rate is not a diagnosis and not proof of a cluster. This does not replace epidemiological judgement, case review or licensed practice; small-area counts may be disclosive, so follow local rules on suppression before publishing.",
     "A flag is a statement about a set: at a false-discovery rate of 0.1 about one flag in ten is expected to be wrong. Look at a group's data before acting on its flag, and do not lower the rate after seeing the result.",

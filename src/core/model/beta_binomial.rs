@@ -294,6 +294,11 @@ impl Family for BetaBinomial {
         (beta_quantile(a, b, Tail::Lower, tail), beta_quantile(a, b, Tail::Upper, tail))
     }
 
+    fn draw_count(rate: f64, n: f64, rng: &mut rand_chacha::ChaCha8Rng) -> f64 {
+        use rand_distr::{Binomial, Distribution};
+        Binomial::new(n as u64, rate.clamp(0.0, 1.0)).map_or(rate * n, |d| d.sample(rng) as f64)
+    }
+
     fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64) {
         let strength = (mean * (1.0 - mean) / variance - 1.0).max(1e-6);
         let tails = beta_tails(mean * strength, (1.0 - mean) * strength, t, 1.0 - t);

@@ -221,6 +221,15 @@ impl Family for GammaPoisson {
         (gamma_quantile(shape, Tail::Lower, tail) / rate, gamma_quantile(shape, Tail::Upper, tail) / rate)
     }
 
+    fn draw_count(rate: f64, exposure: f64, rng: &mut rand_chacha::ChaCha8Rng) -> f64 {
+        use rand_distr::{Distribution, Poisson};
+        let lambda = rate * exposure;
+        if lambda <= 0.0 {
+            return 0.0;
+        }
+        Poisson::new(lambda).map_or(lambda.round(), |d| d.sample(rng))
+    }
+
     fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64) {
         let tails = gamma_tails(mean * mean / variance, mean / variance * t.max(0.0));
         (tails.lower, tails.upper)

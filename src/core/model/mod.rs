@@ -274,6 +274,21 @@ pub enum RateLaw {
 }
 
 impl RateLaw {
+    /// One draw from the law (its mean where its parameters admit no draw).
+    pub fn sample(&self, rng: &mut rand_chacha::ChaCha8Rng) -> f64 {
+        use rand_distr::{Beta, Distribution, Gamma, Normal};
+        match *self {
+            RateLaw::Beta { alpha, beta } => {
+                Beta::new(alpha, beta).map_or(alpha / (alpha + beta), |d| d.sample(rng))
+            }
+            RateLaw::Gamma { shape, rate } => {
+                Gamma::new(shape, 1.0 / rate).map_or(shape / rate, |d| d.sample(rng))
+            }
+            RateLaw::Normal { mean, sd } => Normal::new(mean, sd).map_or(mean, |d| d.sample(rng)),
+            RateLaw::Point(mean) => mean,
+        }
+    }
+
     /// The law's density at `x` (0 outside its support; infinite at a point mass's point).
     pub fn density(&self, x: f64) -> f64 {
         use crate::core::special::ln_gamma;
@@ -348,10 +363,17 @@ pub struct SpreadPrior {
 
 impl SpreadPrior {
     /// The nodes of `natural` (the fitted prior) spread by `covariance` of
-    /// its working coordinates.
-    pub fn new<F: Family>(natural: [f64; 2], covariance: [[f64; 2]; 2]) -> Option<Self> {
+    /// its working coordinates, centred on the fit less `bias` (the median
+    /// bias of [`crate::core::bootstrap::median_bias`]) when it is known.
+    pub fn new<F: Family>(
+        natural: [f64; 2],
+        covariance: [[f64; 2]; 2],
+        bias: Option<[f64; 2]>,
+    ) -> Option<Self> {
         let (mean, strength) = F::mean_strength_of_natural(natural);
-        let u = F::working(mean, strength);
+        let fitted = F::working(mean, strength);
+        let shift = bias.unwrap_or([0.0, 0.0]);
+        let u = [fitted[0] - shift[0], fitted[1] - shift[1]];
         // Cholesky factor of the covariance.
         let l00 = covariance[0][0].sqrt();
         let l10 = covariance[1][0] / l00;
@@ -472,11 +494,11 @@ pub enum Uncertainty {
 }
 
 impl Uncertainty {
-    /// From a prior and what the fit knew of its uncertainty.
-    pub fn of<F: Family>(prior: &Prior, known: PriorUncertainty) -> Self {
+    /// From a prior, what the fit knew of its uncertainty, and its median bias when known.
+    pub fn of<F: Family>(prior: &Prior, known: PriorUncertainty, bias: Option<[f64; 2]>) -> Self {
         match (*prior, known) {
             (Prior::Conjugate { natural }, PriorUncertainty::Working(cov)) => {
-                SpreadPrior::new::<F>(natural, cov).map_or(Uncertainty::Unknown, Uncertainty::Spread)
+                SpreadPrior::new::<F>(natural, cov, bias).map_or(Uncertainty::Unknown, Uncertainty::Spread)
             }
             (Prior::CompletePooling { .. }, PriorUncertainty::PooledMean(variance)) => {
                 Uncertainty::PooledMean(variance)
@@ -664,6 +686,9 @@ pub trait Family: Sync {
     /// Where a group's count falls in its prior predictive distribution
     /// (the marginal of the count given its size): (P(K < count), P(K ≤ count)).
     fn predictive_cdf(prior: &Prior, size: f64, count: f64) -> (f64, f64);
+    /// A group's count drawn given its rate and size: Binomial(n, p),
+    /// Poisson(E λ) or N(θ, s²).
+    fn draw_count(rate: f64, size: f64, rng: &mut rand_chacha::ChaCha8Rng) -> f64;
     /// The variance of a group's raw rate (count / size, size > 0) under
     /// its prior predictive distribution.
     fn raw_rate_variance(prior: &Prior, size: f64) -> f64;

@@ -273,6 +273,11 @@ impl Family for NormalNormal {
         normal_interval(mean, variance.sqrt(), tail)
     }
 
+    fn draw_count(theta: f64, se: f64, rng: &mut rand_chacha::ChaCha8Rng) -> f64 {
+        use rand_distr::{Distribution, Normal};
+        Normal::new(theta, se).map_or(theta, |d| d.sample(rng))
+    }
+
     fn matched_tails(mean: f64, variance: f64, t: f64) -> (f64, f64) {
         normal_tails(mean, variance.sqrt(), t)
     }
