@@ -12,6 +12,9 @@ the all-groups prior; those are left out and counted. Coverage is the share
 of true rates inside their interval: the empirical-Bayes coverage,
 averaged over the prior.
 
+With MODEL=gamma-poisson the data sets are drawn from Gamma(shape 4, rate 4)
+(relative risks around 1) with exposures (expected counts) drawn from 0.2,
+0.5, 1, 2, 5, 10 and 30 (three in seven below 2, the small ones).
 With MODEL=normal-normal (or normal-normal-reml, the restricted likelihood)
 the data sets are drawn from N(0, 1) with standard errors drawn from 0.25,
 0.5, 1, 2 and 4 (three in five at 1 or more, the noisy groups that stand in
@@ -33,6 +36,8 @@ CELLS = [20, 50, 200, 1000]
 DATA_SETS = 1000
 MODEL = os.environ.get("MODEL", "beta-binomial")
 NORMAL = MODEL.startswith("normal-normal")
+GAMMA = MODEL == "gamma-poisson"
+EXPOSURES = np.array([0.2, 0.5, 1.0, 2.0, 5.0, 10.0, 30.0])
 SES = np.array([0.25, 0.5, 1.0, 2.0, 4.0])
 rng = np.random.default_rng(20261204)
 
@@ -42,6 +47,8 @@ def run(path, out, intervals):
         model = ["--model", "normal-normal", "--estimate", "k", "--std-error", "n"]
         if MODEL.endswith("reml"):
             model += ["--variance-method", "reml"]
+    elif GAMMA:
+        model = ["--model", "gamma-poisson", "--events", "k", "--exposure", "n"]
     else:
         model = ["--model", "beta-binomial", "--successes", "k", "--trials", "n"]
     subprocess.run([RATEPOOL, "--quiet", "fit", *model, "--input", path, "--group", "id",
@@ -55,7 +62,11 @@ def run(path, out, intervals):
     return rows
 
 
-if NORMAL:
+if GAMMA:
+    print(f"gamma-poisson: prior Gamma(4, rate 4); exposures {[float(x) for x in EXPOSURES]}; {DATA_SETS} data sets per cell; seed 20261204")
+    print(f"{'groups':>7} {'kept':>5}  {'plug-in E<2':>11} {'corrected E<2':>13}  {'plug-in all':>11} {'corrected all':>13}"
+          f"  {'pooled':>7}  {'interior: plug-in':>10} {'corrected':>12}")
+elif NORMAL:
     print(f"{MODEL}: prior N(0, 1); standard errors {[float(x) for x in SES]}; {DATA_SETS} data sets per cell; seed 20261204")
     print(f"{'groups':>7} {'kept':>5}  {'plug-in se>=1':>11} {'corrected se>=1':>13}  {'plug-in all':>11} {'corrected all':>13}"
           f"  {'pooled':>7}  {'interior: plug-in':>10} {'corrected':>12}")
@@ -70,7 +81,13 @@ with tempfile.TemporaryDirectory() as tmp:
         with open(path, "w") as f:
             f.write("id,dataset,k,n\n")
             for d in range(DATA_SETS):
-                if NORMAL:
+                if GAMMA:
+                    theta = rng.gamma(4.0, 1.0 / 4.0, size=groups)
+                    n = rng.choice(EXPOSURES, size=groups)
+                    k = rng.poisson(theta * n)
+                    # "Small" below means an exposure under 2.
+                    small = 5.0 * n
+                elif NORMAL:
                     theta = rng.normal(0.0, 1.0, size=groups)
                     n = rng.choice(SES, size=groups)
                     k = rng.normal(theta, n)
