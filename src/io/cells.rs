@@ -92,6 +92,25 @@ impl NumericColumn {
         Ok(NumericColumn::Integers(parsed))
     }
 
+    /// Reads a column of real numbers (estimates, standard errors) once per
+    /// batch: any numeric type as 64-bit floats, text by [`parse_text`]
+    /// itself, so the fast check and the full one read the same value
+    /// (`-0` is 0 there, `-0.0` is −0).
+    pub fn of_reals(array: &ArrayRef) -> Result<Self> {
+        let dtype = array.data_type();
+        if dtype.is_integer() || dtype.is_floating() {
+            return Ok(NumericColumn::Floats(float_column(array)?));
+        }
+        let texts = cast(array, &DataType::Utf8)?;
+        let texts = texts.as_string::<i32>();
+        let real = |text: &str| match parse_text(text) {
+            Cell::Integer(v) => Some(v as f64),
+            Cell::Number(v) => Some(v),
+            _ => None,
+        };
+        Ok(NumericColumn::Floats(texts.iter().map(|t| t.and_then(real)).collect()))
+    }
+
     /// The value at `row` as a whole number, when plainly one.
     pub fn integer(&self, row: usize) -> Option<i64> {
         match self {
@@ -242,6 +261,24 @@ impl GroupColumn {
 mod tests {
     use super::*;
     use std::sync::Arc;
+
+    #[test]
+    fn reals_read_fast_are_the_values_the_full_check_reads() {
+        let texts =
+            ["2.5", "+2.5", " 3 ", "-0", "1e3", ".5", "5.", "12345678901234567890123", "x", "", "inf", "NaN"];
+        let array: ArrayRef = Arc::new(StringArray::from(texts.to_vec()));
+        let NumericColumn::Floats(fast) = NumericColumn::of_reals(&array).unwrap() else { panic!("floats") };
+        for (row, text) in texts.iter().enumerate() {
+            let full = match parse_text(text) {
+                Cell::Integer(v) => Some(v as f64),
+                Cell::Number(v) => Some(v),
+                _ => None,
+            };
+            let got = fast.is_valid(row).then(|| fast.value(row));
+            // Equal values, or both unreadable (NaN compares by its bits here).
+            assert_eq!(got.map(f64::to_bits), full.map(f64::to_bits), "{text:?}");
+        }
+    }
 
     #[test]
     fn plain_integers_parse_and_everything_else_is_left_to_the_full_check() {

@@ -45,12 +45,15 @@ pub(super) struct BatchView<'a> {
 }
 
 impl<'a> BatchView<'a> {
-    pub(super) fn of(batch: &'a InputBatch<'a>) -> Result<Self> {
+    pub(super) fn of(batch: &'a InputBatch<'a>, kind: SizeKind) -> Result<Self> {
+        // Estimates and standard errors are read as reals; counts and sizes as integers where they are.
+        let numeric =
+            if kind == SizeKind::StandardError { NumericColumn::of_reals } else { NumericColumn::of };
         Ok(BatchView {
             batch,
             group: GroupColumn::of(&batch.columns[0])?,
-            counts: NumericColumn::of(&batch.columns[1])?,
-            sizes: NumericColumn::of(&batch.columns[2])?,
+            counts: numeric(&batch.columns[1])?,
+            sizes: numeric(&batch.columns[2])?,
             segments: SegmentColumns::of(&batch.columns[3..])?,
         })
     }
@@ -198,7 +201,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassO
         ids: IdHashes::with_capacity(total.unwrap_or(0)),
     };
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch)?;
+        let view = BatchView::of(&batch, job.model.terms().size_kind)?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
                 view.group.with_bytes(row, |id| pass.ids.push(id));
@@ -233,7 +236,7 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
     }
     let mut finder = RepeatFinder::new(candidates);
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch)?;
+        let view = BatchView::of(&batch, job.model.terms().size_kind)?;
         for row in 0..batch.rows() {
             if view.group.is_missing(row) {
                 continue;
@@ -338,7 +341,7 @@ fn score_and_write(
             Ok(sink)
         });
         let produced = input.for_each_batch(|batch| {
-            let view = BatchView::of(&batch)?;
+            let view = BatchView::of(&batch, job.model.terms().size_kind)?;
             let (mut kept, mut pair_of_row) =
                 (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
             for row in 0..batch.rows() {
