@@ -45,7 +45,7 @@ pub fn ln_pmf(k: f64, n: f64, alpha: f64, beta: f64) -> f64 {
 }
 
 /// Terms summed on each side of k before [`beta_binomial_cdf`] takes the counts as continuous.
-const CDF_TERMS: u32 = 200_000;
+const CDF_TERMS: u32 = 20_000;
 
 /// (P(K < k), P(K ≤ k)) for K ~ BetaBinomial(n, α, β), by summing the pmf
 /// out from k in both directions with the ratio of neighbouring terms,
@@ -54,24 +54,29 @@ const CDF_TERMS: u32 = 200_000;
 /// 2^-600 when a side grows past 2^600, so a count deep in a tail neither
 /// overflows nor loses the other side. The work follows the spread of the
 /// distribution around k (a few standard deviations), not n; where that
-/// spread needs more than [`CDF_TERMS`] terms a side (n in the trillions
-/// under a wide prior: found by fuzzing, where the sum ran for hours), K/n is
-/// taken as continuous, P(K ≤ k) ≈ I_x(α, β) at x = (k + ½)/n: the binomial
-/// noise about np is symmetric, so the error is of second order in the ratio
-/// of its spread √(np(1 − p)) to the whole spread, small where the sum is
-/// long; the calibration check, which bins these values in tenths, is the
-/// only user.
+/// spread needs more than [`CDF_TERMS`] terms a side (n in the billions
+/// under a wide prior: found by fuzzing, where the sum ran for hours), the
+/// terms summed stay exact and the smooth far tail beyond them is taken as
+/// continuous: K/n as the Beta matched to its mean and variance (the prior's
+/// Beta when the prior's spread dominates, the binomial proportion's when
+/// the binomial noise does). Its error is far below the tenths the
+/// calibration check, the only user, bins these in.
 pub fn beta_binomial_cdf(n: f64, k: f64, alpha: f64, beta: f64) -> (f64, f64) {
+    cdf_summed_up_to(n, k, alpha, beta, CDF_TERMS)
+}
+
+/// [`beta_binomial_cdf`] with at most `most` terms a side before the continuous form.
+fn cdf_summed_up_to(n: f64, k: f64, alpha: f64, beta: f64, most: u32) -> (f64, f64) {
     const BIG: f64 = 4.149515568880993e180; // 2^600
     let step_up = |j: f64| (n - j) * (j + alpha) / ((j + 1.0) * (n - j - 1.0 + beta));
-    // Each side: (sum, number of 2^-600 rescalings), in units of p(k); None past CDF_TERMS terms.
-    let side = |down: bool| -> Option<(f64, i32)> {
+    // Each side: (sum, number of 2^-600 rescalings, where it stopped short), in units of p(k).
+    let side = |down: bool| -> (f64, i32, Option<f64>) {
         let (mut sum, mut term, mut scale, mut j) = (0.0, 1.0, 0, k);
         let mut terms = 0;
         loop {
             terms += 1;
-            if terms > CDF_TERMS {
-                return None;
+            if terms > most {
+                return (sum, scale, Some(j));
             }
             if down {
                 if j <= 0.0 {
@@ -94,17 +99,34 @@ pub fn beta_binomial_cdf(n: f64, k: f64, alpha: f64, beta: f64) -> (f64, f64) {
                 break;
             }
         }
-        Some((sum, scale))
+        (sum, scale, None)
     };
-    let (Some((below, below_scale)), Some((above, above_scale))) = (side(true), side(false)) else {
+    let ((below, below_scale, below_stop), (above, above_scale, above_stop)) = (side(true), side(false));
+    let ln_big = 600.0 * std::f64::consts::LN_2;
+    if below_stop.is_some() || above_stop.is_some() {
+        // The terms summed stay exact, in absolute terms from ln p(k); the
+        // smooth far tail beyond where a side stopped is taken as
+        // continuous: K/n as the Beta matched to its mean and variance
+        // m(1 − m)(s + n)/(n(s + 1)), s = α + β.
+        let (s, m) = (alpha + beta, alpha / (alpha + beta));
+        let matched = (n * (s + 1.0) / (s + n) - 1.0).max(1e-9);
         let continuous = |at: f64| {
             let x = (at / n).clamp(0.0, 1.0);
-            crate::core::incomplete::beta_tails(alpha, beta, x, 1.0 - x).lower
+            crate::core::incomplete::beta_tails(m * matched, (1.0 - m) * matched, x, 1.0 - x)
         };
-        return (continuous(k - 0.5), continuous(k + 0.5));
-    };
+        let ln_at_k = ln_pmf(k, n, alpha, beta);
+        let absolute = |sum: f64, scale: i32| {
+            if sum > 0.0 {
+                (sum.ln() + f64::from(scale) * ln_big + ln_at_k).exp()
+            } else {
+                0.0
+            }
+        };
+        let less = absolute(below, below_scale) + below_stop.map_or(0.0, |j| continuous(j - 0.5).lower);
+        let greater = absolute(above, above_scale) + above_stop.map_or(0.0, |j| continuous(j + 0.5).upper);
+        return (less.min(1.0), (1.0 - greater).max(0.0));
+    }
     // In logs: total = below + 1 + above, each side at its own scale.
-    let ln_big = 600.0 * std::f64::consts::LN_2;
     let ln_below = below.ln() + f64::from(below_scale) * ln_big;
     let ln_above = above.ln() + f64::from(above_scale) * ln_big;
     let top = ln_below.max(ln_above).max(0.0);
@@ -397,8 +419,7 @@ mod tests {
     #[test]
     fn a_wide_prior_over_trillions_of_trials_ends_and_is_continuous() {
         // Found by fuzzing: this sum ran for hours. Beta(0.056, 4.15) over
-        // 2e15 trials: K/n is the Beta itself to far below the bin widths of
-        // the calibration check (common practice: the continuous limit).
+        // 2e15 trials: K/n is the Beta itself (common practice: the continuous limit).
         let (n, alpha, beta) = (2_000_000_000_002_000.0, 0.055_857_666, 4.148_425_369);
         let started = std::time::Instant::now();
         let (below, at_most) = beta_binomial_cdf(n, 1e14, alpha, beta);
@@ -406,8 +427,24 @@ mod tests {
         let x = 1e14 / n;
         let limit = crate::core::incomplete::beta_tails(alpha, beta, x, 1.0 - x).lower;
         assert!((below - limit).abs() < 1e-9 && (at_most - limit).abs() < 1e-9, "{below} {at_most} {limit}");
-        // Small n keeps the exact sum: BetaBinomial(3, 1, 1) is uniform on 0..3.
-        assert_eq!(beta_binomial_cdf(3.0, 1.0, 1.0, 1.0).1, 0.5);
+    }
+
+    #[test]
+    fn the_continuous_form_agrees_with_the_full_sum_where_both_can_be_had() {
+        // The full sum (no cap) against the matched Beta, where the prior's
+        // spread dominates, where the binomial noise does, and between.
+        for (n, alpha, beta) in [(2e6_f64, 0.5, 4.0), (4e7, 2e8, 3e8), (1e7, 3e3, 7e3)] {
+            let mean = n * alpha / (alpha + beta);
+            for k in [0.3 * mean, mean, 1.2 * mean] {
+                let k = k.round();
+                let exact = cdf_summed_up_to(n, k, alpha, beta, u32::MAX);
+                let continuous = cdf_summed_up_to(n, k, alpha, beta, 10);
+                assert!(
+                    (exact.1 - continuous.1).abs() < 2e-3,
+                    "{n} {alpha} {beta} {k}: {exact:?} {continuous:?}"
+                );
+            }
+        }
     }
 
     #[test]
