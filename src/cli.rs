@@ -64,6 +64,13 @@ impl Cli {
     }
 }
 
+/// The first line of a clap error, without its `error: ` prefix: the
+/// mistake in one line, for JSON logs and job-file reports.
+pub fn clap_message(error: &clap::Error) -> String {
+    let text = error.to_string();
+    text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string()
+}
+
 /// What a command did: the summary of a fit or score, and the files written.
 pub struct Outcome {
     /// The summary of a fit or score.

@@ -143,9 +143,7 @@ impl JobFile {
                 let trial = sub.clone().try_get_matches_from(["ratepool", &these[0], &these[1]]);
                 if let Err(e) = trial {
                     if matches!(e.kind(), ErrorKind::InvalidValue | ErrorKind::ValueValidation) {
-                        let text = e.to_string();
-                        let first = text.lines().next().unwrap_or_default().trim_start_matches("error: ");
-                        mistakes.push(mistake(first.to_string()));
+                        mistakes.push(mistake(crate::cli::clap_message(&e)));
                         continue;
                     }
                 }
@@ -211,11 +209,8 @@ pub fn check(path: &Path, command: Option<&str>) -> Result<String> {
     let arguments = file.arguments(command).map_err(report)?;
     let mut full = vec!["ratepool".to_string(), command.to_string()];
     full.extend(arguments.iter().cloned());
-    let cli = <crate::cli::Cli as clap::Parser>::try_parse_from(&full).map_err(|e| {
-        let text = e.to_string();
-        let first = text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string();
-        report(vec![file.mistake_of(&first)])
-    })?;
+    let cli = <crate::cli::Cli as clap::Parser>::try_parse_from(&full)
+        .map_err(|e| report(vec![file.mistake_of(&crate::cli::clap_message(&e))]))?;
     let watch = cli.watch();
     cli.command.into_job(watch).map_err(|e| report(vec![file.mistake_of(&e.to_string())]))?;
     Ok(format!("{}: a valid `{command}` job ({} keys)", path.display(), file.table.len()))

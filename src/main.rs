@@ -78,9 +78,7 @@ fn main() -> ExitCode {
         Ok(cli) => cli,
         // A usage mistake ends a JSON log like any error.
         Err(e) if json && !matches!(e.kind(), ErrorKind::DisplayHelp | ErrorKind::DisplayVersion) => {
-            let text = e.to_string();
-            let first = text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string();
-            return finish(Err(Error::Usage(first)));
+            return finish(Err(Error::Usage(ratepool::cli::clap_message(&e))));
         }
         // Help, the version and usage mistakes, as clap words them.
         Err(e) => e.exit(),

@@ -9,7 +9,7 @@
 //! infinite strength.
 
 use crate::core::fit::{fit_by, Likelihood};
-use crate::core::model::{Family, Posterior, Prior};
+use crate::core::model::{Family, Prior, RateLaw};
 use crate::core::pairs::PairTable;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -33,14 +33,7 @@ pub fn median_bias<F: Family>(
 ) -> Option<[f64; 2]> {
     let (mean, strength) = F::mean_strength_of_natural(natural);
     let fitted = F::working(mean, strength);
-    let law = F::rate_law(&Posterior {
-        mean,
-        sd: 0.0,
-        lower: mean,
-        upper: mean,
-        pool_weight: 1.0,
-        natural: Some(natural),
-    });
+    let law = RateLaw::of_prior(F::TERMS.size_kind, natural);
     let cap = BOUNDARY_STRENGTH * F::strength_unit(table);
     let refits: Vec<Option<[f64; 2]>> = (0..REPLICATES)
         .into_par_iter()
@@ -90,7 +83,7 @@ mod tests {
         // around the fit, so the median bias is far below the sampling
         // spread (common practice: ML bias is O(1/groups)).
         let mut rng = ChaCha8Rng::seed_from_u64(3);
-        let law = crate::core::model::RateLaw::Beta { alpha: 4.0, beta: 16.0 };
+        let law = RateLaw::Beta { alpha: 4.0, beta: 16.0 };
         let counts: Vec<f64> =
             (0..2000).map(|_| BetaBinomial::draw_count(law.sample(&mut rng), 20.0, &mut rng)).collect();
         let (table, _) = PairTable::from_groups(&[20.0; 2000], &counts);

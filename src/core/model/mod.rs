@@ -309,9 +309,10 @@ impl RateLaw {
         }
     }
 
-    /// The law of a prior of `model` with natural parameters `natural`.
-    pub fn of_prior(model: Model, natural: [f64; 2]) -> Self {
-        match model.terms().size_kind {
+    /// The law of a prior with natural parameters `natural`, of the model
+    /// whose size column holds `kind`.
+    pub fn of_prior(kind: SizeKind, natural: [f64; 2]) -> Self {
+        match kind {
             SizeKind::Trials => RateLaw::Beta { alpha: natural[0], beta: natural[1] },
             SizeKind::Exposure => RateLaw::Gamma { shape: natural[0], rate: natural[1] },
             SizeKind::StandardError => RateLaw::Normal { mean: natural[0], sd: natural[1].sqrt() },
