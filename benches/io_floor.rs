@@ -73,7 +73,7 @@ fn copy(input: &str, id: &str, count: &str, size: &str, output: &str) {
         (count.to_string(), PairValues::Integers((0..STAND_IN_PAIRS as i64).collect())),
         (size.to_string(), PairValues::Integers((0..STAND_IN_PAIRS as i64).map(|i| i * 3).collect())),
         (
-            "raw_rate".to_string(),
+            "raw_proportion".to_string(),
             PairValues::OptionalFloats(
                 (0..STAND_IN_PAIRS).map(|i| (i > 0).then(|| 1.0 / i as f64)).collect(),
             ),

@@ -7,14 +7,14 @@ The Parquet writer of the pair-valued columns is the project's own
 format v2 pages); this script is the check that other readers agree. It
 runs ratepool on the demo data (the marketplace with flags and ranks, the
 returns by store kind from trial rows) and on an invented table with rows
-of zero trials (nulls in raw_rate), segments with a null one, more than one
+of zero trials (nulls in raw_proportion), segments with a null one, more than one
 row group and many pages.
 
 Besides the values it checks the schema pyarrow reports (counts int64, or
 float64 for exposure and estimates; rates and posteriors float64; the group
 id text; flags boolean), that every column chunk is zstd-compressed, that the
 pair-valued columns are dictionary-encoded, and the footer's key-value
-metadata (model, hyperprior, level, interval method, version).
+metadata (model, prior, level, interval method, version).
 
 usage (from the repository root, after `cargo build --release`), or
 `bash scripts/check_output_readers.sh`, which installs the readers first:
@@ -76,19 +76,21 @@ def check(parquet_path, csv_path, label):
     footer = pq.read_metadata(parquet_path).metadata or {}
     model = footer.get(b"ratepool.model", b"").decode()
     assert model in ("beta-binomial", "gamma-poisson", "normal-normal"), f"{label}: no model in the footer"
-    prior = json.loads(footer[b"ratepool.hyperprior"])
+    prior = json.loads(footer[b"ratepool.prior"])
     assert "mean" in prior and "mean_se" in prior, f"{label}: the footer's prior {prior}"
     for key in (b"ratepool.version", b"ratepool.level", b"ratepool.intervals"):
         assert key in footer, f"{label}: no {key} in the footer"
     check_schema(parquet_path, model, names, label)
+    raw = RAW_COLUMNS[model]
     total = duckdb.sql(
-        f"SELECT count(*), count(raw_rate), count(*) FILTER (WHERE flagged) FROM '{parquet_path}'"
+        f"SELECT count(*), count({raw}), count(*) FILTER (WHERE flagged) FROM '{parquet_path}'"
     ).fetchall()[0]
     print(f"{label}: pyarrow, polars and DuckDB read {len(expected)} rows equal to the CSV output; "
           f"DuckDB counts {total[0]} rows, {total[0] - total[1]} null raw rates, {total[2]} flagged")
 
 
-FLOATS = {"raw_rate", "posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
+RAW_COLUMNS = {"beta-binomial": "raw_proportion", "gamma-poisson": "raw_rate", "normal-normal": "raw_estimate"}
+FLOATS = set(RAW_COLUMNS.values()) | {"posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
           "prob_above", "prob_below", "prob_top", "flag_fdr"}
 INTEGERS = {"rank_mean", "rank_conservative"}
 BOOLEANS = {"flagged", "prior_fallback"}

@@ -80,8 +80,16 @@ fn main() -> ExitCode {
         Err(e) if json && !matches!(e.kind(), ErrorKind::DisplayHelp | ErrorKind::DisplayVersion) => {
             return finish(Err(Error::Usage(ratepool::cli::clap_message(&e))));
         }
-        // Help, the version and usage mistakes, as clap words them.
-        Err(e) => e.exit(),
+        // Help and the version as clap writes them.
+        Err(e) if !e.use_stderr() || e.kind() == ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand => {
+            e.exit()
+        }
+        // A usage mistake in clap's words (with its usage line and tip) under the prefix every error has.
+        Err(e) => {
+            let text = e.to_string();
+            eprint!("ratepool: error: {}", text.strip_prefix("error: ").unwrap_or(&text));
+            return ExitCode::from(2);
+        }
     };
     // Panics inside a reader are turned into input errors where they happen
     // (`io::guard`); the default hook would still print each one as a crash.

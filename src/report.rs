@@ -6,10 +6,20 @@
 use serde::{Deserialize, Serialize};
 use std::fmt::Write;
 
+/// The version of the summary's layout that this build writes. Version 1
+/// (files without the key) kept the prior under `hyperprior` and the flag
+/// level under `flags.bound`, both still read; its `top.best` is now the
+/// summary's `rank_order`.
+pub const SUMMARY_FORMAT_VERSION: u32 = 2;
+
 /// The whole summary file.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Summary {
-    /// "beta-binomial" or "gamma-poisson".
+    /// The layout's version ([`SUMMARY_FORMAT_VERSION`] when written; 1 in
+    /// files from before it was recorded).
+    #[serde(default = "first_format")]
+    pub format_version: u32,
+    /// "beta-binomial", "gamma-poisson" or "normal-normal".
     pub model: String,
     /// Groups scored.
     pub groups: u64,
@@ -23,8 +33,9 @@ pub struct Summary {
     /// Steffey's first-order correction for its estimation).
     #[serde(default = "plug_in")]
     pub intervals: String,
-    /// The prior.
-    pub hyperprior: Hyperprior,
+    /// The prior: fitted to the data in a `fit`, read from the prior file in a `score`.
+    #[serde(rename = "prior", alias = "hyperprior")]
+    pub fitted_prior: FittedPrior,
     /// How the prior was obtained.
     pub fit: FitReport,
     /// How far the groups were pulled toward the pool.
@@ -55,7 +66,8 @@ pub struct Summary {
     /// in files from before they were recorded.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub columns: Option<ColumnsReport>,
-    /// "highest-first" or "lowest-first" with ranks; null without.
+    /// "highest-first" or "lowest-first": the order of the ranks and of
+    /// `prob_top` (which rates are best); null without either.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub rank_order: Option<String>,
     /// Conditions a reader must know about (boundary results, rejected rows).
@@ -124,10 +136,8 @@ pub struct VarianceReport {
 /// `prob_top`: the probability of being among the K best rates.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct TopReport {
-    /// K.
+    /// K (which rates are best: the summary's `rank_order`).
     pub k: u64,
-    /// "highest" or "lowest": which rates are best.
-    pub best: String,
     /// "draws" (joint draws from every posterior) or "threshold".
     pub method: String,
     /// Draws made (method "draws").
@@ -146,7 +156,8 @@ pub struct SegmentReport {
     /// Groups in the segment.
     pub groups: u64,
     /// The prior its groups were scored with (the all-groups prior on a fallback).
-    pub hyperprior: Hyperprior,
+    #[serde(rename = "prior", alias = "hyperprior")]
+    pub fitted_prior: FittedPrior,
     /// Its own fit; null when it fell back to the all-groups prior.
     pub fit: Option<FitReport>,
     /// How far its groups were pulled.
@@ -187,12 +198,18 @@ pub struct FlagReport {
     pub event: String,
     /// The threshold of the event.
     pub threshold: f64,
-    /// Q: the bound on the mean posterior probability of no event among the flagged.
-    pub bound: f64,
+    /// Q, the false-discovery level: the bound on the mean posterior
+    /// probability of no event among the flagged.
+    #[serde(alias = "bound")]
+    pub fdr_level: f64,
     /// Groups flagged.
     pub groups_flagged: u64,
     /// The expected number of flagged groups where the event does not hold.
     pub expected_false_flags: f64,
+}
+
+fn first_format() -> u32 {
+    1
 }
 
 fn plug_in() -> String {
@@ -202,7 +219,7 @@ fn plug_in() -> String {
 /// The prior, in the parameters of its model.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(untagged)]
-pub enum Hyperprior {
+pub enum FittedPrior {
     /// Beta(alpha, beta) of the beta-binomial.
     Beta(BetaPrior),
     /// Gamma(shape, rate) of the gamma-Poisson.
@@ -358,10 +375,10 @@ pub struct PullReport {
     pub rank_correlation: Option<f64>,
 }
 
-/// A hyperprior's figures, whatever its model: the natural parameters in
+/// A prior's figures, whatever its model: the natural parameters in
 /// the model's order (absent under complete pooling) and the summaries.
 #[derive(Debug, Clone, Copy, PartialEq)]
-pub struct HyperpriorParts {
+pub struct FittedPriorParts {
     /// (alpha, beta) or (shape, rate).
     pub natural: Option<[f64; 2]>,
     /// Their standard errors.
@@ -376,16 +393,16 @@ pub struct HyperpriorParts {
     pub strength_se: Option<f64>,
 }
 
-impl Hyperprior {
-    /// The wire form of a hyperprior of the model named `model`: the one
+impl FittedPrior {
+    /// The wire form of a prior of the model named `model`: the one
     /// place that knows which form each model's prior takes in the file.
-    pub fn of_model(model: &str, parts: HyperpriorParts) -> Option<Self> {
+    pub fn of_model(model: &str, parts: FittedPriorParts) -> Option<Self> {
         let (first, second) = (parts.natural.map(|n| n[0]), parts.natural.map(|n| n[1]));
         let (first_se, second_se) = (parts.natural_se.map(|n| n[0]), parts.natural_se.map(|n| n[1]));
         let (mean, mean_se, strength, strength_se) =
             (parts.mean, parts.mean_se, parts.strength, parts.strength_se);
         match model {
-            "beta-binomial" => Some(Hyperprior::Beta(BetaPrior {
+            "beta-binomial" => Some(FittedPrior::Beta(BetaPrior {
                 alpha: first,
                 beta: second,
                 alpha_se: first_se,
@@ -395,7 +412,7 @@ impl Hyperprior {
                 strength,
                 strength_se,
             })),
-            "gamma-poisson" => Some(Hyperprior::Gamma(GammaPrior {
+            "gamma-poisson" => Some(FittedPrior::Gamma(GammaPrior {
                 shape: first,
                 rate: second,
                 shape_se: first_se,
@@ -405,7 +422,7 @@ impl Hyperprior {
                 strength,
                 strength_se,
             })),
-            "normal-normal" => Some(Hyperprior::Normal(NormalPrior {
+            "normal-normal" => Some(FittedPrior::Normal(NormalPrior {
                 mean,
                 mean_se,
                 variance: second.unwrap_or(0.0),
@@ -420,18 +437,18 @@ impl Hyperprior {
     /// The name of the model whose prior this is.
     pub fn model(&self) -> &'static str {
         match self {
-            Hyperprior::Beta(_) => "beta-binomial",
-            Hyperprior::Gamma(_) => "gamma-poisson",
-            Hyperprior::Normal(_) => "normal-normal",
+            FittedPrior::Beta(_) => "beta-binomial",
+            FittedPrior::Gamma(_) => "gamma-poisson",
+            FittedPrior::Normal(_) => "normal-normal",
         }
     }
 
     /// The natural parameters as written (either may be missing in a file).
     pub fn natural(&self) -> (Option<f64>, Option<f64>) {
         match self {
-            Hyperprior::Beta(p) => (p.alpha, p.beta),
-            Hyperprior::Gamma(p) => (p.shape, p.rate),
-            Hyperprior::Normal(p) => match p.strength {
+            FittedPrior::Beta(p) => (p.alpha, p.beta),
+            FittedPrior::Gamma(p) => (p.shape, p.rate),
+            FittedPrior::Normal(p) => match p.strength {
                 Some(_) => (Some(p.mean), Some(p.variance)),
                 None => (None, None),
             },
@@ -441,57 +458,117 @@ impl Hyperprior {
     /// Prior mean.
     pub fn mean(&self) -> f64 {
         match self {
-            Hyperprior::Beta(p) => p.mean,
-            Hyperprior::Gamma(p) => p.mean,
-            Hyperprior::Normal(p) => p.mean,
+            FittedPrior::Beta(p) => p.mean,
+            FittedPrior::Gamma(p) => p.mean,
+            FittedPrior::Normal(p) => p.mean,
         }
     }
 
     /// Standard error of the prior mean.
     pub fn mean_se(&self) -> f64 {
         match self {
-            Hyperprior::Beta(p) => p.mean_se,
-            Hyperprior::Gamma(p) => p.mean_se,
-            Hyperprior::Normal(p) => p.mean_se,
+            FittedPrior::Beta(p) => p.mean_se,
+            FittedPrior::Gamma(p) => p.mean_se,
+            FittedPrior::Normal(p) => p.mean_se,
         }
     }
 
     /// Prior strength, None when infinite.
     pub fn strength(&self) -> Option<f64> {
         match self {
-            Hyperprior::Beta(p) => p.strength,
-            Hyperprior::Gamma(p) => p.strength,
-            Hyperprior::Normal(p) => p.strength,
+            FittedPrior::Beta(p) => p.strength,
+            FittedPrior::Gamma(p) => p.strength,
+            FittedPrior::Normal(p) => p.strength,
         }
     }
 }
 
 fn show(value: Option<f64>) -> String {
-    value.map_or_else(|| "n/a".to_string(), |v| format!("{v:.4}"))
+    value.map_or_else(|| "n/a".to_string(), plain)
 }
 
-/// The terminal version of a summary.
+/// A figure of ordinary size in plain decimals (four places: `25.2490`,
+/// `0.0396`); only the very small or very large in scientific notation.
+pub fn plain(value: f64) -> String {
+    let magnitude = value.abs();
+    if value == 0.0 || (1e-3..1e7).contains(&magnitude) || !value.is_finite() {
+        format!("{value:.4}")
+    } else {
+        format!("{value:.4e}")
+    }
+}
+
+/// A standard error or other small positive figure to three significant
+/// digits in plain decimals (`0.000968`, `1.78`), scientific only below 1e-4
+/// or from 1e7.
+pub fn three_digits(value: f64) -> String {
+    let magnitude = value.abs();
+    if value == 0.0 || !value.is_finite() {
+        return format!("{value}");
+    }
+    if !(1e-4..1e7).contains(&magnitude) {
+        return format!("{value:.2e}");
+    }
+    let decimals = (2 - magnitude.log10().floor() as i32).max(0) as usize;
+    format!("{value:.decimals$}")
+}
+
+/// A p-value as people write it: two significant digits (`p = 0.18`,
+/// `p = 0.0023`, `p = 2.3e-29`), `p = 1` at one, and `p < 1e-300` where
+/// double precision cannot tell it from zero.
+pub fn p_value_text(p: f64) -> String {
+    match p_value_figure(p) {
+        figure if figure.starts_with('<') => format!("p {figure}"),
+        figure if p.is_nan() => format!("p {figure}"),
+        figure => format!("p = {figure}"),
+    }
+}
+
+/// The figure of [`p_value_text`] alone, for a table cell: `0.18`,
+/// `2.3e-29`, `< 1e-300`.
+pub fn p_value_figure(p: f64) -> String {
+    if p.is_nan() {
+        return "not computed".to_string();
+    }
+    if p <= 1e-300 {
+        return "< 1e-300".to_string();
+    }
+    if p < 1e-3 {
+        return format!("{p:.1e}");
+    }
+    let decimals = (1 - p.log10().floor() as i32).max(0) as usize;
+    let text = format!("{p:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
+}
+
+/// The terminal version of a summary, without its warnings (shown once,
+/// on stderr, by the caller; they are in the summary file too).
 pub fn render_text(summary: &Summary) -> String {
     let mut out = String::new();
-    let prior = &summary.hyperprior;
+    let prior = &summary.fitted_prior;
     let _ = writeln!(
         out,
         "ratepool {}: {} groups scored ({} rows read, {} rejected)",
         summary.model, summary.groups, summary.rows_read, summary.rows_rejected
     );
     let shape = match prior {
-        Hyperprior::Beta(p) => format!("Beta(alpha = {}, beta = {})", show(p.alpha), show(p.beta)),
-        Hyperprior::Gamma(p) => format!("Gamma(shape = {}, rate = {})", show(p.shape), show(p.rate)),
-        Hyperprior::Normal(p) => {
-            format!("Normal(mean = {:.4}, variance = {:.4e}, se {})", p.mean, p.variance, show(p.variance_se))
+        FittedPrior::Beta(p) => format!("Beta(alpha = {}, beta = {})", show(p.alpha), show(p.beta)),
+        FittedPrior::Gamma(p) => format!("Gamma(shape = {}, rate = {})", show(p.shape), show(p.rate)),
+        FittedPrior::Normal(p) => {
+            let se = p.variance_se.map_or_else(String::new, |se| format!(" (se {})", three_digits(se)));
+            format!("Normal(mean = {}, variance = {}{se})", plain(p.mean), plain(p.variance))
         }
     };
     let _ = writeln!(
         out,
-        "  prior        {shape}; mean {:.6} (se {:.2e}), strength {}",
+        "  prior        {shape}; mean {:.6} (se {}), strength {}",
         prior.mean(),
-        prior.mean_se(),
-        prior.strength().map_or("infinite".to_string(), |s| format!("{s:.4}"))
+        three_digits(prior.mean_se()),
+        prior.strength().map_or("infinite".to_string(), plain)
     );
     let fit = &summary.fit;
     let fitted_here = fit.source == "fit";
@@ -517,14 +594,17 @@ pub fn render_text(summary: &Summary) -> String {
     let test = &fit.overdispersion_test;
     let _ = writeln!(
         out,
-        "  dispersion   {} Z = {:.3}, one-sided p = {:.3e}",
-        test.name, test.statistic, test.p_value
+        "  dispersion   {} Z = {:.3}, one-sided {}",
+        test.name,
+        test.statistic,
+        p_value_text(test.p_value)
     );
     if let Some(test) = &fit.pooling_test {
         let _ = writeln!(
             out,
-            "  pooling      likelihood ratio against complete pooling {:.3}, p = {:.3e} (50:50 chi-square(0):chi-square(1))",
-            test.statistic, test.p_value
+            "  pooling      likelihood ratio against complete pooling {:.3}, {} (50:50 chi-square(0):chi-square(1))",
+            test.statistic,
+            p_value_text(test.p_value)
         );
     }
     let pull = &summary.pull;
@@ -555,19 +635,21 @@ pub fn render_text(summary: &Summary) -> String {
     if let Some(test) = &summary.segment_test {
         let _ = writeln!(
             out,
-            "  segment test one prior for all against one per segment: chi-square {:.3} on {} df, p = {:.3e}",
-            test.statistic, test.degrees_of_freedom, test.p_value
+            "  segment test one prior for all against one per segment: chi-square {:.3} on {} df, {}",
+            test.statistic,
+            test.degrees_of_freedom,
+            p_value_text(test.p_value)
         );
     }
     if let Some(checks) = &summary.checks {
         let c = &checks.calibration;
         let _ = writeln!(
             out,
-            "  calibration  {}: chi-square {:.2} on {} df, p = {:.3e} over {} groups; raw-rate variance observed/expected {:.3}: {}",
+            "  calibration  {}: chi-square {:.2} on {} df, {} over {} groups; raw-rate variance observed/expected {:.3}: {}",
             checks.data,
             c.statistic,
             c.degrees_of_freedom,
-            c.p_value,
+            p_value_text(c.p_value),
             c.groups,
             checks.raw_rate_variance.ratio.unwrap_or(f64::NAN),
             checks.verdict
@@ -577,11 +659,42 @@ pub fn render_text(summary: &Summary) -> String {
         let _ = writeln!(
             out,
             "  flags        {} groups flagged {} {} at Q = {} (expected false flags {:.3})",
-            flags.groups_flagged, flags.event, flags.threshold, flags.bound, flags.expected_false_flags
+            flags.groups_flagged, flags.event, flags.threshold, flags.fdr_level, flags.expected_false_flags
         );
     }
-    for warning in &summary.warnings {
-        let _ = writeln!(out, "  warning      {warning}");
-    }
+    // The warnings are not repeated here: the caller shows each once, on stderr.
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn p_values_read_as_people_write_them() {
+        let cases = [
+            (0.1807, "p = 0.18"),
+            (1.0, "p = 1"),
+            (0.5, "p = 0.5"),
+            (0.0179, "p = 0.018"),
+            (0.00234, "p = 0.0023"),
+            (1.206e-29, "p = 1.2e-29"),
+            (0.0, "p < 1e-300"),
+            (1e-320, "p < 1e-300"),
+        ];
+        for (p, text) in cases {
+            assert_eq!(p_value_text(p), text, "{p}");
+        }
+    }
+
+    #[test]
+    fn figures_of_ordinary_size_are_plain_decimals() {
+        assert_eq!(plain(25.2490), "25.2490");
+        assert_eq!(plain(0.0396), "0.0396");
+        assert_eq!(plain(1.5e-6), "1.5000e-6");
+        assert_eq!(three_digits(9.68e-4), "0.000968");
+        assert_eq!(three_digits(0.231), "0.231");
+        assert_eq!(three_digits(1.782), "1.78");
+        assert_eq!(three_digits(3.2e-6), "3.20e-6");
+    }
 }

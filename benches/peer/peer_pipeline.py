@@ -44,14 +44,14 @@ def main() -> None:
     fitted = time.perf_counter()
 
     a, b = alpha + k, beta + n - k
-    frame["raw_rate"] = np.where(n > 0, k / np.maximum(n, 1), np.nan)
+    frame["raw_proportion"] = np.where(n > 0, k / np.maximum(n, 1), np.nan)
     frame["posterior_mean"] = a / (a + b)
     frame["posterior_sd"] = np.sqrt(a * b / ((a + b) ** 2 * (a + b + 1)))
     frame["interval_lo"] = stats.beta.ppf(0.025, a, b)
     frame["interval_hi"] = stats.beta.ppf(0.975, a, b)
     frame["pool_weight"] = (alpha + beta) / (alpha + beta + n)
-    frame["posterior_alpha"] = a
-    frame["posterior_beta"] = b
+    frame["posterior_param_alpha"] = a
+    frame["posterior_param_beta"] = b
     scored = time.perf_counter()
     frame.to_parquet(target, compression="zstd", index=False)
     done = time.perf_counter()

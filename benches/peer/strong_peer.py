@@ -56,14 +56,14 @@ def main():
 
     a, b = alpha + k, beta + n - k
     scored_pairs = pairs.select(TRIALS, SUCCESSES).with_columns(
-        raw_rate=pl.Series(np.where(n > 0, k / np.maximum(n, 1), np.nan)).fill_nan(None),
+        raw_proportion=pl.Series(np.where(n > 0, k / np.maximum(n, 1), np.nan)).fill_nan(None),
         posterior_mean=pl.Series(a / (a + b)),
         posterior_sd=pl.Series(np.sqrt(a * b / ((a + b) ** 2 * (a + b + 1)))),
         interval_lo=pl.Series(special.betaincinv(a, b, 0.025)),
         interval_hi=pl.Series(special.betaincinv(a, b, 0.975)),
         pool_weight=pl.Series((alpha + beta) / (alpha + beta + n)),
-        posterior_alpha=pl.Series(a),
-        posterior_beta=pl.Series(b),
+        posterior_param_alpha=pl.Series(a),
+        posterior_param_beta=pl.Series(b),
     )
     out = frame.select(GROUP, SUCCESSES, TRIALS).join(
         scored_pairs, on=[TRIALS, SUCCESSES], how="left", maintain_order="left"

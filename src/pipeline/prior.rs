@@ -29,7 +29,7 @@ use crate::core::ranking::{
 };
 use crate::error::{Error, Result};
 use crate::report::{
-    CalibrationReport, ChecksReport, FitReport, Hyperprior, HyperpriorParts, SegmentTest, TestReport,
+    CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, SegmentTest, TestReport,
     VarianceReport,
 };
 use arrow_array::ArrayRef;
@@ -48,7 +48,7 @@ pub struct SegmentScore {
     /// Its groups.
     pub groups: f64,
     /// The prior its groups were scored with.
-    pub hyperprior: Hyperprior,
+    pub fitted_prior: FittedPrior,
     /// Its own fit (None when it fell back to the all-groups prior).
     pub fit: Option<FitReport>,
     /// How far its groups were pulled; `max_shift_row` indexes [`Scored::pairs`].
@@ -66,7 +66,7 @@ pub struct Scored {
     /// Posterior of each pair, in that order.
     pub posteriors: Vec<Posterior>,
     /// The prior fitted to (or saved for) all groups.
-    pub hyperprior: Hyperprior,
+    pub fitted_prior: FittedPrior,
     /// How it was obtained.
     pub fit: FitReport,
     /// Boundary, pooling and fallback warnings.
@@ -125,7 +125,7 @@ impl FamilyVisitor for ScorePairs<'_> {
 #[derive(Clone)]
 struct Chosen {
     prior: Prior,
-    hyperprior: Hyperprior,
+    fitted_prior: FittedPrior,
     fit: FitReport,
     warnings: Vec<String>,
     /// The maximised log marginal likelihood of a fitted prior, for the
@@ -146,7 +146,7 @@ fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
         PriorSource::Saved { path, summary } => {
             let mut fit = summary.fit.clone();
             fit.source = path.display().to_string();
-            chosen_of_saved(job.model, (&summary.hyperprior, fit), (&summary.model, path))
+            chosen_of_saved(job.model, (&summary.fitted_prior, fit), (&summary.model, path))
         }
     }
 }
@@ -154,17 +154,17 @@ fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
 /// A saved prior (the all-groups one or a segment's) as the prior in use.
 fn chosen_of_saved(
     model: Model,
-    (hyperprior, fit): (&Hyperprior, FitReport),
+    (fitted_prior, fit): (&FittedPrior, FitReport),
     (saved_model, path): (&str, &Path),
 ) -> Result<Chosen> {
-    let prior = prior_of_hyperprior(hyperprior, saved_model, path, model)?;
+    let prior = prior_of_saved(fitted_prior, saved_model, path, model)?;
     let uncertainty = match prior {
         Prior::Conjugate { .. } => fit.working_covariance.map(PriorUncertainty::Working),
-        Prior::CompletePooling { .. } => Some(PriorUncertainty::PooledMean(hyperprior.mean_se().powi(2))),
+        Prior::CompletePooling { .. } => Some(PriorUncertainty::PooledMean(fitted_prior.mean_se().powi(2))),
     };
     Ok(Chosen {
         prior,
-        hyperprior: hyperprior.clone(),
+        fitted_prior: fitted_prior.clone(),
         log_likelihood: None,
         fit,
         warnings: Vec::new(),
@@ -175,7 +175,7 @@ fn chosen_of_saved(
 fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
     Chosen {
         prior: fitted.prior,
-        hyperprior: hyperprior_of(model, fitted),
+        fitted_prior: fitted_prior_of(model, fitted),
         fit: fit_report_of::<F>(fitted, "fit"),
         warnings: fit_warnings(fitted),
         log_likelihood: Some(fitted.log_marginal_likelihood),
@@ -185,10 +185,10 @@ fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
 
 /// The log marginal likelihood of `table` under a prior given by its mean
 /// and strength (pooled when the strength is infinite).
-fn log_marginal_at<F: Family>(table: &PairTable, hyperprior: &Hyperprior) -> f64 {
-    match hyperprior.strength() {
-        Some(strength) => evaluate::<F>(table, F::working(hyperprior.mean(), strength)).log_likelihood,
-        None => pooled_log_likelihood::<F>(table, hyperprior.mean()),
+fn log_marginal_at<F: Family>(table: &PairTable, fitted_prior: &FittedPrior) -> f64 {
+    match fitted_prior.strength() {
+        Some(strength) => evaluate::<F>(table, F::working(fitted_prior.mean(), strength)).log_likelihood,
+        None => pooled_log_likelihood::<F>(table, fitted_prior.mean()),
     }
 }
 
@@ -218,7 +218,7 @@ fn segment_prior<F: Family>(
                 return Err(Error::Input(format!("{}: a segment's fit report is missing", path.display())));
             };
             let saved_at = (summary.model.as_str(), path.as_path());
-            Ok(Ok(chosen_of_saved(job.model, (&saved.hyperprior, fit), saved_at)?))
+            Ok(Ok(chosen_of_saved(job.model, (&saved.fitted_prior, fit), saved_at)?))
         }
     }
 }
@@ -411,16 +411,16 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
                 let mut pull =
                     pull_of_pairs(F::TERMS.size_kind, &all_pairs[range.clone()], &posteriors[range.clone()]);
                 pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
-                let (hyperprior, fit, fallback) = match choice {
-                    Ok(own) => (own.hyperprior, Some(own.fit), None),
-                    Err(reason) => (all.hyperprior.clone(), None, Some(reason)),
+                let (fitted_prior, fit, fallback) = match choice {
+                    Ok(own) => (own.fitted_prior, Some(own.fit), None),
+                    Err(reason) => (all.fitted_prior.clone(), None, Some(reason)),
                 };
                 SegmentScore {
                     groups: segment.table.groups(),
                     key: segment.key,
                     samples: segment.samples,
                     pairs: range.clone(),
-                    hyperprior,
+                    fitted_prior,
                     fit,
                     pull,
                     fallback,
@@ -448,7 +448,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     Ok(Scored {
         pairs: all_pairs,
         posteriors,
-        hyperprior: all.hyperprior,
+        fitted_prior: all.fitted_prior,
         fit: all.fit,
         warnings,
         pull,
@@ -580,7 +580,7 @@ fn likelihood_ratio_test<F: Family>(
     for (choice, segment) in choices.iter().zip(segments) {
         segmented += match choice {
             Ok(own) => own.log_likelihood?,
-            Err(_) => log_marginal_at::<F>(&segment.table, &all.hyperprior),
+            Err(_) => log_marginal_at::<F>(&segment.table, &all.fitted_prior),
         };
     }
     let statistic = (2.0 * (segmented - all.log_likelihood?)).max(0.0);
@@ -628,12 +628,12 @@ fn boundary_name(boundary: Boundary) -> &'static str {
     }
 }
 
-fn hyperprior_of(model: Model, fitted: &Fit) -> Hyperprior {
+fn fitted_prior_of(model: Model, fitted: &Fit) -> FittedPrior {
     let natural = match fitted.prior {
         Prior::Conjugate { natural } => Some(natural),
         Prior::CompletePooling { .. } => None,
     };
-    let parts = HyperpriorParts {
+    let parts = FittedPriorParts {
         natural,
         natural_se: fitted.natural_se,
         mean: fitted.mean,
@@ -641,7 +641,7 @@ fn hyperprior_of(model: Model, fitted: &Fit) -> Hyperprior {
         strength: fitted.strength,
         strength_se: fitted.strength_se,
     };
-    Hyperprior::of_model(model.name(), parts).expect("every registered model has a wire form")
+    FittedPrior::of_model(model.name(), parts).expect("every registered model has a wire form")
 }
 
 fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
@@ -684,14 +684,9 @@ fn pooling_report(test: &PoolingTest) -> TestReport {
     }
 }
 
-/// The prior held in a saved summary (its hyperprior, or a segment's),
+/// The prior held in a saved summary (the whole table's, or a segment's),
 /// checked against the model in use.
-fn prior_of_hyperprior(
-    hyperprior: &Hyperprior,
-    saved_model: &str,
-    path: &Path,
-    model: Model,
-) -> Result<Prior> {
+fn prior_of_saved(fitted_prior: &FittedPrior, saved_model: &str, path: &Path, model: Model) -> Result<Prior> {
     if saved_model != model.name() {
         return Err(Error::Input(format!(
             "{}: the prior is for the {} model, not {}",
@@ -700,14 +695,14 @@ fn prior_of_hyperprior(
             model.name()
         )));
     }
-    if hyperprior.model() != model.name() {
+    if fitted_prior.model() != model.name() {
         return Err(Error::Input(format!(
-            "{}: the hyperprior does not match the model {}",
+            "{}: the prior does not match the model {}",
             path.display(),
             saved_model
         )));
     }
-    let ((first, second), mean) = (hyperprior.natural(), hyperprior.mean());
+    let ((first, second), mean) = (fitted_prior.natural(), fitted_prior.mean());
     let valid = |v: f64| v.is_finite() && v > 0.0;
     // The first natural parameter is a location of either sign for a model of real values.
     let rates = model.terms().rates;
@@ -716,7 +711,7 @@ fn prior_of_hyperprior(
         (Some(a), Some(b)) if first_valid(a) && valid(b) => Ok(Prior::Conjugate { natural: [a, b] }),
         (None, None) if rates.holds_inside(mean) => Ok(Prior::CompletePooling { mean }),
         _ => Err(Error::Input(format!(
-            "{}: the hyperprior parameters are missing or out of range",
+            "{}: the prior's parameters are missing or out of range",
             path.display()
         ))),
     }

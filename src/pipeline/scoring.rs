@@ -20,7 +20,7 @@ use arrow_array::ArrayRef;
 
 /// The output columns after the group column, each as its value per pair
 /// of the table (every one is a function of the row's pair): the segment
-/// values, the counts under their input names, the raw rate, the posterior
+/// values, the counts under their input names, the raw value, the posterior
 /// summaries and parameters, and the columns asked for.
 pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let (pairs, posteriors) = (&scored.pairs[..], &scored.posteriors[..]);
@@ -42,7 +42,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     };
     let parameter = |i: usize| {
         let values = optional(&|p| p.natural.map(|natural| natural[i]));
-        (format!("posterior_{}", terms.parameter_names[i]), values)
+        (format!("posterior_param_{}", terms.parameter_names[i]), values)
     };
     let raw = pairs.iter().map(|p| kind.raw_value(p.size, p.count)).collect();
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
@@ -51,7 +51,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     columns.extend([
         (job.columns.count.clone(), counts),
         (job.columns.size.clone(), sizes),
-        ("raw_rate".to_string(), PairValues::OptionalFloats(raw)),
+        (terms.raw_column.to_string(), PairValues::OptionalFloats(raw)),
         ("posterior_mean".to_string(), each(&|p| p.mean)),
         ("posterior_sd".to_string(), each(&|p| p.sd)),
         ("interval_lo".to_string(), each(&|p| p.lower)),
@@ -142,7 +142,7 @@ pub fn table_metadata(job: &Job, scored: &Scored) -> Metadata {
             }
             .to_string(),
         ),
-        ("ratepool.hyperprior".to_string(), json(serde_json::json!(scored.hyperprior))),
+        ("ratepool.prior".to_string(), json(serde_json::json!(scored.fitted_prior))),
     ];
     if !scored.segments.is_empty() {
         let segments: Vec<serde_json::Value> = scored
@@ -151,7 +151,7 @@ pub fn table_metadata(job: &Job, scored: &Scored) -> Metadata {
             .map(|s| {
                 let key: std::collections::BTreeMap<&String, &Option<String>> =
                     job.segments.iter().zip(&s.key).collect();
-                serde_json::json!({ "key": key, "hyperprior": s.hyperprior, "fallback": s.fallback })
+                serde_json::json!({ "key": key, "prior": s.fitted_prior, "fallback": s.fallback })
             })
             .collect();
         metadata.push(("ratepool.segments".to_string(), json(serde_json::Value::Array(segments))));
@@ -301,7 +301,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         .map(|(segment, shift_group)| SegmentReport {
             key: job.segments.iter().cloned().zip(segment.key.iter().cloned()).collect(),
             groups: segment.groups as u64,
-            hyperprior: segment.hyperprior.clone(),
+            fitted_prior: segment.fitted_prior.clone(),
             fit: segment.fit.clone(),
             pull: pull_report(&segment.pull, shift_group),
             fallback: segment.fallback.clone(),
@@ -309,6 +309,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         })
         .collect();
     Summary {
+        format_version: crate::report::SUMMARY_FORMAT_VERSION,
         model: job.model.name().to_string(),
         groups: scored.pairs.iter().map(|p| p.weight).sum::<f64>() as u64,
         rows_read: rows.read,
@@ -319,7 +320,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             Intervals::Corrected => "corrected",
         }
         .to_string(),
-        hyperprior: scored.hyperprior.clone(),
+        fitted_prior: scored.fitted_prior.clone(),
         fit: scored.fit.clone(),
         pull: pull_report(&scored.pull, named.all),
         segment_columns: job.segments.clone(),
@@ -339,7 +340,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
                 FlagEvent::Below => job.thresholds.below,
             }
             .expect("a flag rule has its threshold"),
-            bound: rule.bound,
+            fdr_level: rule.bound,
             groups_flagged: flags.groups_flagged as u64,
             expected_false_flags: flags.expected_false,
         }),
@@ -348,7 +349,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             count: job.columns.count.clone(),
             size: job.columns.size.clone(),
         }),
-        rank_order: job.ranks.map(|order| {
+        rank_order: job.ranks.or(job.top.map(|_| RankOrder::HighestFirst)).map(|order| {
             match order {
                 RankOrder::HighestFirst => "highest-first",
                 RankOrder::LowestFirst => "lowest-first",
@@ -357,7 +358,6 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         }),
         top: job.top.zip(scored.prob_top.as_ref()).map(|(rule, (_, method))| TopReport {
             k: rule.k as u64,
-            best: if job.ranks == Some(RankOrder::LowestFirst) { "lowest" } else { "highest" }.to_string(),
             method: match method {
                 TopMethod::Draws { .. } => "draws",
                 TopMethod::Threshold { .. } => "threshold",

@@ -170,13 +170,15 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
         )
     })?;
     let kind = model.terms().size_kind;
-    let flag_bound = summary.flags.as_ref().map(|f| f.bound);
+    let flag_bound = summary.flags.as_ref().map(|f| f.fdr_level);
     let event_column = summary.flags.as_ref().map(|f| format!("prob_{}", f.event));
+    // Tables written before the summary's format version 2 call every raw value `raw_rate`.
+    let raw_column = if summary.format_version < 2 { "raw_rate" } else { model.terms().raw_column };
     let mut wanted: Vec<(&str, &str)> = vec![
         (columns.group.as_str(), "group"),
         (columns.count.as_str(), model.terms().count_role),
         (columns.size.as_str(), model.terms().size_role),
-        ("raw_rate", "raw rate"),
+        (raw_column, "raw value"),
         ("posterior_mean", "posterior mean"),
         ("interval_lo", "interval"),
         ("interval_hi", "interval"),

@@ -54,7 +54,7 @@ pub struct Figure {
 
 /// The prior's law, when the prior is a proper one (None at complete pooling).
 fn prior_law(summary: &Summary, model: Model) -> Option<RateLaw> {
-    match summary.hyperprior.natural() {
+    match summary.fitted_prior.natural() {
         (Some(a), Some(b)) => Some(RateLaw::of_prior(model.terms().size_kind, [a, b])),
         _ => None,
     }

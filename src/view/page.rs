@@ -6,7 +6,7 @@ use super::plots;
 use super::Figure;
 use crate::core::model::{Model, RateLaw, SizeKind};
 use crate::error::Result;
-use crate::report::{ChecksReport, Hyperprior, Summary};
+use crate::report::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary};
 use std::fmt::Write;
 
 /// Segments drawn with a plot of their own; the rest are in the table only.
@@ -48,7 +48,7 @@ fn num(v: f64) -> String {
 /// Words for the model's columns: (raw value, size, funnel abscissa, its axis).
 fn labels(model: Model) -> (&'static str, &'static str, &'static str, &'static str) {
     match model.terms().size_kind {
-        SizeKind::Trials => ("raw rate (successes / trials)", "trials", "trials", "trials (log scale)"),
+        SizeKind::Trials => ("raw proportion (successes / trials)", "trials", "trials", "trials (log scale)"),
         SizeKind::Exposure => {
             ("raw rate (events / exposure)", "exposure", "exposure", "exposure (log scale)")
         }
@@ -67,7 +67,7 @@ pub fn figures(
 ) -> Result<(Vec<Figure>, Vec<Option<Figure>>)> {
     let kind = model.terms().size_kind;
     let (raw_label, _, funnel_noun, funnel_label) = labels(model);
-    let prior_mean = summary.hyperprior.mean();
+    let prior_mean = summary.fitted_prior.mean();
     let sampled = |n: usize, total: u64| {
         if (n as u64) < total {
             format!("a seeded sample of {n} of the {total} groups")
@@ -123,11 +123,11 @@ pub fn figures(
             name: "calibration".into(),
             title: "Calibration".into(),
             caption: format!(
-                "Where each of {} groups falls in its prior predictive distribution (randomised PIT, seed {}), in tenths. When the model holds the bars are level at the line; chi-square {} on 9 df, p = {}.",
+                "Where each of {} groups falls in its prior predictive distribution (randomised PIT, seed {}), in tenths. When the model holds the bars are level at the line; chi-square {} on 9 df, {}.",
                 checks.calibration.groups,
                 checks.calibration.seed,
                 num(checks.calibration.statistic),
-                num(checks.calibration.p_value)
+                p_value_text(checks.calibration.p_value)
             ),
             svg: plots::calibration(&checks.calibration.bins)?,
         });
@@ -155,9 +155,9 @@ pub fn figures(
             caption: format!(
                 "Raw value against posterior mean for {} of the segment, toward its prior mean {}.",
                 sampled(sample.len(), segment.groups),
-                num(segment.hyperprior.mean())
+                num(segment.fitted_prior.mean())
             ),
-            svg: plots::shrinkage(sample, segment.hyperprior.mean(), raw_label, kind)?,
+            svg: plots::shrinkage(sample, segment.fitted_prior.mean(), raw_label, kind)?,
         }));
     }
     Ok((figures, segment_figures))
@@ -175,17 +175,17 @@ fn segment_name(summary: &Summary, i: usize) -> String {
 }
 
 /// A prior in words.
-fn prior_text(prior: &Hyperprior) -> String {
+fn prior_text(prior: &FittedPrior) -> String {
     let shape = match prior {
-        Hyperprior::Beta(p) => match (p.alpha, p.beta) {
+        FittedPrior::Beta(p) => match (p.alpha, p.beta) {
             (Some(a), Some(b)) => format!("Beta(α = {}, β = {})", num(a), num(b)),
             _ => "complete pooling".into(),
         },
-        Hyperprior::Gamma(p) => match (p.shape, p.rate) {
+        FittedPrior::Gamma(p) => match (p.shape, p.rate) {
             (Some(a), Some(b)) => format!("Gamma(shape {}, rate {})", num(a), num(b)),
             _ => "complete pooling".into(),
         },
-        Hyperprior::Normal(p) => format!("Normal(mean {}, variance {})", num(p.mean), num(p.variance)),
+        FittedPrior::Normal(p) => format!("Normal(mean {}, variance {})", num(p.mean), num(p.variance)),
     };
     let strength = prior.strength().map_or("infinite (no overdispersion)".to_string(), num);
     format!(
@@ -203,15 +203,15 @@ fn checks_text(checks: &ChecksReport) -> String {
     });
     if checks.verdict == "fits" {
         format!(
-            "Calibration: the groups sit evenly in their prior predictive distributions (chi-square {} on 9 df, p = {}): one prior describes them.{variance}",
+            "Calibration: the groups sit evenly in their prior predictive distributions (chi-square {} on 9 df, {}): one prior describes them.{variance}",
             num(calibration.statistic),
-            num(calibration.p_value)
+            p_value_text(calibration.p_value)
         )
     } else {
         format!(
-            "Calibration: <strong>poor fit</strong>. The groups sit unevenly in their prior predictive distributions (chi-square {} on 9 df, p = {}).{variance} One prior cannot describe groups of different kinds (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags.",
+            "Calibration: <strong>poor fit</strong>. The groups sit unevenly in their prior predictive distributions (chi-square {} on 9 df, {}).{variance} One prior cannot describe groups of different kinds (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags.",
             num(calibration.statistic),
-            num(calibration.p_value)
+            p_value_text(calibration.p_value)
         )
     }
 }
@@ -243,10 +243,10 @@ fn diagnostics(summary: &Summary, out: &mut String) {
     let test = &fit.overdispersion_test;
     let _ = writeln!(
         out,
-        "<li>Overdispersion ({}): Z = {}, one-sided p = {}. {}</li>",
+        "<li>Overdispersion ({}): Z = {}, one-sided {}. {}</li>",
         escape(&test.name),
         num(test.statistic),
-        num(test.p_value),
+        escape(&p_value_text(test.p_value)),
         if test.p_value < 0.05 {
             "The groups vary more than sampling noise alone allows."
         } else {
@@ -256,9 +256,9 @@ fn diagnostics(summary: &Summary, out: &mut String) {
     if let Some(pooling) = &fit.pooling_test {
         let _ = writeln!(
             out,
-            "<li>Against complete pooling: likelihood ratio {}, p = {} (50:50 mixture of chi-square(0) and chi-square(1)).</li>",
+            "<li>Against complete pooling: likelihood ratio {}, {} (50:50 mixture of chi-square(0) and chi-square(1)).</li>",
             num(pooling.statistic),
-            num(pooling.p_value)
+            escape(&p_value_text(pooling.p_value))
         );
     }
     if let Some(checks) = &summary.checks {
@@ -281,7 +281,7 @@ fn diagnostics(summary: &Summary, out: &mut String) {
             flags.groups_flagged,
             escape(&flags.event),
             num(flags.threshold),
-            num(flags.bound),
+            num(flags.fdr_level),
             num(flags.expected_false_flags)
         );
     }
@@ -381,7 +381,7 @@ pub fn render(
         collected.groups,
         summary.rows_read,
         summary.rows_rejected,
-        escape(&prior_text(&summary.hyperprior)),
+        escape(&prior_text(&summary.fitted_prior)),
         num(summary.pull.pool_weight_mean),
         num(summary.pull.pool_weight_median),
         num(summary.pull.pool_weight_p10),
@@ -455,10 +455,10 @@ fn segments(summary: &Summary, segment_figures: &[Option<Figure>], out: &mut Str
     if let Some(test) = &summary.segment_test {
         let _ = writeln!(
             out,
-            "<p>One prior for all groups against one per segment: likelihood ratio {} on {} df, p = {}.</p>",
+            "<p>One prior for all groups against one per segment: likelihood ratio {} on {} df, {}.</p>",
             num(test.statistic),
             test.degrees_of_freedom,
-            num(test.p_value)
+            escape(&p_value_text(test.p_value))
         );
     }
     let _ = writeln!(
@@ -472,9 +472,9 @@ fn segments(summary: &Summary, segment_figures: &[Option<Figure>], out: &mut Str
             "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
             escape(&segment_name(summary, i)),
             segment.groups,
-            num(segment.hyperprior.mean()),
-            segment.hyperprior.strength().map_or("infinite".into(), num),
-            checks.map_or("n/a".into(), |c| num(c.calibration.p_value)),
+            num(segment.fitted_prior.mean()),
+            segment.fitted_prior.strength().map_or("infinite".into(), num),
+            checks.map_or("n/a".into(), |c| escape(&p_value_figure(c.calibration.p_value))),
             checks.map_or("n/a", |c| c.verdict.as_str()),
             segment
                 .fallback
@@ -492,7 +492,7 @@ fn segments(summary: &Summary, segment_figures: &[Option<Figure>], out: &mut Str
             i + 1,
             escape(&segment_name(summary, i)),
             segment.groups,
-            escape(&prior_text(&segment.hyperprior))
+            escape(&prior_text(&segment.fitted_prior))
         );
         if let Some(checks) = &segment.checks {
             let _ = writeln!(out, "<p>{}</p>", checks_text(checks));

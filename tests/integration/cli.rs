@@ -165,23 +165,23 @@ fn output_keeps_input_order_and_the_documented_columns() {
             "id",
             "k",
             "n",
-            "raw_rate",
+            "raw_proportion",
             "posterior_mean",
             "posterior_sd",
             "interval_lo",
             "interval_hi",
             "pool_weight",
-            "posterior_alpha",
-            "posterior_beta"
+            "posterior_param_alpha",
+            "posterior_param_beta"
         ]
     );
     assert_eq!(table.column("id"), vec!["a", "b", "c", "d", "e", "f", "g", "h"]);
     // Group g has no trials: no raw rate, and it keeps the prior exactly.
     let g = 6;
-    assert_eq!(table.column("raw_rate")[g], "");
+    assert_eq!(table.column("raw_proportion")[g], "");
     assert_eq!(table.floats("pool_weight")[g], 1.0);
     let s = summary(&dir.path().join("s.json"));
-    let mean = s["hyperprior"]["mean"].as_f64().unwrap();
+    let mean = s["prior"]["mean"].as_f64().unwrap();
     assert!((table.floats("posterior_mean")[g] - mean).abs() < 1e-12);
     // The terminal gets the short summary.
     assert!(String::from_utf8_lossy(&out.stdout).contains("pool weight"));
@@ -215,8 +215,8 @@ fn parquet_output_and_input_round_trip_through_score_with_the_saved_prior() {
         (Csv::read(&dir.path().join("fitted.csv")), Csv::read(&dir.path().join("rescored.csv")));
     assert_eq!(first.rows, second.rows, "score with the saved prior reproduces the fit's output");
     assert_eq!(
-        summary(&dir.path().join("again.json"))["hyperprior"],
-        summary(&dir.path().join("prior.json"))["hyperprior"]
+        summary(&dir.path().join("again.json"))["prior"],
+        summary(&dir.path().join("prior.json"))["prior"]
     );
 }
 
@@ -327,7 +327,7 @@ fn a_complete_pooling_prior_scores_every_group_at_the_pooled_rate() {
         &["--quiet", "score", "--input", input, "--prior", "p.json"],
         &["--output", "scored.csv"],
     );
-    let mean = summary(&dir.path().join("p.json"))["hyperprior"]["mean"].as_f64().unwrap();
+    let mean = summary(&dir.path().join("p.json"))["prior"]["mean"].as_f64().unwrap();
     let scored = Csv::read(&dir.path().join("scored.csv"));
     assert!(scored.floats("posterior_mean").iter().all(|&m| m == mean));
     assert_eq!(scored.rows, Csv::read(&dir.path().join("fit.csv")).rows);
@@ -355,7 +355,7 @@ fn exceedance_columns_are_complementary_and_a_point_mass_under_complete_pooling(
     pooled.extend(["--above", "0.05", "--summary", "p.json"]);
     let out = ratepool(dir.path(), &pooled);
     assert!(out.status.success(), "{}", stderr(&out));
-    let mean = summary(&dir.path().join("p.json"))["hyperprior"]["mean"].as_f64().unwrap();
+    let mean = summary(&dir.path().join("p.json"))["prior"]["mean"].as_f64().unwrap();
     let expected = if mean > 0.05 { 1.0 } else { 0.0 };
     assert!(Csv::read(&dir.path().join("pooled.csv")).floats("prob_above").iter().all(|&p| p == expected));
 }

@@ -25,7 +25,7 @@ fn saved_prior(dir: &Path, model: &str, prior: &[f64]) -> String {
     let mut saved = summary(&dir.join("fitted.json"));
     let names = if model == "beta-binomial" { ["alpha", "beta"] } else { ["shape", "rate"] };
     for (name, value) in names.iter().zip(prior) {
-        saved["hyperprior"][*name] = Value::from(*value);
+        saved["prior"][*name] = Value::from(*value);
     }
     write(dir, "prior.json", &saved.to_string())
 }
@@ -140,7 +140,7 @@ fn prob_top_by_draws_is_within_0_005_of_the_exact_integral_and_the_same_bits_on_
 fn prob_top_by_threshold_expects_k_groups_and_reverses_with_lowest_first() {
     let dir = tempfile::tempdir().unwrap();
     let demo = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data").join("marketplace.csv");
-    for (extra, best) in [(None, "highest"), (Some("--rank-lowest-first"), "lowest")] {
+    for (extra, best) in [(None, "highest-first"), (Some("--rank-lowest-first"), "lowest-first")] {
         let mut args = vec!["--quiet", "fit", "--model", "beta-binomial", "--input", demo.to_str().unwrap()];
         args.extend(["--group", "seller_id", "--successes", "positive_ratings", "--trials", "total_ratings"]);
         args.extend(["--top", "50", "--top-method", "threshold", "--output", "t.csv", "--summary", "t.json"]);
@@ -151,7 +151,7 @@ fn prob_top_by_threshold_expects_k_groups_and_reverses_with_lowest_first() {
         let expected: f64 = top.iter().sum();
         assert!((expected - 50.0).abs() < 1e-6, "{best}: {expected}");
         let report = summary(&dir.path().join("t.json"));
-        assert_eq!(report["top"]["best"], best);
+        assert_eq!(report["rank_order"], best, "which rates prob_top counts as best");
         assert!(report["top"]["threshold"].as_f64().unwrap() > 0.0);
     }
 }

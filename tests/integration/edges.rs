@@ -55,7 +55,7 @@ fn beta_binomial_csv(rows: &Value) -> String {
 /// relative, log marginal likelihood within `ll_tolerance`.
 fn assert_reference_fit(s: &Value, reference: &Value, names: [&str; 2], ll_tolerance: f64) {
     for name in names {
-        let (got, expected) = (s["hyperprior"][name].as_f64().unwrap(), reference[name].as_f64().unwrap());
+        let (got, expected) = (s["prior"][name].as_f64().unwrap(), reference[name].as_f64().unwrap());
         assert!(relative(got, expected) < 1e-6, "{name}: {got} vs reference {expected}");
     }
     let (got, expected) = (
@@ -104,7 +104,7 @@ fn a_single_group_is_pooled_completely_at_its_own_rate() {
     assert_eq!(code, Some(0), "{message}");
     let s = s.unwrap();
     assert_eq!(s["fit"]["boundary"], "no-overdispersion");
-    assert_eq!(s["hyperprior"]["mean"].as_f64().unwrap(), 0.3);
+    assert_eq!(s["prior"]["mean"].as_f64().unwrap(), 0.3);
     let table = table.unwrap();
     assert_eq!(table.floats("posterior_mean"), vec![0.3]);
     assert_finite_table(&table);
@@ -132,7 +132,7 @@ fn two_groups_give_a_defined_outcome() {
     assert_eq!(code, Some(0), "{message}");
     let s = s.unwrap();
     assert_eq!(s["fit"]["boundary"], "none");
-    let mean = s["hyperprior"]["mean"].as_f64().unwrap();
+    let mean = s["prior"]["mean"].as_f64().unwrap();
     assert!((mean - 0.5).abs() < 1e-9, "symmetric data, symmetric prior: {mean}");
     let posts = table.unwrap().floats("posterior_mean");
     assert!(posts[0] > 0.05 && posts[0] < 0.5 && posts[1] > 0.5 && posts[1] < 0.95, "{posts:?}");

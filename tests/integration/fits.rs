@@ -65,7 +65,7 @@ fn beta_binomial_fit_matches_scipy_maximiser() {
     // polished by Newton steps to a gradient of 2e-12.
     let reference = &json_fixture("fits.json")["beta_binomial"];
     let (_dir, s, table) = fit_beta_binomial("beta_binomial_groups.csv");
-    let prior = &s["hyperprior"];
+    let prior = &s["prior"];
     for key in ["alpha", "beta"] {
         let (got, expected) = (prior[key].as_f64().unwrap(), reference[key].as_f64().unwrap());
         assert!(relative(got, expected) < 1e-6, "{key}: {got} vs {expected}");
@@ -85,7 +85,7 @@ fn check_against_statsmodels(key: &str, input: &str, columns: [&str; 3]) {
     let reference = &json_fixture("fits.json")[key];
     let (_dir, _, s, table) = run_fit(input, "gamma-poisson", columns);
     for key in ["shape", "rate"] {
-        let (got, expected) = (s["hyperprior"][key].as_f64().unwrap(), reference[key].as_f64().unwrap());
+        let (got, expected) = (s["prior"][key].as_f64().unwrap(), reference[key].as_f64().unwrap());
         assert!(relative(got, expected) < 1e-6, "{key}: {got} vs {expected}");
     }
     let ll = s["fit"]["log_marginal_likelihood"].as_f64().unwrap();
@@ -116,9 +116,9 @@ fn binomial_data_without_overdispersion_end_at_the_boundary_with_finite_output()
     let (_dir, out, s, table) = run_fit("binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
     assert!(stderr(&out).contains("infinite prior strength"), "{}", stderr(&out));
     assert_eq!(s["fit"]["boundary"], "no-overdispersion");
-    assert!(s["hyperprior"]["strength"].is_null());
-    assert!(s["hyperprior"]["alpha"].is_null());
-    let mean = s["hyperprior"]["mean"].as_f64().unwrap();
+    assert!(s["prior"]["strength"].is_null());
+    assert!(s["prior"]["alpha"].is_null());
+    let mean = s["prior"]["mean"].as_f64().unwrap();
     assert!(relative(mean, reference["mean"].as_f64().unwrap()) < 1e-12);
     let ll = s["fit"]["log_marginal_likelihood"].as_f64().unwrap();
     assert!((ll - reference["log_likelihood"].as_f64().unwrap()).abs() < 1e-6);
@@ -126,7 +126,7 @@ fn binomial_data_without_overdispersion_end_at_the_boundary_with_finite_output()
         assert_eq!(v, mean);
     }
     assert!(table.floats("pool_weight").iter().all(|&w| w == 1.0));
-    assert!(table.column("posterior_alpha").iter().all(|v| v.is_empty()));
+    assert!(table.column("posterior_param_alpha").iter().all(|v| v.is_empty()));
 }
 
 #[test]
@@ -213,13 +213,12 @@ fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
     }
     // With the bias, the nodes are centred on the fit less it: the same
     // intervals as the unbiased mixture around the prior at u − bias.
-    let (alpha, beta) =
-        (s["hyperprior"]["alpha"].as_f64().unwrap(), s["hyperprior"]["beta"].as_f64().unwrap());
+    let (alpha, beta) = (s["prior"]["alpha"].as_f64().unwrap(), s["prior"]["beta"].as_f64().unwrap());
     let u = [(alpha / beta).ln() - bias[0], (alpha + beta).ln() - bias[1]];
     let (mean, strength) = (1.0 / (1.0 + (-u[0]).exp()), u[1].exp());
     let mut moved = unbiased.clone();
-    moved["hyperprior"]["alpha"] = serde_json::json!(mean * strength);
-    moved["hyperprior"]["beta"] = serde_json::json!((1.0 - mean) * strength);
+    moved["prior"]["alpha"] = serde_json::json!(mean * strength);
+    moved["prior"]["beta"] = serde_json::json!((1.0 - mean) * strength);
     write(dir.path(), "moved.json", &moved.to_string());
     let shifted = score_corrected(dir.path(), "moved.json", "moved.csv", &[]);
     for column in ["interval_lo", "interval_hi", "posterior_sd"] {

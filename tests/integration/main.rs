@@ -23,3 +23,4 @@ mod report;
 mod scale;
 mod segments;
 mod util;
+mod wording;

@@ -34,7 +34,7 @@ fn check_against_reference(method: &str, extra: &[&str]) {
     let mut args = vec!["--above", "20"];
     args.extend(extra);
     let (s, table) = fit_normal(dir.path(), input.to_str().unwrap(), columns, &args);
-    let prior = &s["hyperprior"];
+    let prior = &s["prior"];
     assert!(relative(number(prior, "mean"), number(reference, "mean")) < 1e-9, "{prior}");
     assert!(relative(number(prior, "variance"), number(reference, "variance")) < 1e-8, "{prior}");
     assert!(relative(number(prior, "strength"), 1.0 / number(reference, "variance")) < 1e-8);
@@ -62,7 +62,7 @@ fn check_against_reference(method: &str, extra: &[&str]) {
             "row {i}: {above} vs {}",
             r["prob_above_20"]
         );
-        assert_eq!(table.floats("raw_rate")[i], number(r, "estimate"), "the raw value is the estimate");
+        assert_eq!(table.floats("raw_estimate")[i], number(r, "estimate"), "the raw value is the estimate");
     }
 }
 
@@ -88,7 +88,7 @@ fn estimates_that_vary_less_than_their_errors_say_end_at_the_boundary() {
         let input = fixture("normal_boundary.csv");
         let columns = ["clinic", "wait_minutes", "wait_se"];
         let (s, table) = fit_normal(dir.path(), input.to_str().unwrap(), columns, &extra);
-        let prior = &s["hyperprior"];
+        let prior = &s["prior"];
         assert_eq!(prior["variance"], 0.0, "{method}");
         assert!(prior["strength"].is_null());
         assert!(relative(number(prior, "mean"), number(reference, "mean")) < 1e-12);
@@ -136,7 +136,7 @@ fn equal_standard_errors_give_the_closed_forms_and_the_james_stein_example() {
     // the plain average; tau² = S/k − s² by ML and S/(k − 1) − s² by REML.
     for (extra, divisor) in [(vec![], k), (vec!["--variance-method", "reml"], k - 1.0)] {
         let (s, table) = fit_normal(dir.path(), &input, columns, &extra);
-        let prior = &s["hyperprior"];
+        let prior = &s["prior"];
         assert!(relative(number(prior, "mean"), grand) < 1e-12, "{prior}");
         let tau2 = spread / divisor - se * se;
         assert!(relative(number(prior, "variance"), tau2) < 1e-9, "{prior} vs {tau2}");
@@ -153,7 +153,7 @@ fn equal_standard_errors_give_the_closed_forms_and_the_james_stein_example() {
     let b = table.floats("pool_weight")[0];
     let c = 1.0 - (k - 3.0) / k * b;
     assert_eq!((c * 1000.0).round() / 1000.0, 0.212, "c = {c}");
-    let clemente = number(&s["hyperprior"], "mean") + c * (averages[0] - grand);
+    let clemente = number(&s["prior"], "mean") + c * (averages[0] - grand);
     assert_eq!((clemente * 1000.0).round() / 1000.0, 0.294, "{clemente}");
     assert_eq!((grand * 1000.0).round() / 1000.0, 0.265);
 }
@@ -236,7 +236,7 @@ fn thresholds_may_be_negative_and_a_saved_prior_scores_new_estimates() {
         ["--below", "-0.2", "--flag-fdr", "0.1", "--ranks", "--top", "3", "--top-method", "threshold"];
     let extra = [&extra[..], &["--intervals", "corrected"]].concat();
     let (s, table) = fit_normal(dir.path(), &input, columns, &extra);
-    assert!(number(&s["hyperprior"], "mean") < 0.0);
+    assert!(number(&s["prior"], "mean") < 0.0);
     let below = table.floats("prob_below");
     assert!(below.iter().all(|p| (0.0..=1.0).contains(p)));
     // The threshold c has K groups expected beyond it, so prob_top sums to
@@ -275,5 +275,5 @@ fn thresholds_may_be_negative_and_a_saved_prior_scores_new_estimates() {
     assert!(out.status.success(), "{}", stderr(&out));
     let scored = Csv::read(&dir.path().join("scored.csv"));
     assert_eq!(scored.floats("posterior_mean"), plug.floats("posterior_mean"));
-    assert_eq!(summary(&dir.path().join("scored.json"))["hyperprior"], s["hyperprior"]);
+    assert_eq!(summary(&dir.path().join("scored.json"))["prior"], s["prior"]);
 }

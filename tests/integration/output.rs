@@ -132,10 +132,10 @@ fn the_parquet_footer_says_what_model_and_prior_made_the_table() {
         assert_eq!(value("ratepool.intervals"), "corrected");
         assert_eq!(value("ratepool.level"), "0.95");
         assert_eq!(value("ratepool.version"), env!("CARGO_PKG_VERSION"));
-        let hyperprior: serde_json::Value = serde_json::from_str(&value("ratepool.hyperprior")).unwrap();
-        assert_eq!(hyperprior, s["hyperprior"], "{file}");
+        let prior: serde_json::Value = serde_json::from_str(&value("ratepool.prior")).unwrap();
+        assert_eq!(prior, s["prior"], "{file}");
         let segments: serde_json::Value = serde_json::from_str(&value("ratepool.segments")).unwrap();
         assert_eq!(segments.as_array().unwrap().len(), s["segments"].as_array().unwrap().len());
-        assert_eq!(segments[0]["hyperprior"], s["segments"][0]["hyperprior"]);
+        assert_eq!(segments[0]["prior"], s["segments"][0]["prior"]);
     }
 }

@@ -27,7 +27,7 @@ fn assert_pair_table_fits_the_same_prior(model: &str, raw: &[&str], pairs: &[&st
     run_ok(dir.path(), &pair_args);
     let (from_raw, from_pairs) =
         (summary(&dir.path().join("raw.json")), summary(&dir.path().join("pairs.json")));
-    for field in ["hyperprior", "groups", "level"] {
+    for field in ["prior", "groups", "level"] {
         assert_eq!(from_raw[field], from_pairs[field], "{field}");
     }
     for field in ["log_marginal_likelihood", "iterations", "gradient_norm", "boundary"] {

@@ -61,7 +61,7 @@ fn each_segment_gets_the_fit_of_its_own_groups_and_the_test_compares_them() {
     let spread = segment(&s["segments"], "kind", Some("spread"));
     for key in ["alpha", "beta"] {
         let (got, want) =
-            (spread["hyperprior"][key].as_f64().unwrap(), reference["beta_binomial"][key].as_f64().unwrap());
+            (spread["prior"][key].as_f64().unwrap(), reference["beta_binomial"][key].as_f64().unwrap());
         assert!(relative(got, want) < 1e-6, "{key}: {got} vs {want}");
     }
     assert_eq!(spread["groups"], 400);
@@ -70,7 +70,7 @@ fn each_segment_gets_the_fit_of_its_own_groups_and_the_test_compares_them() {
     assert_eq!(even["fit"]["boundary"], "no-overdispersion", "a boundary is a result");
     assert!(even["fallback"].is_null(), "a boundary is not a fallback");
     let pooled = reference["binomial_boundary"]["mean"].as_f64().unwrap();
-    assert!(relative(even["hyperprior"]["mean"].as_f64().unwrap(), pooled) < 1e-12);
+    assert!(relative(even["prior"]["mean"].as_f64().unwrap(), pooled) < 1e-12);
     // The statistic from the references' log marginal likelihoods and the
     // run's all-groups fit; with two degrees of freedom the chi-square tail
     // is exp(-x/2) (a handbook formula).
@@ -149,7 +149,7 @@ fn small_segments_and_segments_with_only_a_mean_fall_back_with_their_reason() {
     assert_eq!(reason(Some("small")), "fewer than 30 groups (5)");
     assert_eq!(reason(None), "fewer than 30 groups (2)");
     let null_segment = segment(segments, "shop", None);
-    assert_eq!(null_segment["hyperprior"], s["hyperprior"], "the all-groups prior");
+    assert_eq!(null_segment["prior"], s["prior"], "the all-groups prior");
     assert!(null_segment["fit"].is_null());
     assert_eq!(s["segment_test"]["degrees_of_freedom"], 2, "one segment of its own plus the shared prior");
     // With --min-groups 3 the five-group segment gets its own fit.
@@ -247,7 +247,7 @@ fn pair_tables_take_segment_columns_and_give_the_rows_fit() {
     for (a, b) in
         from_rows["segments"].as_array().unwrap().iter().zip(from_pairs["segments"].as_array().unwrap())
     {
-        assert_eq!(a["hyperprior"], b["hyperprior"]);
+        assert_eq!(a["prior"], b["prior"]);
         assert_eq!(a["key"], b["key"]);
     }
     let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();

@@ -161,6 +161,7 @@ impl Family for BetaBinomial {
         size_role: "trials",
         size_kind: SizeKind::Trials,
         parameter_names: ["alpha", "beta"],
+        raw_column: "raw_proportion",
         degenerate_data: "successes or all failures",
         rates: RateRange::Proportion,
         mean_only_data:

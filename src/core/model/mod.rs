@@ -106,8 +106,13 @@ pub struct ModelTerms {
     pub size_role: &'static str,
     /// What the size column holds, and so what each column accepts.
     pub size_kind: SizeKind,
-    /// The natural parameters of prior and posterior, in order.
+    /// The natural parameters of prior and posterior, in order; the output
+    /// writes the posterior's as `posterior_param_<name>`, a name no reader
+    /// takes for the smoothed estimate (that is `posterior_mean`).
     pub parameter_names: [&'static str; 2],
+    /// The output column of a group's own value before pooling, in the
+    /// model's words: a proportion, a rate, an estimate.
+    pub raw_column: &'static str,
     /// The data that leave the prior mean on the edge of its range, in words.
     pub degenerate_data: &'static str,
     /// The range of a group's rate (or mean), and so of a threshold.
