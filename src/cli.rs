@@ -13,30 +13,80 @@ use std::path::PathBuf;
 
 /// Empirical-Bayes shrinkage of rates over many groups.
 #[derive(Debug, Parser)]
-#[command(name = "ratepool", version, about)]
+#[command(
+    name = "ratepool",
+    version,
+    about,
+    after_help = SHORT_AFTER,
+    after_long_help = EXIT_STATUS
+)]
 pub struct Cli {
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
-    /// Worker threads (default: all cores). Output is identical for any value.
-    #[arg(long, global = true, help_heading = "Run")]
+    /// Run options given before the subcommand (`ratepool --quiet fit ...`).
+    #[command(flatten)]
+    pub run: RunArgs,
+}
+
+/// How a run speaks and how many threads it uses: accepted before the
+/// subcommand and after `fit`, `score` and `report`, where they act, and
+/// nowhere else.
+#[derive(Debug, Clone, Default, Args)]
+pub struct RunArgs {
+    /// Worker threads (default: all cores)
+    #[arg(
+        long_help = "Worker threads (default: all cores). The output is the same for any number.",
+        long,
+        value_name = "N",
+        help_heading = "Run"
+    )]
     pub threads: Option<usize>,
-    /// Print nothing but errors: no summary and no warnings on the terminal (the warnings
-    /// stay in the summary file).
-    #[arg(long, global = true, help_heading = "Run")]
+    /// Print nothing but errors
+    #[arg(
+        long_help = "Print nothing but errors: no summary and no warnings on the terminal (the warnings stay in the summary file).",
+        long,
+        help_heading = "Run"
+    )]
     pub quiet: bool,
-    /// Print the wall time of each phase on stderr.
-    #[arg(long, global = true, help_heading = "Run")]
+    /// Print the wall time of each phase on stderr
+    #[arg(long, help_heading = "Run")]
     pub timings: bool,
-    /// Report progress on stderr: the end of each phase and, in the two
-    /// passes over the input, the rows done (at most once a second).
-    #[arg(long, global = true, help_heading = "Run")]
+    /// Report progress on stderr
+    #[arg(
+        long_help = "Report progress on stderr: the end of each phase and, in the two passes over the input, the rows done (at most once a second).",
+        long,
+        help_heading = "Run"
+    )]
     pub progress: bool,
-    /// How stderr speaks: `text`, or `json` for schedulers: one JSON object per line for each
-    /// phase (name, seconds, rows, pairs), each warning, and the end (exit status, outputs
-    /// written, or the error).
-    #[arg(long, global = true, value_enum, default_value_t = LogFormat::Text, help_heading = "Run")]
-    pub log_format: LogFormat,
+    /// How stderr speaks: text, or json for schedulers
+    #[arg(
+        long_help = "How stderr speaks: `text`, or `json` for schedulers: one JSON object per line for each phase (name, seconds, rows, pairs), each warning, and the end (exit status, outputs written, or the error).",
+        long,
+        value_enum,
+        value_name = "FORMAT",
+        hide_possible_values = true,
+        help_heading = "Run"
+    )]
+    pub log_format: Option<LogFormat>,
+}
+
+impl RunArgs {
+    /// These options with those of `later` (given after the subcommand) added.
+    fn with(&self, later: &RunArgs) -> RunArgs {
+        RunArgs {
+            threads: later.threads.or(self.threads),
+            quiet: self.quiet || later.quiet,
+            timings: self.timings || later.timings,
+            progress: self.progress || later.progress,
+            log_format: later.log_format.or(self.log_format),
+        }
+    }
+
+    /// True when stderr speaks JSON.
+    pub fn json(&self) -> bool {
+        self.log_format == Some(LogFormat::Json)
+    }
 }
 
 /// How stderr speaks.
@@ -49,15 +99,27 @@ pub enum LogFormat {
 }
 
 impl Cli {
+    /// The run options, from before the subcommand and after it.
+    pub fn run_options(&self) -> RunArgs {
+        let later = match &self.command {
+            Command::Fit(args) => Some(&args.table.run),
+            Command::Score(args) => Some(&args.table.run),
+            Command::Report(args) => Some(&args.run),
+            Command::CheckConfig(_) | Command::Completions { .. } | Command::Manpage => None,
+        };
+        later.map_or_else(|| self.run.clone(), |later| self.run.with(later))
+    }
+
     /// What the run reports on stderr: progress bars only when stderr is a
     /// terminal and nothing else was asked of it.
     pub fn watch(&self) -> Watch {
         use std::io::IsTerminal;
-        let json = self.log_format == LogFormat::Json;
-        let asked = self.quiet || json || self.progress || self.timings;
+        let run = self.run_options();
+        let json = run.json();
+        let asked = run.quiet || json || run.progress || run.timings;
         Watch {
-            timings: self.timings,
-            progress: self.progress,
+            timings: run.timings,
+            progress: run.progress,
             json,
             bars: !asked && std::io::stderr().is_terminal(),
         }
@@ -83,23 +145,40 @@ pub struct Outcome {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Fit a prior to all groups and write every group's posterior.
-    #[command(args_override_self = true, after_help = FIT_EXAMPLE)]
+    #[command(args_override_self = true, after_help = SHORT_AFTER, after_long_help = FIT_AFTER)]
     Fit(FitArgs),
-    /// Score groups with a prior saved by an earlier fit, without refitting.
-    #[command(args_override_self = true, after_help = SCORE_EXAMPLE)]
-    Score(ScoreArgs),
-    /// Write the HTML report of a run from its output table and summary.
-    #[command(after_help = REPORT_EXAMPLE)]
-    Report(ReportArgs),
-    /// Check a job file (--config) without running it, naming the key and line of each mistake.
-    #[command(after_help = CHECK_EXAMPLE)]
-    CheckConfig(CheckConfigArgs),
-    /// Print a shell completion script for ratepool (bash, zsh, fish, elvish or powershell).
+    /// Score groups with a saved prior, without refitting.
     #[command(
-        after_help = "Example:\n  ratepool completions bash > ~/.local/share/bash-completion/completions/ratepool"
+        args_override_self = true,
+        after_help = SHORT_AFTER,
+        after_long_help = SCORE_AFTER,
+        mut_arg("by", |a| a.help("Score each segment with its saved prior").long_help(
+            "Score each segment (the rows sharing the values of these columns) with its prior in \
+             the prior file, which must have been fitted with the same --by columns; a segment the \
+             prior file has not seen takes its all-groups prior, and `prior_fallback` says which rows did."
+        )),
+        mut_arg("min_groups", |a| a.hide(true)),
+        mut_arg("group", |a| a.long_help("Column holding the group id.")),
+        mut_arg("output", |a| a.long_help(
+            "Output table (.csv or .parquet), written atomically: it appears complete or not at all."
+        ))
     )]
+    Score(ScoreArgs),
+    /// Write the HTML report of a run from its table and summary.
+    #[command(after_help = SHORT_AFTER, after_long_help = REPORT_AFTER)]
+    Report(ReportArgs),
+    /// Check a job file (--config) without running it.
+    ///
+    /// Check a job file (--config) without running it, naming the key and line of each mistake.
+    #[command(after_help = SHORT_AFTER, after_long_help = CHECK_AFTER)]
+    CheckConfig(CheckConfigArgs),
+    /// Print a shell completion script.
+    ///
+    /// Print a shell completion script for ratepool (bash, zsh, fish, elvish or powershell).
+    #[command(after_help = "Example:\n  ratepool completions bash > ratepool.bash && source ratepool.bash")]
     Completions {
         /// The shell.
+        #[arg(value_name = "SHELL")]
         shell: clap_complete::Shell,
     },
     /// Print the manual page (roff), generated from these options.
@@ -107,32 +186,84 @@ pub enum Command {
     Manpage,
 }
 
-const FIT_EXAMPLE: &str = "Examples (from the repository root, on the invented demo data):
-  ratepool fit --input demo-data/marketplace.csv --model beta-binomial --group seller_id \\
-    --successes positive_ratings --trials total_ratings --ranks --output sellers.parquet --summary sellers.json
-  ratepool fit --input demo-data/districts.csv --model gamma-poisson --group district_id \\
-    --events observed_cases --exposure expected_cases --above 1 --flag-fdr 0.1 \\
-    --output districts.parquet --summary districts.json --report districts.html
-  ratepool fit --input demo-data/clinic_waits.csv --model normal-normal --group clinic_id \\
-    --estimate mean_wait_minutes --std-error wait_se --variance-method reml --output clinics.csv";
+/// What `-h` shows after the options.
+const SHORT_AFTER: &str = "Use --help for the details of each option, worked examples and the exit status.";
 
-const SCORE_EXAMPLE: &str = "Example (from the repository root; the prior from the fit example above):
-  ratepool score --prior districts.json --input demo-data/districts.csv --group district_id \\
-    --events observed_cases --exposure expected_cases --output scored.parquet --summary scored.json";
+// The texts below are macros so that `concat!` can join them into each
+// subcommand's `--help` and the manual page can take them one by one.
+macro_rules! exit_status {
+    () => {
+        "Exit status:
+  0  the run finished and every output was written
+  1  a file could not be read or written, or an internal error
+  2  a usage mistake or invalid input; no output was written
+  3  the model cannot be fitted to these data; no output was written
+The message on stderr names the option, the row and column, or the reason."
+    };
+}
 
-const REPORT_EXAMPLE: &str = "Example (from the repository root, after `ratepool fit ... --output districts.parquet --summary districts.json`):
-  ratepool report --table districts.parquet --summary districts.json --output districts.html --plots plots/";
+macro_rules! fit_examples {
+    () => {
+        "Examples (from the repository root, on the invented demo data):
+  ratepool fit --input demo-data/marketplace.csv --model beta-binomial \\
+    --group seller_id --successes positive_ratings --trials total_ratings \\
+    --ranks --output sellers.parquet --summary sellers.json
+  ratepool fit --input demo-data/districts.csv --model gamma-poisson \\
+    --group district_id --events observed_cases --exposure expected_cases \\
+    --above 1 --flag-fdr 0.1 --output districts.parquet \\
+    --summary districts.json --report districts.html
+  ratepool fit --input demo-data/clinic_waits.csv --model normal-normal \\
+    --group clinic_id --estimate mean_wait_minutes --std-error wait_se \\
+    --variance-method reml --output clinics.csv"
+    };
+}
 
-const CHECK_EXAMPLE: &str = "Example (from the repository root):
-  ratepool check-config demo-data/jobs/weekly-fit.toml";
+macro_rules! score_examples {
+    () => {
+        "Example (from the repository root; the prior from the fit example above):
+  ratepool score --prior districts.json --input demo-data/districts.csv \\
+    --group district_id --events observed_cases --exposure expected_cases \\
+    --output scored.parquet --summary scored.json"
+    };
+}
+
+macro_rules! report_examples {
+    () => {
+        "Example (from the repository root, after the second fit example):
+  ratepool report --table districts.parquet --summary districts.json \\
+    --output districts.html --plots plots/"
+    };
+}
+
+macro_rules! check_examples {
+    () => {
+        "Example (from the repository root):
+  ratepool check-config demo-data/jobs/weekly-fit.toml"
+    };
+}
+
+/// The exit status, in `--help` and the manual page.
+pub const EXIT_STATUS: &str = exit_status!();
+/// The worked examples of each subcommand, in its `--help` and the manual page (a test runs them).
+pub const EXAMPLES: [(&str, &str); 4] = [
+    ("fit", fit_examples!()),
+    ("score", score_examples!()),
+    ("report", report_examples!()),
+    ("check-config", check_examples!()),
+];
+const FIT_AFTER: &str = concat!(fit_examples!(), "\n\n", exit_status!());
+const SCORE_AFTER: &str = concat!(score_examples!(), "\n\n", exit_status!());
+const REPORT_AFTER: &str = concat!(report_examples!(), "\n\n", exit_status!());
+const CHECK_AFTER: &str = concat!(check_examples!(), "\n\n", exit_status!());
 
 /// Options of `check-config`.
 #[derive(Debug, Args)]
 pub struct CheckConfigArgs {
     /// The job file (TOML).
+    #[arg(value_name = "FILE")]
     pub file: PathBuf,
-    /// The subcommand it is for (default: its `command` key, else fit).
-    #[arg(long, value_parser = ["fit", "score"])]
+    /// fit or score (default: its `command` key, else fit).
+    #[arg(long, value_name = "COMMAND", value_parser = ["fit", "score"], hide_possible_values = true)]
     pub command: Option<String>,
 }
 
@@ -140,23 +271,35 @@ pub struct CheckConfigArgs {
 #[derive(Debug, Args)]
 pub struct ReportArgs {
     /// The run's output table (.csv or .parquet).
-    #[arg(long)]
+    #[arg(long, value_name = "FILE")]
     pub table: PathBuf,
     /// The run's summary file.
-    #[arg(long)]
+    #[arg(long, value_name = "FILE")]
     pub summary: PathBuf,
     /// The HTML file to write (one self-contained page).
-    #[arg(long)]
+    #[arg(long, value_name = "FILE")]
     pub output: PathBuf,
-    /// Also write each plot as its own file into this folder.
-    #[arg(long, value_name = "FOLDER")]
+    /// Also write each plot into this folder
+    #[arg(long, value_name = "FOLDER", long_help = "Also write each plot as its own file into this folder.")]
     pub plots: Option<PathBuf>,
-    /// The format of the plots written with --plots.
-    #[arg(long, value_enum, default_value_t = PlotFormatArg::Svg, requires = "plots")]
+    /// svg (default) or png, for --plots
+    #[arg(
+        long,
+        value_enum,
+        value_name = "FORMAT",
+        default_value_t = PlotFormatArg::Svg,
+        hide_default_value = true,
+        hide_possible_values = true,
+        requires = "plots",
+        long_help = "The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans)."
+    )]
     pub plot_format: PlotFormatArg,
-    /// Seed of the samples drawn for the scatter plots.
-    #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED)]
+    /// Seed of the scatter plots' samples
+    #[arg(long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_SEED, long_help = "Seed of the samples drawn for the scatter plots (default 20261202).", hide_default_value = true)]
     pub seed: u64,
+    /// How the run speaks.
+    #[command(flatten)]
+    pub run: RunArgs,
 }
 
 /// What to do with invalid rows.
@@ -215,179 +358,271 @@ pub enum TopMethodArg {
     Threshold,
 }
 
-/// Options shared by fit and score.
+/// Options shared by fit and score. The model option itself is the first
+/// field of [`FitArgs`] and [`ScoreArgs`], so that it heads the model columns.
 #[derive(Debug, Args)]
 pub struct TableArgs {
-    /// A job file (TOML) holding options, keys named as the long options (`successes = "k"`,
-    /// `flag-fdr = 0.1`, `by = ["kind"]`, `ranks = true`); options given here override it.
-    #[arg(long, value_name = "FILE", help_heading = "Input")]
+    /// A job file (TOML) holding options
+    #[arg(
+        long_help = "A job file (TOML) holding options, keys named as the long options (`successes = \"k\"`, `flag-fdr = 0.1`, `by = [\"kind\"]`, `ranks = true`); options given here override it.",
+        long,
+        value_name = "FILE",
+        help_heading = "Input"
+    )]
     pub config: Option<PathBuf>,
-    /// Input table (.csv or .parquet).
-    #[arg(long, help_heading = "Input")]
+    /// Input table (.csv or .parquet)
+    #[arg(long, value_name = "FILE", help_heading = "Input")]
     pub input: PathBuf,
-    /// Rows are trials: this column holds each trial's outcome (1 or 0, true or false), and
-    /// trials and successes are counted per group before the fit (beta-binomial; --successes
-    /// and --trials then name the output's count columns, by default `successes` and `trials`).
-    #[arg(long, value_name = "COLUMN", help_heading = "Input")]
+    /// Rows are trials: this column holds 1 or 0
+    #[arg(
+        long_help = "Rows are trials: this column holds each trial's outcome (1 or 0, true or false), and trials and successes are counted per group before the fit (beta-binomial; --successes and --trials then name the output's count columns, by default `successes` and `trials`).",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Input"
+    )]
     pub outcome: Option<String>,
-    /// Rows are parts of groups (one row per store per day, say): counts and sizes are summed
-    /// per group id (per segment with --by) before the fit. Memory grows with the groups.
-    #[arg(long, help_heading = "Input")]
+    /// Rows are parts of groups: sum them per group first
+    #[arg(
+        long_help = "Rows are parts of groups (one row per store per day, say): counts and sizes are summed per group id (per segment with --by) before the fit. Memory grows with the groups.",
+        long,
+        help_heading = "Input"
+    )]
     pub aggregate: bool,
-    /// What to do with invalid rows.
-    #[arg(long, value_enum, default_value_t = InvalidArg::Error, help_heading = "Input")]
+    /// On an invalid row: error (stop; default) or skip
+    #[arg(long_help = "What to do with an invalid row: `error` stops at the first and writes nothing; `skip` leaves it out and writes it, with the reason, to --rejects.", long, value_enum, value_name = "ACTION", default_value_t = InvalidArg::Error, hide_possible_values = true, hide_default_value = true, help_heading = "Input")]
     pub on_invalid: InvalidArg,
-    /// Where invalid rows go with --on-invalid skip (.csv or .parquet).
-    #[arg(long, help_heading = "Input")]
+    /// Where skipped rows go (.csv or .parquet)
+    #[arg(
+        long_help = "Where invalid rows go with --on-invalid skip (.csv or .parquet), each with its row number, the column at fault and the reason.",
+        long,
+        value_name = "FILE",
+        help_heading = "Input"
+    )]
     pub rejects: Option<PathBuf>,
     /// Accepted for old scripts and changes nothing: every input is now read in batches.
     #[arg(long, hide = true, help_heading = "Input")]
     pub stream: bool,
-    /// Field separator of CSV input: one character, or `tab` (default `,`).
-    /// CSV output is always comma-separated.
-    #[arg(long, default_value = ",", value_parser = parse_delimiter, help_heading = "Input")]
+    /// CSV field separator, or tab
+    #[arg(long_help = "Field separator of CSV input: one character such as `;`, or `tab`. CSV output is always comma-separated.", long, value_name = "CHAR", default_value = ",", value_parser = parse_delimiter, help_heading = "Input")]
     pub delimiter: u8,
-    /// Rows per batch read (the output is the same for any value).
-    #[arg(long, default_value_t = crate::pipeline::DEFAULT_BATCH_ROWS, help_heading = "Input")]
+    /// Rows per batch read
+    #[arg(long_help = "Rows per batch read (the output is the same for any value).", long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_BATCH_ROWS, help_heading = "Input")]
     pub batch_rows: usize,
-    /// Column holding the group id (not with --pair-counts).
-    #[arg(long, help_heading = "Model columns")]
+    /// Column holding the group id
+    #[arg(
+        long_help = "Column holding the group id (not with --pair-counts, whose rows are pairs, not groups).",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Model"
+    )]
     pub group: Option<String>,
-    /// Column of successes (beta-binomial).
-    #[arg(long, help_heading = "Model columns")]
+    /// Column of successes (beta-binomial)
+    #[arg(long, value_name = "COLUMN", help_heading = "Model")]
     pub successes: Option<String>,
-    /// Column of trials (beta-binomial).
-    #[arg(long, help_heading = "Model columns")]
+    /// Column of trials (beta-binomial)
+    #[arg(long, value_name = "COLUMN", help_heading = "Model")]
     pub trials: Option<String>,
-    /// Column of events (gamma-poisson).
-    #[arg(long, help_heading = "Model columns")]
+    /// Column of events (gamma-poisson)
+    #[arg(long, value_name = "COLUMN", help_heading = "Model")]
     pub events: Option<String>,
-    /// Column of exposure: person-time, or expected counts (gamma-poisson).
-    #[arg(long, help_heading = "Model columns")]
+    /// Exposure or expected counts (gamma-poisson)
+    #[arg(
+        long_help = "Column of exposure (gamma-poisson): person-time, or expected counts, which make each rate a standardised ratio such as the SMR.",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Model"
+    )]
     pub exposure: Option<String>,
-    /// Column of estimates, one per group: a mean rating, a mean waiting time, an effect size
-    /// (normal-normal).
-    #[arg(long, help_heading = "Model columns")]
+    /// Column of estimates, one per group (normal-normal)
+    #[arg(
+        long_help = "Column of estimates, one per group: a mean rating, a mean waiting time, an effect size (normal-normal).",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Model"
+    )]
     pub estimate: Option<String>,
-    /// Column of the estimates' standard errors, each finite and above zero (normal-normal).
-    #[arg(long, help_heading = "Model columns")]
+    /// Standard errors of the estimates (normal-normal)
+    #[arg(
+        long_help = "Column of the estimates' standard errors, each finite and above zero (normal-normal).",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Model"
+    )]
     pub std_error: Option<String>,
-    /// Add `prob_above`: each group's posterior probability that its rate exceeds T (a
-    /// proportion for the beta-binomial; for standardised ratios T = 1 asks whether the
-    /// relative risk exceeds one).
-    #[arg(long, value_name = "T", allow_negative_numbers = true, help_heading = "Analysis")]
+    /// Add prob_above: P(rate > T)
+    #[arg(
+        long_help = "Add `prob_above`: each group's posterior probability that its rate exceeds T (a proportion for the beta-binomial; for standardised ratios T = 1 asks whether the relative risk exceeds one).",
+        long,
+        value_name = "T",
+        allow_negative_numbers = true,
+        help_heading = "Analysis"
+    )]
     pub above: Option<f64>,
-    /// Add `prob_below`: each group's posterior probability that its rate is below T.
-    #[arg(long, value_name = "T", allow_negative_numbers = true, help_heading = "Analysis")]
+    /// Add prob_below: P(rate < T)
+    #[arg(
+        long_help = "Add `prob_below`: each group's posterior probability that its rate is below T.",
+        long,
+        value_name = "T",
+        allow_negative_numbers = true,
+        help_heading = "Analysis"
+    )]
     pub below: Option<f64>,
-    /// Fit one prior per segment: the rows sharing the values of these columns (comma-separated
-    /// names). The segment columns are written beside the group id, and `prior_fallback` says
-    /// which rows took the prior fitted to all groups.
-    #[arg(long, value_name = "COLUMN[,COLUMN...]", value_delimiter = ',', help_heading = "Analysis")]
+    /// Fit one prior per segment of these columns
+    #[arg(
+        long_help = "Fit one prior per segment: the rows sharing the values of these columns (comma-separated names). The segment columns are written beside the group id, and `prior_fallback` says which rows took the prior fitted to all groups.",
+        long,
+        value_name = "COLUMN[,COLUMN...]",
+        value_delimiter = ',',
+        help_heading = "Analysis"
+    )]
     pub by: Vec<String>,
-    /// A segment with fewer groups takes the prior fitted to all groups (with --by).
-    #[arg(long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_MIN_GROUPS, help_heading = "Analysis")]
-    pub min_groups: usize,
-    /// Add `flagged` and `flag_fdr` for the event of --above or --below (give one of them):
-    /// the groups most probably showing the event are flagged, as many as keep the mean
-    /// posterior probability of no event among them at most Q (a Bayesian false-discovery
-    /// rate); `flag_fdr` is the smallest Q that flags the group.
-    #[arg(long, value_name = "Q", help_heading = "Analysis")]
+    /// Groups a segment needs for its own prior (30)
+    #[arg(
+        long_help = "A segment with fewer groups takes the prior fitted to all groups (with --by; default 30: below that the spread between groups is poorly known).",
+        long,
+        value_name = "N",
+        help_heading = "Analysis"
+    )]
+    pub min_groups: Option<usize>,
+    /// Flag at a Bayesian false-discovery rate Q
+    #[arg(
+        long_help = "Add `flagged` and `flag_fdr` for the event of --above or --below (give one of them): the groups most probably showing the event are flagged, as many as keep the mean posterior probability of no event among them at most Q (a Bayesian false-discovery rate); `flag_fdr` is the smallest Q that flags the group.",
+        long,
+        value_name = "Q",
+        help_heading = "Analysis"
+    )]
     pub flag_fdr: Option<f64>,
-    /// Add `rank_mean` (1 = highest posterior mean) and `rank_conservative` (1 = highest lower
-    /// interval bound: a group must be reliably high to rank high), over the whole table; ties
-    /// take the lowest rank of the tie (1, 2, 2, 4).
-    #[arg(long, help_heading = "Analysis")]
+    /// Add rank_mean and rank_conservative
+    #[arg(
+        long_help = "Add `rank_mean` (1 = highest posterior mean) and `rank_conservative` (1 = highest lower interval bound: a group must be reliably high to rank high), over the whole table; ties take the lowest rank of the tie (1, 2, 2, 4).",
+        long,
+        help_heading = "Analysis"
+    )]
     pub ranks: bool,
-    /// Rank the lowest rates first (implies --ranks; the conservative rank then orders by the
-    /// upper interval bound), for rates where low is good.
-    #[arg(long, help_heading = "Analysis")]
+    /// Rank the lowest rates first (implies --ranks)
+    #[arg(
+        long_help = "Rank the lowest rates first (implies --ranks; the conservative rank then orders by the upper interval bound), for rates where low is good; with --top, the K lowest are the best.",
+        long,
+        help_heading = "Analysis"
+    )]
     pub rank_lowest_first: bool,
-    /// Add `prob_top`: each group's posterior probability of being among the K highest rates
-    /// (the K lowest with --rank-lowest-first), jointly over all groups.
-    #[arg(long, value_name = "K", help_heading = "Analysis")]
+    /// Add prob_top: P(among the K highest)
+    #[arg(
+        long_help = "Add `prob_top`: each group's posterior probability of being among the K highest rates (the K lowest with --rank-lowest-first), jointly over all groups. K must be below the number of groups.",
+        long,
+        value_name = "K",
+        help_heading = "Analysis"
+    )]
     pub top: Option<usize>,
-    /// How prob_top is computed: `draws` (joint draws from every posterior), `threshold`
-    /// (each group's probability beyond the rate c where K groups are expected beyond it:
-    /// exact in the limit of many groups), or `auto`: draws up to 50,000 groups (1e8 group
-    /// draws), the threshold beyond.
-    #[arg(long, value_enum, default_value_t = TopMethodArg::Auto, help_heading = "Analysis")]
+    /// prob_top's method: auto, draws or threshold
+    #[arg(long_help = "How prob_top is computed: `draws` (joint draws from every posterior), `threshold` (each group's probability beyond the rate c where K groups are expected beyond it: exact in the limit of many groups), or `auto`: draws up to 50,000 groups (1e8 group draws), the threshold beyond.", long, value_enum, value_name = "METHOD", default_value_t = TopMethodArg::Auto, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub top_method: TopMethodArg,
-    /// Draws for prob_top (default: 1e8 / groups, at least 2,000 and at most 100,000; each
-    /// draw averages exact posterior tail probabilities: see benches/results/prob-top-accuracy.txt).
-    #[arg(long, value_name = "N", help_heading = "Analysis")]
+    /// Draws for prob_top (default: 1e8 / groups)
+    #[arg(
+        long_help = "Draws for prob_top (default: 1e8 / groups, at least 2,000 and at most 100,000; each draw averages exact posterior tail probabilities: see benches/results/prob-top-accuracy.txt).",
+        long,
+        value_name = "N",
+        help_heading = "Analysis"
+    )]
     pub top_draws: Option<usize>,
-    /// Seed of every random draw: prob_top's and the calibration check's (recorded in the
-    /// summary); the same seed gives the same bits on any number of threads.
-    #[arg(long, default_value_t = crate::pipeline::DEFAULT_SEED, help_heading = "Analysis")]
+    /// Seed of every random draw
+    #[arg(long_help = "Seed of every random draw: prob_top's and the calibration check's (recorded in the summary); the same seed gives the same bits on any number of threads.", long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_SEED, help_heading = "Analysis")]
     pub seed: u64,
-    /// How intervals treat the estimated prior: `plug-in` (as known) or `corrected` (its
-    /// estimation uncertainty integrated out: the mixture of each group's posteriors over a
-    /// Gauss-Hermite rule on the fitted prior's sampling distribution, the posterior Kass and
-    /// Steffey approximate; slower, better coverage when groups are few).
-    #[arg(long, value_enum, default_value_t = IntervalsArg::PlugIn, help_heading = "Analysis")]
+    /// Intervals plug-in (default) or corrected
+    #[arg(long_help = "How intervals treat the estimated prior: `plug-in` (as known) or `corrected` (its estimation uncertainty integrated out: the mixture of each group's posteriors over a Gauss-Hermite rule on the fitted prior's sampling distribution, the posterior Kass and Steffey approximate; slower, better coverage when groups are few).", long, value_enum, value_name = "METHOD", default_value_t = IntervalsArg::PlugIn, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub intervals: IntervalsArg,
-    /// Credible level of the equal-tailed intervals, strictly between 0 and 1.
-    #[arg(long, default_value_t = 0.95, help_heading = "Analysis")]
+    /// Credible level, 0 to 1
+    #[arg(
+        long_help = "Credible level of the equal-tailed intervals, strictly between 0 and 1 (0.95, not 95).",
+        long,
+        value_name = "P",
+        default_value_t = 0.95,
+        help_heading = "Analysis"
+    )]
     pub level: f64,
-    /// Output table (.csv or .parquet), written atomically (not with --pair-counts).
-    #[arg(long, help_heading = "Output")]
+    /// Output table (.csv or .parquet)
+    #[arg(
+        long_help = "Output table (.csv or .parquet), written atomically: it appears complete or not at all (not with --pair-counts, which writes only the summary).",
+        long,
+        value_name = "FILE",
+        help_heading = "Output"
+    )]
     pub output: Option<PathBuf>,
-    /// Also write one row per distinct (size, count) pair with the number of groups sharing it
-    /// and every per-pair output column (.csv or .parquet), to join back to the rows on the two
-    /// count columns in a warehouse.
-    #[arg(long, value_name = "FILE", help_heading = "Output")]
+    /// Also write a pair table, to join back in SQL
+    #[arg(
+        long_help = "Also write one row per distinct (size, count) pair with the number of groups sharing it and every per-pair output column (.csv or .parquet), to join back to the rows on the two count columns in a warehouse.",
+        long,
+        value_name = "FILE",
+        help_heading = "Output"
+    )]
     pub pair_output: Option<PathBuf>,
-    /// Summary file (JSON), written last.
-    #[arg(long, help_heading = "Output")]
-    pub summary: Option<PathBuf>,
-    /// Also write the HTML report of the run (read back from the output table, after the
-    /// table and summary are written).
+    /// Summary file (JSON), written last
     #[arg(long, value_name = "FILE", help_heading = "Output")]
+    pub summary: Option<PathBuf>,
+    /// Also write the HTML report of the run
+    #[arg(
+        long_help = "Also write the HTML report of the run (read back from the output table, after the table and summary are written).",
+        long,
+        value_name = "FILE",
+        help_heading = "Output"
+    )]
     pub report: Option<PathBuf>,
-    /// With --report, also write each plot as its own file into this folder (--plot-format).
-    #[arg(long, value_name = "FOLDER", requires = "report", help_heading = "Output")]
+    /// Also write each plot into this folder
+    #[arg(
+        long_help = "With --report, also write each plot as its own file into this folder (--plot-format).",
+        long,
+        value_name = "FOLDER",
+        requires = "report",
+        help_heading = "Output"
+    )]
     pub plots: Option<PathBuf>,
-    /// The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans).
-    #[arg(long, value_enum, default_value_t = PlotFormatArg::Svg, requires = "plots", help_heading = "Output")]
+    /// svg or png, for --plots
+    #[arg(long_help = "The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans).", long, value_enum, value_name = "FORMAT", default_value_t = PlotFormatArg::Svg, hide_possible_values = true, requires = "plots", help_heading = "Output")]
     pub plot_format: PlotFormatArg,
+    /// How the run speaks.
+    #[command(flatten)]
+    pub run: RunArgs,
 }
 
 /// Options of `fit`.
 #[derive(Debug, Args)]
 pub struct FitArgs {
+    /// beta-binomial, gamma-poisson or normal-normal
+    #[arg(long_help = "The model: beta-binomial (successes out of trials, Beta prior), gamma-poisson (events over exposure, Gamma prior) or normal-normal (estimates with known standard errors, normal prior). It decides which column options apply.", long, value_name = "MODEL", value_parser = parse_model, help_heading = "Model", display_order = 0)]
+    pub model: Model,
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
-    /// The model: beta-binomial (successes out of trials, Beta prior), gamma-poisson
-    /// (events over exposure, Gamma prior) or normal-normal (estimates with known standard
-    /// errors, normal prior).
-    #[arg(long, value_parser = parse_model, help_heading = "Model columns")]
-    pub model: Model,
-    /// How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal
-    /// likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated
-    /// mean: the usual choice when groups are few).
-    #[arg(long, value_enum, default_value_t = VarianceMethodArg::Ml, help_heading = "Analysis")]
+    /// normal-normal's tau^2 by ml (default) or reml
+    #[arg(long_help = "How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated mean: the usual choice when groups are few).", long, value_enum, value_name = "METHOD", default_value_t = VarianceMethodArg::Ml, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub variance_method: VarianceMethodArg,
-    /// The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL
-    /// GROUP BY) and this column holds how many groups share each pair; only the summary
-    /// (the prior) is written.
-    #[arg(long, value_name = "COLUMN", help_heading = "Input")]
+    /// Input is a pair table; COLUMN counts its groups
+    #[arg(
+        long_help = "The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL GROUP BY) and this column holds how many groups share each pair; only the summary (the prior) is written.",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Input"
+    )]
     pub pair_counts: Option<String>,
 }
 
 /// Options of `score`.
 #[derive(Debug, Args)]
 pub struct ScoreArgs {
+    /// The model (default: the prior file's)
+    #[arg(long_help = "The model; it must be the prior file's (taken from the prior file when omitted).", long, value_name = "MODEL", value_parser = parse_model, help_heading = "Model", display_order = 0)]
+    pub model: Option<Model>,
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
-    /// A summary file written by `ratepool fit`; its prior is reused.
-    #[arg(long, help_heading = "Input")]
+    /// A summary written by `ratepool fit`: its prior
+    #[arg(
+        long_help = "A summary file written by `ratepool fit`; its prior (and each segment's) is reused.",
+        long,
+        value_name = "FILE",
+        help_heading = "Input"
+    )]
     pub prior: PathBuf,
-    /// The model; must match the prior file's (taken from it if omitted).
-    #[arg(long, value_parser = parse_model, help_heading = "Model columns")]
-    pub model: Option<Model>,
 }
 
 /// A CSV field separator: one ASCII character other than a quote or a line
@@ -444,6 +679,21 @@ fn column_options(table: &TableArgs) -> [(&'static str, &Option<String>); 6] {
         ("estimate", &table.estimate),
         ("std-error", &table.std_error),
     ]
+}
+
+/// The one model whose column options are those given, if the options
+/// given name one (`--successes` and `--trials`: the beta-binomial).
+fn model_of_columns(table: &TableArgs) -> Option<Model> {
+    let given: Vec<&str> =
+        column_options(table).iter().filter(|(_, value)| value.is_some()).map(|(role, _)| *role).collect();
+    let mut fitting = Model::ALL.iter().filter(|model| {
+        let terms = model.terms();
+        !given.is_empty() && given.iter().all(|role| [terms.count_role, terms.size_role].contains(role))
+    });
+    match (fitting.next(), fitting.next()) {
+        (Some(model), None) => Some(*model),
+        _ => None,
+    }
 }
 
 /// The count and size columns of the model, refusing the options of other
@@ -632,7 +882,7 @@ fn job_of(
         thresholds: thresholds(table, model)?,
         flag_fdr: flag_rule(table)?,
         segments,
-        min_groups: table.min_groups,
+        min_groups: table.min_groups.unwrap_or(crate::pipeline::DEFAULT_MIN_GROUPS),
         aggregation,
         top: top_rule(table)?,
         seed: table.seed,
@@ -690,6 +940,53 @@ fn print_bytes(bytes: &[u8], what: &str) -> Result<()> {
     }
 }
 
+/// A line of plain text as roff shows it: backslashes and hyphens
+/// escaped, and a leading dot or quote kept from reading as a request.
+fn roff_line(line: &str) -> String {
+    let escaped = line.replace('\\', "\\e").replace('-', "\\-");
+    if escaped.starts_with(['.', '\'']) {
+        format!("\\&{escaped}")
+    } else {
+        escaped
+    }
+}
+
+/// The manual page: clap's sections from the definition, then the exit
+/// status and the worked examples of each subcommand.
+fn manual_page() -> Result<Vec<u8>> {
+    use clap::CommandFactory;
+    let man = clap_mangen::Man::new(Cli::command());
+    let mut text = Vec::new();
+    let failed = |e| Error::io("cannot render the manual page", e);
+    man.render_title(&mut text).map_err(failed)?;
+    man.render_name_section(&mut text).map_err(failed)?;
+    man.render_synopsis_section(&mut text).map_err(failed)?;
+    man.render_description_section(&mut text).map_err(failed)?;
+    man.render_options_section(&mut text).map_err(failed)?;
+    man.render_subcommands_section(&mut text).map_err(failed)?;
+    let mut roff = String::from(".SH \"EXIT STATUS\"\n");
+    for line in EXIT_STATUS.lines().skip(1) {
+        match line.trim_start().split_once("  ") {
+            Some((code, meaning)) if code.len() == 1 => {
+                roff.push_str(&format!(".TP\n\\fB{code}\\fR\n{}\n", roff_line(meaning)));
+            }
+            _ => roff.push_str(&format!(".PP\n{}\n", roff_line(line))),
+        }
+    }
+    roff.push_str(".SH EXAMPLES\n");
+    for (command, examples) in EXAMPLES {
+        roff.push_str(&format!(".SS {command}\n.nf\n"));
+        for line in examples.lines().skip(1) {
+            roff.push_str(&roff_line(line));
+            roff.push('\n');
+        }
+        roff.push_str(".fi\n");
+    }
+    text.extend_from_slice(roff.as_bytes());
+    man.render_version_section(&mut text).map_err(failed)?;
+    Ok(text)
+}
+
 /// Writes the HTML report of `report` from its table and summary.
 fn run_report(args: &ReportArgs) -> Result<()> {
     let inputs = [
@@ -733,12 +1030,7 @@ impl Command {
                 return Ok(Outcome { summary: None, outputs: Vec::new() });
             }
             Command::Manpage => {
-                use clap::CommandFactory;
-                let mut text = Vec::new();
-                clap_mangen::Man::new(Cli::command())
-                    .render(&mut text)
-                    .map_err(|e| Error::io("cannot render the manual page", e))?;
-                print_bytes(&text, "the manual page")?;
+                print_bytes(&manual_page()?, "the manual page")?;
                 return Ok(Outcome { summary: None, outputs: Vec::new() });
             }
             Command::Fit(args) => &args.table,
@@ -795,6 +1087,11 @@ impl Command {
                 job_of(&args.table, rows, args.model, PriorSource::Fit, watch)
             }
             Command::Score(args) => {
+                if args.table.min_groups.is_some() {
+                    return Err(Error::Usage(
+                        "--min-groups applies when fitting: a score takes each segment's prior from the prior file as it was fitted".to_string(),
+                    ));
+                }
                 refuse_overlaps(&args.table, Some(&args.prior))?;
                 let summary = load_summary(&args.prior)?;
                 let saved = Model::from_name(&summary.model).ok_or_else(|| {
@@ -804,6 +1101,16 @@ impl Command {
                         summary.model
                     ))
                 })?;
+                let asked = args.model.or_else(|| model_of_columns(&args.table));
+                if let Some(asked) = asked.filter(|asked| *asked != saved) {
+                    return Err(Error::Usage(format!(
+                        "{}: the prior file holds a {} prior and this run asks for a {} one; score with the model the prior was fitted with, or fit a {} prior first",
+                        args.prior.display(),
+                        saved.name(),
+                        asked.name(),
+                        asked.name()
+                    )));
+                }
                 let model = args.model.unwrap_or(saved);
                 job_of(
                     &args.table,

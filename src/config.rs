@@ -60,6 +60,55 @@ fn scalar(value: &toml::Value) -> Option<String> {
     }
 }
 
+/// The option a mistyped key most likely means: the same with dashes for
+/// underscores, or the nearest by edit distance (at most two edits).
+fn closest<'a>(key: &str, options: impl Iterator<Item = &'a str>) -> Option<&'a str> {
+    let dashed = key.replace('_', "-");
+    let mut best: Option<(usize, &str)> = None;
+    for option in options {
+        let distance = if option == dashed { 0 } else { edit_distance(&dashed, option) };
+        if distance <= 2 && best.is_none_or(|(d, _)| distance < d) {
+            best = Some((distance, option));
+        }
+    }
+    best.map(|(_, option)| option)
+}
+
+/// Levenshtein distance between two short texts.
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut row: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut diagonal = row[0];
+        row[0] = i + 1;
+        for (j, cb) in b.iter().enumerate() {
+            let above = row[j + 1];
+            row[j + 1] = (diagonal + usize::from(ca != *cb)).min(row[j] + 1).min(above + 1);
+            diagonal = above;
+        }
+    }
+    row[b.len()]
+}
+
+/// A value the option's parser refused, in plain words: what kind of value
+/// the key takes and what the file gave (`must be a number, such as 0.95,
+/// not the text "high"`), or the parser's own reason where it is already
+/// written for people (the accepted values of a choice).
+fn plain_value_mistake(message: &str, value: &toml::Value) -> String {
+    let given = match value {
+        toml::Value::String(text) => format!("the text \"{text}\""),
+        other => other.to_string(),
+    };
+    let reason = message.rsplit_once("': ").map_or(message, |(_, reason)| reason);
+    if reason.contains("invalid float literal") {
+        format!("must be a number, such as 0.95 or 1 (without quotes), not {given}")
+    } else if reason.contains("invalid digit") || reason.contains("number too large") {
+        format!("must be a whole number, such as 20 (without quotes), not {given}")
+    } else {
+        format!("{reason} (the file gives {given})")
+    }
+}
+
 /// A job file read: the subcommand it names (if any) and its keys in file order.
 pub struct JobFile {
     text: String,
@@ -108,15 +157,17 @@ impl JobFile {
                 .chain(root.get_arguments())
                 .find(|a| a.get_long() == Some(key.as_str()) && key != "config");
             let Some(arg) = arg else {
-                mistakes.push(mistake(format!("not an option of `{command}`")));
+                let options = sub.get_arguments().chain(root.get_arguments()).filter_map(|a| a.get_long());
+                let hint = closest(key, options).map_or(String::new(), |k| format!("; did you mean `{k}`?"));
+                mistakes.push(mistake(format!("not an option of `{command}`{hint}")));
                 continue;
             };
             let option = format!("--{key}");
             let these: Vec<String> = match (value, arg.get_action()) {
                 (toml::Value::Boolean(true), clap::ArgAction::SetTrue) => vec![option],
                 (toml::Value::Boolean(false), clap::ArgAction::SetTrue) => vec![],
-                (_, clap::ArgAction::SetTrue) => {
-                    mistakes.push(mistake("must be true or false".to_string()));
+                (value, clap::ArgAction::SetTrue) => {
+                    mistakes.push(mistake(format!("must be true or false (without quotes), not {value}")));
                     continue;
                 }
                 (toml::Value::Array(items), _) if arg.get_value_delimiter().is_some() => {
@@ -143,7 +194,7 @@ impl JobFile {
                 let trial = sub.clone().try_get_matches_from(["ratepool", &these[0], &these[1]]);
                 if let Err(e) = trial {
                     if matches!(e.kind(), ErrorKind::InvalidValue | ErrorKind::ValueValidation) {
-                        mistakes.push(mistake(crate::cli::clap_message(&e)));
+                        mistakes.push(mistake(plain_value_mistake(&crate::cli::clap_message(&e), value)));
                         continue;
                     }
                 }

@@ -3,18 +3,19 @@
 
 use clap::error::ErrorKind;
 use clap::Parser;
-use ratepool::cli::{Cli, LogFormat, Outcome};
+use ratepool::cli::{Cli, Outcome};
 use ratepool::error::Error;
 use std::process::ExitCode;
 
 fn run(cli: Cli) -> ratepool::error::Result<Outcome> {
-    if let Some(threads) = cli.threads {
+    let options = cli.run_options();
+    if let Some(threads) = options.threads {
         rayon::ThreadPoolBuilder::new()
             .num_threads(threads.max(1))
             .build_global()
             .map_err(|e| Error::Other(format!("cannot start {threads} threads: {e}")))?;
     }
-    let (quiet, json) = (cli.quiet, cli.log_format == LogFormat::Json);
+    let (quiet, json) = (options.quiet, options.json());
     let watch = cli.watch();
     let outcome = cli.command.execute(watch)?;
     if let Some(summary) = &outcome.summary {

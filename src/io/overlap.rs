@@ -84,10 +84,32 @@ fn clash(first: &RunPath<'_>, second: &RunPath<'_>, how: &str) -> Error {
     ))
 }
 
+/// Refuses, before anything is read, an output file whose folder does not
+/// exist (a folder of plots is made as it is written).
+fn refuse_missing_folders(outputs: &[RunPath<'_>]) -> Result<()> {
+    for output in outputs.iter().filter(|o| o.option != "--plots") {
+        let folder = match output.path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p,
+            _ => continue,
+        };
+        if !folder.is_dir() {
+            // Exit 1, as any output that cannot be written.
+            return Err(Error::Other(format!(
+                "{} {}: the folder {} does not exist; create it first",
+                output.option,
+                output.path.display(),
+                folder.display()
+            )));
+        }
+    }
+    Ok(())
+}
+
 /// Refuses the run when two of the paths name one file, or an output lies
 /// inside an input folder. Inputs may share a file with each other (reading
 /// twice harms nothing); an output may share with nothing.
 pub fn refuse_overlaps(inputs: &[RunPath<'_>], outputs: &[RunPath<'_>]) -> Result<()> {
+    refuse_missing_folders(outputs)?;
     let input_ids: Vec<Identity> = inputs.iter().map(|p| identity(p.path)).collect();
     let output_ids: Vec<Identity> = outputs.iter().map(|p| identity(p.path)).collect();
     for (output, output_id) in outputs.iter().zip(&output_ids) {

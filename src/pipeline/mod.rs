@@ -131,7 +131,12 @@ impl Level {
         if level > 0.0 && level < 1.0 {
             Ok(Level(level))
         } else {
-            Err(Error::Usage(format!("--level must be strictly between 0 and 1, got {level}")))
+            let hint = if level > 1.0 && level < 100.0 {
+                format!("; did you mean {}?", level / 100.0)
+            } else {
+                String::new()
+            };
+            Err(Error::Usage(format!("--level must be strictly between 0 and 1, got {level}{hint}")))
         }
     }
 

@@ -230,18 +230,20 @@ fn key_of_report(columns: &[String], saved: &crate::report::SegmentReport) -> Se
 
 fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut PhaseClock) -> Result<Scored> {
     let segmented = !job.segments.is_empty();
-    if let (true, PriorSource::Saved { path, summary }) = (segmented, &job.prior) {
-        if summary.segment_columns != job.segments {
-            return Err(Error::Input(format!(
-                "{}: the prior was fitted with segments by [{}], not by [{}]; fit again with these --by columns",
-                path.display(),
-                summary.segment_columns.join(", "),
-                job.segments.join(", ")
-            )));
-        }
+    if let PriorSource::Saved { path, summary } = &job.prior {
+        refuse_other_segments(path, &summary.segment_columns, &job.segments)?;
     }
     let all_pairs: Vec<WeightedPair> =
         segments.iter().flat_map(|s| s.table.pairs().iter().copied()).collect();
+    if let Some(rule) = job.top {
+        let groups: f64 = all_pairs.iter().map(|p| p.weight).sum();
+        if rule.k as f64 >= groups {
+            return Err(Error::Usage(format!(
+                "--top {} asks for the top {} of {groups} groups: every group would be among them (prob_top 1); give K below {groups}",
+                rule.k, rule.k
+            )));
+        }
+    }
     let all_table = if segmented {
         PairTable::from_weighted(all_pairs.iter().copied())
     } else {
@@ -375,12 +377,12 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
     let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
-    if checks.verdict != "fits" {
+    if checks.verdict == "poor fit" {
         warnings.push(format!(
-            "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, p = {:.1e}; raw-rate variance {:.2} times the expected). One prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags",
+            "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, {}; raw-rate variance {:.2} times the expected). One prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags",
             checks.data,
             checks.calibration.statistic,
-            checks.calibration.p_value,
+            crate::report::p_value_text(checks.calibration.p_value),
             checks.raw_rate_variance.ratio.unwrap_or(f64::NAN)
         ));
     }
@@ -431,7 +433,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     } else {
         Vec::new()
     };
-    let poor = scores.iter().filter(|s| s.checks.verdict != "fits").count();
+    let poor = scores.iter().filter(|s| s.checks.verdict == "poor fit").count();
     if poor > 0 {
         warnings.push(format!(
             "the prior does not describe the groups of {poor} of {} segments well (their calibration p-value is below 0.001; the summary's segments hold each one's checks): look at those segments for mixed kinds of group",
@@ -480,6 +482,10 @@ fn bias_of<F: Family>(job: &Job, chosen: &Chosen, table: &PairTable, salt: u64) 
 /// A calibration p-value below this calls the fit poor: a false alarm one
 /// time in a thousand when the model holds.
 const POOR_FIT_P: f64 = 1e-3;
+
+/// Below this many groups the calibration gives no verdict: ten bins need
+/// about five groups each for Pearson's chi-square to hold (common practice).
+const MIN_GROUPS_TO_JUDGE: u64 = 50;
 
 /// The checks of the model against the data scored (each pair under its
 /// prior): log marginal likelihood, the overdispersion test, the calibration
@@ -530,7 +536,13 @@ fn model_checks<F: Family>(
             statistic: z,
             p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
         },
-        verdict: if calibration.p_value < POOR_FIT_P { "poor fit" } else { "fits" }.to_string(),
+        verdict: if calibration.groups < MIN_GROUPS_TO_JUDGE {
+            format!("too few groups to judge (fewer than {MIN_GROUPS_TO_JUDGE})")
+        } else if calibration.p_value < POOR_FIT_P {
+            "poor fit".to_string()
+        } else {
+            "fits".to_string()
+        },
         calibration: CalibrationReport {
             bins: calibration.bins.to_vec(),
             statistic: calibration.statistic,
@@ -682,6 +694,30 @@ fn pooling_report(test: &PoolingTest) -> TestReport {
         statistic: test.statistic,
         p_value: test.p_value,
     }
+}
+
+/// Refuses to score with segments other than those the prior was fitted
+/// with: each segment needs its own prior from the file.
+fn refuse_other_segments(path: &Path, fitted: &[String], asked: &[String]) -> Result<()> {
+    let message = match (fitted.is_empty(), asked.is_empty()) {
+        _ if fitted == asked => return Ok(()),
+        (true, _) => format!(
+            "the prior was fitted without segments, so it holds no prior per segment of [{}]; score without --by, or fit again with --by {}",
+            asked.join(", "),
+            asked.join(",")
+        ),
+        (false, true) => format!(
+            "the prior was fitted per segment of [{}]: give --by {} to score each segment with its prior",
+            fitted.join(", "),
+            fitted.join(",")
+        ),
+        (false, false) => format!(
+            "the prior was fitted with segments by [{}], not by [{}]; fit again with these --by columns",
+            fitted.join(", "),
+            asked.join(", ")
+        ),
+    };
+    Err(Error::Input(format!("{}: {message}", path.display())))
 }
 
 /// The prior held in a saved summary (the whole table's, or a segment's),

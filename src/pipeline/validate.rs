@@ -119,7 +119,16 @@ pub fn check_values<'a>(
     size_cell: &Cell,
 ) -> Result<(f64, f64), (&'a str, String)> {
     let size = match kind {
-        SizeKind::Trials => whole_count(size_cell),
+        SizeKind::Trials => whole_count(size_cell).map_err(|reason| match size_cell {
+            // Trials that are not whole are most often expected counts or an exposure.
+            Cell::Number(v) if v.fract() != 0.0 && *v > 0.0 => format!(
+                "{reason}, and trials are counted in whole numbers; if '{size}' holds expected counts or \
+                 an exposure, use the gamma-poisson model: --model gamma-poisson --events {count} --exposure {size}",
+                size = names.size,
+                count = names.count
+            ),
+            _ => reason,
+        }),
         SizeKind::Exposure => exposure(size_cell),
         SizeKind::StandardError => standard_error(size_cell),
     }

@@ -31,6 +31,21 @@ fn svg(draw: impl FnOnce(&Area<'_>) -> Drawn) -> Result<String> {
     Ok(text)
 }
 
+/// An axis label: a whole number without ".0" (`50`, not `50.0`), others
+/// to six decimals at most with trailing zeros dropped, tiny ones in
+/// scientific notation.
+fn tick(value: &f64) -> String {
+    let v = *value;
+    if v == v.trunc() && v.abs() < 1e15 {
+        return format!("{v:.0}");
+    }
+    if v.abs() < 1e-3 {
+        return format!("{v:.1e}");
+    }
+    let text = format!("{v:.6}");
+    text.trim_end_matches('0').trim_end_matches('.').to_string()
+}
+
 /// A range holding every value, padded by 4%; widened when it is a point.
 fn span(values: impl Iterator<Item = f64>) -> (f64, f64) {
     let (mut low, mut high) = (f64::INFINITY, f64::NEG_INFINITY);
@@ -64,7 +79,14 @@ pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, raw_label: &str, size_of:
             .x_label_area_size(40)
             .y_label_area_size(60)
             .build_cartesian_2d(low..high, low..high)?;
-        chart.configure_mesh().x_desc(raw_label).y_desc("posterior mean").light_line_style(WHITE).draw()?;
+        chart
+            .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&tick)
+            .x_desc(raw_label)
+            .y_desc("posterior mean")
+            .light_line_style(WHITE)
+            .draw()?;
         chart.draw_series(LineSeries::new([(low, low), (high, high)], LINE.stroke_width(1)))?;
         chart.draw_series(LineSeries::new(
             [(low, prior_mean), (high, prior_mean)],
@@ -115,7 +137,14 @@ pub fn funnel(
             .x_label_area_size(40)
             .y_label_area_size(60)
             .build_cartesian_2d((x_low..x_high).log_scale(), y_low..y_high)?;
-        chart.configure_mesh().x_desc(x_label).y_desc(raw_label).light_line_style(WHITE).draw()?;
+        chart
+            .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&tick)
+            .x_desc(x_label)
+            .y_desc(raw_label)
+            .light_line_style(WHITE)
+            .draw()?;
         chart.draw_series(plain.iter().map(|&p| Circle::new(p, 2, POINT.mix(0.35).filled())))?;
         chart.draw_series(LineSeries::new(grid.iter().map(|&x| (x, pooled)), LINE.stroke_width(2)))?;
         for (z, _) in LIMITS {
@@ -190,7 +219,14 @@ pub fn prior_over_raw(
             .x_label_area_size(40)
             .y_label_area_size(60)
             .build_cartesian_2d(low..high, 0.0..top)?;
-        chart.configure_mesh().x_desc(raw_label).y_desc("density").light_line_style(WHITE).draw()?;
+        chart
+            .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&tick)
+            .x_desc(raw_label)
+            .y_desc("density")
+            .light_line_style(WHITE)
+            .draw()?;
         chart.draw_series(bars(&counts, (low, high), scale))?;
         if curve.is_empty() {
             chart
@@ -216,6 +252,8 @@ pub fn calibration(bins: &[u64]) -> Result<String> {
             .build_cartesian_2d(0.0..1.0, 0.0..top.max(1.0))?;
         chart
             .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&tick)
             .x_desc("place in the prior predictive distribution (randomised PIT)")
             .y_desc("groups")
             .light_line_style(WHITE)
@@ -238,6 +276,8 @@ pub fn pool_weights(counts: &[u64]) -> Result<String> {
             .build_cartesian_2d(0.0..1.0, 0.0..top)?;
         chart
             .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&tick)
             .x_desc("pool weight (0: own data only, 1: the prior only)")
             .y_desc("groups")
             .light_line_style(WHITE)
@@ -279,6 +319,13 @@ mod tests {
         assert!((low - 2.0).abs() < 1e-12 && (high - 4.0).abs() < 1e-12);
         // Proportions stay within [0, 1].
         assert_eq!(funnel_limit(SizeKind::Trials, 0.05, 2.0, 3.0).0, 0.0);
+    }
+
+    #[test]
+    fn axis_labels_drop_the_decimal_point_of_whole_numbers() {
+        let labels: Vec<String> =
+            [50.0, 0.0, 100.0, 0.5, 0.30000000000000004, 2.5e-5, -3.0].iter().map(tick).collect();
+        assert_eq!(labels, ["50", "0", "100", "0.5", "0.3", "2.5e-5", "-3"]);
     }
 
     #[test]

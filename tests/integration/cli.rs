@@ -469,9 +469,7 @@ fn completions_and_the_manual_page_come_from_the_definition() {
     // Options come in groups.
     let out = ratepool(Path::new("."), &["fit", "--help"]);
     let help = String::from_utf8_lossy(&out.stdout);
-    let headings: Vec<usize> = ["Input:", "Model columns:", "Analysis:", "Output:", "Run:"]
-        .iter()
-        .map(|h| help.find(h).expect(h))
-        .collect();
+    let headings: Vec<usize> =
+        ["Model:", "Input:", "Analysis:", "Output:", "Run:"].iter().map(|h| help.find(h).expect(h)).collect();
     assert!(headings.windows(2).all(|w| w[0] < w[1]), "{headings:?}");
 }

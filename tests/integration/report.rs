@@ -54,7 +54,7 @@ fn fit_with_report_and_report_later_give_the_same_self_contained_page() {
         "The fit converged",
         "Calibration:",
         "Cautions",
-        "Rankings of sellers affect livelihoods",
+        "Results about small groups may identify the people behind them",
     ] {
         assert!(page.contains(words), "{words}");
     }
