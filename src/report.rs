@@ -514,7 +514,7 @@ pub fn three_digits(value: f64) -> String {
 }
 
 /// A p-value as people write it: two significant digits (`p = 0.18`,
-/// `p = 0.0023`, `p = 2.3e-29`), `p = 1` at one, and `p < 1e-300` where
+/// `p = 0.20`, `p = 0.0023`, `p = 2.3e-29`), `p = 1` at one, and `p < 1e-300` where
 /// double precision cannot tell it from zero.
 pub fn p_value_text(p: f64) -> String {
     match p_value_figure(p) {
@@ -537,12 +537,11 @@ pub fn p_value_figure(p: f64) -> String {
         return format!("{p:.1e}");
     }
     let decimals = (1 - p.log10().floor() as i32).max(0) as usize;
-    let text = format!("{p:.decimals$}");
-    if text.contains('.') {
-        text.trim_end_matches('0').trim_end_matches('.').to_string()
-    } else {
-        text
+    // Two significant digits, zeros kept (`0.20`), but one is `1`.
+    if p >= 1.0 {
+        return "1".to_string();
     }
+    format!("{p:.decimals$}")
 }
 
 /// The terminal version of a summary, without its warnings (shown once,
@@ -675,7 +674,9 @@ mod tests {
         let cases = [
             (0.1807, "p = 0.18"),
             (1.0, "p = 1"),
-            (0.5, "p = 0.5"),
+            (0.5, "p = 0.50"),
+            (0.2035, "p = 0.20"),
+            (0.9996, "p = 1.00"),
             (0.0179, "p = 0.018"),
             (0.00234, "p = 0.0023"),
             (1.206e-29, "p = 1.2e-29"),
