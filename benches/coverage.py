@@ -1,5 +1,8 @@
 """Coverage of nominal 95% intervals, plug-in against corrected
-(`--intervals corrected`, Kass and Steffey's first-order correction).
+(`--intervals corrected`: each group's posterior mixed over a 7 x 7
+Gauss-Hermite rule on the fitted prior's sampling distribution, centred on
+the fit less its parametric-bootstrap median bias; the posterior that Kass
+and Steffey approximate to first order, taken here by quadrature).
 
 Data sets are drawn from a known prior, Beta(2, 18) (mean 0.1), with group
 sizes drawn from 1, 2, 3, 5, 8, 13, 30 and 100 trials (half the groups below

@@ -7,7 +7,7 @@ event, the largest prefix whose mean probability of no event is at most Q,
 equal probabilities taken together; a group's q-value is the smallest such
 mean over the prefixes that hold it.
 
-`tests/integration/reference.rs` scores the groups with the same prior
+`tests/integration/decisions.rs` scores the groups with the same prior
 (`score --prior`) and compares `flagged` exactly and `flag_fdr` within 1e-12
 absolute. The script keeps every bound Q at least 1e-6 away from every
 prefix mean, so a last-digit difference in a probability cannot move a flag.

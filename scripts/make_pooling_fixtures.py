@@ -34,3 +34,38 @@ out["gamma_poisson"] = {"pooled_log_likelihood": pooled, "statistic": 2 * (fitte
                         "p_value": stats.chi2.sf(2 * (fitted - pooled), 1) / 2}
 json.dump(out, open("tests/fixtures/pooling.json", "w"), indent=1)
 print(out)
+
+# A case with an ordinary p-value (the two above are far in the tail): 80
+# invented groups of 30 trials whose rates vary a little, Beta(18, 42)
+# (seed 20261204), fitted here by scipy's maximisers (Nelder-Mead from three
+# starts, polished by BFGS) of the beta-binomial marginal likelihood, not by
+# ratepool.
+from scipy import optimize
+
+rng = np.random.default_rng(20261204)
+n = np.full(80, 30)
+k = rng.binomial(n, rng.beta(18, 42, size=80))
+with open("tests/fixtures/mild_overdispersion.csv", "w") as f:
+    f.write("unit,hits,tries\n")
+    for i, (ki, ni) in enumerate(zip(k, n)):
+        f.write(f"u{i:02d},{ki},{ni}\n")
+
+
+def negative(log_params):
+    a, b = np.exp(log_params)
+    return -stats.betabinom.logpmf(k, n, a, b).sum()
+
+
+best = min((optimize.minimize(negative, start, method="Nelder-Mead",
+                              options={"xatol": 1e-12, "fatol": 1e-13, "maxiter": 20000})
+            for start in ([np.log(18), np.log(42)], [np.log(3), np.log(7)], [np.log(300), np.log(700)])),
+           key=lambda r: r.fun)
+best = optimize.minimize(negative, best.x, method="BFGS", options={"gtol": 1e-10})
+fitted = -best.fun
+pooled = stats.binom.logpmf(k, n, k.sum() / n.sum()).sum()
+statistic = max(2 * (fitted - pooled), 0.0)
+out["mild_overdispersion"] = {"log_marginal_likelihood": fitted, "pooled_log_likelihood": pooled,
+                              "statistic": statistic, "p_value": stats.chi2.sf(statistic, 1) / 2,
+                              "alpha": float(np.exp(best.x[0])), "beta": float(np.exp(best.x[1]))}
+json.dump(out, open("tests/fixtures/pooling.json", "w"), indent=1)
+print(out["mild_overdispersion"])

@@ -1,6 +1,6 @@
 //! Containment of panics inside third-party readers. A damaged file can make
 //! a decoder panic instead of returning an error (the fuzz target found two
-//! such inputs for polars' Parquet metadata decoder); the run must still end
+//! such inputs for an earlier Parquet reader's metadata decoder); the run must still end
 //! with exit 2 and a message naming the file, not with a crash.
 
 use crate::error::{Error, Result};

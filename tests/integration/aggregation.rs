@@ -157,7 +157,30 @@ fn a_sum_beyond_2_to_the_53_names_the_row_column_and_group() {
     let out = ratepool(dir.path(), &args);
     assert_eq!(out.status.code(), Some(2));
     let message = stderr(&out);
-    assert!(message.contains("row 4") && message.contains("'n'") || message.contains("n:"), "{message}");
+    assert!(message.contains("row 4") && (message.contains("'n'") || message.contains("n:")), "{message}");
     assert!(message.contains("group 'a'") && message.contains("2^53"), "{message}");
     assert!(!dir.path().join("out.csv").exists());
+}
+
+#[test]
+fn the_district_quarters_summed_give_the_districts_prior_as_the_readme_prints_it() {
+    // The README: the demo districts split over four quarters, summed with --aggregate, "give the
+    // prior of the districts themselves (shape 6.0079340817145, to the last printed digit)".
+    let dir = tempfile::tempdir().unwrap();
+    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
+    let mut shapes = Vec::new();
+    for (file, extra) in [("district_quarters.csv", Some("--aggregate")), ("districts.csv", None)] {
+        let input = demo.join(file);
+        let mut args = vec!["--quiet", "fit", "--input", input.to_str().unwrap(), "--model", "gamma-poisson"];
+        args.extend(["--group", "district_id", "--events", "observed_cases", "--exposure", "expected_cases"]);
+        args.extend(["--output", "out.csv", "--summary", "s.json"]);
+        args.extend(extra);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        shapes.push(summary(&dir.path().join("s.json"))["prior"]["shape"].as_f64().unwrap());
+    }
+    for shape in &shapes {
+        assert_eq!(format!("{shape:.13}"), "6.0079340817145", "{shapes:?}");
+    }
+    assert!((shapes[0] - shapes[1]).abs() <= 4.0 * f64::EPSILON * shapes[1], "{shapes:?}");
 }

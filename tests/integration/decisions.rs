@@ -2,7 +2,7 @@
 //! false-discovery rate, checked against a reference computed outside
 //! ratepool, and the refusals of bad requests.
 
-use crate::util::{json_fixture, ratepool, stderr, summary, write, Csv};
+use crate::util::{json_fixture, paired, ratepool, stderr, summary, write, Csv};
 use serde_json::Value;
 use std::path::Path;
 
@@ -126,7 +126,7 @@ fn prob_top_by_draws_is_within_0_005_of_the_exact_integral_and_the_same_bits_on_
     };
     let (two, one) = (run("2", "two.csv"), run("1", "one.csv"));
     assert_eq!(two, one, "the same bits on one thread and two");
-    for (got, want) in two.iter().zip(reference["prob_top"].as_array().unwrap()) {
+    for (got, want) in paired(&two, reference["prob_top"].as_array().unwrap(), "prob_top") {
         let want = want.as_f64().unwrap();
         assert!((got - want).abs() < 0.005, "prob_top {got} vs exact {want}");
     }

@@ -1,6 +1,6 @@
 //! End-to-end fits against reference fits from scipy and statsmodels.
 
-use crate::util::{fixture, json_fixture, ratepool, relative, stderr, summary, write, Csv};
+use crate::util::{fixture, json_fixture, paired, ratepool, relative, stderr, summary, write, Csv};
 use serde_json::Value;
 use std::process::Output;
 
@@ -150,6 +150,20 @@ fn the_likelihood_ratio_against_complete_pooling_matches_scipy() {
             assert!(relative(p, want_p) < 1e-6, "{key}: {p} vs {want_p}");
         }
     }
+    // An ordinary p-value (the two above are far in the tail): 80 invented groups of mild
+    // overdispersion (tests/fixtures/mild_overdispersion.csv, written by the same script),
+    // fitted there by scipy's maximisers, p = 0.087.
+    let (_dir4, _, s4, _) = run_fit("mild_overdispersion.csv", "beta-binomial", ["unit", "hits", "tries"]);
+    let (test, want) = (&s4["fit"]["pooling_test"], &reference["mild_overdispersion"]);
+    let want_p = want["p_value"].as_f64().unwrap();
+    assert!((0.01..0.5).contains(&want_p), "an ordinary p-value: {want_p}");
+    let statistic = test["statistic"].as_f64().unwrap();
+    assert!((statistic - want["statistic"].as_f64().unwrap()).abs() < 1e-6, "{statistic}");
+    assert!(relative(test["p_value"].as_f64().unwrap(), want_p) < 1e-6, "{test}");
+    for (key, wanted) in [("alpha", "alpha"), ("beta", "beta")] {
+        let got = s4["prior"][key].as_f64().unwrap();
+        assert!(relative(got, want[wanted].as_f64().unwrap()) < 1e-5, "{key}: {got}");
+    }
     // At the boundary the statistic is 0 and the p-value 1.
     let (_dir3, _, s3, _) = run_fit("binomial_groups.csv", "beta-binomial", ["unit", "hits", "tries"]);
     assert_eq!(s3["fit"]["pooling_test"]["statistic"], 0.0);
@@ -200,14 +214,16 @@ fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
     let threshold = reference["threshold"].as_f64().unwrap().to_string();
     let centred = score_corrected(dir.path(), "unbiased.json", "centred.csv", &["--above", &threshold]);
     for (column, key) in [("posterior_sd", "sd"), ("interval_lo", "lower"), ("interval_hi", "upper")] {
-        for (got, want) in centred.floats(column).iter().zip(reference[key].as_array().unwrap()) {
+        for (got, want) in paired(&centred.floats(column), reference[key].as_array().unwrap(), column) {
             let want = want.as_f64().unwrap();
             assert!(relative(*got, want) < 1e-4, "{column}: {got} vs {want}");
         }
     }
     // Exceedance integrates the prior's uncertainty out as the intervals do
     // (the mixture's P(rate > T) at the prior mean, from scipy's beta sf).
-    for (got, want) in centred.floats("prob_above").iter().zip(reference["prob_above"].as_array().unwrap()) {
+    for (got, want) in
+        paired(&centred.floats("prob_above"), reference["prob_above"].as_array().unwrap(), "prob_above")
+    {
         let want = want.as_f64().unwrap();
         assert!((got - want).abs() < 1e-6 + 1e-4 * want, "prob_above: {got} vs {want}");
     }
@@ -222,7 +238,7 @@ fn corrected_intervals_match_the_integrated_posterior_computed_with_scipy() {
     write(dir.path(), "moved.json", &moved.to_string());
     let shifted = score_corrected(dir.path(), "moved.json", "moved.csv", &[]);
     for column in ["interval_lo", "interval_hi", "posterior_sd"] {
-        for (got, want) in table.floats(column).iter().zip(shifted.floats(column)) {
+        for (got, &want) in paired(&table.floats(column), &shifted.floats(column), column) {
             assert!(relative(*got, want) < 1e-9, "{column}: {got} vs {want}");
         }
     }

@@ -4,8 +4,9 @@
 //!
 //! `RATEPOOL_FUZZ_CORPUS=FOLDER` adds a whole fuzz corpus to the replay. Run
 //! it in a release build too (`cargo test --release --test integration fuzz`):
-//! the fuzzer builds in the dev profile, where polars' debug assertions refuse
-//! some damaged pages that a release build decodes short.
+//! the fuzzer builds in the dev profile, whose debug assertions (arrow-rs's
+//! and the standard library's) can stop on damaged pages that a release
+//! build decodes short.
 
 #[path = "../../fuzz/harness.rs"]
 mod harness;

@@ -70,6 +70,8 @@ fn gamma_quantiles_match_scipy_within_1e9_relative() {
         }
     }
     eprintln!("worst relative gamma quantile error {worst:e}");
+    // The README's figure, 1.3e-11, with a margin of 2: a regression far inside the 1e-9 bar still fails.
+    assert!(worst <= 2.0 * 1.3e-11, "the README says 1.3e-11; worst {worst:e}");
 }
 
 #[test]
@@ -90,6 +92,8 @@ fn beta_quantiles_match_scipy_within_1e9_relative() {
         }
     }
     eprintln!("worst relative beta quantile error {worst:e}");
+    // The README's figure, 6.5e-11, with a margin of 2.
+    assert!(worst <= 2.0 * 6.5e-11, "the README says 6.5e-11; worst {worst:e}");
 }
 
 /// The relative error of a quantile, where values below the smallest
@@ -130,6 +134,12 @@ fn quantiles_at_extreme_shapes_match_arbitrary_precision_integration() {
         }
     }
     eprintln!("worst relative quantile error at extreme shapes: beta {beta_worst:e}, gamma {gamma_worst:e}");
+    // The README's figures, 1.2e-12 and 2.4e-13, with a margin of 2.
+    assert!(beta_worst <= 2.0 * 1.2e-12, "the README says 1.2e-12; worst {beta_worst:e}");
+    assert!(gamma_worst <= 2.0 * 2.4e-13, "the README says 2.4e-13; worst {gamma_worst:e}");
+    let counted =
+        (fixture["beta"].as_array().unwrap().len() * 2, fixture["gamma"].as_array().unwrap().len() * 2);
+    assert_eq!(counted, (484, 44), "the README counts 484 beta and 44 gamma quantiles");
 }
 
 #[test]
@@ -207,6 +217,9 @@ fn exceedance_probabilities_match_mpmath() {
     }
     assert!(checked > 900, "only {checked} values checked");
     println!("exceedance: {checked} values, worst relative error {worst:.2e}");
+    // The README's figure, 5.6e-12 over 949 values, with a margin of 2.
+    assert_eq!(checked, 949, "the README counts 949 values");
+    assert!(worst <= 2.0 * 5.6e-12, "the README says 5.6e-12; worst {worst:e}");
 }
 
 #[test]
@@ -230,4 +243,6 @@ fn prior_predictive_cdfs_match_scipy() {
         }
     }
     println!("predictive CDFs: worst absolute difference {worst:.1e}");
+    // The README's figure, 3.1e-11, with a margin of 2.
+    assert!(worst <= 2.0 * 3.1e-11, "the README says 3.1e-11; worst {worst:e}");
 }

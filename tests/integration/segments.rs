@@ -3,7 +3,7 @@
 //! fallbacks and their reasons; the likelihood-ratio test; nulls as a
 //! segment of their own; reuse by `score --prior`; and bad requests.
 
-use crate::util::{fixture, json_fixture, ratepool, relative, stderr, summary, write, Csv};
+use crate::util::{fixture, json_fixture, paired, ratepool, relative, stderr, summary, write, Csv};
 use serde_json::Value;
 use std::path::Path;
 
@@ -244,9 +244,8 @@ fn pair_tables_take_segment_columns_and_give_the_rows_fit() {
     let (from_rows, from_pairs) =
         (summary(&dir.path().join("rows.json")), summary(&dir.path().join("pairs.json")));
     assert_eq!(from_rows["segments"].as_array().unwrap().len(), 2);
-    for (a, b) in
-        from_rows["segments"].as_array().unwrap().iter().zip(from_pairs["segments"].as_array().unwrap())
-    {
+    let segments = (from_rows["segments"].as_array().unwrap(), from_pairs["segments"].as_array().unwrap());
+    for (a, b) in paired(segments.0, segments.1, "segments") {
         assert_eq!(a["prior"], b["prior"]);
         assert_eq!(a["key"], b["key"]);
     }

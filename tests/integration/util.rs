@@ -79,3 +79,15 @@ pub fn assert_refused(dir: &Path, args: &[&str], message: &str, output: &str) {
     assert!(stderr(&out).contains(message), "{args:?}: {}", stderr(&out));
     assert!(!dir.join(output).exists(), "{args:?} left {output}");
 }
+
+/// `got` and `want` side by side, after checking that they are the same
+/// length and not empty: a zip alone passes an empty or short output.
+pub fn paired<'a, A, B>(
+    got: &'a [A],
+    want: &'a [B],
+    what: &str,
+) -> std::iter::Zip<std::slice::Iter<'a, A>, std::slice::Iter<'a, B>> {
+    assert!(!want.is_empty(), "{what}: nothing to compare");
+    assert_eq!(got.len(), want.len(), "{what}: {} values against {} expected", got.len(), want.len());
+    got.iter().zip(want)
+}

@@ -424,7 +424,8 @@ mod tests {
         let (n, alpha, beta) = (2_000_000_000_002_000.0, 0.055_857_666, 4.148_425_369);
         let started = std::time::Instant::now();
         let (below, at_most) = beta_binomial_cdf(n, 1e14, alpha, beta);
-        assert!(started.elapsed().as_secs_f64() < 5.0);
+        // The regression ran for hours; a minute cannot flake on a loaded machine (it takes milliseconds).
+        assert!(started.elapsed().as_secs_f64() < 60.0, "{:?}", started.elapsed());
         let x = 1e14 / n;
         let limit = crate::core::incomplete::beta_tails(alpha, beta, x, 1.0 - x).lower;
         assert!((below - limit).abs() < 1e-9 && (at_most - limit).abs() < 1e-9, "{below} {at_most} {limit}");
