@@ -186,3 +186,51 @@ fn a_duckdb_join_of_the_pair_output_gives_the_row_output() {
         }
     }
 }
+
+#[test]
+fn prob_top_by_both_methods_matches_the_exact_integral_over_2000_sellers() {
+    // Source: tests/fixtures/top_exact (scripts/make_top_reference.py): the first 2,000 demo
+    // sellers, K = 5, under the prior saved in prior.json; the exact P(among the 5 highest) by
+    // scipy's beta posteriors, the Poisson-binomial recursion over the other sellers and the
+    // trapezoid rule on a fine logit grid (the values sum to K within 3e-12).
+    let reference = json_fixture("top_exact/exact.json");
+    let exact: Vec<f64> =
+        reference["prob_top"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+    assert_eq!(exact.len(), 2000);
+    let (sellers, prior) =
+        (crate::util::fixture("top_exact/sellers.csv"), crate::util::fixture("top_exact/prior.json"));
+    let dir = tempfile::tempdir().unwrap();
+    // The README's figures for this case, with a margin of 2: 2,000 draws 0.00039, the threshold 0.00065.
+    for (method, readme) in [("draws", 0.00039), ("threshold", 0.00065)] {
+        let args = [
+            "--quiet",
+            "score",
+            "--prior",
+            prior.to_str().unwrap(),
+            "--input",
+            sellers.to_str().unwrap(),
+            "--group",
+            "seller_id",
+            "--successes",
+            "positive_ratings",
+            "--trials",
+            "total_ratings",
+            "--top",
+            "5",
+            "--top-method",
+            method,
+            "--top-draws",
+            "2000",
+            "--output",
+            "top.csv",
+        ];
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        let got = Csv::read(&dir.path().join("top.csv")).floats("prob_top");
+        let worst = paired(&got, &exact, method).map(|(g, e)| (g - e).abs()).fold(0.0, f64::max);
+        println!(
+            "prob_top by {method} over 2,000 sellers, K = 5: largest difference from the exact {worst:.5}"
+        );
+        assert!(worst <= 2.0 * readme, "{method}: the README says {readme}; largest difference {worst}");
+    }
+}

@@ -294,3 +294,68 @@ fn score_reuses_the_saved_covariance_and_refuses_a_summary_without_one() {
     assert!(stderr(&out).contains("covariance is not saved"), "{}", stderr(&out));
     assert!(!dir.path().join("old.csv").exists());
 }
+
+#[test]
+fn corrected_intervals_as_shipped_match_an_outside_mixture_for_every_model() {
+    // Source: tests/fixtures/corrected/<model>.json, written by
+    // scripts/make_corrected_interval_fixtures.py: from the summary ratepool saved
+    // (<model>-prior.json: the prior, the covariance of its working coordinates and
+    // the bootstrap bias), numpy's Gauss-Hermite nodes and scipy's beta, gamma and
+    // normal posteriors mixed over them, interval ends by brentq on the mixture CDF.
+    for model in ["beta-binomial", "gamma-poisson", "normal-normal"] {
+        let reference = json_fixture(&format!("corrected/{model}.json"));
+        let prior = fixture(&format!("corrected/{model}-prior.json"));
+        let input =
+            std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join(reference["input"].as_str().unwrap());
+        let saved = summary(&prior);
+        assert!(saved["fit"]["working_bias"].is_array(), "{model}: the bias as shipped is in the prior");
+        let columns = saved["columns"].clone();
+        let column = |role: &str| columns[role].as_str().unwrap().to_string();
+        let (count_option, size_option) = match model {
+            "beta-binomial" => ("--successes", "--trials"),
+            "gamma-poisson" => ("--events", "--exposure"),
+            _ => ("--estimate", "--std-error"),
+        };
+        let dir = tempfile::tempdir().unwrap();
+        let threshold = reference["threshold"].as_f64().unwrap().to_string();
+        let (group, count, size) = (column("group"), column("count"), column("size"));
+        let args = [
+            "--quiet",
+            "score",
+            "--prior",
+            prior.to_str().unwrap(),
+            "--input",
+            input.to_str().unwrap(),
+            "--group",
+            &group,
+            count_option,
+            &count,
+            size_option,
+            &size,
+            "--intervals",
+            "corrected",
+            "--above",
+            &threshold,
+            "--output",
+            "scored.csv",
+        ];
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{model}: {}", stderr(&out));
+        let table = Csv::read(&dir.path().join("scored.csv"));
+        let close =
+            |got: f64, want: f64, tolerance: f64| (got - want).abs() <= tolerance * want.abs().max(1.0);
+        for (column, key, tolerance) in [
+            ("interval_lo", "lower", 1e-8),
+            ("interval_hi", "upper", 1e-8),
+            ("posterior_mean", "mean", 1e-12),
+            ("posterior_sd", "sd", 1e-10),
+            ("prob_above", "prob_above", 1e-12),
+        ] {
+            let values = table.floats(column);
+            for (i, (got, want)) in paired(&values, reference[key].as_array().unwrap(), column).enumerate() {
+                let want = want.as_f64().unwrap();
+                assert!(close(*got, want, tolerance), "{model} row {}: {column} {got} vs {want}", i + 1);
+            }
+        }
+    }
+}

@@ -246,3 +246,31 @@ fn prior_predictive_cdfs_match_scipy() {
     // The README's figure, 3.1e-11, with a margin of 2.
     assert!(worst <= 2.0 * 3.1e-11, "the README says 3.1e-11; worst {worst:e}");
 }
+
+#[test]
+fn beta_binomial_predictive_cdfs_past_the_summed_terms_match_mpmath() {
+    // Source: tests/fixtures/predictive_cdf_large.json (scripts/make_large_predictive_fixtures.py):
+    // every term of the pmf in mpmath at 30 digits, summed, at n = 1e5 and 1e6 and priors from
+    // Beta(0.3, 0.7) to Beta(5e4, 5e4). Where the spread needs more than 20,000 terms a side,
+    // ratepool sums those and takes the far tail as continuous.
+    use ratepool::core::model::{Family, Prior};
+    let fixture = json_fixture("predictive_cdf_large.json");
+    let rows = fixture["rows"].as_array().unwrap();
+    assert!(rows.len() >= 70, "{} rows", rows.len());
+    let mut worst: f64 = 0.0;
+    for row in rows {
+        let (size, count) = (row["size"].as_f64().unwrap(), row["count"].as_f64().unwrap());
+        let prior =
+            Prior::Conjugate { natural: [row["first"].as_f64().unwrap(), row["second"].as_f64().unwrap()] };
+        let (below, at_most) = beta_binomial::BetaBinomial::predictive_cdf(&prior, size, count);
+        for (got, key) in [(below, "below"), (at_most, "at_most")] {
+            let want = row[key].as_f64().unwrap();
+            worst = worst.max((got - want).abs());
+        }
+    }
+    println!("predictive CDFs at n up to 1e6: worst absolute difference {worst:.1e}");
+    // The README's figure for this regime, 8.3e-6 (the continuous far tail; the calibration
+    // check bins these values in tenths), with a margin of 2.
+    const WORST_LARGE_N_CDF: f64 = 8.3e-6;
+    assert!(worst <= 2.0 * WORST_LARGE_N_CDF, "the README says {WORST_LARGE_N_CDF:e}; worst {worst:e}");
+}
