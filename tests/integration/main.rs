@@ -18,6 +18,7 @@ mod normal;
 mod output;
 mod producers;
 mod properties;
+mod readme;
 mod reference;
 mod report;
 mod scale;

@@ -1,0 +1,208 @@
+//! The README's demo figures, repeated: every terminal output it pastes
+//! (compared line by line; a line `...` stands for lines left out), and the
+//! figures its prose quotes from the demo outputs, each at the digits the
+//! README prints. A change that moves one fails here, not in a reader's hands.
+
+use crate::util::{ratepool, stderr, summary, Csv};
+use std::path::Path;
+
+fn root() -> &'static Path {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// A scratch folder with the demo data where the README's commands name it.
+fn scratch() -> tempfile::TempDir {
+    let dir = tempfile::tempdir().unwrap();
+    std::os::unix::fs::symlink(root().join("demo-data"), dir.path().join("demo-data")).unwrap();
+    dir
+}
+
+/// Runs a README command line (`cargo run -- ARGS`) in `dir`; stdout.
+fn run(dir: &Path, line: &str) -> String {
+    let args: Vec<&str> = line.trim().trim_start_matches("cargo run -- ").split_whitespace().collect();
+    let out = ratepool(dir, &args);
+    assert!(out.status.success(), "{line}: {}", stderr(&out));
+    String::from_utf8(out.stdout).unwrap()
+}
+
+/// The fenced blocks of the README, in order.
+fn blocks(readme: &str) -> Vec<String> {
+    let mut blocks = Vec::new();
+    let mut current: Option<Vec<&str>> = None;
+    for line in readme.lines() {
+        match (&mut current, line.starts_with("```")) {
+            (None, true) => current = Some(Vec::new()),
+            (Some(lines), true) => {
+                blocks.push(lines.join("\n"));
+                current = None;
+            }
+            (Some(lines), false) => lines.push(line),
+            (None, false) => {}
+        }
+    }
+    blocks
+}
+
+/// True when `printed` matches `pasted`, where a pasted line `...` stands for any lines.
+fn matches(pasted: &[&str], printed: &[&str]) -> bool {
+    match pasted.split_first() {
+        None => printed.is_empty(),
+        Some((line, rest)) if line.trim() == "..." => {
+            (0..=printed.len()).any(|skip| matches(rest, &printed[skip..]))
+        }
+        Some((line, rest)) => printed.first() == Some(line) && matches(rest, &printed[1..]),
+    }
+}
+
+#[test]
+fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
+    let readme = std::fs::read_to_string(root().join("README.md")).unwrap();
+    let blocks = blocks(&readme);
+    let mut compared = 0;
+    for (i, block) in blocks.iter().enumerate() {
+        if !block.starts_with("ratepool ") || !block.contains(" groups scored (") {
+            continue;
+        }
+        // The command is the last `cargo run -- fit` line of the nearest block before it that has one.
+        let command = blocks[..i]
+            .iter()
+            .rev()
+            .find_map(|b| b.lines().filter(|l| l.starts_with("cargo run -- fit")).last())
+            .unwrap_or_else(|| panic!("no command before the output {block}"));
+        let dir = scratch();
+        let printed = run(dir.path(), command);
+        let (pasted, printed): (Vec<&str>, Vec<&str>) = (block.lines().collect(), printed.lines().collect());
+        assert!(
+            matches(&pasted, &printed),
+            "{command}\nthe README pastes:\n{block}\nit prints:\n{}",
+            printed.join("\n")
+        );
+        compared += 1;
+    }
+    assert_eq!(compared, 3, "the marketplace, returns and clinics outputs");
+}
+
+/// The row of `group` in a CSV output.
+fn row<'a>(table: &'a Csv, group_column: &str, group: &str) -> impl Fn(&str) -> f64 + 'a {
+    let at =
+        table.column(group_column).iter().position(|g| g == group).unwrap_or_else(|| panic!("no {group}"));
+    move |column: &str| table.column(column)[at].parse().unwrap_or(f64::NAN)
+}
+
+/// `value` printed to `decimals` places is `text`.
+fn printed(value: f64, decimals: usize, text: &str) {
+    assert_eq!(format!("{value:.decimals$}"), text, "{value}");
+}
+
+#[test]
+fn the_marketplace_figures_in_the_prose() {
+    let dir = scratch();
+    let common = "fit --input demo-data/marketplace.csv --model beta-binomial --group seller_id --successes positive_ratings --trials total_ratings";
+    run(dir.path(), &format!("{common} --ranks --output m.csv --summary m.json"));
+    let table = Csv::read(&dir.path().join("m.csv"));
+    let s = summary(&dir.path().join("m.json"));
+    printed(s["prior"]["alpha"].as_f64().unwrap(), 2, "18.30");
+    printed(s["prior"]["beta"].as_f64().unwrap(), 2, "2.01");
+    let seller = row(&table, "seller_id", "seller-00073");
+    printed(seller("posterior_mean"), 3, "0.859");
+    printed(seller("interval_lo"), 3, "0.686");
+    printed(seller("interval_hi"), 3, "0.968");
+    printed(seller("pool_weight"), 3, "0.953");
+    let seller = row(&table, "seller_id", "seller-09140");
+    printed(seller("raw_proportion"), 3, "0.678");
+    printed(seller("posterior_mean"), 3, "0.681");
+    printed(seller("pool_weight"), 3, "0.016");
+    let ranks = |id: &str| {
+        let seller = row(&table, "seller_id", id);
+        (seller("rank_mean") as u64, seller("rank_conservative") as u64)
+    };
+    assert_eq!(ranks("seller-00001"), (7803, 9480));
+    assert_eq!(ranks("seller-06391"), (1, 1));
+    assert_eq!(ranks("seller-19835"), (2, 4));
+    // Fourth conservatively, behind seller-15439 (3,091 of 3,124), whose interval is narrower.
+    assert!(ranks("seller-15439").1 < 4);
+    let behind = row(&table, "seller_id", "seller-15439");
+    assert_eq!((behind("positive_ratings"), behind("total_ratings")), (3091.0, 3124.0));
+    let all_positive = table.column("raw_proportion").iter().filter(|r| r.parse() == Ok(1.0)).count();
+    assert_eq!(all_positive, 8420);
+    // prob_top with --top 20 (5,000 draws by default at 20,000 groups).
+    run(dir.path(), &format!("{common} --top 20 --output t.csv"));
+    let table = Csv::read(&dir.path().join("t.csv"));
+    let top = |id: &str| row(&table, "seller_id", id)("prob_top");
+    printed(top("seller-19835"), 3, "0.096");
+    printed(top("seller-06391"), 3, "0.063");
+    printed(top("seller-00001"), 4, "0.0011");
+    let largest = table.floats("prob_top").iter().copied().fold(0.0, f64::max);
+    assert_eq!(largest, top("seller-19835"), "seller-19835 has the largest");
+}
+
+#[test]
+fn the_district_figures_in_the_prose() {
+    let dir = scratch();
+    let common = "fit --input demo-data/districts.csv --model gamma-poisson --group district_id --events observed_cases --exposure expected_cases";
+    run(dir.path(), &format!("{common} --above 1 --flag-fdr 0.1 --output d.csv --summary d.json"));
+    let table = Csv::read(&dir.path().join("d.csv"));
+    let district = row(&table, "district_id", "district-2581");
+    printed(district("raw_rate"), 1, "12.3");
+    printed(district("posterior_mean"), 2, "1.42");
+    printed(district("prob_above"), 2, "0.81");
+    let district = row(&table, "district_id", "district-0616");
+    printed(district("raw_rate"), 2, "1.60");
+    printed(district("posterior_mean"), 2, "1.58");
+    printed(district("prob_above"), 10, "0.9999999997");
+    assert_eq!(table.floats("prob_above").iter().filter(|&&p| p > 0.95).count(), 111);
+    let s = summary(&dir.path().join("d.json"));
+    assert_eq!(s["flags"]["groups_flagged"], 334);
+    printed(s["flags"]["expected_false_flags"].as_f64().unwrap(), 1, "33.4");
+    printed(s["prior"]["shape"].as_f64().unwrap(), 3, "6.008");
+    printed(s["prior"]["rate"].as_f64().unwrap(), 3, "6.113");
+    printed(s["prior"]["mean"].as_f64().unwrap(), 3, "0.983");
+}
+
+#[test]
+fn the_returns_and_clinics_figures_in_the_prose() {
+    let dir = scratch();
+    let returns = "fit --input demo-data/returns.csv --model beta-binomial --group store_id --outcome returned --above 0.1 --flag-fdr 0.1";
+    run(dir.path(), &format!("{returns} --by store_kind --output by.csv --summary by.json"));
+    run(dir.path(), &format!("{returns} --output one.csv --summary one.json"));
+    let s = summary(&dir.path().join("by.json"));
+    for segment in s["segments"].as_array().unwrap() {
+        let mean = segment["prior"]["mean"].as_f64().unwrap();
+        let want = match segment["key"]["store_kind"].as_str().unwrap() {
+            "kiosk" => "0.041",
+            "arcade" => "0.059",
+            "warehouse" => "0.087",
+            "web" => "0.149",
+            other => panic!("an unknown kind {other}"),
+        };
+        printed(mean, 3, want);
+    }
+    let (by, one) = (Csv::read(&dir.path().join("by.csv")), Csv::read(&dir.path().join("one.csv")));
+    for (store, alone, segmented) in [("store-201", "0.955", "0.846"), ("store-007", "0.735", "0.923")] {
+        printed(row(&one, "store_id", store)("prob_above"), 3, alone);
+        printed(row(&by, "store_id", store)("prob_above"), 3, segmented);
+    }
+    assert_eq!(summary(&dir.path().join("one.json"))["flags"]["groups_flagged"], 77);
+    let clinics = "fit --input demo-data/clinic_waits.csv --model normal-normal --group clinic_id --estimate mean_wait_minutes --std-error wait_se --above 30 --rank-lowest-first --output c.csv --summary c.json";
+    run(dir.path(), clinics);
+    let table = Csv::read(&dir.path().join("c.csv"));
+    let clinic = row(&table, "clinic_id", "clinic-166");
+    printed(clinic("raw_estimate"), 1, "39.7");
+    printed(clinic("wait_se"), 1, "5.6");
+    printed(clinic("posterior_mean"), 1, "31.1");
+    printed(clinic("pool_weight"), 2, "0.56");
+    printed(clinic("prob_above"), 2, "0.61");
+    let clinic = row(&table, "clinic_id", "clinic-000");
+    printed(clinic("posterior_mean"), 2, "36.20");
+    printed(clinic("pool_weight"), 3, "0.015");
+    printed(clinic("prob_above"), 1, "1.0");
+    let ranks = |id: &str| {
+        let clinic = row(&table, "clinic_id", id);
+        (clinic("rank_mean") as u64, clinic("rank_conservative") as u64)
+    };
+    assert_eq!(ranks("clinic-325"), (3, 13));
+    assert_eq!(ranks("clinic-338"), (1, 1));
+    let s = summary(&dir.path().join("c.json"));
+    printed(s["prior"]["mean"].as_f64().unwrap(), 2, "24.18");
+    printed(s["prior"]["variance"].as_f64().unwrap().sqrt(), 2, "5.02");
+}
