@@ -67,7 +67,7 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         let command = blocks[..i]
             .iter()
             .rev()
-            .find_map(|b| b.lines().filter(|l| l.starts_with("cargo run -- fit")).last())
+            .find_map(|b| b.lines().rfind(|l| l.starts_with("cargo run -- fit")))
             .unwrap_or_else(|| panic!("no command before the output {block}"));
         let dir = scratch();
         let printed = run(dir.path(), command);
