@@ -188,7 +188,7 @@ fn a_duckdb_join_of_the_pair_output_gives_the_row_output() {
 }
 
 #[test]
-fn prob_top_by_both_methods_matches_the_exact_integral_over_2000_sellers() {
+fn prob_top_by_both_methods_matches_the_exact_integral_over_2000_and_20000_sellers() {
     // Source: tests/fixtures/top_exact (scripts/make_top_reference.py): the first 2,000 demo
     // sellers, K = 5, under the prior saved in prior.json; the exact P(among the 5 highest) by
     // scipy's beta posteriors, the Poisson-binomial recursion over the other sellers and the
@@ -230,6 +230,52 @@ fn prob_top_by_both_methods_matches_the_exact_integral_over_2000_sellers() {
         let worst = paired(&got, &exact, method).map(|(g, e)| (g - e).abs()).fold(0.0, f64::max);
         println!(
             "prob_top by {method} over 2,000 sellers, K = 5: largest difference from the exact {worst:.5}"
+        );
+        assert!(worst <= 2.0 * readme, "{method}: the README says {readme}; largest difference {worst}");
+    }
+    // All 20,000 demo sellers with K = 20 under the prior fitted to them (prior-all.json): the
+    // README's 0.00059 for 2,000 draws and 0.0015 for the threshold, the method's own regime
+    // of many groups, with a margin of 2.
+    let all: Vec<f64> = reference["all_sellers"]["prob_top"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap())
+        .collect();
+    assert_eq!(all.len(), 20_000);
+    let (demo, prior) = (
+        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/marketplace.csv"),
+        crate::util::fixture("top_exact/prior-all.json"),
+    );
+    for (method, readme) in [("threshold", 0.0015), ("draws", 0.00059)] {
+        let args = [
+            "--quiet",
+            "score",
+            "--prior",
+            prior.to_str().unwrap(),
+            "--input",
+            demo.to_str().unwrap(),
+            "--group",
+            "seller_id",
+            "--successes",
+            "positive_ratings",
+            "--trials",
+            "total_ratings",
+            "--top",
+            "20",
+            "--top-method",
+            method,
+            "--top-draws",
+            "2000",
+            "--output",
+            "all.csv",
+        ];
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        let got = Csv::read(&dir.path().join("all.csv")).floats("prob_top");
+        let worst = paired(&got, &all, method).map(|(g, e)| (g - e).abs()).fold(0.0, f64::max);
+        println!(
+            "prob_top by {method} over 20,000 sellers, K = 20: largest difference from the exact {worst:.5}"
         );
         assert!(worst <= 2.0 * readme, "{method}: the README says {readme}; largest difference {worst}");
     }

@@ -25,6 +25,14 @@ fn districts_fit(dir: &Path, extra: &[&str]) -> std::process::Output {
     ratepool(dir, &args)
 }
 
+fn clinics_fit(dir: &Path, extra: &[&str]) -> std::process::Output {
+    let input = demo("clinic_waits.csv");
+    let mut args = vec!["fit", "--input", &input, "--model", "normal-normal", "--group", "clinic_id"];
+    args.extend(["--estimate", "mean_wait_minutes", "--std-error", "wait_se"]);
+    args.extend(extra);
+    ratepool(dir, &args)
+}
+
 #[test]
 fn each_model_names_its_raw_value_and_posterior_parameters_in_its_own_words() {
     let dir = tempfile::tempdir().unwrap();
@@ -42,24 +50,7 @@ fn each_model_names_its_raw_value_and_posterior_parameters_in_its_own_words() {
     }
     // No column of a gamma-Poisson run may read as a smoothed rate but the posterior mean.
     assert!(!header.iter().any(|h| h == "posterior_rate"), "{header:?}");
-    let input = demo("clinic_waits.csv");
-    let args = [
-        "fit",
-        "--quiet",
-        "--input",
-        &input,
-        "--model",
-        "normal-normal",
-        "--group",
-        "clinic_id",
-        "--estimate",
-        "mean_wait_minutes",
-        "--std-error",
-        "wait_se",
-        "--output",
-        "c.csv",
-    ];
-    let out = ratepool(dir.path(), &args);
+    let out = clinics_fit(dir.path(), &["--quiet", "--output", "c.csv"]);
     assert!(out.status.success(), "{}", stderr(&out));
     let header = Csv::read(&dir.path().join("c.csv")).header;
     for name in ["raw_estimate", "posterior_param_mean", "posterior_param_variance"] {
@@ -459,23 +450,7 @@ fn p_values_on_the_terminal_are_never_written_as_zero_or_one_in_scientific_form(
     assert!(text.contains("one-sided p < 1e-300"), "{text}");
     assert!(text.contains(", p = 0.18 over 20000 groups"), "{text}");
     assert!(!text.contains("e0") && !text.contains("e-1 ") && !text.contains("e1,"), "{text}");
-    let input = demo("clinic_waits.csv");
-    let args = [
-        "fit",
-        "--input",
-        &input,
-        "--model",
-        "normal-normal",
-        "--group",
-        "clinic_id",
-        "--estimate",
-        "mean_wait_minutes",
-        "--std-error",
-        "wait_se",
-        "--output",
-        "c.csv",
-    ];
-    let out = ratepool(dir.path(), &args);
+    let out = clinics_fit(dir.path(), &["--output", "c.csv"]);
     let text = String::from_utf8_lossy(&out.stdout);
     assert!(text.contains("Normal(mean = 24.1819, variance = 25.2488 (se 1.78))"), "{text}");
 }
