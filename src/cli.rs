@@ -126,12 +126,7 @@ impl Cli {
     }
 }
 
-/// The first line of a clap error, without its `error: ` prefix: the
-/// mistake in one line, for JSON logs and job-file reports.
-pub fn clap_message(error: &clap::Error) -> String {
-    let text = error.to_string();
-    text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string()
-}
+pub use crate::config::clap_message;
 
 /// What a command did: the summary of a fit or score, and the files written.
 pub struct Outcome {
@@ -987,6 +982,24 @@ fn manual_page() -> Result<Vec<u8>> {
     Ok(text)
 }
 
+/// `check-config`: every mistake of a job file, or what it describes. The
+/// file's arguments are parsed and validated into a job as a run would, and
+/// nothing runs.
+fn check_job_file(path: &std::path::Path, asked: Option<&str>) -> Result<String> {
+    use crate::config::{mistakes_error, JobFile};
+    use clap::{CommandFactory, Parser};
+    let file = JobFile::read(path)?;
+    let command = crate::config::command_of(&file, asked);
+    let arguments = file.arguments(&Cli::command(), command).map_err(|m| mistakes_error(path, &m))?;
+    let mut full = vec!["ratepool".to_string(), command.to_string()];
+    full.extend(arguments.iter().cloned());
+    let cli = Cli::try_parse_from(&full)
+        .map_err(|e| mistakes_error(path, &[file.mistake_of(&clap_message(&e))]))?;
+    let watch = cli.watch();
+    cli.command.into_job(watch).map_err(|e| mistakes_error(path, &[file.mistake_of(&e.to_string())]))?;
+    Ok(format!("{}: a valid `{command}` job ({} keys)", path.display(), file.keys()))
+}
+
 /// Writes the HTML report of `report` from its table and summary.
 fn run_report(args: &ReportArgs) -> Result<()> {
     let inputs = [
@@ -1019,7 +1032,7 @@ impl Command {
                 return Ok(Outcome { summary: None, outputs });
             }
             Command::CheckConfig(args) => {
-                println!("{}", crate::config::check(&args.file, args.command.as_deref())?);
+                println!("{}", check_job_file(&args.file, args.command.as_deref())?);
                 return Ok(Outcome { summary: None, outputs: Vec::new() });
             }
             Command::Completions { shell } => {

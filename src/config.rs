@@ -9,12 +9,18 @@
 
 use crate::error::{Error, Result};
 use clap::error::ErrorKind;
-use clap::CommandFactory;
 use std::ffi::OsString;
 use std::path::Path;
 
 /// The subcommands a job file may describe.
 const RUNS: [&str; 2] = ["fit", "score"];
+
+/// The first line of a clap error, without its `error: ` prefix: the
+/// mistake in one line, for JSON logs and job-file reports.
+pub fn clap_message(error: &clap::Error) -> String {
+    let text = error.to_string();
+    text.lines().next().unwrap_or_default().trim_start_matches("error: ").to_string()
+}
 
 /// One mistake in a job file.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -128,14 +134,24 @@ impl JobFile {
         Ok(JobFile { text, table })
     }
 
+    /// How many keys the file sets.
+    pub fn keys(&self) -> usize {
+        self.table.len()
+    }
+
     /// The subcommand named by the `command` key.
     pub fn command(&self) -> Option<&str> {
         self.table.get("command").and_then(toml::Value::as_str)
     }
 
-    /// The arguments the file stands for under `command`, or every mistake.
-    pub fn arguments(&self, command: &str) -> std::result::Result<Vec<String>, Vec<Mistake>> {
-        let root = crate::cli::Cli::command();
+    /// The arguments the file stands for under `command` of the command
+    /// line `root` (the parser's definition, passed in so that job files
+    /// need nothing of the command line's module), or every mistake.
+    pub fn arguments(
+        &self,
+        root: &clap::Command,
+        command: &str,
+    ) -> std::result::Result<Vec<String>, Vec<Mistake>> {
         let sub = root.find_subcommand(command).cloned().unwrap_or_default();
         let mut arguments = Vec::new();
         let mut mistakes = Vec::new();
@@ -194,7 +210,7 @@ impl JobFile {
                 let trial = sub.clone().try_get_matches_from(["ratepool", &these[0], &these[1]]);
                 if let Err(e) = trial {
                     if matches!(e.kind(), ErrorKind::InvalidValue | ErrorKind::ValueValidation) {
-                        mistakes.push(mistake(plain_value_mistake(&crate::cli::clap_message(&e), value)));
+                        mistakes.push(mistake(plain_value_mistake(&clap_message(&e), value)));
                         continue;
                     }
                 }
@@ -223,7 +239,7 @@ impl JobFile {
 /// The command line with the job file of `--config FILE` (or `--config=FILE`)
 /// expanded into arguments right after the subcommand, so that the flags
 /// given on the command line, which come later, override the file's.
-pub fn expand(args: Vec<OsString>) -> Result<Vec<OsString>> {
+pub fn expand(args: Vec<OsString>, root: &clap::Command) -> Result<Vec<OsString>> {
     let Some(at) = args.iter().position(|a| a.to_str().is_some_and(|a| RUNS.contains(&a))) else {
         return Ok(args);
     };
@@ -239,32 +255,23 @@ pub fn expand(args: Vec<OsString>) -> Result<Vec<OsString>> {
     let path = Path::new(&path);
     let file = JobFile::read(path)?;
     let command = args[at].to_str().unwrap_or_default();
-    let inserted = file.arguments(command).map_err(|mistakes| {
-        let lines: Vec<String> = mistakes.iter().map(|m| format!("{}: {m}", path.display())).collect();
-        Error::Usage(lines.join("\n"))
-    })?;
+    let inserted = file.arguments(root, command).map_err(|mistakes| mistakes_error(path, &mistakes))?;
     let mut expanded = args[..=at].to_vec();
     expanded.extend(inserted.into_iter().map(OsString::from));
     expanded.extend(args[at + 1..].iter().cloned());
     Ok(expanded)
 }
 
-/// `check-config`: every mistake of a job file, or what it describes.
-pub fn check(path: &Path, command: Option<&str>) -> Result<String> {
-    let file = JobFile::read(path)?;
-    let command = command.or(file.command()).unwrap_or("fit");
-    let report = |mistakes: Vec<Mistake>| {
-        let lines: Vec<String> = mistakes.iter().map(|m| format!("{}: {m}", path.display())).collect();
-        Error::Usage(lines.join("\n"))
-    };
-    let arguments = file.arguments(command).map_err(report)?;
-    let mut full = vec!["ratepool".to_string(), command.to_string()];
-    full.extend(arguments.iter().cloned());
-    let cli = <crate::cli::Cli as clap::Parser>::try_parse_from(&full)
-        .map_err(|e| report(vec![file.mistake_of(&crate::cli::clap_message(&e))]))?;
-    let watch = cli.watch();
-    cli.command.into_job(watch).map_err(|e| report(vec![file.mistake_of(&e.to_string())]))?;
-    Ok(format!("{}: a valid `{command}` job ({} keys)", path.display(), file.table.len()))
+/// Every mistake of a job file as one usage error, each line naming the file.
+pub fn mistakes_error(path: &Path, mistakes: &[Mistake]) -> Error {
+    let lines: Vec<String> = mistakes.iter().map(|m| format!("{}: {m}", path.display())).collect();
+    Error::Usage(lines.join("\n"))
+}
+
+/// The subcommand a job file describes: the one asked for, else its
+/// `command` key, else fit.
+pub fn command_of<'a>(file: &'a JobFile, asked: Option<&'a str>) -> &'a str {
+    asked.or(file.command()).unwrap_or("fit")
 }
 
 #[cfg(test)]
@@ -275,22 +282,39 @@ mod tests {
         JobFile { text: text.to_string(), table: text.parse().expect("valid TOML") }
     }
 
+    /// A command line of the shape job files serve: a `fit` with options of
+    /// each kind (a flag, a list, a number, a choice, a text).
+    fn root() -> clap::Command {
+        use clap::{Arg, ArgAction, Command};
+        let fit = Command::new("fit")
+            .arg(Arg::new("input").long("input"))
+            .arg(Arg::new("model").long("model").value_parser(["beta-binomial", "gamma-poisson"]))
+            .arg(Arg::new("ranks").long("ranks").action(ArgAction::SetTrue))
+            .arg(Arg::new("quiet").long("quiet").action(ArgAction::SetTrue))
+            .arg(Arg::new("by").long("by").value_delimiter(','))
+            .arg(Arg::new("level").long("level").value_parser(clap::value_parser!(f64)))
+            .arg(Arg::new("config").long("config"));
+        Command::new("ratepool").subcommand(fit).subcommand(Command::new("score"))
+    }
+
     #[test]
     fn keys_become_arguments_in_the_parsers_own_forms() {
         let job = file(
             "model = \"beta-binomial\"\nranks = true\nquiet = false\nby = [\"a\", \"b\"]\nlevel = 0.9\n",
         );
-        let args = job.arguments("fit").expect("valid");
+        let args = job.arguments(&root(), "fit").expect("valid");
         assert_eq!(args, ["--by", "a,b", "--level", "0.9", "--model", "beta-binomial", "--ranks"]);
     }
 
     #[test]
     fn each_mistake_names_its_key_and_line() {
-        let job = file("input = \"x.csv\"\nlevle = 0.9\nranks = \"yes\"\nmodel = \"beta-poisson\"\ncommand = \"score\"\n");
-        let mistakes = job.arguments("fit").expect_err("four mistakes");
+        let job = file("input = \"x.csv\"\nlevle = 0.9\nranks = \"yes\"\nmodel = \"beta-poisson\"\ncommand = \"score\"\nlevel = \"high\"\n");
+        let mistakes = job.arguments(&root(), "fit").expect_err("five mistakes");
         let found: Vec<(usize, &str)> = mistakes.iter().map(|m| (m.line, m.key.as_str())).collect();
-        assert_eq!(found, [(5, "command"), (2, "levle"), (4, "model"), (3, "ranks")]);
-        assert!(mistakes[2].message.contains("beta-poisson"), "{}", mistakes[2].message);
+        assert_eq!(found, [(5, "command"), (6, "level"), (2, "levle"), (4, "model"), (3, "ranks")]);
+        assert!(mistakes[1].message.contains("must be a number"), "{}", mistakes[1].message);
+        assert!(mistakes[2].message.contains("did you mean `level`?"), "{}", mistakes[2].message);
+        assert!(mistakes[3].message.contains("beta-poisson"), "{}", mistakes[3].message);
     }
 
     #[test]
@@ -303,7 +327,7 @@ mod tests {
                 .iter()
                 .map(OsString::from)
                 .collect();
-        let expanded = expand(args).unwrap();
+        let expanded = expand(args, &root()).unwrap();
         let text: Vec<&str> = expanded.iter().map(|a| a.to_str().unwrap()).collect();
         assert_eq!(&text[..5], ["ratepool", "--quiet", "fit", "--level", "0.9"]);
         assert_eq!(&text[text.len() - 2..], ["--level", "0.8"]);

@@ -2,7 +2,7 @@
 //! (0 success, 2 bad usage or input, 3 model not fitted, 1 anything else).
 
 use clap::error::ErrorKind;
-use clap::Parser;
+use clap::{CommandFactory, Parser};
 use ratepool::cli::{Cli, Outcome};
 use ratepool::error::Error;
 use std::process::ExitCode;
@@ -71,7 +71,7 @@ fn main() -> ExitCode {
             }
         }
     };
-    let args = match ratepool::config::expand(std::env::args_os().collect()) {
+    let args = match ratepool::config::expand(std::env::args_os().collect(), &Cli::command()) {
         Ok(args) => args,
         Err(e) => return finish(Err(e)),
     };

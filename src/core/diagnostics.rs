@@ -105,6 +105,25 @@ pub fn weighted_spearman(x: &[f64], y: &[f64], weights: &[f64]) -> Option<f64> {
     weighted_pearson(&weighted_average_ranks(x, weights), &weighted_average_ranks(y, weights), weights)
 }
 
+/// The pull summary over all groups, from each distinct pair and its posterior.
+pub fn pull_of_pairs(
+    kind: crate::core::model::SizeKind,
+    pairs: &[crate::core::pairs::WeightedPair],
+    posteriors: &[crate::core::model::Posterior],
+) -> Pull {
+    let outcomes: Vec<PairOutcome> = pairs
+        .iter()
+        .zip(posteriors)
+        .map(|(pair, post)| PairOutcome {
+            raw_rate: kind.raw_value(pair.size, pair.count),
+            posterior_mean: post.mean,
+            pool_weight: post.pool_weight,
+            groups: pair.weight,
+        })
+        .collect();
+    pull(&outcomes)
+}
+
 /// Computes the pull summary over all groups from the distinct pairs they
 /// share; `max_shift_row` is then the index of the pair with the largest shift.
 pub fn pull(pairs: &[PairOutcome]) -> Pull {

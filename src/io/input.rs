@@ -7,31 +7,9 @@ use super::csv_input::CsvFile;
 use super::parquet_input::ParquetParts;
 use super::TableFormat;
 use crate::error::{Error, Result};
-use arrow_array::ArrayRef;
 use std::path::{Path, PathBuf};
 
-/// The role of a column that keys segments: Parquet text in this role is
-/// read dictionary-encoded (see [`crate::pipeline::segments`]).
-pub const SEGMENT_ROLE: &str = "segment";
-
-/// One batch of input rows.
-pub struct InputBatch<'a> {
-    /// The file the rows come from (a part, for a folder of parts).
-    pub file: &'a Path,
-    /// 0-based row of the batch's first row within its file.
-    pub first_row_in_file: usize,
-    /// 0-based row of the batch's first row over all parts.
-    pub first_row: usize,
-    /// The requested columns, in the order requested.
-    pub columns: Vec<ArrayRef>,
-}
-
-impl InputBatch<'_> {
-    /// Rows in the batch.
-    pub fn rows(&self) -> usize {
-        self.columns.first().map_or(0, |c| c.len())
-    }
-}
+pub use super::batch::{InputBatch, SEGMENT_ROLE};
 
 /// Where a row of the input is: its file and its 0-based row there.
 #[derive(Debug, Clone, PartialEq, Eq)]

@@ -5,6 +5,7 @@
 //! partial file.
 
 pub mod atomic;
+pub mod batch;
 pub mod cells;
 pub mod csv_input;
 pub mod guard;

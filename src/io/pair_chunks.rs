@@ -14,7 +14,6 @@
 //! Parquet reader; `tests/integration/producers.rs` reads it back with
 //! arrow-rs and the reader test script with pyarrow, polars and DuckDB.
 
-use arrow_array::{Int64Array, StringArray};
 use bytes::Bytes;
 use parquet::basic::{Compression, Encoding, ZstdLevel};
 use parquet::column::page::{CompressedPage, Page, PageWriter};
@@ -97,19 +96,6 @@ impl PairValues {
                 float_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
             }
             PairValues::Booleans(_) => unreachable!("booleans are written without a dictionary"),
-        }
-    }
-
-    /// The values as an output column, one row per pair.
-    pub fn into_column(self) -> crate::io::sink::ColumnValues {
-        use crate::io::sink::ColumnValues;
-        match self {
-            PairValues::Integers(v) => ColumnValues::Integers(v),
-            PairValues::Floats(v) => ColumnValues::Floats(v),
-            PairValues::OptionalFloats(v) => ColumnValues::OptionalFloats(v),
-            PairValues::Booleans(v) => ColumnValues::Booleans(v),
-            PairValues::OptionalIntegers(v) => ColumnValues::Arrow(std::sync::Arc::new(Int64Array::from(v))),
-            PairValues::Texts(v) => ColumnValues::Arrow(std::sync::Arc::new(StringArray::from(v))),
         }
     }
 

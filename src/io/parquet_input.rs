@@ -3,9 +3,8 @@
 //! arrow-rs. Memory follows the batch size, not the file size. Every codec a
 //! producer writes is read (snappy, gzip, both LZ4 codecs, zstd, brotli).
 
+use super::batch::{InputBatch, SEGMENT_ROLE};
 use super::guard::guard_read;
-use super::input::InputBatch;
-use super::input::SEGMENT_ROLE;
 use crate::error::{Error, Result};
 use arrow_schema::{DataType, Field, Schema};
 use parquet::arrow::arrow_reader::{ArrowReaderOptions, ParquetRecordBatchReaderBuilder};

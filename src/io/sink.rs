@@ -109,6 +109,21 @@ impl ParquetChunks {
     }
 }
 
+// Kept here, not beside `PairValues`, so that the pair chunks need nothing of the sink.
+impl PairValues {
+    /// The values as an output column, one row per pair.
+    pub fn into_column(self) -> ColumnValues {
+        match self {
+            PairValues::Integers(v) => ColumnValues::Integers(v),
+            PairValues::Floats(v) => ColumnValues::Floats(v),
+            PairValues::OptionalFloats(v) => ColumnValues::OptionalFloats(v),
+            PairValues::Booleans(v) => ColumnValues::Booleans(v),
+            PairValues::OptionalIntegers(v) => ColumnValues::Arrow(Arc::new(Int64Array::from(v))),
+            PairValues::Texts(v) => ColumnValues::Arrow(Arc::new(StringArray::from(v))),
+        }
+    }
+}
+
 /// Values of one output column.
 #[derive(Debug, Clone, PartialEq)]
 pub enum ColumnValues {

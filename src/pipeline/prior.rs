@@ -9,7 +9,6 @@
 //! boundary (no overdispersion) is a result, not a fallback. A likelihood-
 //! ratio test says whether one prior per segment fits better than one for all.
 
-use super::scoring::pull_of_pairs;
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
@@ -371,7 +370,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
     let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors", "posteriors");
-    let pull = pull_of_pairs(F::TERMS.size_kind, &all_pairs, &posteriors);
+    let pull = crate::core::diagnostics::pull_of_pairs(F::TERMS.size_kind, &all_pairs, &posteriors);
     let mut warnings = all.warnings.clone();
     if let Prior::CompletePooling { .. } = all.prior {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
@@ -410,8 +409,11 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
                     std::slice::from_ref(&priors[place]),
                     &own_places,
                 );
-                let mut pull =
-                    pull_of_pairs(F::TERMS.size_kind, &all_pairs[range.clone()], &posteriors[range.clone()]);
+                let mut pull = crate::core::diagnostics::pull_of_pairs(
+                    F::TERMS.size_kind,
+                    &all_pairs[range.clone()],
+                    &posteriors[range.clone()],
+                );
                 pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
                 let (fitted_prior, fit, fallback) = match choice {
                     Ok(own) => (own.fitted_prior, Some(own.fit), None),

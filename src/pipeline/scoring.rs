@@ -3,11 +3,10 @@
 
 use super::prior::Scored;
 use super::segments::segment_pair_values;
-use super::validate::{cell_text, ColumnNames, Rejection, SizeKind};
+use super::validate::{cell_text, ColumnNames, Rejection};
 use super::{FlagEvent, Intervals, Job, Thresholds};
-use crate::core::diagnostics::{pull, PairOutcome, Pull};
+use crate::core::diagnostics::Pull;
 use crate::core::model::Posterior;
-use crate::core::pairs::WeightedPair;
 use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
@@ -202,21 +201,6 @@ impl RejectRows {
         columns.push(("reason".to_string(), ColumnValues::Texts(taken.reasons)));
         columns
     }
-}
-
-/// The pull summary over all groups, from each distinct pair and its posterior.
-pub fn pull_of_pairs(kind: SizeKind, pairs: &[WeightedPair], posteriors: &[Posterior]) -> Pull {
-    let outcomes: Vec<PairOutcome> = pairs
-        .iter()
-        .zip(posteriors)
-        .map(|(pair, post)| PairOutcome {
-            raw_rate: kind.raw_value(pair.size, pair.count),
-            posterior_mean: post.mean,
-            pool_weight: post.pool_weight,
-            groups: pair.weight,
-        })
-        .collect();
-    pull(&outcomes)
 }
 
 /// Counts of rows seen by a run.

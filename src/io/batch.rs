@@ -1,0 +1,29 @@
+//! One batch of input rows as every reader hands it over, and the column
+//! role that keys segments: shared by the readers and [`super::input`],
+//! which chooses among them.
+
+use arrow_array::ArrayRef;
+use std::path::Path;
+
+/// The role of a column that keys segments: Parquet text in this role is
+/// read dictionary-encoded (see [`crate::pipeline::segments`]).
+pub const SEGMENT_ROLE: &str = "segment";
+
+/// One batch of input rows.
+pub struct InputBatch<'a> {
+    /// The file the rows come from (a part, for a folder of parts).
+    pub file: &'a Path,
+    /// 0-based row of the batch's first row within its file.
+    pub first_row_in_file: usize,
+    /// 0-based row of the batch's first row over all parts.
+    pub first_row: usize,
+    /// The requested columns, in the order requested.
+    pub columns: Vec<ArrayRef>,
+}
+
+impl InputBatch<'_> {
+    /// Rows in the batch.
+    pub fn rows(&self) -> usize {
+        self.columns.first().map_or(0, |c| c.len())
+    }
+}
