@@ -14,8 +14,11 @@ With a fourth argument K > 0 a `category` column of K invented labels
 stream, so the other columns are the same with or without it.
 Rows are made in chunks of 1M, each chunk from its own stream of a fixed seed,
 so a file of N groups is the same whatever machine makes it.
+An output named `*.quoted.csv` holds the ids as text (`g000000001`), which
+pyarrow's CSV writer, like most exporters, puts in double quotes
+(`"g000000001",2,21`); the counts are the same as in the other files.
 
-usage: python3 benches/generate_binomial.py GROUPS OUT.parquet|OUT.csv [pareto|lognormal] [K]
+usage: python3 benches/generate_binomial.py GROUPS OUT.parquet|OUT.csv|OUT.quoted.csv [pareto|lognormal] [K]
 """
 import sys
 
@@ -28,7 +31,8 @@ SEED = 20261202
 CHUNK = 1_000_000
 
 
-def chunk(stream: np.random.Generator, first_id: int, rows: int, mix: str, categories: int) -> pa.Table:
+def chunk(stream: np.random.Generator, first_id: int, rows: int, mix: str, categories: int,
+          text_ids: bool = False) -> pa.Table:
     if mix == "lognormal":
         ratings = np.minimum(20_000, np.round(stream.lognormal(np.log(20.0), 1.8, rows))).astype(np.int64)
         share = stream.beta(3.0, 12.0, rows)
@@ -37,6 +41,8 @@ def chunk(stream: np.random.Generator, first_id: int, rows: int, mix: str, categ
         share = stream.beta(18.0, 2.0, rows)
     positive = stream.binomial(ratings, share).astype(np.int64)
     ids = np.arange(first_id, first_id + rows, dtype=np.int64)
+    if text_ids:
+        ids = pa.array(np.char.add("g", np.char.zfill(ids.astype(str), 9)))
     columns = {"seller_id": ids, "positive_ratings": positive, "total_ratings": ratings}
     if categories > 0:
         labels = np.array([f"category-{i}" for i in range(categories)])
@@ -53,7 +59,7 @@ def main() -> None:
     writer = None
     for index, stream in enumerate(streams):
         rows = min(CHUNK, groups - index * CHUNK)
-        table = chunk(stream, index * CHUNK, rows, mix, categories)
+        table = chunk(stream, index * CHUNK, rows, mix, categories, out.endswith(".quoted.csv"))
         if writer is None and out.endswith(".csv"):
             writer = pacsv.CSVWriter(out, table.schema)
         elif writer is None:

@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # End-to-end scale benchmark, everything side by side in one run, on the same
 # synthetic inputs (benches/generate_binomial.py, lognormal mix: about 300,000
-# distinct pairs at 10M groups), each as Parquet and as CSV:
+# distinct pairs at 10M groups), each as Parquet, as CSV, and as CSV with text ids in double
+# quotes as most exporters write them ("g000000001",2,21: format `quoted`):
 #   ratepool fit (the default command; also with --progress, to show what reporting costs),
 #   the I/O floor (benches/io_floor.rs: one read, the same writer, no computation),
 #   the strong peer (benches/peer/strong_peer.py: polars + scipy on the distinct pairs),
@@ -41,16 +42,16 @@ timed() { # timed TOOL FORMAT GROUPS RUN COMMAND...
 
 columns=(--group seller_id --successes positive_ratings --trials total_ratings)
 for groups in "${sizes[@]}"; do
-  for format in parquet csv; do
-    input="$data/heavy-$groups.$format"
+  for format in parquet csv quoted; do
+    input="$data/heavy-$groups.${format/quoted/quoted.csv}"
     [[ -f "$input" ]] || "$python" benches/generate_binomial.py "$groups" "$input" lognormal
   done
 done
 echo -e "tool\tformat\tgroups\trun\twall_s\tpeak_mb"
 for run in $(seq "$runs"); do
   for groups in "${sizes[@]}"; do
-    for format in parquet csv; do
-      input="$data/heavy-$groups.$format"
+    for format in parquet csv quoted; do
+      input="$data/heavy-$groups.${format/quoted/quoted.csv}"
       timed ratepool "$format" "$groups" "$run" "$ratepool" --quiet fit --model beta-binomial \
         --input "$input" "${columns[@]}" --output "$data/ratepool.parquet" --summary "$data/summary.json"
       timed ratepool_progress "$format" "$groups" "$run" "$ratepool" --quiet --progress fit \
