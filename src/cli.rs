@@ -131,7 +131,7 @@ pub use crate::config::clap_message;
 /// What a command did: the summary of a fit or score, and the files written.
 pub struct Outcome {
     /// The summary of a fit or score.
-    pub summary: Option<crate::report::Summary>,
+    pub summary: Option<crate::summary::Summary>,
     /// Every file written, in the order written.
     pub outputs: Vec<PathBuf>,
 }

@@ -8,8 +8,9 @@
 //! Layers, each depending only on those before it:
 //! * [`core`]: pure numerics (special functions, models, fit, posteriors).
 //! * [`io`]: reading and writing tables (CSV, Parquet through arrow-rs), in batches, atomically.
+//! * [`summary`]: the JSON summary's wire types, and its figures in words.
 //! * [`pipeline`]: validation, pair aggregation, fit and scoring, end to end.
-//! * [`report`]: the JSON summary (wire types) and the terminal text.
+//! * [`report`]: the terminal text of a summary.
 //! * [`view`]: the HTML report of a run, from its output table and summary.
 //!
 //! ```
@@ -32,4 +33,5 @@ pub mod error;
 pub mod io;
 pub mod pipeline;
 pub mod report;
+pub mod summary;
 pub mod view;

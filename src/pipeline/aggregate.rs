@@ -22,7 +22,7 @@ use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, Cell, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch, SEGMENT_ROLE};
 use crate::io::sink::TableSink;
-use crate::report::Summary;
+use crate::summary::Summary;
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use arrow_schema::DataType;
 use std::collections::HashMap;

@@ -15,7 +15,7 @@ pub mod segments;
 pub mod validate;
 
 use crate::error::{Error, Result};
-use crate::report::Summary;
+use crate::summary::Summary;
 use std::path::{Path, PathBuf};
 use validate::ColumnNames;
 

@@ -11,7 +11,7 @@ use super::{no_data_rows, roles, Job, PhaseClock, DEFAULT_BATCH_ROWS};
 use crate::error::{Error, Result};
 use crate::io::cells::cell_at;
 use crate::io::input::Input;
-use crate::report::Summary;
+use crate::summary::Summary;
 
 /// Fits the prior to a pair table; every row must be valid.
 pub fn run(job: &Job, weights: &str) -> Result<Summary> {

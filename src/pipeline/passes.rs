@@ -28,7 +28,7 @@ use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch};
 use crate::io::sink::TableSink;
-use crate::report::Summary;
+use crate::summary::Summary;
 use arrow_array::ArrayRef;
 use std::path::Path;
 

@@ -27,7 +27,7 @@ use crate::core::ranking::{
     TopMethod,
 };
 use crate::error::{Error, Result};
-use crate::report::{
+use crate::summary::{
     CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, SegmentTest, TestReport,
     VarianceReport,
 };
@@ -223,7 +223,7 @@ fn segment_prior<F: Family>(
 }
 
 /// A saved segment's key in the order of the run's segment columns.
-fn key_of_report(columns: &[String], saved: &crate::report::SegmentReport) -> SegmentKey {
+fn key_of_report(columns: &[String], saved: &crate::summary::SegmentReport) -> SegmentKey {
     columns.iter().map(|c| saved.key.get(c).cloned().flatten()).collect()
 }
 
@@ -381,7 +381,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
             "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, {}; raw-rate variance {:.2} times the expected). One prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags",
             checks.data,
             checks.calibration.statistic,
-            crate::report::p_value_text(checks.calibration.p_value),
+            crate::summary::p_value_text(checks.calibration.p_value),
             checks.raw_rate_variance.ratio.unwrap_or(f64::NAN)
         ));
     }

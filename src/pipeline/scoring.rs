@@ -12,7 +12,7 @@ use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns, Metadata, PairColumns, PairValues};
-use crate::report::{
+use crate::summary::{
     ColumnsReport, FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport,
 };
 use arrow_array::ArrayRef;
@@ -293,7 +293,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         })
         .collect();
     Summary {
-        format_version: crate::report::SUMMARY_FORMAT_VERSION,
+        format_version: crate::summary::SUMMARY_FORMAT_VERSION,
         model: job.model.name().to_string(),
         groups: scored.pairs.iter().map(|p| p.weight).sum::<f64>() as u64,
         rows_read: rows.read,

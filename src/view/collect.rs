@@ -6,7 +6,7 @@ use crate::core::model::{Model, SizeKind};
 use crate::error::{Error, Result};
 use crate::io::cells::{float_column, GroupColumn};
 use crate::io::input::Input;
-use crate::report::Summary;
+use crate::summary::Summary;
 use arrow_array::{Array, Float64Array};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;

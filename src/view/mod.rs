@@ -11,7 +11,7 @@ pub mod plots;
 use crate::core::model::{Model, RateLaw};
 use crate::error::{Error, Result};
 use crate::io::atomic::stage_bytes;
-use crate::report::Summary;
+use crate::summary::Summary;
 use std::path::Path;
 
 /// What a report is drawn from and where it goes.

@@ -6,7 +6,7 @@ use super::plots;
 use super::Figure;
 use crate::core::model::{Model, RateLaw, SizeKind};
 use crate::error::Result;
-use crate::report::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary};
+use crate::summary::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary};
 use std::fmt::Write;
 
 /// Segments drawn with a plot of their own; the rest are in the table only.

@@ -1,0 +1,578 @@
+//! The run summary's JSON wire format (written last, so its presence means
+//! the table beside it is complete), and how its figures are written in
+//! words (p-values, plain decimals) wherever they are shown.
+//!
+//! These types are the file format; the numerical core never sees them. They
+//! sit above the pipeline, which fills them, and the report layers, which
+//! show them.
+
+use serde::{Deserialize, Serialize};
+
+/// The version of the summary's layout that this build writes. Version 1
+/// (files without the key) kept the prior under `hyperprior` and the flag
+/// level under `flags.bound`, both still read; its `top.best` is now the
+/// summary's `rank_order`.
+pub const SUMMARY_FORMAT_VERSION: u32 = 2;
+
+/// The whole summary file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Summary {
+    /// The layout's version ([`SUMMARY_FORMAT_VERSION`] when written; 1 in
+    /// files from before it was recorded).
+    #[serde(default = "first_format")]
+    pub format_version: u32,
+    /// "beta-binomial", "gamma-poisson" or "normal-normal".
+    pub model: String,
+    /// Groups scored.
+    pub groups: u64,
+    /// Data rows in the input.
+    pub rows_read: u64,
+    /// Rows rejected by validation (only with `--on-invalid skip`).
+    pub rows_rejected: u64,
+    /// Credible level of the intervals.
+    pub level: f64,
+    /// "plug-in" (the fitted prior taken as known) or "corrected" (Kass and
+    /// Steffey's first-order correction for its estimation).
+    #[serde(default = "plug_in")]
+    pub intervals: String,
+    /// The prior: fitted to the data in a `fit`, read from the prior file in a `score`.
+    #[serde(rename = "prior", alias = "hyperprior")]
+    pub fitted_prior: FittedPrior,
+    /// How the prior was obtained.
+    pub fit: FitReport,
+    /// How far the groups were pulled toward the pool.
+    pub pull: PullReport,
+    /// The segment columns of `--by` (empty: one prior for all groups).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub segment_columns: Vec<String>,
+    /// Per segment: its key, groups, prior, fit, pull and fallback reason.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub segments: Vec<SegmentReport>,
+    /// One prior for all groups against one per segment.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub segment_test: Option<SegmentTest>,
+    /// The thresholds of the exceedance columns, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub thresholds: Option<ThresholdReport>,
+    /// The flags under a posterior false-discovery rate, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub flags: Option<FlagReport>,
+    /// Does the model fit the data scored? Computed on the fitted data in a
+    /// `fit`, and on the scored data under the saved prior in a `score`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub checks: Option<ChecksReport>,
+    /// How `prob_top` was computed, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top: Option<TopReport>,
+    /// The input's column names, as the output table carries them; null
+    /// in files from before they were recorded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub columns: Option<ColumnsReport>,
+    /// "highest-first" or "lowest-first": the order of the ranks and of
+    /// `prob_top` (which rates are best); null without either.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub rank_order: Option<String>,
+    /// Conditions a reader must know about (boundary results, rejected rows).
+    pub warnings: Vec<String>,
+}
+
+/// The names of the group, count and size columns of a run.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ColumnsReport {
+    /// The group id column.
+    pub group: String,
+    /// The count column (successes, events or estimates).
+    pub count: String,
+    /// The size column (trials, exposure or standard errors).
+    pub size: String,
+}
+
+/// Checks of the model against the data scored.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ChecksReport {
+    /// "the fitted data", or "the scored data under the saved prior".
+    pub data: String,
+    /// Log marginal likelihood of these data under the prior in use.
+    pub log_marginal_likelihood: f64,
+    /// The same per group.
+    pub log_marginal_likelihood_per_group: f64,
+    /// The overdispersion score test on these data.
+    pub overdispersion_test: TestReport,
+    /// Randomised probability integral transform of each count in its prior predictive.
+    pub calibration: CalibrationReport,
+    /// Variance of the raw rates around their prior means: observed and expected.
+    pub raw_rate_variance: VarianceReport,
+    /// "fits", or "poor fit" with the reason in the warnings.
+    pub verdict: String,
+}
+
+/// The calibration histogram and its test.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CalibrationReport {
+    /// Groups in each tenth of (0, 1); equal under the model, up to noise.
+    pub bins: Vec<u64>,
+    /// Pearson's chi-square against equal bins.
+    pub statistic: f64,
+    /// Degrees of freedom (9).
+    pub degrees_of_freedom: u64,
+    /// Upper chi-square tail.
+    pub p_value: f64,
+    /// Groups located (all, or a seeded sample of 100,000).
+    pub groups: u64,
+    /// Seed of the randomisation.
+    pub seed: u64,
+}
+
+/// Observed against expected variance of the raw rates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VarianceReport {
+    /// Mean squared difference of raw rate and prior mean, over groups with data.
+    pub observed: f64,
+    /// Its expectation under the prior predictive.
+    pub expected: f64,
+    /// observed / expected: near 1 when the prior's spread is right (null
+    /// when no group has data or no variance is expected).
+    pub ratio: Option<f64>,
+}
+
+/// `prob_top`: the probability of being among the K best rates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TopReport {
+    /// K (which rates are best: the summary's `rank_order`).
+    pub k: u64,
+    /// "draws" (joint draws from every posterior) or "threshold".
+    pub method: String,
+    /// Draws made (method "draws").
+    pub draws: Option<u64>,
+    /// Seed of the draws (method "draws").
+    pub seed: Option<u64>,
+    /// The threshold c with K groups expected beyond it (method "threshold").
+    pub threshold: Option<f64>,
+}
+
+/// One segment of a run with `--by`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SegmentReport {
+    /// Segment column to value (null for a null value).
+    pub key: std::collections::BTreeMap<String, Option<String>>,
+    /// Groups in the segment.
+    pub groups: u64,
+    /// The prior its groups were scored with (the all-groups prior on a fallback).
+    #[serde(rename = "prior", alias = "hyperprior")]
+    pub fitted_prior: FittedPrior,
+    /// Its own fit; null when it fell back to the all-groups prior.
+    pub fit: Option<FitReport>,
+    /// How far its groups were pulled.
+    pub pull: PullReport,
+    /// Why it took the all-groups prior; null when it has its own.
+    pub fallback: Option<String>,
+    /// Does the prior it was scored with fit its groups (its own checks)?
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub checks: Option<ChecksReport>,
+}
+
+/// A likelihood-ratio test of one prior for all groups against one per segment.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SegmentTest {
+    /// What is tested.
+    pub name: String,
+    /// Twice the gain in log marginal likelihood.
+    pub statistic: f64,
+    /// Degrees of freedom of the chi-square reference.
+    pub degrees_of_freedom: u64,
+    /// Upper tail of the chi-square distribution at the statistic.
+    pub p_value: f64,
+}
+
+/// The thresholds T of `prob_above` (P(rate > T)) and `prob_below` (P(rate < T)).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ThresholdReport {
+    /// T of `prob_above`.
+    pub above: Option<f64>,
+    /// T of `prob_below`.
+    pub below: Option<f64>,
+}
+
+/// What was flagged, and how many flags are expected to be false.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FlagReport {
+    /// "above" or "below": the event flagged.
+    pub event: String,
+    /// The threshold of the event.
+    pub threshold: f64,
+    /// Q, the false-discovery level: the bound on the mean posterior
+    /// probability of no event among the flagged.
+    #[serde(alias = "bound")]
+    pub fdr_level: f64,
+    /// Groups flagged.
+    pub groups_flagged: u64,
+    /// The expected number of flagged groups where the event does not hold.
+    pub expected_false_flags: f64,
+}
+
+fn first_format() -> u32 {
+    1
+}
+
+fn plug_in() -> String {
+    "plug-in".to_string()
+}
+
+/// The prior, in the parameters of its model.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(untagged)]
+pub enum FittedPrior {
+    /// Beta(alpha, beta) of the beta-binomial.
+    Beta(BetaPrior),
+    /// Gamma(shape, rate) of the gamma-Poisson.
+    Gamma(GammaPrior),
+    /// Normal(mean, variance) of the normal-normal model.
+    Normal(NormalPrior),
+}
+
+/// Normal prior N(μ, τ²); τ² is 0 and the strength null under complete pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct NormalPrior {
+    /// Prior mean μ.
+    pub mean: f64,
+    /// Standard error of the mean.
+    pub mean_se: f64,
+    /// Prior variance τ² of the groups' true values (0: no variation beyond
+    /// the standard errors).
+    pub variance: f64,
+    /// Standard error of τ² (observed information); null at τ² = 0.
+    pub variance_se: Option<f64>,
+    /// Strength 1/τ² (the prior's precision); null when τ² = 0.
+    pub strength: Option<f64>,
+    /// Standard error of the strength.
+    pub strength_se: Option<f64>,
+}
+
+/// Beta prior; alpha and beta are null under complete pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BetaPrior {
+    /// α.
+    pub alpha: Option<f64>,
+    /// β.
+    pub beta: Option<f64>,
+    /// Standard error of α (observed information).
+    pub alpha_se: Option<f64>,
+    /// Standard error of β.
+    pub beta_se: Option<f64>,
+    /// Prior mean α/(α+β).
+    pub mean: f64,
+    /// Standard error of the mean.
+    pub mean_se: f64,
+    /// Strength α+β; null when infinite (no overdispersion).
+    pub strength: Option<f64>,
+    /// Standard error of the strength.
+    pub strength_se: Option<f64>,
+}
+
+/// Gamma prior; shape and rate are null under complete pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GammaPrior {
+    /// Shape a.
+    pub shape: Option<f64>,
+    /// Rate b.
+    pub rate: Option<f64>,
+    /// Standard error of the shape.
+    pub shape_se: Option<f64>,
+    /// Standard error of the rate.
+    pub rate_se: Option<f64>,
+    /// Prior mean a/b.
+    pub mean: f64,
+    /// Standard error of the mean.
+    pub mean_se: f64,
+    /// Strength b (in units of exposure); null when infinite.
+    pub strength: Option<f64>,
+    /// Standard error of the strength.
+    pub strength_se: Option<f64>,
+}
+
+/// The optimiser's account of the fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitReport {
+    /// "fit" when fitted in this run, otherwise the prior file it came from.
+    pub source: String,
+    /// Full log probability of the data at the result (normalising constants included).
+    pub log_marginal_likelihood: f64,
+    /// The same at the method-of-moments start.
+    pub start_log_marginal_likelihood: f64,
+    /// Whether the convergence tests passed.
+    pub converged: bool,
+    /// Iterations used.
+    pub iterations: u64,
+    /// Per-group gradient norm at the result (at the boundary: with respect
+    /// to the mean, 0 at the pooled rate).
+    pub gradient_norm: f64,
+    /// "none" or "no-overdispersion".
+    pub boundary: String,
+    /// Score test for overdispersion.
+    pub overdispersion_test: TestReport,
+    /// At the boundary: the per-group score ∂ℓ/∂(1/strength) there (at most
+    /// 0 where the boundary is a maximum); null for an interior maximum.
+    #[serde(default)]
+    pub boundary_score: Option<f64>,
+    /// The likelihood maximised: "marginal", or "restricted" (REML, with
+    /// `--variance-method reml`).
+    #[serde(default = "marginal")]
+    pub likelihood: String,
+    /// The maximised restricted log likelihood, when that was the criterion
+    /// (`log_marginal_likelihood` is then the marginal one at the estimate).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub restricted_log_likelihood: Option<f64>,
+    /// Likelihood-ratio test against complete pooling (p-value from the 50:50
+    /// mixture of chi-square(0) and chi-square(1); of restricted likelihoods
+    /// under REML); null in older files.
+    #[serde(default)]
+    pub pooling_test: Option<TestReport>,
+    /// With corrected intervals of a fit of at most 20,000 groups: the
+    /// median bias of the working coordinates by parametric bootstrap
+    /// (the quadrature nodes are centred on the fit less it); null otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub working_bias: Option<[f64; 2]>,
+    /// Covariance of the working coordinates (inverse observed information)
+    /// of an interior fit, for corrected intervals; null at the boundary.
+    #[serde(default)]
+    pub working_covariance: Option<[[f64; 2]; 2]>,
+}
+
+fn marginal() -> String {
+    "marginal".to_string()
+}
+
+/// A test statistic with its p-value.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TestReport {
+    /// Name of the test.
+    pub name: String,
+    /// The statistic (standardised for a score test).
+    pub statistic: f64,
+    /// Its p-value (one-sided for a score test).
+    pub p_value: f64,
+}
+
+/// Pull toward the pool.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PullReport {
+    /// Mean pool weight.
+    pub pool_weight_mean: f64,
+    /// Median pool weight.
+    pub pool_weight_median: f64,
+    /// 10th percentile of the pool weight.
+    pub pool_weight_p10: f64,
+    /// 90th percentile of the pool weight.
+    pub pool_weight_p90: f64,
+    /// Mean |posterior mean − raw rate|.
+    pub mean_abs_shift: Option<f64>,
+    /// Largest |posterior mean − raw rate|.
+    pub max_abs_shift: Option<f64>,
+    /// Group id with the largest shift.
+    pub max_shift_group: Option<String>,
+    /// Spearman correlation of the raw and posterior-mean rankings.
+    pub rank_correlation: Option<f64>,
+}
+
+/// A prior's figures, whatever its model: the natural parameters in
+/// the model's order (absent under complete pooling) and the summaries.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FittedPriorParts {
+    /// (alpha, beta) or (shape, rate).
+    pub natural: Option<[f64; 2]>,
+    /// Their standard errors.
+    pub natural_se: Option<[f64; 2]>,
+    /// Prior mean.
+    pub mean: f64,
+    /// Its standard error.
+    pub mean_se: f64,
+    /// Prior strength, None when infinite.
+    pub strength: Option<f64>,
+    /// Its standard error.
+    pub strength_se: Option<f64>,
+}
+
+impl FittedPrior {
+    /// The wire form of a prior of the model named `model`: the one
+    /// place that knows which form each model's prior takes in the file.
+    pub fn of_model(model: &str, parts: FittedPriorParts) -> Option<Self> {
+        let (first, second) = (parts.natural.map(|n| n[0]), parts.natural.map(|n| n[1]));
+        let (first_se, second_se) = (parts.natural_se.map(|n| n[0]), parts.natural_se.map(|n| n[1]));
+        let (mean, mean_se, strength, strength_se) =
+            (parts.mean, parts.mean_se, parts.strength, parts.strength_se);
+        match model {
+            "beta-binomial" => Some(FittedPrior::Beta(BetaPrior {
+                alpha: first,
+                beta: second,
+                alpha_se: first_se,
+                beta_se: second_se,
+                mean,
+                mean_se,
+                strength,
+                strength_se,
+            })),
+            "gamma-poisson" => Some(FittedPrior::Gamma(GammaPrior {
+                shape: first,
+                rate: second,
+                shape_se: first_se,
+                rate_se: second_se,
+                mean,
+                mean_se,
+                strength,
+                strength_se,
+            })),
+            "normal-normal" => Some(FittedPrior::Normal(NormalPrior {
+                mean,
+                mean_se,
+                variance: second.unwrap_or(0.0),
+                variance_se: second_se,
+                strength,
+                strength_se,
+            })),
+            _ => None,
+        }
+    }
+
+    /// The name of the model whose prior this is.
+    pub fn model(&self) -> &'static str {
+        match self {
+            FittedPrior::Beta(_) => "beta-binomial",
+            FittedPrior::Gamma(_) => "gamma-poisson",
+            FittedPrior::Normal(_) => "normal-normal",
+        }
+    }
+
+    /// The natural parameters as written (either may be missing in a file).
+    pub fn natural(&self) -> (Option<f64>, Option<f64>) {
+        match self {
+            FittedPrior::Beta(p) => (p.alpha, p.beta),
+            FittedPrior::Gamma(p) => (p.shape, p.rate),
+            FittedPrior::Normal(p) => match p.strength {
+                Some(_) => (Some(p.mean), Some(p.variance)),
+                None => (None, None),
+            },
+        }
+    }
+
+    /// Prior mean.
+    pub fn mean(&self) -> f64 {
+        match self {
+            FittedPrior::Beta(p) => p.mean,
+            FittedPrior::Gamma(p) => p.mean,
+            FittedPrior::Normal(p) => p.mean,
+        }
+    }
+
+    /// Standard error of the prior mean.
+    pub fn mean_se(&self) -> f64 {
+        match self {
+            FittedPrior::Beta(p) => p.mean_se,
+            FittedPrior::Gamma(p) => p.mean_se,
+            FittedPrior::Normal(p) => p.mean_se,
+        }
+    }
+
+    /// Prior strength, None when infinite.
+    pub fn strength(&self) -> Option<f64> {
+        match self {
+            FittedPrior::Beta(p) => p.strength,
+            FittedPrior::Gamma(p) => p.strength,
+            FittedPrior::Normal(p) => p.strength,
+        }
+    }
+}
+
+/// A figure of ordinary size in plain decimals (four places: `25.2490`,
+/// `0.0396`); only the very small or very large in scientific notation.
+pub fn plain(value: f64) -> String {
+    let magnitude = value.abs();
+    if value == 0.0 || (1e-3..1e7).contains(&magnitude) || !value.is_finite() {
+        format!("{value:.4}")
+    } else {
+        format!("{value:.4e}")
+    }
+}
+
+/// A standard error or other small positive figure to three significant
+/// digits in plain decimals (`0.000968`, `1.78`), scientific only below 1e-4
+/// or from 1e7.
+pub fn three_digits(value: f64) -> String {
+    let magnitude = value.abs();
+    if value == 0.0 || !value.is_finite() {
+        return format!("{value}");
+    }
+    if !(1e-4..1e7).contains(&magnitude) {
+        return format!("{value:.2e}");
+    }
+    let decimals = (2 - magnitude.log10().floor() as i32).max(0) as usize;
+    format!("{value:.decimals$}")
+}
+
+/// A p-value as people write it: two significant digits (`p = 0.18`,
+/// `p = 0.20`, `p = 0.0023`, `p = 2.3e-29`), `p = 1` at one, and `p < 1e-300` where
+/// double precision cannot tell it from zero.
+pub fn p_value_text(p: f64) -> String {
+    match p_value_figure(p) {
+        figure if figure.starts_with('<') => format!("p {figure}"),
+        figure if p.is_nan() => format!("p {figure}"),
+        figure => format!("p = {figure}"),
+    }
+}
+
+/// The figure of [`p_value_text`] alone, for a table cell: `0.18`,
+/// `2.3e-29`, `< 1e-300`.
+pub fn p_value_figure(p: f64) -> String {
+    if p.is_nan() {
+        return "not computed".to_string();
+    }
+    if p <= 1e-300 {
+        return "< 1e-300".to_string();
+    }
+    if p < 1e-3 {
+        return format!("{p:.1e}");
+    }
+    let decimals = (1 - p.log10().floor() as i32).max(0) as usize;
+    // Two significant digits, zeros kept (`0.20`), but one is `1`.
+    if p >= 1.0 {
+        return "1".to_string();
+    }
+    format!("{p:.decimals$}")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn p_values_read_as_people_write_them() {
+        let cases = [
+            (0.1807, "p = 0.18"),
+            (1.0, "p = 1"),
+            (0.5, "p = 0.50"),
+            (0.2035, "p = 0.20"),
+            (0.9996, "p = 1.00"),
+            (0.0179, "p = 0.018"),
+            (0.00234, "p = 0.0023"),
+            (1.206e-29, "p = 1.2e-29"),
+            (0.0, "p < 1e-300"),
+            (1e-320, "p < 1e-300"),
+        ];
+        for (p, text) in cases {
+            assert_eq!(p_value_text(p), text, "{p}");
+        }
+    }
+
+    #[test]
+    fn figures_of_ordinary_size_are_plain_decimals() {
+        assert_eq!(plain(25.2490), "25.2490");
+        assert_eq!(plain(0.0396), "0.0396");
+        assert_eq!(plain(1.5e-6), "1.5000e-6");
+        assert_eq!(three_digits(9.68e-4), "0.000968");
+        assert_eq!(three_digits(0.231), "0.231");
+        assert_eq!(three_digits(1.782), "1.78");
+        assert_eq!(three_digits(3.2e-6), "3.20e-6");
+    }
+}
