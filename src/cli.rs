@@ -989,7 +989,8 @@ fn check_job_file(path: &std::path::Path, asked: Option<&str>) -> Result<String>
     use crate::config::{mistakes_error, JobFile};
     use clap::{CommandFactory, Parser};
     let file = JobFile::read(path)?;
-    let command = crate::config::command_of(&file, asked);
+    // The subcommand asked for, else the file's `command` key, else fit.
+    let command = asked.or(file.command()).unwrap_or("fit");
     let arguments = file.arguments(&Cli::command(), command).map_err(|m| mistakes_error(path, &m))?;
     let mut full = vec!["ratepool".to_string(), command.to_string()];
     full.extend(arguments.iter().cloned());

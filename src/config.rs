@@ -268,12 +268,6 @@ pub fn mistakes_error(path: &Path, mistakes: &[Mistake]) -> Error {
     Error::Usage(lines.join("\n"))
 }
 
-/// The subcommand a job file describes: the one asked for, else its
-/// `command` key, else fit.
-pub fn command_of<'a>(file: &'a JobFile, asked: Option<&'a str>) -> &'a str {
-    asked.or(file.command()).unwrap_or("fit")
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;

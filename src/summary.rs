@@ -102,8 +102,44 @@ pub struct ChecksReport {
     pub calibration: CalibrationReport,
     /// Variance of the raw rates around their prior means: observed and expected.
     pub raw_rate_variance: VarianceReport,
-    /// "fits", or "poor fit" with the reason in the warnings.
+    /// [`VERDICT_FITS`], [`VERDICT_POOR_FIT`] (with the reason in the
+    /// warnings), or, below [`MIN_GROUPS_TO_JUDGE`] groups, the words of
+    /// [`ChecksReport::too_few_to_judge`].
     pub verdict: String,
+}
+
+/// The calibration's verdict when the groups sit evenly in their predictive distributions.
+pub const VERDICT_FITS: &str = "fits";
+/// The calibration's verdict when its p-value is below 0.001.
+pub const VERDICT_POOR_FIT: &str = "poor fit";
+/// Below this many groups the calibration gives no verdict: ten bins need
+/// about five groups each for Pearson's chi-square to hold (common practice).
+pub const MIN_GROUPS_TO_JUDGE: u64 = 50;
+/// How the verdict of too few groups begins.
+const TOO_FEW: &str = "too few groups to judge";
+
+impl ChecksReport {
+    /// The verdict of a calibration over `groups` groups at p-value `p`,
+    /// poor below `poor_below`.
+    pub fn verdict_of(groups: u64, p: f64, poor_below: f64) -> String {
+        if groups < MIN_GROUPS_TO_JUDGE {
+            format!("{TOO_FEW} (fewer than {MIN_GROUPS_TO_JUDGE})")
+        } else if p < poor_below {
+            VERDICT_POOR_FIT.to_string()
+        } else {
+            VERDICT_FITS.to_string()
+        }
+    }
+
+    /// The calibration found a poor fit.
+    pub fn poor_fit(&self) -> bool {
+        self.verdict == VERDICT_POOR_FIT
+    }
+
+    /// The groups were too few for the calibration to judge.
+    pub fn too_few_to_judge(&self) -> bool {
+        self.verdict.starts_with(TOO_FEW)
+    }
 }
 
 /// The calibration histogram and its test.

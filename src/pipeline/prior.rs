@@ -376,7 +376,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
     let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
-    if checks.verdict == "poor fit" {
+    if checks.poor_fit() {
         warnings.push(format!(
             "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, {}; raw-rate variance {:.2} times the expected). One prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags",
             checks.data,
@@ -435,7 +435,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     } else {
         Vec::new()
     };
-    let poor = scores.iter().filter(|s| s.checks.verdict == "poor fit").count();
+    let poor = scores.iter().filter(|s| s.checks.poor_fit()).count();
     if poor > 0 {
         warnings.push(format!(
             "the prior does not describe the groups of {poor} of {} segments well (their calibration p-value is below 0.001; the summary's segments hold each one's checks): look at those segments for mixed kinds of group",
@@ -484,10 +484,6 @@ fn bias_of<F: Family>(job: &Job, chosen: &Chosen, table: &PairTable, salt: u64) 
 /// A calibration p-value below this calls the fit poor: a false alarm one
 /// time in a thousand when the model holds.
 const POOR_FIT_P: f64 = 1e-3;
-
-/// Below this many groups the calibration gives no verdict: ten bins need
-/// about five groups each for Pearson's chi-square to hold (common practice).
-const MIN_GROUPS_TO_JUDGE: u64 = 50;
 
 /// The checks of the model against the data scored (each pair under its
 /// prior): log marginal likelihood, the overdispersion test, the calibration
@@ -538,13 +534,7 @@ fn model_checks<F: Family>(
             statistic: z,
             p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
         },
-        verdict: if calibration.groups < MIN_GROUPS_TO_JUDGE {
-            format!("too few groups to judge (fewer than {MIN_GROUPS_TO_JUDGE})")
-        } else if calibration.p_value < POOR_FIT_P {
-            "poor fit".to_string()
-        } else {
-            "fits".to_string()
-        },
+        verdict: ChecksReport::verdict_of(calibration.groups, calibration.p_value, POOR_FIT_P),
         calibration: CalibrationReport {
             bins: calibration.bins.to_vec(),
             statistic: calibration.statistic,

@@ -6,7 +6,7 @@ use super::plots;
 use super::Figure;
 use crate::core::model::{Model, RateLaw, SizeKind};
 use crate::error::Result;
-use crate::summary::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary};
+use crate::summary::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary, MIN_GROUPS_TO_JUDGE};
 use std::fmt::Write;
 
 /// Segments drawn with a plot of their own; the rest are in the table only.
@@ -201,12 +201,12 @@ fn checks_text(checks: &ChecksReport) -> String {
     let variance = checks.raw_rate_variance.ratio.map_or(String::new(), |r| {
         format!(" The raw values vary {} times as much as the prior predicts.", num(r))
     });
-    if checks.verdict.starts_with("too few") {
+    if checks.too_few_to_judge() {
         format!(
-            "Calibration: {} groups are too few to judge whether one prior describes them (the check needs at least 50, about five for each tenth).",
+            "Calibration: {} groups are too few to judge whether one prior describes them (the check needs at least {MIN_GROUPS_TO_JUDGE}, about five for each tenth).",
             calibration.groups
         )
-    } else if checks.verdict == "fits" {
+    } else if !checks.poor_fit() {
         format!(
             "Calibration: the groups sit evenly in their prior predictive distributions (chi-square {} on 9 df, {}): one prior describes them.{variance}",
             num(calibration.statistic),
@@ -352,9 +352,9 @@ fn figure_html(figure: &Figure, out: &mut String) {
 pub fn cautions(summary: &Summary) -> Vec<String> {
     let mut cautions = Vec::new();
     if let Some(checks) = &summary.checks {
-        if checks.verdict == "poor fit" {
+        if checks.poor_fit() {
             cautions.push("The calibration check found a poor fit: one prior does not describe these groups, and every posterior, rank and flag leans on it. Look for groups of different kinds (fit per segment with --by) before acting on any result.".to_string());
-        } else if checks.verdict.starts_with("too few") {
+        } else if checks.too_few_to_judge() {
             cautions.push(format!("With {} groups the calibration check cannot judge whether one prior describes them: the results lean on a prior that nothing here has checked.", checks.calibration.groups));
         }
     }

@@ -187,96 +187,53 @@ fn a_duckdb_join_of_the_pair_output_gives_the_row_output() {
     }
 }
 
+/// The largest difference over all groups between `exact` and the prob_top of `ratepool
+/// score` of `input` (the demo sellers' columns) under `prior`, K = `k`, by `method` with
+/// 2,000 draws.
+fn largest_top_difference(prior: &str, input: &Path, k: &str, method: &str, exact: &[f64]) -> f64 {
+    let dir = tempfile::tempdir().unwrap();
+    let prior = crate::util::fixture(prior);
+    let mut args =
+        vec!["--quiet", "score", "--prior", prior.to_str().unwrap(), "--input", input.to_str().unwrap()];
+    args.extend(["--group", "seller_id", "--successes", "positive_ratings", "--trials", "total_ratings"]);
+    args.extend(["--top", k, "--top-method", method, "--top-draws", "2000", "--output", "top.csv"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let got = Csv::read(&dir.path().join("top.csv")).floats("prob_top");
+    let worst = paired(&got, exact, method).map(|(g, e)| (g - e).abs()).fold(0.0, f64::max);
+    println!(
+        "prob_top by {method} over {} sellers, K = {k}: largest difference from the exact {worst:.5}",
+        exact.len()
+    );
+    worst
+}
+
 #[test]
 fn prob_top_by_both_methods_matches_the_exact_integral_over_2000_and_20000_sellers() {
-    // Source: tests/fixtures/top_exact (scripts/make_top_reference.py): the first 2,000 demo
-    // sellers, K = 5, under the prior saved in prior.json; the exact P(among the 5 highest) by
-    // scipy's beta posteriors, the Poisson-binomial recursion over the other sellers and the
-    // trapezoid rule on a fine logit grid (the values sum to K within 3e-12).
+    // Source: tests/fixtures/top_exact (scripts/make_top_reference.py): the exact P(among the K
+    // highest) by scipy's beta posteriors, the Poisson-binomial recursion over the other sellers
+    // and the trapezoid rule on a fine logit grid (the values sum to K within 3e-12), for the
+    // first 2,000 demo sellers with K = 5 (prior.json) and all 20,000 with K = 20 (prior-all.json).
     let reference = json_fixture("top_exact/exact.json");
-    let exact: Vec<f64> =
-        reference["prob_top"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
-    assert_eq!(exact.len(), 2000);
-    let (sellers, prior) =
-        (crate::util::fixture("top_exact/sellers.csv"), crate::util::fixture("top_exact/prior.json"));
-    let dir = tempfile::tempdir().unwrap();
-    // The README's figures for this case, with a margin of 2: 2,000 draws 0.00039, the threshold 0.00065.
-    for (method, readme) in [("draws", 0.00039), ("threshold", 0.00065)] {
-        let args = [
-            "--quiet",
-            "score",
-            "--prior",
-            prior.to_str().unwrap(),
-            "--input",
-            sellers.to_str().unwrap(),
-            "--group",
-            "seller_id",
-            "--successes",
-            "positive_ratings",
-            "--trials",
-            "total_ratings",
-            "--top",
-            "5",
-            "--top-method",
-            method,
-            "--top-draws",
-            "2000",
-            "--output",
-            "top.csv",
-        ];
-        let out = ratepool(dir.path(), &args);
-        assert!(out.status.success(), "{}", stderr(&out));
-        let got = Csv::read(&dir.path().join("top.csv")).floats("prob_top");
-        let worst = paired(&got, &exact, method).map(|(g, e)| (g - e).abs()).fold(0.0, f64::max);
-        println!(
-            "prob_top by {method} over 2,000 sellers, K = 5: largest difference from the exact {worst:.5}"
-        );
-        assert!(worst <= 2.0 * readme, "{method}: the README says {readme}; largest difference {worst}");
-    }
-    // All 20,000 demo sellers with K = 20 under the prior fitted to them (prior-all.json): the
-    // README's 0.00059 for 2,000 draws and 0.0015 for the threshold, the method's own regime
-    // of many groups, with a margin of 2.
-    let all: Vec<f64> = reference["all_sellers"]["prob_top"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|v| v.as_f64().unwrap())
-        .collect();
-    assert_eq!(all.len(), 20_000);
-    let (demo, prior) = (
-        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/marketplace.csv"),
-        crate::util::fixture("top_exact/prior-all.json"),
-    );
-    for (method, readme) in [("threshold", 0.0015), ("draws", 0.00059)] {
-        let args = [
-            "--quiet",
-            "score",
-            "--prior",
-            prior.to_str().unwrap(),
-            "--input",
-            demo.to_str().unwrap(),
-            "--group",
-            "seller_id",
-            "--successes",
-            "positive_ratings",
-            "--trials",
-            "total_ratings",
-            "--top",
-            "20",
-            "--top-method",
-            method,
-            "--top-draws",
-            "2000",
-            "--output",
-            "all.csv",
-        ];
-        let out = ratepool(dir.path(), &args);
-        assert!(out.status.success(), "{}", stderr(&out));
-        let got = Csv::read(&dir.path().join("all.csv")).floats("prob_top");
-        let worst = paired(&got, &all, method).map(|(g, e)| (g - e).abs()).fold(0.0, f64::max);
-        println!(
-            "prob_top by {method} over 20,000 sellers, K = 20: largest difference from the exact {worst:.5}"
-        );
-        assert!(worst <= 2.0 * readme, "{method}: the README says {readme}; largest difference {worst}");
+    let values = |v: &serde_json::Value| -> Vec<f64> {
+        v.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect()
+    };
+    let (first, all) = (values(&reference["prob_top"]), values(&reference["all_sellers"]["prob_top"]));
+    assert_eq!((first.len(), all.len()), (2000, 20_000));
+    let sellers = crate::util::fixture("top_exact/sellers.csv");
+    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/marketplace.csv");
+    // Bounds at twice a measured figure. The README gives 0.00040 and 0.00066 (2,000 sellers) and
+    // 0.00059 and 0.0015 (20,000; the threshold's regime of many groups); the 2,000-seller bounds
+    // are twice the slightly smaller figures measured against 100,000 draws before (0.00039,
+    // 0.00065), kept so that no bound is loosened.
+    let cases = [
+        ("top_exact/prior.json", &sellers, "5", "draws", 0.00039, &first),
+        ("top_exact/prior.json", &sellers, "5", "threshold", 0.00065, &first),
+        ("top_exact/prior-all.json", &demo, "20", "threshold", 0.0015, &all),
+        ("top_exact/prior-all.json", &demo, "20", "draws", 0.00059, &all),
+    ];
+    for (prior, input, k, method, figure, exact) in cases {
+        let worst = largest_top_difference(prior, input, k, method, exact);
+        assert!(worst <= 2.0 * figure, "{method}, K = {k}: measured {figure}; largest difference {worst}");
     }
 }

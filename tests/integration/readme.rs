@@ -89,6 +89,12 @@ fn row<'a>(table: &'a Csv, group_column: &str, group: &str) -> impl Fn(&str) -> 
     move |column: &str| table.column(column)[at].parse().unwrap_or(f64::NAN)
 }
 
+/// The (mean, conservative) ranks of `group` in a CSV output.
+fn ranks(table: &Csv, group_column: &str, group: &str) -> (u64, u64) {
+    let of = row(table, group_column, group);
+    (of("rank_mean") as u64, of("rank_conservative") as u64)
+}
+
 /// `value` printed to `decimals` places is `text`.
 fn printed(value: f64, decimals: usize, text: &str) {
     assert_eq!(format!("{value:.decimals$}"), text, "{value}");
@@ -112,15 +118,11 @@ fn the_marketplace_figures_in_the_prose() {
     printed(seller("raw_proportion"), 3, "0.678");
     printed(seller("posterior_mean"), 3, "0.681");
     printed(seller("pool_weight"), 3, "0.016");
-    let ranks = |id: &str| {
-        let seller = row(&table, "seller_id", id);
-        (seller("rank_mean") as u64, seller("rank_conservative") as u64)
-    };
-    assert_eq!(ranks("seller-00001"), (7803, 9480));
-    assert_eq!(ranks("seller-06391"), (1, 1));
-    assert_eq!(ranks("seller-19835"), (2, 4));
+    assert_eq!(ranks(&table, "seller_id", "seller-00001"), (7803, 9480));
+    assert_eq!(ranks(&table, "seller_id", "seller-06391"), (1, 1));
+    assert_eq!(ranks(&table, "seller_id", "seller-19835"), (2, 4));
     // Fourth conservatively, behind seller-15439 (3,091 of 3,124), whose interval is narrower.
-    assert!(ranks("seller-15439").1 < 4);
+    assert!(ranks(&table, "seller_id", "seller-15439").1 < 4);
     let behind = row(&table, "seller_id", "seller-15439");
     assert_eq!((behind("positive_ratings"), behind("total_ratings")), (3091.0, 3124.0));
     let all_positive = table.column("raw_proportion").iter().filter(|r| r.parse() == Ok(1.0)).count();
@@ -196,12 +198,8 @@ fn the_returns_and_clinics_figures_in_the_prose() {
     printed(clinic("posterior_mean"), 2, "36.20");
     printed(clinic("pool_weight"), 3, "0.015");
     printed(clinic("prob_above"), 1, "1.0");
-    let ranks = |id: &str| {
-        let clinic = row(&table, "clinic_id", id);
-        (clinic("rank_mean") as u64, clinic("rank_conservative") as u64)
-    };
-    assert_eq!(ranks("clinic-325"), (3, 13));
-    assert_eq!(ranks("clinic-338"), (1, 1));
+    assert_eq!(ranks(&table, "clinic_id", "clinic-325"), (3, 13));
+    assert_eq!(ranks(&table, "clinic_id", "clinic-338"), (1, 1));
     let s = summary(&dir.path().join("c.json"));
     printed(s["prior"]["mean"].as_f64().unwrap(), 2, "24.18");
     printed(s["prior"]["variance"].as_f64().unwrap().sqrt(), 2, "5.02");

@@ -9,28 +9,53 @@ fn demo(name: &str) -> String {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data").join(name).to_str().unwrap().to_string()
 }
 
+/// `ratepool fit` of a demo file with its model and columns, then `extra`.
+fn demo_fit(dir: &Path, file: &str, model: &[&str], extra: &[&str]) -> std::process::Output {
+    let input = demo(file);
+    ratepool(dir, &[&["fit", "--input", &input], model, extra].concat())
+}
+
+const MARKETPLACE: [&str; 8] = [
+    "--model",
+    "beta-binomial",
+    "--group",
+    "seller_id",
+    "--successes",
+    "positive_ratings",
+    "--trials",
+    "total_ratings",
+];
+const DISTRICTS: [&str; 8] = [
+    "--model",
+    "gamma-poisson",
+    "--group",
+    "district_id",
+    "--events",
+    "observed_cases",
+    "--exposure",
+    "expected_cases",
+];
+const CLINICS: [&str; 8] = [
+    "--model",
+    "normal-normal",
+    "--group",
+    "clinic_id",
+    "--estimate",
+    "mean_wait_minutes",
+    "--std-error",
+    "wait_se",
+];
+
 fn marketplace_fit(dir: &Path, extra: &[&str]) -> std::process::Output {
-    let input = demo("marketplace.csv");
-    let mut args = vec!["fit", "--input", &input, "--model", "beta-binomial", "--group", "seller_id"];
-    args.extend(["--successes", "positive_ratings", "--trials", "total_ratings"]);
-    args.extend(extra);
-    ratepool(dir, &args)
+    demo_fit(dir, "marketplace.csv", &MARKETPLACE, extra)
 }
 
 fn districts_fit(dir: &Path, extra: &[&str]) -> std::process::Output {
-    let input = demo("districts.csv");
-    let mut args = vec!["fit", "--input", &input, "--model", "gamma-poisson", "--group", "district_id"];
-    args.extend(["--events", "observed_cases", "--exposure", "expected_cases"]);
-    args.extend(extra);
-    ratepool(dir, &args)
+    demo_fit(dir, "districts.csv", &DISTRICTS, extra)
 }
 
 fn clinics_fit(dir: &Path, extra: &[&str]) -> std::process::Output {
-    let input = demo("clinic_waits.csv");
-    let mut args = vec!["fit", "--input", &input, "--model", "normal-normal", "--group", "clinic_id"];
-    args.extend(["--estimate", "mean_wait_minutes", "--std-error", "wait_se"]);
-    args.extend(extra);
-    ratepool(dir, &args)
+    demo_fit(dir, "clinic_waits.csv", &CLINICS, extra)
 }
 
 #[test]
@@ -293,46 +318,25 @@ fn refused(dir: &Path, args: &[&str], words: &[&str]) -> String {
 fn ordinary_mistakes_get_a_clear_answer() {
     let dir = tempfile::tempdir().unwrap();
     let (districts, marketplace) = (demo("districts.csv"), demo("marketplace.csv"));
+    // A fit of the demo districts as the gamma-Poisson model, then `extra`.
+    let fit_districts =
+        |extra: &[&'static str]| [&["fit", "--input", districts.as_str()][..], &DISTRICTS, extra].concat();
     let out = districts_fit(dir.path(), &["--quiet", "--output", "d.csv", "--summary", "d.json"]);
     assert!(out.status.success(), "{}", stderr(&out));
     // A prior file of another model.
     let score = [
-        "score",
-        "--prior",
-        "d.json",
-        "--input",
-        &marketplace,
-        "--group",
-        "seller_id",
-        "--successes",
-        "positive_ratings",
-        "--trials",
-        "total_ratings",
-        "--output",
-        "s.csv",
-    ];
+        &["score", "--prior", "d.json", "--input", marketplace.as_str()][..],
+        &MARKETPLACE[2..],
+        &["--output", "s.csv"],
+    ]
+    .concat();
     refused(
         dir.path(),
         &score,
         &["d.json: the prior file holds a gamma-poisson prior and this run asks for a beta-binomial one"],
     );
     // An output folder that does not exist: the folder named, no temporary file; exit 1 as any unwritable output.
-    let args = [
-        "fit",
-        "--input",
-        &districts,
-        "--model",
-        "gamma-poisson",
-        "--group",
-        "district_id",
-        "--events",
-        "observed_cases",
-        "--exposure",
-        "expected_cases",
-        "--output",
-        "missing/d.csv",
-    ];
-    let out = ratepool(dir.path(), &args);
+    let out = ratepool(dir.path(), &fit_districts(&["--output", "missing/d.csv"]));
     let text = stderr(&out);
     assert_eq!(out.status.code(), Some(1), "{text}");
     assert!(
@@ -343,23 +347,7 @@ fn ordinary_mistakes_get_a_clear_answer() {
     // A level given in percent.
     refused(
         dir.path(),
-        &[
-            "fit",
-            "--input",
-            &districts,
-            "--model",
-            "gamma-poisson",
-            "--group",
-            "district_id",
-            "--events",
-            "observed_cases",
-            "--exposure",
-            "expected_cases",
-            "--output",
-            "x.csv",
-            "--level",
-            "95",
-        ],
+        &fit_districts(&["--output", "x.csv", "--level", "95"]),
         &["--level must be strictly between 0 and 1, got 95; did you mean 0.95?"],
     );
     // Expected counts taken for trials.
@@ -370,23 +358,7 @@ fn ordinary_mistakes_get_a_clear_answer() {
     // K at least the number of groups.
     let text = refused(
         dir.path(),
-        &[
-            "fit",
-            "--input",
-            &districts,
-            "--model",
-            "gamma-poisson",
-            "--group",
-            "district_id",
-            "--events",
-            "observed_cases",
-            "--exposure",
-            "expected_cases",
-            "--top",
-            "3000",
-            "--output",
-            "top.csv",
-        ],
+        &fit_districts(&["--top", "3000", "--output", "top.csv"]),
         &["--top 3000 asks for the top 3000 of 3000 groups", "give K below 3000"],
     );
     assert!(!dir.path().join("top.csv").exists(), "{text}");
