@@ -1,9 +1,10 @@
 //! The command line: raw arguments (clap derive) and their translation into a
 //! validated [`Job`]. The library below never sees the parser.
 
+use crate::core::model::ModelTerms;
 use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
-use crate::pipeline::validate::{ColumnNames, SizeKind};
+use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
     load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Likelihood,
     Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule, Watch,
@@ -797,6 +798,12 @@ fn refuse(value: &Option<String>, flag: &str, model: Model) -> Result<()> {
 
 /// What a row is, and the count and size columns (read, or with `--outcome`
 /// the names the summed trials are written under).
+/// The names of the models whose terms pass `test`, joined by "or".
+fn models_where(test: impl Fn(&ModelTerms) -> bool) -> String {
+    let names: Vec<&str> = Model::ALL.iter().map(|m| m.terms()).filter(|t| test(t)).map(|t| t.name).collect();
+    names.join(" or ")
+}
+
 fn rows_and_columns(
     table: &TableArgs,
     model: Model,
@@ -808,7 +815,7 @@ fn rows_and_columns(
         (Some(_), _) | (None, true) if pair_counts => {
             refused(if table.aggregate { "--aggregate" } else { "--outcome" })
         }
-        (outcome, true) | (outcome @ Some(_), false) if !model.terms().size_kind.whole_counts() => {
+        (outcome, true) | (outcome @ Some(_), false) if !model.terms().count_rule.is_whole() => {
             Err(Error::Usage(format!(
                 "{} does not apply to the {} model: estimates and their standard errors cannot be summed; give one row per group",
                 if outcome.is_some() { "--outcome" } else { "--aggregate" },
@@ -816,9 +823,10 @@ fn rows_and_columns(
             )))
         }
         (Some(column), _) => {
-            if !model.terms().size_kind.whole_sizes() {
+            if !model.terms().size_rule.is_whole() {
                 return Err(Error::Usage(format!(
-                    "--outcome reads trials of 0 or 1, for the beta-binomial model, not {}",
+                    "--outcome reads trials of 0 or 1, for the {} model, not {}",
+                    models_where(|t| t.size_rule.is_whole()),
                     model.name()
                 )));
             }
@@ -1087,12 +1095,13 @@ impl Command {
                 refuse_overlaps(&args.table, None)?;
                 let likelihood = match args.variance_method {
                     VarianceMethodArg::Ml => Likelihood::Marginal,
-                    VarianceMethodArg::Reml if args.model.terms().size_kind == SizeKind::StandardError => {
+                    VarianceMethodArg::Reml if args.model.terms().restricted_likelihood => {
                         Likelihood::Restricted
                     }
                     VarianceMethodArg::Reml => {
                         return Err(Error::Usage(format!(
-                            "--variance-method reml applies to the normal-normal model, not {}",
+                            "--variance-method reml applies to the {} model, not {}",
+                            models_where(|t| t.restricted_likelihood),
                             args.model.name()
                         )))
                     }

@@ -1,6 +1,7 @@
 //! The short text of a run's summary shown on the terminal.
 
-use crate::summary::{p_value_text, plain, three_digits, FittedPrior, Summary};
+use crate::core::model::Model;
+use crate::summary::{p_value_text, plain, three_digits, Summary};
 use std::fmt::Write;
 
 fn show(value: Option<f64>) -> String {
@@ -17,13 +18,9 @@ pub fn render_text(summary: &Summary) -> String {
         "ratepool {}: {} groups scored ({} rows read, {} rejected)",
         summary.model, summary.groups, summary.rows_read, summary.rows_rejected
     );
-    let shape = match prior {
-        FittedPrior::Beta(p) => format!("Beta(alpha = {}, beta = {})", show(p.alpha), show(p.beta)),
-        FittedPrior::Gamma(p) => format!("Gamma(shape = {}, rate = {})", show(p.shape), show(p.rate)),
-        FittedPrior::Normal(p) => {
-            let se = p.variance_se.map_or_else(String::new, |se| format!(" (se {})", three_digits(se)));
-            format!("Normal(mean = {}, variance = {}{se})", plain(p.mean), plain(p.variance))
-        }
+    let shape = match Model::from_name(&summary.model) {
+        Some(model) => prior.shape_in_words(model.terms(), &show, &three_digits),
+        None => format!("a prior of the unknown model {}", summary.model),
     };
     let _ = writeln!(
         out,

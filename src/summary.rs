@@ -6,6 +6,7 @@
 //! sit above the pipeline, which fills them, and the report layers, which
 //! show them.
 
+use crate::core::model::{ModelTerms, PriorFigure, PriorKey};
 use serde::{Deserialize, Serialize};
 
 /// The version of the summary's layout that this build writes. Version 1
@@ -21,7 +22,7 @@ pub struct Summary {
     /// files from before it was recorded).
     #[serde(default = "first_format")]
     pub format_version: u32,
-    /// "beta-binomial", "gamma-poisson" or "normal-normal".
+    /// The model's name ([`crate::core::model::Model::name`]).
     pub model: String,
     /// Groups scored.
     pub groups: u64,
@@ -254,79 +255,49 @@ fn plug_in() -> String {
     "plug-in".to_string()
 }
 
-/// The prior, in the parameters of its model.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(untagged)]
-pub enum FittedPrior {
-    /// Beta(alpha, beta) of the beta-binomial.
-    Beta(BetaPrior),
-    /// Gamma(shape, rate) of the gamma-Poisson.
-    Gamma(GammaPrior),
-    /// Normal(mean, variance) of the normal-normal model.
-    Normal(NormalPrior),
+/// The prior, in the parameters of its model: the keys its family names
+/// ([`ModelTerms::prior_keys`]), in the family's order, each a number or
+/// null. Every family writes `mean`, `mean_se`, `strength` and `strength_se`;
+/// a prior read from a file is checked against its model with
+/// [`FittedPrior::check`] before use.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FittedPrior {
+    entries: Vec<(String, Option<f64>)>,
 }
 
-/// Normal prior N(μ, τ²); τ² is 0 and the strength null under complete pooling.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct NormalPrior {
-    /// Prior mean μ.
-    pub mean: f64,
-    /// Standard error of the mean.
-    pub mean_se: f64,
-    /// Prior variance τ² of the groups' true values (0: no variation beyond
-    /// the standard errors).
-    pub variance: f64,
-    /// Standard error of τ² (observed information); null at τ² = 0.
-    pub variance_se: Option<f64>,
-    /// Strength 1/τ² (the prior's precision); null when τ² = 0.
-    pub strength: Option<f64>,
-    /// Standard error of the strength.
-    pub strength_se: Option<f64>,
+impl Serialize for FittedPrior {
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeMap;
+        let mut map = serializer.serialize_map(Some(self.entries.len()))?;
+        for (key, value) in &self.entries {
+            map.serialize_entry(key, value)?;
+        }
+        map.end()
+    }
 }
 
-/// Beta prior; alpha and beta are null under complete pooling.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct BetaPrior {
-    /// α.
-    pub alpha: Option<f64>,
-    /// β.
-    pub beta: Option<f64>,
-    /// Standard error of α (observed information).
-    pub alpha_se: Option<f64>,
-    /// Standard error of β.
-    pub beta_se: Option<f64>,
-    /// Prior mean α/(α+β).
-    pub mean: f64,
-    /// Standard error of the mean.
-    pub mean_se: f64,
-    /// Strength α+β; null when infinite (no overdispersion).
-    pub strength: Option<f64>,
-    /// Standard error of the strength.
-    pub strength_se: Option<f64>,
-}
-
-/// Gamma prior; shape and rate are null under complete pooling.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct GammaPrior {
-    /// Shape a.
-    pub shape: Option<f64>,
-    /// Rate b.
-    pub rate: Option<f64>,
-    /// Standard error of the shape.
-    pub shape_se: Option<f64>,
-    /// Standard error of the rate.
-    pub rate_se: Option<f64>,
-    /// Prior mean a/b.
-    pub mean: f64,
-    /// Standard error of the mean.
-    pub mean_se: f64,
-    /// Strength b (in units of exposure); null when infinite.
-    pub strength: Option<f64>,
-    /// Standard error of the strength.
-    pub strength_se: Option<f64>,
+impl<'de> Deserialize<'de> for FittedPrior {
+    fn deserialize<D: serde::Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
+        struct Entries;
+        impl<'de> serde::de::Visitor<'de> for Entries {
+            type Value = FittedPrior;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str("a prior: keys with numbers or null, among them the mean")
+            }
+            fn visit_map<A: serde::de::MapAccess<'de>>(self, mut map: A) -> Result<FittedPrior, A::Error> {
+                let mut entries = Vec::new();
+                while let Some((key, value)) = map.next_entry::<String, Option<f64>>()? {
+                    entries.push((key, value));
+                }
+                let prior = FittedPrior { entries };
+                match prior.get("mean") {
+                    Some(_) => Ok(prior),
+                    None => Err(serde::de::Error::missing_field("mean")),
+                }
+            }
+        }
+        deserializer.deserialize_map(Entries)
+    }
 }
 
 /// The optimiser's account of the fit.
@@ -432,92 +403,110 @@ pub struct FittedPriorParts {
 }
 
 impl FittedPrior {
-    /// The wire form of a prior of the model named `model`: the one
-    /// place that knows which form each model's prior takes in the file.
-    pub fn of_model(model: &str, parts: FittedPriorParts) -> Option<Self> {
-        let (first, second) = (parts.natural.map(|n| n[0]), parts.natural.map(|n| n[1]));
-        let (first_se, second_se) = (parts.natural_se.map(|n| n[0]), parts.natural_se.map(|n| n[1]));
-        let (mean, mean_se, strength, strength_se) =
-            (parts.mean, parts.mean_se, parts.strength, parts.strength_se);
-        match model {
-            "beta-binomial" => Some(FittedPrior::Beta(BetaPrior {
-                alpha: first,
-                beta: second,
-                alpha_se: first_se,
-                beta_se: second_se,
-                mean,
-                mean_se,
-                strength,
-                strength_se,
-            })),
-            "gamma-poisson" => Some(FittedPrior::Gamma(GammaPrior {
-                shape: first,
-                rate: second,
-                shape_se: first_se,
-                rate_se: second_se,
-                mean,
-                mean_se,
-                strength,
-                strength_se,
-            })),
-            "normal-normal" => Some(FittedPrior::Normal(NormalPrior {
-                mean,
-                mean_se,
-                variance: second.unwrap_or(0.0),
-                variance_se: second_se,
-                strength,
-                strength_se,
-            })),
-            _ => None,
+    /// The wire form of a prior of the model described by `terms`.
+    pub fn of_model(terms: &ModelTerms, parts: FittedPriorParts) -> Self {
+        let entries = terms
+            .prior_keys
+            .iter()
+            .map(|PriorKey { key, figure }| {
+                let value = match *figure {
+                    PriorFigure::Natural(i) => parts.natural.map(|n| n[i]),
+                    PriorFigure::NaturalOrZero(i) => Some(parts.natural.map_or(0.0, |n| n[i])),
+                    PriorFigure::NaturalSe(i) => parts.natural_se.map(|n| n[i]),
+                    PriorFigure::Mean | PriorFigure::MeanAndNatural(_) => Some(parts.mean),
+                    PriorFigure::MeanSe => Some(parts.mean_se),
+                    PriorFigure::Strength => parts.strength,
+                    PriorFigure::StrengthSe => parts.strength_se,
+                };
+                (key.to_string(), value)
+            })
+            .collect();
+        FittedPrior { entries }
+    }
+
+    /// The value under `key` (None when null or absent).
+    pub fn get(&self, key: &str) -> Option<f64> {
+        self.entries.iter().find(|(k, _)| k == key).and_then(|(_, v)| *v)
+    }
+
+    /// Whether the prior holds the keys of the model described by `terms`
+    /// and no others, with a value wherever that model always writes one;
+    /// the reason where it does not.
+    pub fn check(&self, terms: &ModelTerms) -> Result<(), String> {
+        if let Some((key, _)) =
+            self.entries.iter().find(|(k, _)| !terms.prior_keys.iter().any(|p| p.key == k))
+        {
+            return Err(format!("'{key}' is not a parameter of a {} prior", terms.name));
+        }
+        let always = |figure: PriorFigure| {
+            matches!(
+                figure,
+                PriorFigure::Mean
+                    | PriorFigure::MeanAndNatural(_)
+                    | PriorFigure::MeanSe
+                    | PriorFigure::NaturalOrZero(_)
+            )
+        };
+        match terms.prior_keys.iter().find(|p| always(p.figure) && self.get(p.key).is_none()) {
+            Some(missing) => Err(format!("its '{}' is missing", missing.key)),
+            None => Ok(()),
         }
     }
 
-    /// The name of the model whose prior this is.
-    pub fn model(&self) -> &'static str {
-        match self {
-            FittedPrior::Beta(_) => "beta-binomial",
-            FittedPrior::Gamma(_) => "gamma-poisson",
-            FittedPrior::Normal(_) => "normal-normal",
+    /// The natural parameters as written, in the model's order (either may
+    /// be missing in a file; both are at complete pooling).
+    pub fn natural(&self, terms: &ModelTerms) -> [Option<f64>; 2] {
+        let pooled = self.strength().is_none();
+        let mut natural = [None, None];
+        for PriorKey { key, figure } in terms.prior_keys {
+            match *figure {
+                PriorFigure::Natural(i) => natural[i] = self.get(key),
+                PriorFigure::NaturalOrZero(i) | PriorFigure::MeanAndNatural(i) if !pooled => {
+                    natural[i] = self.get(key)
+                }
+                _ => {}
+            }
         }
+        natural
     }
 
-    /// The natural parameters as written (either may be missing in a file).
-    pub fn natural(&self) -> (Option<f64>, Option<f64>) {
-        match self {
-            FittedPrior::Beta(p) => (p.alpha, p.beta),
-            FittedPrior::Gamma(p) => (p.shape, p.rate),
-            FittedPrior::Normal(p) => match p.strength {
-                Some(_) => (Some(p.mean), Some(p.variance)),
-                None => (None, None),
-            },
-        }
+    /// The prior's shape in the model's words, `Beta(alpha = 18.3, beta =
+    /// 2.01)`, each figure written by `number` and a standard error shown
+    /// beside it by `standard_error`.
+    pub fn shape_in_words(
+        &self,
+        terms: &ModelTerms,
+        number: &dyn Fn(Option<f64>) -> String,
+        standard_error: &dyn Fn(f64) -> String,
+    ) -> String {
+        let words = &terms.prior_words;
+        let shown: Vec<String> = words
+            .shown
+            .iter()
+            .map(|&(label, key, with_se)| {
+                let se = match self.get(&format!("{key}_se")) {
+                    Some(se) if with_se => format!(" (se {})", standard_error(se)),
+                    _ => String::new(),
+                };
+                format!("{label} = {}{se}", number(self.get(key)))
+            })
+            .collect();
+        format!("{}({})", words.law, shown.join(", "))
     }
 
     /// Prior mean.
     pub fn mean(&self) -> f64 {
-        match self {
-            FittedPrior::Beta(p) => p.mean,
-            FittedPrior::Gamma(p) => p.mean,
-            FittedPrior::Normal(p) => p.mean,
-        }
+        self.get("mean").unwrap_or(f64::NAN)
     }
 
     /// Standard error of the prior mean.
     pub fn mean_se(&self) -> f64 {
-        match self {
-            FittedPrior::Beta(p) => p.mean_se,
-            FittedPrior::Gamma(p) => p.mean_se,
-            FittedPrior::Normal(p) => p.mean_se,
-        }
+        self.get("mean_se").unwrap_or(f64::NAN)
     }
 
     /// Prior strength, None when infinite.
     pub fn strength(&self) -> Option<f64> {
-        match self {
-            FittedPrior::Beta(p) => p.strength,
-            FittedPrior::Gamma(p) => p.strength,
-            FittedPrior::Normal(p) => p.strength,
-        }
+        self.get("strength")
     }
 }
 
@@ -581,6 +570,47 @@ pub fn p_value_figure(p: f64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::core::model::Model;
+
+    #[test]
+    fn every_family_writes_a_prior_it_reads_back() {
+        let parts = FittedPriorParts {
+            natural: Some([2.5, 4.0]),
+            natural_se: Some([0.1, 0.2]),
+            mean: 0.4,
+            mean_se: 0.01,
+            strength: Some(6.5),
+            strength_se: Some(0.3),
+        };
+        let pooled =
+            FittedPriorParts { natural: None, natural_se: None, strength: None, strength_se: None, ..parts };
+        for model in Model::ALL {
+            let terms = model.terms();
+            for key in ["mean", "mean_se", "strength", "strength_se"] {
+                assert!(terms.prior_keys.iter().any(|p| p.key == key), "{}: no {key}", terms.name);
+            }
+            let prior = FittedPrior::of_model(terms, parts);
+            let read: FittedPrior = serde_json::from_str(&serde_json::to_string(&prior).unwrap()).unwrap();
+            assert_eq!(read, prior);
+            assert_eq!(read.check(terms), Ok(()));
+            assert_eq!((read.mean(), read.mean_se(), read.strength()), (0.4, 0.01, Some(6.5)));
+            let natural = read.natural(terms);
+            assert!(natural[1] == Some(4.0) && natural[0].is_some(), "{}: {natural:?}", terms.name);
+            assert_eq!(FittedPrior::of_model(terms, pooled).natural(terms), [None, None], "{}", terms.name);
+            // Another model's keys are refused by name.
+            let other = Model::ALL.iter().find(|m| m.terms().prior_keys != terms.prior_keys).unwrap();
+            assert!(FittedPrior::of_model(other.terms(), parts)
+                .check(terms)
+                .unwrap_err()
+                .contains("is not a parameter"));
+        }
+    }
+
+    #[test]
+    fn a_prior_without_its_mean_is_refused_on_reading() {
+        let error = serde_json::from_str::<FittedPrior>(r#"{"alpha": 1.0, "beta": 2.0}"#).unwrap_err();
+        assert!(error.to_string().contains("missing field `mean`"), "{error}");
+    }
 
     #[test]
     fn p_values_read_as_people_write_them() {

@@ -9,7 +9,7 @@
 //! infinite strength.
 
 use crate::core::fit::{fit_by, Likelihood};
-use crate::core::model::{Family, Prior, RateLaw};
+use crate::core::model::{Family, Prior};
 use crate::core::pairs::PairTable;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -33,7 +33,7 @@ pub fn median_bias<F: Family>(
 ) -> Option<[f64; 2]> {
     let (mean, strength) = F::mean_strength_of_natural(natural);
     let fitted = F::working(mean, strength);
-    let law = RateLaw::of_prior(F::TERMS.size_kind, natural);
+    let law = (F::TERMS.law_of)(natural);
     let cap = BOUNDARY_STRENGTH * F::strength_unit(table);
     let refits: Vec<Option<[f64; 2]>> = (0..REPLICATES)
         .into_par_iter()
@@ -76,6 +76,7 @@ pub fn median_bias<F: Family>(
 mod tests {
     use super::*;
     use crate::core::model::beta_binomial::BetaBinomial;
+    use crate::core::model::RateLaw;
 
     #[test]
     fn the_bias_is_seeded_and_small_with_many_groups() {

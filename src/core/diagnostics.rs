@@ -107,7 +107,7 @@ pub fn weighted_spearman(x: &[f64], y: &[f64], weights: &[f64]) -> Option<f64> {
 
 /// The pull summary over all groups, from each distinct pair and its posterior.
 pub fn pull_of_pairs(
-    kind: crate::core::model::SizeKind,
+    terms: &crate::core::model::ModelTerms,
     pairs: &[crate::core::pairs::WeightedPair],
     posteriors: &[crate::core::model::Posterior],
 ) -> Pull {
@@ -115,7 +115,7 @@ pub fn pull_of_pairs(
         .iter()
         .zip(posteriors)
         .map(|(pair, post)| PairOutcome {
-            raw_rate: kind.raw_value(pair.size, pair.count),
+            raw_rate: terms.raw_value(pair.size, pair.count),
             posterior_mean: post.mean,
             pool_weight: post.pool_weight,
             groups: pair.weight,

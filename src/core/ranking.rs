@@ -186,7 +186,7 @@ pub fn top_probabilities_by_draws(
                 let unsign = |t: f64| if order == RankOrder::LowestFirst { -t } else { t };
                 for (pair, law) in laws.iter().enumerate() {
                     let (in_best, weight) = (f64::from(inside[pair]), weights[pair]);
-                    sums[pair] += if let RateLaw::Point(_) = law {
+                    sums[pair] += if law.is_point() {
                         in_best
                     } else {
                         let mut sum = 0.0;
@@ -232,7 +232,7 @@ pub fn top_probabilities_by_threshold(
     if k >= groups {
         return (vec![1.0; means.len()], f64::NAN);
     }
-    if laws.iter().all(|l| matches!(l, RateLaw::Point(_))) {
+    if laws.iter().all(RateLaw::is_point) {
         return point_mass_top(means, weights, k, order);
     }
     let expected =
@@ -270,7 +270,7 @@ pub fn top_probabilities_by_threshold(
     let (mut f_low, mut f_high) = (excess(low), excess(high));
     let mut step = scale * 0.5;
     // Beta and Gamma rates are at least 0; normal values may take any sign.
-    let floored = !laws.iter().any(|l| matches!(l, RateLaw::Normal { .. }));
+    let floored = !laws.iter().any(RateLaw::reaches_below_zero);
     while f_low < 0.0 {
         low -= step;
         if floored && low <= 0.0 {

@@ -254,7 +254,7 @@ impl<'a> RowReader<'a> {
     fn of(job: &Job, batch: &'a InputBatch<'a>) -> Result<Self> {
         Ok(match job.aggregation {
             Aggregation::Outcome(_) => RowReader::Outcome(OutcomeColumn::of(&batch.columns[1])?),
-            _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms().size_kind)?)),
+            _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms())?)),
         })
     }
 

@@ -33,7 +33,7 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
                 reason,
             };
             let (count, size) = (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
-            let (size, count) = check_values(names, job.model.terms().size_kind, &count, &size)
+            let (size, count) = check_values(names, job.model.terms(), &count, &size)
                 .map_err(|(column, reason)| invalid(column, reason))?;
             let weight =
                 group_count(&cell_at(&batch.columns[0], row)?).map_err(|reason| invalid(weights, reason))?;

@@ -20,8 +20,9 @@ use super::scoring::{
     ShiftGroups, ShiftTracker,
 };
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::validate::{check_values, plain_estimate, Rejection, SizeKind, MISSING_GROUP};
-use super::{no_data_rows, no_valid_rows, roles, InvalidRows, Job, Model, PhaseClock};
+use super::validate::{check_values, plain_real, Rejection, MISSING_GROUP};
+use super::{no_data_rows, no_valid_rows, roles, InvalidRows, Job, PhaseClock};
+use crate::core::model::{ModelTerms, ValueRule};
 use crate::core::pairs::WeightedPair;
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
@@ -45,15 +46,15 @@ pub(super) struct BatchView<'a> {
 }
 
 impl<'a> BatchView<'a> {
-    pub(super) fn of(batch: &'a InputBatch<'a>, kind: SizeKind) -> Result<Self> {
+    pub(super) fn of(batch: &'a InputBatch<'a>, terms: &ModelTerms) -> Result<Self> {
         // Estimates and standard errors are read as reals; counts and sizes as integers where they are.
         let numeric =
-            if kind == SizeKind::StandardError { NumericColumn::of_reals } else { NumericColumn::of };
+            |rule: ValueRule| if rule.reads_reals() { NumericColumn::of_reals } else { NumericColumn::of };
         Ok(BatchView {
             batch,
             group: GroupColumn::of(&batch.columns[0])?,
-            counts: numeric(&batch.columns[1])?,
-            sizes: numeric(&batch.columns[2])?,
+            counts: numeric(terms.count_rule)(&batch.columns[1])?,
+            sizes: numeric(terms.size_rule)(&batch.columns[2])?,
             segments: SegmentColumns::of(&batch.columns[3..])?,
         })
     }
@@ -81,20 +82,10 @@ impl<'a> BatchView<'a> {
     /// sends the row to the full check, which accepts the same rows with the
     /// same values and names the fault of the others. This spares building a
     /// cell per value.
-    fn plainly_valid(&self, model: Model, row: usize) -> Option<(f64, f64)> {
-        let kind = model.terms().size_kind;
-        if kind == SizeKind::StandardError {
-            let (estimate, se) = (self.counts.number(row)?, self.sizes.number(row)?);
-            return plain_estimate(estimate, se).then_some((se, estimate));
-        }
-        let count = self.counts.integer(row).filter(|k| (0..=MAX_EXACT).contains(k))?;
-        let size = if kind.whole_sizes() {
-            self.sizes.integer(row).filter(|n| (0..=MAX_EXACT).contains(n))? as f64
-        } else {
-            self.sizes.number(row).filter(|&e| e >= 0.0)?
-        };
-        let fine = if kind == SizeKind::Trials { count as f64 <= size } else { size > 0.0 || count == 0 };
-        fine.then_some((size, count as f64))
+    fn plainly_valid(&self, terms: &ModelTerms, row: usize) -> Option<(f64, f64)> {
+        let size = plain_value(&self.sizes, terms.size_rule, row)?;
+        let count = plain_value(&self.counts, terms.count_rule, row)?;
+        (terms.pair_fault)(size, count).is_none().then_some((size, count))
     }
 
     /// The one validation kernel: (size, count) of a valid row, or the
@@ -105,13 +96,22 @@ impl<'a> BatchView<'a> {
         if self.group.is_missing(row) {
             return Ok(Err(reject(&names.group, MISSING_GROUP.to_string())));
         }
-        if let Some(pair) = self.plainly_valid(job.model, row) {
+        let terms = job.model.terms();
+        if let Some(pair) = self.plainly_valid(terms, row) {
             return Ok(Ok(pair));
         }
         let (count, size) = (cell_at(&self.batch.columns[1], row)?, cell_at(&self.batch.columns[2], row)?);
-        Ok(check_values(names, job.model.terms().size_kind, &count, &size)
-            .map_err(|(column, reason)| reject(column, reason)))
+        Ok(check_values(names, terms, &count, &size).map_err(|(column, reason)| reject(column, reason)))
     }
+}
+
+/// A value of `column` that is plainly valid under `rule` as read: a whole
+/// count as an integer, anything else as a real.
+fn plain_value(column: &NumericColumn, rule: ValueRule, row: usize) -> Option<f64> {
+    if rule.is_whole() {
+        return column.integer(row).filter(|k| (0..=MAX_EXACT).contains(k)).map(|k| k as f64);
+    }
+    column.number(row).filter(|&value| plain_real(rule, value))
 }
 
 /// The first row fault met, with where it lies.
@@ -201,7 +201,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassO
         ids: IdHashes::with_capacity(total.unwrap_or(0)),
     };
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch, job.model.terms().size_kind)?;
+        let view = BatchView::of(&batch, job.model.terms())?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
                 view.group.with_bytes(row, |id| pass.ids.push(id));
@@ -236,7 +236,7 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
     }
     let mut finder = RepeatFinder::new(candidates);
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch, job.model.terms().size_kind)?;
+        let view = BatchView::of(&batch, job.model.terms())?;
         for row in 0..batch.rows() {
             if view.group.is_missing(row) {
                 continue;
@@ -341,7 +341,7 @@ fn score_and_write(
             Ok(sink)
         });
         let produced = input.for_each_batch(|batch| {
-            let view = BatchView::of(&batch, job.model.terms().size_kind)?;
+            let view = BatchView::of(&batch, job.model.terms())?;
             let (mut kept, mut pair_of_row) =
                 (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
             for row in 0..batch.rows() {
@@ -414,6 +414,7 @@ mod tests {
     use super::*;
     use crate::core::pairs::PairTable;
     use crate::pipeline::validate::ColumnNames;
+    use crate::pipeline::Model;
     use crate::pipeline::{Layout, Level, PriorSource, DEFAULT_BATCH_ROWS};
 
     fn job(input: &Path, output: &Path) -> Job {

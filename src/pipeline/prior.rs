@@ -370,7 +370,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
     let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
     let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
     clock.lap("posteriors", "posteriors");
-    let pull = crate::core::diagnostics::pull_of_pairs(F::TERMS.size_kind, &all_pairs, &posteriors);
+    let pull = crate::core::diagnostics::pull_of_pairs(&F::TERMS, &all_pairs, &posteriors);
     let mut warnings = all.warnings.clone();
     if let Prior::CompletePooling { .. } = all.prior {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
@@ -410,7 +410,7 @@ fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut Pha
                     &own_places,
                 );
                 let mut pull = crate::core::diagnostics::pull_of_pairs(
-                    F::TERMS.size_kind,
+                    &F::TERMS,
                     &all_pairs[range.clone()],
                     &posteriors[range.clone()],
                 );
@@ -501,7 +501,7 @@ fn model_checks<F: Family>(
         calibration(&weights, |i| F::predictive_cdf(prior_of(i), pairs[i].size, pairs[i].count), job.seed);
     let (mut observed, mut expected, mut with_data) = (0.0, 0.0, 0.0);
     for (i, pair) in pairs.iter().enumerate() {
-        let Some(raw) = F::TERMS.size_kind.raw_value(pair.size, pair.count) else { continue };
+        let Some(raw) = F::TERMS.raw_value(pair.size, pair.count) else { continue };
         let mean = match *prior_of(i) {
             Prior::CompletePooling { mean } => mean,
             Prior::Conjugate { natural } => F::mean_strength_of_natural(natural).0,
@@ -645,7 +645,7 @@ fn fitted_prior_of(model: Model, fitted: &Fit) -> FittedPrior {
         strength: fitted.strength,
         strength_se: fitted.strength_se,
     };
-    FittedPrior::of_model(model.name(), parts).expect("every registered model has a wire form")
+    FittedPrior::of_model(model.terms(), parts)
 }
 
 fn fit_report_of<F: Family>(fitted: &Fit, source: &str) -> FitReport {
@@ -723,14 +723,14 @@ fn prior_of_saved(fitted_prior: &FittedPrior, saved_model: &str, path: &Path, mo
             model.name()
         )));
     }
-    if fitted_prior.model() != model.name() {
+    if let Err(reason) = fitted_prior.check(model.terms()) {
         return Err(Error::Input(format!(
-            "{}: the prior does not match the model {}",
+            "{}: the prior does not match the model {}: {reason}",
             path.display(),
             saved_model
         )));
     }
-    let ((first, second), mean) = (fitted_prior.natural(), fitted_prior.mean());
+    let ([first, second], mean) = (fitted_prior.natural(model.terms()), fitted_prior.mean());
     let valid = |v: f64| v.is_finite() && v > 0.0;
     // The first natural parameter is a location of either sign for a model of real values.
     let rates = model.terms().rates;

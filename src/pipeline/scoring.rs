@@ -28,13 +28,12 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         PairValues::OptionalFloats(posteriors.iter().map(f).collect())
     };
     let terms = job.model.terms();
-    let kind = terms.size_kind;
-    let sizes = if kind.whole_sizes() {
+    let sizes = if terms.size_rule.is_whole() {
         PairValues::Integers(pairs.iter().map(|p| p.size as i64).collect())
     } else {
         PairValues::Floats(pairs.iter().map(|p| p.size).collect())
     };
-    let counts = if kind.whole_counts() {
+    let counts = if terms.count_rule.is_whole() {
         PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())
     } else {
         PairValues::Floats(pairs.iter().map(|p| p.count).collect())
@@ -43,7 +42,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         let values = optional(&|p| p.natural.map(|natural| natural[i]));
         (format!("posterior_param_{}", terms.parameter_names[i]), values)
     };
-    let raw = pairs.iter().map(|p| kind.raw_value(p.size, p.count)).collect();
+    let raw = pairs.iter().map(|p| terms.raw_value(p.size, p.count)).collect();
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();

@@ -6,7 +6,7 @@ use crate::io::cells::Cell;
 /// Counts above 2^53 cannot all be held exactly in a double.
 pub const MAX_EXACT_COUNT: f64 = 9_007_199_254_740_992.0;
 
-pub use crate::core::model::SizeKind;
+use crate::core::model::{ModelTerms, PairFault, ValueRule};
 
 /// A rejected row.
 #[derive(Debug, Clone, PartialEq)]
@@ -59,13 +59,13 @@ fn whole_count(cell: &Cell) -> Result<f64, String> {
     }
 }
 
-/// A finite, non-negative exposure.
-fn exposure(cell: &Cell) -> Result<f64, String> {
+/// A finite, non-negative amount (an exposure), named `noun` in messages.
+fn amount(cell: &Cell, noun: &str) -> Result<f64, String> {
     match *cell {
-        Cell::Integer(v) if v < 0 => Err(format!("exposure {v} is negative")),
+        Cell::Integer(v) if v < 0 => Err(format!("{noun} {v} is negative")),
         Cell::Integer(v) => Ok(v as f64),
         Cell::Number(v) if !v.is_finite() => Err(format!("{v} is not a finite number")),
-        Cell::Number(v) if v < 0.0 => Err(format!("exposure {v} is negative")),
+        Cell::Number(v) if v < 0.0 => Err(format!("{noun} {v} is negative")),
         Cell::Number(v) => Ok(v),
         ref other => whole_count(other),
     }
@@ -91,63 +91,63 @@ fn estimate(cell: &Cell) -> Result<f64, String> {
     Ok(value)
 }
 
-/// A standard error above zero, from 1e-150 to 1e150.
-fn standard_error(cell: &Cell) -> Result<f64, String> {
+/// A scale (a standard error) above zero, from 1e-150 to 1e150, named `noun` in messages.
+fn scale(cell: &Cell, noun: &str) -> Result<f64, String> {
     match estimate(cell)? {
-        v if v <= 0.0 => Err(format!("standard error {v} is not above zero")),
+        v if v <= 0.0 => Err(format!("{noun} {v} is not above zero")),
         v if v < 1.0 / MAX_MAGNITUDE => {
-            Err(format!("standard error {v:e} is below 1e-150, where its square underflows"))
+            Err(format!("{noun} {v:e} is below 1e-150, where its square underflows"))
         }
         v => Ok(v),
     }
 }
 
-/// Whether an estimate and a standard error as read are plainly valid.
-pub fn plain_estimate(estimate: f64, se: f64) -> bool {
-    estimate.abs() <= MAX_MAGNITUDE && (1.0 / MAX_MAGNITUDE..=MAX_MAGNITUDE).contains(&se)
+/// A cell under `rule`.
+fn value_under(rule: ValueRule, cell: &Cell) -> Result<f64, String> {
+    match rule {
+        ValueRule::WholeCount => whole_count(cell),
+        ValueRule::Amount(noun) => amount(cell, noun),
+        ValueRule::Scale(noun) => scale(cell, noun),
+        ValueRule::Finite => estimate(cell),
+    }
+}
+
+/// Whether a real value read from a column of `rule` is plainly valid
+/// (the rules of reals only; whole counts are checked as integers).
+pub fn plain_real(rule: ValueRule, value: f64) -> bool {
+    match rule {
+        ValueRule::WholeCount => value.fract() == 0.0 && (0.0..=MAX_EXACT_COUNT).contains(&value),
+        ValueRule::Amount(_) => value >= 0.0,
+        ValueRule::Scale(_) => (1.0 / MAX_MAGNITUDE..=MAX_MAGNITUDE).contains(&value),
+        ValueRule::Finite => value.abs() <= MAX_MAGNITUDE,
+    }
 }
 
 /// The reason given for a row without a group id.
 pub const MISSING_GROUP: &str = "group id is missing";
 
-/// Checks one row's count and size; returns (size, count) or the column at
-/// fault with the reason.
+/// Checks one row's count and size under the model's rules; returns
+/// (size, count) or the column at fault with the reason.
 pub fn check_values<'a>(
     names: &'a ColumnNames,
-    kind: SizeKind,
+    terms: &ModelTerms,
     count_cell: &Cell,
     size_cell: &Cell,
 ) -> Result<(f64, f64), (&'a str, String)> {
-    let size = match kind {
-        SizeKind::Trials => whole_count(size_cell).map_err(|reason| match size_cell {
-            // Trials that are not whole are most often expected counts or an exposure.
-            Cell::Number(v) if v.fract() != 0.0 && *v > 0.0 => format!(
-                "{reason}, and trials are counted in whole numbers; if '{size}' holds expected counts or \
-                 an exposure, use the gamma-poisson model: --model gamma-poisson --events {count} --exposure {size}",
-                size = names.size,
-                count = names.count
-            ),
+    let size = value_under(terms.size_rule, size_cell)
+        .map_err(|reason| match size_cell {
+            Cell::Number(v) => match (terms.size_hint)(*v, &names.count, &names.size) {
+                Some(hint) => format!("{reason}, and {hint}"),
+                None => reason,
+            },
             _ => reason,
-        }),
-        SizeKind::Exposure => exposure(size_cell),
-        SizeKind::StandardError => standard_error(size_cell),
-    }
-    .map_err(|reason| (names.size.as_str(), reason))?;
-    let count = match kind {
-        SizeKind::StandardError => estimate(count_cell),
-        _ => whole_count(count_cell),
-    }
-    .map_err(|reason| (names.count.as_str(), reason))?;
-    match kind {
-        SizeKind::Trials if count > size => Err((
-            names.count.as_str(),
-            format!("{} successes exceed {} trials", describe(count_cell), describe(size_cell)),
-        )),
-        SizeKind::Exposure if size == 0.0 && count > 0.0 => Err((
-            names.size.as_str(),
-            format!("exposure is zero but there are {} events", describe(count_cell)),
-        )),
-        _ => Ok((size, count)),
+        })
+        .map_err(|reason| (names.size.as_str(), reason))?;
+    let count = value_under(terms.count_rule, count_cell).map_err(|reason| (names.count.as_str(), reason))?;
+    match (terms.pair_fault)(size, count) {
+        None => Ok((size, count)),
+        Some(PairFault::Count(reason)) => Err((names.count.as_str(), reason)),
+        Some(PairFault::Size(reason)) => Err((names.size.as_str(), reason)),
     }
 }
 
@@ -187,6 +187,7 @@ pub fn cell_text(cell: &Cell) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::core::model::Model;
 
     fn names() -> ColumnNames {
         ColumnNames { group: "g".into(), count: "k".into(), size: "n".into() }
@@ -195,7 +196,8 @@ mod tests {
     #[test]
     fn each_fault_is_named_with_its_column() {
         let names = names();
-        let check = |count: Cell, size: Cell| check_values(&names, SizeKind::Trials, &count, &size);
+        let check =
+            |count: Cell, size: Cell| check_values(&names, Model::BetaBinomial.terms(), &count, &size);
         assert_eq!(check(Cell::Integer(1), Cell::Integer(3)), Ok((3.0, 1.0)));
         assert_eq!(check(Cell::Integer(5), Cell::Integer(4)).unwrap_err().0, "k");
         assert_eq!(check(Cell::Number(0.5), Cell::Integer(2)).unwrap_err().0, "k");
@@ -206,8 +208,9 @@ mod tests {
     #[test]
     fn exposure_may_be_zero_only_without_events() {
         let names = names();
-        let check =
-            |count: i128| check_values(&names, SizeKind::Exposure, &Cell::Integer(count), &Cell::Number(0.0));
+        let check = |count: i128| {
+            check_values(&names, Model::GammaPoisson.terms(), &Cell::Integer(count), &Cell::Number(0.0))
+        };
         assert_eq!(check(0), Ok((0.0, 0.0)));
         assert_eq!(check(2).unwrap_err().0, "n");
     }
@@ -215,7 +218,8 @@ mod tests {
     #[test]
     fn standard_errors_are_finite_and_above_zero_and_estimates_finite() {
         let names = names();
-        let check = |count: Cell, size: Cell| check_values(&names, SizeKind::StandardError, &count, &size);
+        let check =
+            |count: Cell, size: Cell| check_values(&names, Model::NormalNormal.terms(), &count, &size);
         assert_eq!(check(Cell::Number(-2.5), Cell::Number(0.5)), Ok((0.5, -2.5)));
         assert_eq!(check(Cell::Integer(3), Cell::Integer(2)), Ok((2.0, 3.0)));
         for bad in [Cell::Number(0.0), Cell::Number(-1.0), Cell::Missing, Cell::Number(f64::INFINITY)] {
@@ -227,9 +231,9 @@ mod tests {
         assert!(check(Cell::Number(1.0), Cell::Number(1e-200)).unwrap_err().1.contains("underflows"));
         assert!(check(Cell::Number(1.0), Cell::Number(1e200)).unwrap_err().1.contains("overflows"));
         assert!(check(Cell::Number(-1e151), Cell::Number(1.0)).unwrap_err().1.contains("overflows"));
-        assert!(
-            plain_estimate(-1e150, 1e-150) && !plain_estimate(1e151, 1.0) && !plain_estimate(1.0, 1e-151)
-        );
+        let (estimate, se) = (ValueRule::Finite, ValueRule::Scale("standard error"));
+        assert!(plain_real(estimate, -1e150) && plain_real(se, 1e-150));
+        assert!(!plain_real(estimate, 1e151) && !plain_real(se, 1e-151));
     }
 
     #[test]

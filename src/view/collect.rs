@@ -2,7 +2,7 @@
 //! bounded memory whatever the number of groups: a seeded sample for the
 //! scatter plots, the few groups each table lists, and histograms.
 
-use crate::core::model::{Model, SizeKind};
+use crate::core::model::Model;
 use crate::error::{Error, Result};
 use crate::io::cells::{float_column, GroupColumn};
 use crate::io::input::Input;
@@ -153,14 +153,6 @@ fn conservative_key(lowest_first: bool, lower: f64, upper: f64) -> f64 {
     }
 }
 
-/// The abscissa of a group in the funnel plot: its size, or for an estimate its precision.
-pub fn funnel_x(kind: SizeKind, size: f64) -> f64 {
-    match kind {
-        SizeKind::StandardError => 1.0 / (size * size),
-        _ => size,
-    }
-}
-
 /// Reads the output table `table` of the run described by `summary`.
 pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Result<Collected> {
     let columns = summary.columns.as_ref().ok_or_else(|| {
@@ -169,7 +161,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
                 .into(),
         )
     })?;
-    let kind = model.terms().size_kind;
+    let axis = model.terms().plots.funnel_x;
     let flag_bound = summary.flags.as_ref().map(|f| f.fdr_level);
     let event_column = summary.flags.as_ref().map(|f| format!("prob_{}", f.event));
     // Tables written before the summary's format version 2 call every raw value `raw_rate`.
@@ -262,17 +254,10 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
                 segment,
             };
             // Pooled rate and the funnel's range.
-            match kind {
-                SizeKind::StandardError => {
-                    pooled_numerator += count / (size * size);
-                    pooled_denominator += 1.0 / (size * size);
-                }
-                _ => {
-                    pooled_numerator += count;
-                    pooled_denominator += size;
-                }
-            }
-            let x = funnel_x(kind, size);
+            let (numerator, denominator) = axis.pooled_parts(size, count);
+            pooled_numerator += numerator;
+            pooled_denominator += denominator;
+            let x = axis.x(size);
             if x > 0.0 {
                 out.funnel_range = (out.funnel_range.0.min(x), out.funnel_range.1.max(x));
             }

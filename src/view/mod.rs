@@ -54,8 +54,8 @@ pub struct Figure {
 
 /// The prior's law, when the prior is a proper one (None at complete pooling).
 fn prior_law(summary: &Summary, model: Model) -> Option<RateLaw> {
-    match summary.fitted_prior.natural() {
-        (Some(a), Some(b)) => Some(RateLaw::of_prior(model.terms().size_kind, [a, b])),
+    match summary.fitted_prior.natural(model.terms()) {
+        [Some(a), Some(b)] => Some((model.terms().law_of)([a, b])),
         _ => None,
     }
 }

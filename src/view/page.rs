@@ -4,7 +4,7 @@
 use super::collect::{Collected, GroupRow, LISTED, SAMPLE, WELL_MEASURED};
 use super::plots;
 use super::Figure;
-use crate::core::model::{Model, RateLaw, SizeKind};
+use crate::core::model::{Model, RateLaw};
 use crate::error::Result;
 use crate::summary::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary, MIN_GROUPS_TO_JUDGE};
 use std::fmt::Write;
@@ -45,19 +45,6 @@ fn num(v: f64) -> String {
     }
 }
 
-/// Words for the model's columns: (raw value, size, funnel abscissa, its axis).
-fn labels(model: Model) -> (&'static str, &'static str, &'static str, &'static str) {
-    match model.terms().size_kind {
-        SizeKind::Trials => ("raw proportion (successes / trials)", "trials", "trials", "trials (log scale)"),
-        SizeKind::Exposure => {
-            ("raw rate (events / exposure)", "exposure", "exposure", "exposure (log scale)")
-        }
-        SizeKind::StandardError => {
-            ("estimate", "standard error", "precision (1/se²)", "precision 1/se² (log scale)")
-        }
-    }
-}
-
 /// The plots of the whole run, and of each segment drawn.
 pub fn figures(
     summary: &Summary,
@@ -65,8 +52,8 @@ pub fn figures(
     collected: &Collected,
     prior: Option<RateLaw>,
 ) -> Result<(Vec<Figure>, Vec<Option<Figure>>)> {
-    let kind = model.terms().size_kind;
-    let (raw_label, _, funnel_noun, funnel_label) = labels(model);
+    let terms = model.terms();
+    let words = &terms.plots;
     let prior_mean = summary.fitted_prior.mean();
     let sampled = |n: usize, total: u64| {
         if (n as u64) < total {
@@ -83,7 +70,7 @@ pub fn figures(
             sampled(collected.sample.len(), collected.groups),
             num(prior_mean)
         ),
-        svg: plots::shrinkage(&collected.sample, prior_mean, raw_label, kind)?,
+        svg: plots::shrinkage(&collected.sample, prior_mean, terms)?,
     }];
     let flagged: Vec<&GroupRow> = collected.flagged.rows().collect();
     figures.push(Figure {
@@ -91,7 +78,7 @@ pub fn figures(
         title: "Funnel plot".into(),
         caption: format!(
             "Raw value against {} for {}, with the pooled value {} and its 95% and 99.8% control limits (Spiegelhalter, Statistics in Medicine 2005). {}Points outside the limits vary more than sampling noise alone explains; the funnel ignores the prior, the posterior does not.",
-            funnel_noun,
+            words.funnel_noun,
             sampled(collected.sample.len(), collected.groups),
             num(collected.pooled),
             if collected.flagged_count > 0 { "Flagged groups are red. " } else { "" }
@@ -99,8 +86,8 @@ pub fn figures(
         svg: plots::funnel(
             &collected.sample,
             &flagged,
-            (kind, collected.pooled),
-            (collected.funnel_range, funnel_label, raw_label),
+            (terms, collected.pooled),
+            (collected.funnel_range, words.funnel_axis, words.raw_label),
         )?,
     });
     figures.push(Figure {
@@ -116,7 +103,7 @@ pub fn figures(
             },
             if prior.is_some() { "" } else { " (here a line at the pooled value: complete pooling)" }
         ),
-        svg: plots::prior_over_raw(&collected.well_measured, prior, prior_mean, raw_label)?,
+        svg: plots::prior_over_raw(&collected.well_measured, (prior, prior_mean), (words.raw_label, terms.rates))?,
     });
     if let Some(checks) = &summary.checks {
         figures.push(Figure {
@@ -157,7 +144,7 @@ pub fn figures(
                 sampled(sample.len(), segment.groups),
                 num(segment.fitted_prior.mean())
             ),
-            svg: plots::shrinkage(sample, segment.fitted_prior.mean(), raw_label, kind)?,
+            svg: plots::shrinkage(sample, segment.fitted_prior.mean(), terms)?,
         }));
     }
     Ok((figures, segment_figures))
@@ -175,17 +162,10 @@ fn segment_name(summary: &Summary, i: usize) -> String {
 }
 
 /// A prior in words.
-fn prior_text(prior: &FittedPrior) -> String {
-    let shape = match prior {
-        FittedPrior::Beta(p) => match (p.alpha, p.beta) {
-            (Some(a), Some(b)) => format!("Beta(α = {}, β = {})", num(a), num(b)),
-            _ => "complete pooling".into(),
-        },
-        FittedPrior::Gamma(p) => match (p.shape, p.rate) {
-            (Some(a), Some(b)) => format!("Gamma(shape {}, rate {})", num(a), num(b)),
-            _ => "complete pooling".into(),
-        },
-        FittedPrior::Normal(p) => format!("Normal(mean {}, variance {})", num(p.mean), num(p.variance)),
+fn prior_text(prior: &FittedPrior, model: Model) -> String {
+    let shape = match prior.natural(model.terms()) {
+        [Some(_), Some(_)] => prior.shape_in_words(model.terms(), &|v| v.map_or("n/a".into(), num), &num),
+        _ => "complete pooling".into(),
     };
     let strength = prior.strength().map_or("infinite (no overdispersion)".to_string(), num);
     format!(
@@ -298,7 +278,7 @@ fn diagnostics(summary: &Summary, out: &mut String) {
 
 /// A table of groups.
 fn group_table(title: &str, note: &str, rows: &[&GroupRow], model: Model, out: &mut String) {
-    let (_, size_label, _, _) = labels(model);
+    let size_label = model.terms().plots.size_noun;
     let count_label = model.terms().count_role;
     let _ = writeln!(out, "<h3>{}</h3><p>{}</p>", escape(title), escape(note));
     if rows.is_empty() {
@@ -411,7 +391,7 @@ pub fn render(
         collected.groups,
         summary.rows_read,
         summary.rows_rejected,
-        escape(&prior_text(&summary.fitted_prior)),
+        escape(&prior_text(&summary.fitted_prior, model)),
         num(summary.pull.pool_weight_mean),
         num(summary.pull.pool_weight_median),
         num(summary.pull.pool_weight_p10),
@@ -466,7 +446,7 @@ pub fn render(
     }
     let _ = writeln!(out, "</section>");
     if !summary.segments.is_empty() {
-        segments(summary, segment_figures, &mut out);
+        segments(summary, model, segment_figures, &mut out);
     }
     let _ = writeln!(out, "<section id=\"cautions\"><h2>Cautions</h2><ul>");
     for caution in cautions(summary) {
@@ -480,7 +460,7 @@ pub fn render(
 }
 
 /// The segments: a table of all, then a section each for the first few.
-fn segments(summary: &Summary, segment_figures: &[Option<Figure>], out: &mut String) {
+fn segments(summary: &Summary, model: Model, segment_figures: &[Option<Figure>], out: &mut String) {
     let _ = writeln!(out, "<section id=\"segments\"><h2>Segments</h2>");
     if let Some(test) = &summary.segment_test {
         let _ = writeln!(
@@ -522,7 +502,7 @@ fn segments(summary: &Summary, segment_figures: &[Option<Figure>], out: &mut Str
             i + 1,
             escape(&segment_name(summary, i)),
             segment.groups,
-            escape(&prior_text(&segment.fitted_prior))
+            escape(&prior_text(&segment.fitted_prior, model))
         );
         if let Some(checks) = &segment.checks {
             let _ = writeln!(out, "<p>{}</p>", checks_text(checks));

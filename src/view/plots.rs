@@ -1,8 +1,8 @@
 //! The report's plots, each an SVG document drawn by plotters: shrinkage,
 //! funnel, the prior over the raw rates, calibration, pool weights.
 
-use super::collect::{funnel_x, GroupRow, POOL_BINS};
-use crate::core::model::{RateLaw, SizeKind};
+use super::collect::{GroupRow, POOL_BINS};
+use crate::core::model::{ModelTerms, RateLaw, RateRange};
 use crate::error::{Error, Result};
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -68,9 +68,12 @@ fn radius(size: f64, largest: f64) -> i32 {
 
 /// Raw rate against posterior mean, marker size by the group's size: small
 /// groups move toward the prior mean, large ones stay on the diagonal.
-pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, raw_label: &str, size_of: SizeKind) -> Result<String> {
-    let points: Vec<(f64, f64, f64)> =
-        sample.iter().filter_map(|g| g.raw.map(|raw| (raw, g.mean, funnel_x(size_of, g.size)))).collect();
+pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, terms: &ModelTerms) -> Result<String> {
+    let raw_label = terms.plots.raw_label;
+    let points: Vec<(f64, f64, f64)> = sample
+        .iter()
+        .filter_map(|g| g.raw.map(|raw| (raw, g.mean, terms.plots.funnel_x.x(g.size))))
+        .collect();
     let (low, high) = span(points.iter().flat_map(|p| [p.0, p.1]).chain([prior_mean]));
     let largest = points.iter().map(|p| p.2).fold(0.0, f64::max);
     svg(|root| {
@@ -101,18 +104,9 @@ pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, raw_label: &str, size_of:
 
 /// The funnel's control limits at abscissa `x` (size, or precision for estimates)
 /// around the pooled rate, `z` standard errors out.
-pub fn funnel_limit(kind: SizeKind, pooled: f64, x: f64, z: f64) -> (f64, f64) {
-    let se = match kind {
-        SizeKind::Trials => (pooled * (1.0 - pooled) / x).sqrt(),
-        SizeKind::Exposure => (pooled / x).sqrt(),
-        SizeKind::StandardError => 1.0 / x.sqrt(),
-    };
-    let (low, high) = (pooled - z * se, pooled + z * se);
-    match kind {
-        SizeKind::Trials => (low.max(0.0), high.min(1.0)),
-        SizeKind::Exposure => (low.max(0.0), high),
-        SizeKind::StandardError => (low, high),
-    }
+pub fn funnel_limit(terms: &ModelTerms, pooled: f64, x: f64, z: f64) -> (f64, f64) {
+    let se = ((terms.plots.unit_variance)(pooled) / x).sqrt();
+    terms.rates.clamp((pooled - z * se, pooled + z * se))
 }
 
 /// Spiegelhalter's funnel plot: raw rate against size (log axis) with the
@@ -120,16 +114,17 @@ pub fn funnel_limit(kind: SizeKind, pooled: f64, x: f64, z: f64) -> (f64, f64) {
 pub fn funnel(
     sample: &[GroupRow],
     flagged: &[&GroupRow],
-    (kind, pooled): (SizeKind, f64),
+    (terms, pooled): (&ModelTerms, f64),
     (x_range, x_label, raw_label): ((f64, f64), &str, &str),
 ) -> Result<String> {
-    let point = |g: &GroupRow| g.raw.map(|raw| (funnel_x(kind, g.size), raw)).filter(|(x, _)| *x > 0.0);
+    let point =
+        |g: &GroupRow| g.raw.map(|raw| (terms.plots.funnel_x.x(g.size), raw)).filter(|(x, _)| *x > 0.0);
     let plain: Vec<(f64, f64)> = sample.iter().filter(|g| !g.flagged).filter_map(point).collect();
     let marked: Vec<(f64, f64)> =
         sample.iter().filter(|g| g.flagged).chain(flagged.iter().copied()).filter_map(point).collect();
     let (x_low, x_high) = if x_range.0 < x_range.1 { x_range } else { (x_range.0 * 0.5, x_range.0 * 2.0) };
     let grid: Vec<f64> = (0..=200).map(|i| x_low * (x_high / x_low).powf(f64::from(i) / 200.0)).collect();
-    let inner = funnel_limit(kind, pooled, grid[grid.len() / 20], LIMITS[1].0);
+    let inner = funnel_limit(terms, pooled, grid[grid.len() / 20], LIMITS[1].0);
     let (y_low, y_high) = span(plain.iter().chain(&marked).map(|p| p.1).chain([inner.0, inner.1, pooled]));
     svg(|root| {
         let mut chart = ChartBuilder::on(root)
@@ -151,7 +146,7 @@ pub fn funnel(
             let style = if z < 2.5 { LINE.stroke_width(1) } else { LINE.mix(0.6).stroke_width(1) };
             for side in [0, 1] {
                 let curve = grid.iter().map(|&x| {
-                    let (low, high) = funnel_limit(kind, pooled, x, z);
+                    let (low, high) = funnel_limit(terms, pooled, x, z);
                     (x, if side == 0 { low } else { high }.clamp(y_low, y_high))
                 });
                 chart.draw_series(LineSeries::new(curve, style))?;
@@ -189,17 +184,13 @@ fn bars(counts: &[u64], (low, high): (f64, f64), scale: f64) -> Vec<Rectangle<(f
 /// under the fitted prior's density (or the pooled rate, at complete pooling).
 pub fn prior_over_raw(
     raw: &[f64],
-    prior: Option<RateLaw>,
-    prior_mean: f64,
-    raw_label: &str,
+    (prior, prior_mean): (Option<RateLaw>, f64),
+    (raw_label, rates): (&str, RateRange),
 ) -> Result<String> {
     const BINS: usize = 40;
     let (mut low, mut high) = span(raw.iter().copied().chain([prior_mean]));
-    if let Some(RateLaw::Beta { .. }) = prior {
-        (low, high) = (low.max(0.0), high.min(1.0));
-    }
-    if let Some(RateLaw::Gamma { .. }) = prior {
-        low = low.max(0.0);
+    if prior.is_some() {
+        (low, high) = rates.clamp((low, high));
     }
     let counts = bin(raw, (low, high), BINS);
     let scale = 1.0 / (raw.len().max(1) as f64 * (high - low) / BINS as f64);
@@ -306,19 +297,20 @@ pub fn to_png(svg: &str) -> Result<Vec<u8>> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::core::model::Model;
 
     #[test]
     fn funnel_limits_are_the_binomial_and_poisson_ones() {
         // p0 ± z √(p0(1 − p0)/n) and θ0 ± z √(θ0/E) (Spiegelhalter, Statistics in Medicine 2005).
-        let (low, high) = funnel_limit(SizeKind::Trials, 0.2, 100.0, 2.0);
+        let (low, high) = funnel_limit(Model::BetaBinomial.terms(), 0.2, 100.0, 2.0);
         assert!((low - 0.12).abs() < 1e-12 && (high - 0.28).abs() < 1e-12);
-        let (low, high) = funnel_limit(SizeKind::Exposure, 1.0, 25.0, 2.0);
+        let (low, high) = funnel_limit(Model::GammaPoisson.terms(), 1.0, 25.0, 2.0);
         assert!((low - 0.6).abs() < 1e-12 && (high - 1.4).abs() < 1e-12);
         // For estimates the abscissa is the precision 1/se²: se = 0.5 at x = 4.
-        let (low, high) = funnel_limit(SizeKind::StandardError, 3.0, 4.0, 2.0);
+        let (low, high) = funnel_limit(Model::NormalNormal.terms(), 3.0, 4.0, 2.0);
         assert!((low - 2.0).abs() < 1e-12 && (high - 4.0).abs() < 1e-12);
         // Proportions stay within [0, 1].
-        assert_eq!(funnel_limit(SizeKind::Trials, 0.05, 2.0, 3.0).0, 0.0);
+        assert_eq!(funnel_limit(Model::BetaBinomial.terms(), 0.05, 2.0, 3.0).0, 0.0);
     }
 
     #[test]

@@ -3,6 +3,7 @@
 //! trade, and the command line's contract (exit codes, errors, files).
 
 mod aggregation;
+mod architecture;
 mod checks;
 mod cli;
 mod config;

@@ -12,8 +12,8 @@
 //! and plain digamma differences beyond (see `special`).
 
 use super::{
-    point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, RateRange, SizeKind,
-    Unidentifiable,
+    point_mass_tails, Evaluation, Family, FunnelAxis, ModelTerms, PairFault, PlotTerms, Posterior, Prior,
+    PriorFigure, PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
 };
 use crate::core::incomplete::beta_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -159,7 +159,22 @@ impl Family for BetaBinomial {
         name: "beta-binomial",
         count_role: "successes",
         size_role: "trials",
-        size_kind: SizeKind::Trials,
+        count_rule: ValueRule::WholeCount,
+        size_rule: ValueRule::WholeCount,
+        pair_fault: |size, count| {
+            (count > size).then(|| PairFault::Count(format!("{count} successes exceed {size} trials")))
+        },
+        size_hint: |value, count_column, size_column| {
+            // Trials that are not whole are most often expected counts or an exposure.
+            (value.fract() != 0.0 && value > 0.0).then(|| {
+                format!(
+                    "trials are counted in whole numbers; if '{size_column}' holds expected counts or an \
+                     exposure, use the gamma-poisson model: --model gamma-poisson --events {count_column} \
+                     --exposure {size_column}"
+                )
+            })
+        },
+        raw_value: RawValue::Ratio,
         parameter_names: ["alpha", "beta"],
         raw_column: "raw_proportion",
         degenerate_data: "successes or all failures",
@@ -167,6 +182,27 @@ impl Family for BetaBinomial {
         mean_only_data:
             "every group has at most one trial, so the data say nothing about how much groups differ",
         overdispersion_test: "Tarone",
+        restricted_likelihood: false,
+        law_of: |[alpha, beta]| RateLaw::Beta { alpha, beta },
+        prior_keys: &[
+            PriorKey { key: "alpha", figure: PriorFigure::Natural(0) },
+            PriorKey { key: "beta", figure: PriorFigure::Natural(1) },
+            PriorKey { key: "alpha_se", figure: PriorFigure::NaturalSe(0) },
+            PriorKey { key: "beta_se", figure: PriorFigure::NaturalSe(1) },
+            PriorKey { key: "mean", figure: PriorFigure::Mean },
+            PriorKey { key: "mean_se", figure: PriorFigure::MeanSe },
+            PriorKey { key: "strength", figure: PriorFigure::Strength },
+            PriorKey { key: "strength_se", figure: PriorFigure::StrengthSe },
+        ],
+        prior_words: PriorWords { law: "Beta", shown: &[("alpha", "alpha", false), ("beta", "beta", false)] },
+        plots: PlotTerms {
+            raw_label: "raw proportion (successes / trials)",
+            size_noun: "trials",
+            funnel_noun: "trials",
+            funnel_axis: "trials (log scale)",
+            funnel_x: FunnelAxis::Size,
+            unit_variance: |p| p * (1.0 - p),
+        },
     };
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
@@ -357,13 +393,6 @@ impl Family for BetaBinomial {
                 let mean = alpha / s;
                 mean * (1.0 - mean) * (s + n) / (n * (s + 1.0))
             }
-        }
-    }
-
-    fn rate_law(posterior: &Posterior) -> RateLaw {
-        match posterior.natural {
-            Some([a, b]) => RateLaw::Beta { alpha: a, beta: b },
-            None => RateLaw::Point(posterior.mean),
         }
     }
 

@@ -11,8 +11,8 @@
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
 use super::{
-    point_mass_tails, Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, RateRange, SizeKind,
-    Unidentifiable,
+    point_mass_tails, Evaluation, Family, FunnelAxis, ModelTerms, PairFault, PlotTerms, Posterior, Prior,
+    PriorFigure, PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
 };
 use crate::core::incomplete::{beta_tails, gamma_tails};
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -53,13 +53,44 @@ impl Family for GammaPoisson {
         name: "gamma-poisson",
         count_role: "events",
         size_role: "exposure",
-        size_kind: SizeKind::Exposure,
+        count_rule: ValueRule::WholeCount,
+        size_rule: ValueRule::Amount("exposure"),
+        pair_fault: |size, count| {
+            (size == 0.0 && count > 0.0)
+                .then(|| PairFault::Size(format!("exposure is zero but there are {count} events")))
+        },
+        size_hint: |_, _, _| None,
+        raw_value: RawValue::Ratio,
         parameter_names: ["shape", "inverse_scale"],
         raw_column: "raw_rate",
         degenerate_data: "zero events",
         rates: RateRange::NonNegative,
         mean_only_data: "the data say nothing about how much groups differ",
         overdispersion_test: "Dean",
+        restricted_likelihood: false,
+        law_of: |[shape, rate]| RateLaw::Gamma { shape, rate },
+        prior_keys: &[
+            PriorKey { key: "shape", figure: PriorFigure::Natural(0) },
+            PriorKey { key: "rate", figure: PriorFigure::Natural(1) },
+            PriorKey { key: "shape_se", figure: PriorFigure::NaturalSe(0) },
+            PriorKey { key: "rate_se", figure: PriorFigure::NaturalSe(1) },
+            PriorKey { key: "mean", figure: PriorFigure::Mean },
+            PriorKey { key: "mean_se", figure: PriorFigure::MeanSe },
+            PriorKey { key: "strength", figure: PriorFigure::Strength },
+            PriorKey { key: "strength_se", figure: PriorFigure::StrengthSe },
+        ],
+        prior_words: PriorWords {
+            law: "Gamma",
+            shown: &[("shape", "shape", false), ("rate", "rate", false)],
+        },
+        plots: PlotTerms {
+            raw_label: "raw rate (events / exposure)",
+            size_noun: "exposure",
+            funnel_noun: "exposure",
+            funnel_axis: "exposure (log scale)",
+            funnel_x: FunnelAxis::Size,
+            unit_variance: |rate| rate,
+        },
     };
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
@@ -243,13 +274,6 @@ impl Family for GammaPoisson {
                 let mean = shape / rate;
                 mean / exposure + mean / rate
             }
-        }
-    }
-
-    fn rate_law(posterior: &Posterior) -> RateLaw {
-        match posterior.natural {
-            Some([a, b]) => RateLaw::Gamma { shape: a, rate: b },
-            None => RateLaw::Point(posterior.mean),
         }
     }
 

@@ -1,5 +1,5 @@
-//! The two hierarchical models, behind one trait the fitting loop is written
-//! against.
+//! The hierarchical models, behind one trait the fitting loop is written
+//! against, each with the [`ModelTerms`] the other layers ask of it.
 //!
 //! Three models: Beta priors for proportions, Gamma priors for event rates
 //! with exposure, normal priors for estimates with known standard errors.
@@ -93,10 +93,13 @@ pub enum Unidentifiable {
     NoData,
 }
 
-/// What differs between models outside the numerics: the name, the columns
-/// a model reads and what it accepts in them, the names of its parameters.
-/// Text here is for messages, options and output column names only.
-#[derive(Debug, PartialEq, Eq)]
+/// What a family tells the layers outside the numerics: its names, the
+/// columns it reads and what each accepts, how a group's raw value is
+/// formed, how its prior is written in a summary and shown in words, and
+/// what the report draws. The layers above ask these fields and never match
+/// on which family it is; a family that leaves one out does not build, since
+/// the struct has no defaults.
+#[derive(Debug)]
 pub struct ModelTerms {
     /// Name in files and on the command line.
     pub name: &'static str,
@@ -104,8 +107,18 @@ pub struct ModelTerms {
     pub count_role: &'static str,
     /// What the size column holds; also the option naming it (`--trials`).
     pub size_role: &'static str,
-    /// What the size column holds, and so what each column accepts.
-    pub size_kind: SizeKind,
+    /// What the count column accepts.
+    pub count_rule: ValueRule,
+    /// What the size column accepts.
+    pub size_rule: ValueRule,
+    /// The fault of a row whose count and size each pass their rule but not
+    /// together (more successes than trials), in words; None when they fit.
+    pub pair_fault: fn(size: f64, count: f64) -> Option<PairFault>,
+    /// Words added to a size fault, given the value read and the column
+    /// names (count, size): the likelier model for such sizes, if any.
+    pub size_hint: fn(value: f64, count_column: &str, size_column: &str) -> Option<String>,
+    /// How a group's raw value is formed from its count and size.
+    pub raw_value: RawValue,
     /// The natural parameters of prior and posterior, in order; the output
     /// writes the posterior's as `posterior_param_<name>`, a name no reader
     /// takes for the smoothed estimate (that is `posterior_mean`).
@@ -121,39 +134,158 @@ pub struct ModelTerms {
     pub mean_only_data: &'static str,
     /// Name of the score test for overdispersion this model uses.
     pub overdispersion_test: &'static str,
+    /// Whether the model has a restricted likelihood (REML) to maximise.
+    pub restricted_likelihood: bool,
+    /// The law of a group's rate under a prior or posterior with these
+    /// natural parameters.
+    pub law_of: fn([f64; 2]) -> RateLaw,
+    /// The prior's wire form in a summary: its keys, in the order written.
+    pub prior_keys: &'static [PriorKey],
+    /// The prior's shape in words: the law's name and the parameters shown.
+    pub prior_words: PriorWords,
+    /// The words and axes of the report's plots.
+    pub plots: PlotTerms,
 }
 
-/// What a model's size column holds; it decides what each column accepts.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum SizeKind {
-    /// Number of trials: a whole number ≥ 0; the count (successes) is a
-    /// whole number no larger.
-    Trials,
-    /// Exposure: a number ≥ 0, and > 0 when there are events; the count
-    /// (events) is a whole number ≥ 0.
-    Exposure,
-    /// A standard error: a finite number > 0; the count is an estimate,
-    /// any finite number.
-    StandardError,
-}
-
-impl SizeKind {
-    /// Sizes are whole numbers (trials).
-    pub fn whole_sizes(self) -> bool {
-        self == SizeKind::Trials
-    }
-
-    /// Counts are whole numbers (successes or events), not estimates.
-    pub fn whole_counts(self) -> bool {
-        self != SizeKind::StandardError
-    }
-
+impl ModelTerms {
     /// A group's raw value: count / size for rates (None without trials or
     /// exposure), the estimate itself for estimates.
-    pub fn raw_value(self, size: f64, count: f64) -> Option<f64> {
+    pub fn raw_value(&self, size: f64, count: f64) -> Option<f64> {
+        match self.raw_value {
+            RawValue::Count => Some(count),
+            RawValue::Ratio => (size > 0.0).then(|| count / size),
+        }
+    }
+}
+
+/// What a column accepts: the rule, named by what the values are.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ValueRule {
+    /// A whole number ≥ 0 held exactly in a double (to 2^53).
+    WholeCount,
+    /// A finite number ≥ 0, named by its noun in messages ("exposure").
+    Amount(&'static str),
+    /// A finite number above zero, from 1e-150 to 1e150, named by its noun
+    /// ("standard error").
+    Scale(&'static str),
+    /// Any finite number within ±1e150.
+    Finite,
+}
+
+impl ValueRule {
+    /// Values are whole numbers.
+    pub fn is_whole(self) -> bool {
+        self == ValueRule::WholeCount
+    }
+
+    /// Values are read as reals even where the column holds integers.
+    pub fn reads_reals(self) -> bool {
+        matches!(self, ValueRule::Scale(_) | ValueRule::Finite)
+    }
+}
+
+/// A row fault found by a family's check of count and size together.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum PairFault {
+    /// The count column is at fault.
+    Count(String),
+    /// The size column is at fault.
+    Size(String),
+}
+
+/// How a group's raw value is formed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RawValue {
+    /// count / size.
+    Ratio,
+    /// The count column itself (an estimate).
+    Count,
+}
+
+/// Which figure of a fitted prior a key of its wire form holds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PriorFigure {
+    /// The i-th natural parameter; null at complete pooling.
+    Natural(usize),
+    /// The i-th natural parameter, 0 at complete pooling (a variance).
+    NaturalOrZero(usize),
+    /// The standard error of the i-th natural parameter.
+    NaturalSe(usize),
+    /// The prior mean.
+    Mean,
+    /// The prior mean, which is also the i-th natural parameter (null as
+    /// that parameter at complete pooling).
+    MeanAndNatural(usize),
+    /// Its standard error.
+    MeanSe,
+    /// The prior strength; null when infinite.
+    Strength,
+    /// Its standard error.
+    StrengthSe,
+}
+
+/// One key of a prior's wire form.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PriorKey {
+    /// The key.
+    pub key: &'static str,
+    /// The figure it holds.
+    pub figure: PriorFigure,
+}
+
+/// A prior's shape in words: `Beta(alpha = 18.3, beta = 2.01)`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PriorWords {
+    /// The law's name.
+    pub law: &'static str,
+    /// The parameters shown: (label, wire key, whether its standard error
+    /// follows in brackets).
+    pub shown: &'static [(&'static str, &'static str, bool)],
+}
+
+/// The words and axes of the report's plots.
+#[derive(Debug, Clone, Copy)]
+pub struct PlotTerms {
+    /// A group's raw value, as an axis title.
+    pub raw_label: &'static str,
+    /// The size column in words.
+    pub size_noun: &'static str,
+    /// The funnel plot's abscissa in words, and as an axis title.
+    pub funnel_noun: &'static str,
+    /// The funnel plot's axis title.
+    pub funnel_axis: &'static str,
+    /// The funnel plot's abscissa: the size itself, or the precision 1/size².
+    pub funnel_x: FunnelAxis,
+    /// The variance of one unit of size at rate p (p(1 − p) for a
+    /// proportion, p for a Poisson rate, 1 for an estimate whose size is
+    /// its standard error): the funnel's limits are p ± z √(this / x).
+    pub unit_variance: fn(f64) -> f64,
+}
+
+/// The funnel plot's abscissa.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FunnelAxis {
+    /// The group's size (trials, exposure).
+    Size,
+    /// The precision 1/size² of an estimate whose size is its standard error.
+    Precision,
+}
+
+impl FunnelAxis {
+    /// A group's abscissa.
+    pub fn x(self, size: f64) -> f64 {
         match self {
-            SizeKind::StandardError => Some(count),
-            _ => (size > 0.0).then(|| count / size),
+            FunnelAxis::Size => size,
+            FunnelAxis::Precision => 1.0 / (size * size),
+        }
+    }
+
+    /// A group's share of the pooled rate, (numerator, denominator): its
+    /// count and size, or for an estimate the estimate and 1 weighted by precision.
+    pub fn pooled_parts(self, size: f64, count: f64) -> (f64, f64) {
+        match self {
+            FunnelAxis::Size => (count, size),
+            FunnelAxis::Precision => (count / (size * size), 1.0 / (size * size)),
         }
     }
 }
@@ -191,6 +323,15 @@ impl RateRange {
             }
     }
 
+    /// `(low, high)` cut back to the range.
+    pub fn clamp(self, (low, high): (f64, f64)) -> (f64, f64) {
+        match self {
+            RateRange::Proportion => (low.max(0.0), high.min(1.0)),
+            RateRange::NonNegative => (low.max(0.0), high),
+            RateRange::Real => (low, high),
+        }
+    }
+
     /// The range in words, after "a rate" or "a value".
     pub fn describe(self) -> &'static str {
         match self {
@@ -211,7 +352,9 @@ pub trait FamilyVisitor {
 }
 
 /// The model registry: adding a model is a file in this folder implementing
-/// [`Family`] and one line in the `models!` call below it.
+/// [`Family`] (with its [`ModelTerms`], a struct literal with no defaults,
+/// so a family that leaves a piece out does not build) and one line in the
+/// `models!` call below it. DEVELOPERS.md has the checklist.
 macro_rules! models {
     ($($variant:ident => $family:ty),+ $(,)?) => {
         /// A model, as chosen on the command line or found in a summary file.
@@ -314,14 +457,15 @@ impl RateLaw {
         }
     }
 
-    /// The law of a prior with natural parameters `natural`, of the model
-    /// whose size column holds `kind`.
-    pub fn of_prior(kind: SizeKind, natural: [f64; 2]) -> Self {
-        match kind {
-            SizeKind::Trials => RateLaw::Beta { alpha: natural[0], beta: natural[1] },
-            SizeKind::Exposure => RateLaw::Gamma { shape: natural[0], rate: natural[1] },
-            SizeKind::StandardError => RateLaw::Normal { mean: natural[0], sd: natural[1].sqrt() },
-        }
+    /// Whether the law is a point mass (complete pooling).
+    pub fn is_point(&self) -> bool {
+        matches!(self, RateLaw::Point(_))
+    }
+
+    /// Whether the law can put mass below zero (a mean of estimates; Beta
+    /// and Gamma rates are at least 0).
+    pub fn reaches_below_zero(&self) -> bool {
+        matches!(self, RateLaw::Normal { .. })
     }
 }
 
@@ -679,7 +823,12 @@ pub trait Family: Sync {
     /// posterior is a point mass at the pooled rate.
     fn rate_tails(prior: &Prior, size: f64, count: f64, threshold: f64) -> (f64, f64);
     /// The law of the rate under a posterior of this model.
-    fn rate_law(posterior: &Posterior) -> RateLaw;
+    fn rate_law(posterior: &Posterior) -> RateLaw {
+        match posterior.natural {
+            Some(natural) => (Self::TERMS.law_of)(natural),
+            None => RateLaw::Point(posterior.mean),
+        }
+    }
     /// ∂(posterior mean)/∂(natural parameters of the prior) for one pair.
     fn posterior_mean_gradient(natural: [f64; 2], size: f64, count: f64) -> [f64; 2];
     /// The equal-tailed interval (`tail` in each tail) of the posterior law

@@ -17,7 +17,10 @@
 //! not depend on μ, the joint maximum over (μ, τ²) is the usual REML
 //! estimate of τ² with μ at its weighted mean (Harville, JASA 1977).
 
-use super::{Evaluation, Family, ModelTerms, Posterior, Prior, RateLaw, RateRange, SizeKind, Unidentifiable};
+use super::{
+    Evaluation, Family, FunnelAxis, ModelTerms, PlotTerms, Posterior, Prior, PriorFigure, PriorKey,
+    PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
+};
 use crate::core::incomplete::erfc;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
@@ -68,13 +71,39 @@ impl Family for NormalNormal {
         name: "normal-normal",
         count_role: "estimate",
         size_role: "std-error",
-        size_kind: SizeKind::StandardError,
+        count_rule: ValueRule::Finite,
+        size_rule: ValueRule::Scale("standard error"),
+        pair_fault: |_, _| None,
+        size_hint: |_, _, _| None,
+        raw_value: RawValue::Count,
         parameter_names: ["mean", "variance"],
         raw_column: "raw_estimate",
         degenerate_data: "estimates",
         rates: RateRange::Real,
         mean_only_data: "there is only one group, so nothing says how much groups differ",
         overdispersion_test: "score test for tau^2 = 0",
+        restricted_likelihood: true,
+        law_of: |[mean, variance]| RateLaw::Normal { mean, sd: variance.sqrt() },
+        prior_keys: &[
+            PriorKey { key: "mean", figure: PriorFigure::MeanAndNatural(0) },
+            PriorKey { key: "mean_se", figure: PriorFigure::MeanSe },
+            PriorKey { key: "variance", figure: PriorFigure::NaturalOrZero(1) },
+            PriorKey { key: "variance_se", figure: PriorFigure::NaturalSe(1) },
+            PriorKey { key: "strength", figure: PriorFigure::Strength },
+            PriorKey { key: "strength_se", figure: PriorFigure::StrengthSe },
+        ],
+        prior_words: PriorWords {
+            law: "Normal",
+            shown: &[("mean", "mean", false), ("variance", "variance", true)],
+        },
+        plots: PlotTerms {
+            raw_label: "estimate",
+            size_noun: "standard error",
+            funnel_noun: "precision (1/se²)",
+            funnel_axis: "precision 1/se² (log scale)",
+            funnel_x: FunnelAxis::Precision,
+            unit_variance: |_| 1.0,
+        },
     };
 
     fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
@@ -254,13 +283,6 @@ impl Family for NormalNormal {
                 let (mean, sd) = Self::posterior_mean_sd(prior, se, y);
                 normal_tails(mean, sd, threshold)
             }
-        }
-    }
-
-    fn rate_law(posterior: &Posterior) -> RateLaw {
-        match posterior.natural {
-            Some([mean, variance]) => RateLaw::Normal { mean, sd: variance.sqrt() },
-            None => RateLaw::Point(posterior.mean),
         }
     }
 
