@@ -181,27 +181,67 @@ pub enum Likelihood {
     Restricted,
 }
 
-/// The objective of a fit at `u`: the marginal log likelihood, plus the
-/// restricted term when asked for.
-fn criterion<F: Family>(table: &PairTable, u: [f64; 2], likelihood: Likelihood) -> Evaluation {
-    let mut total = evaluate::<F>(table, u);
-    if likelihood == Likelihood::Restricted {
-        if let Some(term) = F::restricted_term(table, u) {
-            total.add_weighted(&term, 1.0);
+/// A point of a fit with the marginal likelihood's evaluation there.
+type Visited = ([f64; 2], Evaluation);
+
+/// The objective of a fit, remembering its last two points: argmin asks
+/// for the value, gradient and Hessian one at a time at the same point, the
+/// fit's start is the optimiser's start, and the polish and the final
+/// judgement start where the step before ended. A point met again is not
+/// summed over the pairs again (the same bits: the sums are deterministic).
+struct Criterion<'a, F> {
+    table: &'a PairTable,
+    likelihood: Likelihood,
+    recent: std::cell::RefCell<[Option<Visited>; 2]>,
+    family: std::marker::PhantomData<F>,
+}
+
+impl<'a, F: Family> Criterion<'a, F> {
+    fn new(table: &'a PairTable, likelihood: Likelihood) -> Self {
+        Criterion {
+            table,
+            likelihood,
+            recent: std::cell::RefCell::new([None, None]),
+            family: std::marker::PhantomData,
         }
     }
-    total
+
+    /// The marginal log likelihood with its derivatives at `u`.
+    fn marginal(&self, u: [f64; 2]) -> Evaluation {
+        let same = |at: [f64; 2]| at.map(f64::to_bits) == u.map(f64::to_bits);
+        if let Some((_, evaluation)) = self.recent.borrow().iter().flatten().find(|(at, _)| same(*at)) {
+            return *evaluation;
+        }
+        let evaluation = evaluate::<F>(self.table, u);
+        let mut recent = self.recent.borrow_mut();
+        recent[1] = recent[0];
+        recent[0] = Some((u, evaluation));
+        evaluation
+    }
+
+    /// The criterion at `u`: the marginal log likelihood, plus the
+    /// restricted term when asked for.
+    fn at(&self, u: [f64; 2]) -> Evaluation {
+        let mut total = self.marginal(u);
+        if self.likelihood == Likelihood::Restricted {
+            if let Some(term) = F::restricted_term(self.table, u) {
+                total.add_weighted(&term, 1.0);
+            }
+        }
+        total
+    }
 }
 
 /// Log-likelihood, gradient and Hessian summed over the table at `u`.
 pub fn evaluate<F: Family>(table: &PairTable, u: [f64; 2]) -> Evaluation {
+    let at = F::at_point(u);
     let parts: Vec<Evaluation> = table
         .pairs()
         .par_chunks(CHUNK)
         .map(|chunk| {
             let mut sum = Evaluation::default();
             for pair in chunk {
-                sum.add_weighted(&F::pair_terms(u, pair), pair.weight);
+                sum.add_weighted(&F::pair_terms_at(&at, pair), pair.weight);
             }
             sum
         })
@@ -218,32 +258,19 @@ pub fn pooled_log_likelihood<F: Family>(table: &PairTable, mean: f64) -> f64 {
     table.pairs().iter().map(|p: &WeightedPair| p.weight * F::pooled_log_pmf(mean, p)).sum()
 }
 
-/// Scaled objective handed to argmin. One pass over the pairs yields the
-/// value, gradient and Hessian together; argmin asks for them one at a time
-/// at the same point, so the last evaluation is kept.
-struct Objective<'a, F> {
-    table: &'a PairTable,
-    likelihood: Likelihood,
+/// Scaled objective handed to argmin.
+struct Objective<'a, 'b, F> {
+    criterion: &'b Criterion<'a, F>,
     scale: f64,
-    last: std::cell::RefCell<Option<([f64; 2], Evaluation)>>,
-    family: std::marker::PhantomData<F>,
 }
 
-impl<F: Family> Objective<'_, F> {
+impl<F: Family> Objective<'_, '_, F> {
     fn at(&self, u: &[f64]) -> Evaluation {
-        let u = [u[0], u[1]];
-        if let Some((at, evaluation)) = self.last.borrow().as_ref() {
-            if at.map(f64::to_bits) == u.map(f64::to_bits) {
-                return *evaluation;
-            }
-        }
-        let evaluation = criterion::<F>(self.table, u, self.likelihood);
-        *self.last.borrow_mut() = Some((u, evaluation));
-        evaluation
+        self.criterion.at([u[0], u[1]])
     }
 }
 
-impl<F: Family> CostFunction for Objective<'_, F> {
+impl<F: Family> CostFunction for Objective<'_, '_, F> {
     type Param = Vec<f64>;
     type Output = f64;
     fn cost(&self, u: &Vec<f64>) -> Result<f64, ArgminError> {
@@ -253,7 +280,7 @@ impl<F: Family> CostFunction for Objective<'_, F> {
     }
 }
 
-impl<F: Family> Gradient for Objective<'_, F> {
+impl<F: Family> Gradient for Objective<'_, '_, F> {
     type Param = Vec<f64>;
     type Gradient = Vec<f64>;
     fn gradient(&self, u: &Vec<f64>) -> Result<Vec<f64>, ArgminError> {
@@ -262,7 +289,7 @@ impl<F: Family> Gradient for Objective<'_, F> {
     }
 }
 
-impl<F: Family> Hessian for Objective<'_, F> {
+impl<F: Family> Hessian for Objective<'_, '_, F> {
     type Param = Vec<f64>;
     type Hessian = Vec<Vec<f64>>;
     fn hessian(&self, u: &Vec<f64>) -> Result<Vec<Vec<f64>>, ArgminError> {
@@ -350,17 +377,10 @@ fn information_is_definite(h: [[f64; 2]; 2]) -> bool {
 
 /// Runs the trust region from `start`, then polishes with Newton steps.
 fn maximise<F: Family>(
-    table: &PairTable,
+    criterion: &Criterion<'_, F>,
     start: [f64; 2],
-    likelihood: Likelihood,
 ) -> Result<([f64; 2], u64), ArgminError> {
-    let objective = Objective::<F> {
-        table,
-        likelihood,
-        scale: 1.0 / table.groups(),
-        last: std::cell::RefCell::new(None),
-        family: std::marker::PhantomData,
-    };
+    let objective = Objective { criterion, scale: 1.0 / criterion.table.groups() };
     let solver = StopOnSmallGradient {
         inner: TrustRegion::new(Steihaug::new().with_max_iters(20)).with_max_radius(8.0)?,
         tolerance: GRADIENT_TOLERANCE,
@@ -374,7 +394,7 @@ fn maximise<F: Family>(
         result.state().get_best_param().or(result.state().get_param()).cloned().unwrap_or(start.to_vec());
     let mut u = [best[0], best[1]];
     let mut iterations = result.state().get_iter();
-    let mut current = criterion::<F>(table, u, likelihood);
+    let mut current = criterion.at(u);
     for _ in 0..8 {
         let Some(inv) = inverse(current.hessian) else { break };
         if !information_is_definite(current.hessian) {
@@ -390,7 +410,7 @@ fn maximise<F: Family>(
         let noise = ROUNDING_NOISE * current.log_likelihood.abs();
         for _ in 0..30 {
             let trial = [u[0] + scale * step[0], u[1] + scale * step[1]];
-            let at = criterion::<F>(table, trial, likelihood);
+            let at = criterion.at(trial);
             let better = at.log_likelihood >= current.log_likelihood
                 || (at.log_likelihood >= current.log_likelihood - noise
                     && norm(&at.gradient) < norm(&current.gradient));
@@ -450,7 +470,8 @@ pub fn fit_by<F: Family>(table: &PairTable, likelihood: Likelihood) -> Result<Fi
     let moment = F::moment_strength(table, pooled_mean);
     let start_strength = moment.unwrap_or_else(|| F::typical_strength(table)).clamp(1e-3 * unit, 1e10 * unit);
     let start = F::working(pooled_mean, start_strength);
-    let start_ll = evaluate::<F>(table, start).log_likelihood;
+    let criterion = Criterion::<F>::new(table, likelihood);
+    let start_ll = criterion.marginal(start).log_likelihood;
 
     let boundary_fit = |iterations: u64| Fit {
         prior: Prior::CompletePooling { mean: pooled_mean },
@@ -472,16 +493,13 @@ pub fn fit_by<F: Family>(table: &PairTable, likelihood: Likelihood) -> Result<Fi
         uncertainty: PriorUncertainty::PooledMean(F::pooled_mean_se(table, pooled_mean).powi(2)),
     };
 
-    let (u, iterations) = match maximise::<F>(table, start, likelihood) {
+    let (u, iterations) = match maximise(&criterion, start) {
         Ok(found) => found,
         Err(_) if boundary_score <= 0.0 => return Ok(boundary_fit(0)),
         Err(_) => return Err(FitFailure::NotConverged { iterations: 0, gradient_norm: f64::NAN }),
     };
-    let at = criterion::<F>(table, u, likelihood);
-    let marginal_ll = match likelihood {
-        Likelihood::Marginal => at.log_likelihood,
-        Likelihood::Restricted => evaluate::<F>(table, u).log_likelihood,
-    };
+    let at = criterion.at(u);
+    let marginal_ll = criterion.marginal(u).log_likelihood;
     let gradient_norm = norm(&at.gradient) / groups;
     let (mean, strength) = F::mean_strength(u);
     let relative = strength / unit;

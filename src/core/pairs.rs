@@ -187,7 +187,8 @@ impl PairCounter {
                 slot += 1;
             }
         }
-        PairTable::from_weighted(pairs)
+        // Each pair is held in one place only (the dense triangle or the map): no merging.
+        PairTable::from_distinct(pairs)
     }
 }
 
@@ -204,6 +205,15 @@ impl PairTable {
         }
         let mut pairs: Vec<WeightedPair> = merged.into_values().collect();
         pairs.sort_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
+        PairTable { pairs }
+    }
+
+    /// Builds the table from pairs known to be distinct (a counter's), only
+    /// sorting them: the table [`PairTable::from_weighted`] gives, without
+    /// its merging map.
+    fn from_distinct(mut pairs: Vec<WeightedPair>) -> Self {
+        pairs.sort_unstable_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
+        debug_assert!(pairs.windows(2).all(|w| (w[0].size, w[0].count) != (w[1].size, w[1].count)));
         PairTable { pairs }
     }
 

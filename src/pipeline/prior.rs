@@ -512,11 +512,9 @@ fn model_checks<F: Family>(
     }
     let (observed, expected) = (observed / with_data.max(1.0), expected / with_data.max(1.0));
     // Terms in parallel, summed in table order: the same bits on any number of threads.
-    let terms: Vec<f64> = pairs
-        .par_iter()
-        .zip(place_of_pair)
-        .map(|(p, &place)| p.weight * prior_log_pmf::<F>(&priors[place], p))
-        .collect();
+    let points: Vec<PriorPoint<F>> = priors.iter().map(PriorPoint::of).collect();
+    let terms: Vec<f64> =
+        pairs.par_iter().zip(place_of_pair).map(|(p, &place)| p.weight * points[place].log_pmf(p)).collect();
     let log_likelihood: f64 = terms.iter().sum();
     let pooled_mean = F::pooled_mean(table);
     let z = F::overdispersion_z(table, pooled_mean);
@@ -551,13 +549,30 @@ fn model_checks<F: Family>(
     }
 }
 
-/// The log marginal pmf of one pair under a prior (the pooled pmf under complete pooling).
-fn prior_log_pmf<F: Family>(prior: &Prior, pair: &WeightedPair) -> f64 {
-    match *prior {
-        Prior::CompletePooling { mean } => F::pooled_log_pmf(mean, pair),
-        Prior::Conjugate { natural } => {
-            let (mean, strength) = F::mean_strength_of_natural(natural);
-            F::pair_terms(F::working(mean, strength), pair).log_likelihood
+/// A prior prepared for the log marginal pmf of many pairs.
+enum PriorPoint<F: Family> {
+    /// Complete pooling at this rate.
+    Pooled(f64),
+    /// A proper prior, at its point in working coordinates.
+    Proper(F::AtPoint),
+}
+
+impl<F: Family> PriorPoint<F> {
+    fn of(prior: &Prior) -> Self {
+        match *prior {
+            Prior::CompletePooling { mean } => PriorPoint::Pooled(mean),
+            Prior::Conjugate { natural } => {
+                let (mean, strength) = F::mean_strength_of_natural(natural);
+                PriorPoint::Proper(F::at_point(F::working(mean, strength)))
+            }
+        }
+    }
+
+    /// The log marginal pmf of one pair (the pooled pmf under complete pooling).
+    fn log_pmf(&self, pair: &WeightedPair) -> f64 {
+        match self {
+            PriorPoint::Pooled(mean) => F::pooled_log_pmf(*mean, pair),
+            PriorPoint::Proper(at) => F::pair_terms_at(at, pair).log_likelihood,
         }
     }
 }

@@ -19,8 +19,7 @@ use crate::core::incomplete::beta_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{beta_quantile, Tail};
 use crate::core::special::{
-    deviance_term, digamma_diff, ln_beta_remainder, ln_binomial_pmf, ln_binomial_pmf_pq,
-    scaled_digamma_excess, scaled_trigamma_excess, trigamma_diff,
+    deviance_term, ln_beta_remainder, ln_binomial_pmf, ln_binomial_pmf_pq, PolygammaBase,
 };
 
 /// The beta-binomial family (see the module docs).
@@ -147,11 +146,31 @@ fn cdf_summed_up_to(n: f64, k: f64, alpha: f64, beta: f64, most: u32) -> (f64, f
 /// p₁ → μ and the extra terms vanish: the pmf tends to the binomial.
 fn log_pmf_at(k: f64, n: f64, mu: f64, nu: f64, s: f64) -> f64 {
     let (a, b) = (mu * s, nu * s);
+    log_pmf_given(k, n, (a, b, s), ln_beta_remainder(a, b))
+}
+
+/// [`log_pmf_at`] with α, β, s and L(α, β) given, as a fit shares them over pairs.
+fn log_pmf_given(k: f64, n: f64, (a, b, s): (f64, f64, f64), prior_remainder: f64) -> f64 {
     let total = n + s;
     let (p1, q1) = ((k + a) / total, (n - k + b) / total);
     ln_binomial_pmf_pq(k, n, p1, q1) - deviance_term(a, s * p1) - deviance_term(b, s * q1)
         + ln_beta_remainder(k + a, n - k + b)
-        - ln_beta_remainder(a, b)
+        - prior_remainder
+}
+
+/// What every pair's terms share at one point u of a fit: μ, 1 − μ, α, β
+/// and s, L(α, β), and ψ and ψ′ at α, β and s.
+#[derive(Debug, Clone, Copy)]
+pub struct BetaPoint {
+    mu: f64,
+    nu: f64,
+    s: f64,
+    a: f64,
+    b: f64,
+    prior_remainder: f64,
+    at_a: PolygammaBase,
+    at_b: PolygammaBase,
+    at_s: PolygammaBase,
 }
 
 impl Family for BetaBinomial {
@@ -205,18 +224,35 @@ impl Family for BetaBinomial {
         },
     };
 
-    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
+    type AtPoint = BetaPoint;
+
+    fn at_point(u: [f64; 2]) -> BetaPoint {
+        let (mu, nu) = mean_and_complement(u[0]);
+        let s = u[1].exp();
+        let (a, b) = (mu * s, nu * s);
+        BetaPoint {
+            mu,
+            nu,
+            s,
+            a,
+            b,
+            prior_remainder: ln_beta_remainder(a, b),
+            at_a: PolygammaBase::new(a),
+            at_b: PolygammaBase::new(b),
+            at_s: PolygammaBase::new(s),
+        }
+    }
+
+    fn pair_terms_at(at: &BetaPoint, pair: &WeightedPair) -> Evaluation {
         let (n, k) = (pair.size, pair.count);
         if n == 0.0 {
             return Evaluation::default();
         }
-        let (mu, nu) = mean_and_complement(u[0]);
-        let s = u[1].exp();
-        let (a, b) = (mu * s, nu * s);
-        let log_likelihood = log_pmf_at(k, n, mu, nu, s);
+        let BetaPoint { mu, nu, s, a, b, .. } = *at;
+        let log_likelihood = log_pmf_given(k, n, (a, b, s), at.prior_remainder);
         let c = s * mu * nu;
-        let (dpa, dpb) = (digamma_diff(a, k), digamma_diff(b, n - k));
-        let (tpa, tpb) = (trigamma_diff(a, k), trigamma_diff(b, n - k));
+        let (dpa, dpb) = (at.at_a.digamma_diff(k), at.at_b.digamma_diff(n - k));
+        let (tpa, tpb) = (at.at_a.trigamma_diff(k), at.at_b.trigamma_diff(n - k));
         let g1 = c * (dpa - dpb);
         // Score for ln s: Σ x[ψ(x + m) − ψ(x)] over (a, k), (b, n − k), minus (s, n). With
         // n ≤ s each term is close to m and the sum of size n²/s, so the excess forms
@@ -224,14 +260,15 @@ impl Family for BetaBinomial {
         // n > s those excesses are each of size n and would cancel to the sum's O(s),
         // losing n·ε: the plain terms, each of size s ln(n/s), keep the digits.
         let g2 = if n <= s {
-            scaled_digamma_excess(a, k) + scaled_digamma_excess(b, n - k) - scaled_digamma_excess(s, n)
+            at.at_a.scaled_digamma_excess(k) + at.at_b.scaled_digamma_excess(n - k)
+                - at.at_s.scaled_digamma_excess(n)
         } else {
-            a * dpa + b * dpb - s * digamma_diff(s, n)
+            a * dpa + b * dpb - s * at.at_s.digamma_diff(n)
         };
         let h11 = c * (1.0 - 2.0 * mu) * (dpa - dpb) + c * c * (tpa + tpb);
         let h12 = g1 + c * (a * tpa - b * tpb);
-        let h22 =
-            scaled_trigamma_excess(a, k) + scaled_trigamma_excess(b, n - k) - scaled_trigamma_excess(s, n);
+        let h22 = at.at_a.scaled_trigamma_excess(k) + at.at_b.scaled_trigamma_excess(n - k)
+            - at.at_s.scaled_trigamma_excess(n);
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
     }
 

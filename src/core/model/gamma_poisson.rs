@@ -93,7 +93,13 @@ impl Family for GammaPoisson {
         },
     };
 
-    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
+    type AtPoint = [f64; 2];
+
+    fn at_point(u: [f64; 2]) -> [f64; 2] {
+        u
+    }
+
+    fn pair_terms_at(&u: &[f64; 2], pair: &WeightedPair) -> Evaluation {
         let (exposure, y) = (pair.size, pair.count);
         if exposure == 0.0 {
             return Evaluation::default();

@@ -754,8 +754,18 @@ impl Model {
 pub trait Family: Sync {
     /// The model's names and column rules.
     const TERMS: ModelTerms;
+    /// What the per-pair terms at one point u share (the prior's parameters
+    /// and functions of them alone): computed once per point of a fit, not
+    /// once per pair.
+    type AtPoint: Sync;
+    /// Those shared values at working coordinates `u`.
+    fn at_point(u: [f64; 2]) -> Self::AtPoint;
+    /// Per-pair log pmf and its derivatives at a point prepared by [`Family::at_point`].
+    fn pair_terms_at(at: &Self::AtPoint, pair: &WeightedPair) -> Evaluation;
     /// Per-pair log pmf and its derivatives at working coordinates `u`.
-    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation;
+    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
+        Self::pair_terms_at(&Self::at_point(u), pair)
+    }
     /// ln pmf under no overdispersion at rate `mean`.
     fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64;
     /// Maximum-likelihood rate under no overdispersion.

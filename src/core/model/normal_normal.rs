@@ -106,7 +106,13 @@ impl Family for NormalNormal {
         },
     };
 
-    fn pair_terms(u: [f64; 2], pair: &WeightedPair) -> Evaluation {
+    type AtPoint = [f64; 2];
+
+    fn at_point(u: [f64; 2]) -> [f64; 2] {
+        u
+    }
+
+    fn pair_terms_at(&u: &[f64; 2], pair: &WeightedPair) -> Evaluation {
         let (s2, r) = (pair.size * pair.size, pair.count - u[0]);
         let tau2 = (-u[1]).exp();
         let v = s2 + tau2;
