@@ -19,7 +19,7 @@ pub fn render_text(summary: &Summary) -> String {
         summary.model, summary.groups, summary.rows_read, summary.rows_rejected
     );
     let shape = match Model::from_name(&summary.model) {
-        Some(model) => prior.shape_in_words(model.terms(), &show, &three_digits),
+        Some(model) => prior.terminal_words(model.terms(), &show, &three_digits),
         None => format!("a prior of the unknown model {}", summary.model),
     };
     let _ = writeln!(

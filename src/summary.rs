@@ -470,28 +470,41 @@ impl FittedPrior {
         natural
     }
 
-    /// The prior's shape in the model's words, `Beta(alpha = 18.3, beta =
-    /// 2.01)`, each figure written by `number` and a standard error shown
-    /// beside it by `standard_error`.
-    pub fn shape_in_words(
+    /// The prior's shape in the model's words for the terminal, `Beta(alpha =
+    /// 18.3, beta = 2.01)`, each figure written by `number` and a standard
+    /// error shown beside it by `standard_error`.
+    pub fn terminal_words(
         &self,
         terms: &ModelTerms,
         number: &dyn Fn(Option<f64>) -> String,
         standard_error: &dyn Fn(f64) -> String,
     ) -> String {
-        let words = &terms.prior_words;
-        let shown: Vec<String> = words
-            .shown
+        let shown: Vec<String> = terms
+            .prior_words
+            .terminal
             .iter()
             .map(|&(label, key, with_se)| {
                 let se = match self.get(&format!("{key}_se")) {
                     Some(se) if with_se => format!(" (se {})", standard_error(se)),
                     _ => String::new(),
                 };
-                format!("{label} = {}{se}", number(self.get(key)))
+                format!("{label}{}{se}", number(self.get(key)))
             })
             .collect();
-        format!("{}({})", words.law, shown.join(", "))
+        format!("{}({})", terms.prior_words.law, shown.join(", "))
+    }
+
+    /// The prior's shape in the model's words for the report, `Beta(α = 18.3,
+    /// β = 2.01)`, each figure written by `number`; None where a figure shown
+    /// is null (complete pooling).
+    pub fn page_words(&self, terms: &ModelTerms, number: &dyn Fn(f64) -> String) -> Option<String> {
+        let shown: Option<Vec<String>> = terms
+            .prior_words
+            .page
+            .iter()
+            .map(|&(label, key)| self.get(key).map(|value| format!("{label}{}", number(value))))
+            .collect();
+        Some(format!("{}({})", terms.prior_words.law, shown?.join(", ")))
     }
 
     /// Prior mean.

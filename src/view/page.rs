@@ -163,10 +163,7 @@ fn segment_name(summary: &Summary, i: usize) -> String {
 
 /// A prior in words.
 fn prior_text(prior: &FittedPrior, model: Model) -> String {
-    let shape = match prior.natural(model.terms()) {
-        [Some(_), Some(_)] => prior.shape_in_words(model.terms(), &|v| v.map_or("n/a".into(), num), &num),
-        _ => "complete pooling".into(),
-    };
+    let shape = prior.page_words(model.terms(), &num).unwrap_or_else(|| "complete pooling".into());
     let strength = prior.strength().map_or("infinite (no overdispersion)".to_string(), num);
     format!(
         "{shape}; mean {} (standard error {}), strength {strength}",

@@ -204,3 +204,61 @@ fn the_returns_and_clinics_figures_in_the_prose() {
     printed(s["prior"]["mean"].as_f64().unwrap(), 2, "24.18");
     printed(s["prior"]["variance"].as_f64().unwrap().sqrt(), 2, "5.02");
 }
+
+/// Every file under `dir` (the demo data's link left out), by relative path.
+fn written_files(dir: &Path) -> Vec<std::path::PathBuf> {
+    let mut found = Vec::new();
+    let mut folders = vec![dir.to_path_buf()];
+    while let Some(folder) = folders.pop() {
+        for entry in std::fs::read_dir(&folder).unwrap() {
+            let path = entry.unwrap().path();
+            if path.ends_with("demo-data") {
+                continue;
+            }
+            if path.is_dir() {
+                folders.push(path);
+            } else {
+                found.push(path.strip_prefix(dir).unwrap().to_path_buf());
+            }
+        }
+    }
+    found.sort();
+    found
+}
+
+#[test]
+fn every_file_the_readme_commands_write_keeps_its_bytes() {
+    // Each `cargo run -- ...` command of the README, in order in one folder (the
+    // report reads what the fit before it wrote), and the XXH3-64 digest and
+    // length of every file they leave. The digests were recorded by this test
+    // (RATEPOOL_REFRESH_FIXTURES=1) at the commit where
+    // scripts/compare_readme_outputs.sh found these 8 commands' 15 files
+    // byte-identical to the ones written before the one-driver redesign
+    // (d112bd2): a change to any output byte fails here, and is either a
+    // regression or a format change to record (and explain) by refreshing.
+    let readme = std::fs::read_to_string(root().join("README.md")).unwrap();
+    let commands: Vec<&str> = readme
+        .match_indices("cargo run -- ")
+        .map(|(at, _)| readme[at..].split(['`', '\n']).next().unwrap())
+        .collect();
+    let dir = scratch();
+    for command in &commands {
+        run(dir.path(), &format!("--quiet {}", command.trim_start_matches("cargo run -- ")));
+    }
+    let digests: Vec<String> = written_files(dir.path())
+        .iter()
+        .map(|file| {
+            let bytes = std::fs::read(dir.path().join(file)).unwrap();
+            let digest = twox_hash::XxHash3_64::oneshot(&bytes);
+            format!("{} {digest:016x} {}", file.display(), bytes.len())
+        })
+        .collect();
+    let fixture = root().join("tests/fixtures/readme_outputs.txt");
+    let found =
+        format!("# {} README commands; file, XXH3-64, bytes\n{}\n", commands.len(), digests.join("\n"));
+    if std::env::var_os("RATEPOOL_REFRESH_FIXTURES").is_some() {
+        std::fs::write(&fixture, &found).unwrap();
+    }
+    let recorded = std::fs::read_to_string(&fixture).unwrap();
+    assert_eq!(found, recorded, "the README commands' outputs changed (see {})", fixture.display());
+}

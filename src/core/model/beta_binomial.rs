@@ -213,7 +213,11 @@ impl Family for BetaBinomial {
             PriorKey { key: "strength", figure: PriorFigure::Strength },
             PriorKey { key: "strength_se", figure: PriorFigure::StrengthSe },
         ],
-        prior_words: PriorWords { law: "Beta", shown: &[("alpha", "alpha", false), ("beta", "beta", false)] },
+        prior_words: PriorWords {
+            law: "Beta",
+            terminal: &[("alpha = ", "alpha", false), ("beta = ", "beta", false)],
+            page: &[("α = ", "alpha"), ("β = ", "beta")],
+        },
         plots: PlotTerms {
             raw_label: "raw proportion (successes / trials)",
             size_noun: "trials",

@@ -81,7 +81,8 @@ impl Family for GammaPoisson {
         ],
         prior_words: PriorWords {
             law: "Gamma",
-            shown: &[("shape", "shape", false), ("rate", "rate", false)],
+            terminal: &[("shape = ", "shape", false), ("rate = ", "rate", false)],
+            page: &[("shape ", "shape"), ("rate ", "rate")],
         },
         plots: PlotTerms {
             raw_label: "raw rate (events / exposure)",

@@ -233,14 +233,17 @@ pub struct PriorKey {
     pub figure: PriorFigure,
 }
 
-/// A prior's shape in words: `Beta(alpha = 18.3, beta = 2.01)`.
+/// A prior's shape in words: `Beta(alpha = 18.3, beta = 2.01)` on the
+/// terminal, `Beta(α = 18.3, β = 2.01)` in the report.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct PriorWords {
     /// The law's name.
     pub law: &'static str,
-    /// The parameters shown: (label, wire key, whether its standard error
-    /// follows in brackets).
-    pub shown: &'static [(&'static str, &'static str, bool)],
+    /// The parameters the terminal shows: (label and the words before the
+    /// figure, wire key, whether its standard error follows in brackets).
+    pub terminal: &'static [(&'static str, &'static str, bool)],
+    /// The parameters the report shows: (label and the words before the figure, wire key).
+    pub page: &'static [(&'static str, &'static str)],
 }
 
 /// The words and axes of the report's plots.

@@ -94,7 +94,8 @@ impl Family for NormalNormal {
         ],
         prior_words: PriorWords {
             law: "Normal",
-            shown: &[("mean", "mean", false), ("variance", "variance", true)],
+            terminal: &[("mean = ", "mean", false), ("variance = ", "variance", true)],
+            page: &[("mean ", "mean"), ("variance ", "variance")],
         },
         plots: PlotTerms {
             raw_label: "estimate",
