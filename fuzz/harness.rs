@@ -63,9 +63,8 @@ pub fn exercise(data: &[u8]) {
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,
-        watch: Default::default(),
     };
-    match run(&job) {
+    match run(&job, &mut ratepool::pipeline::Unwatched) {
         Ok(summary) => {
             assert!(output.exists() && dir.path().join("s.json").exists());
             assert!(summary.fit.log_marginal_likelihood.is_finite());

@@ -7,8 +7,9 @@ use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
     load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Likelihood,
-    Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule, Watch,
+    Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
 };
+use crate::progress::{Terminal, Watch};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
@@ -856,7 +857,6 @@ fn job_of(
     (pair_counts, likelihood): (Option<&String>, Likelihood),
     model: Model,
     prior: PriorSource,
-    watch: Watch,
 ) -> Result<Job> {
     let (aggregation, count, size) = rows_and_columns(table, model, pair_counts.is_some())?;
     let invalid = match (table.on_invalid, &table.rejects) {
@@ -902,7 +902,6 @@ fn job_of(
         },
         invalid,
         prior,
-        watch,
     })
 }
 
@@ -1004,8 +1003,7 @@ fn check_job_file(path: &std::path::Path, asked: Option<&str>) -> Result<String>
     full.extend(arguments.iter().cloned());
     let cli = Cli::try_parse_from(&full)
         .map_err(|e| mistakes_error(path, &[file.mistake_of(&clap_message(&e))]))?;
-    let watch = cli.watch();
-    cli.command.into_job(watch).map_err(|e| mistakes_error(path, &[file.mistake_of(&e.to_string())]))?;
+    cli.command.into_job().map_err(|e| mistakes_error(path, &[file.mistake_of(&e.to_string())]))?;
     Ok(format!("{}: a valid `{command}` job ({} keys)", path.display(), file.keys()))
 }
 
@@ -1065,8 +1063,8 @@ impl Command {
             .flatten()
             .cloned()
             .collect();
-        let job = self.into_job(watch)?;
-        let summary = crate::pipeline::run(&job)?;
+        let job = self.into_job()?;
+        let summary = crate::pipeline::run(&job, &mut Terminal::new(watch))?;
         if let (Some((html, plots)), Layout::Groups { output, .. }) = (report, &job.layout) {
             crate::view::write_report(&crate::view::ReportRequest {
                 table: output,
@@ -1086,7 +1084,7 @@ impl Command {
     }
 
     /// Validates the arguments into a job (reading the prior file for `score`).
-    pub fn into_job(self, watch: Watch) -> Result<Job> {
+    pub fn into_job(self) -> Result<Job> {
         match self {
             Command::Report(_) | Command::CheckConfig(_) | Command::Completions { .. } | Command::Manpage => {
                 Err(Error::Usage("this command runs no fit".to_string()))
@@ -1107,7 +1105,7 @@ impl Command {
                     }
                 };
                 let rows = (args.pair_counts.as_ref(), likelihood);
-                job_of(&args.table, rows, args.model, PriorSource::Fit, watch)
+                job_of(&args.table, rows, args.model, PriorSource::Fit)
             }
             Command::Score(args) => {
                 if args.table.min_groups.is_some() {
@@ -1140,7 +1138,6 @@ impl Command {
                     (None, Likelihood::Marginal),
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
-                    watch,
                 )
             }
         }

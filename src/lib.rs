@@ -32,6 +32,7 @@ pub mod core;
 pub mod error;
 pub mod io;
 pub mod pipeline;
+pub mod progress;
 pub mod report;
 pub mod summary;
 pub mod view;

@@ -129,8 +129,7 @@ impl OutcomeColumn {
 }
 
 /// Runs a job whose rows are trials or parts of groups.
-pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
-    let mut clock = PhaseClock::start(job.watch);
+pub fn run(job: &Job, output: &Path, batch_rows: usize, clock: &mut PhaseClock<'_>) -> Result<Summary> {
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let mut columns = vec![(names.group.as_str(), "group")];
@@ -217,7 +216,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
         counters.into_segments(&mut segment_index).into_iter().unzip();
     let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
     let lookup = PairLookup::new(&met, &tables);
-    let scored = score_pairs(job, segments, &mut clock)?;
+    let scored = score_pairs(job, segments, clock)?;
     let (shift_groups, mut staged) = write_groups(job, output, batch_rows, &scored, &totals, &lookup)?;
     clock.lap("score-and-write", "score and write");
     if let InvalidRows::Skip { rejects: path } = &job.invalid {

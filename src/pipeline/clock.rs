@@ -1,121 +1,100 @@
-//! What a run reports on stderr as it goes, when asked: each phase's wall
-//! time (`--timings`), progress lines (`--progress`), one JSON object per
-//! phase (`--log-format json`), and progress bars when stderr is a terminal.
-//! Progress is looked at once per batch, never per row, so it costs nothing
-//! measurable; none of it changes an output.
+//! The phase clock of a run: it times each phase and counts the rows
+//! through the passes, and tells a [`RunObserver`] as it goes. What is shown
+//! and how (timings, progress lines, JSON phases, progress bars) is the
+//! observer's business, outside the pipeline; progress is looked at once per
+//! batch, never per row, and none of it changes an output.
 
-use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use std::time::{Duration, Instant};
+use std::time::Instant;
 
-/// What is reported on stderr.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
-pub struct Watch {
-    /// `--timings`: each phase's wall time, as text.
-    pub timings: bool,
-    /// `--progress`: the end of each phase and the rows done, as text lines.
-    pub progress: bool,
-    /// `--log-format json`: one JSON object per phase.
-    pub json: bool,
-    /// Progress bars for the passes over the rows (stderr is a terminal,
-    /// and nothing else was asked of it).
-    pub bars: bool,
+/// A phase that has ended.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PhaseEnd<'a> {
+    /// The phase's stable name (`pass-1`, `fit`, ...).
+    pub name: &'a str,
+    /// The phase in words.
+    pub description: &'a str,
+    /// The phase's wall time.
+    pub seconds: f64,
+    /// Wall time since the run started.
+    pub since_start: f64,
+    /// Rows through the phase, for a phase that reads rows.
+    pub rows: Option<usize>,
+    /// Distinct pairs known by then.
+    pub pairs: Option<usize>,
 }
 
-/// How often progress through a long phase is reported as text, at most.
-const REPORT_EVERY: Duration = Duration::from_secs(1);
+/// Rows through a pass, told once per batch.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RowsThrough<'a> {
+    /// The pass in words (`pass 1 of 2`).
+    pub phase: &'a str,
+    /// Rows through it so far.
+    pub done: usize,
+    /// Rows in all, when known before the end (Parquet).
+    pub total: Option<usize>,
+    /// Wall time since the run started.
+    pub since_start: f64,
+}
+
+/// Whoever watches a run: told of each phase as it ends and of the rows
+/// through the passes.
+pub trait RunObserver {
+    /// A phase ended.
+    fn phase_ended(&mut self, phase: &PhaseEnd<'_>);
+    /// Rows went through a pass (once per batch).
+    fn rows_through(&mut self, rows: &RowsThrough<'_>);
+}
+
+/// An observer that shows nothing.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Unwatched;
+
+impl RunObserver for Unwatched {
+    fn phase_ended(&mut self, _: &PhaseEnd<'_>) {}
+    fn rows_through(&mut self, _: &RowsThrough<'_>) {}
+}
 
 /// The phase clock of one run.
-pub(crate) struct PhaseClock {
-    watch: Watch,
+pub(crate) struct PhaseClock<'a> {
+    observer: &'a mut dyn RunObserver,
     started: Instant,
     last: Instant,
-    last_report: Instant,
-    /// Rows through the current phase, for the JSON object.
+    /// Rows through the current phase.
     rows: Option<usize>,
-    /// Distinct pairs known so far, for the JSON object.
+    /// Distinct pairs known so far.
     pairs: Option<usize>,
-    bar: Option<ProgressBar>,
 }
 
-impl PhaseClock {
-    pub(crate) fn start(watch: Watch) -> Self {
+impl<'a> PhaseClock<'a> {
+    pub(crate) fn start(observer: &'a mut dyn RunObserver) -> Self {
         let now = Instant::now();
-        PhaseClock { watch, started: now, last: now, last_report: now, rows: None, pairs: None, bar: None }
+        PhaseClock { observer, started: now, last: now, rows: None, pairs: None }
     }
 
-    /// Records the number of distinct pairs, reported with the phases from now on.
+    /// Records the number of distinct pairs, told with the phases from now on.
     pub(crate) fn pairs(&mut self, pairs: usize) {
         self.pairs = Some(pairs);
     }
 
-    /// Ends the current phase: `name` is its stable name (in JSON), `description` its words.
+    /// Ends the current phase: `name` is its stable name, `description` its words.
     pub(crate) fn lap(&mut self, name: &str, description: &str) {
         let now = Instant::now();
-        let seconds = (now - self.last).as_secs_f64();
-        if let Some(bar) = self.bar.take() {
-            bar.finish_and_clear();
-        }
-        if self.watch.timings {
-            eprintln!("timing {description}: {seconds:.3} s");
-        }
-        if self.watch.progress {
-            eprintln!("progress {description}: done at {:.1} s", (now - self.started).as_secs_f64());
-        }
-        if self.watch.json {
-            let object = serde_json::json!({
-                "event": "phase",
-                "name": name,
-                "description": description,
-                "seconds": seconds,
-                "rows": self.rows,
-                "pairs": self.pairs,
-            });
-            eprintln!("{object}");
-        }
+        self.observer.phase_ended(&PhaseEnd {
+            name,
+            description,
+            seconds: (now - self.last).as_secs_f64(),
+            since_start: (now - self.started).as_secs_f64(),
+            rows: self.rows,
+            pairs: self.pairs,
+        });
         self.rows = None;
         self.last = now;
     }
 
     /// Within a phase: `done` of `total` rows (when known) are through.
-    /// As text, reported when a second has passed since the last report,
-    /// and always at the end.
     pub(crate) fn rows(&mut self, phase: &str, done: usize, total: Option<usize>) {
         self.rows = Some(done);
-        if self.watch.bars {
-            let bar = self.bar.get_or_insert_with(|| new_bar(phase, total));
-            bar.set_position(done as u64);
-        }
-        if !self.watch.progress {
-            return;
-        }
-        let now = Instant::now();
-        if total.is_none_or(|total| done < total) && now - self.last_report < REPORT_EVERY {
-            return;
-        }
-        self.last_report = now;
-        let at = (now - self.started).as_secs_f64();
-        match total {
-            Some(total) => {
-                let share = 100.0 * done as f64 / total.max(1) as f64;
-                eprintln!("progress {phase}: {done} of {total} rows ({share:.1}%) at {at:.1} s");
-            }
-            None => eprintln!("progress {phase}: {done} rows at {at:.1} s"),
-        }
+        let since_start = self.started.elapsed().as_secs_f64();
+        self.observer.rows_through(&RowsThrough { phase, done, total, since_start });
     }
-}
-
-/// A bar over `total` rows, or a counter when the total is not known (CSV).
-fn new_bar(phase: &str, total: Option<usize>) -> ProgressBar {
-    let (bar, template) = match total {
-        Some(total) => {
-            (ProgressBar::new(total as u64), "{msg:>12} [{bar:40}] {human_pos}/{human_len} rows, {eta} left")
-        }
-        None => (ProgressBar::new_spinner(), "{msg:>12} {spinner} {human_pos} rows, {elapsed}"),
-    };
-    bar.set_draw_target(ProgressDrawTarget::stderr_with_hz(4));
-    if let Ok(style) = ProgressStyle::with_template(template) {
-        bar.set_style(style.progress_chars("=> "));
-    }
-    bar.set_message(phase.to_string());
-    bar
 }

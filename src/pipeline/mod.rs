@@ -23,7 +23,7 @@ pub use crate::core::fit::Likelihood;
 pub use crate::core::model::Model;
 pub use crate::core::ranking::RankOrder;
 pub(crate) use clock::PhaseClock;
-pub use clock::Watch;
+pub use clock::{PhaseEnd, RowsThrough, RunObserver, Unwatched};
 
 /// Rates whose exceedance probabilities are asked for: `above` adds
 /// P(rate > T | data) per group, `below` P(rate < T | data).
@@ -251,8 +251,6 @@ pub struct Job {
     pub invalid: InvalidRows,
     /// Prior source.
     pub prior: PriorSource,
-    /// What is reported on stderr as the run goes.
-    pub watch: Watch,
 }
 
 /// Reads a summary file written by an earlier run, to reuse its prior.
@@ -263,14 +261,16 @@ pub fn load_summary(path: &Path) -> Result<Summary> {
         .map_err(|e| Error::Input(format!("{}: not a ratepool summary file: {e}", path.display())))
 }
 
-/// Runs a job and returns its summary (also written to the summary file).
-pub fn run(job: &Job) -> Result<Summary> {
+/// Runs a job and returns its summary (also written to the summary file),
+/// telling `observer` of each phase as it ends.
+pub fn run(job: &Job, observer: &mut dyn RunObserver) -> Result<Summary> {
+    let mut clock = PhaseClock::start(observer);
     match &job.layout {
         Layout::Groups { output, batch_rows } if job.aggregation == Aggregation::Groups => {
-            passes::run(job, output, *batch_rows)
+            passes::run(job, output, *batch_rows, &mut clock)
         }
-        Layout::Groups { output, batch_rows } => aggregate::run(job, output, *batch_rows),
-        Layout::PairCounts { weights } => pair_table::run(job, weights),
+        Layout::Groups { output, batch_rows } => aggregate::run(job, output, *batch_rows, &mut clock),
+        Layout::PairCounts { weights } => pair_table::run(job, weights, &mut clock),
     }
 }
 

@@ -14,8 +14,7 @@ use crate::io::input::Input;
 use crate::summary::Summary;
 
 /// Fits the prior to a pair table; every row must be valid.
-pub fn run(job: &Job, weights: &str) -> Result<Summary> {
-    let mut clock = PhaseClock::start(job.watch);
+pub fn run(job: &Job, weights: &str, clock: &mut PhaseClock<'_>) -> Result<Summary> {
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let mut columns =
@@ -49,7 +48,7 @@ pub fn run(job: &Job, weights: &str) -> Result<Summary> {
     clock.lap("read-and-validate", "read and validate");
     let segments: Vec<SegmentPairs> =
         counters.into_segments(&mut index).into_iter().map(|(_, s)| s).collect();
-    let scored = score_pairs(job, segments, &mut clock)?;
+    let scored = score_pairs(job, segments, clock)?;
     let summary = summarise(job, RowCounts { read: rows as u64, rejected: 0 }, &scored, Default::default());
     let mut staged = Default::default();
     stage_pair_output(job, &scored, &mut staged)?;

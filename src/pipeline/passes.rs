@@ -146,8 +146,12 @@ struct PassOne {
 }
 
 /// Runs a job over any input, two passes of `batch_rows` rows.
-pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
-    let mut clock = PhaseClock::start(job.watch);
+pub(crate) fn run(
+    job: &Job,
+    output: &Path,
+    batch_rows: usize,
+    clock: &mut PhaseClock<'_>,
+) -> Result<Summary> {
     let (count_role, size_role) = roles(job.model);
     let names = &job.columns;
     let mut columns = vec![
@@ -157,7 +161,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     ];
     columns.extend(job.segments.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
     let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
-    let mut first = count_pairs(job, &input, &mut clock)?;
+    let mut first = count_pairs(job, &input, clock)?;
     clock.lap("pass-1", "pass 1: read, validate, count pairs");
     if first.rows == 0 {
         return Err(no_data_rows(job));
@@ -175,10 +179,10 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
     }
     let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
     let lookup = PairLookup::new(&met, &tables);
-    let scored = score_pairs(job, segments, &mut clock)?;
+    let scored = score_pairs(job, segments, clock)?;
     let rows = first.rows;
     let found = Found { segments: segment_index, pairs: lookup, repeats };
-    let (shift_groups, staged) = score_and_write(job, &input, &scored, output, found, (&mut clock, rows))?;
+    let (shift_groups, staged) = score_and_write(job, &input, &scored, output, found, (clock, rows))?;
     clock.lap("pass-2", "pass 2: read, score, write");
     let counts = RowCounts { read: rows as u64, rejected: first.rejected as u64 };
     let summary = summarise(job, counts, &scored, shift_groups);
@@ -190,7 +194,7 @@ pub fn run(job: &Job, output: &Path, batch_rows: usize) -> Result<Summary> {
 
 /// Pass 1: the pair counts of the valid rows, rows read and rejected, the
 /// first row fault, and a hash of every group id.
-fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock) -> Result<PassOne> {
+fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<PassOne> {
     let total = input.known_rows();
     let mut pass = PassOne {
         pairs: SegmentCounters::new(),
@@ -322,7 +326,7 @@ fn score_and_write(
     scored: &Scored,
     output: &Path,
     mut found: Found,
-    (clock, rows): (&mut PhaseClock, usize),
+    (clock, rows): (&mut PhaseClock<'_>, usize),
 ) -> Result<(ShiftGroups, StagedOutputs)> {
     let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
@@ -439,19 +443,19 @@ mod tests {
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,
-            watch: Default::default(),
         }
     }
 
     /// Scores `pairs` as one segment and runs pass 2 over `open`, expecting `rows` rows.
     fn pass_two(job: &Job, open: &Input, output: &Path, pairs: &[WeightedPair], rows: usize) -> Result<()> {
-        let mut clock = PhaseClock::start(job.watch);
+        let mut observer = crate::pipeline::Unwatched;
+        let clock = &mut PhaseClock::start(&mut observer);
         let table = PairTable::from_weighted(pairs.iter().copied());
         let lookup = PairLookup::new(&[0], &[table.pairs()]);
         let segment = SegmentPairs { key: Vec::new(), samples: Vec::new(), table };
-        let scored = score_pairs(job, vec![segment], &mut clock)?;
+        let scored = score_pairs(job, vec![segment], clock)?;
         let found = Found { segments: SegmentIndex::default(), pairs: lookup, repeats: Repeats::default() };
-        score_and_write(job, open, &scored, output, found, (&mut clock, rows)).map(|_| ())
+        score_and_write(job, open, &scored, output, found, (clock, rows)).map(|_| ())
     }
 
     /// Pass 2 of an input that changed after pass 1: here pass 1's pairs

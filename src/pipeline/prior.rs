@@ -101,18 +101,18 @@ impl Scored {
 
 /// Fits or loads the priors for the segments' pairs (one segment of every
 /// pair when not segmented) and scores every pair.
-pub fn score_pairs(job: &Job, segments: Vec<SegmentPairs>, clock: &mut PhaseClock) -> Result<Scored> {
+pub fn score_pairs(job: &Job, segments: Vec<SegmentPairs>, clock: &mut PhaseClock<'_>) -> Result<Scored> {
     job.model.visit(ScorePairs { job, segments, clock })
 }
 
 /// [`score_with`] for the job's model.
-struct ScorePairs<'a> {
+struct ScorePairs<'a, 'b> {
     job: &'a Job,
     segments: Vec<SegmentPairs>,
-    clock: &'a mut PhaseClock,
+    clock: &'a mut PhaseClock<'b>,
 }
 
-impl FamilyVisitor for ScorePairs<'_> {
+impl FamilyVisitor for ScorePairs<'_, '_> {
     type Output = Result<Scored>;
 
     fn visit<F: Family>(self) -> Result<Scored> {
@@ -227,7 +227,11 @@ fn key_of_report(columns: &[String], saved: &crate::summary::SegmentReport) -> S
     columns.iter().map(|c| saved.key.get(c).cloned().flatten()).collect()
 }
 
-fn score_with<F: Family>(job: &Job, segments: Vec<SegmentPairs>, clock: &mut PhaseClock) -> Result<Scored> {
+fn score_with<F: Family>(
+    job: &Job,
+    segments: Vec<SegmentPairs>,
+    clock: &mut PhaseClock<'_>,
+) -> Result<Scored> {
     let segmented = !job.segments.is_empty();
     if let PriorSource::Saved { path, summary } = &job.prior {
         refuse_other_segments(path, &summary.segment_columns, &job.segments)?;
