@@ -7,22 +7,19 @@
 //! in the order each group first appears, so the output is the same bytes
 //! as that of the summed table.
 
+use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
 use super::passes::{row_error, BatchView, RowFault};
-use super::prior::score_pairs;
-use super::scoring::{
-    commit_outputs, pair_columns, stage_pair_output, summarise, table_metadata, RejectRows, RowCounts,
-    ShiftGroups, ShiftTracker,
-};
-use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
+use super::prior::Scored;
+use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
+use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex};
 use super::validate::{outcome, Rejection, MAX_EXACT_COUNT, MISSING_GROUP};
-use super::{no_data_rows, no_valid_rows, roles, Aggregation, InvalidRows, Job, PhaseClock};
-use crate::core::pairs::{PairHasher, WeightedPair};
+use super::{Aggregation, InvalidRows, Job, PhaseClock};
+use crate::core::pairs::PairHasher;
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, Cell, GroupColumn, NumericColumn};
-use crate::io::input::{Input, InputBatch, SEGMENT_ROLE};
+use crate::io::input::{Input, InputBatch};
 use crate::io::sink::TableSink;
-use crate::summary::Summary;
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use arrow_schema::DataType;
 use std::collections::HashMap;
@@ -128,107 +125,118 @@ impl OutcomeColumn {
     }
 }
 
-/// Runs a job whose rows are trials or parts of groups.
-pub fn run(job: &Job, output: &Path, batch_rows: usize, clock: &mut PhaseClock<'_>) -> Result<Summary> {
-    let (count_role, size_role) = roles(job.model);
-    let names = &job.columns;
-    let mut columns = vec![(names.group.as_str(), "group")];
-    match &job.aggregation {
-        Aggregation::Outcome(column) => columns.push((column.as_str(), "outcome")),
-        _ => columns.extend([(names.count.as_str(), count_role), (names.size.as_str(), size_role)]),
+/// Rows that are trials or parts of groups: one reading sums each group,
+/// then one row per group is written.
+pub(super) struct SummedRows<'a> {
+    input: Input,
+    output: &'a Path,
+    batch_rows: usize,
+    /// Where the segment columns start among the input columns.
+    first_segment: usize,
+    totals: GroupTotals,
+    rejects: RejectRows,
+}
+
+impl<'a> SummedRows<'a> {
+    /// Opens the input of `job` in batches of `batch_rows` rows, to write `output`.
+    pub(super) fn open(job: &Job, output: &'a Path, batch_rows: usize) -> Result<Self> {
+        let mut lead = vec![(job.columns.group.as_str(), "group")];
+        match &job.aggregation {
+            Aggregation::Outcome(column) => lead.push((column.as_str(), "outcome")),
+            _ => lead.extend(count_and_size(job)),
+        }
+        let first_segment = lead.len();
+        let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
+        let totals = GroupTotals { integer_ids: true, ..Default::default() };
+        Ok(SummedRows { input, output, batch_rows, first_segment, totals, rejects: RejectRows::default() })
     }
-    let first_segment = columns.len();
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
-    let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
-    let mut totals = GroupTotals { integer_ids: true, ..Default::default() };
-    let mut segment_index = SegmentIndex::default();
-    let mut rejects = RejectRows::default();
-    let (mut rows, mut rejected, mut fault): (usize, usize, Option<RowFault>) = (0, 0, None);
-    input.for_each_batch(|batch| {
-        let group = GroupColumn::of(&batch.columns[0])?;
-        totals.integer_ids &= matches!(group, GroupColumn::Integers(_));
-        let segments = SegmentColumns::of(&batch.columns[first_segment..])?;
-        let reader = RowReader::of(job, &batch)?;
-        for row in 0..batch.rows() {
-            let checked = if group.is_missing(row) {
-                Err(Rejection { row, column: names.group.clone(), reason: MISSING_GROUP.to_string() })
-            } else {
-                reader.check(job, &batch, row)?
-            };
-            let (size, count) = match checked {
-                Ok(pair) => pair,
-                Err(rejection) => {
-                    rejected += 1;
-                    if let InvalidRows::Skip { .. } = job.invalid {
-                        let cells = reader.cells(&batch, row)?;
-                        rejects.push(
-                            batch.first_row + row + 1,
-                            group.text(row),
-                            &cells[0],
-                            &cells[1],
-                            &rejection,
-                        );
+}
+
+impl Source for SummedRows<'_> {
+    fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
+        let names = &job.columns;
+        let SummedRows { input, first_segment, totals, rejects, .. } = self;
+        let mut segment_index = SegmentIndex::default();
+        let (mut rows, mut rejected, mut fault): (usize, usize, Option<RowFault>) = (0, 0, None);
+        input.for_each_batch(|batch| {
+            let group = GroupColumn::of(&batch.columns[0])?;
+            totals.integer_ids &= matches!(group, GroupColumn::Integers(_));
+            let segments = SegmentColumns::of(&batch.columns[*first_segment..])?;
+            let reader = RowReader::of(job, &batch)?;
+            for row in 0..batch.rows() {
+                let checked = if group.is_missing(row) {
+                    Err(Rejection { row, column: names.group.clone(), reason: MISSING_GROUP.to_string() })
+                } else {
+                    reader.check(job, &batch, row)?
+                };
+                let (size, count) = match checked {
+                    Ok(pair) => pair,
+                    Err(rejection) => {
+                        rejected += 1;
+                        if let InvalidRows::Skip { .. } = job.invalid {
+                            let cells = reader.cells(&batch, row)?;
+                            rejects.push(
+                                batch.first_row + row + 1,
+                                group.text(row),
+                                &cells[0],
+                                &cells[1],
+                                &rejection,
+                            );
+                        }
+                        fault.get_or_insert_with(|| row_error(&batch, rejection));
+                        continue;
                     }
-                    fault.get_or_insert_with(|| row_error(&batch, rejection));
-                    continue;
-                }
-            };
-            let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
-            let index = group.with_bytes(row, |id| totals.group_of(segment, id));
-            // Compared before adding: a sum past 2^53 would round back to it.
-            let (count_over, size_over) = (
-                count > MAX_EXACT_COUNT - totals.counts[index],
-                size > MAX_EXACT_COUNT - totals.sizes[index],
-            );
-            if count_over || size_over {
-                return Err(Error::InvalidRow {
-                    path: batch.file.to_path_buf(),
-                    row: batch.first_row_in_file + row + 1,
-                    column: if count_over { &names.count } else { &names.size }.clone(),
-                    reason: format!(
+                };
+                let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
+                let index = group.with_bytes(row, |id| totals.group_of(segment, id));
+                // Compared before adding: a sum past 2^53 would round back to it.
+                let (count_over, size_over) = (
+                    count > MAX_EXACT_COUNT - totals.counts[index],
+                    size > MAX_EXACT_COUNT - totals.sizes[index],
+                );
+                if count_over || size_over {
+                    let column = if count_over { &names.count } else { &names.size }.clone();
+                    let reason = format!(
                         "the sum for group '{}' exceeds 2^53, the largest count held exactly",
                         group.text(row)
-                    ),
-                });
+                    );
+                    return Err(Rejection { row, column, reason }.stopping(&batch));
+                }
+                totals.counts[index] += count;
+                totals.sizes[index] += size;
             }
-            totals.counts[index] += count;
-            totals.sizes[index] += size;
+            rows = batch.first_row + batch.rows();
+            clock.rows("read and sum", rows, input.known_rows());
+            Ok(())
+        })?;
+        clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
+        if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
+            return Err(fault.error);
         }
-        rows = batch.first_row + batch.rows();
-        clock.rows("read and sum", rows, input.known_rows());
-        Ok(())
-    })?;
-    clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
-    if rows == 0 {
-        return Err(no_data_rows(job));
+        let mut pairs = SegmentCounters::new();
+        for g in 0..totals.len() {
+            pairs.of(totals.segments[g]).add(totals.sizes[g], totals.counts[g], 1.0);
+        }
+        Ok(Counted { pairs, segments: segment_index, rows, rejected })
     }
-    if let (InvalidRows::Fail, Some(fault)) = (&job.invalid, fault) {
-        return Err(fault.error);
+
+    fn write(
+        &mut self,
+        job: &Job,
+        scored: &Scored,
+        placement: Placement,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<(ShiftGroups, StagedOutputs)> {
+        let (shift_groups, mut staged) =
+            write_groups(job, (self.output, self.batch_rows), scored, &self.totals, &placement.pairs)?;
+        clock.lap("score-and-write", "score and write");
+        if let InvalidRows::Skip { rejects: path } = &job.invalid {
+            let mut sink = TableSink::create(path)?;
+            sink.write(self.rejects.take_columns(&reject_names(job)))?;
+            staged.add(sink.finish()?);
+        }
+        Ok((shift_groups, staged))
     }
-    if totals.len() == 0 {
-        return Err(no_valid_rows(job, rejected));
-    }
-    let mut counters = SegmentCounters::new();
-    for g in 0..totals.len() {
-        counters.of(totals.segments[g]).add(totals.sizes[g], totals.counts[g], 1.0);
-    }
-    let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
-        counters.into_segments(&mut segment_index).into_iter().unzip();
-    let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
-    let lookup = PairLookup::new(&met, &tables);
-    let scored = score_pairs(job, segments, clock)?;
-    let (shift_groups, mut staged) = write_groups(job, output, batch_rows, &scored, &totals, &lookup)?;
-    clock.lap("score-and-write", "score and write");
-    if let InvalidRows::Skip { rejects: path } = &job.invalid {
-        let mut sink = TableSink::create(path)?;
-        sink.write(rejects.take_columns(&reject_names(job)))?;
-        staged.add(sink.finish()?);
-    }
-    let counts = RowCounts { read: rows as u64, rejected: rejected as u64 };
-    let summary = summarise(job, counts, &scored, shift_groups);
-    stage_pair_output(job, &scored, &mut staged)?;
-    commit_outputs(job, &summary, staged)?;
-    Ok(summary)
 }
 
 /// The rejects table's column names: with `--outcome`, the outcome column
@@ -292,9 +300,8 @@ impl<'a> RowReader<'a> {
 /// chunks of `batch_rows`; returns the groups that moved furthest.
 fn write_groups(
     job: &Job,
-    output: &Path,
-    batch_rows: usize,
-    scored: &super::prior::Scored,
+    (output, batch_rows): (&Path, usize),
+    scored: &Scored,
     totals: &GroupTotals,
     lookup: &PairLookup,
 ) -> Result<(ShiftGroups, StagedOutputs)> {

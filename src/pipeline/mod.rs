@@ -1,11 +1,13 @@
 //! The end-to-end job: read, validate, aggregate to pairs, fit (or load a
 //! prior), score every group, and write the table, the rejects and the
-//! summary, in that order. Two layouts share that sequence: one row per
-//! group (any input, read in two batched passes: [`passes`]), and a
-//! pre-aggregated pair table that yields only the summary.
+//! summary, in that order. Every layout runs through one driver
+//! (`driver`): one row per group (any input, read in two batched passes:
+//! [`passes`]), rows to be summed per group (`aggregate`), and a
+//! pre-aggregated pair table that yields only the summary (`pair_table`).
 
 mod aggregate;
 mod clock;
+mod driver;
 pub mod duplicates;
 mod pair_table;
 pub mod passes;
@@ -267,10 +269,14 @@ pub fn run(job: &Job, observer: &mut dyn RunObserver) -> Result<Summary> {
     let mut clock = PhaseClock::start(observer);
     match &job.layout {
         Layout::Groups { output, batch_rows } if job.aggregation == Aggregation::Groups => {
-            passes::run(job, output, *batch_rows, &mut clock)
+            driver::drive(job, &mut passes::GroupRows::open(job, output, *batch_rows)?, &mut clock)
         }
-        Layout::Groups { output, batch_rows } => aggregate::run(job, output, *batch_rows, &mut clock),
-        Layout::PairCounts { weights } => pair_table::run(job, weights, &mut clock),
+        Layout::Groups { output, batch_rows } => {
+            driver::drive(job, &mut aggregate::SummedRows::open(job, output, *batch_rows)?, &mut clock)
+        }
+        Layout::PairCounts { weights } => {
+            driver::drive(job, &mut pair_table::PairRows::open(job, weights)?, &mut clock)
+        }
     }
 }
 

@@ -3,55 +3,69 @@
 //! number of groups sharing it. The fit needs nothing else; only the summary
 //! (the prior, reusable by `score`) is written.
 
-use super::prior::score_pairs;
-use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts};
-use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::validate::{check_values, group_count};
-use super::{no_data_rows, roles, Job, PhaseClock, DEFAULT_BATCH_ROWS};
-use crate::error::{Error, Result};
+use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
+use super::prior::Scored;
+use super::scoring::ShiftGroups;
+use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex};
+use super::validate::{check_values, group_count, Rejection};
+use super::{Job, PhaseClock, DEFAULT_BATCH_ROWS};
+use crate::error::Result;
+use crate::io::atomic::StagedOutputs;
 use crate::io::cells::cell_at;
 use crate::io::input::Input;
-use crate::summary::Summary;
 
-/// Fits the prior to a pair table; every row must be valid.
-pub fn run(job: &Job, weights: &str, clock: &mut PhaseClock<'_>) -> Result<Summary> {
-    let (count_role, size_role) = roles(job.model);
-    let names = &job.columns;
-    let mut columns =
-        vec![(weights, "group count"), (names.count.as_str(), count_role), (names.size.as_str(), size_role)];
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
-    let input = Input::open(&job.input, job.delimiter, &columns, DEFAULT_BATCH_ROWS)?;
-    let (mut counters, mut index, mut rows) = (SegmentCounters::new(), SegmentIndex::default(), 0);
-    input.for_each_batch(|batch| {
-        let segments = SegmentColumns::of(&batch.columns[3..])?;
-        for row in 0..batch.rows() {
-            let invalid = |column: &str, reason: String| Error::InvalidRow {
-                path: batch.file.to_path_buf(),
-                row: batch.first_row_in_file + row + 1,
-                column: column.to_string(),
-                reason,
-            };
-            let (count, size) = (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
-            let (size, count) = check_values(names, job.model.terms(), &count, &size)
-                .map_err(|(column, reason)| invalid(column, reason))?;
-            let weight =
-                group_count(&cell_at(&batch.columns[0], row)?).map_err(|reason| invalid(weights, reason))?;
-            let segment = if segments.is_empty() { 0 } else { index.number(&segments, row) };
-            counters.of(segment).add(size, count, weight);
-            rows += 1;
-        }
-        Ok(())
-    })?;
-    if rows == 0 {
-        return Err(no_data_rows(job));
+/// A pre-aggregated pair table: every row must be valid, and only the
+/// summary (and the pair output) is written.
+pub(super) struct PairRows<'a> {
+    input: Input,
+    weights: &'a str,
+}
+
+impl<'a> PairRows<'a> {
+    /// Opens the input of `job`, whose column `weights` counts the groups of each pair.
+    pub(super) fn open(job: &Job, weights: &'a str) -> Result<Self> {
+        let mut lead = vec![(weights, "group count")];
+        lead.extend(count_and_size(job));
+        let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), DEFAULT_BATCH_ROWS)?;
+        Ok(PairRows { input, weights })
     }
-    clock.lap("read-and-validate", "read and validate");
-    let segments: Vec<SegmentPairs> =
-        counters.into_segments(&mut index).into_iter().map(|(_, s)| s).collect();
-    let scored = score_pairs(job, segments, clock)?;
-    let summary = summarise(job, RowCounts { read: rows as u64, rejected: 0 }, &scored, Default::default());
-    let mut staged = Default::default();
-    stage_pair_output(job, &scored, &mut staged)?;
-    commit_outputs(job, &summary, staged)?;
-    Ok(summary)
+}
+
+impl Source for PairRows<'_> {
+    fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
+        let (mut pairs, mut segments_met, mut rows) = (SegmentCounters::new(), SegmentIndex::default(), 0);
+        let weights = self.weights;
+        self.input.for_each_batch(|batch| {
+            let segments = SegmentColumns::of(&batch.columns[3..])?;
+            for row in 0..batch.rows() {
+                let invalid = |column: &str, reason: String| {
+                    Rejection { row, column: column.to_string(), reason }.stopping(&batch)
+                };
+                let (count, size) = (cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?);
+                let (size, count) = check_values(&job.columns, job.model.terms(), &count, &size)
+                    .map_err(|(column, reason)| invalid(column, reason))?;
+                let weight = group_count(&cell_at(&batch.columns[0], row)?)
+                    .map_err(|reason| invalid(weights, reason))?;
+                let segment = if segments.is_empty() { 0 } else { segments_met.number(&segments, row) };
+                pairs.of(segment).add(size, count, weight);
+                rows += 1;
+            }
+            Ok(())
+        })?;
+        if rows == 0 {
+            return Ok(Counted::default());
+        }
+        clock.lap("read-and-validate", "read and validate");
+        Ok(Counted { pairs, segments: segments_met, rows, rejected: 0 })
+    }
+
+    fn write(
+        &mut self,
+        _: &Job,
+        _: &Scored,
+        _: Placement,
+        _: &mut PhaseClock<'_>,
+    ) -> Result<(ShiftGroups, StagedOutputs)> {
+        Ok((ShiftGroups::default(), StagedOutputs::default()))
+    }
 }

@@ -13,23 +13,19 @@
 //!
 //! Every output is staged and renamed into place only at the end.
 
+use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
-use super::prior::{score_pairs, Scored};
-use super::scoring::{
-    commit_outputs, pair_columns, stage_pair_output, summarise, table_metadata, RejectRows, RowCounts,
-    ShiftGroups, ShiftTracker,
-};
-use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::validate::{check_values, plain_real, Rejection, MISSING_GROUP};
-use super::{no_data_rows, no_valid_rows, roles, InvalidRows, Job, PhaseClock};
+use super::prior::Scored;
+use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
+use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex};
+use super::validate::{check_values, plain_real, row_fault, Rejection, MISSING_GROUP};
+use super::{InvalidRows, Job, PhaseClock};
 use crate::core::model::{ModelTerms, ValueRule};
-use crate::core::pairs::WeightedPair;
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch};
 use crate::io::sink::TableSink;
-use crate::summary::Summary;
 use arrow_array::ArrayRef;
 use std::path::Path;
 
@@ -124,15 +120,7 @@ pub(super) struct RowFault {
 
 /// The fault of a row of `batch`, placed in its file.
 pub(super) fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFault {
-    RowFault {
-        row: batch.first_row + rejection.row,
-        error: Error::InvalidRow {
-            path: batch.file.to_path_buf(),
-            row: batch.first_row_in_file + rejection.row + 1,
-            column: rejection.column,
-            reason: rejection.reason,
-        },
-    }
+    RowFault { row: batch.first_row + rejection.row, error: rejection.stopping(batch) }
 }
 
 /// What pass 1 learns.
@@ -145,51 +133,61 @@ struct PassOne {
     ids: IdHashes,
 }
 
-/// Runs a job over any input, two passes of `batch_rows` rows.
-pub(crate) fn run(
-    job: &Job,
-    output: &Path,
-    batch_rows: usize,
-    clock: &mut PhaseClock<'_>,
-) -> Result<Summary> {
-    let (count_role, size_role) = roles(job.model);
-    let names = &job.columns;
-    let mut columns = vec![
-        (names.group.as_str(), "group"),
-        (names.count.as_str(), count_role),
-        (names.size.as_str(), size_role),
-    ];
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
-    let input = Input::open(&job.input, job.delimiter, &columns, batch_rows)?;
-    let mut first = count_pairs(job, &input, clock)?;
-    clock.lap("pass-1", "pass 1: read, validate, count pairs");
-    if first.rows == 0 {
-        return Err(no_data_rows(job));
+/// One row per group, in any input: two passes of batches.
+pub(super) struct GroupRows<'a> {
+    input: Input,
+    output: &'a Path,
+    /// Data rows pass 1 read, which pass 2 must read again.
+    rows: usize,
+    /// Repeated ids found after pass 1, for pass 2 to reject.
+    repeats: Repeats,
+}
+
+impl<'a> GroupRows<'a> {
+    /// Opens the input of `job` in batches of `batch_rows` rows, to write `output`.
+    pub(super) fn open(job: &Job, output: &'a Path, batch_rows: usize) -> Result<Self> {
+        let mut lead = vec![(job.columns.group.as_str(), "group")];
+        lead.extend(count_and_size(job));
+        let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
+        Ok(GroupRows { input, output, rows: 0, repeats: Repeats::default() })
     }
-    let repeats = find_repeats(job, &input, &mut first)?;
-    clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat");
-    if let Some(fault) = earliest_fault(job, &input, first.first_fault.take(), &repeats) {
-        return Err(fault);
+}
+
+impl Source for GroupRows<'_> {
+    fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
+        let mut first = count_pairs(job, &self.input, clock)?;
+        clock.lap("pass-1", "pass 1: read, validate, count pairs");
+        if first.rows == 0 {
+            return Ok(Counted::default());
+        }
+        self.rows = first.rows;
+        self.repeats = find_repeats(job, &self.input, &mut first)?;
+        clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat");
+        if let Some(fault) = earliest_fault(job, &self.input, first.first_fault.take(), &self.repeats) {
+            return Err(fault);
+        }
+        Ok(Counted {
+            pairs: first.pairs,
+            segments: first.segments,
+            rows: first.rows,
+            rejected: first.rejected,
+        })
     }
-    let mut segment_index = std::mem::take(&mut first.segments);
-    let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
-        std::mem::take(&mut first.pairs).into_segments(&mut segment_index).into_iter().unzip();
-    if segments.iter().all(|s| s.table.pairs().is_empty()) {
-        return Err(no_valid_rows(job, first.rejected));
+
+    fn write(
+        &mut self,
+        job: &Job,
+        scored: &Scored,
+        placement: Placement,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<(ShiftGroups, StagedOutputs)> {
+        let rows = self.rows;
+        let repeats = std::mem::take(&mut self.repeats);
+        let found = Found { segments: placement.segments, pairs: placement.pairs, repeats };
+        let written = score_and_write(job, &self.input, scored, self.output, found, (clock, rows))?;
+        clock.lap("pass-2", "pass 2: read, score, write");
+        Ok(written)
     }
-    let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
-    let lookup = PairLookup::new(&met, &tables);
-    let scored = score_pairs(job, segments, clock)?;
-    let rows = first.rows;
-    let found = Found { segments: segment_index, pairs: lookup, repeats };
-    let (shift_groups, staged) = score_and_write(job, &input, &scored, output, found, (clock, rows))?;
-    clock.lap("pass-2", "pass 2: read, score, write");
-    let counts = RowCounts { read: rows as u64, rejected: first.rejected as u64 };
-    let summary = summarise(job, counts, &scored, shift_groups);
-    let mut staged = staged;
-    stage_pair_output(job, &scored, &mut staged)?;
-    commit_outputs(job, &summary, staged)?;
-    Ok(summary)
 }
 
 /// Pass 1: the pair counts of the valid rows, rows read and rejected, the
@@ -276,12 +274,8 @@ fn earliest_fault(job: &Job, input: &Input, fault: Option<RowFault>, repeats: &R
         Some((row, first)) => {
             let place = input.place(row);
             let group = group_text_at(input, row).unwrap_or_default();
-            Some(Error::InvalidRow {
-                path: place.file,
-                row: place.row_in_file + 1,
-                column: job.columns.group.clone(),
-                reason: repeat_reason(input, &group, first),
-            })
+            let reason = repeat_reason(input, &group, first);
+            Some(row_fault(&place.file, place.row_in_file, job.columns.group.clone(), reason))
         }
         None => fault.map(|f| f.error),
     }
@@ -417,6 +411,9 @@ fn score_and_write(
 mod tests {
     use super::*;
     use crate::core::pairs::PairTable;
+    use crate::core::pairs::WeightedPair;
+    use crate::pipeline::prior::score_pairs;
+    use crate::pipeline::segments::SegmentPairs;
     use crate::pipeline::validate::ColumnNames;
     use crate::pipeline::Model;
     use crate::pipeline::{Layout, Level, PriorSource, DEFAULT_BATCH_ROWS};

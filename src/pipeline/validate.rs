@@ -1,7 +1,10 @@
 //! Row validation rules: which input rows can be scored, and why the others
 //! cannot. Pure functions over cells; the I/O layer supplies the cells.
 
+use crate::error::Error;
 use crate::io::cells::Cell;
+use crate::io::input::InputBatch;
+use std::path::Path;
 
 /// Counts above 2^53 cannot all be held exactly in a double.
 pub const MAX_EXACT_COUNT: f64 = 9_007_199_254_740_992.0;
@@ -17,6 +20,19 @@ pub struct Rejection {
     pub column: String,
     /// What is wrong.
     pub reason: String,
+}
+
+impl Rejection {
+    /// The error that stops a run at this row of `batch` (`--on-invalid error`).
+    pub fn stopping(self, batch: &InputBatch<'_>) -> Error {
+        row_fault(batch.file, batch.first_row_in_file + self.row, self.column, self.reason)
+    }
+}
+
+/// The one error that names a faulty row: its file, its 0-based row in that
+/// file (shown 1-based, as the data rows count), the column and the reason.
+pub fn row_fault(file: &Path, row_in_file: usize, column: String, reason: String) -> Error {
+    Error::InvalidRow { path: file.to_path_buf(), row: row_in_file + 1, column, reason }
 }
 
 /// Names of the input columns in play.

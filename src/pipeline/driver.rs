@@ -1,0 +1,96 @@
+//! The one driver every input layout runs through. A layout is a
+//! [`Source`]: it reads its rows into pair counts per segment (pass 1, with
+//! whatever else its rows need: repeated ids, sums per group), and later
+//! writes the scored groups (pass 2, or one row per summed group, or nothing
+//! for a pair table). Between the two the driver does what every layout
+//! shares: the pair tables and the lookup from a row's pair to its place,
+//! the fit (or the saved prior) and every pair's scores; after them the
+//! summary, the pair output, and the commit of every output together, all or
+//! nothing.
+
+use super::prior::{score_pairs, Scored};
+use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts, ShiftGroups};
+use super::segments::{PairLookup, SegmentCounters, SegmentIndex, SegmentPairs};
+use super::{no_data_rows, no_valid_rows, roles, Job, PhaseClock};
+use crate::core::pairs::WeightedPair;
+use crate::error::Result;
+use crate::io::atomic::StagedOutputs;
+use crate::io::input::SEGMENT_ROLE;
+use crate::summary::Summary;
+
+/// What a source's first reading found.
+#[derive(Default)]
+pub(super) struct Counted {
+    /// The pair counts of the valid rows (or groups), per segment.
+    pub pairs: SegmentCounters,
+    /// The segments, numbered as met.
+    pub segments: SegmentIndex,
+    /// Data rows read.
+    pub rows: usize,
+    /// Rows rejected.
+    pub rejected: usize,
+}
+
+/// Where a scored group's values are: its segment as met, and its pair's
+/// number in the scored table by (segment, size, count).
+pub(super) struct Placement {
+    /// The segments as met in the first reading.
+    pub segments: SegmentIndex,
+    /// Pair numbers by segment and pair.
+    pub pairs: PairLookup,
+}
+
+/// An input layout.
+pub(super) trait Source {
+    /// Reads the input and counts the pairs; a fault that stops the run
+    /// (with `--on-invalid error`) is returned as the error.
+    fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted>;
+
+    /// Writes the scored groups (the table and the rejects), staged; returns
+    /// the groups that moved furthest.
+    fn write(
+        &mut self,
+        job: &Job,
+        scored: &Scored,
+        placement: Placement,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<(ShiftGroups, StagedOutputs)>;
+}
+
+/// Runs `source` through the pipeline.
+pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'_>) -> Result<Summary> {
+    let counted = source.count(job, clock)?;
+    if counted.rows == 0 {
+        return Err(no_data_rows(job));
+    }
+    let mut segments_met = counted.segments;
+    let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
+        counted.pairs.into_segments(&mut segments_met).into_iter().unzip();
+    if segments.iter().all(|s| s.table.pairs().is_empty()) {
+        return Err(no_valid_rows(job, counted.rejected));
+    }
+    let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
+    let pairs = PairLookup::new(&met, &tables);
+    let scored = score_pairs(job, segments, clock)?;
+    let placement = Placement { segments: segments_met, pairs };
+    let (shift_groups, mut staged) = source.write(job, &scored, placement, clock)?;
+    let counts = RowCounts { read: counted.rows as u64, rejected: counted.rejected as u64 };
+    let summary = summarise(job, counts, &scored, shift_groups);
+    stage_pair_output(job, &scored, &mut staged)?;
+    commit_outputs(job, &summary, staged)?;
+    Ok(summary)
+}
+
+/// The input columns a run reads: `lead` (the group or weight column and
+/// what each row holds), then the segment columns of `--by`.
+pub(super) fn input_columns<'a>(job: &'a Job, lead: Vec<(&'a str, &'a str)>) -> Vec<(&'a str, &'a str)> {
+    let mut columns = lead;
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
+    columns
+}
+
+/// The count and size columns with their roles in the model's words.
+pub(super) fn count_and_size(job: &Job) -> [(&str, &str); 2] {
+    let (count_role, size_role) = roles(job.model);
+    [(job.columns.count.as_str(), count_role), (job.columns.size.as_str(), size_role)]
+}
