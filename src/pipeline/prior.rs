@@ -10,7 +10,7 @@
 //! ratio test says whether one prior per segment fits better than one for all.
 
 use super::segments::{SegmentKey, SegmentPairs};
-use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, DRAW_BUDGET};
+use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, TopRule, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{
@@ -232,23 +232,80 @@ fn score_with<F: Family>(
     segments: Vec<SegmentPairs>,
     clock: &mut PhaseClock<'_>,
 ) -> Result<Scored> {
-    let segmented = !job.segments.is_empty();
     if let PriorSource::Saved { path, summary } = &job.prior {
         refuse_other_segments(path, &summary.segment_columns, &job.segments)?;
     }
-    let all_pairs: Vec<WeightedPair> =
-        segments.iter().flat_map(|s| s.table.pairs().iter().copied()).collect();
-    if let Some(rule) = job.top {
-        let groups: f64 = all_pairs.iter().map(|p| p.weight).sum();
-        if rule.k as f64 >= groups {
-            return Err(Error::Usage(format!(
-                "--top {} asks for the top {} of {groups} groups: every group would be among them (prob_top 1); give K below {groups}",
-                rule.k, rule.k
-            )));
-        }
+    let places = PairPlaces::of(&segments);
+    refuse_top_of_everyone(job, &places.pairs)?;
+    let priors = priors_in_use::<F>(job, &segments, clock)?;
+    let posteriors = posteriors_of::<F>(job, &priors, &places);
+    let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
+    clock.lap("posteriors", "posteriors");
+    Ok(scored_of::<F>(job, segments, priors, places, (posteriors, decisions)))
+}
+
+/// `--top K` with K at least the number of groups asks nothing: refused.
+fn refuse_top_of_everyone(job: &Job, pairs: &[WeightedPair]) -> Result<()> {
+    let Some(rule) = job.top else { return Ok(()) };
+    let groups: f64 = pairs.iter().map(|p| p.weight).sum();
+    if rule.k as f64 >= groups {
+        return Err(Error::Usage(format!(
+            "--top {} asks for the top {} of {groups} groups: every group would be among them (prob_top 1); give K below {groups}",
+            rule.k, rule.k
+        )));
     }
+    Ok(())
+}
+
+/// Every distinct pair of every segment, segment after segment, with the
+/// place of each pair's segment and each segment's range of pairs.
+struct PairPlaces {
+    pairs: Vec<WeightedPair>,
+    place_of_pair: Vec<usize>,
+    ranges: Vec<std::ops::Range<usize>>,
+}
+
+impl PairPlaces {
+    fn of(segments: &[SegmentPairs]) -> Self {
+        let pairs: Vec<WeightedPair> =
+            segments.iter().flat_map(|s| s.table.pairs().iter().copied()).collect();
+        let mut ranges = Vec::with_capacity(segments.len());
+        let mut place_of_pair = Vec::with_capacity(pairs.len());
+        for (place, segment) in segments.iter().enumerate() {
+            let start = place_of_pair.len();
+            place_of_pair.extend(std::iter::repeat_n(place, segment.table.pairs().len()));
+            ranges.push(start..place_of_pair.len());
+        }
+        PairPlaces { pairs, place_of_pair, ranges }
+    }
+
+    fn weights(&self) -> Vec<f64> {
+        self.pairs.iter().map(|p| p.weight).collect()
+    }
+}
+
+/// The priors a run scores with: the all-groups one, and per segment its
+/// own or why it took the all-groups one; per segment the prior in use,
+/// what is known of its uncertainty, and that spread over quadrature nodes
+/// for corrected intervals.
+struct PriorsInUse {
+    all_table: PairTable,
+    all: Chosen,
+    choices: Vec<std::result::Result<Chosen, String>>,
+    priors: Vec<Prior>,
+    spreads: Vec<Option<Uncertainty>>,
+}
+
+/// Fits (or loads) the all-groups prior and one per segment, in parallel,
+/// with their median bias for corrected intervals.
+fn priors_in_use<F: Family>(
+    job: &Job,
+    segments: &[SegmentPairs],
+    clock: &mut PhaseClock<'_>,
+) -> Result<PriorsInUse> {
+    let segmented = !job.segments.is_empty();
     let all_table = if segmented {
-        PairTable::from_weighted(all_pairs.iter().copied())
+        PairTable::from_weighted(segments.iter().flat_map(|s| s.table.pairs().iter().copied()))
     } else {
         segments[0].table.clone()
     };
@@ -266,7 +323,7 @@ fn score_with<F: Family>(
         vec![Ok(all.clone())]
     };
     if segmented && bootstrap {
-        for (place, (choice, segment)) in choices.iter_mut().zip(&segments).enumerate() {
+        for (place, (choice, segment)) in choices.iter_mut().zip(segments).enumerate() {
             if let Ok(own) = choice {
                 own.fit.working_bias = bias_of::<F>(job, own, &segment.table, place as u64 + 1);
             }
@@ -292,14 +349,6 @@ fn score_with<F: Family>(
             "{path}: the prior's covariance is not saved (a summary from an older ratepool); fit again for --intervals corrected"
         )));
     }
-    let mut ranges = Vec::with_capacity(segments.len());
-    let mut place_of_pair = Vec::with_capacity(all_pairs.len());
-    for (place, segment) in segments.iter().enumerate() {
-        let start = place_of_pair.len();
-        place_of_pair.extend(std::iter::repeat_n(place, segment.table.pairs().len()));
-        ranges.push(start..place_of_pair.len());
-    }
-    let tail = job.level.tail();
     // Per segment, once: the fitted prior's uncertainty spread over quadrature nodes.
     let spreads: Vec<Option<Uncertainty>> = priors
         .iter()
@@ -310,24 +359,51 @@ fn score_with<F: Family>(
             _ => None,
         })
         .collect();
-    let posteriors: Vec<Posterior> = all_pairs
+    Ok(PriorsInUse { all_table, all, choices, priors, spreads })
+}
+
+/// Each pair's posterior under its segment's prior (corrected for the
+/// prior's estimation when asked).
+fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces) -> Vec<Posterior> {
+    let tail = job.level.tail();
+    places
+        .pairs
         .par_iter()
-        .zip(&place_of_pair)
-        .map(|(p, &place)| match &spreads[place] {
-            Some(uncertainty) => corrected_posterior::<F>(&priors[place], uncertainty, p.size, p.count, tail),
-            None => F::posterior(&priors[place], p.size, p.count, tail),
+        .zip(&places.place_of_pair)
+        .map(|(p, &place)| match &priors.spreads[place] {
+            Some(uncertainty) => {
+                corrected_posterior::<F>(&priors.priors[place], uncertainty, p.size, p.count, tail)
+            }
+            None => F::posterior(&priors.priors[place], p.size, p.count, tail),
         })
-        .collect();
+        .collect()
+}
+
+/// The decisions over the whole table: exceedance, flags, `prob_top`.
+struct Decisions {
+    prob_above: Option<Vec<f64>>,
+    prob_below: Option<Vec<f64>>,
+    flags: Option<FdrFlags>,
+    prob_top: Option<(Vec<f64>, TopMethod)>,
+}
+
+fn decisions_of<F: Family>(
+    job: &Job,
+    priors: &PriorsInUse,
+    places: &PairPlaces,
+    posteriors: &[Posterior],
+) -> Decisions {
+    let (all_pairs, place_of_pair) = (&places.pairs, &places.place_of_pair);
     // Exceedance (and so the flags) as the intervals: corrected when they are.
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
         all_pairs
             .par_iter()
-            .zip(&place_of_pair)
-            .map(|(p, &place)| match &spreads[place] {
+            .zip(place_of_pair)
+            .map(|(p, &place)| match &priors.spreads[place] {
                 Some(uncertainty) => {
-                    corrected_tails::<F>(&priors[place], uncertainty, p.size, p.count, threshold)
+                    corrected_tails::<F>(&priors.priors[place], uncertainty, p.size, p.count, threshold)
                 }
-                None => F::rate_tails(&priors[place], p.size, p.count, threshold),
+                None => F::rate_tails(&priors.priors[place], p.size, p.count, threshold),
             })
             .collect()
     };
@@ -338,42 +414,67 @@ fn score_with<F: Family>(
             FlagEvent::Above => above.iter().flatten().map(|&(below, _)| below).collect(),
             FlagEvent::Below => below.iter().flatten().map(|&(_, above)| above).collect(),
         };
-        let weights: Vec<f64> = all_pairs.iter().map(|p| p.weight).collect();
-        posterior_fdr_flags(&no_event, &weights, rule.bound)
+        posterior_fdr_flags(&no_event, &places.weights(), rule.bound)
     });
-    let prob_top = job.top.map(|rule| {
-        let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
-        let laws: Vec<RateLaw> = posteriors.iter().map(F::rate_law).collect();
-        let weights: Vec<f64> = all_pairs.iter().map(|p| p.weight).collect();
-        let groups: f64 = weights.iter().sum();
-        let by_draws = match rule.method {
-            TopChoice::Draws => true,
-            TopChoice::Threshold => false,
-            TopChoice::Auto => groups * rule.draws_for(groups) as f64 <= DRAW_BUDGET,
-        };
-        let draws = rule.draws_for(groups);
-        let beyond = |i: usize, c: f64| {
-            let pair = &all_pairs[i];
-            let (below, above) = F::rate_tails(&priors[place_of_pair[i]], pair.size, pair.count, c);
-            if order == RankOrder::HighestFirst {
-                above
-            } else {
-                below
-            }
-        };
-        if by_draws {
-            let p = top_probabilities_by_draws(&laws, &weights, (rule.k, order), (draws, job.seed), beyond);
-            (p, TopMethod::Draws { draws, seed: job.seed })
+    let prob_top = job.top.map(|rule| top_of::<F>(job, rule, priors, places, posteriors));
+    Decisions {
+        prob_above: above.map(|tails| tails.into_iter().map(|(_, above)| above).collect()),
+        prob_below: below.map(|tails| tails.into_iter().map(|(below, _)| below).collect()),
+        flags,
+        prob_top,
+    }
+}
+
+/// `prob_top` per pair, by joint draws or by the threshold.
+fn top_of<F: Family>(
+    job: &Job,
+    rule: TopRule,
+    priors: &PriorsInUse,
+    places: &PairPlaces,
+    posteriors: &[Posterior],
+) -> (Vec<f64>, TopMethod) {
+    let (all_pairs, place_of_pair) = (&places.pairs, &places.place_of_pair);
+    let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
+    let laws: Vec<RateLaw> = posteriors.iter().map(F::rate_law).collect();
+    let weights = places.weights();
+    let groups: f64 = weights.iter().sum();
+    let by_draws = match rule.method {
+        TopChoice::Draws => true,
+        TopChoice::Threshold => false,
+        TopChoice::Auto => groups * rule.draws_for(groups) as f64 <= DRAW_BUDGET,
+    };
+    let draws = rule.draws_for(groups);
+    let beyond = |i: usize, c: f64| {
+        let pair = &all_pairs[i];
+        let (below, above) = F::rate_tails(&priors.priors[place_of_pair[i]], pair.size, pair.count, c);
+        if order == RankOrder::HighestFirst {
+            above
         } else {
-            let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
-            let (p, threshold) =
-                top_probabilities_by_threshold(&means, &weights, &laws, rule.k, order, beyond);
-            (p, TopMethod::Threshold { threshold })
+            below
         }
-    });
-    let prob_above = above.map(|tails| tails.into_iter().map(|(_, above)| above).collect());
-    let prob_below = below.map(|tails| tails.into_iter().map(|(below, _)| below).collect());
-    clock.lap("posteriors", "posteriors");
+    };
+    if by_draws {
+        let p = top_probabilities_by_draws(&laws, &weights, (rule.k, order), (draws, job.seed), beyond);
+        (p, TopMethod::Draws { draws, seed: job.seed })
+    } else {
+        let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
+        let (p, threshold) = top_probabilities_by_threshold(&means, &weights, &laws, rule.k, order, beyond);
+        (p, TopMethod::Threshold { threshold })
+    }
+}
+
+/// The scored table: the pairs, their posteriors and decisions, and what
+/// the summary says of them (pull, checks, warnings, segments).
+fn scored_of<F: Family>(
+    job: &Job,
+    segments: Vec<SegmentPairs>,
+    priors: PriorsInUse,
+    places: PairPlaces,
+    (posteriors, decisions): (Vec<Posterior>, Decisions),
+) -> Scored {
+    let segmented = !job.segments.is_empty();
+    let PriorsInUse { all_table, all, choices, priors, .. } = priors;
+    let PairPlaces { pairs: all_pairs, place_of_pair, ranges } = places;
     let pull = crate::core::diagnostics::pull_of_pairs(&F::TERMS, &all_pairs, &posteriors);
     let mut warnings = all.warnings.clone();
     if let Prior::CompletePooling { .. } = all.prior {
@@ -397,45 +498,9 @@ fn score_with<F: Family>(
         }
         _ => None,
     };
-    let scores: Vec<SegmentScore> = if segmented {
-        segments
-            .into_iter()
-            .zip(choices)
-            .zip(&ranges)
-            .enumerate()
-            .map(|(place, ((segment, choice), range))| {
-                // The segment's own checks: its pairs under the prior it was scored with.
-                let own_places = vec![0; range.len()];
-                let checks = model_checks::<F>(
-                    job,
-                    &all_pairs[range.clone()],
-                    &segment.table,
-                    std::slice::from_ref(&priors[place]),
-                    &own_places,
-                );
-                let mut pull = crate::core::diagnostics::pull_of_pairs(
-                    &F::TERMS,
-                    &all_pairs[range.clone()],
-                    &posteriors[range.clone()],
-                );
-                pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
-                let (fitted_prior, fit, fallback) = match choice {
-                    Ok(own) => (own.fitted_prior, Some(own.fit), None),
-                    Err(reason) => (all.fitted_prior.clone(), None, Some(reason)),
-                };
-                SegmentScore {
-                    groups: segment.table.groups(),
-                    key: segment.key,
-                    samples: segment.samples,
-                    pairs: range.clone(),
-                    fitted_prior,
-                    fit,
-                    pull,
-                    fallback,
-                    checks,
-                }
-            })
-            .collect()
+    let scores = if segmented {
+        let all_groups = (&all.fitted_prior, &all_pairs[..], &posteriors[..]);
+        segment_scores::<F>(job, segments, choices, (&priors, &ranges), all_groups)
     } else {
         Vec::new()
     };
@@ -453,21 +518,70 @@ fn score_with<F: Family>(
             scores.len()
         ));
     }
-    Ok(Scored {
+    Scored {
         pairs: all_pairs,
         posteriors,
         fitted_prior: all.fitted_prior,
         fit: all.fit,
         warnings,
         pull,
-        prob_above,
-        prob_below,
-        flags,
-        prob_top,
+        prob_above: decisions.prob_above,
+        prob_below: decisions.prob_below,
+        flags: decisions.flags,
+        prob_top: decisions.prob_top,
         segments: scores,
         segment_test,
         checks,
-    })
+    }
+}
+
+/// Per segment: its pairs' range, the prior it was scored with (its own,
+/// or the all-groups one with the reason), its pull and its own checks.
+fn segment_scores<F: Family>(
+    job: &Job,
+    segments: Vec<SegmentPairs>,
+    choices: Vec<std::result::Result<Chosen, String>>,
+    (priors, ranges): (&[Prior], &[std::ops::Range<usize>]),
+    (all_prior, all_pairs, posteriors): (&FittedPrior, &[WeightedPair], &[Posterior]),
+) -> Vec<SegmentScore> {
+    segments
+        .into_iter()
+        .zip(choices)
+        .zip(ranges)
+        .enumerate()
+        .map(|(place, ((segment, choice), range))| {
+            // The segment's own checks: its pairs under the prior it was scored with.
+            let own_places = vec![0; range.len()];
+            let checks = model_checks::<F>(
+                job,
+                &all_pairs[range.clone()],
+                &segment.table,
+                std::slice::from_ref(&priors[place]),
+                &own_places,
+            );
+            let mut pull = crate::core::diagnostics::pull_of_pairs(
+                &F::TERMS,
+                &all_pairs[range.clone()],
+                &posteriors[range.clone()],
+            );
+            pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
+            let (fitted_prior, fit, fallback) = match choice {
+                Ok(own) => (own.fitted_prior, Some(own.fit), None),
+                Err(reason) => (all_prior.clone(), None, Some(reason)),
+            };
+            SegmentScore {
+                groups: segment.table.groups(),
+                key: segment.key,
+                samples: segment.samples,
+                pairs: range.clone(),
+                fitted_prior,
+                fit,
+                pull,
+                fallback,
+                checks,
+            }
+        })
+        .collect()
 }
 
 /// Tables of more groups than this get no bootstrap: the median bias of a
