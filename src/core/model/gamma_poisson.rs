@@ -18,8 +18,7 @@ use crate::core::incomplete::{beta_tails, gamma_tails};
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::quantile::{gamma_quantile, Tail};
 use crate::core::special::{
-    digamma_diff, ln_binomial_pmf_pq, ln_poisson_pmf, ln_rising_excess, log1p_minus, scaled_digamma_excess,
-    scaled_trigamma_excess, trigamma_diff,
+    ln_binomial_pmf_pq, ln_poisson_pmf, ln_rising_excess, log1p_minus, PolygammaBase,
 };
 
 /// The gamma-Poisson family (see the module docs).
@@ -29,6 +28,15 @@ pub struct GammaPoisson;
 /// ln NegativeBinomial(y) of a Gamma(shape, rate) mixture of Poisson(E λ).
 pub fn ln_pmf(y: f64, exposure: f64, shape: f64, rate: f64) -> f64 {
     log_pmf_at(y, exposure * shape / rate, shape, exposure / rate)
+}
+
+/// What every pair's terms share at one point u of a fit: μ, the shape a,
+/// and ψ and ψ′ at a.
+#[derive(Debug, Clone, Copy)]
+pub struct GammaPoint {
+    mu: f64,
+    a: f64,
+    at_a: PolygammaBase,
 }
 
 /// The log pmf from λ = Eμ, the shape a and t = λ/a = E/b.
@@ -94,18 +102,19 @@ impl Family for GammaPoisson {
         },
     };
 
-    type AtPoint = [f64; 2];
+    type AtPoint = GammaPoint;
 
-    fn at_point(u: [f64; 2]) -> [f64; 2] {
-        u
+    fn at_point(u: [f64; 2]) -> GammaPoint {
+        let (mu, a) = (u[0].exp(), u[1].exp());
+        GammaPoint { mu, a, at_a: PolygammaBase::new(a) }
     }
 
-    fn pair_terms_at(&u: &[f64; 2], pair: &WeightedPair) -> Evaluation {
+    fn pair_terms_at(at: &GammaPoint, pair: &WeightedPair) -> Evaluation {
         let (exposure, y) = (pair.size, pair.count);
         if exposure == 0.0 {
             return Evaluation::default();
         }
-        let (mu, a) = (u[0].exp(), u[1].exp());
+        let GammaPoint { mu, a, at_a } = *at;
         let lambda = exposure * mu;
         let t = lambda / a;
         let q = 1.0 / (1.0 + t);
@@ -119,17 +128,17 @@ impl Family for GammaPoisson {
         let (g2, h22) = if t <= 1.0 {
             let excess = log1p_minus(t);
             (
-                scaled_digamma_excess(a, y) - a * excess + residual * t * q,
-                scaled_trigamma_excess(a, y) - a * excess - lambda * t * q - residual * t * q * q,
+                at_a.scaled_digamma_excess(y) - a * excess + residual * t * q,
+                at_a.scaled_trigamma_excess(y) - a * excess - lambda * t * q - residual * t * q * q,
             )
         } else {
             // For t > 1 the excess forms are each of size y and cancel against
             // t(a + y)/(1 + t); the plain digamma difference, of size ln(y/a),
             // keeps the digits: g₂ = a[ψ(a+y) − ψ(a) − ln(1+t)] − (y − λ)q.
-            let gap = digamma_diff(a, y) - t.ln_1p();
+            let gap = at_a.digamma_diff(y) - t.ln_1p();
             (
                 a * gap - residual * q,
-                a * gap + a * a * trigamma_diff(a, y) + lambda * q - residual * q * (1.0 - q),
+                a * gap + a * a * at_a.trigamma_diff(y) + lambda * q - residual * q * (1.0 - q),
             )
         };
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
