@@ -11,7 +11,7 @@
 use super::prior::{score_pairs, Scored};
 use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts, ShiftGroups};
 use super::segments::{PairLookup, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::{no_data_rows, no_valid_rows, roles, Job, PhaseClock};
+use super::{no_data_rows, no_valid_rows, Job, PhaseClock};
 use crate::core::pairs::WeightedPair;
 use crate::error::Result;
 use crate::io::atomic::StagedOutputs;
@@ -91,6 +91,6 @@ pub(super) fn input_columns<'a>(job: &'a Job, lead: Vec<(&'a str, &'a str)>) -> 
 
 /// The count and size columns with their roles in the model's words.
 pub(super) fn count_and_size(job: &Job) -> [(&str, &str); 2] {
-    let (count_role, size_role) = roles(job.model);
-    [(job.columns.count.as_str(), count_role), (job.columns.size.as_str(), size_role)]
+    let terms = job.model.terms();
+    [(job.columns.count.as_str(), terms.count_role), (job.columns.size.as_str(), terms.size_role)]
 }

@@ -280,11 +280,6 @@ pub fn run(job: &Job, observer: &mut dyn RunObserver) -> Result<Summary> {
     }
 }
 
-/// What the count and size columns hold, in the model's words.
-fn roles(model: Model) -> (&'static str, &'static str) {
-    (model.terms().count_role, model.terms().size_role)
-}
-
 fn no_data_rows(job: &Job) -> Error {
     Error::Input(format!("{}: the input has no data rows", job.input.display()))
 }

@@ -237,7 +237,7 @@ fn score_with<F: Family>(
     }
     let places = PairPlaces::of(&segments);
     refuse_top_of_everyone(job, &places.pairs)?;
-    let priors = priors_in_use::<F>(job, &segments, clock)?;
+    let priors = priors_in_use::<F>(job, &segments, &places.pairs, clock)?;
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
     clock.lap("posteriors", "posteriors");
@@ -296,16 +296,18 @@ struct PriorsInUse {
     spreads: Vec<Option<Uncertainty>>,
 }
 
-/// Fits (or loads) the all-groups prior and one per segment, in parallel,
-/// with their median bias for corrected intervals.
+/// Fits (or loads) the all-groups prior (to `all_pairs`, every segment's
+/// pairs) and one per segment, in parallel, with their median bias for
+/// corrected intervals.
 fn priors_in_use<F: Family>(
     job: &Job,
     segments: &[SegmentPairs],
+    all_pairs: &[WeightedPair],
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
     let segmented = !job.segments.is_empty();
     let all_table = if segmented {
-        PairTable::from_weighted(segments.iter().flat_map(|s| s.table.pairs().iter().copied()))
+        PairTable::from_weighted(all_pairs.iter().copied())
     } else {
         segments[0].table.clone()
     };

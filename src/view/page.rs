@@ -53,7 +53,6 @@ pub fn figures(
     prior: Option<RateLaw>,
 ) -> Result<(Vec<Figure>, Vec<Option<Figure>>)> {
     let terms = model.terms();
-    let words = &terms.plots;
     let prior_mean = summary.fitted_prior.mean();
     let sampled = |n: usize, total: u64| {
         if (n as u64) < total {
@@ -78,7 +77,7 @@ pub fn figures(
         title: "Funnel plot".into(),
         caption: format!(
             "Raw value against {} for {}, with the pooled value {} and its 95% and 99.8% control limits (Spiegelhalter, Statistics in Medicine 2005). {}Points outside the limits vary more than sampling noise alone explains; the funnel ignores the prior, the posterior does not.",
-            words.funnel_noun,
+            terms.plots.funnel_noun,
             sampled(collected.sample.len(), collected.groups),
             num(collected.pooled),
             if collected.flagged_count > 0 { "Flagged groups are red. " } else { "" }
@@ -87,7 +86,7 @@ pub fn figures(
             &collected.sample,
             &flagged,
             (terms, collected.pooled),
-            (collected.funnel_range, words.funnel_axis, words.raw_label),
+            collected.funnel_range,
         )?,
     });
     figures.push(Figure {
@@ -103,7 +102,7 @@ pub fn figures(
             },
             if prior.is_some() { "" } else { " (here a line at the pooled value: complete pooling)" }
         ),
-        svg: plots::prior_over_raw(&collected.well_measured, (prior, prior_mean), (words.raw_label, terms.rates))?,
+        svg: plots::prior_over_raw(&collected.well_measured, (prior, prior_mean), terms)?,
     });
     if let Some(checks) = &summary.checks {
         figures.push(Figure {

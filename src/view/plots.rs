@@ -2,7 +2,7 @@
 //! funnel, the prior over the raw rates, calibration, pool weights.
 
 use super::collect::{GroupRow, POOL_BINS};
-use crate::core::model::{ModelTerms, RateLaw, RateRange};
+use crate::core::model::{ModelTerms, RateLaw};
 use crate::error::{Error, Result};
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -69,7 +69,6 @@ fn radius(size: f64, largest: f64) -> i32 {
 /// Raw rate against posterior mean, marker size by the group's size: small
 /// groups move toward the prior mean, large ones stay on the diagonal.
 pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, terms: &ModelTerms) -> Result<String> {
-    let raw_label = terms.plots.raw_label;
     let points: Vec<(f64, f64, f64)> = sample
         .iter()
         .filter_map(|g| g.raw.map(|raw| (raw, g.mean, terms.plots.funnel_x.x(g.size))))
@@ -86,7 +85,7 @@ pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, terms: &ModelTerms) -> Re
             .configure_mesh()
             .x_label_formatter(&tick)
             .y_label_formatter(&tick)
-            .x_desc(raw_label)
+            .x_desc(terms.plots.raw_label)
             .y_desc("posterior mean")
             .light_line_style(WHITE)
             .draw()?;
@@ -115,7 +114,7 @@ pub fn funnel(
     sample: &[GroupRow],
     flagged: &[&GroupRow],
     (terms, pooled): (&ModelTerms, f64),
-    (x_range, x_label, raw_label): ((f64, f64), &str, &str),
+    x_range: (f64, f64),
 ) -> Result<String> {
     let point =
         |g: &GroupRow| g.raw.map(|raw| (terms.plots.funnel_x.x(g.size), raw)).filter(|(x, _)| *x > 0.0);
@@ -136,8 +135,8 @@ pub fn funnel(
             .configure_mesh()
             .x_label_formatter(&tick)
             .y_label_formatter(&tick)
-            .x_desc(x_label)
-            .y_desc(raw_label)
+            .x_desc(terms.plots.funnel_axis)
+            .y_desc(terms.plots.raw_label)
             .light_line_style(WHITE)
             .draw()?;
         chart.draw_series(plain.iter().map(|&p| Circle::new(p, 2, POINT.mix(0.35).filled())))?;
@@ -185,12 +184,12 @@ fn bars(counts: &[u64], (low, high): (f64, f64), scale: f64) -> Vec<Rectangle<(f
 pub fn prior_over_raw(
     raw: &[f64],
     (prior, prior_mean): (Option<RateLaw>, f64),
-    (raw_label, rates): (&str, RateRange),
+    terms: &ModelTerms,
 ) -> Result<String> {
     const BINS: usize = 40;
     let (mut low, mut high) = span(raw.iter().copied().chain([prior_mean]));
     if prior.is_some() {
-        (low, high) = rates.clamp((low, high));
+        (low, high) = terms.rates.clamp((low, high));
     }
     let counts = bin(raw, (low, high), BINS);
     let scale = 1.0 / (raw.len().max(1) as f64 * (high - low) / BINS as f64);
@@ -214,7 +213,7 @@ pub fn prior_over_raw(
             .configure_mesh()
             .x_label_formatter(&tick)
             .y_label_formatter(&tick)
-            .x_desc(raw_label)
+            .x_desc(terms.plots.raw_label)
             .y_desc("density")
             .light_line_style(WHITE)
             .draw()?;
