@@ -1,5 +1,5 @@
 //! The pure numerical core: special functions, distributions, the three
-//! models, the fit, the bootstrap of a fitted prior and the posterior
+//! models, the fit (with covariates or without), the bootstrap of a fitted prior and the posterior
 //! summaries. Nothing here reads or writes files.
 
 pub mod bootstrap;
@@ -10,5 +10,6 @@ pub mod model;
 pub mod pairs;
 pub mod quantile;
 pub mod ranking;
+pub mod regression;
 pub mod special;
 pub mod temme;

@@ -7,6 +7,7 @@ mod architecture;
 mod checks;
 mod cli;
 mod config;
+mod covariates;
 mod decisions;
 mod edges;
 mod facts;

@@ -807,6 +807,13 @@ pub trait Family: Sync {
     fn restricted_term(_table: &PairTable, _u: [f64; 2]) -> Option<Evaluation> {
         None
     }
+    /// The precision W = 1/(s² + τ²) a group's data give its prior mean,
+    /// with ∂W/∂u₂ and ∂²W/∂u₂², at working coordinates `u`: what the
+    /// restricted likelihood of a covariate prior is built from
+    /// ([`crate::core::regression`]); None for a model without a restricted form.
+    fn mean_precision(_u: [f64; 2], _pair: &WeightedPair) -> Option<[f64; 3]> {
+        None
+    }
     /// That term at the no-overdispersion boundary, and its derivative with
     /// respect to φ = 1/strength there.
     fn restricted_boundary(_table: &PairTable) -> Option<(f64, f64)> {

@@ -247,6 +247,14 @@ impl Family for NormalNormal {
         })
     }
 
+    fn mean_precision(u: [f64; 2], pair: &WeightedPair) -> Option<[f64; 3]> {
+        // W = 1/V, V = s² + τ², τ² = e^(−u₂): W′ = τ²/V², W″ = 2τ⁴/V³ − τ²/V².
+        let tau2 = (-u[1]).exp();
+        let v = pair.size * pair.size + tau2;
+        let w = 1.0 / v;
+        Some([w, tau2 * w * w, 2.0 * tau2 * tau2 * w * w * w - tau2 * w * w])
+    }
+
     fn restricted_boundary(table: &PairTable) -> Option<(f64, f64)> {
         let [s1, s2, _] = precision_sums(table, 0.0);
         Some((0.5 * (2.0 * PI).ln() - 0.5 * s1.ln(), 0.5 * s2 / s1))

@@ -1,0 +1,843 @@
+//! Priors whose centre follows covariates: the covariate variant every
+//! family has, fitted by marginal maximum likelihood.
+//!
+//! Every family's first working coordinate is the link of its prior mean
+//! (logit for a proportion, log for an event rate, the identity for a mean
+//! of estimates) and its second the common parameter (ln strength for the
+//! beta-binomial and normal models, ln shape for the gamma-Poisson one). A
+//! covariate prior sets the first to a linear predictor, u₁ = xᵢᵀb, per
+//! *cell* (the groups that share one covariate pattern), and keeps the
+//! second common to all groups. The log likelihood is then the family's own
+//! per-pair terms at (xᵢᵀb, u₂), and its derivatives follow by the chain
+//! rule: ∂ℓ/∂b = Σ ∂ℓ/∂u₁ xᵢ, ∂²ℓ/∂b∂bᵀ = Σ ∂²ℓ/∂u₁² xᵢxᵢᵀ. So a family
+//! needs nothing new for covariates except, for REML, the precision of a
+//! group's mean ([`Family::mean_precision`]).
+//!
+//! The fit is Newton's method on (a, u₂), where a are the coefficients of
+//! the covariates centred and scaled (so the steps are well conditioned
+//! whatever the covariates' units), with step halving and a ridge where the
+//! Hessian is not negative definite; it converges when the Newton step is
+//! below 1e-10 in every coordinate at a negative definite Hessian. The
+//! coefficients and their covariance are mapped back to the covariates'
+//! own units at the end.
+//!
+//! Results that are not interior maxima are reported, not forced: a common
+//! parameter past 1e10 of the family's strength unit is "no overdispersion
+//! beyond the covariates" (the coefficients are then those of the plain
+//! binomial, Poisson or weighted least-squares regression, found with the
+//! common parameter held there); a linear predictor past ±35 on the logit
+//! or log scale means a coefficient runs to infinity (separation).
+
+use crate::core::fit::Likelihood;
+use crate::core::model::{Family, Prior, PriorUncertainty, RateRange};
+use crate::core::pairs::WeightedPair;
+use rayon::prelude::*;
+use std::ops::Range;
+
+/// Cells per parallel work unit: fixed, so floating-point sums are grouped
+/// the same way whatever the number of threads.
+const CHUNK: usize = 1024;
+/// Newton iterations before giving up.
+const MAX_ITERATIONS: usize = 200;
+/// A common parameter this far above ln(strength unit) is no overdispersion.
+const LN_MAX_STRENGTH: f64 = 23.025850929940457; // ln 1e10
+/// A common parameter this far below ln(strength unit) is no pooling.
+const LN_MIN_STRENGTH: f64 = -18.420680743952367; // ln 1e-8
+/// A linear predictor beyond this on a logit or log scale is a mean within
+/// 6e-16 of its edge: a coefficient running to infinity.
+const SEPARATED_PREDICTOR: f64 = 35.0;
+
+/// The covariates of every cell, one row per cell, the intercept first.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Design {
+    names: Vec<String>,
+    rows: Vec<f64>,
+}
+
+/// Why a design cannot be fitted; each names its columns by their place in
+/// [`Design::names`].
+#[derive(Debug, Clone, PartialEq)]
+pub enum DesignFault {
+    /// The column takes one value over every group.
+    Constant(usize),
+    /// The column is a linear combination of the others listed.
+    Collinear {
+        /// The column found to depend on earlier ones.
+        column: usize,
+        /// The earlier covariates it is a linear function of (the columns
+        /// are centred, so the intercept is never among them).
+        of: Vec<usize>,
+    },
+}
+
+impl Design {
+    /// A design from its column names (the intercept's first) and its rows,
+    /// `names.len()` values per cell.
+    pub fn new(names: Vec<String>, rows: Vec<f64>) -> Self {
+        assert!(!names.is_empty() && rows.len() % names.len() == 0, "whole rows of every column");
+        Design { names, rows }
+    }
+
+    /// The column names, the intercept's first.
+    pub fn names(&self) -> &[String] {
+        &self.names
+    }
+
+    /// Columns, the intercept counted.
+    pub fn width(&self) -> usize {
+        self.names.len()
+    }
+
+    /// Cells.
+    pub fn cells(&self) -> usize {
+        self.rows.len() / self.width()
+    }
+
+    /// The covariates of cell `i`.
+    pub fn row(&self, i: usize) -> &[f64] {
+        let p = self.width();
+        &self.rows[i * p..(i + 1) * p]
+    }
+
+    /// The linear predictor xᵢᵀb of cell `i`.
+    pub fn predictor(&self, i: usize, coefficients: &[f64]) -> f64 {
+        self.row(i).iter().zip(coefficients).map(|(x, b)| x * b).sum()
+    }
+
+    /// Each column's mean and standard deviation over the groups
+    /// (`groups[i]` in cell i), the intercept's (0, 1).
+    fn moments(&self, groups: &[f64]) -> Vec<(f64, f64)> {
+        let total: f64 = groups.iter().sum();
+        (0..self.width())
+            .map(|k| {
+                if k == 0 {
+                    return (0.0, 1.0);
+                }
+                let mean = (0..self.cells()).map(|i| groups[i] * self.row(i)[k]).sum::<f64>() / total;
+                let variance =
+                    (0..self.cells()).map(|i| groups[i] * (self.row(i)[k] - mean).powi(2)).sum::<f64>()
+                        / total;
+                (mean, variance.sqrt())
+            })
+            .collect()
+    }
+
+    /// Refuses a constant column or a collinear set, by a Cholesky factor
+    /// of the correlation matrix of the centred and scaled columns (weighted
+    /// by groups): a column whose part not explained by the earlier ones is
+    /// below 1e-9 of its variance depends on them.
+    pub fn check(&self, groups: &[f64]) -> Result<(), DesignFault> {
+        let moments = self.moments(groups);
+        for (k, &(mean, sd)) in moments.iter().enumerate().skip(1) {
+            if sd.is_nan() || sd <= 1e-12 * mean.abs().max(1e-300) {
+                return Err(DesignFault::Constant(k));
+            }
+        }
+        let scaled = Scaled::new(&moments);
+        let p = self.width();
+        let mut cross = vec![0.0; p * p];
+        for (i, weight) in groups.iter().enumerate() {
+            let z = scaled.row(self, i);
+            for a in 0..p {
+                for b in 0..p {
+                    cross[a * p + b] += weight * z[a] * z[b];
+                }
+            }
+        }
+        for k in 1..p {
+            // The regression of column k on the columns before it.
+            let lead: Vec<f64> =
+                (0..k).flat_map(|a| (0..k).map(move |b| (a, b))).map(|(a, b)| cross[a * p + b]).collect();
+            let right: Vec<f64> = (0..k).map(|a| cross[a * p + k]).collect();
+            let Some(factor) = cholesky(&lead, k) else { continue };
+            let beta = cholesky_solve(&factor, k, &right);
+            let explained: f64 = beta.iter().zip(&right).map(|(b, r)| b * r).sum();
+            let residual = cross[k * p + k] - explained;
+            if residual <= 1e-9 * cross[k * p + k] {
+                let largest = beta.iter().fold(0.0f64, |m, b| m.max(b.abs()));
+                let of = (0..k).filter(|&a| beta[a].abs() > 1e-6 * largest).collect();
+                return Err(DesignFault::Collinear { column: k, of });
+            }
+        }
+        Ok(())
+    }
+}
+
+/// The centred and scaled covariates the fit works in: zₖ = (xₖ − cₖ)/sₖ.
+struct Scaled {
+    centre: Vec<f64>,
+    scale: Vec<f64>,
+}
+
+impl Scaled {
+    fn new(moments: &[(f64, f64)]) -> Self {
+        Scaled {
+            centre: moments.iter().map(|m| m.0).collect(),
+            scale: moments.iter().map(|m| if m.1 > 0.0 { m.1 } else { 1.0 }).collect(),
+        }
+    }
+
+    /// Cell i's scaled covariates (the intercept 1).
+    fn row(&self, design: &Design, i: usize) -> Vec<f64> {
+        design
+            .row(i)
+            .iter()
+            .enumerate()
+            .map(|(k, x)| if k == 0 { 1.0 } else { (x - self.centre[k]) / self.scale[k] })
+            .collect()
+    }
+
+    /// The coefficients b in the covariates' own units of the scaled ones a,
+    /// and the Jacobian ∂b/∂a (row-major, p × p).
+    fn unscale(&self, a: &[f64]) -> (Vec<f64>, Vec<f64>) {
+        let p = a.len();
+        let mut b = vec![0.0; p];
+        let mut jacobian = vec![0.0; p * p];
+        b[0] = a[0];
+        jacobian[0] = 1.0;
+        for k in 1..p {
+            b[k] = a[k] / self.scale[k];
+            b[0] -= a[k] * self.centre[k] / self.scale[k];
+            jacobian[k * p + k] = 1.0 / self.scale[k];
+            jacobian[k] = -self.centre[k] / self.scale[k];
+        }
+        (b, jacobian)
+    }
+}
+
+/// The pairs of every cell: cell i's are `pairs[ranges[i]]`.
+#[derive(Debug, Clone, Copy)]
+pub struct CellPairs<'a> {
+    /// Every pair, cell after cell.
+    pub pairs: &'a [WeightedPair],
+    /// Each cell's range of pairs.
+    pub ranges: &'a [Range<usize>],
+}
+
+impl CellPairs<'_> {
+    /// Groups per cell.
+    pub fn groups(&self) -> Vec<f64> {
+        self.ranges.iter().map(|r| self.pairs[r.clone()].iter().map(|p| p.weight).sum()).collect()
+    }
+}
+
+/// Which edge the fit ended on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RegressionBoundary {
+    /// An interior maximum.
+    None,
+    /// No overdispersion beyond the covariates: the common parameter is
+    /// held at its largest value (complete pooling to each group's centre).
+    NoOverdispersion,
+}
+
+/// A fitted covariate prior.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RegressionFit {
+    /// The coefficients b in the covariates' own units, the intercept first.
+    pub coefficients: Vec<f64>,
+    /// The common working parameter u₂.
+    pub common: f64,
+    /// The covariance of (b, u₂), row-major, (p + 1)²: the inverse observed
+    /// information (of b alone at the boundary, u₂'s row and column 0).
+    pub covariance: Vec<f64>,
+    /// The maximised log marginal (or restricted) likelihood.
+    pub log_likelihood: f64,
+    /// Newton iterations.
+    pub iterations: usize,
+    /// Interior, or no overdispersion beyond the covariates.
+    pub boundary: RegressionBoundary,
+}
+
+/// Why a covariate prior could not be fitted.
+#[derive(Debug, Clone, PartialEq)]
+pub enum RegressionFailure {
+    /// A coefficient runs to ±infinity: some groups' centre is driven to
+    /// the edge of the rate's range (all their counts zero, say).
+    Separation {
+        /// The coefficient's place among the design's columns.
+        coefficient: usize,
+        /// Its sign as it runs away.
+        towards_positive: bool,
+    },
+    /// The common parameter runs to zero strength: no pooling at all.
+    NoPooling,
+    /// Newton's method stopped without meeting its tests.
+    NotConverged,
+}
+
+/// The log likelihood with its gradient and Hessian in (a, u₂).
+struct Evaluated {
+    log_likelihood: f64,
+    gradient: Vec<f64>,
+    hessian: Vec<f64>,
+}
+
+/// The setting of one fit.
+struct Problem<'a> {
+    design: &'a Design,
+    scaled: Scaled,
+    cells: CellPairs<'a>,
+    likelihood: Likelihood,
+}
+
+impl Problem<'_> {
+    fn width(&self) -> usize {
+        self.design.width()
+    }
+
+    /// ℓ and its derivatives at θ = (a, u₂).
+    fn evaluate<F: Family>(&self, theta: &[f64]) -> Evaluated {
+        let p = self.width();
+        let n = p + 1;
+        let u2 = theta[p];
+        let restricted = self.likelihood == Likelihood::Restricted;
+        let cells: Vec<usize> = (0..self.design.cells()).collect();
+        let parts: Vec<(Evaluated, Vec<f64>)> = cells
+            .par_chunks(CHUNK)
+            .map(|chunk| {
+                let mut e =
+                    Evaluated { log_likelihood: 0.0, gradient: vec![0.0; n], hessian: vec![0.0; n * n] };
+                // Σ W zzᵀ and its first two derivatives in u₂, for REML.
+                let mut precision = if restricted { vec![0.0; 3 * p * p] } else { Vec::new() };
+                for &i in chunk {
+                    let z = self.scaled.row(self.design, i);
+                    let eta: f64 = z.iter().zip(&theta[..p]).map(|(z, a)| z * a).sum();
+                    let at = F::at_point([eta, u2]);
+                    let (mut ll, mut g1, mut g2, mut h11, mut h12, mut h22) = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
+                    let mut w = [0.0; 3];
+                    for pair in &self.cells.pairs[self.cells.ranges[i].clone()] {
+                        let t = F::pair_terms_at(&at, pair);
+                        let c = pair.weight;
+                        ll += c * t.log_likelihood;
+                        g1 += c * t.gradient[0];
+                        g2 += c * t.gradient[1];
+                        h11 += c * t.hessian[0][0];
+                        h12 += c * t.hessian[0][1];
+                        h22 += c * t.hessian[1][1];
+                        if restricted {
+                            if let Some(m) = F::mean_precision([eta, u2], pair) {
+                                for (sum, term) in w.iter_mut().zip(m) {
+                                    *sum += c * term;
+                                }
+                            }
+                        }
+                    }
+                    e.log_likelihood += ll;
+                    for a in 0..p {
+                        e.gradient[a] += g1 * z[a];
+                        for b in 0..p {
+                            e.hessian[a * n + b] += h11 * z[a] * z[b];
+                        }
+                        e.hessian[a * n + p] += h12 * z[a];
+                        e.hessian[p * n + a] += h12 * z[a];
+                    }
+                    e.gradient[p] += g2;
+                    e.hessian[p * n + p] += h22;
+                    if restricted {
+                        for (d, wd) in w.iter().enumerate() {
+                            for a in 0..p {
+                                for b in 0..p {
+                                    precision[d * p * p + a * p + b] += wd * z[a] * z[b];
+                                }
+                            }
+                        }
+                    }
+                }
+                (e, precision)
+            })
+            .collect();
+        let mut total = Evaluated { log_likelihood: 0.0, gradient: vec![0.0; n], hessian: vec![0.0; n * n] };
+        let mut precision = if restricted { vec![0.0; 3 * p * p] } else { Vec::new() };
+        for (part, m) in parts {
+            total.log_likelihood += part.log_likelihood;
+            add_into(&mut total.gradient, &part.gradient);
+            add_into(&mut total.hessian, &part.hessian);
+            add_into(&mut precision, &m);
+        }
+        if restricted {
+            let (r, d, dd) = restricted_term(&precision, p);
+            total.log_likelihood += r;
+            total.gradient[p] += d;
+            total.hessian[p * n + p] += dd;
+        }
+        total
+    }
+}
+
+/// The restricted likelihood's term −½ ln det M + (p/2) ln 2π, M = Σ W zzᵀ
+/// (Harville, JASA 1977), and its first two derivatives in u₂, from M, M′
+/// and M″ laid one after the other: R′ = −½ tr(M⁻¹M′) and
+/// R″ = −½ [tr(M⁻¹M″) − tr(M⁻¹M′M⁻¹M′)]. (The scaling of z shifts R by a
+/// constant, which is added back by the caller's unscaled determinant.)
+fn restricted_term(sums: &[f64], p: usize) -> (f64, f64, f64) {
+    let (m, m1, m2) = (&sums[..p * p], &sums[p * p..2 * p * p], &sums[2 * p * p..]);
+    let Some(factor) = cholesky(m, p) else { return (f64::NEG_INFINITY, 0.0, 0.0) };
+    let ln_det: f64 = (0..p).map(|i| 2.0 * factor[i * p + i].ln()).sum();
+    let solve_columns = |b: &[f64]| -> Vec<f64> {
+        // M⁻¹B, column by column.
+        let mut out = vec![0.0; p * p];
+        for c in 0..p {
+            let column: Vec<f64> = (0..p).map(|r| b[r * p + c]).collect();
+            let x = cholesky_solve(&factor, p, &column);
+            for r in 0..p {
+                out[r * p + c] = x[r];
+            }
+        }
+        out
+    };
+    let (a1, a2) = (solve_columns(m1), solve_columns(m2));
+    let trace = |x: &[f64]| (0..p).map(|i| x[i * p + i]).sum::<f64>();
+    let trace_of_square: f64 =
+        (0..p).flat_map(|i| (0..p).map(move |j| (i, j))).map(|(i, j)| a1[i * p + j] * a1[j * p + i]).sum();
+    let r = -0.5 * ln_det + 0.5 * p as f64 * (2.0 * std::f64::consts::PI).ln();
+    (r, -0.5 * trace(&a1), -0.5 * (trace(&a2) - trace_of_square))
+}
+
+fn add_into(total: &mut [f64], part: &[f64]) {
+    for (t, x) in total.iter_mut().zip(part) {
+        *t += x;
+    }
+}
+
+/// The lower Cholesky factor of a symmetric positive definite n × n
+/// matrix (row-major), or None when it is not positive definite.
+fn cholesky(a: &[f64], n: usize) -> Option<Vec<f64>> {
+    let mut l = vec![0.0; n * n];
+    for i in 0..n {
+        for j in 0..=i {
+            let mut sum = a[i * n + j];
+            for k in 0..j {
+                sum -= l[i * n + k] * l[j * n + k];
+            }
+            if i == j {
+                if sum.is_nan() || sum <= 0.0 {
+                    return None;
+                }
+                l[i * n + i] = sum.sqrt();
+            } else {
+                l[i * n + j] = sum / l[j * n + j];
+            }
+        }
+    }
+    Some(l)
+}
+
+/// x solving L Lᵀ x = b.
+fn cholesky_solve(l: &[f64], n: usize, b: &[f64]) -> Vec<f64> {
+    let mut y = b.to_vec();
+    for i in 0..n {
+        for k in 0..i {
+            y[i] -= l[i * n + k] * y[k];
+        }
+        y[i] /= l[i * n + i];
+    }
+    for i in (0..n).rev() {
+        for k in i + 1..n {
+            y[i] -= l[k * n + i] * y[k];
+        }
+        y[i] /= l[i * n + i];
+    }
+    y
+}
+
+/// The inverse of L Lᵀ.
+fn cholesky_inverse(l: &[f64], n: usize) -> Vec<f64> {
+    let mut inverse = vec![0.0; n * n];
+    for c in 0..n {
+        let unit: Vec<f64> = (0..n).map(|r| f64::from(u8::from(r == c))).collect();
+        let x = cholesky_solve(l, n, &unit);
+        for r in 0..n {
+            inverse[r * n + c] = x[r];
+        }
+    }
+    inverse
+}
+
+/// Fits the covariate prior of family `F` to `cells` with covariates
+/// `design`, from the common parameter `start_common` and the intercept
+/// `start_intercept` of the fit without covariates; `strength_unit` is the
+/// family's [`Family::strength_unit`] of the whole table.
+pub fn fit_regression<F: Family>(
+    design: &Design,
+    cells: CellPairs<'_>,
+    likelihood: Likelihood,
+    (start_intercept, start_common): (f64, f64),
+    strength_unit: f64,
+) -> Result<RegressionFit, RegressionFailure> {
+    let groups = cells.groups();
+    let moments = design.moments(&groups);
+    let problem = Problem { design, scaled: Scaled::new(&moments), cells, likelihood };
+    let p = design.width();
+    let n = p + 1;
+    let ln_unit = strength_unit.ln();
+    let most = ln_unit + LN_MAX_STRENGTH;
+    let mut theta = vec![0.0; n];
+    theta[0] = start_intercept;
+    theta[p] = start_common.min(most);
+    let mut held = false;
+    let mut iterations = 0;
+    let mut current = problem.evaluate::<F>(&theta);
+    let mut converged = false;
+    while iterations < MAX_ITERATIONS {
+        iterations += 1;
+        let free = if held { p } else { n };
+        let (step, definite) = newton_step(&current, n, free);
+        let mut scale = 1.0;
+        let mut accepted = None;
+        for _ in 0..60 {
+            let trial: Vec<f64> = theta.iter().zip(&step).map(|(t, s)| t + scale * s).collect();
+            let evaluated = problem.evaluate::<F>(&trial);
+            if evaluated.log_likelihood.is_finite()
+                && evaluated.log_likelihood >= current.log_likelihood - 1e-12 * current.log_likelihood.abs()
+            {
+                accepted = Some((trial, evaluated));
+                break;
+            }
+            scale *= 0.5;
+        }
+        let Some((trial, evaluated)) = accepted else { break };
+        let largest_step = step.iter().fold(0.0f64, |m, s| m.max((scale * s).abs()));
+        theta = trial;
+        current = evaluated;
+        if !held && theta[p] > most {
+            // No overdispersion beyond the covariates: hold the common parameter there.
+            held = true;
+            theta[p] = most;
+            current = problem.evaluate::<F>(&theta);
+            continue;
+        }
+        if theta[p] < ln_unit + LN_MIN_STRENGTH {
+            return Err(RegressionFailure::NoPooling);
+        }
+        if let Some(failure) = separation::<F>(&problem, &theta) {
+            return Err(failure);
+        }
+        if definite && largest_step < 1e-10 * (1.0 + theta.iter().fold(0.0f64, |m, t| m.max(t.abs()))) {
+            converged = true;
+            break;
+        }
+    }
+    if !converged {
+        return Err(separation::<F>(&problem, &theta).unwrap_or(RegressionFailure::NotConverged));
+    }
+    let free = if held { p } else { n };
+    let information: Vec<f64> = (0..free)
+        .flat_map(|a| (0..free).map(move |b| (a, b)))
+        .map(|(a, b)| -current.hessian[a * n + b])
+        .collect();
+    let factor = cholesky(&information, free).ok_or(RegressionFailure::NotConverged)?;
+    let inverse = cholesky_inverse(&factor, free);
+    // Back to the covariates' units: b = J a, u₂ unchanged.
+    let (coefficients, jacobian) = problem.scaled.unscale(&theta[..p]);
+    let mut full = vec![0.0; n * n];
+    for a in 0..free {
+        for b in 0..free {
+            full[a * n + b] = inverse[a * free + b];
+        }
+    }
+    let mut map = vec![0.0; n * n];
+    for a in 0..p {
+        for b in 0..p {
+            map[a * n + b] = jacobian[a * p + b];
+        }
+    }
+    map[p * n + p] = 1.0;
+    let covariance = sandwich(&map, &full, n);
+    let mut log_likelihood = current.log_likelihood;
+    if likelihood == Likelihood::Restricted {
+        // −½ ln det M in the covariates' own units: M = J⁻ᵀ M_z J⁻¹, so add ln |det J|.
+        log_likelihood -= (1..p).map(|k| problem.scaled.scale[k].ln()).sum::<f64>();
+    }
+    Ok(RegressionFit {
+        coefficients,
+        common: theta[p],
+        covariance,
+        log_likelihood,
+        iterations,
+        boundary: if held { RegressionBoundary::NoOverdispersion } else { RegressionBoundary::None },
+    })
+}
+
+/// M C Mᵀ for n × n matrices.
+fn sandwich(m: &[f64], c: &[f64], n: usize) -> Vec<f64> {
+    let mut mc = vec![0.0; n * n];
+    for i in 0..n {
+        for j in 0..n {
+            mc[i * n + j] = (0..n).map(|k| m[i * n + k] * c[k * n + j]).sum();
+        }
+    }
+    let mut out = vec![0.0; n * n];
+    for i in 0..n {
+        for j in 0..n {
+            out[i * n + j] = (0..n).map(|k| mc[i * n + k] * m[j * n + k]).sum();
+        }
+    }
+    out
+}
+
+/// The Newton step in the first `free` coordinates (the rest held), with a
+/// ridge where −H is not positive definite; and whether it was.
+fn newton_step(at: &Evaluated, n: usize, free: usize) -> (Vec<f64>, bool) {
+    let information: Vec<f64> =
+        (0..free).flat_map(|a| (0..free).map(move |b| (a, b))).map(|(a, b)| -at.hessian[a * n + b]).collect();
+    let gradient = &at.gradient[..free];
+    let mut step = vec![0.0; n];
+    if let Some(factor) = cholesky(&information, free) {
+        step[..free].copy_from_slice(&cholesky_solve(&factor, free, gradient));
+        return (step, true);
+    }
+    let largest = (0..free).map(|a| information[a * free + a].abs()).fold(1e-12f64, f64::max);
+    let mut ridge = 1e-8 * largest;
+    loop {
+        let mut damped = information.clone();
+        for a in 0..free {
+            damped[a * free + a] += ridge;
+        }
+        if let Some(factor) = cholesky(&damped, free) {
+            step[..free].copy_from_slice(&cholesky_solve(&factor, free, gradient));
+            return (step, false);
+        }
+        ridge *= 10.0;
+    }
+}
+
+/// A coefficient running away: some cell's linear predictor past ±35 on a
+/// bounded scale, blamed on the coefficient of largest |bₖ sₖ| (scaled).
+fn separation<F: Family>(problem: &Problem<'_>, theta: &[f64]) -> Option<RegressionFailure> {
+    if F::TERMS.rates == RateRange::Real {
+        return None;
+    }
+    let p = problem.width();
+    let extreme = (0..problem.design.cells())
+        .map(|i| {
+            problem.scaled.row(problem.design, i).iter().zip(&theta[..p]).map(|(z, a)| z * a).sum::<f64>()
+        })
+        .fold(0.0f64, |m, eta| if eta.abs() > m.abs() { eta } else { m });
+    if extreme.abs() <= SEPARATED_PREDICTOR {
+        return None;
+    }
+    let coefficient = if p == 1 {
+        0
+    } else {
+        (1..p).max_by(|&a, &b| theta[a].abs().total_cmp(&theta[b].abs())).expect("p > 1")
+    };
+    Some(RegressionFailure::Separation { coefficient, towards_positive: theta[coefficient] > 0.0 })
+}
+
+impl RegressionFit {
+    /// Cell i's linear predictor.
+    pub fn predictor(&self, design: &Design, i: usize) -> f64 {
+        design.predictor(i, &self.coefficients)
+    }
+
+    /// Cell i's prior: conjugate at (xᵢᵀb, u₂), or at the boundary complete
+    /// pooling at its centre.
+    pub fn prior_of<F: Family>(&self, design: &Design, i: usize) -> Prior {
+        let eta = self.predictor(design, i);
+        match self.boundary {
+            RegressionBoundary::None => Prior::Conjugate { natural: F::natural([eta, self.common]) },
+            RegressionBoundary::NoOverdispersion => {
+                Prior::CompletePooling { mean: F::mean_strength([eta, self.common]).0 }
+            }
+        }
+    }
+
+    /// Cell i's prior mean (the centre its groups are pulled toward).
+    pub fn centre_of<F: Family>(&self, design: &Design, i: usize) -> f64 {
+        F::mean_strength([self.predictor(design, i), self.common]).0
+    }
+
+    /// What is known of cell i's prior's uncertainty: the covariance of its
+    /// working coordinates (xᵢᵀb, u₂), or at the boundary the variance of its centre.
+    pub fn uncertainty_of<F: Family>(&self, design: &Design, i: usize) -> PriorUncertainty {
+        let (x, n) = (design.row(i), self.coefficients.len() + 1);
+        let p = n - 1;
+        let c = |a: usize, b: usize| self.covariance[a * n + b];
+        let eta_var: f64 =
+            (0..p).flat_map(|a| (0..p).map(move |b| (a, b))).map(|(a, b)| x[a] * x[b] * c(a, b)).sum();
+        let eta_common: f64 = (0..p).map(|a| x[a] * c(a, p)).sum();
+        match self.boundary {
+            RegressionBoundary::None => {
+                PriorUncertainty::Working([[eta_var, eta_common], [eta_common, c(p, p)]])
+            }
+            RegressionBoundary::NoOverdispersion => {
+                let slope = F::mean_strength_jacobian([self.predictor(design, i), self.common])[0][0];
+                PriorUncertainty::PooledMean(slope * slope * eta_var)
+            }
+        }
+    }
+
+    /// The standard error of coefficient k.
+    pub fn coefficient_se(&self, k: usize) -> f64 {
+        let n = self.coefficients.len() + 1;
+        self.covariance[k * n + k].sqrt()
+    }
+
+    /// The standard error of the common working parameter u₂ (0 when held at the boundary).
+    pub fn common_se(&self) -> f64 {
+        let n = self.coefficients.len() + 1;
+        self.covariance[(n - 1) * n + n - 1].sqrt()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::core::fit::{fit_by, Boundary};
+    use crate::core::model::beta_binomial::BetaBinomial;
+    use crate::core::model::gamma_poisson::GammaPoisson;
+    use crate::core::model::normal_normal::NormalNormal;
+    use crate::core::pairs::PairTable;
+
+    fn pair(size: f64, count: f64) -> WeightedPair {
+        WeightedPair { size, count, weight: 1.0 }
+    }
+
+    /// Three cells with a numeric covariate and a two-level indicator.
+    fn cells() -> (Design, Vec<WeightedPair>, Vec<Range<usize>>) {
+        let design = Design::new(
+            vec!["intercept".into(), "tenure".into(), "kind=b".into()],
+            vec![1.0, 0.5, 0.0, 1.0, 2.0, 1.0, 1.0, 3.5, 0.0],
+        );
+        let pairs = vec![
+            pair(10.0, 3.0),
+            pair(4.0, 0.0),
+            pair(20.0, 9.0),
+            pair(7.0, 5.0),
+            pair(12.0, 2.0),
+            pair(3.0, 1.0),
+        ];
+        (design, pairs, vec![0..2, 2..4, 4..6])
+    }
+
+    fn assert_derivatives<F: Family>(likelihood: Likelihood, theta: &[f64]) {
+        let (design, pairs, ranges) = cells();
+        let groups = CellPairs { pairs: &pairs, ranges: &ranges }.groups();
+        let problem = Problem {
+            scaled: Scaled::new(&design.moments(&groups)),
+            design: &design,
+            cells: CellPairs { pairs: &pairs, ranges: &ranges },
+            likelihood,
+        };
+        let n = theta.len();
+        let at = problem.evaluate::<F>(theta);
+        let h = 1e-5;
+        for i in 0..n {
+            let (mut up, mut down) = (theta.to_vec(), theta.to_vec());
+            up[i] += h;
+            down[i] -= h;
+            let (eu, ed) = (problem.evaluate::<F>(&up), problem.evaluate::<F>(&down));
+            let g = (eu.log_likelihood - ed.log_likelihood) / (2.0 * h);
+            assert!(
+                (at.gradient[i] - g).abs() < 1e-6 * (1.0 + g.abs()),
+                "gradient {i}: {} against {g}",
+                at.gradient[i]
+            );
+            for j in 0..n {
+                let hij = (eu.gradient[j] - ed.gradient[j]) / (2.0 * h);
+                let got = at.hessian[j * n + i];
+                assert!((got - hij).abs() < 1e-5 * (1.0 + hij.abs()), "hessian {j}{i}: {got} against {hij}");
+            }
+        }
+    }
+
+    #[test]
+    fn gradients_and_hessians_match_central_differences() {
+        assert_derivatives::<BetaBinomial>(Likelihood::Marginal, &[-0.7, 0.3, -0.2, 1.5]);
+        assert_derivatives::<GammaPoisson>(Likelihood::Marginal, &[-1.1, 0.2, 0.4, 0.8]);
+        // Normal: the counts read as estimates, the sizes as their standard errors.
+        assert_derivatives::<NormalNormal>(Likelihood::Marginal, &[3.0, 1.0, -0.5, -2.0]);
+        assert_derivatives::<NormalNormal>(Likelihood::Restricted, &[3.0, 1.0, -0.5, -2.0]);
+    }
+
+    /// With the intercept alone, the covariate fit is the fit without
+    /// covariates: the same maximum, the same standard errors.
+    fn intercept_alone_is_the_plain_fit<F: Family>(pairs: &[WeightedPair], likelihood: Likelihood) {
+        let table = PairTable::from_weighted(pairs.iter().copied());
+        let plain = fit_by::<F>(&table, likelihood).expect("plain fit");
+        assert_eq!(plain.boundary, Boundary::None);
+        let (mean, strength) = (plain.mean, plain.strength.expect("interior"));
+        let u = F::working(mean, strength);
+        let design = Design::new(vec!["intercept".into()], vec![1.0]);
+        let ranges = std::iter::once(0..table.pairs().len()).collect::<Vec<_>>();
+        let cells = CellPairs { pairs: table.pairs(), ranges: &ranges };
+        let fitted = fit_regression::<F>(
+            &design,
+            cells,
+            likelihood,
+            (u[0] + 0.3, u[1] - 0.5),
+            F::strength_unit(&table),
+        )
+        .expect("covariate fit");
+        assert!(
+            (fitted.coefficients[0] - u[0]).abs() < 1e-7 * (1.0 + u[0].abs()),
+            "{} against {}",
+            fitted.coefficients[0],
+            u[0]
+        );
+        assert!(
+            (fitted.common - u[1]).abs() < 1e-7 * (1.0 + u[1].abs()),
+            "{} against {}",
+            fitted.common,
+            u[1]
+        );
+        let mut objective = plain.log_marginal_likelihood;
+        if likelihood == Likelihood::Restricted {
+            objective += F::restricted_term(&table, u).expect("a restricted form").log_likelihood;
+        }
+        let relative = (fitted.log_likelihood - objective).abs() / objective.abs();
+        assert!(relative < 1e-12, "{} against {objective}", fitted.log_likelihood);
+        let mean_se = fitted.coefficient_se(0) * F::mean_strength_jacobian(u)[0][0].abs();
+        assert!(
+            (mean_se - plain.mean_se).abs() < 1e-5 * plain.mean_se,
+            "{mean_se} against {}",
+            plain.mean_se
+        );
+    }
+
+    #[test]
+    fn the_intercept_alone_gives_the_fit_without_covariates() {
+        let rates: Vec<WeightedPair> = (0..40)
+            .map(|i| {
+                let size = 5.0 + (i * 7 % 23) as f64;
+                let count = ((i * 13 % 17) as f64 / 17.0 * size * 0.8).floor();
+                pair(size, count)
+            })
+            .collect();
+        intercept_alone_is_the_plain_fit::<BetaBinomial>(&rates, Likelihood::Marginal);
+        intercept_alone_is_the_plain_fit::<GammaPoisson>(&rates, Likelihood::Marginal);
+        let estimates: Vec<WeightedPair> = (0..30)
+            .map(|i| pair(0.5 + (i % 7) as f64 * 0.4, 10.0 + ((i * 11 % 13) as f64 - 6.0) * 1.3))
+            .collect();
+        intercept_alone_is_the_plain_fit::<NormalNormal>(&estimates, Likelihood::Marginal);
+        intercept_alone_is_the_plain_fit::<NormalNormal>(&estimates, Likelihood::Restricted);
+    }
+
+    #[test]
+    fn a_constant_or_collinear_column_is_named() {
+        let groups = [1.0, 2.0, 1.0];
+        let constant = Design::new(vec!["intercept".into(), "x".into()], vec![1.0, 4.0, 1.0, 4.0, 1.0, 4.0]);
+        assert_eq!(constant.check(&groups), Err(DesignFault::Constant(1)));
+        // z = 2x − 1: a linear function of x (the columns are centred, so
+        // the intercept's part is implicit).
+        let collinear = Design::new(
+            vec!["intercept".into(), "x".into(), "z".into()],
+            vec![1.0, 1.0, 1.0, 1.0, 2.0, 3.0, 1.0, 5.0, 9.0],
+        );
+        assert_eq!(collinear.check(&groups), Err(DesignFault::Collinear { column: 2, of: vec![1] }));
+        let fine = Design::new(vec!["intercept".into(), "x".into()], vec![1.0, 1.0, 1.0, 2.0, 1.0, 5.0]);
+        assert_eq!(fine.check(&groups), Ok(()));
+    }
+
+    #[test]
+    fn a_level_with_no_events_is_separation() {
+        // The second level's groups have no events at all: its coefficient runs to −∞.
+        let design = Design::new(vec!["intercept".into(), "kind=b".into()], vec![1.0, 0.0, 1.0, 1.0]);
+        let pairs = vec![pair(10.0, 3.0), pair(8.0, 5.0), pair(12.0, 1.0), pair(9.0, 0.0), pair(20.0, 0.0)];
+        let ranges = [0..3, 3..5];
+        let cells = CellPairs { pairs: &pairs, ranges: &ranges };
+        let outcome = fit_regression::<GammaPoisson>(&design, cells, Likelihood::Marginal, (-1.0, 1.0), 1.0);
+        assert_eq!(outcome, Err(RegressionFailure::Separation { coefficient: 1, towards_positive: false }));
+    }
+}
