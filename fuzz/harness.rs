@@ -55,6 +55,7 @@ pub fn exercise(data: &[u8]) {
         flag_fdr: Some(FlagRule { event: FlagEvent::Above, bound: 0.1 }),
         segments: Vec::new(),
         min_groups: ratepool::pipeline::DEFAULT_MIN_GROUPS,
+        covariates: Vec::new(),
         aggregation: Default::default(),
         top: None,
         seed: ratepool::pipeline::DEFAULT_SEED,

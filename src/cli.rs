@@ -6,8 +6,8 @@ use crate::error::{Error, Result};
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
-    load_summary, Aggregation, FlagEvent, FlagRule, Intervals, InvalidRows, Job, Layout, Level, Likelihood,
-    Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
+    load_summary, Aggregation, CovariateColumn, CovariateRole, FlagEvent, FlagRule, Intervals, InvalidRows,
+    Job, Layout, Level, Likelihood, Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
 };
 use crate::progress::{Terminal, Watch};
 use clap::{Args, Parser, Subcommand, ValueEnum};
@@ -481,6 +481,33 @@ pub struct TableArgs {
         help_heading = "Analysis"
     )]
     pub min_groups: Option<usize>,
+    /// Centre priors on these columns
+    #[arg(
+        long_help = "Each group's prior centre follows these columns (comma-separated names) through the model's link: logit of the proportion, log of the rate, the mean itself for estimates; an intercept is always in. A column whose every value is a number enters as it is; any other enters as levels, one indicator per level after the first in sorted order. Adds `prior_mean` (the centre each group is pulled toward) and the coefficients to the summary.",
+        long,
+        value_name = "COLUMN[,COLUMN...]",
+        value_delimiter = ',',
+        help_heading = "Covariates"
+    )]
+    pub covariates: Vec<String>,
+    /// Covariates entered as their log
+    #[arg(
+        long_help = "Covariates that enter as their natural log (a volume, a population): every value must be a number above zero.",
+        long,
+        value_name = "COLUMN[,COLUMN...]",
+        value_delimiter = ',',
+        help_heading = "Covariates"
+    )]
+    pub covariates_log: Vec<String>,
+    /// Covariates entered as levels
+    #[arg(
+        long_help = "Covariates that enter as levels even where their values are numbers (codes of a category): one indicator per level after the first in sorted order, at most 200 levels in all.",
+        long,
+        value_name = "COLUMN[,COLUMN...]",
+        value_delimiter = ',',
+        help_heading = "Covariates"
+    )]
+    pub covariates_levels: Vec<String>,
     /// Flag at a Bayesian false-discovery rate Q
     #[arg(
         long_help = "Add `flagged` and `flag_fdr` for the event of --above or --below (give one of them): the groups most probably showing the event are flagged, as many as keep the mean posterior probability of no event among them at most Q (a Bayesian false-discovery rate); `flag_fdr` is the smallest Q that flags the group.",
@@ -744,6 +771,61 @@ fn segment_columns(table: &TableArgs, others: [&String; 3]) -> Result<Vec<String
     Ok(table.by.clone())
 }
 
+/// The covariate columns of `--covariates`, `--covariates-log` and
+/// `--covariates-levels`: each named once over the three, and none of the
+/// other columns in play.
+fn covariate_columns(table: &TableArgs, others: [&String; 3]) -> Result<Vec<CovariateColumn>> {
+    let named = [
+        ("covariates", &table.covariates, CovariateRole::AsRead),
+        ("covariates-log", &table.covariates_log, CovariateRole::Log),
+        ("covariates-levels", &table.covariates_levels, CovariateRole::Levels),
+    ];
+    let mut columns: Vec<CovariateColumn> = Vec::new();
+    for (flag, names, role) in named {
+        for name in names {
+            if name.is_empty() {
+                return Err(Error::Usage(format!("--{flag} has an empty column name")));
+            }
+            if columns.iter().any(|c| &c.name == name) {
+                return Err(Error::Usage(format!("the covariate column '{name}' is named twice")));
+            }
+            if others.contains(&name) {
+                return Err(Error::Usage(format!(
+                    "--{flag} cannot name '{name}': it is already the group or a count column"
+                )));
+            }
+            columns.push(CovariateColumn { name: name.clone(), role });
+        }
+    }
+    Ok(columns)
+}
+
+/// What covariates do not yet combine with, refused with what to do instead.
+fn refuse_covariates_with(
+    table: &TableArgs,
+    covariates: &[CovariateColumn],
+    (aggregation, prior, pair_counts): (&Aggregation, &PriorSource, bool),
+) -> Result<()> {
+    if covariates.is_empty() {
+        return Ok(());
+    }
+    let refusal = if !table.by.is_empty() {
+        Some("--by: segments each fit their own prior, covariates one prior for all; name the segment column in --covariates-levels to give each segment its own centre")
+    } else if pair_counts {
+        Some("--pair-counts: a pair table holds no covariates")
+    } else if *aggregation != Aggregation::Groups {
+        Some("--outcome or --aggregate: give one row per group with its covariates")
+    } else if matches!(prior, PriorSource::Saved { .. }) {
+        Some("score --prior: refit with `ratepool fit` on the new groups")
+    } else {
+        None
+    };
+    match refusal {
+        Some(why) => Err(Error::Usage(format!("covariates do not combine with {why}"))),
+        None => Ok(()),
+    }
+}
+
 /// The rule of `--top K`.
 fn top_rule(table: &TableArgs) -> Result<Option<TopRule>> {
     let Some(k) = table.top else { return Ok(None) };
@@ -874,6 +956,8 @@ fn job_of(
     }
     let (group, layout) = layout_of(table, pair_counts)?;
     let segments = segment_columns(table, [&group, &count, &size])?;
+    let covariates = covariate_columns(table, [&group, &count, &size])?;
+    refuse_covariates_with(table, &covariates, (&aggregation, &prior, pair_counts.is_some()))?;
     Ok(Job {
         input: table.input.clone(),
         model,
@@ -886,6 +970,7 @@ fn job_of(
         flag_fdr: flag_rule(table)?,
         segments,
         min_groups: table.min_groups.unwrap_or(crate::pipeline::DEFAULT_MIN_GROUPS),
+        covariates,
         aggregation,
         top: top_rule(table)?,
         seed: table.seed,

@@ -1,7 +1,7 @@
 //! The short text of a run's summary shown on the terminal.
 
 use crate::core::model::Model;
-use crate::summary::{p_value_text, plain, three_digits, Summary};
+use crate::summary::{p_value_figure, p_value_text, plain, three_digits, CovariatePrior, Summary};
 use std::fmt::Write;
 
 fn show(value: Option<f64>) -> String {
@@ -18,17 +18,23 @@ pub fn render_text(summary: &Summary) -> String {
         "ratepool {}: {} groups scored ({} rows read, {} rejected)",
         summary.model, summary.groups, summary.rows_read, summary.rows_rejected
     );
-    let shape = match Model::from_name(&summary.model) {
-        Some(model) => prior.terminal_words(model.terms(), &show, &three_digits),
-        None => format!("a prior of the unknown model {}", summary.model),
-    };
-    let _ = writeln!(
-        out,
-        "  prior        {shape}; mean {:.6} (se {}), strength {}",
-        prior.mean(),
-        three_digits(prior.mean_se()),
-        prior.strength().map_or("infinite".to_string(), plain)
-    );
+    let model = Model::from_name(&summary.model);
+    match (prior.covariates(), model) {
+        (Some(covariates), Some(model)) => covariate_lines(&mut out, summary, covariates, model),
+        _ => {
+            let shape = match model {
+                Some(model) => prior.terminal_words(model.terms(), &show, &three_digits),
+                None => format!("a prior of the unknown model {}", summary.model),
+            };
+            let _ = writeln!(
+                out,
+                "  prior        {shape}; mean {:.6} (se {}), strength {}",
+                prior.mean(),
+                three_digits(prior.mean_se()),
+                prior.strength().map_or("infinite".to_string(), plain)
+            );
+        }
+    }
     let fit = &summary.fit;
     let fitted_here = fit.source == "fit";
     let _ = writeln!(
@@ -123,4 +129,45 @@ pub fn render_text(summary: &Summary) -> String {
     }
     // The warnings are not repeated here: the caller shows each once, on stderr.
     out
+}
+
+/// A covariate prior: its law and common parameter, the coefficient table
+/// and the test against no covariates.
+fn covariate_lines(out: &mut String, summary: &Summary, covariates: &CovariatePrior, model: Model) {
+    let terms = model.terms();
+    let key = terms.covariate_terms.common_key;
+    let prior = &summary.fitted_prior;
+    let common = match (prior.get(key), prior.get(&format!("{key}_se"))) {
+        (Some(value), Some(se)) => format!("{key} {} (se {})", plain(value), three_digits(se)),
+        _ => format!("{key} at its boundary (no overdispersion beyond the covariates)"),
+    };
+    let _ = writeln!(
+        out,
+        "  prior        {} centred on a regression on the {} scale; {common}; mean centre {:.6}",
+        terms.prior_words.law,
+        covariates.link,
+        prior.mean()
+    );
+    let width = covariates.coefficients.iter().map(|c| c.name.chars().count()).max().unwrap_or(0).max(11);
+    let _ = writeln!(out, "  coefficient  {:<width$}  {:>11}  {:>9}  {:>8}  p", "", "estimate", "se", "z");
+    for c in &covariates.coefficients {
+        let _ = writeln!(
+            out,
+            "               {:<width$}  {:>11}  {:>9}  {:>8.2}  {}",
+            c.name,
+            plain(c.estimate),
+            three_digits(c.se),
+            c.z,
+            p_value_figure(c.p)
+        );
+    }
+    if let Some(test) = &covariates.likelihood_ratio_test {
+        let _ = writeln!(
+            out,
+            "  covariates   likelihood ratio against no covariates: chi-square {:.3} on {} df, {}",
+            test.statistic,
+            test.degrees_of_freedom,
+            p_value_text(test.p_value)
+        );
+    }
 }

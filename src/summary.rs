@@ -260,17 +260,76 @@ fn plug_in() -> String {
 /// null. Every family writes `mean`, `mean_se`, `strength` and `strength_se`;
 /// a prior read from a file is checked against its model with
 /// [`FittedPrior::check`] before use.
+///
+/// A prior whose centre follows covariates writes, after its keys (the
+/// groups' mean centre and the common parameter with its standard error),
+/// the [`CovariatePrior`]'s keys in the same object.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FittedPrior {
     entries: Vec<(String, Option<f64>)>,
+    covariates: Option<Box<CovariatePrior>>,
 }
+
+/// The covariate part of a prior: how each covariate entered, the
+/// coefficients of the linear predictor on the model's link, and the test
+/// against the same model without covariates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CovariatePrior {
+    /// The link of the prior mean: "logit", "log" or "identity".
+    pub link: String,
+    /// The coefficients: the intercept, then per covariate one (a number
+    /// or its log) or one per level after the first.
+    pub coefficients: Vec<CoefficientReport>,
+    /// How each covariate column entered.
+    pub covariates: Vec<CovariateReport>,
+    /// The likelihood-ratio test against the model without covariates
+    /// (null under REML, whose likelihoods with different coefficients are
+    /// not comparable).
+    pub likelihood_ratio_test: Option<SegmentTest>,
+}
+
+/// One coefficient of a covariate prior.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CoefficientReport {
+    /// `intercept`, the column, `log(column)`, or `column=level`.
+    pub name: String,
+    /// The estimate on the link scale.
+    pub estimate: f64,
+    /// Its standard error (inverse observed information).
+    pub se: f64,
+    /// estimate / se.
+    pub z: f64,
+    /// Two-sided p-value of z under N(0, 1).
+    pub p: f64,
+}
+
+/// How one covariate column entered the linear predictor.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CovariateReport {
+    /// The input column.
+    pub column: String,
+    /// "number", "log" or "levels".
+    pub enters_as: String,
+    /// The levels in sorted order, the first the reference (levels only).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub levels: Vec<String>,
+}
+
+/// The keys [`CovariatePrior`] writes into the prior's object.
+const COVARIATE_KEYS: [&str; 4] = ["link", "coefficients", "covariates", "likelihood_ratio_test"];
 
 impl Serialize for FittedPrior {
     fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
         use serde::ser::SerializeMap;
-        let mut map = serializer.serialize_map(Some(self.entries.len()))?;
+        let mut map = serializer.serialize_map(None)?;
         for (key, value) in &self.entries {
             map.serialize_entry(key, value)?;
+        }
+        if let Some(covariates) = &self.covariates {
+            map.serialize_entry("link", &covariates.link)?;
+            map.serialize_entry("coefficients", &covariates.coefficients)?;
+            map.serialize_entry("covariates", &covariates.covariates)?;
+            map.serialize_entry("likelihood_ratio_test", &covariates.likelihood_ratio_test)?;
         }
         map.end()
     }
@@ -286,10 +345,23 @@ impl<'de> Deserialize<'de> for FittedPrior {
             }
             fn visit_map<A: serde::de::MapAccess<'de>>(self, mut map: A) -> Result<FittedPrior, A::Error> {
                 let mut entries = Vec::new();
-                while let Some((key, value)) = map.next_entry::<String, Option<f64>>()? {
-                    entries.push((key, value));
+                let mut parts = serde_json::Map::new();
+                while let Some(key) = map.next_key::<String>()? {
+                    if COVARIATE_KEYS.contains(&key.as_str()) {
+                        parts.insert(key, map.next_value::<serde_json::Value>()?);
+                    } else {
+                        let value = map.next_value::<Option<f64>>()?;
+                        entries.push((key, value));
+                    }
                 }
-                let prior = FittedPrior { entries };
+                let covariates = if parts.is_empty() {
+                    None
+                } else {
+                    let part: CovariatePrior = serde_json::from_value(serde_json::Value::Object(parts))
+                        .map_err(serde::de::Error::custom)?;
+                    Some(Box::new(part))
+                };
+                let prior = FittedPrior { entries, covariates };
                 match prior.get("mean") {
                     Some(_) => Ok(prior),
                     None => Err(serde::de::Error::missing_field("mean")),
@@ -421,7 +493,30 @@ impl FittedPrior {
                 (key.to_string(), value)
             })
             .collect();
-        FittedPrior { entries }
+        FittedPrior { entries, covariates: None }
+    }
+
+    /// The wire form of a covariate prior of the model described by
+    /// `terms`: the groups' mean centre, the common parameter with its
+    /// standard error, and the covariate part.
+    pub fn with_covariates(
+        terms: &ModelTerms,
+        mean_centre: f64,
+        (common, common_se): (Option<f64>, Option<f64>),
+        covariates: CovariatePrior,
+    ) -> Self {
+        let key = terms.covariate_terms.common_key;
+        let entries = vec![
+            ("mean".to_string(), Some(mean_centre)),
+            (key.to_string(), common),
+            (format!("{key}_se"), common_se),
+        ];
+        FittedPrior { entries, covariates: Some(Box::new(covariates)) }
+    }
+
+    /// The covariate part, for a prior whose centre follows covariates.
+    pub fn covariates(&self) -> Option<&CovariatePrior> {
+        self.covariates.as_deref()
     }
 
     /// The value under `key` (None when null or absent).
@@ -433,6 +528,13 @@ impl FittedPrior {
     /// and no others, with a value wherever that model always writes one;
     /// the reason where it does not.
     pub fn check(&self, terms: &ModelTerms) -> Result<(), String> {
+        if let Some(covariates) = &self.covariates {
+            let columns: Vec<&str> = covariates.covariates.iter().map(|c| c.column.as_str()).collect();
+            return Err(format!(
+                "its centre follows the covariates {}; a covariate prior is not reused on new groups yet: fit them with --covariates",
+                columns.join(", ")
+            ));
+        }
         if let Some((key, _)) =
             self.entries.iter().find(|(k, _)| !terms.prior_keys.iter().any(|p| p.key == k))
         {

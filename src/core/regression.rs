@@ -243,6 +243,11 @@ pub struct RegressionFit {
     pub covariance: Vec<f64>,
     /// The maximised log marginal (or restricted) likelihood.
     pub log_likelihood: f64,
+    /// The log marginal likelihood at the result (the same as
+    /// `log_likelihood` unless the fit maximised the restricted one).
+    pub marginal_log_likelihood: f64,
+    /// The norm of the gradient at the result, per group.
+    pub gradient_norm: f64,
     /// Newton iterations.
     pub iterations: usize,
     /// Interior, or no overdispersion beyond the covariates.
@@ -549,11 +554,22 @@ pub fn fit_regression<F: Family>(
         // −½ ln det M in the covariates' own units: M = J⁻ᵀ M_z J⁻¹, so add ln |det J|.
         log_likelihood -= (1..p).map(|k| problem.scaled.scale[k].ln()).sum::<f64>();
     }
+    let marginal_log_likelihood = match likelihood {
+        Likelihood::Restricted => {
+            let marginal = Problem { likelihood: Likelihood::Marginal, ..problem };
+            marginal.evaluate::<F>(&theta).log_likelihood
+        }
+        Likelihood::Marginal => log_likelihood,
+    };
+    let gradient_norm =
+        current.gradient[..free].iter().map(|g| g * g).sum::<f64>().sqrt() / groups.iter().sum::<f64>();
     Ok(RegressionFit {
         coefficients,
         common: theta[p],
         covariance,
         log_likelihood,
+        marginal_log_likelihood,
+        gradient_norm,
         iterations,
         boundary: if held { RegressionBoundary::NoOverdispersion } else { RegressionBoundary::None },
     })

@@ -1,5 +1,5 @@
 //! One batch of input rows as every reader hands it over, and the column
-//! role that keys segments: shared by the readers and [`super::input`],
+//! roles that key segments and covariate cells: shared by the readers and [`super::input`],
 //! which chooses among them.
 
 use arrow_array::ArrayRef;
@@ -8,6 +8,16 @@ use std::path::Path;
 /// The role of a column that keys segments: Parquet text in this role is
 /// read dictionary-encoded (see [`crate::pipeline::segments`]).
 pub const SEGMENT_ROLE: &str = "segment";
+
+/// The role of a covariate column: it keys the cells of groups that share
+/// a covariate pattern as a segment column keys segments, and is read so.
+pub const COVARIATE_ROLE: &str = "covariate";
+
+/// Whether a column in `role` keys segments or cells (and Parquet text in
+/// it is read dictionary-encoded).
+pub fn keys_cells(role: &str) -> bool {
+    role == SEGMENT_ROLE || role == COVARIATE_ROLE
+}
 
 /// One batch of input rows.
 pub struct InputBatch<'a> {

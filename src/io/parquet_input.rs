@@ -3,7 +3,7 @@
 //! arrow-rs. Memory follows the batch size, not the file size. Every codec a
 //! producer writes is read (snappy, gzip, both LZ4 codecs, zstd, brotli).
 
-use super::batch::{InputBatch, SEGMENT_ROLE};
+use super::batch::{keys_cells, InputBatch};
 use super::guard::guard_read;
 use crate::error::{Error, Result};
 use arrow_schema::{DataType, Field, Schema};
@@ -73,11 +73,8 @@ impl ParquetParts {
                 }
             }
         }
-        let dictionary = columns
-            .iter()
-            .filter(|(_, role)| *role == SEGMENT_ROLE)
-            .map(|(name, _)| name.to_string())
-            .collect();
+        let dictionary =
+            columns.iter().filter(|(_, role)| keys_cells(role)).map(|(name, _)| name.to_string()).collect();
         let columns = columns.iter().map(|(name, _)| name.to_string()).collect();
         Ok(ParquetParts {
             files,

@@ -15,7 +15,7 @@ use super::{no_data_rows, no_valid_rows, Job, PhaseClock};
 use crate::core::pairs::WeightedPair;
 use crate::error::Result;
 use crate::io::atomic::StagedOutputs;
-use crate::io::input::SEGMENT_ROLE;
+use crate::io::input::{COVARIATE_ROLE, SEGMENT_ROLE};
 use crate::summary::Summary;
 
 /// What a source's first reading found.
@@ -82,10 +82,12 @@ pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'
 }
 
 /// The input columns a run reads: `lead` (the group or weight column and
-/// what each row holds), then the segment columns of `--by`.
+/// what each row holds), then the segment columns of `--by` or the
+/// covariate columns (never both), which key the rows' cells.
 pub(super) fn input_columns<'a>(job: &'a Job, lead: Vec<(&'a str, &'a str)>) -> Vec<(&'a str, &'a str)> {
     let mut columns = lead;
     columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
+    columns.extend(job.covariates.iter().map(|c| (c.name.as_str(), COVARIATE_ROLE)));
     columns
 }
 

@@ -7,6 +7,7 @@
 
 mod aggregate;
 mod clock;
+mod covariates;
 mod driver;
 pub mod duplicates;
 mod pair_table;
@@ -210,6 +211,26 @@ pub enum Layout {
     },
 }
 
+/// A column whose values move a group's prior centre.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct CovariateColumn {
+    /// The column's name in the input.
+    pub name: String,
+    /// How its values enter.
+    pub role: CovariateRole,
+}
+
+/// How a covariate column's values enter the linear predictor.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum CovariateRole {
+    /// As numbers when every value is one, otherwise as levels (`--covariates`).
+    AsRead,
+    /// As the natural log of numbers above zero (`--covariates-log`).
+    Log,
+    /// As levels, even where the values are numbers (`--covariates-levels`).
+    Levels,
+}
+
 /// A fully validated job.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Job {
@@ -247,6 +268,9 @@ pub struct Job {
     pub segments: Vec<String>,
     /// A segment with fewer groups takes the prior fitted to all groups.
     pub min_groups: usize,
+    /// Covariate columns: each group's prior centre follows them (empty:
+    /// one centre for all).
+    pub covariates: Vec<CovariateColumn>,
     /// Where to write one row per distinct pair with every per-pair column.
     pub pair_output: Option<PathBuf>,
     /// Invalid-row policy.

@@ -13,6 +13,7 @@
 //!
 //! Every output is staged and renamed into place only at the end.
 
+use super::covariates::covariate_fault;
 use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::Scored;
@@ -93,11 +94,23 @@ impl<'a> BatchView<'a> {
             return Ok(Err(reject(&names.group, MISSING_GROUP.to_string())));
         }
         let terms = job.model.terms();
-        if let Some(pair) = self.plainly_valid(terms, row) {
-            return Ok(Ok(pair));
+        let pair = match self.plainly_valid(terms, row) {
+            Some(pair) => pair,
+            None => {
+                let (count, size) =
+                    (cell_at(&self.batch.columns[1], row)?, cell_at(&self.batch.columns[2], row)?);
+                match check_values(names, terms, &count, &size) {
+                    Ok(pair) => pair,
+                    Err((column, reason)) => return Ok(Err(reject(column, reason))),
+                }
+            }
+        };
+        if !job.covariates.is_empty() {
+            if let Some((column, reason)) = covariate_fault(job, &self.segments, row) {
+                return Ok(Err(reject(&column, reason)));
+            }
         }
-        let (count, size) = (cell_at(&self.batch.columns[1], row)?, cell_at(&self.batch.columns[2], row)?);
-        Ok(check_values(names, terms, &count, &size).map_err(|(column, reason)| reject(column, reason)))
+        Ok(Ok(pair))
     }
 }
 
@@ -432,6 +445,7 @@ mod tests {
             flag_fdr: None,
             segments: Vec::new(),
             min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
+            covariates: Vec::new(),
             aggregation: Default::default(),
             top: None,
             seed: crate::pipeline::DEFAULT_SEED,

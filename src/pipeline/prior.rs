@@ -9,6 +9,7 @@
 //! boundary (no overdispersion) is a result, not a fallback. A likelihood-
 //! ratio test says whether one prior per segment fits better than one for all.
 
+use super::covariates::{cell_priors, CellPriors, PlainFit};
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, TopRule, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
@@ -86,6 +87,21 @@ pub struct Scored {
     pub segment_test: Option<SegmentTest>,
     /// Does the model (each pair under its prior) fit the data scored?
     pub checks: ChecksReport,
+    /// With covariates: each pair's covariate values and centre.
+    pub covariates: Option<CovariateScore>,
+}
+
+/// What the output holds of the covariates: per pair, its cell's values
+/// and its centre.
+pub struct CovariateScore {
+    /// The covariate columns, in the order given.
+    pub columns: Vec<String>,
+    /// Per cell, one row of each covariate column holding its values.
+    pub samples: Vec<Vec<ArrayRef>>,
+    /// Per pair, the centre of its prior (the rate it is pulled toward).
+    pub prior_mean: Vec<f64>,
+    /// Per pair, its cell's place in `samples`.
+    pub cell_of_pair: Vec<u32>,
 }
 
 impl Scored {
@@ -237,7 +253,7 @@ fn score_with<F: Family>(
     }
     let places = PairPlaces::of(&segments);
     refuse_top_of_everyone(job, &places.pairs)?;
-    let priors = priors_in_use::<F>(job, &segments, &places.pairs, clock)?;
+    let priors = priors_in_use::<F>(job, &segments, (&places.pairs, &places.ranges), clock)?;
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
     clock.lap("posteriors", "posteriors");
@@ -294,6 +310,8 @@ struct PriorsInUse {
     choices: Vec<std::result::Result<Chosen, String>>,
     priors: Vec<Prior>,
     spreads: Vec<Option<Uncertainty>>,
+    /// With covariates: the covariate prior, whose cells are the places.
+    covariates: Option<CellPriors>,
 }
 
 /// Fits (or loads) the all-groups prior (to `all_pairs`, every segment's
@@ -302,10 +320,10 @@ struct PriorsInUse {
 fn priors_in_use<F: Family>(
     job: &Job,
     segments: &[SegmentPairs],
-    all_pairs: &[WeightedPair],
+    (all_pairs, ranges): (&[WeightedPair], &[Range<usize>]),
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
-    let segmented = !job.segments.is_empty();
+    let segmented = !job.segments.is_empty() || !job.covariates.is_empty();
     let all_table = if segmented {
         PairTable::from_weighted(all_pairs.iter().copied())
     } else {
@@ -314,6 +332,9 @@ fn priors_in_use<F: Family>(
     let mut all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(all_table.pairs().len());
     clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()));
+    if !job.covariates.is_empty() {
+        return covariate_priors_in_use::<F>(job, segments, (all_pairs, ranges), all, all_table, clock);
+    }
     // Corrected intervals of a fit: the median bias of each prior, by parametric bootstrap.
     let bootstrap = job.intervals == Intervals::Corrected && matches!(job.prior, PriorSource::Fit);
     if bootstrap {
@@ -361,7 +382,33 @@ fn priors_in_use<F: Family>(
             _ => None,
         })
         .collect();
-    Ok(PriorsInUse { all_table, all, choices, priors, spreads })
+    Ok(PriorsInUse { all_table, all, choices, priors, spreads, covariates: None })
+}
+
+/// The priors of a run with covariates: the covariate prior, fitted from
+/// the all-groups fit without covariates, gives each cell its prior.
+fn covariate_priors_in_use<F: Family>(
+    job: &Job,
+    cells: &[SegmentPairs],
+    (all_pairs, ranges): (&[WeightedPair], &[Range<usize>]),
+    all: Chosen,
+    all_table: PairTable,
+    clock: &mut PhaseClock<'_>,
+) -> Result<PriorsInUse> {
+    let plain = PlainFit { prior: &all.prior, log_likelihood: all.log_likelihood, fit: &all.fit };
+    let fitted = cell_priors::<F>(job, cells, (all_pairs, ranges), plain, F::strength_unit(&all_table))?;
+    clock.lap("covariate-fit", &format!("covariate prior ({} covariate patterns)", cells.len()));
+    let spreads = match job.intervals {
+        Intervals::Corrected => fitted
+            .priors
+            .iter()
+            .zip(&fitted.uncertainties)
+            .map(|(prior, known)| Some(Uncertainty::of::<F>(prior, *known, None)))
+            .collect(),
+        Intervals::PlugIn => vec![None; cells.len()],
+    };
+    let priors = fitted.priors.clone();
+    Ok(PriorsInUse { all_table, all, choices: Vec::new(), priors, spreads, covariates: Some(fitted) })
 }
 
 /// Each pair's posterior under its segment's prior (corrected for the
@@ -475,13 +522,22 @@ fn scored_of<F: Family>(
     (posteriors, decisions): (Vec<Posterior>, Decisions),
 ) -> Scored {
     let segmented = !job.segments.is_empty();
-    let PriorsInUse { all_table, all, choices, priors, .. } = priors;
+    let PriorsInUse { all_table, all, choices, priors, covariates, .. } = priors;
     let PairPlaces { pairs: all_pairs, place_of_pair, ranges } = places;
     let pull = crate::core::diagnostics::pull_of_pairs(&F::TERMS, &all_pairs, &posteriors);
-    let mut warnings = all.warnings.clone();
-    if let Prior::CompletePooling { .. } = all.prior {
+    let (fitted_prior, fit, mut warnings) = match &covariates {
+        Some(cells) => (cells.fitted_prior.clone(), cells.fit.clone(), cells.warnings.clone()),
+        None => (all.fitted_prior.clone(), all.fit.clone(), all.warnings.clone()),
+    };
+    if let (None, Prior::CompletePooling { .. }) = (&covariates, all.prior) {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
+    let covariate_score = covariates.map(|cells| CovariateScore {
+        columns: job.covariates.iter().map(|c| c.name.clone()).collect(),
+        samples: segments.iter().map(|s| s.samples.clone()).collect(),
+        prior_mean: place_of_pair.iter().map(|&place| cells.centres[place]).collect(),
+        cell_of_pair: place_of_pair.iter().map(|&place| place as u32).collect(),
+    });
     let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
     if checks.poor_fit() {
         warnings.push(format!(
@@ -523,8 +579,9 @@ fn scored_of<F: Family>(
     Scored {
         pairs: all_pairs,
         posteriors,
-        fitted_prior: all.fitted_prior,
-        fit: all.fit,
+        fitted_prior,
+        fit,
+        covariates: covariate_score,
         warnings,
         pull,
         prob_above: decisions.prob_above,

@@ -19,8 +19,9 @@ use arrow_array::ArrayRef;
 
 /// The output columns after the group column, each as its value per pair
 /// of the table (every one is a function of the row's pair): the segment
-/// values, the counts under their input names, the raw value, the posterior
-/// summaries and parameters, and the columns asked for.
+/// or covariate values, the counts under their input names, the raw value,
+/// the prior centre (with covariates), the posterior summaries and
+/// parameters, and the columns asked for.
 pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let (pairs, posteriors) = (&scored.pairs[..], &scored.posteriors[..]);
     let each = |f: &dyn Fn(&Posterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
@@ -46,10 +47,20 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
+    if let Some(covariates) = &scored.covariates {
+        let samples: Vec<&[ArrayRef]> = covariates.samples.iter().map(|s| &s[..]).collect();
+        let values = segment_pair_values(&samples, &covariates.cell_of_pair)?;
+        columns.extend(covariates.columns.iter().cloned().zip(values));
+    }
     columns.extend([
         (job.columns.count.clone(), counts),
         (job.columns.size.clone(), sizes),
         (terms.raw_column.to_string(), PairValues::OptionalFloats(raw)),
+    ]);
+    if let Some(covariates) = &scored.covariates {
+        columns.push(("prior_mean".to_string(), PairValues::Floats(covariates.prior_mean.clone())));
+    }
+    columns.extend([
         ("posterior_mean".to_string(), each(&|p| p.mean)),
         ("posterior_sd".to_string(), each(&|p| p.sd)),
         ("interval_lo".to_string(), each(&|p| p.lower)),
@@ -103,8 +114,8 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
 pub fn pair_table_columns(job: &Job, scored: &Scored) -> Result<Columns> {
     let mut columns: Columns =
         pair_columns(job, scored)?.into_iter().map(|(name, values)| (name, values.into_column())).collect();
-    // The segment and count columns come first; the group count follows them.
-    let rest = columns.split_off(job.segments.len() + 2);
+    // The segment or covariate columns and the count columns come first; the group count follows them.
+    let rest = columns.split_off(job.segments.len() + job.covariates.len() + 2);
     let weights = scored.pairs.iter().map(|p| p.weight as i64).collect();
     columns.push(("group_count".to_string(), ColumnValues::Integers(weights)));
     columns.extend(rest);

@@ -5,7 +5,9 @@
 //! beta-binomial one, and the (restricted) profile likelihood maximised by
 //! scipy for the normal one.
 
-use crate::util::{fixture, json_fixture, relative};
+use crate::util::{
+    assert_refused, fixture, json_fixture, paired, ratepool, relative, stderr, summary, write, Csv,
+};
 use ratepool::core::fit::Likelihood;
 use ratepool::core::model::beta_binomial::BetaBinomial;
 use ratepool::core::model::gamma_poisson::GammaPoisson;
@@ -14,6 +16,7 @@ use ratepool::core::model::Family;
 use ratepool::core::pairs::WeightedPair;
 use ratepool::core::regression::{fit_regression, CellPairs, Design, RegressionFit};
 use serde_json::Value;
+use std::path::Path;
 
 /// One row per group of a fixture: (size, count, covariates), the
 /// covariates as the reference's design columns after the intercept.
@@ -137,4 +140,266 @@ fn normal_with_covariates_is_the_scipy_fit_by_ml_and_reml() {
             fitted.log_likelihood
         );
     }
+}
+
+/// Runs `ratepool fit` in `dir` on a covariate fixture with `args` and
+/// returns the summary and the table.
+fn fit_on_command_line(dir: &Path, args: &[&str]) -> (Value, Csv) {
+    let mut all = vec!["fit", "--output", "out.csv", "--summary", "s.json"];
+    all.extend(args);
+    let out = ratepool(dir, &all);
+    assert!(out.status.success(), "{}", stderr(&out));
+    (summary(&dir.join("s.json")), Csv::read(&dir.join("out.csv")))
+}
+
+/// The summary's coefficients against the reference's, by name.
+fn assert_summary_coefficients(prior: &Value, reference: &Value) {
+    let coefficients = prior["coefficients"].as_array().expect("coefficients");
+    let names: Vec<&str> =
+        reference["names"].as_array().unwrap().iter().map(|n| n.as_str().unwrap()).collect();
+    let (want, want_se) = (numbers(&reference["coefficients"]), numbers(&reference["coefficient_se"]));
+    for (entry, name) in paired(coefficients, &names, "coefficients") {
+        assert_eq!(entry["name"], *name);
+    }
+    for (k, c) in coefficients.iter().enumerate() {
+        let (estimate, se) = (c["estimate"].as_f64().unwrap(), c["se"].as_f64().unwrap());
+        assert!((estimate - want[k]).abs() < 1e-6 * want[k].abs().max(want_se[k]), "{c}");
+        assert!(relative(se, want_se[k]) < 1e-4, "{c}");
+        assert!(relative(c["z"].as_f64().unwrap(), estimate / se) < 1e-12, "{c}");
+    }
+}
+
+#[test]
+fn the_command_line_fits_match_the_references() {
+    let references = json_fixture("covariates/references.json");
+    let dir = tempfile::tempdir().unwrap();
+    let sids = fixture("covariates/sids_counties.csv");
+    let (s, _) = fit_on_command_line(
+        dir.path(),
+        &["--model", "gamma-poisson", "--input", sids.to_str().unwrap(), "--group", "county"]
+            .into_iter()
+            .chain(["--events", "sids", "--exposure", "births", "--covariates", "nonwhite_share,birth_band"])
+            .collect::<Vec<_>>(),
+    );
+    // Source: statsmodels NB2 (scripts/make_covariate_fixtures.py).
+    let reference = &references["gamma_poisson"];
+    assert_summary_coefficients(&s["prior"], reference);
+    assert!(relative(s["prior"]["shape"].as_f64().unwrap(), reference["shape"].as_f64().unwrap()) < 1e-6);
+    let ll = s["fit"]["log_marginal_likelihood"].as_f64().unwrap();
+    assert!(relative(ll, reference["log_likelihood"].as_f64().unwrap()) < 1e-10, "{ll}");
+    assert_eq!(s["prior"]["link"], "log");
+    assert_eq!(s["prior"]["covariates"][1]["levels"], serde_json::json!(["large", "medium", "small"]));
+    let test = &s["prior"]["likelihood_ratio_test"];
+    assert_eq!(test["degrees_of_freedom"], 3);
+
+    let star = fixture("covariates/star98_districts.csv");
+    let (s, _) = fit_on_command_line(
+        dir.path(),
+        &["--model", "beta-binomial", "--input", star.to_str().unwrap(), "--group", "district"]
+            .into_iter()
+            .chain(["--successes", "above", "--trials", "pupils", "--covariates", "lowinc,perminte"])
+            .collect::<Vec<_>>(),
+    );
+    // Source: scipy betabinom fit (scripts/make_covariate_fixtures.py).
+    let reference = &references["beta_binomial"];
+    assert_summary_coefficients(&s["prior"], reference);
+    assert!(
+        relative(s["prior"]["strength"].as_f64().unwrap(), reference["strength"].as_f64().unwrap()) < 1e-6
+    );
+
+    let logits = fixture("covariates/star98_logits.csv");
+    for (key, method) in [("normal_ml", "ml"), ("normal_reml", "reml")] {
+        let (s, _) = fit_on_command_line(
+            dir.path(),
+            &["--model", "normal-normal", "--input", logits.to_str().unwrap(), "--group", "district"]
+                .into_iter()
+                .chain([
+                    "--estimate",
+                    "logit_above",
+                    "--std-error",
+                    "logit_se",
+                    "--covariates",
+                    "lowinc,perminte",
+                ])
+                .chain(["--variance-method", method])
+                .collect::<Vec<_>>(),
+        );
+        // Source: the scipy (restricted) profile likelihood (scripts/make_covariate_fixtures.py).
+        let reference = &references[key];
+        assert_summary_coefficients(&s["prior"], reference);
+        assert!(
+            relative(s["prior"]["variance"].as_f64().unwrap(), reference["tau2"].as_f64().unwrap()) < 1e-6
+        );
+        let objective = match method {
+            "reml" => s["fit"]["restricted_log_likelihood"].as_f64().unwrap(),
+            _ => s["fit"]["log_marginal_likelihood"].as_f64().unwrap(),
+        };
+        assert!(
+            relative(objective, reference["log_likelihood"].as_f64().unwrap()) < 1e-10,
+            "{key}: {objective}"
+        );
+        assert_eq!(s["prior"]["likelihood_ratio_test"].is_null(), method == "reml");
+    }
+}
+
+#[test]
+fn each_group_is_pulled_toward_its_own_centre() {
+    // The centre exp(x'b) from the summary's own coefficients, and the
+    // conjugate posterior mean (r + y)/(r/mu + E) of a Gamma(r, r/mu) prior
+    // (textbook conjugacy, common practice), recomputed here from the table.
+    let dir = tempfile::tempdir().unwrap();
+    let sids = fixture("covariates/sids_counties.csv");
+    let (s, table) = fit_on_command_line(
+        dir.path(),
+        &["--model", "gamma-poisson", "--input", sids.to_str().unwrap(), "--group", "county"]
+            .into_iter()
+            .chain(["--events", "sids", "--exposure", "births", "--covariates", "nonwhite_share,birth_band"])
+            .collect::<Vec<_>>(),
+    );
+    let b = numbers(&Value::Array(
+        s["prior"]["coefficients"].as_array().unwrap().iter().map(|c| c["estimate"].clone()).collect(),
+    ));
+    let r = s["prior"]["shape"].as_f64().unwrap();
+    let (share, band) = (table.floats("nonwhite_share"), table.column("birth_band"));
+    let (events, births) = (table.floats("sids"), table.floats("births"));
+    let (centre, posterior) = (table.floats("prior_mean"), table.floats("posterior_mean"));
+    assert_eq!(centre.len(), 100);
+    for i in 0..centre.len() {
+        let eta = b[0]
+            + b[1] * share[i]
+            + b[2] * f64::from(u8::from(band[i] == "medium"))
+            + b[3] * f64::from(u8::from(band[i] == "small"));
+        let mu = eta.exp();
+        assert!(relative(centre[i], mu) < 1e-12, "row {i}: {} against {mu}", centre[i]);
+        let want = (r + events[i]) / (r / mu + births[i]);
+        assert!(relative(posterior[i], want) < 1e-12, "row {i}: {} against {want}", posterior[i]);
+    }
+}
+
+/// A small table of sellers with a numeric and a text covariate, for the refusals.
+const SELLERS: &str = "seller,good,rated,tenure,kind\n\
+a,8,10,1.5,x\nb,3,9,0.5,y\nc,12,20,3.0,x\nd,1,6,0.2,y\ne,30,40,4.5,z\nf,7,12,2.0,z\ng,5,5,2.5,x\nh,2,8,0.7,y\n";
+
+fn seller_args<'a>(extra: &[&'a str]) -> Vec<&'a str> {
+    let mut args = vec!["fit", "--model", "beta-binomial", "--input", "in.csv", "--group", "seller"];
+    args.extend(["--successes", "good", "--trials", "rated", "--output", "out.csv", "--summary", "s.json"]);
+    args.extend(extra);
+    args
+}
+
+#[test]
+fn bad_covariate_values_are_rows_named_with_their_column() {
+    let dir = tempfile::tempdir().unwrap();
+    let cases = [
+        (SELLERS.replace("d,1,6,0.2,y", "d,1,6,,y"), "row 4, column 'tenure': missing covariate value"),
+        (SELLERS.replace("d,1,6,0.2,y", "d,1,6,inf,y"), "row 4, column 'tenure': inf is not a finite number"),
+        (SELLERS.replace("f,7,12,2.0,z", "f,7,12,2.0,"), "row 6, column 'kind': missing covariate value"),
+    ];
+    for (text, message) in &cases {
+        write(dir.path(), "in.csv", text);
+        assert_refused(dir.path(), &seller_args(&["--covariates", "tenure,kind"]), message, "out.csv");
+        assert!(!dir.path().join("s.json").exists());
+    }
+    write(dir.path(), "in.csv", &SELLERS.replace("b,3,9,0.5,y", "b,3,9,0,y"));
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates-log", "tenure"]),
+        "row 2, column 'tenure': 0 is not above zero",
+        "out.csv",
+    );
+    // Skipped rows go to the rejects with their reason; the rest are fitted.
+    write(dir.path(), "in.csv", &cases[0].0);
+    let out = ratepool(
+        dir.path(),
+        &seller_args(&["--covariates", "tenure,kind", "--on-invalid", "skip", "--rejects", "rejects.csv"]),
+    );
+    assert!(out.status.success(), "{}", stderr(&out));
+    let rejects = std::fs::read_to_string(dir.path().join("rejects.csv")).unwrap();
+    assert!(rejects.contains("tenure") && rejects.contains("missing covariate value"), "{rejects}");
+    assert_eq!(Csv::read(&dir.path().join("out.csv")).rows.len(), 7);
+}
+
+#[test]
+fn a_constant_a_collinear_or_a_separating_covariate_is_refused_by_name() {
+    let dir = tempfile::tempdir().unwrap();
+    let constant = SELLERS
+        .lines()
+        .map(|l| if l.starts_with("seller") { format!("{l},site") } else { format!("{l},north") })
+        .collect::<Vec<_>>()
+        .join("\n");
+    write(dir.path(), "in.csv", &constant);
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates", "tenure,site"]),
+        "the covariate 'site' takes one value ('north')",
+        "out.csv",
+    );
+    let doubled = SELLERS
+        .lines()
+        .map(|l| match l.split(',').nth(3) {
+            Some("tenure") => format!("{l},months"),
+            Some(t) => format!("{l},{}", t.parse::<f64>().unwrap() * 12.0),
+            None => l.to_string(),
+        })
+        .collect::<Vec<_>>()
+        .join("\n");
+    write(dir.path(), "in.csv", &doubled);
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates", "tenure,months"]),
+        "'months' is a linear function of 'tenure'",
+        "out.csv",
+    );
+    // Every seller of kind y has no good ratings: its coefficient runs to minus infinity (exit 3).
+    let separated = SELLERS.replace("b,3,9", "b,0,9").replace("d,1,6", "d,0,6").replace("h,2,8", "h,0,8");
+    write(dir.path(), "in.csv", &separated);
+    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind"]));
+    assert_eq!(out.status.code(), Some(3), "{}", stderr(&out));
+    assert!(stderr(&out).contains("the coefficient of 'kind=y' runs to minus infinity"), "{}", stderr(&out));
+    assert!(!dir.path().join("out.csv").exists() && !dir.path().join("s.json").exists());
+}
+
+#[test]
+fn covariates_refuse_what_they_do_not_combine_with() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", SELLERS);
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates", "tenure", "--by", "kind"]),
+        "covariates do not combine with --by",
+        "out.csv",
+    );
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates", "tenure", "--covariates-levels", "tenure"]),
+        "'tenure' is named twice",
+        "out.csv",
+    );
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates", "good"]),
+        "it is already the group or a count column",
+        "out.csv",
+    );
+    // Too many levels: a text column of one value per seller beyond the limit.
+    let many: String = std::iter::once("seller,good,rated,code".to_string())
+        .chain((0..260).map(|i| format!("s{i},{},{},c{i}", i % 7, 10 + i % 5)))
+        .collect::<Vec<_>>()
+        .join("\n");
+    write(dir.path(), "in.csv", &many);
+    assert_refused(
+        dir.path(),
+        &seller_args(&["--covariates", "code"]),
+        "more than 200 indicators; fit a prior per level with --by code",
+        "out.csv",
+    );
+    // A covariate prior is not reused on new groups yet: refused by name.
+    write(dir.path(), "in.csv", SELLERS);
+    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let score =
+        ["score", "--model", "beta-binomial", "--prior", "s.json", "--input", "in.csv", "--group", "seller"];
+    let mut args = score.to_vec();
+    args.extend(["--successes", "good", "--trials", "rated", "--output", "scored.csv"]);
+    assert_refused(dir.path(), &args, "its centre follows the covariates tenure", "scored.csv");
 }

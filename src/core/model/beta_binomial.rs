@@ -12,8 +12,9 @@
 //! and plain digamma differences beyond (see `special`).
 
 use super::{
-    point_mass_tails, Evaluation, Family, FunnelAxis, ModelTerms, PairFault, PlotTerms, Posterior, Prior,
-    PriorFigure, PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
+    point_mass_tails, CovariateTerms, Evaluation, Family, FunnelAxis, ModelTerms, PairFault, PlotTerms,
+    Posterior, Prior, PriorFigure, PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable,
+    ValueRule,
 };
 use crate::core::incomplete::beta_tails;
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -202,6 +203,7 @@ impl Family for BetaBinomial {
             "every group has at most one trial, so the data say nothing about how much groups differ",
         overdispersion_test: "Tarone",
         restricted_likelihood: false,
+        covariate_terms: CovariateTerms { link: "logit", common_key: "strength", common_sign: 1.0 },
         law_of: |[alpha, beta]| RateLaw::Beta { alpha, beta },
         prior_keys: &[
             PriorKey { key: "alpha", figure: PriorFigure::Natural(0) },

@@ -11,8 +11,9 @@
 //! vanishing as a → ∞, so the pmf tends to the Poisson smoothly.
 
 use super::{
-    point_mass_tails, Evaluation, Family, FunnelAxis, ModelTerms, PairFault, PlotTerms, Posterior, Prior,
-    PriorFigure, PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
+    point_mass_tails, CovariateTerms, Evaluation, Family, FunnelAxis, ModelTerms, PairFault, PlotTerms,
+    Posterior, Prior, PriorFigure, PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable,
+    ValueRule,
 };
 use crate::core::incomplete::{beta_tails, gamma_tails};
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -76,6 +77,7 @@ impl Family for GammaPoisson {
         mean_only_data: "the data say nothing about how much groups differ",
         overdispersion_test: "Dean",
         restricted_likelihood: false,
+        covariate_terms: CovariateTerms { link: "log", common_key: "shape", common_sign: 1.0 },
         law_of: |[shape, rate]| RateLaw::Gamma { shape, rate },
         prior_keys: &[
             PriorKey { key: "shape", figure: PriorFigure::Natural(0) },

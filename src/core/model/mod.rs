@@ -136,6 +136,9 @@ pub struct ModelTerms {
     pub overdispersion_test: &'static str,
     /// Whether the model has a restricted likelihood (REML) to maximise.
     pub restricted_likelihood: bool,
+    /// How a covariate prior of this family is named: its link and its
+    /// common parameter ([`crate::core::regression`]).
+    pub covariate_terms: CovariateTerms,
     /// The law of a group's rate under a prior or posterior with these
     /// natural parameters.
     pub law_of: fn([f64; 2]) -> RateLaw,
@@ -155,6 +158,29 @@ impl ModelTerms {
             RawValue::Count => Some(count),
             RawValue::Ratio => (size > 0.0).then(|| count / size),
         }
+    }
+}
+
+/// The words of a family's covariate prior: the link of its first working
+/// coordinate and the common parameter its second stands for, which is
+/// exp(sign × u₂).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CovariateTerms {
+    /// The link of the prior mean: "logit", "log" or "identity".
+    pub link: &'static str,
+    /// The common parameter's wire key, one of [`ModelTerms::prior_keys`].
+    pub common_key: &'static str,
+    /// The common parameter is exp(`common_sign` × u₂): 1 for a strength
+    /// or shape, −1 for a variance.
+    pub common_sign: f64,
+}
+
+impl CovariateTerms {
+    /// The common parameter at working coordinate u₂, with its standard
+    /// error from u₂'s (the delta method: |d exp(±u₂)/du₂| is the value itself).
+    pub fn common(&self, u2: f64, u2_se: f64) -> (f64, f64) {
+        let value = (self.common_sign * u2).exp();
+        (value, value * u2_se)
     }
 }
 

@@ -18,8 +18,8 @@
 //! estimate of τ² with μ at its weighted mean (Harville, JASA 1977).
 
 use super::{
-    Evaluation, Family, FunnelAxis, ModelTerms, PlotTerms, Posterior, Prior, PriorFigure, PriorKey,
-    PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
+    CovariateTerms, Evaluation, Family, FunnelAxis, ModelTerms, PlotTerms, Posterior, Prior, PriorFigure,
+    PriorKey, PriorWords, RateLaw, RateRange, RawValue, Unidentifiable, ValueRule,
 };
 use crate::core::incomplete::erfc;
 use crate::core::pairs::{PairTable, WeightedPair};
@@ -83,6 +83,7 @@ impl Family for NormalNormal {
         mean_only_data: "there is only one group, so nothing says how much groups differ",
         overdispersion_test: "score test for tau^2 = 0",
         restricted_likelihood: true,
+        covariate_terms: CovariateTerms { link: "identity", common_key: "variance", common_sign: -1.0 },
         law_of: |[mean, variance]| RateLaw::Normal { mean, sd: variance.sqrt() },
         prior_keys: &[
             PriorKey { key: "mean", figure: PriorFigure::MeanAndNatural(0) },
