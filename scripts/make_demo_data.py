@@ -21,6 +21,15 @@ clinic_waits.csv  600 invented clinics' mean waiting times in minutes with
                  ~ Normal(24, 5^2); each clinic's mean is over its patients
                  (3 to about 2,000, heavy-tailed), whose waits vary with
                  sd 12, so the standard error is the sample sd over root n.
+sellers.csv      8,000 invented sellers with their tenure in months and their
+                 category (seed 20261205): a seller's true positive share
+                 follows its tenure and category, logit(p) = 0.9
+                 + 0.45 ln(tenure) + a category effect, times a spread of
+                 strength 40 around it; new sellers get fewer good ratings.
+district_profiles.csv  3,000 invented districts with a deprivation score
+                 (mean 0, sd 1) and the share of outdoor workers (seed
+                 20261206): relative risk exp(0.3 deprivation + 1.2 outdoor
+                 share - 0.3) times Gamma(shape 10, rate 10).
 No real people, sellers, brands or places are represented.
 """
 
@@ -99,6 +108,41 @@ def clinic_waits():
     (OUT / "clinic_waits.csv").write_text("\n".join(lines) + "\n")
 
 
+def sellers():
+    rng = np.random.default_rng(20261205)
+    count = 8_000
+    categories = np.array(["books", "games", "garden", "kitchen", "tools"])
+    effect = {"books": 0.0, "games": -0.4, "garden": 0.2, "kitchen": -0.1, "tools": 0.3}
+    kind = categories[rng.integers(0, len(categories), size=count)]
+    tenure = np.maximum(1, np.round(rng.lognormal(2.5, 1.0, size=count))).astype(int)
+    centre = 1.0 / (1.0 + np.exp(-(0.9 + 0.45 * np.log(tenure) + np.array([effect[k] for k in kind]))))
+    share = rng.beta(centre * 40.0, (1.0 - centre) * 40.0)
+    totals = np.minimum(np.floor(rng.lognormal(1.5, 1.5, size=count)).astype(np.int64) + 1, 20_000)
+    positive = rng.binomial(totals, share)
+    lines = ["seller_id,category,tenure_months,positive_ratings,total_ratings"]
+    lines += [
+        f"seller-{i:05d},{c},{t},{k},{n}"
+        for i, (c, t, k, n) in enumerate(zip(kind, tenure, positive, totals), start=1)
+    ]
+    (OUT / "sellers.csv").write_text("\n".join(lines) + "\n")
+
+
+def district_profiles():
+    rng = np.random.default_rng(20261206)
+    count = 3_000
+    deprivation = rng.normal(0.0, 1.0, size=count)
+    outdoor = rng.uniform(0.02, 0.45, size=count)
+    expected = rng.lognormal(mean=1.2, sigma=1.1, size=count)
+    risk = np.exp(0.3 * deprivation + 1.2 * outdoor - 0.3) * rng.gamma(10.0, 1.0 / 10.0, size=count)
+    observed = rng.poisson(expected * risk)
+    lines = ["district_id,deprivation,outdoor_share,observed_cases,expected_cases"]
+    lines += [
+        f"district-{i:04d},{d:.3f},{o:.3f},{y},{e:.4f}"
+        for i, (d, o, y, e) in enumerate(zip(deprivation, outdoor, observed, expected), start=1)
+    ]
+    (OUT / "district_profiles.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
@@ -107,6 +151,8 @@ def main():
     returns()
     district_quarters()
     clinic_waits()
+    sellers()
+    district_profiles()
 
 
 if __name__ == "__main__":

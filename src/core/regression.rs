@@ -32,7 +32,6 @@ use crate::core::fit::Likelihood;
 use crate::core::model::{Family, Prior, PriorUncertainty, RateRange};
 use crate::core::pairs::WeightedPair;
 use rayon::prelude::*;
-use std::ops::Range;
 
 /// Cells per parallel work unit: fixed, so floating-point sums are grouped
 /// the same way whatever the number of threads.
@@ -47,11 +46,34 @@ const LN_MIN_STRENGTH: f64 = -18.420680743952367; // ln 1e-8
 /// 6e-16 of its edge: a coefficient running to infinity.
 const SEPARATED_PREDICTOR: f64 = 35.0;
 
-/// The covariates of every cell, one row per cell, the intercept first.
+/// One column of a design.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum DesignColumn {
+    /// The intercept: 1 in every row.
+    Intercept,
+    /// The j-th numeric covariate.
+    Number(usize),
+    /// 1 where the j-th level covariate holds level `code`, else 0.
+    Indicator {
+        /// The level covariate.
+        column: usize,
+        /// The level (0 is the reference, which has no indicator).
+        code: u32,
+    },
+}
+
+/// The covariates of every row (one row per distinct pair), held compactly:
+/// the numeric covariates as numbers and the level covariates as codes,
+/// the design's columns (the intercept first) formed from them as needed.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Design {
     names: Vec<String>,
-    rows: Vec<f64>,
+    columns: Vec<DesignColumn>,
+    rows: usize,
+    numbers: Vec<f64>,
+    number_width: usize,
+    codes: Vec<u32>,
+    code_width: usize,
 }
 
 /// Why a design cannot be fitted; each names its columns by their place in
@@ -71,11 +93,29 @@ pub enum DesignFault {
 }
 
 impl Design {
-    /// A design from its column names (the intercept's first) and its rows,
-    /// `names.len()` values per cell.
-    pub fn new(names: Vec<String>, rows: Vec<f64>) -> Self {
-        assert!(!names.is_empty() && rows.len() % names.len() == 0, "whole rows of every column");
-        Design { names, rows }
+    /// A design of `rows` rows: its column names and kinds (the intercept
+    /// first), `number_width` numbers and `code_width` level codes per row.
+    pub fn new(
+        (names, columns): (Vec<String>, Vec<DesignColumn>),
+        rows: usize,
+        (numbers, number_width): (Vec<f64>, usize),
+        (codes, code_width): (Vec<u32>, usize),
+    ) -> Self {
+        assert!(names.len() == columns.len() && columns.first() == Some(&DesignColumn::Intercept));
+        assert!(numbers.len() == rows * number_width && codes.len() == rows * code_width);
+        Design { names, columns, rows, numbers, number_width, codes, code_width }
+    }
+
+    /// A design of numeric columns given row by row, the intercept's column
+    /// of ones first.
+    pub fn dense(names: Vec<String>, values: Vec<f64>) -> Self {
+        let p = names.len();
+        assert!(p > 0 && values.len() % p == 0, "whole rows of every column");
+        let rows = values.len() / p;
+        let numbers: Vec<f64> = values.chunks(p).flat_map(|row| row[1..].iter().copied()).collect();
+        let columns =
+            std::iter::once(DesignColumn::Intercept).chain((0..p - 1).map(DesignColumn::Number)).collect();
+        Design::new((names, columns), rows, (numbers, p - 1), (Vec::new(), 0))
     }
 
     /// The column names, the intercept's first.
@@ -88,24 +128,36 @@ impl Design {
         self.names.len()
     }
 
-    /// Cells.
-    pub fn cells(&self) -> usize {
-        self.rows.len() / self.width()
+    /// Rows.
+    pub fn rows(&self) -> usize {
+        self.rows
     }
 
-    /// The covariates of cell `i`.
-    pub fn row(&self, i: usize) -> &[f64] {
-        let p = self.width();
-        &self.rows[i * p..(i + 1) * p]
+    /// Row i's value of column k.
+    fn value(&self, i: usize, k: usize) -> f64 {
+        match self.columns[k] {
+            DesignColumn::Intercept => 1.0,
+            DesignColumn::Number(j) => self.numbers[i * self.number_width + j],
+            DesignColumn::Indicator { column, code } => {
+                f64::from(u8::from(self.codes[i * self.code_width + column] == code))
+            }
+        }
     }
 
-    /// The linear predictor xᵢᵀb of cell `i`.
+    /// Row i, written into `out` (one value per column).
+    pub fn row_into(&self, i: usize, out: &mut [f64]) {
+        for (k, x) in out.iter_mut().enumerate() {
+            *x = self.value(i, k);
+        }
+    }
+
+    /// The linear predictor xᵢᵀb of row `i`.
     pub fn predictor(&self, i: usize, coefficients: &[f64]) -> f64 {
-        self.row(i).iter().zip(coefficients).map(|(x, b)| x * b).sum()
+        coefficients.iter().enumerate().map(|(k, b)| b * self.value(i, k)).sum()
     }
 
     /// Each column's mean and standard deviation over the groups
-    /// (`groups[i]` in cell i), the intercept's (0, 1).
+    /// (`groups[i]` in row i), the intercept's (0, 1).
     fn moments(&self, groups: &[f64]) -> Vec<(f64, f64)> {
         let total: f64 = groups.iter().sum();
         (0..self.width())
@@ -113,10 +165,13 @@ impl Design {
                 if k == 0 {
                     return (0.0, 1.0);
                 }
-                let mean = (0..self.cells()).map(|i| groups[i] * self.row(i)[k]).sum::<f64>() / total;
-                let variance =
-                    (0..self.cells()).map(|i| groups[i] * (self.row(i)[k] - mean).powi(2)).sum::<f64>()
-                        / total;
+                let mean = groups.iter().enumerate().map(|(i, g)| g * self.value(i, k)).sum::<f64>() / total;
+                let variance = groups
+                    .iter()
+                    .enumerate()
+                    .map(|(i, g)| g * (self.value(i, k) - mean).powi(2))
+                    .sum::<f64>()
+                    / total;
                 (mean, variance.sqrt())
             })
             .collect()
@@ -136,8 +191,9 @@ impl Design {
         let scaled = Scaled::new(&moments);
         let p = self.width();
         let mut cross = vec![0.0; p * p];
+        let mut z = vec![0.0; p];
         for (i, weight) in groups.iter().enumerate() {
-            let z = scaled.row(self, i);
+            scaled.row_into(self, i, &mut z);
             for a in 0..p {
                 for b in 0..p {
                     cross[a * p + b] += weight * z[a] * z[b];
@@ -177,14 +233,12 @@ impl Scaled {
         }
     }
 
-    /// Cell i's scaled covariates (the intercept 1).
-    fn row(&self, design: &Design, i: usize) -> Vec<f64> {
-        design
-            .row(i)
-            .iter()
-            .enumerate()
-            .map(|(k, x)| if k == 0 { 1.0 } else { (x - self.centre[k]) / self.scale[k] })
-            .collect()
+    /// Row i's scaled covariates (the intercept 1), written into `out`.
+    fn row_into(&self, design: &Design, i: usize, out: &mut [f64]) {
+        design.row_into(i, out);
+        for ((x, centre), scale) in out.iter_mut().zip(&self.centre).zip(&self.scale).skip(1) {
+            *x = (*x - centre) / scale;
+        }
     }
 
     /// The coefficients b in the covariates' own units of the scaled ones a,
@@ -202,22 +256,6 @@ impl Scaled {
             jacobian[k] = -self.centre[k] / self.scale[k];
         }
         (b, jacobian)
-    }
-}
-
-/// The pairs of every cell: cell i's are `pairs[ranges[i]]`.
-#[derive(Debug, Clone, Copy)]
-pub struct CellPairs<'a> {
-    /// Every pair, cell after cell.
-    pub pairs: &'a [WeightedPair],
-    /// Each cell's range of pairs.
-    pub ranges: &'a [Range<usize>],
-}
-
-impl CellPairs<'_> {
-    /// Groups per cell.
-    pub fn groups(&self) -> Vec<f64> {
-        self.ranges.iter().map(|r| self.pairs[r.clone()].iter().map(|p| p.weight).sum()).collect()
     }
 }
 
@@ -282,7 +320,8 @@ struct Evaluated {
 struct Problem<'a> {
     design: &'a Design,
     scaled: Scaled,
-    cells: CellPairs<'a>,
+    /// Row i's pair.
+    pairs: &'a [WeightedPair],
     likelihood: Likelihood,
 }
 
@@ -297,56 +336,46 @@ impl Problem<'_> {
         let n = p + 1;
         let u2 = theta[p];
         let restricted = self.likelihood == Likelihood::Restricted;
-        let cells: Vec<usize> = (0..self.design.cells()).collect();
-        let parts: Vec<(Evaluated, Vec<f64>)> = cells
-            .par_chunks(CHUNK)
+        let rows = self.design.rows();
+        let parts: Vec<(Evaluated, Vec<f64>)> = (0..rows.div_ceil(CHUNK))
+            .into_par_iter()
             .map(|chunk| {
                 let mut e =
                     Evaluated { log_likelihood: 0.0, gradient: vec![0.0; n], hessian: vec![0.0; n * n] };
                 // Σ W zzᵀ and its first two derivatives in u₂, for REML.
                 let mut precision = if restricted { vec![0.0; 3 * p * p] } else { Vec::new() };
-                for &i in chunk {
-                    let z = self.scaled.row(self.design, i);
+                let mut z = vec![0.0; p];
+                for i in chunk * CHUNK..((chunk + 1) * CHUNK).min(rows) {
+                    self.scaled.row_into(self.design, i, &mut z);
                     let eta: f64 = z.iter().zip(&theta[..p]).map(|(z, a)| z * a).sum();
-                    let at = F::at_point([eta, u2]);
-                    let (mut ll, mut g1, mut g2, mut h11, mut h12, mut h22) = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
-                    let mut w = [0.0; 3];
-                    for pair in &self.cells.pairs[self.cells.ranges[i].clone()] {
-                        let t = F::pair_terms_at(&at, pair);
-                        let c = pair.weight;
-                        ll += c * t.log_likelihood;
-                        g1 += c * t.gradient[0];
-                        g2 += c * t.gradient[1];
-                        h11 += c * t.hessian[0][0];
-                        h12 += c * t.hessian[0][1];
-                        h22 += c * t.hessian[1][1];
-                        if restricted {
-                            if let Some(m) = F::mean_precision([eta, u2], pair) {
-                                for (sum, term) in w.iter_mut().zip(m) {
-                                    *sum += c * term;
-                                }
-                            }
-                        }
-                    }
-                    e.log_likelihood += ll;
+                    let pair = &self.pairs[i];
+                    let t = F::pair_terms_at(&F::at_point([eta, u2]), pair);
+                    let c = pair.weight;
+                    let (g1, h11, h12) = (c * t.gradient[0], c * t.hessian[0][0], c * t.hessian[0][1]);
+                    e.log_likelihood += c * t.log_likelihood;
                     for a in 0..p {
                         e.gradient[a] += g1 * z[a];
-                        for b in 0..p {
+                        for b in 0..=a {
                             e.hessian[a * n + b] += h11 * z[a] * z[b];
                         }
-                        e.hessian[a * n + p] += h12 * z[a];
                         e.hessian[p * n + a] += h12 * z[a];
                     }
-                    e.gradient[p] += g2;
-                    e.hessian[p * n + p] += h22;
-                    if restricted {
+                    e.gradient[p] += c * t.gradient[1];
+                    e.hessian[p * n + p] += c * t.hessian[1][1];
+                    if let Some(w) = restricted.then(|| F::mean_precision([eta, u2], pair)).flatten() {
                         for (d, wd) in w.iter().enumerate() {
                             for a in 0..p {
                                 for b in 0..p {
-                                    precision[d * p * p + a * p + b] += wd * z[a] * z[b];
+                                    precision[d * p * p + a * p + b] += c * wd * z[a] * z[b];
                                 }
                             }
                         }
+                    }
+                }
+                // The upper triangle from the lower one.
+                for a in 0..n {
+                    for b in a + 1..n {
+                        e.hessian[a * n + b] = e.hessian[b * n + a];
                     }
                 }
                 (e, precision)
@@ -459,20 +488,21 @@ fn cholesky_inverse(l: &[f64], n: usize) -> Vec<f64> {
     inverse
 }
 
-/// Fits the covariate prior of family `F` to `cells` with covariates
-/// `design`, from the common parameter `start_common` and the intercept
-/// `start_intercept` of the fit without covariates; `strength_unit` is the
-/// family's [`Family::strength_unit`] of the whole table.
+/// Fits the covariate prior of family `F` to `pairs` (row i of `design`
+/// the covariates of pair i), from the common parameter `start_common` and
+/// the intercept `start_intercept` of the fit without covariates;
+/// `strength_unit` is the family's [`Family::strength_unit`] of the whole table.
 pub fn fit_regression<F: Family>(
     design: &Design,
-    cells: CellPairs<'_>,
+    pairs: &[WeightedPair],
     likelihood: Likelihood,
     (start_intercept, start_common): (f64, f64),
     strength_unit: f64,
 ) -> Result<RegressionFit, RegressionFailure> {
-    let groups = cells.groups();
+    assert_eq!(design.rows(), pairs.len(), "one design row per pair");
+    let groups: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
     let moments = design.moments(&groups);
-    let problem = Problem { design, scaled: Scaled::new(&moments), cells, likelihood };
+    let problem = Problem { design, scaled: Scaled::new(&moments), pairs, likelihood };
     let p = design.width();
     let n = p + 1;
     let ln_unit = strength_unit.ln();
@@ -625,11 +655,15 @@ fn separation<F: Family>(problem: &Problem<'_>, theta: &[f64]) -> Option<Regress
         return None;
     }
     let p = problem.width();
-    let extreme = (0..problem.design.cells())
-        .map(|i| {
-            problem.scaled.row(problem.design, i).iter().zip(&theta[..p]).map(|(z, a)| z * a).sum::<f64>()
-        })
-        .fold(0.0f64, |m, eta| if eta.abs() > m.abs() { eta } else { m });
+    let mut z = vec![0.0; p];
+    let mut extreme = 0.0f64;
+    for i in 0..problem.design.rows() {
+        problem.scaled.row_into(problem.design, i, &mut z);
+        let eta: f64 = z.iter().zip(&theta[..p]).map(|(z, a)| z * a).sum();
+        if eta.abs() > extreme.abs() {
+            extreme = eta;
+        }
+    }
     if extreme.abs() <= SEPARATED_PREDICTOR {
         return None;
     }
@@ -642,12 +676,12 @@ fn separation<F: Family>(problem: &Problem<'_>, theta: &[f64]) -> Option<Regress
 }
 
 impl RegressionFit {
-    /// Cell i's linear predictor.
+    /// Row i's linear predictor.
     pub fn predictor(&self, design: &Design, i: usize) -> f64 {
         design.predictor(i, &self.coefficients)
     }
 
-    /// Cell i's prior: conjugate at (xᵢᵀb, u₂), or at the boundary complete
+    /// Row i's prior: conjugate at (xᵢᵀb, u₂), or at the boundary complete
     /// pooling at its centre.
     pub fn prior_of<F: Family>(&self, design: &Design, i: usize) -> Prior {
         let eta = self.predictor(design, i);
@@ -659,16 +693,18 @@ impl RegressionFit {
         }
     }
 
-    /// Cell i's prior mean (the centre its groups are pulled toward).
+    /// Row i's prior mean (the centre its groups are pulled toward).
     pub fn centre_of<F: Family>(&self, design: &Design, i: usize) -> f64 {
         F::mean_strength([self.predictor(design, i), self.common]).0
     }
 
-    /// What is known of cell i's prior's uncertainty: the covariance of its
+    /// What is known of row i's prior's uncertainty: the covariance of its
     /// working coordinates (xᵢᵀb, u₂), or at the boundary the variance of its centre.
     pub fn uncertainty_of<F: Family>(&self, design: &Design, i: usize) -> PriorUncertainty {
-        let (x, n) = (design.row(i), self.coefficients.len() + 1);
+        let n = self.coefficients.len() + 1;
         let p = n - 1;
+        let mut x = vec![0.0; p];
+        design.row_into(i, &mut x);
         let c = |a: usize, b: usize| self.covariance[a * n + b];
         let eta_var: f64 =
             (0..p).flat_map(|a| (0..p).map(move |b| (a, b))).map(|(a, b)| x[a] * x[b] * c(a, b)).sum();
@@ -710,12 +746,17 @@ mod tests {
         WeightedPair { size, count, weight: 1.0 }
     }
 
-    /// Three cells with a numeric covariate and a two-level indicator.
-    fn cells() -> (Design, Vec<WeightedPair>, Vec<Range<usize>>) {
-        let design = Design::new(
-            vec!["intercept".into(), "tenure".into(), "kind=b".into()],
-            vec![1.0, 0.5, 0.0, 1.0, 2.0, 1.0, 1.0, 3.5, 0.0],
-        );
+    /// Six pairs with a numeric covariate and a two-level indicator (as a level code).
+    fn rows() -> (Design, Vec<WeightedPair>) {
+        let names = vec!["intercept".into(), "tenure".into(), "kind=b".into()];
+        let columns = vec![
+            DesignColumn::Intercept,
+            DesignColumn::Number(0),
+            DesignColumn::Indicator { column: 0, code: 1 },
+        ];
+        let numbers = vec![0.5, 0.5, 2.0, 2.0, 3.5, 3.5];
+        let codes = vec![0, 0, 1, 1, 0, 0];
+        let design = Design::new((names, columns), 6, (numbers, 1), (codes, 1));
         let pairs = vec![
             pair(10.0, 3.0),
             pair(4.0, 0.0),
@@ -724,16 +765,16 @@ mod tests {
             pair(12.0, 2.0),
             pair(3.0, 1.0),
         ];
-        (design, pairs, vec![0..2, 2..4, 4..6])
+        (design, pairs)
     }
 
     fn assert_derivatives<F: Family>(likelihood: Likelihood, theta: &[f64]) {
-        let (design, pairs, ranges) = cells();
-        let groups = CellPairs { pairs: &pairs, ranges: &ranges }.groups();
+        let (design, pairs) = rows();
+        let groups: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
         let problem = Problem {
             scaled: Scaled::new(&design.moments(&groups)),
             design: &design,
-            cells: CellPairs { pairs: &pairs, ranges: &ranges },
+            pairs: &pairs,
             likelihood,
         };
         let n = theta.len();
@@ -775,12 +816,10 @@ mod tests {
         assert_eq!(plain.boundary, Boundary::None);
         let (mean, strength) = (plain.mean, plain.strength.expect("interior"));
         let u = F::working(mean, strength);
-        let design = Design::new(vec!["intercept".into()], vec![1.0]);
-        let ranges = std::iter::once(0..table.pairs().len()).collect::<Vec<_>>();
-        let cells = CellPairs { pairs: table.pairs(), ranges: &ranges };
+        let design = Design::dense(vec!["intercept".into()], vec![1.0; table.pairs().len()]);
         let fitted = fit_regression::<F>(
             &design,
-            cells,
+            table.pairs(),
             likelihood,
             (u[0] + 0.3, u[1] - 0.5),
             F::strength_unit(&table),
@@ -833,27 +872,29 @@ mod tests {
     #[test]
     fn a_constant_or_collinear_column_is_named() {
         let groups = [1.0, 2.0, 1.0];
-        let constant = Design::new(vec!["intercept".into(), "x".into()], vec![1.0, 4.0, 1.0, 4.0, 1.0, 4.0]);
+        let constant =
+            Design::dense(vec!["intercept".into(), "x".into()], vec![1.0, 4.0, 1.0, 4.0, 1.0, 4.0]);
         assert_eq!(constant.check(&groups), Err(DesignFault::Constant(1)));
         // z = 2x − 1: a linear function of x (the columns are centred, so
         // the intercept's part is implicit).
-        let collinear = Design::new(
+        let collinear = Design::dense(
             vec!["intercept".into(), "x".into(), "z".into()],
             vec![1.0, 1.0, 1.0, 1.0, 2.0, 3.0, 1.0, 5.0, 9.0],
         );
         assert_eq!(collinear.check(&groups), Err(DesignFault::Collinear { column: 2, of: vec![1] }));
-        let fine = Design::new(vec!["intercept".into(), "x".into()], vec![1.0, 1.0, 1.0, 2.0, 1.0, 5.0]);
+        let fine = Design::dense(vec!["intercept".into(), "x".into()], vec![1.0, 1.0, 1.0, 2.0, 1.0, 5.0]);
         assert_eq!(fine.check(&groups), Ok(()));
     }
 
     #[test]
     fn a_level_with_no_events_is_separation() {
         // The second level's groups have no events at all: its coefficient runs to −∞.
-        let design = Design::new(vec!["intercept".into(), "kind=b".into()], vec![1.0, 0.0, 1.0, 1.0]);
+        let design = Design::dense(
+            vec!["intercept".into(), "kind=b".into()],
+            vec![1.0, 0.0, 1.0, 0.0, 1.0, 0.0, 1.0, 1.0, 1.0, 1.0],
+        );
         let pairs = vec![pair(10.0, 3.0), pair(8.0, 5.0), pair(12.0, 1.0), pair(9.0, 0.0), pair(20.0, 0.0)];
-        let ranges = [0..3, 3..5];
-        let cells = CellPairs { pairs: &pairs, ranges: &ranges };
-        let outcome = fit_regression::<GammaPoisson>(&design, cells, Likelihood::Marginal, (-1.0, 1.0), 1.0);
+        let outcome = fit_regression::<GammaPoisson>(&design, &pairs, Likelihood::Marginal, (-1.0, 1.0), 1.0);
         assert_eq!(outcome, Err(RegressionFailure::Separation { coefficient: 1, towards_positive: false }));
     }
 }

@@ -217,7 +217,7 @@ impl Source for SummedRows<'_> {
         for g in 0..totals.len() {
             pairs.of(totals.segments[g]).add(totals.sizes[g], totals.counts[g], 1.0);
         }
-        Ok(Counted { pairs, segments: segment_index, rows, rejected })
+        Ok(Counted { pairs, segments: segment_index, rows, rejected, covariates: None })
     }
 
     fn write(
@@ -261,7 +261,7 @@ impl<'a> RowReader<'a> {
     fn of(job: &Job, batch: &'a InputBatch<'a>) -> Result<Self> {
         Ok(match job.aggregation {
             Aggregation::Outcome(_) => RowReader::Outcome(OutcomeColumn::of(&batch.columns[1])?),
-            _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms())?)),
+            _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms(), None)?)),
         })
     }
 

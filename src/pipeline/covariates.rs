@@ -1,159 +1,437 @@
 //! Covariates (`--covariates`, `--covariates-log`, `--covariates-levels`):
-//! each row's covariate values checked, the cells of groups that share a
-//! covariate pattern (keyed as segments are, by the text of their values)
-//! turned into the rows of a design (numbers, logs, one indicator per level
-//! after the first), the covariate prior fitted to the cells' pairs
-//! ([`crate::core::regression`]), and each cell's prior and centre.
+//! each row's covariate values read and checked, the distinct
+//! (covariates, size, count) keys counted in compact form (numbers by their
+//! bits, levels by a code), the design built from them (numbers, logs, one
+//! indicator per level after the first in sorted order), the covariate
+//! prior fitted to them ([`crate::core::regression`]), and each pair's prior
+//! and centre.
+//!
+//! How a column is read is fixed by its first value: a numeric column (by
+//! its Parquet type, or in CSV when its first value is a number) is read as
+//! numbers, and a later value that is not one is an invalid row; any other
+//! is read as levels; `--covariates-levels` reads numbers as levels too.
 
-use super::segments::{SegmentColumns, SegmentPairs};
+use super::segments::SegmentColumns;
 use super::{CovariateRole, Job, Likelihood};
 use crate::core::incomplete::{erfc, gamma_tails};
 use crate::core::model::{Family, Prior, PriorUncertainty};
-use crate::core::pairs::WeightedPair;
+use crate::core::pairs::{PairHasher, WeightedPair};
 use crate::core::regression::{
-    fit_regression, CellPairs, Design, DesignFault, RegressionBoundary, RegressionFailure, RegressionFit,
+    fit_regression, Design, DesignColumn, DesignFault, RegressionBoundary, RegressionFailure, RegressionFit,
 };
 use crate::error::{Error, Result};
-use crate::io::cells::Cell;
+use crate::io::cells::{Cell, NumericColumn};
+use crate::io::sink::PairValues;
 use crate::summary::{
     CoefficientReport, CovariatePrior, CovariateReport, FitReport, FittedPrior, SegmentTest,
 };
-use std::collections::BTreeSet;
-use std::ops::Range;
+use arrow_array::ArrayRef;
+use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
 
 /// The most indicators the levels of all covariates may make: beyond it a
 /// column is better a segment of its own (`--by`).
 pub const MAX_LEVELS: usize = 200;
 
-/// The fault of a row's covariate values, (column, reason), if any: a
-/// missing value; a number that is not finite; for a log, a value that is
-/// not a number above zero. Text is a level and passes.
-pub(super) fn covariate_fault(job: &Job, columns: &SegmentColumns, row: usize) -> Option<(String, String)> {
-    job.covariates.iter().enumerate().find_map(|(j, covariate)| {
-        let reason = match (columns.cell(j, row), covariate.role) {
-            (Cell::Missing, _) => Some("missing covariate value".to_string()),
-            (_, CovariateRole::Levels) | (Cell::Text(_), CovariateRole::AsRead) | (Cell::Integer(_), _) => {
-                None
-            }
-            (Cell::Number(v), _) if !v.is_finite() => Some(format!("{v} is not a finite number")),
-            (Cell::Number(_), CovariateRole::AsRead) => None,
-            (Cell::Text(t), CovariateRole::Log) => Some(format!("'{t}' is not a number (its log is taken)")),
-            (Cell::Number(_), CovariateRole::Log) => None,
-        };
-        let reason = reason.or_else(|| match (columns.cell(j, row), covariate.role) {
-            (Cell::Integer(v), CovariateRole::Log) if v <= 0 => {
-                Some(format!("{v} is not above zero (its log is taken)"))
-            }
-            (Cell::Number(v), CovariateRole::Log) if v <= 0.0 => {
-                Some(format!("{v} is not above zero (its log is taken)"))
-            }
-            _ => None,
-        });
-        reason.map(|reason| (covariate.name.clone(), reason))
-    })
+/// The largest magnitude of a covariate (as of an estimate).
+const MAX_MAGNITUDE: f64 = 1e150;
+
+/// How a covariate column's values are read.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Reading {
+    /// As numbers.
+    Numbers,
+    /// As numbers above zero, entered as their log.
+    Logs,
+    /// As levels, by their text.
+    Levels,
 }
 
-/// A value read as a number, if it is one.
-fn number(text: &str) -> Option<f64> {
-    match crate::io::cells::parse_text(text) {
-        Cell::Integer(v) => Some(v as f64),
-        Cell::Number(v) if v.is_finite() => Some(v),
-        _ => None,
-    }
+/// The levels of one column, numbered as met.
+#[derive(Default)]
+struct LevelIndex {
+    codes: HashMap<String, u32>,
+    texts: Vec<String>,
 }
 
-/// One covariate column as it enters: its values per cell, and its report.
-struct Entered {
-    names: Vec<String>,
-    /// Per cell, the values of its design columns.
-    values: Vec<Vec<f64>>,
-    report: CovariateReport,
+/// What the covariate columns are, kept over every batch and both passes:
+/// how each is read (fixed at its first value) and the levels met.
+pub(super) struct CovariateState {
+    readings: Vec<Option<Reading>>,
+    levels: Vec<LevelIndex>,
 }
 
-/// How covariate `j` enters, from its value in every cell.
-fn enter(job: &Job, j: usize, cells: &[SegmentPairs]) -> Result<Entered> {
-    let covariate = &job.covariates[j];
-    let texts: Vec<&str> = cells.iter().map(|c| c.key[j].as_deref().unwrap_or_default()).collect();
-    let numbers: Option<Vec<f64>> = match covariate.role {
-        CovariateRole::Levels => None,
-        _ => texts.iter().map(|t| number(t)).collect(),
-    };
-    let name = &covariate.name;
-    match (covariate.role, numbers) {
-        (CovariateRole::Log, Some(numbers)) => Ok(Entered {
-            names: vec![format!("log({name})")],
-            values: numbers.iter().map(|v| vec![v.ln()]).collect(),
-            report: CovariateReport {
-                column: name.clone(),
-                enters_as: "log".to_string(),
-                levels: Vec::new(),
-            },
-        }),
-        (CovariateRole::AsRead, Some(numbers)) => Ok(Entered {
-            names: vec![name.clone()],
-            values: numbers.iter().map(|&v| vec![v]).collect(),
-            report: CovariateReport {
-                column: name.clone(),
-                enters_as: "number".to_string(),
-                levels: Vec::new(),
-            },
-        }),
-        (CovariateRole::Log, None) => {
-            Err(Error::Other(format!("the log covariate '{name}' holds a value that is not a number")))
-        }
-        (CovariateRole::Levels, _) | (CovariateRole::AsRead, None) => {
-            let levels: Vec<String> =
-                texts.iter().map(|t| t.to_string()).collect::<BTreeSet<_>>().into_iter().collect();
-            if levels.len() < 2 {
-                return Err(Error::Input(format!(
-                    "the covariate '{name}' takes one value ('{}') over every group, so its effect cannot be told from the intercept; leave it out",
-                    levels.first().map_or("", String::as_str)
-                )));
-            }
-            if levels.len() > MAX_LEVELS + 1 {
-                let example = texts.iter().find(|t| number(t).is_none()).map_or(String::new(), |t| {
-                    format!(" (its values are read as levels because '{t}' is not a number)")
-                });
-                return Err(Error::Input(format!(
-                    "the covariate '{name}' has {} levels{example}: more than {MAX_LEVELS} indicators; fit a prior per level with --by {name}, or give a numeric column",
-                    levels.len()
-                )));
-            }
-            let values = texts
-                .iter()
-                .map(|t| levels[1..].iter().map(|level| f64::from(u8::from(level == t))).collect())
-                .collect();
-            Ok(Entered {
-                names: levels[1..].iter().map(|level| format!("{name}={level}")).collect(),
-                values,
-                report: CovariateReport { column: name.clone(), enters_as: "levels".to_string(), levels },
+impl CovariateState {
+    pub(super) fn new(job: &Job) -> Self {
+        let readings = job
+            .covariates
+            .iter()
+            .map(|c| match c.role {
+                CovariateRole::Log => Some(Reading::Logs),
+                CovariateRole::Levels => Some(Reading::Levels),
+                CovariateRole::AsRead => None,
             })
-        }
+            .collect();
+        let levels = job.covariates.iter().map(|_| LevelIndex::default()).collect();
+        CovariateState { readings, levels }
     }
 }
 
-/// The design of the cells (one row per cell, in their order) and how each
-/// covariate entered; refuses too many indicators.
-pub(super) fn design_of(job: &Job, cells: &[SegmentPairs]) -> Result<(Design, Vec<CovariateReport>)> {
-    let entered: Vec<Entered> =
-        (0..job.covariates.len()).map(|j| enter(job, j, cells)).collect::<Result<_>>()?;
-    let indicators: usize =
-        entered.iter().filter(|e| e.report.enters_as == "levels").map(|e| e.names.len()).sum();
+/// One batch's covariate columns, in the forms they are read in.
+pub(super) struct CovariateBatch {
+    texts: SegmentColumns,
+    numbers: Vec<Option<NumericColumn>>,
+    readings: Vec<Reading>,
+}
+
+impl CovariateBatch {
+    /// The batch's covariate columns; a column read as-is whose reading is
+    /// not yet fixed takes it from its first value here (numbers when its
+    /// type is numeric or that value is a number).
+    pub(super) fn of(arrays: &[ArrayRef], state: &mut CovariateState) -> Result<Self> {
+        let texts = SegmentColumns::of(arrays)?;
+        for (j, array) in arrays.iter().enumerate() {
+            if state.readings[j].is_some() {
+                continue;
+            }
+            let dtype = array.data_type();
+            if dtype.is_numeric() {
+                state.readings[j] = Some(Reading::Numbers);
+                continue;
+            }
+            let first = (0..array.len()).map(|row| texts.cell(j, row)).find(|c| *c != Cell::Missing);
+            state.readings[j] = match first {
+                Some(Cell::Integer(_) | Cell::Number(_)) => Some(Reading::Numbers),
+                Some(Cell::Text(_)) => Some(Reading::Levels),
+                _ => None,
+            };
+        }
+        let readings: Vec<Reading> = state.readings.iter().map(|r| r.unwrap_or(Reading::Numbers)).collect();
+        let numbers = arrays
+            .iter()
+            .zip(&readings)
+            .map(|(array, reading)| match reading {
+                Reading::Levels => Ok(None),
+                _ => NumericColumn::of_reals(array).map(Some),
+            })
+            .collect::<Result<_>>()?;
+        Ok(CovariateBatch { texts, numbers, readings })
+    }
+
+    /// The fault of a row's covariate values, (column, reason), if any: a
+    /// missing value; in a column read as numbers, a value that is not a
+    /// finite number (within ±1e150); for a log, one not above zero.
+    pub(super) fn fault(&self, job: &Job, row: usize) -> Option<(String, String)> {
+        (0..self.readings.len()).find_map(|j| {
+            let cell = self.texts.cell(j, row);
+            let reason = match (self.readings[j], &cell) {
+                (_, Cell::Missing) => Some("missing covariate value".to_string()),
+                (Reading::Levels, _) => None,
+                (reading, Cell::Text(t)) => Some(match (reading, job.covariates[j].role) {
+                    (Reading::Logs, _) => format!("'{t}' is not a number (its log is taken)"),
+                    (_, CovariateRole::AsRead) => format!(
+                        "'{t}' is not a number (the column's first value is one; name it in --covariates-levels to read its values as levels)"
+                    ),
+                    _ => format!("'{t}' is not a number"),
+                }),
+                (reading, _) => {
+                    let value = self.numbers[j].as_ref().and_then(|n| n.number(row));
+                    match (reading, value) {
+                        (_, None) => Some(format!("{} is not a finite number", cell_text(&cell))),
+                        (_, Some(v)) if v.abs() > MAX_MAGNITUDE => Some(format!("{v:e} is beyond ±1e150")),
+                        (Reading::Logs, Some(v)) if v <= 0.0 => {
+                            Some(format!("{} is not above zero (its log is taken)", cell_text(&cell)))
+                        }
+                        _ => None,
+                    }
+                }
+            };
+            reason.map(|reason| (job.covariates[j].name.clone(), reason))
+        })
+    }
+
+    /// The row's covariate key (a row whose values passed [`CovariateBatch::fault`]):
+    /// per column a number's bits or a level's code, written into `key`.
+    /// Levels not met before are numbered when `insert`; otherwise None.
+    pub(super) fn key_into(
+        &self,
+        row: usize,
+        state: &mut CovariateState,
+        insert: bool,
+        key: &mut Vec<u64>,
+    ) -> Option<()> {
+        key.clear();
+        for j in 0..self.readings.len() {
+            match self.readings[j] {
+                Reading::Levels => {
+                    let text = match self.texts.cell(j, row) {
+                        Cell::Missing => return None,
+                        Cell::Integer(v) => v.to_string(),
+                        _ => self.texts.text(j, row)?,
+                    };
+                    let index = &mut state.levels[j];
+                    let code = match index.codes.get(&text) {
+                        Some(&code) => code,
+                        None if insert => {
+                            let code = index.texts.len() as u32;
+                            index.codes.insert(text.clone(), code);
+                            index.texts.push(text);
+                            code
+                        }
+                        None => return None,
+                    };
+                    key.push(u64::from(code));
+                }
+                _ => {
+                    let value = self.numbers[j].as_ref()?.number(row)?;
+                    // −0 and 0 are one value.
+                    key.push((value + 0.0).to_bits());
+                }
+            }
+        }
+        Some(())
+    }
+}
+
+/// A cell as its text in a message.
+fn cell_text(cell: &Cell) -> String {
+    match cell {
+        Cell::Missing => "missing".to_string(),
+        Cell::Integer(v) => v.to_string(),
+        Cell::Number(v) => v.to_string(),
+        Cell::Text(t) => format!("'{t}'"),
+    }
+}
+
+/// The hash of a key: its words through [`PairHasher`].
+fn hash_key(key: &[u64]) -> u64 {
+    let mut hasher = PairHasher::default();
+    for &word in key {
+        hasher.write_u64(word);
+    }
+    hasher.finish()
+}
+
+/// The distinct (covariate key, size, count) pairs met, in the order met,
+/// each with its groups: the sufficient statistic of a covariate prior.
+pub(super) struct CovariatePairs {
+    /// Words per key: the covariates, then the size's and the count's bits.
+    width: usize,
+    keys: Vec<u64>,
+    weights: Vec<f64>,
+    /// By a key's hash: its pair (the first met with that hash).
+    index: HashMap<u64, u32, BuildHasherDefault<PairHasher>>,
+    /// Further pairs whose key shares a hash with an earlier one.
+    shared: HashMap<u64, Vec<u32>, BuildHasherDefault<PairHasher>>,
+    scratch: Vec<u64>,
+}
+
+impl CovariatePairs {
+    pub(super) fn new(covariates: usize) -> Self {
+        CovariatePairs {
+            width: covariates + 2,
+            keys: Vec::new(),
+            weights: Vec::new(),
+            index: HashMap::default(),
+            shared: HashMap::default(),
+            scratch: Vec::new(),
+        }
+    }
+
+    fn full_key(&mut self, covariates: &[u64], size: f64, count: f64) {
+        self.scratch.clear();
+        self.scratch.extend_from_slice(covariates);
+        self.scratch.extend([(size + 0.0).to_bits(), (count + 0.0).to_bits()]);
+    }
+
+    fn key(&self, pair: u32) -> &[u64] {
+        let at = pair as usize * self.width;
+        &self.keys[at..at + self.width]
+    }
+
+    fn find_scratch(&self, hash: u64) -> Option<u32> {
+        let first = *self.index.get(&hash)?;
+        if self.key(first) == &self.scratch[..] {
+            return Some(first);
+        }
+        self.shared.get(&hash)?.iter().copied().find(|&pair| self.key(pair) == &self.scratch[..])
+    }
+
+    /// The pair of a row, if met.
+    pub(super) fn find(&mut self, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
+        self.full_key(covariates, size, count);
+        self.find_scratch(hash_key(&self.scratch))
+    }
+
+    /// Adds `weight` groups to a row's pair, numbering it if new.
+    pub(super) fn add(&mut self, covariates: &[u64], size: f64, count: f64, weight: f64) {
+        self.full_key(covariates, size, count);
+        let hash = hash_key(&self.scratch);
+        if let Some(pair) = self.find_scratch(hash) {
+            self.weights[pair as usize] += weight;
+            return;
+        }
+        let pair = self.weights.len() as u32;
+        self.keys.extend_from_slice(&self.scratch);
+        self.weights.push(weight);
+        match self.index.entry(hash) {
+            std::collections::hash_map::Entry::Vacant(slot) => {
+                slot.insert(pair);
+            }
+            std::collections::hash_map::Entry::Occupied(_) => self.shared.entry(hash).or_default().push(pair),
+        }
+    }
+
+    /// Pairs met.
+    pub(super) fn len(&self) -> usize {
+        self.weights.len()
+    }
+
+    /// Drops pairs left with no groups (rows taken back out as repeats),
+    /// numbering the rest again in the order met.
+    pub(super) fn compact(&mut self) {
+        if self.weights.iter().all(|&w| w > 0.0) {
+            return;
+        }
+        let mut kept = CovariatePairs::new(self.width - 2);
+        for pair in 0..self.len() {
+            let weight = self.weights[pair];
+            if weight > 0.0 {
+                let key = self.key(pair as u32).to_vec();
+                let (size, count) =
+                    (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
+                kept.add(&key[..self.width - 2], size, count, weight);
+            }
+        }
+        *self = kept;
+    }
+
+    /// The pairs, in the order met.
+    pub(super) fn pairs(&self) -> Vec<WeightedPair> {
+        (0..self.len())
+            .map(|pair| {
+                let key = self.key(pair as u32);
+                let (size, count) =
+                    (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
+                WeightedPair { size, count, weight: self.weights[pair] }
+            })
+            .collect()
+    }
+}
+
+/// The covariate table of a run: the pairs, the design (one row per pair),
+/// how each covariate entered, and each pair's covariate values as written.
+pub struct CovariateTable {
+    /// The distinct pairs, in the order met.
+    pub pairs: Vec<WeightedPair>,
+    /// Row i the covariates of pair i.
+    pub design: Design,
+    /// How each covariate column entered.
+    pub entered: Vec<CovariateReport>,
+    /// Each covariate column's value per pair, as the output writes it.
+    pub values: Vec<(String, PairValues)>,
+}
+
+/// The covariate table of the pairs met, given what pass 1 learned of the
+/// columns; refuses one-valued columns and too many levels.
+pub(super) fn covariate_table(
+    job: &Job,
+    pairs: &CovariatePairs,
+    state: &CovariateState,
+) -> Result<CovariateTable> {
+    let rows = pairs.len();
+    let word = |pair: usize, j: usize| pairs.keys[pair * pairs.width + j];
+    let mut names = vec!["intercept".to_string()];
+    let mut columns = vec![DesignColumn::Intercept];
+    let (mut numbers, mut codes): (Vec<Vec<f64>>, Vec<Vec<u32>>) = (Vec::new(), Vec::new());
+    let mut entered = Vec::new();
+    let mut values = Vec::new();
+    let mut indicators = 0;
+    for (j, covariate) in job.covariates.iter().enumerate() {
+        let name = &covariate.name;
+        let reading = state.readings[j].unwrap_or(Reading::Numbers);
+        match reading {
+            Reading::Numbers | Reading::Logs => {
+                let raw: Vec<f64> = (0..rows).map(|pair| f64::from_bits(word(pair, j))).collect();
+                let (label, enters_as) = match reading {
+                    Reading::Logs => (format!("log({name})"), "log"),
+                    _ => (name.clone(), "number"),
+                };
+                columns.push(DesignColumn::Number(numbers.len()));
+                names.push(label);
+                numbers.push(if reading == Reading::Logs {
+                    raw.iter().map(|v| v.ln()).collect()
+                } else {
+                    raw.clone()
+                });
+                entered.push(CovariateReport {
+                    column: name.clone(),
+                    enters_as: enters_as.to_string(),
+                    levels: Vec::new(),
+                });
+                // Whole numbers (read from integers, or from text such as `12`) are written as such.
+                let whole = raw.iter().all(|v| v.fract() == 0.0 && v.abs() < 9_007_199_254_740_992.0);
+                let written = if whole {
+                    PairValues::Integers(raw.iter().map(|&v| v as i64).collect())
+                } else {
+                    PairValues::Floats(raw)
+                };
+                values.push((name.clone(), written));
+            }
+            Reading::Levels => {
+                let met = &state.levels[j].texts;
+                let mut sorted: Vec<(usize, &String)> = met.iter().enumerate().collect();
+                sorted.sort_by(|a, b| a.1.cmp(b.1));
+                if sorted.len() < 2 {
+                    return Err(Error::Input(format!(
+                        "the covariate '{name}' takes one value ('{}') over every group, so its effect cannot be told from the intercept; leave it out",
+                        sorted.first().map_or("", |(_, t)| t.as_str())
+                    )));
+                }
+                indicators += sorted.len() - 1;
+                if sorted.len() > MAX_LEVELS + 1 {
+                    return Err(Error::Input(format!(
+                        "the covariate '{name}' has {} levels: more than {MAX_LEVELS} indicators; fit a prior per level with --by {name}, or give a numeric column",
+                        sorted.len()
+                    )));
+                }
+                let mut rank = vec![0u32; met.len()];
+                for (place, (code, _)) in sorted.iter().enumerate() {
+                    rank[*code] = place as u32;
+                }
+                let column = codes.len();
+                for (place, (_, level)) in sorted.iter().enumerate().skip(1) {
+                    names.push(format!("{name}={level}"));
+                    columns.push(DesignColumn::Indicator { column, code: place as u32 });
+                }
+                let pair_codes: Vec<u32> = (0..rows).map(|pair| word(pair, j) as u32).collect();
+                codes.push(pair_codes.iter().map(|&c| rank[c as usize]).collect());
+                entered.push(CovariateReport {
+                    column: name.clone(),
+                    enters_as: "levels".to_string(),
+                    levels: sorted.iter().map(|(_, t)| t.to_string()).collect(),
+                });
+                values.push((
+                    name.clone(),
+                    PairValues::Texts(pair_codes.iter().map(|&c| Some(met[c as usize].clone())).collect()),
+                ));
+            }
+        }
+    }
     if indicators > MAX_LEVELS {
         return Err(Error::Input(format!(
             "the covariates' levels make {indicators} indicators, more than {MAX_LEVELS}: fit a prior per level of the largest with --by instead"
         )));
     }
-    let mut names = vec!["intercept".to_string()];
-    names.extend(entered.iter().flat_map(|e| e.names.iter().cloned()));
-    let mut rows = Vec::with_capacity(cells.len() * names.len());
-    for i in 0..cells.len() {
-        rows.push(1.0);
-        for e in &entered {
-            rows.extend_from_slice(&e.values[i]);
-        }
-    }
-    Ok((Design::new(names, rows), entered.into_iter().map(|e| e.report).collect()))
+    let interleave = |columns: &[Vec<f64>]| {
+        (0..rows).flat_map(|i| columns.iter().map(move |c| c[i])).collect::<Vec<f64>>()
+    };
+    let number_width = numbers.len();
+    let code_width = codes.len();
+    let flat_numbers = interleave(&numbers);
+    let flat_codes: Vec<u32> = (0..rows).flat_map(|i| codes.iter().map(move |c| c[i])).collect();
+    let design = Design::new((names, columns), rows, (flat_numbers, number_width), (flat_codes, code_width));
+    Ok(CovariateTable { pairs: pairs.pairs(), design, entered, values })
 }
 
 /// A design fault in words, naming the columns.
@@ -175,14 +453,16 @@ fn describe_fault(design: &Design, fault: &DesignFault) -> String {
     }
 }
 
-/// The covariate prior of a run and each cell's prior under it.
+/// The covariate prior of a run and each pair's prior under it.
 pub(super) struct CellPriors {
-    /// Per cell, the prior its groups are scored with.
+    /// Per pair, the prior its groups are scored with.
     pub priors: Vec<Prior>,
-    /// Per cell, what is known of that prior's uncertainty.
+    /// Per pair, what is known of that prior's uncertainty.
     pub uncertainties: Vec<PriorUncertainty>,
-    /// Per cell, its centre (the prior mean its groups are pulled toward).
+    /// Per pair, its centre (the prior mean its groups are pulled toward).
     pub centres: Vec<f64>,
+    /// Each covariate column's value per pair, as the output writes it.
+    pub values: Vec<(String, PairValues)>,
     /// The prior's wire form.
     pub fitted_prior: FittedPrior,
     /// How it was fitted.
@@ -199,18 +479,15 @@ pub(super) struct PlainFit<'a> {
     pub fit: &'a FitReport,
 }
 
-/// Fits the covariate prior to the cells' pairs (`ranges[i]` cell i's in
-/// `pairs`) and gives each cell its prior.
+/// Fits the covariate prior to the table's pairs and gives each pair its prior.
 pub(super) fn cell_priors<F: Family>(
     job: &Job,
-    cells: &[SegmentPairs],
-    (pairs, ranges): (&[WeightedPair], &[Range<usize>]),
+    table: CovariateTable,
     plain: PlainFit<'_>,
     strength_unit: f64,
 ) -> Result<CellPriors> {
-    let (design, entered) = design_of(job, cells)?;
-    let cell_pairs = CellPairs { pairs, ranges };
-    let groups = cell_pairs.groups();
+    let CovariateTable { pairs, design, entered, values } = table;
+    let groups: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
     design.check(&groups).map_err(|fault| Error::Input(describe_fault(&design, &fault)))?;
     let start = match *plain.prior {
         Prior::Conjugate { natural } => {
@@ -219,12 +496,12 @@ pub(super) fn cell_priors<F: Family>(
         }
         Prior::CompletePooling { mean } => F::working(mean, 1e6 * strength_unit),
     };
-    let fitted =
-        fit_regression::<F>(&design, cell_pairs, job.likelihood, (start[0], start[1]), strength_unit)
-            .map_err(|failure| Error::Fit(describe_failure(&design, failure)))?;
-    let priors: Vec<Prior> = (0..cells.len()).map(|i| fitted.prior_of::<F>(&design, i)).collect();
-    let uncertainties = (0..cells.len()).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect();
-    let centres: Vec<f64> = (0..cells.len()).map(|i| fitted.centre_of::<F>(&design, i)).collect();
+    let fitted = fit_regression::<F>(&design, &pairs, job.likelihood, (start[0], start[1]), strength_unit)
+        .map_err(|failure| Error::Fit(describe_failure(&design, failure)))?;
+    let rows = pairs.len();
+    let priors: Vec<Prior> = (0..rows).map(|i| fitted.prior_of::<F>(&design, i)).collect();
+    let uncertainties = (0..rows).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect();
+    let centres: Vec<f64> = (0..rows).map(|i| fitted.centre_of::<F>(&design, i)).collect();
     let total: f64 = groups.iter().sum();
     let mean_centre = centres.iter().zip(&groups).map(|(c, g)| c * g).sum::<f64>() / total;
     let terms = &F::TERMS.covariate_terms;
@@ -266,7 +543,7 @@ pub(super) fn cell_priors<F: Family>(
         working_bias: None,
         working_covariance: None,
     };
-    Ok(CellPriors { priors, uncertainties, centres, fitted_prior, fit, warnings })
+    Ok(CellPriors { priors, uncertainties, centres, values, fitted_prior, fit, warnings })
 }
 
 /// The coefficient table: estimate, standard error, z and the two-sided p.

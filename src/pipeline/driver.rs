@@ -8,7 +8,8 @@
 //! summary, the pair output, and the commit of every output together, all or
 //! nothing.
 
-use super::prior::{score_pairs, Scored};
+use super::covariates::{covariate_table, CovariatePairs, CovariateState};
+use super::prior::{score_covariate_pairs, score_pairs, Scored};
 use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts, ShiftGroups};
 use super::segments::{PairLookup, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::{no_data_rows, no_valid_rows, Job, PhaseClock};
@@ -29,6 +30,17 @@ pub(super) struct Counted {
     pub rows: usize,
     /// Rows rejected.
     pub rejected: usize,
+    /// With covariates: the pairs by their covariates (the segment counts then stay empty).
+    pub covariates: Option<CovariateCount>,
+}
+
+/// What the first reading found of the covariates: the distinct
+/// (covariates, size, count) pairs and how each column is read.
+pub(super) struct CovariateCount {
+    /// The pairs met.
+    pub pairs: CovariatePairs,
+    /// The columns' readings and levels.
+    pub state: CovariateState,
 }
 
 /// Where a scored group's values are: its segment as met, and its pair's
@@ -38,6 +50,8 @@ pub(super) struct Placement {
     pub segments: SegmentIndex,
     /// Pair numbers by segment and pair.
     pub pairs: PairLookup,
+    /// With covariates: pair numbers by covariates and pair.
+    pub covariates: Option<CovariateCount>,
 }
 
 /// An input layout.
@@ -63,16 +77,34 @@ pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'
     if counted.rows == 0 {
         return Err(no_data_rows(job));
     }
-    let mut segments_met = counted.segments;
-    let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
-        counted.pairs.into_segments(&mut segments_met).into_iter().unzip();
-    if segments.iter().all(|s| s.table.pairs().is_empty()) {
-        return Err(no_valid_rows(job, counted.rejected));
-    }
-    let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
-    let pairs = PairLookup::new(&met, &tables);
-    let scored = score_pairs(job, segments, clock)?;
-    let placement = Placement { segments: segments_met, pairs };
+    let (scored, placement) = match counted.covariates {
+        Some(mut covariates) => {
+            covariates.pairs.compact();
+            if covariates.pairs.len() == 0 {
+                return Err(no_valid_rows(job, counted.rejected));
+            }
+            let table = covariate_table(job, &covariates.pairs, &covariates.state)?;
+            let scored = score_covariate_pairs(job, table, clock)?;
+            let placement = Placement {
+                segments: SegmentIndex::default(),
+                pairs: PairLookup::new(&[], &[]),
+                covariates: Some(covariates),
+            };
+            (scored, placement)
+        }
+        None => {
+            let mut segments_met = counted.segments;
+            let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
+                counted.pairs.into_segments(&mut segments_met).into_iter().unzip();
+            if segments.iter().all(|s| s.table.pairs().is_empty()) {
+                return Err(no_valid_rows(job, counted.rejected));
+            }
+            let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
+            let pairs = PairLookup::new(&met, &tables);
+            let scored = score_pairs(job, segments, clock)?;
+            (scored, Placement { segments: segments_met, pairs, covariates: None })
+        }
+    };
     let (shift_groups, mut staged) = source.write(job, &scored, placement, clock)?;
     let counts = RowCounts { read: counted.rows as u64, rejected: counted.rejected as u64 };
     let summary = summarise(job, counts, &scored, shift_groups);

@@ -56,7 +56,7 @@ impl Source for PairRows<'_> {
             return Ok(Counted::default());
         }
         clock.lap("read-and-validate", "read and validate");
-        Ok(Counted { pairs, segments: segments_met, rows, rejected: 0 })
+        Ok(Counted { pairs, segments: segments_met, rows, rejected: 0, covariates: None })
     }
 
     fn write(

@@ -13,8 +13,8 @@
 //!
 //! Every output is staged and renamed into place only at the end.
 
-use super::covariates::covariate_fault;
-use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
+use super::covariates::{CovariateBatch, CovariatePairs, CovariateState};
+use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
@@ -40,19 +40,31 @@ pub(super) struct BatchView<'a> {
     counts: NumericColumn,
     sizes: NumericColumn,
     segments: SegmentColumns,
+    covariates: Option<CovariateBatch>,
 }
 
 impl<'a> BatchView<'a> {
-    pub(super) fn of(batch: &'a InputBatch<'a>, terms: &ModelTerms) -> Result<Self> {
+    /// The batch's columns: group, count, size, then the segment or the
+    /// covariate columns (with `covariates`, the state of the latter).
+    pub(super) fn of(
+        batch: &'a InputBatch<'a>,
+        terms: &ModelTerms,
+        covariates: Option<&mut CovariateState>,
+    ) -> Result<Self> {
         // Estimates and standard errors are read as reals; counts and sizes as integers where they are.
         let numeric =
             |rule: ValueRule| if rule.reads_reals() { NumericColumn::of_reals } else { NumericColumn::of };
+        let (segments, covariates) = match covariates {
+            Some(state) => (SegmentColumns::of(&[])?, Some(CovariateBatch::of(&batch.columns[3..], state)?)),
+            None => (SegmentColumns::of(&batch.columns[3..])?, None),
+        };
         Ok(BatchView {
             batch,
             group: GroupColumn::of(&batch.columns[0])?,
             counts: numeric(terms.count_rule)(&batch.columns[1])?,
             sizes: numeric(terms.size_rule)(&batch.columns[2])?,
-            segments: SegmentColumns::of(&batch.columns[3..])?,
+            segments,
+            covariates,
         })
     }
 
@@ -105,10 +117,8 @@ impl<'a> BatchView<'a> {
                 }
             }
         };
-        if !job.covariates.is_empty() {
-            if let Some((column, reason)) = covariate_fault(job, &self.segments, row) {
-                return Ok(Err(reject(&column, reason)));
-            }
+        if let Some((column, reason)) = self.covariates.as_ref().and_then(|c| c.fault(job, row)) {
+            return Ok(Err(reject(&column, reason)));
         }
         Ok(Ok(pair))
     }
@@ -138,6 +148,8 @@ pub(super) fn row_error(batch: &InputBatch<'_>, rejection: Rejection) -> RowFaul
 
 /// What pass 1 learns.
 struct PassOne {
+    /// With covariates: the pairs by their covariates.
+    covariates: Option<CovariateCount>,
     pairs: SegmentCounters,
     segments: SegmentIndex,
     rows: usize,
@@ -184,6 +196,7 @@ impl Source for GroupRows<'_> {
             segments: first.segments,
             rows: first.rows,
             rejected: first.rejected,
+            covariates: first.covariates,
         })
     }
 
@@ -196,7 +209,12 @@ impl Source for GroupRows<'_> {
     ) -> Result<(ShiftGroups, StagedOutputs)> {
         let rows = self.rows;
         let repeats = std::mem::take(&mut self.repeats);
-        let found = Found { segments: placement.segments, pairs: placement.pairs, repeats };
+        let found = Found {
+            segments: placement.segments,
+            pairs: placement.pairs,
+            covariates: placement.covariates,
+            repeats,
+        };
         let written = score_and_write(job, &self.input, scored, self.output, found, (clock, rows))?;
         clock.lap("pass-2", "pass 2: read, score, write");
         Ok(written)
@@ -207,7 +225,13 @@ impl Source for GroupRows<'_> {
 /// first row fault, and a hash of every group id.
 fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<PassOne> {
     let total = input.known_rows();
+    let covariates = (!job.covariates.is_empty()).then(|| CovariateCount {
+        pairs: CovariatePairs::new(job.covariates.len()),
+        state: CovariateState::new(job),
+    });
+    let mut key = Vec::new();
     let mut pass = PassOne {
+        covariates,
         pairs: SegmentCounters::new(),
         segments: SegmentIndex::default(),
         rows: 0,
@@ -216,16 +240,24 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<P
         ids: IdHashes::with_capacity(total.unwrap_or(0)),
     };
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch, job.model.terms())?;
+        let view = BatchView::of(&batch, job.model.terms(), pass.covariates.as_mut().map(|c| &mut c.state))?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
                 view.group.with_bytes(row, |id| pass.ids.push(id));
             }
             match view.check(job, row)? {
-                Ok((size, count)) => {
-                    let segment = view.number_segment(&mut pass.segments, row);
-                    pass.pairs.of(segment).add(size, count, 1.0)
-                }
+                Ok((size, count)) => match (&mut pass.covariates, &view.covariates) {
+                    (Some(counted), Some(columns)) => {
+                        columns
+                            .key_into(row, &mut counted.state, true, &mut key)
+                            .expect("a valid row has a key");
+                        counted.pairs.add(&key, size, count, 1.0);
+                    }
+                    _ => {
+                        let segment = view.number_segment(&mut pass.segments, row);
+                        pass.pairs.of(segment).add(size, count, 1.0)
+                    }
+                },
                 Err(rejection) => {
                     pass.rejected += 1;
                     if pass.first_fault.is_none() {
@@ -250,8 +282,9 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
         return Ok(Repeats::default());
     }
     let mut finder = RepeatFinder::new(candidates);
+    let mut key = Vec::new();
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch, job.model.terms())?;
+        let view = BatchView::of(&batch, job.model.terms(), pass.covariates.as_mut().map(|c| &mut c.state))?;
         for row in 0..batch.rows() {
             if view.group.is_missing(row) {
                 continue;
@@ -259,8 +292,19 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
             let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
             if repeat.is_some() {
                 if let Ok((size, count)) = view.check(job, row)? {
-                    let segment = view.find_segment(&mut pass.segments, row).expect("counted in pass 1");
-                    pass.pairs.of(segment).add(size, count, -1.0);
+                    match (&mut pass.covariates, &view.covariates) {
+                        (Some(counted), Some(columns)) => {
+                            columns
+                                .key_into(row, &mut counted.state, false, &mut key)
+                                .expect("counted in pass 1");
+                            counted.pairs.add(&key, size, count, -1.0);
+                        }
+                        _ => {
+                            let segment =
+                                view.find_segment(&mut pass.segments, row).expect("counted in pass 1");
+                            pass.pairs.of(segment).add(size, count, -1.0);
+                        }
+                    }
                     pass.rejected += 1;
                 }
             }
@@ -318,6 +362,7 @@ fn changed_between_passes(file: &Path) -> Error {
 struct Found {
     segments: SegmentIndex,
     pairs: PairLookup,
+    covariates: Option<CovariateCount>,
     repeats: Repeats,
 }
 
@@ -351,8 +396,10 @@ fn score_and_write(
             }
             Ok(sink)
         });
+        let mut key = Vec::new();
         let produced = input.for_each_batch(|batch| {
-            let view = BatchView::of(&batch, job.model.terms())?;
+            let view =
+                BatchView::of(&batch, job.model.terms(), found.covariates.as_mut().map(|c| &mut c.state))?;
             let (mut kept, mut pair_of_row) =
                 (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
             for row in 0..batch.rows() {
@@ -365,10 +412,16 @@ fn score_and_write(
                 }
                 match outcome {
                     Ok((size, count)) => {
-                        let (pair, place) = view
-                            .find_segment(&mut found.segments, row)
-                            .and_then(|segment| found.pairs.get(segment, size, count))
-                            .ok_or_else(|| changed_between_passes(batch.file))?;
+                        let placed = match (&mut found.covariates, &view.covariates) {
+                            (Some(counted), Some(columns)) => columns
+                                .key_into(row, &mut counted.state, false, &mut key)
+                                .and_then(|()| counted.pairs.find(&key, size, count))
+                                .map(|pair| (pair, 0)),
+                            _ => view
+                                .find_segment(&mut found.segments, row)
+                                .and_then(|segment| found.pairs.get(segment, size, count)),
+                        };
+                        let (pair, place) = placed.ok_or_else(|| changed_between_passes(batch.file))?;
                         shifts.observe(pair, place, || view.group.text(row));
                         kept.push(row as u32);
                         pair_of_row.push(pair);
@@ -465,7 +518,12 @@ mod tests {
         let lookup = PairLookup::new(&[0], &[table.pairs()]);
         let segment = SegmentPairs { key: Vec::new(), samples: Vec::new(), table };
         let scored = score_pairs(job, vec![segment], clock)?;
-        let found = Found { segments: SegmentIndex::default(), pairs: lookup, repeats: Repeats::default() };
+        let found = Found {
+            segments: SegmentIndex::default(),
+            pairs: lookup,
+            covariates: None,
+            repeats: Repeats::default(),
+        };
         score_and_write(job, open, &scored, output, found, (clock, rows)).map(|_| ())
     }
 

@@ -9,7 +9,7 @@
 //! boundary (no overdispersion) is a result, not a fallback. A likelihood-
 //! ratio test says whether one prior per segment fits better than one for all.
 
-use super::covariates::{cell_priors, CellPriors, PlainFit};
+use super::covariates::{cell_priors, CellPriors, CovariateTable, PlainFit};
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, TopRule, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
@@ -28,12 +28,14 @@ use crate::core::ranking::{
     TopMethod,
 };
 use crate::error::{Error, Result};
+use crate::io::sink::PairValues;
 use crate::summary::{
     CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, SegmentTest, TestReport,
     VarianceReport,
 };
 use arrow_array::ArrayRef;
 use rayon::prelude::*;
+use std::borrow::Cow;
 use std::ops::Range;
 use std::path::Path;
 
@@ -91,17 +93,13 @@ pub struct Scored {
     pub covariates: Option<CovariateScore>,
 }
 
-/// What the output holds of the covariates: per pair, its cell's values
-/// and its centre.
+/// What the output holds of the covariates: per pair, its covariate
+/// values and its centre.
 pub struct CovariateScore {
-    /// The covariate columns, in the order given.
-    pub columns: Vec<String>,
-    /// Per cell, one row of each covariate column holding its values.
-    pub samples: Vec<Vec<ArrayRef>>,
+    /// Each covariate column's value per pair, in the order given.
+    pub values: Vec<(String, PairValues)>,
     /// Per pair, the centre of its prior (the rate it is pulled toward).
     pub prior_mean: Vec<f64>,
-    /// Per pair, its cell's place in `samples`.
-    pub cell_of_pair: Vec<u32>,
 }
 
 impl Scored {
@@ -112,6 +110,26 @@ impl Scored {
             places[segment.pairs.clone()].fill(place as u32);
         }
         places
+    }
+}
+
+/// Fits the covariate prior to a covariate table and scores every pair.
+pub fn score_covariate_pairs(job: &Job, table: CovariateTable, clock: &mut PhaseClock<'_>) -> Result<Scored> {
+    job.model.visit(ScoreCovariatePairs { job, table, clock })
+}
+
+/// [`score_covariates_with`] for the job's model.
+struct ScoreCovariatePairs<'a, 'b> {
+    job: &'a Job,
+    table: CovariateTable,
+    clock: &'a mut PhaseClock<'b>,
+}
+
+impl FamilyVisitor for ScoreCovariatePairs<'_, '_> {
+    type Output = Result<Scored>;
+
+    fn visit<F: Family>(self) -> Result<Scored> {
+        score_covariates_with::<F>(self.job, self.table, self.clock)
     }
 }
 
@@ -253,7 +271,7 @@ fn score_with<F: Family>(
     }
     let places = PairPlaces::of(&segments);
     refuse_top_of_everyone(job, &places.pairs)?;
-    let priors = priors_in_use::<F>(job, &segments, (&places.pairs, &places.ranges), clock)?;
+    let priors = priors_in_use::<F>(job, &segments, &places.pairs, clock)?;
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
     clock.lap("posteriors", "posteriors");
@@ -320,10 +338,10 @@ struct PriorsInUse {
 fn priors_in_use<F: Family>(
     job: &Job,
     segments: &[SegmentPairs],
-    (all_pairs, ranges): (&[WeightedPair], &[Range<usize>]),
+    all_pairs: &[WeightedPair],
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
-    let segmented = !job.segments.is_empty() || !job.covariates.is_empty();
+    let segmented = !job.segments.is_empty();
     let all_table = if segmented {
         PairTable::from_weighted(all_pairs.iter().copied())
     } else {
@@ -332,9 +350,6 @@ fn priors_in_use<F: Family>(
     let mut all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(all_table.pairs().len());
     clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()));
-    if !job.covariates.is_empty() {
-        return covariate_priors_in_use::<F>(job, segments, (all_pairs, ranges), all, all_table, clock);
-    }
     // Corrected intervals of a fit: the median bias of each prior, by parametric bootstrap.
     let bootstrap = job.intervals == Intervals::Corrected && matches!(job.prior, PriorSource::Fit);
     if bootstrap {
@@ -386,29 +401,57 @@ fn priors_in_use<F: Family>(
 }
 
 /// The priors of a run with covariates: the covariate prior, fitted from
-/// the all-groups fit without covariates, gives each cell its prior.
+/// the all-groups fit without covariates, gives each pair (its own place)
+/// its prior; the spread of each for corrected intervals is formed when used.
 fn covariate_priors_in_use<F: Family>(
     job: &Job,
-    cells: &[SegmentPairs],
-    (all_pairs, ranges): (&[WeightedPair], &[Range<usize>]),
-    all: Chosen,
-    all_table: PairTable,
+    table: CovariateTable,
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
+    let all_table = PairTable::from_weighted(table.pairs.iter().copied());
+    let all = all_groups_prior::<F>(job, &all_table)?;
+    clock.pairs(table.pairs.len());
+    clock.lap("fit", &format!("fit without covariates ({} distinct pairs)", all_table.pairs().len()));
     let plain = PlainFit { prior: &all.prior, log_likelihood: all.log_likelihood, fit: &all.fit };
-    let fitted = cell_priors::<F>(job, cells, (all_pairs, ranges), plain, F::strength_unit(&all_table))?;
-    clock.lap("covariate-fit", &format!("covariate prior ({} covariate patterns)", cells.len()));
-    let spreads = match job.intervals {
-        Intervals::Corrected => fitted
-            .priors
-            .iter()
-            .zip(&fitted.uncertainties)
-            .map(|(prior, known)| Some(Uncertainty::of::<F>(prior, *known, None)))
-            .collect(),
-        Intervals::PlugIn => vec![None; cells.len()],
-    };
+    let fitted = cell_priors::<F>(job, table, plain, F::strength_unit(&all_table))?;
+    clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()));
     let priors = fitted.priors.clone();
-    Ok(PriorsInUse { all_table, all, choices: Vec::new(), priors, spreads, covariates: Some(fitted) })
+    Ok(PriorsInUse {
+        all_table,
+        all,
+        choices: Vec::new(),
+        priors,
+        spreads: Vec::new(),
+        covariates: Some(fitted),
+    })
+}
+
+/// Fits the covariate prior to the table and scores every pair.
+fn score_covariates_with<F: Family>(
+    job: &Job,
+    table: CovariateTable,
+    clock: &mut PhaseClock<'_>,
+) -> Result<Scored> {
+    let pairs = table.pairs.clone();
+    refuse_top_of_everyone(job, &pairs)?;
+    let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
+    let priors = covariate_priors_in_use::<F>(job, table, clock)?;
+    let posteriors = posteriors_of::<F>(job, &priors, &places);
+    let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
+    clock.lap("posteriors", "posteriors");
+    Ok(scored_of::<F>(job, Vec::new(), priors, places, (posteriors, decisions)))
+}
+
+impl PriorsInUse {
+    /// The spread of the prior at `place` for corrected intervals (None for plug-in ones).
+    fn spread<F: Family>(&self, job: &Job, place: usize) -> Option<Cow<'_, Uncertainty>> {
+        match &self.covariates {
+            Some(cells) => (job.intervals == Intervals::Corrected).then(|| {
+                Cow::Owned(Uncertainty::of::<F>(&self.priors[place], cells.uncertainties[place], None))
+            }),
+            None => self.spreads[place].as_ref().map(Cow::Borrowed),
+        }
+    }
 }
 
 /// Each pair's posterior under its segment's prior (corrected for the
@@ -419,9 +462,9 @@ fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces
         .pairs
         .par_iter()
         .zip(&places.place_of_pair)
-        .map(|(p, &place)| match &priors.spreads[place] {
+        .map(|(p, &place)| match priors.spread::<F>(job, place) {
             Some(uncertainty) => {
-                corrected_posterior::<F>(&priors.priors[place], uncertainty, p.size, p.count, tail)
+                corrected_posterior::<F>(&priors.priors[place], &uncertainty, p.size, p.count, tail)
             }
             None => F::posterior(&priors.priors[place], p.size, p.count, tail),
         })
@@ -448,9 +491,9 @@ fn decisions_of<F: Family>(
         all_pairs
             .par_iter()
             .zip(place_of_pair)
-            .map(|(p, &place)| match &priors.spreads[place] {
+            .map(|(p, &place)| match priors.spread::<F>(job, place) {
                 Some(uncertainty) => {
-                    corrected_tails::<F>(&priors.priors[place], uncertainty, p.size, p.count, threshold)
+                    corrected_tails::<F>(&priors.priors[place], &uncertainty, p.size, p.count, threshold)
                 }
                 None => F::rate_tails(&priors.priors[place], p.size, p.count, threshold),
             })
@@ -532,12 +575,8 @@ fn scored_of<F: Family>(
     if let (None, Prior::CompletePooling { .. }) = (&covariates, all.prior) {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
-    let covariate_score = covariates.map(|cells| CovariateScore {
-        columns: job.covariates.iter().map(|c| c.name.clone()).collect(),
-        samples: segments.iter().map(|s| s.samples.clone()).collect(),
-        prior_mean: place_of_pair.iter().map(|&place| cells.centres[place]).collect(),
-        cell_of_pair: place_of_pair.iter().map(|&place| place as u32).collect(),
-    });
+    let covariate_score =
+        covariates.map(|cells| CovariateScore { values: cells.values, prior_mean: cells.centres });
     let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
     if checks.poor_fit() {
         warnings.push(format!(

@@ -48,9 +48,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
     if let Some(covariates) = &scored.covariates {
-        let samples: Vec<&[ArrayRef]> = covariates.samples.iter().map(|s| &s[..]).collect();
-        let values = segment_pair_values(&samples, &covariates.cell_of_pair)?;
-        columns.extend(covariates.columns.iter().cloned().zip(values));
+        columns.extend(covariates.values.iter().cloned());
     }
     columns.extend([
         (job.columns.count.clone(), counts),

@@ -130,6 +130,11 @@ impl SegmentColumns {
         }
     }
 
+    /// The text of column `column` at `row` (None for null).
+    pub fn text(&self, column: usize, row: usize) -> Option<String> {
+        self.columns[column].value(row).and_then(|(values, at)| values.value_text(at))
+    }
+
     /// The row's key as bytes: per column a tag (0 null, 1 a value), the
     /// value's length and its bytes, so no two keys share an encoding.
     fn encode(&self, row: usize, out: &mut Vec<u8>) {

@@ -14,7 +14,7 @@ use ratepool::core::model::gamma_poisson::GammaPoisson;
 use ratepool::core::model::normal_normal::NormalNormal;
 use ratepool::core::model::Family;
 use ratepool::core::pairs::WeightedPair;
-use ratepool::core::regression::{fit_regression, CellPairs, Design, RegressionFit};
+use ratepool::core::regression::{fit_regression, Design, RegressionFit};
 use serde_json::Value;
 use std::path::Path;
 
@@ -50,12 +50,10 @@ fn fit<F: Family>(rows: &[(f64, f64, Vec<f64>)], names: &[&str], likelihood: Lik
         .iter()
         .map(|(size, count, _)| WeightedPair { size: *size, count: *count, weight: 1.0 })
         .collect();
-    let ranges: Vec<std::ops::Range<usize>> = (0..rows.len()).map(|i| i..i + 1).collect();
     let values: Vec<f64> =
         rows.iter().flat_map(|(_, _, x)| std::iter::once(1.0).chain(x.iter().copied())).collect();
-    let design = Design::new(names.iter().map(|n| n.to_string()).collect(), values);
-    let cells = CellPairs { pairs: &pairs, ranges: &ranges };
-    design.check(&cells.groups()).expect("a full-rank design");
+    let design = Design::dense(names.iter().map(|n| n.to_string()).collect(), values);
+    design.check(&vec![1.0; pairs.len()]).expect("a full-rank design");
     // Started from a pooled rate and a middling common parameter.
     let (size, count): (f64, f64) = pairs.iter().fold((0.0, 0.0), |(s, c), p| (s + p.size, c + p.count));
     let start = F::working(
@@ -66,7 +64,7 @@ fn fit<F: Family>(rows: &[(f64, f64, Vec<f64>)], names: &[&str], likelihood: Lik
         },
         10.0,
     );
-    fit_regression::<F>(&design, cells, likelihood, (start[0], start[1]), 1.0).expect("an interior fit")
+    fit_regression::<F>(&design, &pairs, likelihood, (start[0], start[1]), 1.0).expect("an interior fit")
 }
 
 fn numbers(value: &Value) -> Vec<f64> {

@@ -1,0 +1,73 @@
+#!/usr/bin/env bash
+# What covariates cost, side by side in one run on the same input
+# (benches/generate_covariates.py: areas with three numeric covariates and a
+# five-level region, so nearly every area is a distinct pair):
+#   plain:      ratepool fit --model gamma-poisson (no covariates);
+#   covariates: the same with --covariates deprivation,outdoor_share,region
+#               --covariates-log density;
+#   nb2:        statsmodels' NB2 regression and the same posteriors
+#               (benches/peer/nb2_peer.py), at the sizes in PEER_AT.
+# Runs alternate, each timed with /usr/bin/time (wall, peak memory);
+# medians and ratios at the end, with the Newton iterations of the fit.
+# The targets: covariates at most 4 x plain and 1 GB at 10M areas; at 1M
+# areas at least 20 x faster than nb2.
+#
+# usage: benches/covariates.sh [AREAS ...]     default: 1000000 10000000
+# env:   RUNS (3), PYTHON (python3), PEER_AT ("1000000"),
+#        BENCH_DATA (/var/tmp/ratepool-bench: inputs are made once and kept there)
+set -euo pipefail
+cd "$(dirname "$0")/.."
+sizes=("${@:-1000000 10000000}")
+read -r -a sizes <<< "${sizes[*]}"
+runs="${RUNS:-3}"
+python="${PYTHON:-python3}"
+peer_at=" ${PEER_AT:-1000000} "
+data="${BENCH_DATA:-/var/tmp/ratepool-bench}"
+export CARGO_TARGET_DIR="${CARGO_TARGET_DIR:-/var/tmp/ratepool-target}"
+mkdir -p "$data"
+cargo build --release --quiet --bins
+ratepool="$CARGO_TARGET_DIR/release/ratepool"
+log="$data/covariates.tsv"
+: > "$log"
+for areas in "${sizes[@]}"; do
+  input="$data/covariates-$areas.parquet"
+  [[ -f "$input" ]] || "$python" benches/generate_covariates.py "$areas" "$input"
+  base=(--quiet fit --model gamma-poisson --input "$input" --group area_id --events cases --exposure expected
+    --output "$data/covariates-out.parquet" --summary "$data/covariates-summary.json")
+  for run in $(seq "$runs"); do
+    for variant in plain covariates nb2; do
+      case $variant in
+        plain) command=("$ratepool" "${base[@]}") ;;
+        covariates) command=("$ratepool" "${base[@]}" --covariates deprivation,outdoor_share,region --covariates-log density) ;;
+        nb2) [[ "$peer_at" == *" $areas "* ]] || continue
+             command=("$python" benches/peer/nb2_peer.py "$input" "$data/nb2-out.parquet") ;;
+      esac
+      sync
+      /usr/bin/time -f "%e %M" -o "$data/time.txt" "${command[@]}" > /dev/null 2> "$data/stderr.txt" \
+        || { cat "$data/stderr.txt"; exit 1; }
+      read -r wall rss < "$data/time.txt"
+      echo -e "$areas\t$variant\t$run\t$wall\t$((rss / 1024))" | tee -a "$log"
+      if [[ $variant == covariates ]]; then
+        "$python" -c "import json,sys; print('newton iterations', json.load(open(sys.argv[1]))['fit']['iterations'])" \
+          "$data/covariates-summary.json"
+      fi
+      [[ $variant == nb2 ]] && tail -1 "$data/stderr.txt"
+    done
+  done
+done
+"$python" - "$log" <<'PY'
+import collections, statistics, sys
+times, memory = collections.defaultdict(list), collections.defaultdict(list)
+for line in open(sys.argv[1]):
+    areas, variant, _, wall, peak = line.split("\t")
+    times[areas, variant].append(float(wall))
+    memory[areas, variant].append(int(peak))
+for areas in sorted({a for a, _ in times}, key=int):
+    plain = statistics.median(times[areas, "plain"])
+    cov = statistics.median(times[areas, "covariates"])
+    line = f"{int(areas):>11,} areas: plain {plain:6.2f} s, covariates {cov:6.2f} s ({cov / plain:.2f} x plain, peak {max(memory[areas, 'covariates'])} MB)"
+    if (areas, "nb2") in times:
+        nb2 = statistics.median(times[areas, "nb2"])
+        line += f"; statsmodels NB2 {nb2:6.2f} s ({nb2 / cov:.1f} x covariates)"
+    print(line)
+PY
