@@ -77,10 +77,12 @@ impl CovariateState {
     }
 }
 
-/// One batch's covariate columns, in the forms they are read in.
+/// One batch's covariate columns, in the forms they are read in: numbers
+/// as numbers (Parquet's own, or CSV text parsed once), levels by their text.
 pub(super) struct CovariateBatch {
-    texts: SegmentColumns,
+    arrays: Vec<ArrayRef>,
     numbers: Vec<Option<NumericColumn>>,
+    levels: Vec<Option<SegmentColumns>>,
     readings: Vec<Reading>,
 }
 
@@ -89,17 +91,18 @@ impl CovariateBatch {
     /// not yet fixed takes it from its first value here (numbers when its
     /// type is numeric or that value is a number).
     pub(super) fn of(arrays: &[ArrayRef], state: &mut CovariateState) -> Result<Self> {
-        let texts = SegmentColumns::of(arrays)?;
         for (j, array) in arrays.iter().enumerate() {
             if state.readings[j].is_some() {
                 continue;
             }
-            let dtype = array.data_type();
-            if dtype.is_numeric() {
+            if array.data_type().is_numeric() {
                 state.readings[j] = Some(Reading::Numbers);
                 continue;
             }
-            let first = (0..array.len()).map(|row| texts.cell(j, row)).find(|c| *c != Cell::Missing);
+            let first = (0..array.len())
+                .map(|row| crate::io::cells::cell_at(array, row))
+                .find(|c| !matches!(c, Ok(Cell::Missing)))
+                .transpose()?;
             state.readings[j] = match first {
                 Some(Cell::Integer(_) | Cell::Number(_)) => Some(Reading::Numbers),
                 Some(Cell::Text(_)) => Some(Reading::Levels),
@@ -107,46 +110,60 @@ impl CovariateBatch {
             };
         }
         let readings: Vec<Reading> = state.readings.iter().map(|r| r.unwrap_or(Reading::Numbers)).collect();
-        let numbers = arrays
-            .iter()
-            .zip(&readings)
-            .map(|(array, reading)| match reading {
-                Reading::Levels => Ok(None),
-                _ => NumericColumn::of_reals(array).map(Some),
-            })
-            .collect::<Result<_>>()?;
-        Ok(CovariateBatch { texts, numbers, readings })
+        let mut numbers = Vec::with_capacity(arrays.len());
+        let mut levels = Vec::with_capacity(arrays.len());
+        for (array, reading) in arrays.iter().zip(&readings) {
+            match reading {
+                Reading::Levels => {
+                    numbers.push(None);
+                    levels.push(Some(SegmentColumns::of(std::slice::from_ref(array))?));
+                }
+                _ => {
+                    numbers.push(Some(NumericColumn::of_reals(array)?));
+                    levels.push(None);
+                }
+            }
+        }
+        Ok(CovariateBatch { arrays: arrays.to_vec(), numbers, levels, readings })
     }
 
     /// The fault of a row's covariate values, (column, reason), if any: a
     /// missing value; in a column read as numbers, a value that is not a
     /// finite number (within ±1e150); for a log, one not above zero.
-    pub(super) fn fault(&self, job: &Job, row: usize) -> Option<(String, String)> {
-        (0..self.readings.len()).find_map(|j| {
-            let cell = self.texts.cell(j, row);
-            let reason = match (self.readings[j], &cell) {
-                (_, Cell::Missing) => Some("missing covariate value".to_string()),
-                (Reading::Levels, _) => None,
-                (reading, Cell::Text(t)) => Some(match (reading, job.covariates[j].role) {
-                    (Reading::Logs, _) => format!("'{t}' is not a number (its log is taken)"),
-                    (_, CovariateRole::AsRead) => format!(
-                        "'{t}' is not a number (the column's first value is one; name it in --covariates-levels to read its values as levels)"
-                    ),
-                    _ => format!("'{t}' is not a number"),
-                }),
-                (reading, _) => {
-                    let value = self.numbers[j].as_ref().and_then(|n| n.number(row));
-                    match (reading, value) {
-                        (_, None) => Some(format!("{} is not a finite number", cell_text(&cell))),
-                        (_, Some(v)) if v.abs() > MAX_MAGNITUDE => Some(format!("{v:e} is beyond ±1e150")),
-                        (Reading::Logs, Some(v)) if v <= 0.0 => {
-                            Some(format!("{} is not above zero (its log is taken)", cell_text(&cell)))
-                        }
-                        _ => None,
+    pub(super) fn fault(&self, job: &Job, row: usize) -> Result<Option<(String, String)>> {
+        for j in 0..self.readings.len() {
+            let reason = match (&self.levels[j], &self.numbers[j]) {
+                (Some(levels), _) => levels.is_missing(0, row).then(|| "missing covariate value".to_string()),
+                (None, Some(numbers)) => match numbers.number(row) {
+                    Some(v) if v.abs() > MAX_MAGNITUDE => Some(format!("{v:e} is beyond ±1e150")),
+                    Some(v) if self.readings[j] == Reading::Logs && v <= 0.0 => {
+                        Some(format!("{} is not above zero (its log is taken)", plain_number(v)))
                     }
-                }
+                    Some(_) => None,
+                    None => Some(self.reason_not_a_number(job, j, row)?),
+                },
+                (None, None) => None,
             };
-            reason.map(|reason| (job.covariates[j].name.clone(), reason))
+            if let Some(reason) = reason {
+                return Ok(Some((job.covariates[j].name.clone(), reason)));
+            }
+        }
+        Ok(None)
+    }
+
+    /// Why the value of column j at `row`, which is not a finite number, is refused.
+    fn reason_not_a_number(&self, job: &Job, j: usize, row: usize) -> Result<String> {
+        Ok(match crate::io::cells::cell_at(&self.arrays[j], row)? {
+            Cell::Missing => "missing covariate value".to_string(),
+            Cell::Text(t) => match (self.readings[j], job.covariates[j].role) {
+                (Reading::Logs, _) => format!("'{t}' is not a number (its log is taken)"),
+                (_, CovariateRole::AsRead) => format!(
+                    "'{t}' is not a number (the column's first value is one; name it in --covariates-levels to read its values as levels)"
+                ),
+                _ => format!("'{t}' is not a number"),
+            },
+            Cell::Number(v) => format!("{v} is not a finite number"),
+            Cell::Integer(v) => format!("{v} is not a finite number"),
         })
     }
 
@@ -162,45 +179,38 @@ impl CovariateBatch {
     ) -> Option<()> {
         key.clear();
         for j in 0..self.readings.len() {
-            match self.readings[j] {
-                Reading::Levels => {
-                    let text = match self.texts.cell(j, row) {
-                        Cell::Missing => return None,
-                        Cell::Integer(v) => v.to_string(),
-                        _ => self.texts.text(j, row)?,
-                    };
+            match (&self.levels[j], &self.numbers[j]) {
+                (Some(levels), _) => {
                     let index = &mut state.levels[j];
-                    let code = match index.codes.get(&text) {
-                        Some(&code) => code,
-                        None if insert => {
-                            let code = index.texts.len() as u32;
-                            index.codes.insert(text.clone(), code);
-                            index.texts.push(text);
-                            code
+                    let code = levels.with_bytes(0, row, |bytes| -> Option<u32> {
+                        let text = String::from_utf8_lossy(bytes?);
+                        if let Some(&code) = index.codes.get(text.as_ref()) {
+                            return Some(code);
                         }
-                        None => return None,
-                    };
+                        if !insert {
+                            return None;
+                        }
+                        let code = index.texts.len() as u32;
+                        index.codes.insert(text.to_string(), code);
+                        index.texts.push(text.into_owned());
+                        Some(code)
+                    })?;
                     key.push(u64::from(code));
                 }
-                _ => {
-                    let value = self.numbers[j].as_ref()?.number(row)?;
+                (None, Some(numbers)) => {
                     // −0 and 0 are one value.
-                    key.push((value + 0.0).to_bits());
+                    key.push((numbers.number(row)? + 0.0).to_bits());
                 }
+                (None, None) => return None,
             }
         }
         Some(())
     }
 }
 
-/// A cell as its text in a message.
-fn cell_text(cell: &Cell) -> String {
-    match cell {
-        Cell::Missing => "missing".to_string(),
-        Cell::Integer(v) => v.to_string(),
-        Cell::Number(v) => v.to_string(),
-        Cell::Text(t) => format!("'{t}'"),
-    }
+/// A number as it is usually written (`0`, `-2.5`).
+fn plain_number(v: f64) -> String {
+    format!("{v}")
 }
 
 /// The hash of a key: its words through [`PairHasher`].

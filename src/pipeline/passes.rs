@@ -117,8 +117,10 @@ impl<'a> BatchView<'a> {
                 }
             }
         };
-        if let Some((column, reason)) = self.covariates.as_ref().and_then(|c| c.fault(job, row)) {
-            return Ok(Err(reject(&column, reason)));
+        if let Some(covariates) = &self.covariates {
+            if let Some((column, reason)) = covariates.fault(job, row)? {
+                return Ok(Err(reject(&column, reason)));
+            }
         }
         Ok(Ok(pair))
     }

@@ -130,6 +130,23 @@ impl SegmentColumns {
         }
     }
 
+    /// Whether column `column` is missing at `row`: null, or blank text.
+    pub fn is_missing(&self, column: usize, row: usize) -> bool {
+        match self.columns[column].value(row) {
+            None => true,
+            Some((values, at)) => values.with_bytes(at, |bytes| bytes.iter().all(u8::is_ascii_whitespace)),
+        }
+    }
+
+    /// `with` given the bytes of column `column` at `row` (an integer's
+    /// decimal digits), None for null.
+    pub fn with_bytes<T>(&self, column: usize, row: usize, with: impl FnOnce(Option<&[u8]>) -> T) -> T {
+        match self.columns[column].value(row) {
+            None => with(None),
+            Some((values, at)) => values.with_bytes(at, |bytes| with(Some(bytes))),
+        }
+    }
+
     /// The text of column `column` at `row` (None for null).
     pub fn text(&self, column: usize, row: usize) -> Option<String> {
         self.columns[column].value(row).and_then(|(values, at)| values.value_text(at))

@@ -79,7 +79,7 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         );
         compared += 1;
     }
-    assert_eq!(compared, 3, "the marketplace, returns and clinics outputs");
+    assert_eq!(compared, 4, "the marketplace, sellers, returns and clinics outputs");
 }
 
 /// The row of `group` in a CSV output.
@@ -136,6 +136,43 @@ fn the_marketplace_figures_in_the_prose() {
     printed(top("seller-00001"), 4, "0.0011");
     let largest = table.floats("prob_top").iter().copied().fold(0.0, f64::max);
     assert_eq!(largest, top("seller-19835"), "seller-19835 has the largest");
+}
+
+#[test]
+fn the_sellers_figures_in_the_prose() {
+    let dir = scratch();
+    let common = "fit --input demo-data/sellers.csv --model beta-binomial --group seller_id --successes positive_ratings --trials total_ratings";
+    run(
+        dir.path(),
+        &format!(
+            "{common} --covariates category --covariates-log tenure_months --output c.csv --summary c.json"
+        ),
+    );
+    run(dir.path(), &format!("{common} --output p.csv --summary p.json"));
+    let (with, without) = (Csv::read(&dir.path().join("c.csv")), Csv::read(&dir.path().join("p.csv")));
+    let s = summary(&dir.path().join("c.json"));
+    let coefficient = |name: &str| {
+        let all = s["prior"]["coefficients"].as_array().unwrap();
+        all.iter().find(|c| c["name"] == name).unwrap()["estimate"].as_f64().unwrap()
+    };
+    printed(2f64.powf(coefficient("log(tenure_months)")), 2, "1.39");
+    printed(coefficient("category=games").exp(), 2, "0.65");
+    printed(summary(&dir.path().join("p.json"))["prior"]["strength"].as_f64().unwrap(), 1, "16.8");
+    let seller = row(&with, "seller_id", "seller-00284");
+    assert_eq!(
+        (seller("tenure_months"), seller("positive_ratings"), seller("total_ratings")),
+        (1.0, 1.0, 1.0)
+    );
+    printed(seller("prior_mean"), 3, "0.758");
+    printed(seller("posterior_mean"), 3, "0.764");
+    printed(row(&without, "seller_id", "seller-00284")("posterior_mean"), 3, "0.880");
+    let seller = row(&with, "seller_id", "seller-04470");
+    assert_eq!(
+        (seller("tenure_months"), seller("positive_ratings"), seller("total_ratings")),
+        (453.0, 1.0, 1.0)
+    );
+    printed(seller("posterior_mean"), 3, "0.978");
+    printed(row(&without, "seller_id", "seller-04470")("posterior_mean"), 3, "0.880");
 }
 
 #[test]
