@@ -800,11 +800,46 @@ fn covariate_columns(table: &TableArgs, others: [&String; 3]) -> Result<Vec<Cova
     Ok(columns)
 }
 
+/// The covariates of a run scored with a saved covariate prior: those the
+/// prior was fitted with, each entering as it did; covariate options given
+/// beside it must name the same columns the same way.
+fn saved_covariates(prior: &PriorSource, given: Vec<CovariateColumn>) -> Result<Vec<CovariateColumn>> {
+    let PriorSource::Saved { path, summary } = prior else { return Ok(given) };
+    let Some(saved) = summary.fitted_prior.covariates() else { return Ok(given) };
+    let columns: Vec<CovariateColumn> = saved
+        .covariates
+        .iter()
+        .map(|c| CovariateColumn {
+            name: c.column.clone(),
+            role: match c.enters_as.as_str() {
+                "log" => CovariateRole::Log,
+                "levels" => CovariateRole::Levels,
+                _ => CovariateRole::AsRead,
+            },
+        })
+        .collect();
+    let same = given.is_empty()
+        || (given.len() == columns.len()
+            && given
+                .iter()
+                .zip(&columns)
+                .all(|(g, c)| g.name == c.name && (g.role == c.role || g.role == CovariateRole::AsRead)));
+    if !same {
+        let names: Vec<&str> = columns.iter().map(|c| c.name.as_str()).collect();
+        return Err(Error::Usage(format!(
+            "{}: the prior was fitted with the covariates {}, which score reads as it fitted them; give no covariate options, or these",
+            path.display(),
+            names.join(", ")
+        )));
+    }
+    Ok(columns)
+}
+
 /// What covariates do not yet combine with, refused with what to do instead.
 fn refuse_covariates_with(
     table: &TableArgs,
     covariates: &[CovariateColumn],
-    (aggregation, prior, pair_counts): (&Aggregation, &PriorSource, bool),
+    (aggregation, pair_counts): (&Aggregation, bool),
 ) -> Result<()> {
     if covariates.is_empty() {
         return Ok(());
@@ -815,8 +850,6 @@ fn refuse_covariates_with(
         Some("--pair-counts: a pair table holds no covariates")
     } else if *aggregation != Aggregation::Groups {
         Some("--outcome or --aggregate: give one row per group with its covariates")
-    } else if matches!(prior, PriorSource::Saved { .. }) {
-        Some("score --prior: refit with `ratepool fit` on the new groups")
     } else {
         None
     };
@@ -957,7 +990,8 @@ fn job_of(
     let (group, layout) = layout_of(table, pair_counts)?;
     let segments = segment_columns(table, [&group, &count, &size])?;
     let covariates = covariate_columns(table, [&group, &count, &size])?;
-    refuse_covariates_with(table, &covariates, (&aggregation, &prior, pair_counts.is_some()))?;
+    let covariates = saved_covariates(&prior, covariates)?;
+    refuse_covariates_with(table, &covariates, (&aggregation, pair_counts.is_some()))?;
     Ok(Job {
         input: table.input.clone(),
         model,

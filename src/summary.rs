@@ -531,7 +531,7 @@ impl FittedPrior {
         if let Some(covariates) = &self.covariates {
             let columns: Vec<&str> = covariates.covariates.iter().map(|c| c.column.as_str()).collect();
             return Err(format!(
-                "its centre follows the covariates {}; a covariate prior is not reused on new groups yet: fit them with --covariates",
+                "its centre follows the covariates {}, so it is not one prior for all groups",
                 columns.join(", ")
             ));
         }

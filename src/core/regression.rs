@@ -676,6 +676,23 @@ fn separation<F: Family>(problem: &Problem<'_>, theta: &[f64]) -> Option<Regress
 }
 
 impl RegressionFit {
+    /// A covariate prior read back from its figures (a saved summary): its
+    /// coefficients and common parameter u₂ are known, their covariance not
+    /// (NaN, so no corrected interval can be formed from it).
+    pub fn of_figures(coefficients: Vec<f64>, common: f64, boundary: RegressionBoundary) -> Self {
+        let n = coefficients.len() + 1;
+        RegressionFit {
+            coefficients,
+            common,
+            covariance: vec![f64::NAN; n * n],
+            log_likelihood: f64::NAN,
+            marginal_log_likelihood: f64::NAN,
+            gradient_norm: f64::NAN,
+            iterations: 0,
+            boundary,
+        }
+    }
+
     /// Row i's linear predictor.
     pub fn predictor(&self, design: &Design, i: usize) -> f64 {
         design.predictor(i, &self.coefficients)

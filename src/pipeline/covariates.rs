@@ -12,7 +12,7 @@
 //! is read as levels; `--covariates-levels` reads numbers as levels too.
 
 use super::segments::SegmentColumns;
-use super::{CovariateRole, Job, Likelihood};
+use super::{CovariateRole, Job, Likelihood, PriorSource};
 use crate::core::incomplete::{erfc, gamma_tails};
 use crate::core::model::{Family, Prior, PriorUncertainty};
 use crate::core::pairs::{PairHasher, WeightedPair};
@@ -59,6 +59,8 @@ struct LevelIndex {
 pub(super) struct CovariateState {
     readings: Vec<Option<Reading>>,
     levels: Vec<LevelIndex>,
+    /// Scoring with a saved prior: its levels are all there are.
+    frozen: bool,
 }
 
 impl CovariateState {
@@ -72,8 +74,27 @@ impl CovariateState {
                 CovariateRole::AsRead => None,
             })
             .collect();
-        let levels = job.covariates.iter().map(|_| LevelIndex::default()).collect();
-        CovariateState { readings, levels }
+        let mut state = CovariateState {
+            readings,
+            levels: job.covariates.iter().map(|_| LevelIndex::default()).collect(),
+            frozen: false,
+        };
+        if let PriorSource::Saved { summary, .. } = &job.prior {
+            if let Some(saved) = summary.fitted_prior.covariates() {
+                // Read as fitted: numbers as numbers, and levels coded in the saved (sorted) order.
+                state.frozen = true;
+                for (j, entered) in saved.covariates.iter().enumerate().take(state.readings.len()) {
+                    if entered.enters_as == "number" {
+                        state.readings[j] = Some(Reading::Numbers);
+                    }
+                    for (code, level) in entered.levels.iter().enumerate() {
+                        state.levels[j].codes.insert(level.clone(), code as u32);
+                        state.levels[j].texts.push(level.clone());
+                    }
+                }
+            }
+        }
+        state
     }
 }
 
@@ -84,6 +105,8 @@ pub(super) struct CovariateBatch {
     numbers: Vec<Option<NumericColumn>>,
     levels: Vec<Option<SegmentColumns>>,
     readings: Vec<Reading>,
+    /// Scoring with a saved prior: per level column, the levels it was fitted with.
+    known: Option<Vec<Vec<String>>>,
 }
 
 impl CovariateBatch {
@@ -124,7 +147,8 @@ impl CovariateBatch {
                 }
             }
         }
-        Ok(CovariateBatch { arrays: arrays.to_vec(), numbers, levels, readings })
+        let known = state.frozen.then(|| state.levels.iter().map(|l| l.texts.clone()).collect());
+        Ok(CovariateBatch { arrays: arrays.to_vec(), numbers, levels, readings, known })
     }
 
     /// The fault of a row's covariate values, (column, reason), if any: a
@@ -133,7 +157,8 @@ impl CovariateBatch {
     pub(super) fn fault(&self, job: &Job, row: usize) -> Result<Option<(String, String)>> {
         for j in 0..self.readings.len() {
             let reason = match (&self.levels[j], &self.numbers[j]) {
-                (Some(levels), _) => levels.is_missing(0, row).then(|| "missing covariate value".to_string()),
+                (Some(levels), _) if levels.is_missing(0, row) => Some("missing covariate value".to_string()),
+                (Some(levels), _) => self.unknown_level(j, levels, row),
                 (None, Some(numbers)) => match numbers.number(row) {
                     Some(v) if v.abs() > MAX_MAGNITUDE => Some(format!("{v:e} is beyond ±1e150")),
                     Some(v) if self.readings[j] == Reading::Logs && v <= 0.0 => {
@@ -149,6 +174,22 @@ impl CovariateBatch {
             }
         }
         Ok(None)
+    }
+
+    /// With a saved prior, the fault of a level it was not fitted with.
+    fn unknown_level(&self, j: usize, levels: &SegmentColumns, row: usize) -> Option<String> {
+        let known = &self.known.as_ref()?[j];
+        let text = levels
+            .with_bytes(0, row, |bytes| String::from_utf8_lossy(bytes.unwrap_or_default()).into_owned());
+        if known.iter().any(|k| *k == text) {
+            return None;
+        }
+        let shown: Vec<&str> = known.iter().take(8).map(String::as_str).collect();
+        let more = if known.len() > 8 { format!(" and {} more", known.len() - 8) } else { String::new() };
+        Some(format!(
+            "level '{text}' is not among those the prior was fitted with ({}{more}); fit again with these groups",
+            shown.join(", ")
+        ))
     }
 
     /// Why the value of column j at `row`, which is not a finite number, is refused.
@@ -554,6 +595,58 @@ pub(super) fn cell_priors<F: Family>(
         working_covariance: None,
     };
     Ok(CellPriors { priors, uncertainties, centres, values, fitted_prior, fit, warnings })
+}
+
+/// Each pair's prior under a saved covariate prior (`score --prior`):
+/// the saved coefficients and common parameter applied to the pairs'
+/// covariates, which must make the same design columns.
+pub(super) fn saved_cell_priors<F: Family>(
+    table: CovariateTable,
+    (saved, path): (&FittedPrior, &std::path::Path),
+    fit: FitReport,
+) -> Result<CellPriors> {
+    let CovariateTable { pairs, design, values, .. } = table;
+    let part = saved
+        .covariates()
+        .ok_or_else(|| Error::Input(format!("{}: the prior has no covariates", path.display())))?;
+    let names: Vec<&str> = part.coefficients.iter().map(|c| c.name.as_str()).collect();
+    if names != design.names().iter().map(String::as_str).collect::<Vec<_>>() {
+        return Err(Error::Input(format!(
+            "{}: the prior's coefficients ({}) do not match the covariates read ({})",
+            path.display(),
+            names.join(", "),
+            design.names().join(", ")
+        )));
+    }
+    let terms = &F::TERMS.covariate_terms;
+    let (common, boundary) = match saved.get(terms.common_key) {
+        Some(value) if value > 0.0 && value.is_finite() => {
+            (terms.common_sign * value.ln(), RegressionBoundary::None)
+        }
+        Some(_) => {
+            return Err(Error::Input(format!(
+                "{}: the prior's {} is out of range",
+                path.display(),
+                terms.common_key
+            )))
+        }
+        None => (0.0, RegressionBoundary::NoOverdispersion),
+    };
+    let coefficients: Vec<f64> = part.coefficients.iter().map(|c| c.estimate).collect();
+    if coefficients.iter().any(|b| !b.is_finite()) {
+        return Err(Error::Input(format!("{}: the prior's coefficients are not all finite", path.display())));
+    }
+    let fitted = RegressionFit::of_figures(coefficients, common, boundary);
+    let rows = pairs.len();
+    Ok(CellPriors {
+        priors: (0..rows).map(|i| fitted.prior_of::<F>(&design, i)).collect(),
+        uncertainties: (0..rows).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect(),
+        centres: (0..rows).map(|i| fitted.centre_of::<F>(&design, i)).collect(),
+        values,
+        fitted_prior: saved.clone(),
+        fit,
+        warnings: Vec::new(),
+    })
 }
 
 /// The coefficient table: estimate, standard error, z and the two-sided p.

@@ -9,7 +9,7 @@
 //! boundary (no overdispersion) is a result, not a fallback. A likelihood-
 //! ratio test says whether one prior per segment fits better than one for all.
 
-use super::covariates::{cell_priors, CellPriors, CovariateTable, PlainFit};
+use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, PlainFit};
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, TopRule, DRAW_BUDGET};
 use crate::core::diagnostics::calibration;
@@ -409,6 +409,35 @@ fn covariate_priors_in_use<F: Family>(
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
     let all_table = PairTable::from_weighted(table.pairs.iter().copied());
+    if let PriorSource::Saved { path, summary } = &job.prior {
+        if job.intervals == Intervals::Corrected {
+            return Err(Error::Input(format!(
+                "{}: a saved covariate prior holds no covariance of its coefficients; fit again for --intervals corrected",
+                path.display()
+            )));
+        }
+        let mut fit = summary.fit.clone();
+        fit.source = path.display().to_string();
+        let fitted = saved_cell_priors::<F>(table, (&summary.fitted_prior, path), fit.clone())?;
+        // The all-groups prior is not used with covariates (the pairs' own are); it stands for the saved one.
+        let all = Chosen {
+            prior: Prior::CompletePooling { mean: summary.fitted_prior.mean() },
+            fitted_prior: summary.fitted_prior.clone(),
+            fit,
+            warnings: Vec::new(),
+            log_likelihood: None,
+            uncertainty: None,
+        };
+        let priors = fitted.priors.clone();
+        return Ok(PriorsInUse {
+            all_table,
+            all,
+            choices: Vec::new(),
+            priors,
+            spreads: Vec::new(),
+            covariates: Some(fitted),
+        });
+    }
     let all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(table.pairs.len());
     clock.lap("fit", &format!("fit without covariates ({} distinct pairs)", all_table.pairs().len()));

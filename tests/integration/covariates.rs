@@ -391,13 +391,51 @@ fn covariates_refuse_what_they_do_not_combine_with() {
         "more than 200 indicators; fit a prior per level with --by code",
         "out.csv",
     );
-    // A covariate prior is not reused on new groups yet: refused by name.
+}
+
+#[test]
+fn a_saved_covariate_prior_scores_new_groups_as_it_fitted_them() {
+    let dir = tempfile::tempdir().unwrap();
     write(dir.path(), "in.csv", SELLERS);
-    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure"]));
+    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind"]));
     assert!(out.status.success(), "{}", stderr(&out));
-    let score =
-        ["score", "--model", "beta-binomial", "--prior", "s.json", "--input", "in.csv", "--group", "seller"];
-    let mut args = score.to_vec();
-    args.extend(["--successes", "good", "--trials", "rated", "--output", "scored.csv"]);
-    assert_refused(dir.path(), &args, "its centre follows the covariates tenure", "scored.csv");
+    let score = |input: &str, extra: &[&str]| {
+        let mut args = vec!["score", "--prior", "s.json", "--input", input, "--group", "seller"];
+        args.extend(["--successes", "good", "--trials", "rated", "--output", "scored.csv"]);
+        args.extend(extra);
+        ratepool(dir.path(), &args)
+    };
+    // The same groups scored with the saved prior: the same posteriors, bit for bit.
+    let out = score("in.csv", &[]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let (fitted, scored) =
+        (Csv::read(&dir.path().join("out.csv")), Csv::read(&dir.path().join("scored.csv")));
+    for column in ["prior_mean", "posterior_mean", "interval_lo", "interval_hi"] {
+        assert_eq!(fitted.column(column), scored.column(column), "{column}");
+    }
+    std::fs::remove_file(dir.path().join("scored.csv")).unwrap();
+    // A level the prior never saw is a row fault naming its row and column, not a silent reference level.
+    write(dir.path(), "new.csv", "seller,good,rated,tenure,kind\nq,3,4,1.0,x\nr,2,9,2.0,w\n");
+    let out = score("new.csv", &[]);
+    assert_eq!(out.status.code(), Some(2), "{}", stderr(&out));
+    assert!(
+        stderr(&out).contains(
+            "row 2, column 'kind': level 'w' is not among those the prior was fitted with (x, y, z)"
+        ),
+        "{}",
+        stderr(&out)
+    );
+    assert!(!dir.path().join("scored.csv").exists());
+    // Other covariates than the prior's, or corrected intervals (no covariance saved): refused.
+    let out = score("in.csv", &["--covariates", "tenure"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        stderr(&out).contains("the prior was fitted with the covariates tenure, kind"),
+        "{}",
+        stderr(&out)
+    );
+    let out = score("in.csv", &["--intervals", "corrected"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("holds no covariance of its coefficients"), "{}", stderr(&out));
+    assert!(!dir.path().join("scored.csv").exists());
 }
