@@ -181,7 +181,7 @@ impl CovariateBatch {
         let known = &self.known.as_ref()?[j];
         let text = levels
             .with_bytes(0, row, |bytes| String::from_utf8_lossy(bytes.unwrap_or_default()).into_owned());
-        if known.iter().any(|k| *k == text) {
+        if known.contains(&text) {
             return None;
         }
         let shown: Vec<&str> = known.iter().take(8).map(String::as_str).collect();

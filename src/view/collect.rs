@@ -43,6 +43,8 @@ pub struct GroupRow {
     pub upper: f64,
     /// Pool weight.
     pub pool_weight: f64,
+    /// Its prior centre (`prior_mean`), with covariates.
+    pub centre: Option<f64>,
     /// The posterior probability of the flagged event, with flags.
     pub event_probability: Option<f64>,
     /// Flagged under the run's false-discovery bound.
@@ -179,6 +181,11 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
     if let Some(event) = &event_column {
         wanted.extend([(event.as_str(), "event probability"), ("flag_fdr", "flag")]);
     }
+    // With covariates each group has its own prior centre; numbers[i] is wanted[i + 1].
+    let centre_at = summary.fitted_prior.covariates().map(|_| {
+        wanted.push(("prior_mean", "prior centre"));
+        wanted.len() - 2
+    });
     let first_segment = wanted.len();
     wanted.extend(summary.segment_columns.iter().map(|c| (c.as_str(), crate::io::input::SEGMENT_ROLE)));
     let input = Input::open(table, b',', &wanted, crate::pipeline::DEFAULT_BATCH_ROWS)?;
@@ -249,6 +256,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
                 lower,
                 upper,
                 pool_weight,
+                centre: centre_at.and_then(value),
                 event_probability,
                 flagged,
                 segment,
@@ -321,6 +329,7 @@ mod tests {
             lower: 0.0,
             upper: 0.0,
             pool_weight: 0.0,
+            centre: None,
             event_probability: None,
             flagged: false,
             segment: 0,

@@ -89,7 +89,18 @@ pub fn figures(
             collected.funnel_range,
         )?,
     });
-    figures.push(Figure {
+    if summary.fitted_prior.covariates().is_some() {
+        figures.push(Figure {
+            name: "centres".into(),
+            title: "Raw values against their prior centres".into(),
+            caption: format!(
+                "Raw value against each group's prior centre (`prior_mean`, from its covariates) for {}; marker size grows with the group's data. Groups on the diagonal are what their covariates predict; the spread about it, wide for small groups, is what the pooling works on.",
+                sampled(collected.sample.len(), collected.groups)
+            ),
+            svg: plots::raw_against_centre(&collected.sample, terms)?,
+        });
+    } else {
+        figures.push(Figure {
         name: "prior".into(),
         title: "The prior over the raw values".into(),
         caption: format!(
@@ -104,6 +115,7 @@ pub fn figures(
         ),
         svg: plots::prior_over_raw(&collected.well_measured, (prior, prior_mean), terms)?,
     });
+    }
     if let Some(checks) = &summary.checks {
         figures.push(Figure {
             name: "calibration".into(),
@@ -162,6 +174,27 @@ fn segment_name(summary: &Summary, i: usize) -> String {
 
 /// A prior in words.
 fn prior_text(prior: &FittedPrior, model: Model) -> String {
+    if let Some(covariates) = prior.covariates() {
+        let terms = model.terms();
+        let key = terms.covariate_terms.common_key;
+        let coefficients: Vec<String> = covariates
+            .coefficients
+            .iter()
+            .map(|c| format!("{} {} (standard error {})", c.name, num(c.estimate), num(c.se)))
+            .collect();
+        let common = prior
+            .get(key)
+            .map_or("infinite strength (no overdispersion beyond the covariates)".to_string(), |v| {
+                format!("{key} {}", num(v))
+            });
+        return format!(
+            "{} centred on a regression on the {} scale: {}; {common}; mean centre {}",
+            terms.prior_words.law,
+            covariates.link,
+            coefficients.join(", "),
+            num(prior.mean())
+        );
+    }
     let shape = prior.page_words(model.terms(), &num).unwrap_or_else(|| "complete pooling".into());
     let strength = prior.strength().map_or("infinite (no overdispersion)".to_string(), num);
     format!(

@@ -1,5 +1,6 @@
 //! The report's plots, each an SVG document drawn by plotters: shrinkage,
-//! funnel, the prior over the raw rates, calibration, pool weights.
+//! funnel, the prior over the raw rates (or, with covariates, the raw rates
+//! against each group's prior centre), calibration, pool weights.
 
 use super::collect::{GroupRow, POOL_BINS};
 use crate::core::model::{ModelTerms, RateLaw};
@@ -73,7 +74,26 @@ pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, terms: &ModelTerms) -> Re
         .iter()
         .filter_map(|g| g.raw.map(|raw| (raw, g.mean, terms.plots.funnel_x.x(g.size))))
         .collect();
-    let (low, high) = span(points.iter().flat_map(|p| [p.0, p.1]).chain([prior_mean]));
+    diagonal_scatter(&points, (terms.plots.raw_label, "posterior mean"), Some(prior_mean))
+}
+
+/// Raw rate against each group's prior centre (with covariates), marker
+/// size by the group's size: groups on the diagonal are what their
+/// covariates predict; the spread about it is what the prior's strength allows.
+pub fn raw_against_centre(sample: &[GroupRow], terms: &ModelTerms) -> Result<String> {
+    let points: Vec<(f64, f64, f64)> =
+        sample.iter().filter_map(|g| Some((g.centre?, g.raw?, terms.plots.funnel_x.x(g.size)))).collect();
+    diagonal_scatter(&points, ("prior centre (prior_mean)", terms.plots.raw_label), None)
+}
+
+/// Points (x, y, size) on square axes with the diagonal, and a horizontal
+/// line at `level` when given; marker size by the group's size.
+fn diagonal_scatter(
+    points: &[(f64, f64, f64)],
+    (x_desc, y_desc): (&str, &str),
+    level: Option<f64>,
+) -> Result<String> {
+    let (low, high) = span(points.iter().flat_map(|p| [p.0, p.1]).chain(level));
     let largest = points.iter().map(|p| p.2).fold(0.0, f64::max);
     svg(|root| {
         let mut chart = ChartBuilder::on(root)
@@ -85,15 +105,15 @@ pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, terms: &ModelTerms) -> Re
             .configure_mesh()
             .x_label_formatter(&tick)
             .y_label_formatter(&tick)
-            .x_desc(terms.plots.raw_label)
-            .y_desc("posterior mean")
+            .x_desc(x_desc)
+            .y_desc(y_desc)
             .light_line_style(WHITE)
             .draw()?;
         chart.draw_series(LineSeries::new([(low, low), (high, high)], LINE.stroke_width(1)))?;
-        chart.draw_series(LineSeries::new(
-            [(low, prior_mean), (high, prior_mean)],
-            LINE.mix(0.5).stroke_width(1),
-        ))?;
+        if let Some(level) = level {
+            chart
+                .draw_series(LineSeries::new([(low, level), (high, level)], LINE.mix(0.5).stroke_width(1)))?;
+        }
         chart.draw_series(
             points.iter().map(|&(x, y, n)| Circle::new((x, y), radius(n, largest), POINT.mix(0.35).filled())),
         )?;

@@ -439,3 +439,18 @@ fn a_saved_covariate_prior_scores_new_groups_as_it_fitted_them() {
     assert!(stderr(&out).contains("holds no covariance of its coefficients"), "{}", stderr(&out));
     assert!(!dir.path().join("scored.csv").exists());
 }
+
+#[test]
+fn the_report_of_a_covariate_prior_plots_raw_values_against_their_centres() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", SELLERS);
+    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind", "--report", "report.html"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = std::fs::read_to_string(dir.path().join("report.html")).unwrap();
+    assert!(page.contains("Raw values against their prior centres"), "the centres figure");
+    assert!(
+        page.contains("Beta centred on a regression on the logit scale: intercept"),
+        "the prior in words"
+    );
+    assert!(!page.contains("The prior over the raw values"), "one prior's density has no place here");
+}
