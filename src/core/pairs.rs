@@ -196,15 +196,19 @@ impl PairTable {
     /// Builds the table from already weighted pairs (for example the output
     /// of a SQL `GROUP BY`); pairs that repeat are merged.
     pub fn from_weighted(pairs: impl IntoIterator<Item = WeightedPair>) -> Self {
-        let mut merged: PairMap<WeightedPair> = PairMap::default();
-        for pair in pairs {
-            merged
-                .entry(key(pair.size, pair.count))
-                .and_modify(|existing| existing.weight += pair.weight)
-                .or_insert(pair);
+        // Sorted, then equal neighbours merged: the same table a merging map
+        // gives (weights are counts of groups, summed exactly), without the map.
+        let mut sorted: Vec<WeightedPair> = pairs.into_iter().collect();
+        sorted.sort_unstable_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
+        let mut pairs: Vec<WeightedPair> = Vec::with_capacity(sorted.len());
+        for pair in sorted {
+            match pairs.last_mut() {
+                Some(last) if key(last.size, last.count) == key(pair.size, pair.count) => {
+                    last.weight += pair.weight
+                }
+                _ => pairs.push(pair),
+            }
         }
-        let mut pairs: Vec<WeightedPair> = merged.into_values().collect();
-        pairs.sort_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
         PairTable { pairs }
     }
 

@@ -48,6 +48,14 @@ pub enum PairValues {
     OptionalIntegers(Vec<Option<i64>>),
     /// Text, absent for some pairs (segment values).
     Texts(Vec<Option<String>>),
+    /// Text from a few levels (covariate levels): each pair's level by its
+    /// code, so the texts are held once.
+    Levels {
+        /// Per pair, its level's place in `texts`.
+        codes: Vec<u32>,
+        /// The levels.
+        texts: Vec<String>,
+    },
 }
 
 impl PairValues {
@@ -61,7 +69,10 @@ impl PairValues {
             PairValues::OptionalFloats(v) => v[pair].is_none(),
             PairValues::OptionalIntegers(v) => v[pair].is_none(),
             PairValues::Texts(v) => v[pair].is_none(),
-            PairValues::Integers(_) | PairValues::Floats(_) | PairValues::Booleans(_) => false,
+            PairValues::Integers(_)
+            | PairValues::Floats(_)
+            | PairValues::Booleans(_)
+            | PairValues::Levels { .. } => false,
         }
     }
 
@@ -75,11 +86,11 @@ impl PairValues {
             PairValues::OptionalIntegers(v) => {
                 integer_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
             }
-            PairValues::Texts(v) => {
+            PairValues::Texts(_) | PairValues::Levels { .. } => {
                 let mut bytes = Vec::new();
                 let (mut low, mut high): (Option<&str>, Option<&str>) = (None, None);
                 for &p in pairs {
-                    let text = v[p as usize].as_deref();
+                    let text = self.text(p as usize);
                     if let Some(t) = text {
                         low = Some(low.map_or(t, |l| l.min(t)));
                         high = Some(high.map_or(t, |h| h.max(t)));
@@ -108,6 +119,17 @@ impl PairValues {
             PairValues::Booleans(v) => v.len(),
             PairValues::OptionalIntegers(v) => v.len(),
             PairValues::Texts(v) => v.len(),
+            PairValues::Levels { codes, .. } => codes.len(),
+        }
+    }
+
+    /// The text of a text-valued column at `pair` (None for null or for
+    /// any other column).
+    pub fn text(&self, pair: usize) -> Option<&str> {
+        match self {
+            PairValues::Texts(v) => v[pair].as_deref(),
+            PairValues::Levels { codes, texts } => Some(texts[codes[pair] as usize].as_str()),
+            _ => None,
         }
     }
 

@@ -120,6 +120,9 @@ impl PairValues {
             PairValues::Booleans(v) => ColumnValues::Booleans(v),
             PairValues::OptionalIntegers(v) => ColumnValues::Arrow(Arc::new(Int64Array::from(v))),
             PairValues::Texts(v) => ColumnValues::Arrow(Arc::new(StringArray::from(v))),
+            levels @ PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
+                (0..levels.len()).map(|pair| levels.text(pair)).collect::<StringArray>(),
+            )),
         }
     }
 }
@@ -284,8 +287,8 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
         PairValues::OptionalIntegers(v) => {
             ColumnValues::Arrow(Arc::new(pair_of_row.iter().map(|i| v[at(i)]).collect::<Int64Array>()))
         }
-        PairValues::Texts(v) => ColumnValues::Arrow(Arc::new(
-            pair_of_row.iter().map(|i| v[at(i)].as_deref()).collect::<StringArray>(),
+        PairValues::Texts(_) | PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
+            pair_of_row.iter().map(|i| values.text(at(i))).collect::<StringArray>(),
         )),
     }
 }
@@ -323,7 +326,7 @@ impl ScoredParquet {
                 PairValues::Integers(_) | PairValues::OptionalIntegers(_) => DataType::Int64,
                 PairValues::Booleans(_) => DataType::Boolean,
                 PairValues::Floats(_) | PairValues::OptionalFloats(_) => DataType::Float64,
-                PairValues::Texts(_) => DataType::Utf8,
+                PairValues::Texts(_) | PairValues::Levels { .. } => DataType::Utf8,
             };
             Field::new(name, dtype, values.nullable())
         }));

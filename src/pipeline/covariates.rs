@@ -462,10 +462,7 @@ pub(super) fn covariate_table(
                     enters_as: "levels".to_string(),
                     levels: sorted.iter().map(|(_, t)| t.to_string()).collect(),
                 });
-                values.push((
-                    name.clone(),
-                    PairValues::Texts(pair_codes.iter().map(|&c| Some(met[c as usize].clone())).collect()),
-                ));
+                values.push((name.clone(), PairValues::Levels { codes: pair_codes, texts: met.clone() }));
             }
         }
     }
@@ -508,7 +505,7 @@ fn describe_fault(design: &Design, fault: &DesignFault) -> String {
 pub(super) struct CellPriors {
     /// Per pair, the prior its groups are scored with.
     pub priors: Vec<Prior>,
-    /// Per pair, what is known of that prior's uncertainty.
+    /// Per pair, what is known of that prior's uncertainty (with corrected intervals only).
     pub uncertainties: Vec<PriorUncertainty>,
     /// Per pair, its centre (the prior mean its groups are pulled toward).
     pub centres: Vec<f64>,
@@ -533,11 +530,11 @@ pub(super) struct PlainFit<'a> {
 /// Fits the covariate prior to the table's pairs and gives each pair its prior.
 pub(super) fn cell_priors<F: Family>(
     job: &Job,
-    table: CovariateTable,
+    (table, pairs): (CovariateTable, &[WeightedPair]),
     plain: PlainFit<'_>,
     strength_unit: f64,
 ) -> Result<CellPriors> {
-    let CovariateTable { pairs, design, entered, values } = table;
+    let CovariateTable { design, entered, values, .. } = table;
     let groups: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
     design.check(&groups).map_err(|fault| Error::Input(describe_fault(&design, &fault)))?;
     let start = match *plain.prior {
@@ -547,11 +544,15 @@ pub(super) fn cell_priors<F: Family>(
         }
         Prior::CompletePooling { mean } => F::working(mean, 1e6 * strength_unit),
     };
-    let fitted = fit_regression::<F>(&design, &pairs, job.likelihood, (start[0], start[1]), strength_unit)
+    let fitted = fit_regression::<F>(&design, pairs, job.likelihood, (start[0], start[1]), strength_unit)
         .map_err(|failure| Error::Fit(describe_failure(&design, failure)))?;
     let rows = pairs.len();
     let priors: Vec<Prior> = (0..rows).map(|i| fitted.prior_of::<F>(&design, i)).collect();
-    let uncertainties = (0..rows).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect();
+    // Only corrected intervals use them (40 bytes a pair).
+    let uncertainties = match job.intervals {
+        super::Intervals::Corrected => (0..rows).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect(),
+        super::Intervals::PlugIn => Vec::new(),
+    };
     let centres: Vec<f64> = (0..rows).map(|i| fitted.centre_of::<F>(&design, i)).collect();
     let total: f64 = groups.iter().sum();
     let mean_centre = centres.iter().zip(&groups).map(|(c, g)| c * g).sum::<f64>() / total;
@@ -601,11 +602,11 @@ pub(super) fn cell_priors<F: Family>(
 /// the saved coefficients and common parameter applied to the pairs'
 /// covariates, which must make the same design columns.
 pub(super) fn saved_cell_priors<F: Family>(
-    table: CovariateTable,
+    (table, pairs): (CovariateTable, &[WeightedPair]),
     (saved, path): (&FittedPrior, &std::path::Path),
     fit: FitReport,
 ) -> Result<CellPriors> {
-    let CovariateTable { pairs, design, values, .. } = table;
+    let CovariateTable { design, values, .. } = table;
     let part = saved
         .covariates()
         .ok_or_else(|| Error::Input(format!("{}: the prior has no covariates", path.display())))?;
@@ -640,7 +641,8 @@ pub(super) fn saved_cell_priors<F: Family>(
     let rows = pairs.len();
     Ok(CellPriors {
         priors: (0..rows).map(|i| fitted.prior_of::<F>(&design, i)).collect(),
-        uncertainties: (0..rows).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect(),
+        // A saved covariate prior has no covariance: corrected intervals are refused before this.
+        uncertainties: Vec::new(),
         centres: (0..rows).map(|i| fitted.centre_of::<F>(&design, i)).collect(),
         values,
         fitted_prior: saved.clone(),

@@ -405,10 +405,10 @@ fn priors_in_use<F: Family>(
 /// its prior; the spread of each for corrected intervals is formed when used.
 fn covariate_priors_in_use<F: Family>(
     job: &Job,
-    table: CovariateTable,
+    (table, pairs): (CovariateTable, &[WeightedPair]),
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
-    let all_table = PairTable::from_weighted(table.pairs.iter().copied());
+    let all_table = PairTable::from_weighted(pairs.iter().copied());
     if let PriorSource::Saved { path, summary } = &job.prior {
         if job.intervals == Intervals::Corrected {
             return Err(Error::Input(format!(
@@ -418,7 +418,7 @@ fn covariate_priors_in_use<F: Family>(
         }
         let mut fit = summary.fit.clone();
         fit.source = path.display().to_string();
-        let fitted = saved_cell_priors::<F>(table, (&summary.fitted_prior, path), fit.clone())?;
+        let fitted = saved_cell_priors::<F>((table, pairs), (&summary.fitted_prior, path), fit.clone())?;
         // The all-groups prior is not used with covariates (the pairs' own are); it stands for the saved one.
         let all = Chosen {
             prior: Prior::CompletePooling { mean: summary.fitted_prior.mean() },
@@ -439,10 +439,10 @@ fn covariate_priors_in_use<F: Family>(
         });
     }
     let all = all_groups_prior::<F>(job, &all_table)?;
-    clock.pairs(table.pairs.len());
+    clock.pairs(pairs.len());
     clock.lap("fit", &format!("fit without covariates ({} distinct pairs)", all_table.pairs().len()));
     let plain = PlainFit { prior: &all.prior, log_likelihood: all.log_likelihood, fit: &all.fit };
-    let fitted = cell_priors::<F>(job, table, plain, F::strength_unit(&all_table))?;
+    let fitted = cell_priors::<F>(job, (table, pairs), plain, F::strength_unit(&all_table))?;
     clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()));
     let priors = fitted.priors.clone();
     Ok(PriorsInUse {
@@ -461,10 +461,11 @@ fn score_covariates_with<F: Family>(
     table: CovariateTable,
     clock: &mut PhaseClock<'_>,
 ) -> Result<Scored> {
-    let pairs = table.pairs.clone();
+    let mut table = table;
+    let pairs = std::mem::take(&mut table.pairs);
     refuse_top_of_everyone(job, &pairs)?;
     let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
-    let priors = covariate_priors_in_use::<F>(job, table, clock)?;
+    let priors = covariate_priors_in_use::<F>(job, (table, &places.pairs), clock)?;
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
     clock.lap("posteriors", "posteriors");
