@@ -839,7 +839,7 @@ fn saved_covariates(prior: &PriorSource, given: Vec<CovariateColumn>) -> Result<
 fn refuse_covariates_with(
     table: &TableArgs,
     covariates: &[CovariateColumn],
-    (aggregation, pair_counts): (&Aggregation, bool),
+    pair_counts: bool,
 ) -> Result<()> {
     if covariates.is_empty() {
         return Ok(());
@@ -848,8 +848,6 @@ fn refuse_covariates_with(
         Some("--by: segments each fit their own prior, covariates one prior for all; name the segment column in --covariates-levels to give each segment its own centre")
     } else if pair_counts {
         Some("--pair-counts: a pair table holds no covariates")
-    } else if *aggregation != Aggregation::Groups {
-        Some("--outcome or --aggregate: give one row per group with its covariates")
     } else {
         None
     };
@@ -991,7 +989,7 @@ fn job_of(
     let segments = segment_columns(table, [&group, &count, &size])?;
     let covariates = covariate_columns(table, [&group, &count, &size])?;
     let covariates = saved_covariates(&prior, covariates)?;
-    refuse_covariates_with(table, &covariates, (&aggregation, pair_counts.is_some()))?;
+    refuse_covariates_with(table, &covariates, pair_counts.is_some())?;
     Ok(Job {
         input: table.input.clone(),
         model,

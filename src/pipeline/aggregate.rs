@@ -1,17 +1,19 @@
 //! Inputs whose rows are not groups: one row per trial (`--outcome COL`, a
 //! 0/1 or true/false outcome) or several rows per group to be summed
 //! (`--aggregate`, for example one row per store per day). One pass reads
-//! the rows and sums each group's count and size (per segment with `--by`),
+//! the rows and sums each group's count and size (per segment with `--by`;
+//! with covariates, held from the group's first row and checked on the rest),
 //! in memory that grows with the groups, not the rows; the groups are then
 //! fitted and scored as a table of one row per group would be, and written
 //! in the order each group first appears, so the output is the same bytes
 //! as that of the summed table.
 
-use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
+use super::covariates::{CovariateBatch, CovariatePairs, CovariateState};
+use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
 use super::passes::{row_error, BatchView, RowFault};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
-use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex};
+use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex};
 use super::validate::{outcome, Rejection, MAX_EXACT_COUNT, MISSING_GROUP};
 use super::{Aggregation, InvalidRows, Job, PhaseClock};
 use crate::core::pairs::PairHasher;
@@ -43,6 +45,11 @@ struct GroupTotals {
     counts: Vec<f64>,
     sizes: Vec<f64>,
     segments: Vec<u32>,
+    /// With covariates: each group's covariate key (as its first row had
+    /// it), `covariate_width` words a group, and that row.
+    covariate_keys: Vec<u64>,
+    covariate_width: usize,
+    first_rows: Vec<usize>,
     /// Whether every id came from an integer column (the output keeps integers).
     integer_ids: bool,
     scratch: Vec<u8>,
@@ -87,6 +94,25 @@ impl GroupTotals {
 
     fn len(&self) -> usize {
         self.counts.len()
+    }
+
+    /// The covariate key of `group`.
+    fn covariate_key(&self, group: usize) -> &[u64] {
+        let width = self.covariate_width;
+        &self.covariate_keys[group * width..(group + 1) * width]
+    }
+
+    /// Keeps `key` as the covariates of `group` when it is new (its first
+    /// row `row`), or checks it against them: the first covariate that
+    /// differs, with the row that set it.
+    fn hold_covariates(&mut self, group: usize, key: &[u64], row: usize) -> Option<(usize, usize)> {
+        if group * self.covariate_width == self.covariate_keys.len() {
+            self.covariate_keys.extend_from_slice(key);
+            self.first_rows.push(row);
+            return None;
+        }
+        let held = self.covariate_key(group);
+        held.iter().zip(key).position(|(a, b)| a != b).map(|j| (j, self.first_rows[group]))
     }
 
     /// The ids of `groups` as an output column.
@@ -157,18 +183,46 @@ impl Source for SummedRows<'_> {
         let names = &job.columns;
         let SummedRows { input, first_segment, totals, rejects, .. } = self;
         let mut segment_index = SegmentIndex::default();
+        let mut covariates = (!job.covariates.is_empty()).then(|| CovariateState::new(job));
+        totals.covariate_width = job.covariates.len();
+        let mut key = Vec::new();
         let (mut rows, mut rejected, mut fault): (usize, usize, Option<RowFault>) = (0, 0, None);
         input.for_each_batch(|batch| {
             let group = GroupColumn::of(&batch.columns[0])?;
             totals.integer_ids &= matches!(group, GroupColumn::Integers(_));
-            let segments = SegmentColumns::of(&batch.columns[*first_segment..])?;
+            let cells = &batch.columns[*first_segment..];
+            let (segments, covariate_columns) = match covariates.as_mut() {
+                Some(state) => (SegmentColumns::of(&[])?, Some(CovariateBatch::of(cells, state)?)),
+                None => (SegmentColumns::of(cells)?, None),
+            };
             let reader = RowReader::of(job, &batch)?;
             for row in 0..batch.rows() {
-                let checked = if group.is_missing(row) {
+                let mut checked = if group.is_missing(row) {
                     Err(Rejection { row, column: names.group.clone(), reason: MISSING_GROUP.to_string() })
                 } else {
                     reader.check(job, &batch, row)?
                 };
+                if let (Ok(_), Some(columns), Some(state)) = (&checked, &covariate_columns, covariates.as_mut()) {
+                    checked = match columns.fault(job, row)? {
+                        Some((column, reason)) => Err(Rejection { row, column, reason }),
+                        None => {
+                            columns.key_into(row, state, true, &mut key).expect("a valid row has a key");
+                            let index = group.with_bytes(row, |id| totals.group_of(0, id));
+                            match totals.hold_covariates(index, &key, batch.first_row + row) {
+                                Some((j, first)) => Err(Rejection {
+                                    row,
+                                    column: job.covariates[j].name.clone(),
+                                    reason: format!(
+                                        "differs from the value of group '{}' on its first row ({}); a group's covariates must be the same on all its rows",
+                                        group.text(row),
+                                        input.place(first).row_in_file + 1
+                                    ),
+                                }),
+                                None => checked,
+                            }
+                        }
+                    };
+                }
                 let (size, count) = match checked {
                     Ok(pair) => pair,
                     Err(rejection) => {
@@ -213,6 +267,21 @@ impl Source for SummedRows<'_> {
         if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
             return Err(fault.error);
         }
+        if let Some(state) = covariates {
+            // Every group was made by a row whose covariates it then held.
+            let mut counted = CovariatePairs::new(job.covariates.len());
+            for g in 0..totals.len() {
+                counted.add(totals.covariate_key(g), totals.sizes[g], totals.counts[g], 1.0);
+            }
+            let covariates = Some(CovariateCount { pairs: counted, state });
+            return Ok(Counted {
+                pairs: SegmentCounters::new(),
+                segments: segment_index,
+                rows,
+                rejected,
+                covariates,
+            });
+        }
         let mut pairs = SegmentCounters::new();
         for g in 0..totals.len() {
             pairs.of(totals.segments[g]).add(totals.sizes[g], totals.counts[g], 1.0);
@@ -228,7 +297,7 @@ impl Source for SummedRows<'_> {
         clock: &mut PhaseClock<'_>,
     ) -> Result<(ShiftGroups, StagedOutputs)> {
         let (shift_groups, mut staged) =
-            write_groups(job, (self.output, self.batch_rows), scored, &self.totals, &placement.pairs)?;
+            write_groups(job, (self.output, self.batch_rows), scored, &self.totals, placement)?;
         clock.lap("score-and-write", "score and write");
         if let InvalidRows::Skip { rejects: path } = &job.invalid {
             let mut sink = TableSink::create(path)?;
@@ -303,7 +372,7 @@ fn write_groups(
     (output, batch_rows): (&Path, usize),
     scored: &Scored,
     totals: &GroupTotals,
-    lookup: &PairLookup,
+    mut placement: Placement,
 ) -> Result<(ShiftGroups, StagedOutputs)> {
     let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
@@ -314,9 +383,14 @@ fn write_groups(
         let end = (start + batch_rows.max(1)).min(totals.len());
         let mut pair_of_row = Vec::with_capacity(end - start);
         for g in start..end {
-            let (pair, place) = lookup
-                .get(totals.segments[g], totals.sizes[g], totals.counts[g])
-                .expect("every group's pair was counted");
+            let (size, count) = (totals.sizes[g], totals.counts[g]);
+            let placed = match &mut placement.covariates {
+                Some(counted) => {
+                    counted.pairs.find(totals.covariate_key(g), size, count).map(|pair| (pair, 0))
+                }
+                None => placement.pairs.get(totals.segments[g], size, count),
+            };
+            let (pair, place) = placed.expect("every group's pair was counted");
             shifts.observe(pair, place, || group_text(g));
             pair_of_row.push(pair);
         }

@@ -454,3 +454,59 @@ fn the_report_of_a_covariate_prior_plots_raw_values_against_their_centres() {
     );
     assert!(!page.contains("The prior over the raw values"), "one prior's density has no place here");
 }
+
+#[test]
+fn rows_that_are_parts_or_trials_of_a_group_carry_its_covariates() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", SELLERS);
+    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    // The same sellers as parts (two rows each, the covariates repeated) and as trials (one row per rating).
+    let (mut parts, mut trials) =
+        (vec!["seller,good,rated,tenure,kind".to_string()], vec!["seller,positive,tenure,kind".to_string()]);
+    for line in SELLERS.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        let (good, rated): (u32, u32) = (f[1].parse().unwrap(), f[2].parse().unwrap());
+        parts.push(format!("{},{},{},{},{}", f[0], good / 2, rated / 2, f[3], f[4]));
+        parts.push(format!("{},{},{},{},{}", f[0], good - good / 2, rated - rated / 2, f[3], f[4]));
+        for k in 0..rated {
+            trials.push(format!("{},{},{},{}", f[0], u32::from(k < good), f[3], f[4]));
+        }
+    }
+    write(dir.path(), "parts.csv", &parts.join("\n"));
+    write(dir.path(), "trials.csv", &trials.join("\n"));
+    let args_for = |input: &'static str, rows: &[&'static str], output: &'static str| {
+        let mut args =
+            vec!["fit", "--model", "beta-binomial", "--group", "seller", "--covariates", "tenure,kind"];
+        args.extend(["--input", input, "--successes", "good", "--trials", "rated", "--output", output]);
+        args.extend(rows);
+        args
+    };
+    for (input, rows, output) in [
+        ("parts.csv", &["--aggregate"][..], "parts-out.csv"),
+        ("trials.csv", &["--outcome", "positive"][..], "trials-out.csv"),
+    ] {
+        let out = ratepool(dir.path(), &args_for(input, rows, output));
+        assert!(out.status.success(), "{}", stderr(&out));
+    }
+    let whole = Csv::read(&dir.path().join("out.csv"));
+    for name in ["parts-out.csv", "trials-out.csv"] {
+        let summed = Csv::read(&dir.path().join(name));
+        for column in
+            ["seller", "good", "rated", "prior_mean", "posterior_mean", "interval_lo", "interval_hi"]
+        {
+            assert_eq!(summed.column(column), whole.column(column), "{name}: {column}");
+        }
+    }
+    // A group whose rows disagree on a covariate: the row that differs is named.
+    let mut disagreeing = parts.clone();
+    disagreeing[4] = disagreeing[4].replace(",0.5,y", ",0.6,y");
+    write(dir.path(), "parts.csv", &disagreeing.join("\n"));
+    let args = args_for("parts.csv", &["--aggregate"], "bad.csv");
+    assert_refused(
+        dir.path(),
+        &args,
+        "row 4, column 'tenure': differs from the value of group 'b' on its first row (3)",
+        "bad.csv",
+    );
+}
