@@ -209,6 +209,9 @@ macro_rules! fit_examples {
     --group district_id --events observed_cases --exposure expected_cases \\
     --above 1 --flag-fdr 0.1 --output districts.parquet \\
     --summary districts.json --report districts.html
+  ratepool fit --input demo-data/district_profiles.csv --model gamma-poisson \\
+    --group district_id --events observed_cases --exposure expected_cases \\
+    --covariates deprivation,outdoor_share --output profiles.parquet
   ratepool fit --input demo-data/clinic_waits.csv --model normal-normal \\
     --group clinic_id --estimate mean_wait_minutes --std-error wait_se \\
     --variance-method reml --output clinics.csv"

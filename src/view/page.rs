@@ -65,8 +65,13 @@ pub fn figures(
         name: "shrinkage".into(),
         title: "Shrinkage".into(),
         caption: format!(
-            "Raw value against posterior mean for {}; marker size grows with the group's data. Groups on the diagonal kept their own value; groups pulled to the horizontal line (the prior mean, {}) took the pool's. Small groups move, large ones stay.",
+            "Raw value against posterior mean for {}; marker size grows with the group's data. Groups on the diagonal kept their own value; groups pulled to the horizontal line ({}, {}) took the pool's. Small groups move, large ones stay.",
             sampled(collected.sample.len(), collected.groups),
+            if summary.fitted_prior.covariates().is_some() {
+                "the groups' mean prior centre; each group is pulled toward its own, `prior_mean`"
+            } else {
+                "the prior mean"
+            },
             num(prior_mean)
         ),
         svg: plots::shrinkage(&collected.sample, prior_mean, terms)?,

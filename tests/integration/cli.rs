@@ -447,9 +447,16 @@ fn every_worked_example_in_the_help_runs_on_the_demo_data() {
             ran += 1;
         }
     }
-    assert_eq!(ran, 6);
-    for written in ["sellers.parquet", "districts.html", "clinics.csv", "scored.parquet", "plots/funnel.svg"]
-    {
+    assert_eq!(ran, 7);
+    let written = [
+        "sellers.parquet",
+        "districts.html",
+        "profiles.parquet",
+        "clinics.csv",
+        "scored.parquet",
+        "plots/funnel.svg",
+    ];
+    for written in written {
         assert!(dir.path().join(written).exists(), "{written}");
     }
 }
