@@ -405,6 +405,16 @@ pub struct TableArgs {
     /// CSV field separator, or tab
     #[arg(long_help = "Field separator of CSV input: one character such as `;`, or `tab`. CSV output is always comma-separated.", long, value_name = "CHAR", default_value = ",", value_parser = parse_delimiter, help_heading = "Input")]
     pub delimiter: u8,
+    /// Memory to stay within, in MB (1024)
+    #[arg(
+        long_help = "Memory, in MB, a run aims to stay within (default 1024). The group ids' hashes, 8 bytes a row for finding repeated ids, hold at most half of it; beyond that they are sorted and written to temporary files (in TMPDIR) and merged at the end, so a billion rows need 8 GB of disk, not of memory. The output is the same for any value.",
+        long,
+        value_name = "N",
+        hide_default_value = true,
+        default_value_t = crate::pipeline::DEFAULT_MEMORY_BUDGET_MB,
+        help_heading = "Input"
+    )]
+    pub memory_budget: usize,
     /// Rows per batch read
     #[arg(long_help = "Rows per batch read (the output is the same for any value).", long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_BATCH_ROWS, help_heading = "Input")]
     pub batch_rows: usize,
@@ -1006,6 +1016,7 @@ fn job_of(
         segments,
         min_groups: table.min_groups.unwrap_or(crate::pipeline::DEFAULT_MIN_GROUPS),
         covariates,
+        memory_budget: table.memory_budget.max(1).saturating_mul(1 << 20),
         aggregation,
         top: top_rule(table)?,
         seed: table.seed,

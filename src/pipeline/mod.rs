@@ -271,12 +271,25 @@ pub struct Job {
     /// Covariate columns: each group's prior centre follows them (empty:
     /// one centre for all).
     pub covariates: Vec<CovariateColumn>,
+    /// Bytes of memory a run aims to stay within (`--memory-budget`): the
+    /// group ids' hashes hold at most half of it, and spill to disk beyond.
+    pub memory_budget: usize,
     /// Where to write one row per distinct pair with every per-pair column.
     pub pair_output: Option<PathBuf>,
     /// Invalid-row policy.
     pub invalid: InvalidRows,
     /// Prior source.
     pub prior: PriorSource,
+}
+
+/// The default of `--memory-budget`: 1 GiB.
+pub const DEFAULT_MEMORY_BUDGET_MB: usize = 1024;
+
+impl Job {
+    /// Bytes the group ids' hashes may hold in memory before they spill to disk.
+    pub fn id_memory(&self) -> usize {
+        self.memory_budget / 2
+    }
 }
 
 /// Reads a summary file written by an earlier run, to reuse its prior.

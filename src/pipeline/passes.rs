@@ -239,13 +239,13 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<P
         rows: 0,
         rejected: 0,
         first_fault: None,
-        ids: IdHashes::with_capacity(total.unwrap_or(0)),
+        ids: IdHashes::new(job.id_memory(), total.unwrap_or(0)),
     };
     input.for_each_batch(|batch| {
         let view = BatchView::of(&batch, job.model.terms(), pass.covariates.as_mut().map(|c| &mut c.state))?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
-                view.group.with_bytes(row, |id| pass.ids.push(id));
+                view.group.with_bytes(row, |id| pass.ids.push(id)).map_err(spill_failed)?;
             }
             match view.check(job, row)? {
                 Ok((size, count)) => match (&mut pass.covariates, &view.covariates) {
@@ -279,7 +279,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<P
 /// when some do). A repeating row is rejected: its pair, if it was counted,
 /// is taken back out of the counts.
 fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats> {
-    let candidates = std::mem::take(&mut pass.ids).repeated();
+    let candidates = std::mem::take(&mut pass.ids).repeated().map_err(spill_failed)?;
     if candidates.is_empty() {
         return Ok(Repeats::default());
     }
@@ -314,6 +314,11 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
         Ok(())
     })?;
     Ok(finder.finish())
+}
+
+/// A failure to write or read the id hashes spilled to temporary files.
+fn spill_failed(e: std::io::Error) -> Error {
+    Error::io("cannot write or read the group ids' hashes in the temporary folder (TMPDIR)", e)
 }
 
 /// The reason given to a row whose id repeats an earlier row's.
@@ -501,6 +506,7 @@ mod tests {
             segments: Vec::new(),
             min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
             covariates: Vec::new(),
+            memory_budget: 1 << 30,
             aggregation: Default::default(),
             top: None,
             seed: crate::pipeline::DEFAULT_SEED,

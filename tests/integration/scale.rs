@@ -438,3 +438,36 @@ fn the_pair_output_joins_back_to_the_row_output_and_needs_no_rows() {
         assert_eq!(&row[3..], &pair[3..], "row {row:?}");
     }
 }
+
+/// Past the memory budget the ids' hashes spill to disk in sorted runs and
+/// are merged: the same repeats are found, named with both rows, and the
+/// same bytes written as when every hash is held.
+#[test]
+fn repeated_ids_are_found_when_the_hashes_spill_to_disk() {
+    // 300,000 groups with --memory-budget 1 (MB): at most 65,536 hashes held, so 4 runs on disk.
+    let (mut ids, ks, ns) = groups(300_000, false);
+    ids[299_990] = ids[3].clone();
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("in.parquet"), &(ids, ks, ns), 0..300_000);
+    let budget = |mb: &'static str, output: &'static str, summary: &'static str| -> Vec<&'static str> {
+        fit_args("in.parquet", output, summary).into_iter().chain(["--memory-budget", mb]).collect()
+    };
+    let out = ratepool(dir.path(), &budget("1", "o.csv", "s.json"));
+    let message = stderr(&out);
+    assert_eq!(out.status.code(), Some(2), "{message}");
+    assert!(
+        message.contains("row 299991, column 'id': duplicate group id 'g00003' (first at row 4)"),
+        "{message}"
+    );
+    assert!(!dir.path().join("o.csv").exists());
+    let skip = ["--on-invalid", "skip", "--rejects", "r.csv"];
+    let small: Vec<&str> = budget("1", "small.parquet", "small.json").into_iter().chain(skip).collect();
+    let large: Vec<&str> = budget("4096", "large.parquet", "large.json").into_iter().chain(skip).collect();
+    run_ok(dir.path(), &small);
+    run_ok(dir.path(), &large);
+    assert_eq!(
+        std::fs::read(dir.path().join("small.parquet")).unwrap(),
+        std::fs::read(dir.path().join("large.parquet")).unwrap()
+    );
+    assert_eq!(summary(&dir.path().join("small.json")), summary(&dir.path().join("large.json")));
+}
