@@ -6,7 +6,7 @@ The Parquet writer of the pair-valued columns is the project's own
 (src/io/pair_chunks.rs: per-column dictionaries, one shared index stream,
 format v2 pages); this script is the check that other readers agree. It
 runs ratepool on the demo data (the marketplace with flags and ranks, the
-returns by store kind from trial rows) and on an invented table with rows
+sellers with covariates, the returns by store kind from trial rows) and on an invented table with rows
 of zero trials (nulls in raw_proportion), segments with a null one, more than one
 row group and many pages.
 
@@ -77,7 +77,8 @@ def check(parquet_path, csv_path, label):
     model = footer.get(b"ratepool.model", b"").decode()
     assert model in ("beta-binomial", "gamma-poisson", "normal-normal"), f"{label}: no model in the footer"
     prior = json.loads(footer[b"ratepool.prior"])
-    assert "mean" in prior and "mean_se" in prior, f"{label}: the footer's prior {prior}"
+    # A covariate prior has coefficients in place of one mean's standard error.
+    assert "mean" in prior and ("mean_se" in prior or "coefficients" in prior), f"{label}: the footer's prior {prior}"
     for key in (b"ratepool.version", b"ratepool.level", b"ratepool.intervals"):
         assert key in footer, f"{label}: no {key} in the footer"
     check_schema(parquet_path, model, names, label)
@@ -90,7 +91,7 @@ def check(parquet_path, csv_path, label):
 
 
 RAW_COLUMNS = {"beta-binomial": "raw_proportion", "gamma-poisson": "raw_rate", "normal-normal": "raw_estimate"}
-FLOATS = set(RAW_COLUMNS.values()) | {"posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
+FLOATS = set(RAW_COLUMNS.values()) | {"prior_mean", "posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
           "prob_above", "prob_below", "prob_top", "flag_fdr"}
 INTEGERS = {"rank_mean", "rank_conservative"}
 BOOLEANS = {"flagged", "prior_fallback"}
@@ -131,6 +132,14 @@ def main():
         for ext in ("parquet", "csv"):
             run("demo-data/marketplace.csv", os.path.join(tmp, f"demo.{ext}"), demo)
         check(os.path.join(tmp, "demo.parquet"), os.path.join(tmp, "demo.csv"), "demo marketplace")
+
+        # Covariates: the level column written from codes, the numbers, and prior_mean.
+        sellers = ["--model", "beta-binomial", "--group", "seller_id", "--successes", "positive_ratings",
+                   "--trials", "total_ratings", "--covariates", "category", "--covariates-log", "tenure_months",
+                   "--ranks", "--above", "0.9", "--flag-fdr", "0.1"]
+        for ext in ("parquet", "csv"):
+            run("demo-data/sellers.csv", os.path.join(tmp, f"sellers.{ext}"), sellers)
+        check(os.path.join(tmp, "sellers.parquet"), os.path.join(tmp, "sellers.csv"), "demo sellers with covariates")
 
         rng = random.Random(20261204)
         invented = os.path.join(tmp, "invented-input.csv")
