@@ -510,3 +510,46 @@ fn rows_that_are_parts_or_trials_of_a_group_carry_its_covariates() {
         "bad.csv",
     );
 }
+
+#[test]
+fn the_pair_output_joins_back_on_the_covariates_and_counts() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", SELLERS);
+    let out =
+        ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind", "--pair-output", "pairs.csv"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let (groups, pairs) = (Csv::read(&dir.path().join("out.csv")), Csv::read(&dir.path().join("pairs.csv")));
+    assert_eq!(&pairs.header[..5], ["tenure", "kind", "good", "rated", "group_count"]);
+    let key = |table: &Csv, i: usize| -> Vec<String> {
+        ["tenure", "kind", "good", "rated"].iter().map(|c| table.column(c)[i].clone()).collect()
+    };
+    for i in 0..groups.rows.len() {
+        let at = (0..pairs.rows.len()).find(|&j| key(&pairs, j) == key(&groups, i)).expect("a pair row");
+        for column in ["prior_mean", "posterior_mean", "interval_lo", "interval_hi"] {
+            assert_eq!(pairs.column(column)[at], groups.column(column)[i], "group {i}: {column}");
+        }
+    }
+}
+
+#[test]
+fn corrected_intervals_spread_each_group_over_the_coefficients_uncertainty() {
+    // Eight sellers estimate three coefficients and a strength poorly: the
+    // corrected intervals, which integrate over that uncertainty, are wider
+    // on average than the plug-in ones.
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", SELLERS);
+    let out =
+        ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind", "--intervals", "corrected"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let corrected = Csv::read(&dir.path().join("out.csv"));
+    std::fs::remove_file(dir.path().join("out.csv")).unwrap();
+    let out = ratepool(dir.path(), &seller_args(&["--covariates", "tenure,kind"]));
+    assert!(out.status.success(), "{}", stderr(&out));
+    let plug_in = Csv::read(&dir.path().join("out.csv"));
+    let width = |t: &Csv| {
+        let (lo, hi) = (t.floats("interval_lo"), t.floats("interval_hi"));
+        lo.iter().zip(&hi).map(|(l, h)| h - l).sum::<f64>() / lo.len() as f64
+    };
+    assert!(width(&corrected) > 1.05 * width(&plug_in), "{} against {}", width(&corrected), width(&plug_in));
+    assert_eq!(corrected.column("prior_mean"), plug_in.column("prior_mean"), "the same centres");
+}
