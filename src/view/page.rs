@@ -386,6 +386,10 @@ pub fn cautions(summary: &Summary) -> Vec<String> {
     if let Some(flags) = &summary.flags {
         cautions.push(format!("A flag is a statement about a set: of the {} groups flagged at a false-discovery rate of {}, about {} are expected to be wrong. A flag is not proof of a problem, a diagnosis or a cluster: look at a group's data, and follow local rules and licensed practice, before acting on it; do not change the rate after seeing the result.", flags.groups_flagged, flags.fdr_level, num(flags.expected_false_flags)));
     }
+    if let Some(covariates) = summary.fitted_prior.covariates() {
+        let columns: Vec<&str> = covariates.covariates.iter().map(|c| c.column.as_str()).collect();
+        cautions.push(format!("Each group is pulled toward what its covariates ({}) predict, so its posterior, rank and flags say how it does against groups like it, not against all groups. Which characteristics to adjust for is a choice of policy: adjusting can hide a difference that matters, and some characteristics may not be used at all where you work. A coefficient describes these groups, not the effect of changing a covariate.", columns.join(", ")));
+    }
     let borrowed = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
     if borrowed > 0 {
         cautions.push(format!("{borrowed} of {} segments had too few groups or no fit of their own and borrow the all-groups prior: their groups are pulled toward all groups, not toward their own kind.", summary.segments.len()));

@@ -453,6 +453,10 @@ fn the_report_of_a_covariate_prior_plots_raw_values_against_their_centres() {
         "the prior in words"
     );
     assert!(!page.contains("The prior over the raw values"), "one prior's density has no place here");
+    assert!(
+        page.contains("Each group is pulled toward what its covariates (tenure, kind) predict"),
+        "the caution"
+    );
 }
 
 #[test]
