@@ -314,6 +314,26 @@ struct Evaluated {
     log_likelihood: f64,
     gradient: Vec<f64>,
     hessian: Vec<f64>,
+    /// The linear predictor of largest magnitude (for [`separation`]).
+    extreme_predictor: f64,
+}
+
+impl Evaluated {
+    fn zero(n: usize) -> Self {
+        Evaluated {
+            log_likelihood: 0.0,
+            gradient: vec![0.0; n],
+            hessian: vec![0.0; n * n],
+            extreme_predictor: 0.0,
+        }
+    }
+
+    /// Notes a linear predictor met.
+    fn meet_predictor(&mut self, eta: f64) {
+        if eta.abs() > self.extreme_predictor.abs() {
+            self.extreme_predictor = eta;
+        }
+    }
 }
 
 /// The setting of one fit.
@@ -340,14 +360,14 @@ impl Problem<'_> {
         let parts: Vec<(Evaluated, Vec<f64>)> = (0..rows.div_ceil(CHUNK))
             .into_par_iter()
             .map(|chunk| {
-                let mut e =
-                    Evaluated { log_likelihood: 0.0, gradient: vec![0.0; n], hessian: vec![0.0; n * n] };
+                let mut e = Evaluated::zero(n);
                 // Σ W zzᵀ and its first two derivatives in u₂, for REML.
                 let mut precision = if restricted { vec![0.0; 3 * p * p] } else { Vec::new() };
                 let mut z = vec![0.0; p];
                 for i in chunk * CHUNK..((chunk + 1) * CHUNK).min(rows) {
                     self.scaled.row_into(self.design, i, &mut z);
                     let eta: f64 = z.iter().zip(&theta[..p]).map(|(z, a)| z * a).sum();
+                    e.meet_predictor(eta);
                     let pair = &self.pairs[i];
                     let t = F::pair_terms_at(&F::at_point([eta, u2]), pair);
                     let c = pair.weight;
@@ -381,10 +401,11 @@ impl Problem<'_> {
                 (e, precision)
             })
             .collect();
-        let mut total = Evaluated { log_likelihood: 0.0, gradient: vec![0.0; n], hessian: vec![0.0; n * n] };
+        let mut total = Evaluated::zero(n);
         let mut precision = if restricted { vec![0.0; 3 * p * p] } else { Vec::new() };
         for (part, m) in parts {
             total.log_likelihood += part.log_likelihood;
+            total.meet_predictor(part.extreme_predictor);
             add_into(&mut total.gradient, &part.gradient);
             add_into(&mut total.hessian, &part.hessian);
             add_into(&mut precision, &m);
@@ -545,7 +566,7 @@ pub fn fit_regression<F: Family>(
         if theta[p] < ln_unit + LN_MIN_STRENGTH {
             return Err(RegressionFailure::NoPooling);
         }
-        if let Some(failure) = separation::<F>(&problem, &theta) {
+        if let Some(failure) = separation::<F>(&current, &theta[..p]) {
             return Err(failure);
         }
         if definite && largest_step < 1e-10 * (1.0 + theta.iter().fold(0.0f64, |m, t| m.max(t.abs()))) {
@@ -554,7 +575,7 @@ pub fn fit_regression<F: Family>(
         }
     }
     if !converged {
-        return Err(separation::<F>(&problem, &theta).unwrap_or(RegressionFailure::NotConverged));
+        return Err(separation::<F>(&current, &theta[..p]).unwrap_or(RegressionFailure::NotConverged));
     }
     let free = if held { p } else { n };
     let information: Vec<f64> = (0..free)
@@ -648,31 +669,17 @@ fn newton_step(at: &Evaluated, n: usize, free: usize) -> (Vec<f64>, bool) {
     }
 }
 
-/// A coefficient running away: some cell's linear predictor past ±35 on a
+/// A coefficient running away: some row's linear predictor (the largest,
+/// met by the evaluation `at` the scaled coefficients `a`) past ±35 on a
 /// bounded scale, blamed on the coefficient of largest |bₖ sₖ| (scaled).
-fn separation<F: Family>(problem: &Problem<'_>, theta: &[f64]) -> Option<RegressionFailure> {
-    if F::TERMS.rates == RateRange::Real {
+fn separation<F: Family>(at: &Evaluated, a: &[f64]) -> Option<RegressionFailure> {
+    if F::TERMS.rates == RateRange::Real || at.extreme_predictor.abs() <= SEPARATED_PREDICTOR {
         return None;
     }
-    let p = problem.width();
-    let mut z = vec![0.0; p];
-    let mut extreme = 0.0f64;
-    for i in 0..problem.design.rows() {
-        problem.scaled.row_into(problem.design, i, &mut z);
-        let eta: f64 = z.iter().zip(&theta[..p]).map(|(z, a)| z * a).sum();
-        if eta.abs() > extreme.abs() {
-            extreme = eta;
-        }
-    }
-    if extreme.abs() <= SEPARATED_PREDICTOR {
-        return None;
-    }
-    let coefficient = if p == 1 {
-        0
-    } else {
-        (1..p).max_by(|&a, &b| theta[a].abs().total_cmp(&theta[b].abs())).expect("p > 1")
-    };
-    Some(RegressionFailure::Separation { coefficient, towards_positive: theta[coefficient] > 0.0 })
+    let p = a.len();
+    let coefficient =
+        if p == 1 { 0 } else { (1..p).max_by(|&x, &y| a[x].abs().total_cmp(&a[y].abs())).expect("p > 1") };
+    Some(RegressionFailure::Separation { coefficient, towards_positive: a[coefficient] > 0.0 })
 }
 
 impl RegressionFit {

@@ -202,12 +202,15 @@ impl Source for SummedRows<'_> {
                 } else {
                     reader.check(job, &batch, row)?
                 };
+                // With covariates the group is found here, once, to hold or check them.
+                let mut held_group = None;
                 if let (Ok(_), Some(columns), Some(state)) = (&checked, &covariate_columns, covariates.as_mut()) {
                     checked = match columns.fault(job, row)? {
                         Some((column, reason)) => Err(Rejection { row, column, reason }),
                         None => {
                             columns.key_into(row, state, true, &mut key).expect("a valid row has a key");
                             let index = group.with_bytes(row, |id| totals.group_of(0, id));
+                            held_group = Some(index);
                             match totals.hold_covariates(index, &key, batch.first_row + row) {
                                 Some((j, first)) => Err(Rejection {
                                     row,
@@ -241,8 +244,13 @@ impl Source for SummedRows<'_> {
                         continue;
                     }
                 };
-                let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
-                let index = group.with_bytes(row, |id| totals.group_of(segment, id));
+                let index = match held_group {
+                    Some(index) => index,
+                    None => {
+                        let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
+                        group.with_bytes(row, |id| totals.group_of(segment, id))
+                    }
+                };
                 // Compared before adding: a sum past 2^53 would round back to it.
                 let (count_over, size_over) = (
                     count > MAX_EXACT_COUNT - totals.counts[index],

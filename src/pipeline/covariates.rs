@@ -12,6 +12,7 @@
 //! is read as levels; `--covariates-levels` reads numbers as levels too.
 
 use super::segments::SegmentColumns;
+use super::validate::{MAX_EXACT_COUNT, MAX_MAGNITUDE};
 use super::{CovariateRole, Job, Likelihood, PriorSource};
 use crate::core::incomplete::{erfc, gamma_tails};
 use crate::core::model::{Family, Prior, PriorUncertainty};
@@ -32,9 +33,6 @@ use std::hash::{BuildHasherDefault, Hasher};
 /// The most indicators the levels of all covariates may make: beyond it a
 /// column is better a segment of its own (`--by`).
 pub const MAX_LEVELS: usize = 200;
-
-/// The largest magnitude of a covariate (as of an estimate).
-const MAX_MAGNITUDE: f64 = 1e150;
 
 /// How a covariate column's values are read.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -162,7 +160,7 @@ impl CovariateBatch {
                 (None, Some(numbers)) => match numbers.number(row) {
                     Some(v) if v.abs() > MAX_MAGNITUDE => Some(format!("{v:e} is beyond ±1e150")),
                     Some(v) if self.readings[j] == Reading::Logs && v <= 0.0 => {
-                        Some(format!("{} is not above zero (its log is taken)", plain_number(v)))
+                        Some(format!("{v} is not above zero (its log is taken)"))
                     }
                     Some(_) => None,
                     None => Some(self.reason_not_a_number(job, j, row)?),
@@ -179,11 +177,16 @@ impl CovariateBatch {
     /// With a saved prior, the fault of a level it was not fitted with.
     fn unknown_level(&self, j: usize, levels: &SegmentColumns, row: usize) -> Option<String> {
         let known = &self.known.as_ref()?[j];
-        let text = levels
-            .with_bytes(0, row, |bytes| String::from_utf8_lossy(bytes.unwrap_or_default()).into_owned());
-        if known.contains(&text) {
+        // Compared as bytes: a text is made only for the message.
+        let seen = levels.with_bytes(0, row, |bytes| {
+            let bytes = bytes.unwrap_or_default();
+            known.iter().any(|k| k.as_bytes() == bytes)
+        });
+        if seen {
             return None;
         }
+        let text = levels
+            .with_bytes(0, row, |bytes| String::from_utf8_lossy(bytes.unwrap_or_default()).into_owned());
         let shown: Vec<&str> = known.iter().take(8).map(String::as_str).collect();
         let more = if known.len() > 8 { format!(" and {} more", known.len() - 8) } else { String::new() };
         Some(format!(
@@ -247,11 +250,6 @@ impl CovariateBatch {
         }
         Some(())
     }
-}
-
-/// A number as it is usually written (`0`, `-2.5`).
-fn plain_number(v: f64) -> String {
-    format!("{v}")
 }
 
 /// The hash of a key: its words through [`PairHasher`].
@@ -421,7 +419,7 @@ pub(super) fn covariate_table(
                     levels: Vec::new(),
                 });
                 // Whole numbers (read from integers, or from text such as `12`) are written as such.
-                let whole = raw.iter().all(|v| v.fract() == 0.0 && v.abs() < 9_007_199_254_740_992.0);
+                let whole = raw.iter().all(|v| v.fract() == 0.0 && v.abs() < MAX_EXACT_COUNT);
                 let written = if whole {
                     PairValues::Integers(raw.iter().map(|&v| v as i64).collect())
                 } else {
@@ -503,7 +501,8 @@ fn describe_fault(design: &Design, fault: &DesignFault) -> String {
 
 /// The covariate prior of a run and each pair's prior under it.
 pub(super) struct CellPriors {
-    /// Per pair, the prior its groups are scored with.
+    /// Per pair, the prior its groups are scored with (moved into the
+    /// priors in use when scoring, which hold it from then on).
     pub priors: Vec<Prior>,
     /// Per pair, what is known of that prior's uncertainty (with corrected intervals only).
     pub uncertainties: Vec<PriorUncertainty>,

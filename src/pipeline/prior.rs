@@ -428,15 +428,7 @@ fn covariate_priors_in_use<F: Family>(
             log_likelihood: None,
             uncertainty: None,
         };
-        let priors = fitted.priors.clone();
-        return Ok(PriorsInUse {
-            all_table,
-            all,
-            choices: Vec::new(),
-            priors,
-            spreads: Vec::new(),
-            covariates: Some(fitted),
-        });
+        return Ok(PriorsInUse::of_covariates(all_table, all, fitted));
     }
     let all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(pairs.len());
@@ -444,15 +436,7 @@ fn covariate_priors_in_use<F: Family>(
     let plain = PlainFit { prior: &all.prior, log_likelihood: all.log_likelihood, fit: &all.fit };
     let fitted = cell_priors::<F>(job, (table, pairs), plain, F::strength_unit(&all_table))?;
     clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()));
-    let priors = fitted.priors.clone();
-    Ok(PriorsInUse {
-        all_table,
-        all,
-        choices: Vec::new(),
-        priors,
-        spreads: Vec::new(),
-        covariates: Some(fitted),
-    })
+    Ok(PriorsInUse::of_covariates(all_table, all, fitted))
 }
 
 /// Fits the covariate prior to the table and scores every pair.
@@ -473,6 +457,20 @@ fn score_covariates_with<F: Family>(
 }
 
 impl PriorsInUse {
+    /// The priors of a covariate run: each pair's own (moved out of the
+    /// covariate prior, not copied: one a pair) and the covariate prior.
+    fn of_covariates(all_table: PairTable, all: Chosen, mut fitted: CellPriors) -> Self {
+        let priors = std::mem::take(&mut fitted.priors);
+        PriorsInUse {
+            all_table,
+            all,
+            choices: Vec::new(),
+            priors,
+            spreads: Vec::new(),
+            covariates: Some(fitted),
+        }
+    }
+
     /// The spread of the prior at `place` for corrected intervals (None for plug-in ones).
     fn spread<F: Family>(&self, job: &Job, place: usize) -> Option<Cow<'_, Uncertainty>> {
         match &self.covariates {

@@ -9,7 +9,7 @@
 use super::Job;
 use crate::core::pairs::{PairCounter, PairHasher, PairIndex, PairTable, WeightedPair};
 use crate::error::Result;
-use crate::io::cells::{parse_text, Cell as Value, GroupColumn};
+use crate::io::cells::GroupColumn;
 use crate::io::sink::PairValues;
 use arrow_array::cast::AsArray;
 use arrow_array::{Array, ArrayRef, UInt32Array};
@@ -120,16 +120,6 @@ impl SegmentColumns {
         self.by_entry.get(slot)
     }
 
-    /// The value of column `column` at `row` as a cell: typed as stored,
-    /// text parsed (missing for null or blank).
-    pub fn cell(&self, column: usize, row: usize) -> Value {
-        match self.columns[column].value(row) {
-            None => Value::Missing,
-            Some((GroupColumn::Integers(values), at)) => Value::Integer(values.value(at).into()),
-            Some((values, at)) => values.with_bytes(at, |bytes| parse_text(&String::from_utf8_lossy(bytes))),
-        }
-    }
-
     /// Whether column `column` is missing at `row`: null, or blank text.
     pub fn is_missing(&self, column: usize, row: usize) -> bool {
         match self.columns[column].value(row) {
@@ -145,11 +135,6 @@ impl SegmentColumns {
             None => with(None),
             Some((values, at)) => values.with_bytes(at, |bytes| with(Some(bytes))),
         }
-    }
-
-    /// The text of column `column` at `row` (None for null).
-    pub fn text(&self, column: usize, row: usize) -> Option<String> {
-        self.columns[column].value(row).and_then(|(values, at)| values.value_text(at))
     }
 
     /// The row's key as bytes: per column a tag (0 null, 1 a value), the
