@@ -200,7 +200,12 @@ impl GroupColumn {
     pub fn is_missing(&self, row: usize) -> bool {
         match self {
             GroupColumn::Integers(v) => v.is_null(row),
-            GroupColumn::Texts(v) => v.is_null(row) || v.value(row).trim().is_empty(),
+            GroupColumn::Texts(v) => {
+                // An id starting with a visible ASCII byte is not blank; only others are trimmed.
+                v.is_null(row)
+                    || !v.value(row).as_bytes().first().is_some_and(u8::is_ascii_graphic)
+                        && v.value(row).trim().is_empty()
+            }
         }
     }
 

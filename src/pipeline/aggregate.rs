@@ -10,13 +10,13 @@
 
 use super::covariates::{CovariateBatch, CovariatePairs, CovariateState};
 use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
+use super::group_table::{GroupTable, SumTooLarge};
 use super::passes::{row_error, BatchView, RowFault};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
 use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex};
-use super::validate::{outcome, Rejection, MAX_EXACT_COUNT, MISSING_GROUP};
+use super::validate::{outcome, Rejection, MISSING_GROUP};
 use super::{Aggregation, InvalidRows, Job, PhaseClock};
-use crate::core::pairs::PairHasher;
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, Cell, GroupColumn, NumericColumn};
@@ -24,27 +24,17 @@ use crate::io::input::{Input, InputBatch};
 use crate::io::sink::TableSink;
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use arrow_schema::DataType;
-use std::collections::HashMap;
-use std::hash::BuildHasherDefault;
 use std::path::Path;
 use std::sync::Arc;
 
-/// Each group's summed count and size, keyed by its segment and id.
-///
-/// A group costs its key's bytes (the id and 4 bytes of segment), its key's
-/// end, count, size and segment, and a slot of a hash map from the key's
-/// 64-bit hash to the group: about 75 bytes a group with 13-byte ids,
-/// measured (see the README). Keys whose hash is already another key's
-/// (rare) go to a second map compared exactly.
+/// Parts of the group table summed on threads of their own: two, one a core.
+const PART_BITS: u32 = 1;
+
+/// Each group's summed count and size, keyed by its segment and id (see
+/// [`GroupTable`]), and with covariates the values its first row held.
 #[derive(Default)]
 struct GroupTotals {
-    by_hash: HashMap<u64, u32, BuildHasherDefault<PairHasher>>,
-    collided: HashMap<Vec<u8>, u32>,
-    keys: Vec<u8>,
-    key_ends: Vec<usize>,
-    counts: Vec<f64>,
-    sizes: Vec<f64>,
-    segments: Vec<u32>,
+    table: GroupTable,
     /// With covariates: each group's covariate key (as its first row had
     /// it), `covariate_width` words a group, and that row.
     covariate_keys: Vec<u64>,
@@ -52,48 +42,15 @@ struct GroupTotals {
     first_rows: Vec<usize>,
     /// Whether every id came from an integer column (the output keeps integers).
     integer_ids: bool,
-    scratch: Vec<u8>,
 }
 
 impl GroupTotals {
-    fn key(&self, group: usize) -> &[u8] {
-        let start = if group == 0 { 0 } else { self.key_ends[group - 1] };
-        &self.keys[start..self.key_ends[group]]
-    }
-
-    /// The group of (segment, id), made when new.
-    fn group_of(&mut self, segment: u32, id: &[u8]) -> usize {
-        self.scratch.clear();
-        self.scratch.extend_from_slice(&segment.to_le_bytes());
-        self.scratch.extend_from_slice(id);
-        let hash = crate::pipeline::duplicates::hash_id(&self.scratch);
-        if let Some(&group) = self.by_hash.get(&hash) {
-            if self.key(group as usize) == self.scratch {
-                return group as usize;
-            }
-            if let Some(&group) = self.collided.get(&self.scratch) {
-                return group as usize;
-            }
-            let group = self.new_group(segment);
-            self.collided.insert(self.scratch.clone(), group as u32);
-            return group;
-        }
-        let group = self.new_group(segment);
-        self.by_hash.insert(hash, group as u32);
-        group
-    }
-
-    fn new_group(&mut self, segment: u32) -> usize {
-        self.keys.extend_from_slice(&self.scratch);
-        self.key_ends.push(self.keys.len());
-        self.counts.push(0.0);
-        self.sizes.push(0.0);
-        self.segments.push(segment);
-        self.counts.len() - 1
-    }
-
     fn len(&self) -> usize {
-        self.counts.len()
+        self.table.len()
+    }
+
+    fn id_text(&self, group: usize) -> String {
+        String::from_utf8_lossy(self.table.key(group).1).into_owned()
     }
 
     /// The covariate key of `group`.
@@ -117,11 +74,10 @@ impl GroupTotals {
 
     /// The ids of `groups` as an output column.
     fn ids(&self, groups: std::ops::Range<usize>) -> ArrayRef {
-        let text = |g: usize| String::from_utf8_lossy(&self.key(g)[4..]).into_owned();
         if self.integer_ids {
-            Arc::new(groups.map(|g| text(g).parse::<i64>().ok()).collect::<Int64Array>())
+            Arc::new(groups.map(|g| self.id_text(g).parse::<i64>().ok()).collect::<Int64Array>())
         } else {
-            Arc::new(groups.map(|g| Some(text(g))).collect::<StringArray>())
+            Arc::new(groups.map(|g| Some(self.id_text(g))).collect::<StringArray>())
         }
     }
 }
@@ -185,7 +141,10 @@ impl Source for SummedRows<'_> {
         let mut segment_index = SegmentIndex::default();
         let mut covariates = (!job.covariates.is_empty()).then(|| CovariateState::new(job));
         totals.covariate_width = job.covariates.len();
+        // Rows one at a time (with covariates, held from a group's first row) need one part.
+        totals.table = GroupTable::new(if covariates.is_some() { 0 } else { PART_BITS });
         let mut key = Vec::new();
+        let mut batch_rows = totals.table.batch_rows();
         let (mut rows, mut rejected, mut fault): (usize, usize, Option<RowFault>) = (0, 0, None);
         input.for_each_batch(|batch| {
             let group = GroupColumn::of(&batch.columns[0])?;
@@ -196,6 +155,15 @@ impl Source for SummedRows<'_> {
                 None => (SegmentColumns::of(cells)?, None),
             };
             let reader = RowReader::of(job, &batch)?;
+            let too_large = |over: SumTooLarge| {
+                let column = if over.count { &names.count } else { &names.size }.clone();
+                let reason = format!(
+                    "the sum for group '{}' exceeds 2^53, the largest count held exactly",
+                    group.text(over.row)
+                );
+                Rejection { row: over.row, column, reason }.stopping(&batch)
+            };
+            batch_rows.start(batch.first_row);
             for row in 0..batch.rows() {
                 let mut checked = if group.is_missing(row) {
                     Err(Rejection { row, column: names.group.clone(), reason: MISSING_GROUP.to_string() })
@@ -209,9 +177,10 @@ impl Source for SummedRows<'_> {
                         Some((column, reason)) => Err(Rejection { row, column, reason }),
                         None => {
                             columns.key_into(row, state, true, &mut key).expect("a valid row has a key");
-                            let index = group.with_bytes(row, |id| totals.group_of(0, id));
+                            let first_row = batch.first_row + row;
+                            let index = group.with_bytes(row, |id| totals.table.group_of(0, id, first_row));
                             held_group = Some(index);
-                            match totals.hold_covariates(index, &key, batch.first_row + row) {
+                            match totals.hold_covariates(index, &key, first_row) {
                                 Some((j, first)) => Err(Rejection {
                                     row,
                                     column: job.covariates[j].name.clone(),
@@ -244,33 +213,20 @@ impl Source for SummedRows<'_> {
                         continue;
                     }
                 };
-                let index = match held_group {
-                    Some(index) => index,
+                match held_group {
+                    Some(index) => totals.table.add(index, count, size, row).map_err(too_large)?,
                     None => {
                         let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
-                        group.with_bytes(row, |id| totals.group_of(segment, id))
+                        group.with_bytes(row, |id| batch_rows.push(row, (segment, id), count, size));
                     }
-                };
-                // Compared before adding: a sum past 2^53 would round back to it.
-                let (count_over, size_over) = (
-                    count > MAX_EXACT_COUNT - totals.counts[index],
-                    size > MAX_EXACT_COUNT - totals.sizes[index],
-                );
-                if count_over || size_over {
-                    let column = if count_over { &names.count } else { &names.size }.clone();
-                    let reason = format!(
-                        "the sum for group '{}' exceeds 2^53, the largest count held exactly",
-                        group.text(row)
-                    );
-                    return Err(Rejection { row, column, reason }.stopping(&batch));
                 }
-                totals.counts[index] += count;
-                totals.sizes[index] += size;
             }
+            totals.table.sum(&batch_rows, &group).map_err(too_large)?;
             rows = batch.first_row + batch.rows();
             clock.rows("read and sum", rows, input.known_rows());
             Ok(())
         })?;
+        totals.table.finish();
         clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
         if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
             return Err(fault.error);
@@ -279,7 +235,8 @@ impl Source for SummedRows<'_> {
             // Every group was made by a row whose covariates it then held.
             let mut counted = CovariatePairs::new(job.covariates.len());
             for g in 0..totals.len() {
-                counted.add(totals.covariate_key(g), totals.sizes[g], totals.counts[g], 1.0);
+                let (size, count) = totals.table.sums(g);
+                counted.add(totals.covariate_key(g), size, count, 1.0);
             }
             let covariates = Some(CovariateCount { pairs: counted, state });
             return Ok(Counted {
@@ -292,7 +249,8 @@ impl Source for SummedRows<'_> {
         }
         let mut pairs = SegmentCounters::new();
         for g in 0..totals.len() {
-            pairs.of(totals.segments[g]).add(totals.sizes[g], totals.counts[g], 1.0);
+            let (size, count) = totals.table.sums(g);
+            pairs.of(totals.table.key(g).0).add(size, count, 1.0);
         }
         Ok(Counted { pairs, segments: segment_index, rows, rejected, covariates: None })
     }
@@ -385,21 +343,20 @@ fn write_groups(
     let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
         .with_metadata(table_metadata(job, scored));
-    let group_text = |g: usize| String::from_utf8_lossy(&totals.key(g)[4..]).into_owned();
     let mut start = 0;
     while start < totals.len() {
         let end = (start + batch_rows.max(1)).min(totals.len());
         let mut pair_of_row = Vec::with_capacity(end - start);
         for g in start..end {
-            let (size, count) = (totals.sizes[g], totals.counts[g]);
+            let (size, count) = totals.table.sums(g);
             let placed = match &mut placement.covariates {
                 Some(counted) => {
                     counted.pairs.find(totals.covariate_key(g), size, count).map(|pair| (pair, 0))
                 }
-                None => placement.pairs.get(totals.segments[g], size, count),
+                None => placement.pairs.get(totals.table.key(g).0, size, count),
             };
             let (pair, place) = placed.expect("every group's pair was counted");
-            shifts.observe(pair, place, || group_text(g));
+            shifts.observe(pair, place, || totals.id_text(g));
             pair_of_row.push(pair);
         }
         sink.write_scored(vec![(job.columns.group.clone(), totals.ids(start..end))], &pair_of_row)?;

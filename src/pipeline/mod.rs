@@ -10,6 +10,7 @@ mod clock;
 mod covariates;
 mod driver;
 pub mod duplicates;
+mod group_table;
 mod pair_table;
 pub mod passes;
 mod prior;

@@ -1,0 +1,453 @@
+//! The groups of summed rows (`--outcome`, `--aggregate`): each group's key
+//! (segment and id bytes), summed count and size, and the row it first
+//! appeared on, found by the key's 64-bit hash in open-addressing tables
+//! whose 64-byte slots hold all of these. Finding a row's group and adding
+//! to it touches one cache line, which is fetched a few rows ahead, so a
+//! table far larger than the caches is summed at the speed of memory, not
+//! of one miss after another. Keys are compared byte for byte, never by
+//! hash alone.
+//!
+//! The groups are split by the top bit(s) of the hash into parts, each a
+//! table of its own: a batch's rows are hashed once, then each part sums its
+//! own rows on a thread of its own. The groups come out in the order they
+//! first appeared over all parts.
+
+use crate::io::cells::GroupColumn;
+use rayon::prelude::*;
+
+/// Key bytes held in the slot itself; longer ids are held in the part's arena.
+const INLINE: usize = 20;
+/// `key_len` of a free slot.
+const FREE: u32 = u32::MAX;
+/// How many of a part's rows ahead a slot is fetched.
+const AHEAD: usize = 32;
+
+/// One group, or a free place: one cache line.
+#[derive(Clone, Copy)]
+#[repr(C, align(64))]
+struct Slot {
+    hash: u64,
+    count: f64,
+    size: f64,
+    first_row: u64,
+    segment: u32,
+    key_len: u32,
+    /// The group's number in its part, in the order the part's groups first appeared.
+    group: u32,
+    /// The id's bytes when at most [`INLINE`] long; otherwise its first 8
+    /// bytes are its start in the part's arena.
+    key: [u8; INLINE],
+}
+
+const _: () = assert!(std::mem::size_of::<Slot>() == 64);
+
+const FREE_SLOT: Slot = Slot {
+    hash: 0,
+    count: 0.0,
+    size: 0.0,
+    first_row: 0,
+    segment: 0,
+    key_len: FREE,
+    group: 0,
+    key: [0; INLINE],
+};
+
+/// The hash of a group's key: the id's bytes, seeded by its segment.
+pub fn key_hash(segment: u32, id: &[u8]) -> u64 {
+    twox_hash::XxHash3_64::oneshot_with_seed(u64::from(segment), id)
+}
+
+/// Hints that `slot` will be read soon.
+#[inline(always)]
+fn fetch_ahead(slot: &Slot) {
+    #[cfg(target_arch = "x86_64")]
+    // SAFETY: a prefetch is only a hint: it reads no value and cannot fault.
+    unsafe {
+        std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>((slot as *const Slot).cast());
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = slot;
+}
+
+/// A sum that would pass 2^53, the largest count held exactly: the row, and
+/// whether it is the count (else the size) that would.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SumTooLarge {
+    /// 0-based row within its batch.
+    pub row: usize,
+    /// True for the count, false for the size.
+    pub count: bool,
+}
+
+/// One table of groups.
+struct Part {
+    slots: Vec<Slot>,
+    /// Groups held.
+    len: usize,
+    /// Slot of each group, in the order the groups first appeared.
+    order: Vec<u32>,
+    long_keys: Vec<u8>,
+}
+
+impl Part {
+    fn new() -> Self {
+        Part { slots: vec![FREE_SLOT; 1024], len: 0, order: Vec::new(), long_keys: Vec::new() }
+    }
+
+    fn mask(&self) -> usize {
+        self.slots.len() - 1
+    }
+
+    fn id<'a>(&'a self, slot: &'a Slot) -> &'a [u8] {
+        let len = slot.key_len as usize;
+        if len <= INLINE {
+            return &slot.key[..len];
+        }
+        let start = u64::from_le_bytes(slot.key[..8].try_into().expect("8 bytes")) as usize;
+        &self.long_keys[start..start + len]
+    }
+
+    /// Whether `slot` holds `id`: short ids compared as whole words of the
+    /// slot's key, zero-filled past the id's end.
+    fn holds(&self, slot: &Slot, id: &[u8]) -> bool {
+        if slot.key_len as usize != id.len() {
+            return false;
+        }
+        if id.len() > INLINE {
+            return self.id(slot) == id;
+        }
+        let mut padded = [0; INLINE];
+        padded[..id.len()].copy_from_slice(id);
+        slot.key == padded
+    }
+
+    /// The slot of (segment, id), made (first seen at `row`) when new.
+    fn find_or_insert(&mut self, hash: u64, segment: u32, id: &[u8], row: u64) -> usize {
+        if (self.len + 1) * 4 > self.slots.len() * 3 {
+            self.grow();
+        }
+        let mask = self.mask();
+        let mut at = hash as usize & mask;
+        loop {
+            let slot = &self.slots[at];
+            if slot.key_len == FREE {
+                return self.insert(at, hash, segment, id, row);
+            }
+            if slot.hash == hash && slot.segment == segment && self.holds(slot, id) {
+                return at;
+            }
+            at = (at + 1) & mask;
+        }
+    }
+
+    fn insert(&mut self, at: usize, hash: u64, segment: u32, id: &[u8], row: u64) -> usize {
+        let mut key = [0; INLINE];
+        if id.len() <= INLINE {
+            key[..id.len()].copy_from_slice(id);
+        } else {
+            key[..8].copy_from_slice(&(self.long_keys.len() as u64).to_le_bytes());
+            self.long_keys.extend_from_slice(id);
+        }
+        let key_len = u32::try_from(id.len()).ok().filter(|&n| n != FREE).expect("an id shorter than 4 GB");
+        let group = u32::try_from(self.order.len()).expect("fewer than 2^32 groups a part");
+        self.slots[at] = Slot { hash, count: 0.0, size: 0.0, first_row: row, segment, key_len, group, key };
+        self.order.push(u32::try_from(at).expect("fewer than 2^32 slots a part"));
+        self.len += 1;
+        at
+    }
+
+    /// Doubles the slots, placing the groups again in the order they came.
+    fn grow(&mut self) {
+        let doubled = vec![FREE_SLOT; self.slots.len() * 2];
+        let old = std::mem::replace(&mut self.slots, doubled);
+        let mask = self.mask();
+        for place in &mut self.order {
+            let slot = old[*place as usize];
+            let mut at = slot.hash as usize & mask;
+            while self.slots[at].key_len != FREE {
+                at = (at + 1) & mask;
+            }
+            self.slots[at] = slot;
+            *place = at as u32;
+        }
+    }
+
+    /// Adds (count, size) to the group in slot `at`, unless a sum would pass 2^53.
+    fn add(&mut self, at: usize, count: f64, size: f64, row: usize) -> Result<(), SumTooLarge> {
+        let slot = &mut self.slots[at];
+        // Compared before adding: a sum past 2^53 would round back to it.
+        let (count_over, size_over) = (
+            count > super::validate::MAX_EXACT_COUNT - slot.count,
+            size > super::validate::MAX_EXACT_COUNT - slot.size,
+        );
+        if count_over || size_over {
+            return Err(SumTooLarge { row, count: count_over });
+        }
+        slot.count += count;
+        slot.size += size;
+        Ok(())
+    }
+
+    /// Sums the rows of `rows` that fall in this part, `mine`.
+    fn sum(&mut self, rows: &BatchRows, mine: &[u32], ids: &GroupColumn) -> Result<(), SumTooLarge> {
+        for (k, &entry) in mine.iter().enumerate() {
+            if let Some(&ahead) = mine.get(k + AHEAD) {
+                fetch_ahead(&self.slots[rows.hashes[ahead as usize] as usize & self.mask()]);
+            }
+            let e = entry as usize;
+            let row = rows.rows[e] as usize;
+            let at = ids.with_bytes(row, |id| {
+                self.find_or_insert(rows.hashes[e], rows.segments[e], id, rows.first_row + row as u64)
+            });
+            self.add(at, rows.counts[e], rows.sizes[e], row)?;
+        }
+        Ok(())
+    }
+}
+
+/// The valid rows of one batch, hashed, with what each adds.
+pub struct BatchRows {
+    /// Parts are the top `bits` of the hash.
+    bits: u32,
+    /// The rows (places in the lists below) of each part.
+    by_part: Vec<Vec<u32>>,
+    /// The batch's first row over the whole input.
+    first_row: u64,
+    rows: Vec<u32>,
+    hashes: Vec<u64>,
+    segments: Vec<u32>,
+    counts: Vec<f64>,
+    sizes: Vec<f64>,
+}
+
+impl BatchRows {
+    /// Rows for a table of `2^bits` parts.
+    pub fn new(bits: u32) -> Self {
+        BatchRows {
+            bits,
+            by_part: vec![Vec::new(); 1 << bits],
+            first_row: 0,
+            rows: Vec::new(),
+            hashes: Vec::new(),
+            segments: Vec::new(),
+            counts: Vec::new(),
+            sizes: Vec::new(),
+        }
+    }
+
+    /// Empties the rows for the batch starting at `first_row`.
+    pub fn start(&mut self, first_row: usize) {
+        self.first_row = first_row as u64;
+        self.by_part.iter_mut().for_each(Vec::clear);
+        self.rows.clear();
+        self.hashes.clear();
+        self.segments.clear();
+        self.counts.clear();
+        self.sizes.clear();
+    }
+
+    /// Adds `row` of the batch, of group (segment, id), adding (count, size).
+    pub fn push(&mut self, row: usize, (segment, id): (u32, &[u8]), count: f64, size: f64) {
+        let hash = key_hash(segment, id);
+        let part = if self.bits == 0 { 0 } else { (hash >> (64 - self.bits)) as usize };
+        self.by_part[part].push(self.hashes.len() as u32);
+        self.rows.push(u32::try_from(row).expect("fewer than 2^32 rows a batch"));
+        self.hashes.push(hash);
+        self.segments.push(segment);
+        self.counts.push(count);
+        self.sizes.push(size);
+    }
+}
+
+/// Every group of summed rows.
+pub struct GroupTable {
+    parts: Vec<Part>,
+    bits: u32,
+    /// (part, slot) of each group in the order the groups first appeared,
+    /// once [`GroupTable::finish`] has merged the parts.
+    order: Vec<(u32, u32)>,
+}
+
+impl Default for GroupTable {
+    fn default() -> Self {
+        GroupTable::new(0)
+    }
+}
+
+impl GroupTable {
+    /// A table of `2^bits` parts, each summed on a thread of its own (rows
+    /// for it are made by [`GroupTable::batch_rows`]).
+    pub fn new(bits: u32) -> Self {
+        GroupTable { parts: (0..1 << bits).map(|_| Part::new()).collect(), bits, order: Vec::new() }
+    }
+
+    /// An empty batch of rows split for this table's parts.
+    pub fn batch_rows(&self) -> BatchRows {
+        BatchRows::new(self.bits)
+    }
+
+    /// Sums a batch's rows; the first row, in the batch's order, whose sum
+    /// would pass 2^53 stops it.
+    pub fn sum(&mut self, rows: &BatchRows, ids: &GroupColumn) -> Result<(), SumTooLarge> {
+        assert_eq!(rows.bits, self.bits, "rows split for this table's parts");
+        let faults: Vec<SumTooLarge> = self
+            .parts
+            .par_iter_mut()
+            .zip(&rows.by_part)
+            .filter_map(|(table, mine)| table.sum(rows, mine, ids).err())
+            .collect();
+        faults.into_iter().min_by_key(|fault| fault.row).map_or(Ok(()), Err)
+    }
+
+    /// The group of (segment, id), made when new (first seen at `row`), for
+    /// rows taken one at a time: its number in the order groups first
+    /// appeared. Only for a table of one part.
+    pub fn group_of(&mut self, segment: u32, id: &[u8], row: usize) -> usize {
+        assert_eq!(self.bits, 0, "rows one at a time go to a table of one part");
+        let part = &mut self.parts[0];
+        let at = part.find_or_insert(key_hash(segment, id), segment, id, row as u64);
+        part.slots[at].group as usize
+    }
+
+    /// Adds (count, size) to group `group` of a one-part table.
+    pub fn add(&mut self, group: usize, count: f64, size: f64, row: usize) -> Result<(), SumTooLarge> {
+        let part = &mut self.parts[0];
+        let at = part.order[group] as usize;
+        part.add(at, count, size, row)
+    }
+
+    /// Puts the groups of every part in the order they first appeared.
+    pub fn finish(&mut self) {
+        let mut order: Vec<(u32, u32)> = Vec::with_capacity(self.len());
+        for (p, part) in self.parts.iter().enumerate() {
+            order.extend(part.order.iter().map(|&at| (p as u32, at)));
+        }
+        if self.parts.len() > 1 {
+            // Each part's groups are already in order; the merge is a sort by first row.
+            order.par_sort_unstable_by_key(|&(p, at)| self.parts[p as usize].slots[at as usize].first_row);
+        }
+        self.order = order;
+    }
+
+    /// Groups held.
+    pub fn len(&self) -> usize {
+        self.parts.iter().map(|part| part.len).sum()
+    }
+
+    fn slot(&self, group: usize) -> (&Part, &Slot) {
+        let (p, at) = self.order[group];
+        let part = &self.parts[p as usize];
+        (part, &part.slots[at as usize])
+    }
+
+    /// Group `group`'s segment and id bytes, after [`GroupTable::finish`].
+    pub fn key(&self, group: usize) -> (u32, &[u8]) {
+        let (part, slot) = self.slot(group);
+        (slot.segment, part.id(slot))
+    }
+
+    /// Group `group`'s summed (size, count), after [`GroupTable::finish`].
+    pub fn sums(&self, group: usize) -> (f64, f64) {
+        let (_, slot) = self.slot(group);
+        (slot.size, slot.count)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use arrow_array::{ArrayRef, StringArray};
+    use std::collections::HashMap;
+    use std::sync::Arc;
+
+    /// Ids of many lengths (some past the slot's inline bytes), repeated at random.
+    fn ids(rows: usize, distinct: usize, seed: u64) -> Vec<String> {
+        let mut state = seed;
+        let mut next = move || {
+            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            (state >> 33) as usize
+        };
+        (0..rows).map(|_| format!("{}{}", "x".repeat(next() % 30), next() % distinct)).collect()
+    }
+
+    /// The groups in first-appearance order and their sums, by the plainest means.
+    fn reference(batches: &[Vec<String>]) -> Vec<(String, f64, f64)> {
+        let mut place: HashMap<&str, usize> = HashMap::new();
+        let mut groups: Vec<(String, f64, f64)> = Vec::new();
+        for (row, id) in batches.iter().flatten().enumerate() {
+            let g = *place.entry(id).or_insert_with(|| {
+                groups.push((id.clone(), 0.0, 0.0));
+                groups.len() - 1
+            });
+            groups[g].1 += (row % 3) as f64;
+            groups[g].2 += 1.0;
+        }
+        groups
+    }
+
+    fn summed(batches: &[Vec<String>], bits: u32) -> Vec<(String, f64, f64)> {
+        let mut table = GroupTable::new(bits);
+        let mut rows = table.batch_rows();
+        let mut first_row = 0;
+        for batch in batches {
+            let array: ArrayRef = Arc::new(StringArray::from(batch.clone()));
+            let column = GroupColumn::of(&array).unwrap();
+            rows.start(first_row);
+            for (row, id) in batch.iter().enumerate() {
+                rows.push(row, (0, id.as_bytes()), ((first_row + row) % 3) as f64, 1.0);
+            }
+            table.sum(&rows, &column).unwrap();
+            first_row += batch.len();
+        }
+        table.finish();
+        (0..table.len())
+            .map(|g| {
+                let (size, count) = table.sums(g);
+                (String::from_utf8(table.key(g).1.to_vec()).unwrap(), count, size)
+            })
+            .collect()
+    }
+
+    #[test]
+    fn parts_sum_every_group_in_the_order_it_first_appeared() {
+        let batches: Vec<Vec<String>> = (0..5).map(|b| ids(4000, 3000, b)).collect();
+        let expected = reference(&batches);
+        assert!(expected.len() > 2000, "the table grows past its first slots");
+        assert!(expected.iter().any(|(id, ..)| id.len() > INLINE), "some ids are held outside the slots");
+        for bits in [0, 1, 3] {
+            assert_eq!(summed(&batches, bits), expected, "{} parts", 1 << bits);
+        }
+    }
+
+    #[test]
+    fn ids_whose_hashes_are_equal_stay_apart() {
+        let mut part = Part::new();
+        let a = part.find_or_insert(7, 0, b"first", 0);
+        let b = part.find_or_insert(7, 0, b"second", 1);
+        let long = [b'z'; 40];
+        let c = part.find_or_insert(7, 0, &long, 2);
+        let d = part.find_or_insert(7, 1, b"first", 3);
+        assert_eq!(part.len, 4);
+        assert_eq!((part.find_or_insert(7, 0, b"second", 4), part.find_or_insert(7, 0, &long, 5)), (b, c));
+        assert_eq!(part.find_or_insert(7, 1, b"first", 6), d);
+        assert_ne!(a, d, "one id in two segments is two groups");
+    }
+
+    #[test]
+    fn the_first_sum_past_two_to_the_53_in_row_order_stops_the_batch() {
+        let limit = super::super::validate::MAX_EXACT_COUNT;
+        let batch: Vec<String> = (0..64).map(|r| format!("g{}", r % 16)).collect();
+        let array: ArrayRef = Arc::new(StringArray::from(batch.clone()));
+        let column = GroupColumn::of(&array).unwrap();
+        let mut table = GroupTable::new(1);
+        let mut rows = table.batch_rows();
+        rows.start(0);
+        for (row, id) in batch.iter().enumerate() {
+            // Rows 16 on repeat rows 0 to 15; rows 21 and 40 would pass the limit.
+            let count = if row == 40 || row == 21 || row == 5 { limit } else { 1.0 };
+            rows.push(row, (0, id.as_bytes()), count, 1.0);
+        }
+        // Row 5's group already holds `limit`; row 21 (same group) passes it first.
+        assert_eq!(table.sum(&rows, &column), Err(SumTooLarge { row: 21, count: true }));
+    }
+}
