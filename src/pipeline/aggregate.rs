@@ -10,7 +10,7 @@
 
 use super::covariates::{CovariateBatch, CovariatePairs, CovariateState};
 use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
-use super::group_table::{GroupTable, SumTooLarge};
+use super::group_table::{BatchRows, GroupTable, SumTooLarge};
 use super::passes::{row_error, BatchView, RowFault};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
@@ -141,12 +141,12 @@ impl Source for SummedRows<'_> {
         let mut segment_index = SegmentIndex::default();
         let mut covariates = (!job.covariates.is_empty()).then(|| CovariateState::new(job));
         totals.covariate_width = job.covariates.len();
-        // Rows one at a time (with covariates, held from a group's first row) need one part.
-        totals.table = GroupTable::new(if covariates.is_some() { 0 } else { PART_BITS });
+        // Rows with covariates (held from a group's first row) are summed one at
+        // a time into `held`; all others in batches, on a thread a part.
+        let (mut held, mut parted) = (GroupTable::new(0), GroupTable::new(PART_BITS));
         let mut key = Vec::new();
-        let mut batch_rows = totals.table.batch_rows();
         let (mut rows, mut rejected, mut fault): (usize, usize, Option<RowFault>) = (0, 0, None);
-        input.for_each_batch(|batch| {
+        let (read, too_large) = parted.sum_on_threads(|feed| input.for_each_batch(|batch| {
             let group = GroupColumn::of(&batch.columns[0])?;
             totals.integer_ids &= matches!(group, GroupColumn::Integers(_));
             let cells = &batch.columns[*first_segment..];
@@ -155,16 +155,18 @@ impl Source for SummedRows<'_> {
                 None => (SegmentColumns::of(cells)?, None),
             };
             let reader = RowReader::of(job, &batch)?;
-            let too_large = |over: SumTooLarge| {
-                let column = if over.count { &names.count } else { &names.size }.clone();
-                let reason = format!(
-                    "the sum for group '{}' exceeds 2^53, the largest count held exactly",
-                    group.text(over.row)
-                );
-                Rejection { row: over.row, column, reason }.stopping(&batch)
-            };
+            let place = (batch.file.to_path_buf(), batch.first_row_in_file);
+            let mut batch_rows = BatchRows::with_capacity(batch.rows());
             batch_rows.start(batch.first_row);
             for row in 0..batch.rows() {
+                // Most rows: plainly valid, without covariates.
+                if covariate_columns.is_none() && !group.is_missing(row) {
+                    if let Some((size, count)) = reader.plainly_valid(job, row) {
+                        let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
+                        batch_rows.push(row, segment, count, size);
+                        continue;
+                    }
+                }
                 let mut checked = if group.is_missing(row) {
                     Err(Rejection { row, column: names.group.clone(), reason: MISSING_GROUP.to_string() })
                 } else {
@@ -178,7 +180,7 @@ impl Source for SummedRows<'_> {
                         None => {
                             columns.key_into(row, state, true, &mut key).expect("a valid row has a key");
                             let first_row = batch.first_row + row;
-                            let index = group.with_bytes(row, |id| totals.table.group_of(0, id, first_row));
+                            let index = group.with_bytes(row, |id| held.group_of(0, id, first_row));
                             held_group = Some(index);
                             match totals.hold_covariates(index, &key, first_row) {
                                 Some((j, first)) => Err(Rejection {
@@ -214,18 +216,25 @@ impl Source for SummedRows<'_> {
                     }
                 };
                 match held_group {
-                    Some(index) => totals.table.add(index, count, size, row).map_err(too_large)?,
+                    Some(index) => held
+                        .add(index, count, size, row)
+                        .map_err(|over| sum_too_large(names, over, &group, &place))?,
                     None => {
                         let segment = if segments.is_empty() { 0 } else { segment_index.number(&segments, row) };
-                        group.with_bytes(row, |id| batch_rows.push(row, (segment, id), count, size));
+                        batch_rows.push(row, segment, count, size);
                     }
                 }
             }
-            totals.table.sum(&batch_rows, &group).map_err(too_large)?;
             rows = batch.first_row + batch.rows();
+            feed.send(batch_rows, group, place);
             clock.rows("read and sum", rows, input.known_rows());
             Ok(())
-        })?;
+        }));
+        if let Some((over, batch)) = too_large {
+            return Err(sum_too_large(names, over, &batch.ids, &batch.context));
+        }
+        read?;
+        totals.table = if covariates.is_some() { held } else { parted };
         totals.table.finish();
         clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
         if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
@@ -274,6 +283,20 @@ impl Source for SummedRows<'_> {
     }
 }
 
+/// The error for a row whose group's sum would pass 2^53; `place` is its
+/// batch's file and first row there.
+fn sum_too_large(
+    names: &super::validate::ColumnNames,
+    over: SumTooLarge,
+    ids: &GroupColumn,
+    (file, first_row_in_file): &(std::path::PathBuf, usize),
+) -> Error {
+    let column = if over.count { &names.count } else { &names.size }.clone();
+    let reason =
+        format!("the sum for group '{}' exceeds 2^53, the largest count held exactly", ids.text(over.row));
+    super::validate::row_fault(file, first_row_in_file + over.row, column, reason)
+}
+
 /// The rejects table's column names: with `--outcome`, the outcome column
 /// stands where the count was, and there is no size column.
 fn reject_names(job: &Job) -> super::validate::ColumnNames {
@@ -298,6 +321,18 @@ impl<'a> RowReader<'a> {
             Aggregation::Outcome(_) => RowReader::Outcome(OutcomeColumn::of(&batch.columns[1])?),
             _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms(), None)?)),
         })
+    }
+
+    /// (size, count) of a row plainly valid as read (the common case, without
+    /// building cells), or None for the full check of [`RowReader::check`].
+    fn plainly_valid(&self, job: &Job, row: usize) -> Option<(f64, f64)> {
+        match self {
+            RowReader::Outcome(column) => match column.values.integer(row) {
+                Some(v @ (0 | 1)) => Some((1.0, v as f64)),
+                _ => None,
+            },
+            RowReader::Counts(view) => view.plainly_valid(job.model.terms(), row),
+        }
     }
 
     /// (size, count) of a valid row, or its fault (its group id is present).

@@ -14,6 +14,7 @@
 
 use crate::io::cells::GroupColumn;
 use rayon::prelude::*;
+use std::sync::Arc;
 
 /// Key bytes held in the slot itself; longer ids are held in the part's arena.
 const INLINE: usize = 20;
@@ -205,57 +206,91 @@ impl Part {
     }
 }
 
-/// The valid rows of one batch, hashed, with what each adds.
+/// The valid rows of one batch, with what each adds; hashed by [`GroupTable::sum`].
+#[derive(Default)]
 pub struct BatchRows {
-    /// Parts are the top `bits` of the hash.
-    bits: u32,
-    /// The rows (places in the lists below) of each part.
-    by_part: Vec<Vec<u32>>,
     /// The batch's first row over the whole input.
     first_row: u64,
     rows: Vec<u32>,
-    hashes: Vec<u64>,
     segments: Vec<u32>,
     counts: Vec<f64>,
     sizes: Vec<f64>,
+    hashes: Vec<u64>,
+    /// The rows (places in the lists above) of each part.
+    by_part: Vec<Vec<u32>>,
 }
 
 impl BatchRows {
-    /// Rows for a table of `2^bits` parts.
-    pub fn new(bits: u32) -> Self {
+    /// Room for `rows` rows.
+    pub fn with_capacity(rows: usize) -> Self {
         BatchRows {
-            bits,
-            by_part: vec![Vec::new(); 1 << bits],
-            first_row: 0,
-            rows: Vec::new(),
-            hashes: Vec::new(),
-            segments: Vec::new(),
-            counts: Vec::new(),
-            sizes: Vec::new(),
+            rows: Vec::with_capacity(rows),
+            segments: Vec::with_capacity(rows),
+            counts: Vec::with_capacity(rows),
+            sizes: Vec::with_capacity(rows),
+            hashes: Vec::with_capacity(rows),
+            ..Default::default()
         }
     }
 
     /// Empties the rows for the batch starting at `first_row`.
     pub fn start(&mut self, first_row: usize) {
         self.first_row = first_row as u64;
-        self.by_part.iter_mut().for_each(Vec::clear);
         self.rows.clear();
-        self.hashes.clear();
         self.segments.clear();
         self.counts.clear();
         self.sizes.clear();
     }
 
-    /// Adds `row` of the batch, of group (segment, id), adding (count, size).
-    pub fn push(&mut self, row: usize, (segment, id): (u32, &[u8]), count: f64, size: f64) {
-        let hash = key_hash(segment, id);
-        let part = if self.bits == 0 { 0 } else { (hash >> (64 - self.bits)) as usize };
-        self.by_part[part].push(self.hashes.len() as u32);
+    /// Adds `row` of the batch, of a group in `segment`, adding (count, size).
+    pub fn push(&mut self, row: usize, segment: u32, count: f64, size: f64) {
         self.rows.push(u32::try_from(row).expect("fewer than 2^32 rows a batch"));
-        self.hashes.push(hash);
         self.segments.push(segment);
         self.counts.push(count);
         self.sizes.push(size);
+    }
+
+    /// Hashes every row's key and lists each part's rows, for `2^bits` parts.
+    fn hash(&mut self, ids: &GroupColumn, bits: u32) {
+        self.hashes.clear();
+        self.by_part = vec![Vec::new(); 1 << bits];
+        for e in 0..self.rows.len() {
+            let hash = ids.with_bytes(self.rows[e] as usize, |id| key_hash(self.segments[e], id));
+            let part = if bits == 0 { 0 } else { (hash >> (64 - bits)) as usize };
+            self.by_part[part].push(e as u32);
+            self.hashes.push(hash);
+        }
+    }
+}
+
+/// One batch's rows as the part threads take them, with the batch's ids
+/// and whatever the caller needs to name a row of it (`context`).
+pub struct FedBatch<C> {
+    rows: BatchRows,
+    /// The batch's group ids.
+    pub ids: GroupColumn,
+    /// The caller's description of the batch.
+    pub context: C,
+}
+
+/// A sum past 2^53 and the batch of its row.
+pub type FaultInBatch<C> = (SumTooLarge, Arc<FedBatch<C>>);
+
+/// Hands batches to the part threads of [`GroupTable::sum_on_threads`].
+pub struct PartFeed<C> {
+    senders: Vec<std::sync::mpsc::SyncSender<Arc<FedBatch<C>>>>,
+    bits: u32,
+}
+
+impl<C> PartFeed<C> {
+    /// Hashes `rows` (their ids in `ids`) and hands them to every part.
+    pub fn send(&self, mut rows: BatchRows, ids: GroupColumn, context: C) {
+        rows.hash(&ids, self.bits);
+        let batch = Arc::new(FedBatch { rows, ids, context });
+        for sender in &self.senders {
+            // A part thread ends early only by panicking, which its join reports.
+            let _ = sender.send(batch.clone());
+        }
     }
 }
 
@@ -275,28 +310,45 @@ impl Default for GroupTable {
 }
 
 impl GroupTable {
-    /// A table of `2^bits` parts, each summed on a thread of its own (rows
-    /// for it are made by [`GroupTable::batch_rows`]).
+    /// A table of `2^bits` parts, each summed on a thread of its own by
+    /// [`GroupTable::sum_on_threads`].
     pub fn new(bits: u32) -> Self {
         GroupTable { parts: (0..1 << bits).map(|_| Part::new()).collect(), bits, order: Vec::new() }
     }
 
-    /// An empty batch of rows split for this table's parts.
-    pub fn batch_rows(&self) -> BatchRows {
-        BatchRows::new(self.bits)
-    }
-
-    /// Sums a batch's rows; the first row, in the batch's order, whose sum
-    /// would pass 2^53 stops it.
-    pub fn sum(&mut self, rows: &BatchRows, ids: &GroupColumn) -> Result<(), SumTooLarge> {
-        assert_eq!(rows.bits, self.bits, "rows split for this table's parts");
-        let faults: Vec<SumTooLarge> = self
-            .parts
-            .par_iter_mut()
-            .zip(&rows.by_part)
-            .filter_map(|(table, mine)| table.sum(rows, mine, ids).err())
-            .collect();
-        faults.into_iter().min_by_key(|fault| fault.row).map_or(Ok(()), Err)
+    /// Runs `feed`, which hands batches of rows to a [`PartFeed`], while a
+    /// thread a part sums them; returns what `feed` returned and the first
+    /// row, in input order, whose sum would pass 2^53 (with its batch), if
+    /// one did. The parts sum no rows after their first such row.
+    pub fn sum_on_threads<C: Send + Sync, T>(
+        &mut self,
+        feed: impl FnOnce(&PartFeed<C>) -> T,
+    ) -> (T, Option<FaultInBatch<C>>) {
+        std::thread::scope(|scope| {
+            let mut senders = Vec::with_capacity(self.parts.len());
+            let mut threads = Vec::with_capacity(self.parts.len());
+            for (p, part) in self.parts.iter_mut().enumerate() {
+                let (sender, receiver) = std::sync::mpsc::sync_channel::<Arc<FedBatch<C>>>(4);
+                senders.push(sender);
+                threads.push(scope.spawn(move || {
+                    let mut fault = None;
+                    for batch in receiver {
+                        if fault.is_none() {
+                            if let Err(e) = part.sum(&batch.rows, &batch.rows.by_part[p], &batch.ids) {
+                                fault = Some((e, batch.clone()));
+                            }
+                        }
+                    }
+                    fault
+                }));
+            }
+            let feeder = PartFeed { senders, bits: self.bits };
+            let fed = feed(&feeder);
+            drop(feeder);
+            let faults =
+                threads.into_iter().filter_map(|t| t.join().unwrap_or_else(|e| std::panic::resume_unwind(e)));
+            (fed, faults.min_by_key(|(e, batch)| (batch.rows.first_row, e.row)))
+        })
     }
 
     /// The group of (segment, id), made when new (first seen at `row`), for
@@ -387,18 +439,20 @@ mod tests {
 
     fn summed(batches: &[Vec<String>], bits: u32) -> Vec<(String, f64, f64)> {
         let mut table = GroupTable::new(bits);
-        let mut rows = table.batch_rows();
-        let mut first_row = 0;
-        for batch in batches {
-            let array: ArrayRef = Arc::new(StringArray::from(batch.clone()));
-            let column = GroupColumn::of(&array).unwrap();
-            rows.start(first_row);
-            for (row, id) in batch.iter().enumerate() {
-                rows.push(row, (0, id.as_bytes()), ((first_row + row) % 3) as f64, 1.0);
+        let ((), fault) = table.sum_on_threads(|feed| {
+            let mut first_row = 0;
+            for batch in batches {
+                let array: ArrayRef = Arc::new(StringArray::from(batch.clone()));
+                let mut rows = BatchRows::default();
+                rows.start(first_row);
+                for row in 0..batch.len() {
+                    rows.push(row, 0, ((first_row + row) % 3) as f64, 1.0);
+                }
+                feed.send(rows, GroupColumn::of(&array).unwrap(), ());
+                first_row += batch.len();
             }
-            table.sum(&rows, &column).unwrap();
-            first_row += batch.len();
-        }
+        });
+        assert!(fault.is_none());
         table.finish();
         (0..table.len())
             .map(|g| {
@@ -436,18 +490,23 @@ mod tests {
     #[test]
     fn the_first_sum_past_two_to_the_53_in_row_order_stops_the_batch() {
         let limit = super::super::validate::MAX_EXACT_COUNT;
-        let batch: Vec<String> = (0..64).map(|r| format!("g{}", r % 16)).collect();
-        let array: ArrayRef = Arc::new(StringArray::from(batch.clone()));
-        let column = GroupColumn::of(&array).unwrap();
         let mut table = GroupTable::new(1);
-        let mut rows = table.batch_rows();
-        rows.start(0);
-        for (row, id) in batch.iter().enumerate() {
-            // Rows 16 on repeat rows 0 to 15; rows 21 and 40 would pass the limit.
-            let count = if row == 40 || row == 21 || row == 5 { limit } else { 1.0 };
-            rows.push(row, (0, id.as_bytes()), count, 1.0);
-        }
-        // Row 5's group already holds `limit`; row 21 (same group) passes it first.
-        assert_eq!(table.sum(&rows, &column), Err(SumTooLarge { row: 21, count: true }));
+        let ((), fault) = table.sum_on_threads(|feed| {
+            for batch in 0..3 {
+                let ids: Vec<String> = (0..64).map(|r| format!("g{}", r % 16)).collect();
+                let array: ArrayRef = Arc::new(StringArray::from(ids));
+                let mut rows = BatchRows::default();
+                rows.start(batch * 64);
+                for row in 0..64 {
+                    // Rows 16 on repeat rows 0 to 15; in batch 1, rows 21 and 40 pass the limit.
+                    let count = if batch == 1 && [21, 40].contains(&row) { limit } else { 1.0 };
+                    rows.push(row, 0, count, 1.0);
+                }
+                feed.send(rows, GroupColumn::of(&array).unwrap(), batch);
+            }
+        });
+        // Row 21 is the first in input order; the parts summed no rows after theirs.
+        let (fault, batch) = fault.expect("a sum passes 2^53");
+        assert_eq!((fault, batch.context), (SumTooLarge { row: 21, count: true }, 1));
     }
 }

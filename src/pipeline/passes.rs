@@ -91,7 +91,7 @@ impl<'a> BatchView<'a> {
     /// sends the row to the full check, which accepts the same rows with the
     /// same values and names the fault of the others. This spares building a
     /// cell per value.
-    fn plainly_valid(&self, terms: &ModelTerms, row: usize) -> Option<(f64, f64)> {
+    pub(super) fn plainly_valid(&self, terms: &ModelTerms, row: usize) -> Option<(f64, f64)> {
         let size = plain_value(&self.sizes, terms.size_rule, row)?;
         let count = plain_value(&self.counts, terms.count_rule, row)?;
         (terms.pair_fault)(size, count).is_none().then_some((size, count))
