@@ -11,6 +11,13 @@ rows/returns_summed.csv    DuckDB: returns and orders per (store, kind), in
 rows/store_days.csv        one row per invented store per day: orders,
                            returns and hours open (an exposure)
 rows/store_days_summed.csv DuckDB: the sums per store, in first-appearance order
+rows/ratings.parquet       one row per rating of 3,000 invented sellers, shuffled,
+                           some ids longer than the 20 bytes a group-table slot
+                           holds; row groups of 10,000, dictionary pages that fall
+                           back to plain ones as pyarrow's do on large files
+rows/ratings.csv           the same rows as CSV
+rows/ratings_summed.csv    DuckDB: positive ratings and ratings per seller, in
+                           first-appearance order
 
 Fixed seed; no real stores. Run from the repository root:
     python3 scripts/make_row_fixtures.py
@@ -68,5 +75,25 @@ duckdb.sql(f"""
         GROUP BY store ORDER BY min(position)
     ) TO '{OUT}/store_days_summed.csv' (HEADER)
 """)
+
+# Ratings: a stream of its own, so the fixtures above stay as they were.
+ratings_rng = np.random.default_rng(20261204)
+sellers = 3_000
+names = np.array([f"seller-{i:04d}" if i % 7 else f"seller-with-a-longer-name-{i:04d}" for i in range(sellers)])
+counts = 1 + ratings_rng.poisson(ratings_rng.gamma(1.0, 15.0, sellers))
+share = ratings_rng.beta(9.0, 2.0, sellers)
+seller_of_row = ratings_rng.permutation(np.repeat(np.arange(sellers), counts))
+positive = (ratings_rng.random(seller_of_row.size) < share[seller_of_row]).astype(np.int8)
+ratings = pa.table({"seller_id": names[seller_of_row].tolist(), "positive": positive})
+pq.write_table(ratings, f"{OUT}/ratings.parquet", row_group_size=10_000, dictionary_pagesize_limit=4096)
+ratings.to_pandas().to_csv(f"{OUT}/ratings.csv", index=False)
+duckdb.sql(f"""
+    COPY (
+        SELECT seller_id, sum(positive) AS successes, count(*) AS trials
+        FROM read_parquet('{OUT}/ratings.parquet', file_row_number = true)
+        GROUP BY seller_id ORDER BY min(file_row_number)
+    ) TO '{OUT}/ratings_summed.csv' (HEADER)
+""")
 print(duckdb.sql(f"SELECT count(*) FROM '{OUT}/returns_summed.csv'").fetchall(),
-      duckdb.sql(f"SELECT count(*) FROM '{OUT}/store_days_summed.csv'").fetchall())
+      duckdb.sql(f"SELECT count(*) FROM '{OUT}/store_days_summed.csv'").fetchall(),
+      duckdb.sql(f"SELECT count(*), sum(trials) FROM '{OUT}/ratings_summed.csv'").fetchall())

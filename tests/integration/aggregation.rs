@@ -45,6 +45,39 @@ fn trials_give_the_output_of_their_sums_per_group_from_csv_and_parquet() {
 }
 
 #[test]
+fn shuffled_rating_rows_give_the_output_of_duckdbs_sums_whatever_the_batches() {
+    // Source: tests/fixtures/rows/ratings_summed.csv, DuckDB's GROUP BY of the
+    // 48,784 shuffled rating rows of 3,000 sellers (every seventh id longer than
+    // a group-table slot holds), in first-appearance order
+    // (scripts/make_row_fixtures.py).
+    let dir = tempfile::tempdir().unwrap();
+    let summed = rows("ratings_summed.csv");
+    let common = ["--model", "beta-binomial", "--group", "seller_id", "--ranks", "--above", "0.8"];
+    let mut args =
+        vec!["--quiet", "fit", "--input", &summed, "--successes", "successes", "--trials", "trials"];
+    args.extend(common);
+    args.extend(["--output", "summed.csv", "--summary", "summed.json"]);
+    run_ok(dir.path(), &args);
+    let read = |name: &str| std::fs::read_to_string(dir.path().join(name)).unwrap();
+    assert_eq!(read("summed.csv").lines().count(), 3_001);
+    for (input, batch) in [("ratings.parquet", "65536"), ("ratings.parquet", "997"), ("ratings.csv", "4096")]
+    {
+        let input = rows(input);
+        let mut args =
+            vec!["--quiet", "fit", "--input", &input, "--outcome", "positive", "--batch-rows", batch];
+        args.extend(common);
+        args.extend(["--output", "rows.csv", "--summary", "rows.json"]);
+        run_ok(dir.path(), &args);
+        assert_eq!(read("rows.csv"), read("summed.csv"), "{input}, batches of {batch}");
+        let (mut from_rows, summed) =
+            (summary(&dir.path().join("rows.json")), summary(&dir.path().join("summed.json")));
+        assert_eq!(from_rows["rows_read"], 48_784);
+        from_rows["rows_read"] = summed["rows_read"].clone();
+        assert_eq!(from_rows, summed, "{input}");
+    }
+}
+
+#[test]
 fn parts_of_groups_give_the_output_of_their_sums_for_both_models() {
     // Source: tests/fixtures/rows/store_days_summed.csv, DuckDB's sums per store.
     let dir = tempfile::tempdir().unwrap();
