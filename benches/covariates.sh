@@ -15,18 +15,10 @@
 # usage: benches/covariates.sh [AREAS ...]     default: 1000000 10000000
 # env:   RUNS (3), PYTHON (python3), PEER_AT ("1000000"),
 #        BENCH_DATA (/var/tmp/ratepool-bench: inputs are made once and kept there)
-set -euo pipefail
-cd "$(dirname "$0")/.."
 sizes=("${@:-1000000 10000000}")
+source "$(dirname "$0")/common/timed_runs.sh"
 read -r -a sizes <<< "${sizes[*]}"
-runs="${RUNS:-3}"
-python="${PYTHON:-python3}"
 peer_at=" ${PEER_AT:-1000000} "
-data="${BENCH_DATA:-/var/tmp/ratepool-bench}"
-export CARGO_TARGET_DIR="${CARGO_TARGET_DIR:-/var/tmp/ratepool-target}"
-mkdir -p "$data"
-cargo build --release --quiet --bins
-ratepool="$CARGO_TARGET_DIR/release/ratepool"
 log="$data/covariates.tsv"
 : > "$log"
 for areas in "${sizes[@]}"; do

@@ -13,17 +13,9 @@
 # env:   RUNS (3), PYTHON (python3), FORMAT (parquet or csv; parquet),
 #        MIX (lognormal or pareto: the mixes of generate_binomial.py; lognormal),
 #        BENCH_DATA (/var/tmp/ratepool-bench: inputs are made once and kept there)
-set -euo pipefail
-cd "$(dirname "$0")/.."
+source "$(dirname "$0")/common/timed_runs.sh"
 groups="${1:-10000000}"
-runs="${RUNS:-3}"
-python="${PYTHON:-python3}"
 format="${FORMAT:-parquet}"
-data="${BENCH_DATA:-/var/tmp/ratepool-bench}"
-export CARGO_TARGET_DIR="${CARGO_TARGET_DIR:-/var/tmp/ratepool-target}"
-mkdir -p "$data"
-cargo build --release --quiet --bins
-ratepool="$CARGO_TARGET_DIR/release/ratepool"
 mix="${MIX:-lognormal}"
 input="$data/segmented-$mix-$groups.$format"
 [[ -f "$input" ]] || "$python" benches/generate_binomial.py "$groups" "$input" "$mix" 10

@@ -30,6 +30,11 @@ district_profiles.csv  3,000 invented districts with a deprivation score
                  (mean 0, sd 1) and the share of outdoor workers (seed
                  20261206): relative risk exp(0.3 deprivation + 1.2 outdoor
                  share - 0.3) times Gamma(shape 10, rate 10).
+district_bands.csv  400 invented districts by five age bands (seed 20261207):
+                 cases and population, one row per district and band. Band
+                 rates rise with age; the districts' relative risks are
+                 Gamma(shape 20, rate 20) around 1, except a hidden hot spot of
+                 twelve districts (district-0101 to district-0112) at 1.6 times.
 No real people, sellers, brands or places are represented.
 """
 
@@ -143,6 +148,23 @@ def district_profiles():
     (OUT / "district_profiles.csv").write_text("\n".join(lines) + "\n")
 
 
+def district_bands():
+    rng = np.random.default_rng(20261207)
+    count = 400
+    bands = ["0-14", "15-44", "45-64", "65-79", "80+"]
+    rates = np.array([0.0001, 0.0004, 0.0018, 0.0055, 0.011])
+    people = rng.lognormal(np.log(12_000.0), 0.8, size=count)
+    shares = rng.dirichlet([6.0, 10.0, 7.0, 4.0, 2.0], size=count)
+    risk = rng.gamma(20.0, 1.0 / 20.0, size=count)
+    risk[100:112] *= 1.6
+    lines = ["district_id,age_band,cases,population"]
+    for i in range(count):
+        population = np.round(people[i] * shares[i]).astype(int)
+        cases = rng.poisson(population * rates * risk[i])
+        lines += [f"district-{i + 1:04d},{b},{c},{p}" for b, c, p in zip(bands, cases, population)]
+    (OUT / "district_bands.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
@@ -153,6 +175,7 @@ def main():
     clinic_waits()
     sellers()
     district_profiles()
+    district_bands()
 
 
 if __name__ == "__main__":

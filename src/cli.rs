@@ -7,7 +7,8 @@ use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
     load_summary, Aggregation, CovariateColumn, CovariateRole, FlagEvent, FlagRule, Intervals, InvalidRows,
-    Job, Layout, Level, Likelihood, Model, PriorSource, RankOrder, Thresholds, TopChoice, TopRule,
+    Job, Layout, Level, Likelihood, Model, PriorSource, RankOrder, Standardisation, Thresholds, TopChoice,
+    TopRule,
 };
 use crate::progress::{Terminal, Watch};
 use clap::{Args, Parser, Subcommand, ValueEnum};
@@ -381,6 +382,31 @@ pub struct TableArgs {
         help_heading = "Input"
     )]
     pub outcome: Option<String>,
+    /// Rows are areas by stratum; their population
+    #[arg(
+        long_help = "Rows are areas by stratum (age band, sex): this column holds each row's population, or person-years. Each area's expected count is the sum over its rows of the population times its stratum's reference rate, and the gamma-poisson model runs on --events against it; the output names it `expected` and observed over expected `smr`. Needs --strata.",
+        long,
+        value_name = "COLUMN",
+        help_heading = "Standardisation"
+    )]
+    pub population: Option<String>,
+    /// Columns that make a stratum
+    #[arg(
+        long_help = "The columns whose values make a stratum (comma-separated names), with --population: an age band, or an age band and sex.",
+        long,
+        value_name = "COLUMN[,COLUMN...]",
+        value_delimiter = ',',
+        help_heading = "Standardisation"
+    )]
+    pub strata: Vec<String>,
+    /// Rates by stratum of an external standard
+    #[arg(
+        long_help = "An external standard (national rates, say): a table (.csv or .parquet) with the --strata columns and a column `rate`, events per unit of population, one row per stratum. Without it each stratum's reference rate is the pooled rate of all areas (the internal standard).",
+        long,
+        value_name = "FILE",
+        help_heading = "Standardisation"
+    )]
+    pub reference_rates: Option<PathBuf>,
     /// Rows are parts of groups: sum them per group first
     #[arg(
         long_help = "Rows are parts of groups (one row per store per day, say): counts and sizes are summed per group id (per segment with --by) before the fit. Memory grows with the groups.",
@@ -848,6 +874,78 @@ fn saved_covariates(prior: &PriorSource, given: Vec<CovariateColumn>) -> Result<
     Ok(columns)
 }
 
+/// Indirect standardisation, when `--population`, `--strata` or
+/// `--reference-rates` is given: the standard and the events column, or
+/// what is missing or does not combine with it.
+fn standardisation(
+    table: &TableArgs,
+    model: Model,
+    pair_counts: bool,
+) -> Result<Option<(Standardisation, String)>> {
+    if table.population.is_none() && table.strata.is_empty() && table.reference_rates.is_none() {
+        return Ok(None);
+    }
+    let usage = |text: String| Err(Error::Usage(text));
+    let Some(population) = table.population.clone() else {
+        return usage(
+            "--strata and --reference-rates make expected counts from a population: give --population COLUMN"
+                .into(),
+        );
+    };
+    if table.strata.is_empty() {
+        return usage(
+            "--population needs the columns that make a stratum: give --strata COLUMN[,COLUMN...]".into(),
+        );
+    }
+    let terms = model.terms();
+    if !terms.count_rule.is_whole() || terms.size_rule.is_whole() {
+        return usage(format!(
+            "--population makes expected counts for a model of events against exposure ({}), not {}",
+            models_where(|t| t.count_rule.is_whole() && !t.size_rule.is_whole()),
+            model.name()
+        ));
+    }
+    let refused = [
+        (pair_counts, "--pair-counts (a pair table has no strata)"),
+        (table.outcome.is_some(), "--outcome"),
+        (table.aggregate, "--aggregate (rows by stratum are summed per area already)"),
+        (
+            table.exposure.is_some(),
+            "--exposure (the expected counts are made from --population and --strata)",
+        ),
+        (!table.by.is_empty(), "--by (not yet)"),
+        (
+            !table.covariates.is_empty()
+                || !table.covariates_log.is_empty()
+                || !table.covariates_levels.is_empty(),
+            "covariates (not yet)",
+        ),
+    ];
+    if let Some((_, what)) = refused.iter().find(|(given, _)| *given) {
+        return usage(format!("--population does not combine with {what}"));
+    }
+    let Some(events) = table.events.clone() else {
+        return usage("--population needs the events column: give --events COLUMN".into());
+    };
+    for (i, column) in table.strata.iter().enumerate() {
+        if column.is_empty() || table.strata[..i].contains(column) || [&events, &population].contains(&column)
+        {
+            return usage(format!(
+                "--strata: '{column}' is empty, named twice, or the events or population column"
+            ));
+        }
+    }
+    if population == events {
+        return usage(format!("--population '{population}' is also the events column"));
+    }
+    let standard = Standardisation {
+        population,
+        strata: table.strata.clone(),
+        reference: table.reference_rates.clone(),
+    };
+    Ok(Some((standard, events)))
+}
+
 /// What covariates do not yet combine with, refused with what to do instead.
 fn refuse_covariates_with(
     table: &TableArgs,
@@ -936,6 +1034,9 @@ fn rows_and_columns(
     model: Model,
     pair_counts: bool,
 ) -> Result<(Aggregation, String, String)> {
+    if let Some((standard, events)) = standardisation(table, model, pair_counts)? {
+        return Ok((Aggregation::Standardised(standard), events, "expected".to_string()));
+    }
     let refused =
         |what: &str| Err(Error::Usage(format!("{what} does not apply to a pair table (--pair-counts)")));
     match (&table.outcome, table.aggregate) {

@@ -18,6 +18,19 @@ pub fn render_text(summary: &Summary) -> String {
         "ratepool {}: {} groups scored ({} rows read, {} rejected)",
         summary.model, summary.groups, summary.rows_read, summary.rows_rejected
     );
+    if let Some(standard) = &summary.standardisation {
+        let (rate, standard_used) = match &standard.reference_file {
+            Some(file) => ("rate", format!("external standard: {file}")),
+            None => ("pooled rate", "internal standard".to_string()),
+        };
+        let _ = writeln!(
+            out,
+            "  expected     {} x {rate}, {} strata of {} ({standard_used})",
+            standard.population,
+            standard.rates.len(),
+            standard.strata.join(", ")
+        );
+    }
     let model = Model::from_name(&summary.model);
     match (prior.covariates(), model) {
         (Some(covariates), Some(model)) => covariate_lines(&mut out, summary, covariates, model),

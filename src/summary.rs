@@ -73,8 +73,44 @@ pub struct Summary {
     /// `prob_top` (which rates are best); null without either.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub rank_order: Option<String>,
+    /// How the expected counts were made, with `--population` and `--strata`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub standardisation: Option<StandardisationReport>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// Expected counts by indirect standardisation: the standard and its rates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StandardisationReport {
+    /// "internal" (each stratum's pooled rate over all areas) or "external"
+    /// (the rates of `reference_file`).
+    pub standard: String,
+    /// The reference rates' file, for an external standard.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reference_file: Option<String>,
+    /// The population column.
+    pub population: String,
+    /// The columns whose values make a stratum.
+    pub strata: Vec<String>,
+    /// Each stratum's reference rate, in the order the strata were met.
+    pub rates: Vec<StratumRate>,
+}
+
+/// One stratum's reference rate; for an internal standard, with the events
+/// and population it was pooled from.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StratumRate {
+    /// The stratum's values, one per strata column.
+    pub stratum: Vec<String>,
+    /// Events per unit of population.
+    pub rate: f64,
+    /// Events over all areas (internal standard).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub events: Option<f64>,
+    /// Population over all areas (internal standard).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub population: Option<f64>,
 }
 
 /// The names of the group, count and size columns of a run.

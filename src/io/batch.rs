@@ -13,10 +13,14 @@ pub const SEGMENT_ROLE: &str = "segment";
 /// a covariate pattern as a segment column keys segments, and is read so.
 pub const COVARIATE_ROLE: &str = "covariate";
 
-/// Whether a column in `role` keys segments or cells (and Parquet text in
+/// The role of a strata column (`--strata`): it keys the strata of a
+/// standardisation as a segment column keys segments, and is read so.
+pub const STRATUM_ROLE: &str = "stratum";
+
+/// Whether a column in `role` keys segments, cells or strata (and Parquet text in
 /// it is read dictionary-encoded).
 pub fn keys_cells(role: &str) -> bool {
-    role == SEGMENT_ROLE || role == COVARIATE_ROLE
+    role == SEGMENT_ROLE || role == COVARIATE_ROLE || role == STRATUM_ROLE
 }
 
 /// One batch of input rows.

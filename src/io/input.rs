@@ -9,7 +9,7 @@ use super::TableFormat;
 use crate::error::{Error, Result};
 use std::path::{Path, PathBuf};
 
-pub use super::batch::{InputBatch, COVARIATE_ROLE, SEGMENT_ROLE};
+pub use super::batch::{InputBatch, COVARIATE_ROLE, SEGMENT_ROLE, STRATUM_ROLE};
 
 /// Where a row of the input is: its file and its 0-based row there.
 #[derive(Debug, Clone, PartialEq, Eq)]

@@ -15,14 +15,16 @@ use super::passes::{row_error, BatchView, RowFault};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
 use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex};
+use super::standardise::{describe_stratum, ReferenceRates, StratumRows};
 use super::validate::{outcome, Rejection, MISSING_GROUP};
 use super::{Aggregation, InvalidRows, Job, PhaseClock};
 use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, Cell, GroupColumn, NumericColumn};
-use crate::io::input::{Input, InputBatch};
+use crate::io::input::{Input, InputBatch, STRATUM_ROLE};
 use crate::io::sink::TableSink;
-use arrow_array::{ArrayRef, Int64Array, StringArray};
+use arrow_array::builder::StringBuilder;
+use arrow_array::{ArrayRef, Int64Array};
 use arrow_schema::DataType;
 use std::path::Path;
 use std::sync::Arc;
@@ -73,11 +75,16 @@ impl GroupTotals {
     }
 
     /// The ids of `groups` as an output column.
+    /// Ids are read back from their bytes without a string each (ids are
+    /// valid UTF-8 as read, so nothing is replaced).
     fn ids(&self, groups: std::ops::Range<usize>) -> ArrayRef {
+        let text = |g: usize| String::from_utf8_lossy(self.table.key(g).1);
         if self.integer_ids {
-            Arc::new(groups.map(|g| self.id_text(g).parse::<i64>().ok()).collect::<Int64Array>())
+            Arc::new(groups.map(|g| text(g).parse::<i64>().ok()).collect::<Int64Array>())
         } else {
-            Arc::new(groups.map(|g| Some(self.id_text(g))).collect::<StringArray>())
+            let mut column = StringBuilder::with_capacity(groups.len(), 16 * groups.len());
+            groups.for_each(|g| column.append_value(text(g)));
+            Arc::new(column.finish())
         }
     }
 }
@@ -117,6 +124,8 @@ pub(super) struct SummedRows<'a> {
     first_segment: usize,
     totals: GroupTotals,
     rejects: RejectRows,
+    /// With `--population`: the reference rates of the standard.
+    rates: Option<ReferenceRates>,
 }
 
 impl<'a> SummedRows<'a> {
@@ -125,19 +134,38 @@ impl<'a> SummedRows<'a> {
         let mut lead = vec![(job.columns.group.as_str(), "group")];
         match &job.aggregation {
             Aggregation::Outcome(column) => lead.push((column.as_str(), "outcome")),
+            Aggregation::Standardised(standard) => {
+                lead.extend([
+                    (job.columns.count.as_str(), "events"),
+                    (standard.population.as_str(), "population"),
+                ]);
+                lead.extend(standard.strata.iter().map(|c| (c.as_str(), STRATUM_ROLE)));
+            }
             _ => lead.extend(count_and_size(job)),
         }
         let first_segment = lead.len();
         let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
         let totals = GroupTotals { integer_ids: true, ..Default::default() };
-        Ok(SummedRows { input, output, batch_rows, first_segment, totals, rejects: RejectRows::default() })
+        Ok(SummedRows {
+            input,
+            output,
+            batch_rows,
+            first_segment,
+            totals,
+            rejects: RejectRows::default(),
+            rates: None,
+        })
     }
 }
 
 impl Source for SummedRows<'_> {
     fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
         let names = &job.columns;
-        let SummedRows { input, first_segment, totals, rejects, .. } = self;
+        if let Aggregation::Standardised(standard) = &job.aggregation {
+            self.rates = Some(ReferenceRates::of(job, standard)?);
+            clock.lap("reference-rates", "reference rates");
+        }
+        let SummedRows { input, first_segment, totals, rejects, rates, .. } = self;
         let mut segment_index = SegmentIndex::default();
         let mut covariates = (!job.covariates.is_empty()).then(|| CovariateState::new(job));
         totals.covariate_width = job.covariates.len();
@@ -154,7 +182,7 @@ impl Source for SummedRows<'_> {
                 Some(state) => (SegmentColumns::of(&[])?, Some(CovariateBatch::of(cells, state)?)),
                 None => (SegmentColumns::of(cells)?, None),
             };
-            let reader = RowReader::of(job, &batch)?;
+            let reader = RowReader::of(job, &batch, rates.as_ref())?;
             let place = (batch.file.to_path_buf(), batch.first_row_in_file);
             let mut batch_rows = BatchRows::with_capacity(batch.rows());
             batch_rows.start(batch.first_row);
@@ -236,6 +264,9 @@ impl Source for SummedRows<'_> {
         read?;
         totals.table = if covariates.is_some() { held } else { parted };
         totals.table.finish();
+        if rates.is_some() {
+            no_area_without_expected_count(job, input, totals)?;
+        }
         clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
         if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
             return Err(fault.error);
@@ -262,6 +293,10 @@ impl Source for SummedRows<'_> {
             pairs.of(totals.table.key(g).0).add(size, count, 1.0);
         }
         Ok(Counted { pairs, segments: segment_index, rows, rejected, covariates: None })
+    }
+
+    fn standardisation(&self) -> Option<crate::summary::StandardisationReport> {
+        self.rates.as_ref().map(|rates| rates.report().clone())
     }
 
     fn write(
@@ -297,30 +332,93 @@ fn sum_too_large(
     super::validate::row_fault(file, first_row_in_file + over.row, column, reason)
 }
 
+/// Refuses an area whose expected count summed to zero (population zero in
+/// each of its strata): the gamma-Poisson model needs exposure above zero.
+fn no_area_without_expected_count(job: &Job, input: &Input, totals: &GroupTotals) -> Result<()> {
+    match (0..totals.len()).find(|&g| totals.table.sums(g).0 == 0.0) {
+        None => Ok(()),
+        Some(g) => {
+            let place = input.place(totals.table.first_row(g));
+            Err(super::validate::row_fault(
+                &place.file,
+                place.row_in_file,
+                job.columns.group.clone(),
+                format!(
+                    "area '{}' (first on this row) has an expected count of zero: its population is zero in every stratum, or its strata's reference rates are; leave it out, or merge it with another area",
+                    totals.id_text(g)
+                ),
+            ))
+        }
+    }
+}
+
 /// The rejects table's column names: with `--outcome`, the outcome column
 /// stands where the count was, and there is no size column.
 fn reject_names(job: &Job) -> super::validate::ColumnNames {
     let mut names = job.columns.clone();
-    if let Aggregation::Outcome(column) = &job.aggregation {
-        names.count = column.clone();
-        names.size = String::new();
+    match &job.aggregation {
+        Aggregation::Outcome(column) => {
+            names.count = column.clone();
+            names.size = String::new();
+        }
+        Aggregation::Standardised(standard) => names.size = standard.population.clone(),
+        _ => {}
     }
     names
 }
 
-/// How one batch's rows give a (size, count): a trial's outcome, or the
-/// row's own counts.
+/// How one batch's rows give a (size, count): a trial's outcome, the row's
+/// own counts, or its events and expected count.
 enum RowReader<'a> {
     Outcome(OutcomeColumn),
     Counts(Box<BatchView<'a>>),
+    Strata { rows: StratumRows, strata: SegmentColumns, rates: &'a ReferenceRates },
 }
 
 impl<'a> RowReader<'a> {
-    fn of(job: &Job, batch: &'a InputBatch<'a>) -> Result<Self> {
-        Ok(match job.aggregation {
-            Aggregation::Outcome(_) => RowReader::Outcome(OutcomeColumn::of(&batch.columns[1])?),
+    fn of(job: &Job, batch: &'a InputBatch<'a>, rates: Option<&'a ReferenceRates>) -> Result<Self> {
+        Ok(match (&job.aggregation, rates) {
+            (Aggregation::Outcome(_), _) => RowReader::Outcome(OutcomeColumn::of(&batch.columns[1])?),
+            (Aggregation::Standardised(standard), Some(rates)) => RowReader::Strata {
+                rows: StratumRows::of(&batch.columns[1], &batch.columns[2])?,
+                strata: SegmentColumns::of(&batch.columns[3..3 + standard.strata.len()])?,
+                rates,
+            },
             _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms(), None)?)),
         })
+    }
+
+    /// (expected, events) of a row of an area in a stratum, or its fault.
+    fn stratum_row(
+        job: &Job,
+        (rows, strata, rates): (&StratumRows, &SegmentColumns, &ReferenceRates),
+        batch: &InputBatch<'_>,
+        row: usize,
+    ) -> Result<std::result::Result<(f64, f64), Rejection>> {
+        let Aggregation::Standardised(standard) = &job.aggregation else {
+            unreachable!("a strata reader reads strata")
+        };
+        let reject =
+            |column: &str, reason: String| Ok(Err(Rejection { row, column: column.to_string(), reason }));
+        let (events, population) = match rows.read([&batch.columns[1], &batch.columns[2]], row)? {
+            Ok(values) => values,
+            Err((0, reason)) => return reject(&job.columns.count, reason),
+            Err((_, reason)) => return reject(&standard.population, reason),
+        };
+        if let Some(c) = (0..standard.strata.len()).find(|&c| strata.is_missing(c, row)) {
+            return reject(&standard.strata[c], "is missing".to_string());
+        }
+        match rates.rate_of_row(strata, row) {
+            Some(rate) => Ok(Ok((population * rate, events))),
+            None => reject(
+                &standard.strata[0],
+                format!(
+                    "the stratum {} has no reference rate in {}",
+                    describe_stratum(&standard.strata, &strata.key(row)),
+                    rates.report().reference_file.as_deref().unwrap_or("the reference rates")
+                ),
+            ),
+        }
     }
 
     /// (size, count) of a row plainly valid as read (the common case, without
@@ -332,6 +430,7 @@ impl<'a> RowReader<'a> {
                 _ => None,
             },
             RowReader::Counts(view) => view.plainly_valid(job.model.terms(), row),
+            RowReader::Strata { .. } => None,
         }
     }
 
@@ -353,6 +452,9 @@ impl<'a> RowReader<'a> {
                 }))
             }
             RowReader::Counts(view) => view.check(job, row),
+            RowReader::Strata { rows, strata, rates } => {
+                Self::stratum_row(job, (rows, strata, rates), batch, row)
+            }
         }
     }
 
@@ -361,7 +463,9 @@ impl<'a> RowReader<'a> {
     fn cells(&self, batch: &InputBatch<'_>, row: usize) -> Result<[Cell; 2]> {
         Ok(match self {
             RowReader::Outcome(_) => [cell_at(&batch.columns[1], row)?, Cell::Missing],
-            RowReader::Counts(_) => [cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?],
+            RowReader::Counts(_) | RowReader::Strata { .. } => {
+                [cell_at(&batch.columns[1], row)?, cell_at(&batch.columns[2], row)?]
+            }
         })
     }
 }

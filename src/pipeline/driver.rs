@@ -69,6 +69,11 @@ pub(super) trait Source {
         placement: Placement,
         clock: &mut PhaseClock<'_>,
     ) -> Result<(ShiftGroups, StagedOutputs)>;
+
+    /// How the expected counts were made, for a source that made them.
+    fn standardisation(&self) -> Option<crate::summary::StandardisationReport> {
+        None
+    }
 }
 
 /// Runs `source` through the pipeline.
@@ -107,7 +112,8 @@ pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'
     };
     let (shift_groups, mut staged) = source.write(job, &scored, placement, clock)?;
     let counts = RowCounts { read: counted.rows as u64, rejected: counted.rejected as u64 };
-    let summary = summarise(job, counts, &scored, shift_groups);
+    let mut summary = summarise(job, counts, &scored, shift_groups);
+    summary.standardisation = source.standardisation();
     stage_pair_output(job, &scored, &mut staged)?;
     commit_outputs(job, &summary, staged)?;
     Ok(summary)

@@ -398,6 +398,11 @@ impl GroupTable {
         (slot.segment, part.id(slot))
     }
 
+    /// The 0-based input row group `group` first appeared on, after [`GroupTable::finish`].
+    pub fn first_row(&self, group: usize) -> usize {
+        self.slot(group).1.first_row as usize
+    }
+
     /// Group `group`'s summed (size, count), after [`GroupTable::finish`].
     pub fn sums(&self, group: usize) -> (f64, f64) {
         let (_, slot) = self.slot(group);

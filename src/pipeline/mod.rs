@@ -16,6 +16,7 @@ pub mod passes;
 mod prior;
 mod scoring;
 pub mod segments;
+mod standardise;
 pub mod validate;
 
 use crate::error::{Error, Result};
@@ -123,6 +124,20 @@ pub enum Aggregation {
     Outcome(String),
     /// A part of a group: counts and sizes are summed per group id.
     Sum,
+    /// An area's rows by stratum: events are summed, and the expected
+    /// count is the sum of population times the stratum's reference rate.
+    Standardised(Standardisation),
+}
+
+/// Indirect standardisation (`--population`, `--strata`, `--reference-rates`).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Standardisation {
+    /// The population column.
+    pub population: String,
+    /// The columns whose values make a stratum.
+    pub strata: Vec<String>,
+    /// The external standard's rates; None for the internal standard.
+    pub reference: Option<PathBuf>,
 }
 
 /// A credible level strictly between 0 and 1.

@@ -17,6 +17,15 @@ use crate::summary::{
 };
 use arrow_array::ArrayRef;
 
+/// The raw value's column: the model's, or `smr` (the trade's name for
+/// observed over expected) when the expected counts were made by standardisation.
+pub fn raw_column(job: &Job) -> &'static str {
+    match job.aggregation {
+        super::Aggregation::Standardised(_) => "smr",
+        _ => job.model.terms().raw_column,
+    }
+}
+
 /// The output columns after the group column, each as its value per pair
 /// of the table (every one is a function of the row's pair): the segment
 /// or covariate values, the counts under their input names, the raw value,
@@ -53,7 +62,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     columns.extend([
         (job.columns.count.clone(), counts),
         (job.columns.size.clone(), sizes),
-        (terms.raw_column.to_string(), PairValues::OptionalFloats(raw)),
+        (raw_column(job).to_string(), PairValues::OptionalFloats(raw)),
     ]);
     if let Some(covariates) = &scored.covariates {
         columns.push(("prior_mean".to_string(), PairValues::Floats(covariates.prior_mean.clone())));
@@ -336,6 +345,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             groups_flagged: flags.groups_flagged as u64,
             expected_false_flags: flags.expected_false,
         }),
+        standardisation: None,
         columns: Some(ColumnsReport {
             group: job.columns.group.clone(),
             count: job.columns.count.clone(),

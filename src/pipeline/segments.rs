@@ -156,7 +156,7 @@ impl SegmentColumns {
     }
 
     /// The row's key.
-    fn key(&self, row: usize) -> SegmentKey {
+    pub(super) fn key(&self, row: usize) -> SegmentKey {
         self.columns.iter().map(|c| c.value(row).and_then(|(values, at)| values.value_text(at))).collect()
     }
 
@@ -222,6 +222,11 @@ impl SegmentIndex {
         let hash = crate::pipeline::duplicates::hash_id(&self.scratch);
         let bucket = self.numbers.get(&hash)?;
         bucket.iter().find(|(key, _)| *key == self.scratch).map(|&(_, number)| number)
+    }
+
+    /// The key of segment `number`.
+    pub fn key(&self, number: u32) -> &SegmentKey {
+        &self.keys[number as usize]
     }
 
     /// Segments met.

@@ -167,7 +167,12 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
     let flag_bound = summary.flags.as_ref().map(|f| f.fdr_level);
     let event_column = summary.flags.as_ref().map(|f| format!("prob_{}", f.event));
     // Tables written before the summary's format version 2 call every raw value `raw_rate`.
-    let raw_column = if summary.format_version < 2 { "raw_rate" } else { model.terms().raw_column };
+    // Standardised runs call it `smr` (observed over expected).
+    let raw_column = match (summary.format_version, &summary.standardisation) {
+        (..=1, _) => "raw_rate",
+        (_, Some(_)) => "smr",
+        _ => model.terms().raw_column,
+    };
     let mut wanted: Vec<(&str, &str)> = vec![
         (columns.group.as_str(), "group"),
         (columns.count.as_str(), model.terms().count_role),

@@ -25,5 +25,6 @@ mod reference;
 mod report;
 mod scale;
 mod segments;
+mod standardisation;
 mod util;
 mod wording;

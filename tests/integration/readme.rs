@@ -79,7 +79,7 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         );
         compared += 1;
     }
-    assert_eq!(compared, 4, "the marketplace, sellers, returns and clinics outputs");
+    assert_eq!(compared, 5, "the marketplace, sellers, district bands, returns and clinics outputs");
 }
 
 /// The row of `group` in a CSV output.
@@ -196,6 +196,29 @@ fn the_district_figures_in_the_prose() {
     printed(s["prior"]["shape"].as_f64().unwrap(), 3, "6.008");
     printed(s["prior"]["rate"].as_f64().unwrap(), 3, "6.113");
     printed(s["prior"]["mean"].as_f64().unwrap(), 3, "0.983");
+}
+
+#[test]
+fn the_district_bands_figures_in_the_prose() {
+    let dir = scratch();
+    run(dir.path(), "fit --model gamma-poisson --input demo-data/district_bands.csv --group district_id --events cases --population population --strata age_band --above 1.2 --flag-fdr 0.1 --output b.csv");
+    let table = Csv::read(&dir.path().join("b.csv"));
+    let (ids, flagged) = (table.column("district_id"), table.column("flagged"));
+    let flag_of = |id: &str| flagged[ids.iter().position(|g| g == id).unwrap()] == "true";
+    let district = row(&table, "district_id", "district-0190");
+    printed(district("smr"), 2, "2.15");
+    printed(district("cases"), 0, "17");
+    printed(district("expected"), 2, "7.92");
+    printed(district("posterior_mean"), 2, "1.32");
+    assert!(!flag_of("district-0190"));
+    let highest = table.floats("smr").into_iter().fold(f64::MIN, f64::max);
+    assert_eq!(highest, district("smr"), "the highest SMR");
+    let hot: Vec<String> = (101..=112).map(|i| format!("district-{i:04}")).collect();
+    assert_eq!(hot.iter().filter(|id| flag_of(id)).count(), 7);
+    let district = row(&table, "district_id", "district-0101");
+    printed(district("smr"), 2, "1.70");
+    printed(district("cases"), 0, "14");
+    assert!(!flag_of("district-0101"));
 }
 
 #[test]

@@ -1,0 +1,32 @@
+"""Medians of the timed runs of a benchmark log (benches/common/timed_runs.sh):
+lines of labels, wall seconds and peak MB, tab-separated. The labels before
+the last one group the runs (a format, a size); the last names the variant.
+Each variant's median wall time and largest peak, and its ratio to the
+variant BASE of the same group.
+
+usage: python3 benches/common/medians.py LOG BASE
+"""
+import collections
+import statistics
+import sys
+
+
+def main() -> None:
+    log, base = sys.argv[1], sys.argv[2]
+    times, memory = collections.defaultdict(list), collections.defaultdict(list)
+    for line in open(log):
+        *labels, wall, peak = line.rstrip("\n").split("\t")
+        key = tuple(labels)
+        times[key].append(float(wall))
+        memory[key].append(int(peak))
+    for key in times:
+        group, variant = key[:-1], key[-1]
+        median = statistics.median(times[key])
+        reference = statistics.median(times[(*group, base)])
+        where = " ".join(group)
+        print(f"{where:>10} {variant:>13}: median {median:6.2f} s, peak {max(memory[key])} MB, "
+              f"{median / reference:.2f} x {base}")
+
+
+if __name__ == "__main__":
+    main()
