@@ -19,9 +19,11 @@ pub fn render_text(summary: &Summary) -> String {
         summary.model, summary.groups, summary.rows_read, summary.rows_rejected
     );
     if let Some(standard) = &summary.standardisation {
-        let (rate, standard_used) = match &standard.reference_file {
-            Some(file) => ("rate", format!("external standard: {file}")),
-            None => ("pooled rate", "internal standard".to_string()),
+        let file = standard.reference_file.as_deref().unwrap_or_default();
+        let (rate, standard_used) = match standard.standard.as_str() {
+            "external" => ("rate", format!("external standard: {file}")),
+            "saved" => ("rate", format!("the standard saved with the prior: {file}")),
+            _ => ("pooled rate", "internal standard".to_string()),
         };
         let _ = writeln!(
             out,

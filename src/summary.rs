@@ -83,10 +83,11 @@ pub struct Summary {
 /// Expected counts by indirect standardisation: the standard and its rates.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct StandardisationReport {
-    /// "internal" (each stratum's pooled rate over all areas) or "external"
-    /// (the rates of `reference_file`).
+    /// "internal" (each stratum's pooled rate over all areas), "external"
+    /// (the rates of `reference_file`), or "saved" (in a `score`: the rates
+    /// of the fit whose summary `reference_file` is).
     pub standard: String,
-    /// The reference rates' file, for an external standard.
+    /// The reference rates' file (external), or the saved prior's summary (saved).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reference_file: Option<String>,
     /// The population column.

@@ -8,7 +8,7 @@
 
 use super::segments::{SegmentColumns, SegmentIndex};
 use super::validate::{Rejection, MAX_EXACT_COUNT};
-use super::{Job, Standardisation};
+use super::{Job, PriorSource, Standardisation};
 use crate::error::{Error, Result};
 use crate::io::cells::{cell_at, Cell, NumericColumn};
 use crate::io::input::{Input, STRATUM_ROLE};
@@ -93,13 +93,37 @@ pub fn describe_stratum(columns: &[String], values: &[Option<String>]) -> String
 }
 
 impl ReferenceRates {
-    /// The rates of the run's standard: read from its file, or pooled from
-    /// the input (one reading, before the areas are summed).
+    /// The rates of the run's standard: read from its file; in a `score`
+    /// whose saved prior was fitted to standardised counts, that fit's rates
+    /// (so the scored areas are measured by the same yardstick); else pooled
+    /// from the input (one reading, before the areas are summed).
     pub fn of(job: &Job, standard: &Standardisation) -> Result<Self> {
-        match &standard.reference {
-            Some(path) => Self::external(job, standard, path),
-            None => Self::internal(job, standard),
+        match (&standard.reference, &job.prior) {
+            (Some(path), _) => Self::external(job, standard, path),
+            (None, PriorSource::Saved { path, summary }) if summary.standardisation.is_some() => {
+                let saved = summary.standardisation.as_ref().expect("checked");
+                Self::saved(standard, saved, path)
+            }
+            (None, _) => Self::internal(job, standard),
         }
+    }
+
+    fn saved(standard: &Standardisation, saved: &StandardisationReport, path: &Path) -> Result<Self> {
+        if saved.strata != standard.strata {
+            return Err(Error::Usage(format!(
+                "the saved prior's expected counts were made over the strata {}, not {}: give the same --strata, or --reference-rates",
+                saved.strata.join(", "),
+                standard.strata.join(", ")
+            )));
+        }
+        let index = saved
+            .rates
+            .iter()
+            .enumerate()
+            .map(|(at, rate)| (key_bytes(&rate.stratum.iter().cloned().map(Some).collect::<Vec<_>>()), at))
+            .collect();
+        let file = Some(path.display().to_string());
+        Ok(ReferenceRates::new(index, report(standard, "saved", file, saved.rates.clone())))
     }
 
     fn internal(job: &Job, standard: &Standardisation) -> Result<Self> {

@@ -215,3 +215,35 @@ fn what_standardisation_does_not_combine_with_is_refused() {
     ];
     assert_refused(dir.path(), &args, "give --population COLUMN", "out.csv");
 }
+
+#[test]
+fn a_score_with_a_saved_prior_measures_by_the_fits_standard() {
+    // Scoring only some districts: an internal standard pooled from them alone
+    // would move every expected count; the saved rates keep the fit's.
+    let dir = tempfile::tempdir().unwrap();
+    let input = standard("area_bands.csv");
+    run_ok(dir.path(), &fit_args(&input, "fit.csv"));
+    std::fs::rename(dir.path().join("summary.json"), dir.path().join("prior.json")).unwrap();
+    let text = std::fs::read_to_string(&input).unwrap();
+    let some: Vec<&str> = text.lines().filter(|l| !l.starts_with("district-0")).collect();
+    write(dir.path(), "later.csv", &(some.join("\n") + "\n"));
+    let mut args = fit_args("later.csv", "scored.csv");
+    args[1] = "score";
+    args.extend(["--prior", "prior.json"]);
+    run_ok(dir.path(), &args);
+    let (fit, scored) = (Csv::read(&dir.path().join("fit.csv")), Csv::read(&dir.path().join("scored.csv")));
+    let ids = fit.column("district");
+    let expected = fit.floats("expected");
+    let mut compared = 0;
+    for (id, value) in scored.column("district").iter().zip(scored.floats("expected")) {
+        let at = ids.iter().position(|d| d == id).unwrap();
+        assert_eq!(value, expected[at], "{id}");
+        compared += 1;
+    }
+    assert_eq!(compared, 30);
+    let report = summary(&dir.path().join("summary.json"))["standardisation"].clone();
+    assert_eq!(
+        (report["standard"].as_str(), report["reference_file"].as_str()),
+        (Some("saved"), Some("prior.json"))
+    );
+}
