@@ -913,7 +913,6 @@ fn standardisation(
             table.exposure.is_some(),
             "--exposure (the expected counts are made from --population and --strata)",
         ),
-        (!table.by.is_empty(), "--by (not yet)"),
         (
             !table.covariates.is_empty()
                 || !table.covariates_log.is_empty()
@@ -928,10 +927,10 @@ fn standardisation(
         return usage("--population needs the events column: give --events COLUMN".into());
     };
     for (i, column) in table.strata.iter().enumerate() {
-        if column.is_empty() || table.strata[..i].contains(column) || [&events, &population].contains(&column)
-        {
+        let clash = [&events, &population].contains(&column) || table.by.contains(column);
+        if column.is_empty() || table.strata[..i].contains(column) || clash {
             return usage(format!(
-                "--strata: '{column}' is empty, named twice, or the events or population column"
+                "--strata: '{column}' is empty, named twice, or also the events, population or a --by column"
             ));
         }
     }

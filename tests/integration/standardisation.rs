@@ -187,7 +187,7 @@ fn what_standardisation_does_not_combine_with_is_refused() {
     assert_refused(
         dir.path(),
         &with(&["--by", "age_band"]),
-        "--population does not combine with --by",
+        "also the events, population or a --by column",
         "out.csv",
     );
     let mut args = fit_args(&input, "out.csv");
@@ -246,4 +246,55 @@ fn a_score_with_a_saved_prior_measures_by_the_fits_standard() {
         (report["standard"].as_str(), report["reference_file"].as_str()),
         (Some("saved"), Some("prior.json"))
     );
+}
+
+/// `text` (a CSV with a `district` column) with a `region` column after it:
+/// north for even district numbers, south for odd.
+fn with_regions(text: &str) -> String {
+    let mut lines = text.lines();
+    let mut out = format!("{},region\n", lines.next().unwrap());
+    for line in lines {
+        let number: u32 = line.split(',').next().unwrap().trim_start_matches("district-").parse().unwrap();
+        out += &format!("{line},{}\n", if number % 2 == 0 { "north" } else { "south" });
+    }
+    out
+}
+
+#[test]
+fn segments_of_areas_fit_their_own_priors_on_the_expected_counts() {
+    // The same segments run on pandas' observed-and-expected table.
+    let dir = tempfile::tempdir().unwrap();
+    let bands = std::fs::read_to_string(standard("area_bands.csv")).unwrap();
+    write(dir.path(), "bands.csv", &with_regions(&bands));
+    let summed = std::fs::read_to_string(standard("expected_internal.csv")).unwrap();
+    write(dir.path(), "summed.csv", &with_regions(&summed));
+    let segments = ["--by", "region", "--min-groups", "10"];
+    let mut args = fit_args("bands.csv", "from_bands.csv");
+    args.extend(segments);
+    run_ok(dir.path(), &args);
+    let mut args =
+        vec!["--quiet", "fit", "--model", "gamma-poisson", "--input", "summed.csv", "--group", "district"];
+    args.extend([
+        "--events",
+        "cases",
+        "--exposure",
+        "expected",
+        "--output",
+        "from_sums.csv",
+        "--summary",
+        "sums.json",
+    ]);
+    args.extend(segments);
+    run_ok(dir.path(), &args);
+    let (bands, sums) =
+        (Csv::read(&dir.path().join("from_bands.csv")), Csv::read(&dir.path().join("from_sums.csv")));
+    assert_eq!(bands.column("region"), sums.column("region"));
+    for name in ["posterior_mean", "interval_lo", "interval_hi"] {
+        for (b, s) in paired(&bands.floats(name), &sums.floats(name), name) {
+            assert!(relative(*b, *s) < 1e-10, "{name}: {b} against {s}");
+        }
+    }
+    let segments = summary(&dir.path().join("summary.json"))["segments"].clone();
+    assert_eq!(segments.as_array().unwrap().len(), 2);
+    assert!(segments[0]["fallback"].is_null(), "each region fits its own prior: {segments}");
 }
