@@ -82,7 +82,7 @@ def check(parquet_path, csv_path, label):
     for key in (b"ratepool.version", b"ratepool.level", b"ratepool.intervals"):
         assert key in footer, f"{label}: no {key} in the footer"
     check_schema(parquet_path, model, names, label)
-    raw = RAW_COLUMNS[model]
+    raw = "smr" if "smr" in names else RAW_COLUMNS[model]
     total = duckdb.sql(
         f"SELECT count(*), count({raw}), count(*) FILTER (WHERE flagged) FROM '{parquet_path}'"
     ).fetchall()[0]
@@ -91,7 +91,7 @@ def check(parquet_path, csv_path, label):
 
 
 RAW_COLUMNS = {"beta-binomial": "raw_proportion", "gamma-poisson": "raw_rate", "normal-normal": "raw_estimate"}
-FLOATS = set(RAW_COLUMNS.values()) | {"prior_mean", "posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
+FLOATS = set(RAW_COLUMNS.values()) | {"smr", "prior_mean", "posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "pool_weight",
           "prob_above", "prob_below", "prob_top", "flag_fdr"}
 INTEGERS = {"rank_mean", "rank_conservative"}
 BOOLEANS = {"flagged", "prior_fallback"}
@@ -165,6 +165,9 @@ def main():
             ("districts", ["--input", "demo-data/districts.csv", "--model", "gamma-poisson", "--group",
                            "district_id", "--events", "observed_cases", "--exposure", "expected_cases",
                            "--above", "1", "--flag-fdr", "0.1", "--intervals", "corrected"]),
+            ("district_bands", ["--input", "demo-data/district_bands.csv", "--model", "gamma-poisson", "--group",
+                                "district_id", "--events", "cases", "--population", "population", "--strata",
+                                "age_band", "--above", "1.2", "--flag-fdr", "0.1", "--ranks"]),
             ("clinics", ["--input", "demo-data/clinic_waits.csv", "--model", "normal-normal", "--group",
                          "clinic_id", "--estimate", "mean_wait_minutes", "--std-error", "wait_se", "--by", "zone",
                          "--rank-lowest-first", "--below", "20", "--flag-fdr", "0.1"]),
