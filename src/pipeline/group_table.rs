@@ -298,9 +298,9 @@ impl<C> PartFeed<C> {
 pub struct GroupTable {
     parts: Vec<Part>,
     bits: u32,
-    /// (part, slot) of each group in the order the groups first appeared,
-    /// once [`GroupTable::finish`] has merged the parts.
-    order: Vec<(u32, u32)>,
+    /// The groups in the order they first appeared, once
+    /// [`GroupTable::finish`] has merged the parts (and let their slots go).
+    summed: Summed,
 }
 
 impl Default for GroupTable {
@@ -313,7 +313,7 @@ impl GroupTable {
     /// A table of `2^bits` parts, each summed on a thread of its own by
     /// [`GroupTable::sum_on_threads`].
     pub fn new(bits: u32) -> Self {
-        GroupTable { parts: (0..1 << bits).map(|_| Part::new()).collect(), bits, order: Vec::new() }
+        GroupTable { parts: (0..1 << bits).map(|_| Part::new()).collect(), bits, summed: Summed::default() }
     }
 
     /// Runs `feed`, which hands batches of rows to a [`PartFeed`], while a
@@ -368,7 +368,10 @@ impl GroupTable {
         part.add(at, count, size, row)
     }
 
-    /// Puts the groups of every part in the order they first appeared.
+    /// Puts the groups of every part in the order they first appeared, in
+    /// arrays read in that order, and lets the slots go: the fit and the
+    /// output that follow read the groups in order, and a slot table is
+    /// twice or more the memory of its groups.
     pub fn finish(&mut self) {
         let mut order: Vec<(u32, u32)> = Vec::with_capacity(self.len());
         for (p, part) in self.parts.iter().enumerate() {
@@ -378,35 +381,73 @@ impl GroupTable {
             // Each part's groups are already in order; the merge is a sort by first row.
             order.par_sort_unstable_by_key(|&(p, at)| self.parts[p as usize].slots[at as usize].first_row);
         }
-        self.order = order;
+        let mut summed = Summed::with_capacity(order.len());
+        for (p, at) in order {
+            let part = &self.parts[p as usize];
+            summed.push(part, &part.slots[at as usize]);
+        }
+        self.summed = summed;
+        self.parts.clear();
     }
 
     /// Groups held.
     pub fn len(&self) -> usize {
-        self.parts.iter().map(|part| part.len).sum()
-    }
-
-    fn slot(&self, group: usize) -> (&Part, &Slot) {
-        let (p, at) = self.order[group];
-        let part = &self.parts[p as usize];
-        (part, &part.slots[at as usize])
+        if self.parts.is_empty() {
+            self.summed.sizes.len()
+        } else {
+            self.parts.iter().map(|part| part.len).sum()
+        }
     }
 
     /// Group `group`'s segment and id bytes, after [`GroupTable::finish`].
     pub fn key(&self, group: usize) -> (u32, &[u8]) {
-        let (part, slot) = self.slot(group);
-        (slot.segment, part.id(slot))
+        let summed = &self.summed;
+        let start = if group == 0 { 0 } else { summed.key_ends[group - 1] };
+        (summed.segments[group], &summed.keys[start..summed.key_ends[group]])
     }
 
     /// The 0-based input row group `group` first appeared on, after [`GroupTable::finish`].
     pub fn first_row(&self, group: usize) -> usize {
-        self.slot(group).1.first_row as usize
+        self.summed.first_rows[group] as usize
     }
 
     /// Group `group`'s summed (size, count), after [`GroupTable::finish`].
     pub fn sums(&self, group: usize) -> (f64, f64) {
-        let (_, slot) = self.slot(group);
-        (slot.size, slot.count)
+        (self.summed.sizes[group], self.summed.counts[group])
+    }
+}
+
+/// The groups in the order they first appeared, one array a field.
+#[derive(Default)]
+struct Summed {
+    sizes: Vec<f64>,
+    counts: Vec<f64>,
+    segments: Vec<u32>,
+    first_rows: Vec<u64>,
+    /// The end of each group's id in `keys`.
+    key_ends: Vec<usize>,
+    keys: Vec<u8>,
+}
+
+impl Summed {
+    fn with_capacity(groups: usize) -> Self {
+        Summed {
+            sizes: Vec::with_capacity(groups),
+            counts: Vec::with_capacity(groups),
+            segments: Vec::with_capacity(groups),
+            first_rows: Vec::with_capacity(groups),
+            key_ends: Vec::with_capacity(groups),
+            keys: Vec::new(),
+        }
+    }
+
+    fn push(&mut self, part: &Part, slot: &Slot) {
+        self.sizes.push(slot.size);
+        self.counts.push(slot.count);
+        self.segments.push(slot.segment);
+        self.first_rows.push(slot.first_row);
+        self.keys.extend_from_slice(part.id(slot));
+        self.key_ends.push(self.keys.len());
     }
 }
 
