@@ -83,8 +83,6 @@ pub struct SumTooLarge {
 /// One table of groups.
 struct Part {
     slots: Vec<Slot>,
-    /// Groups held.
-    len: usize,
     /// Slot of each group, in the order the groups first appeared.
     order: Vec<u32>,
     long_keys: Vec<u8>,
@@ -92,7 +90,7 @@ struct Part {
 
 impl Part {
     fn new() -> Self {
-        Part { slots: vec![FREE_SLOT; 1024], len: 0, order: Vec::new(), long_keys: Vec::new() }
+        Part { slots: vec![FREE_SLOT; 1024], order: Vec::new(), long_keys: Vec::new() }
     }
 
     fn mask(&self) -> usize {
@@ -124,7 +122,7 @@ impl Part {
 
     /// The slot of (segment, id), made (first seen at `row`) when new.
     fn find_or_insert(&mut self, hash: u64, segment: u32, id: &[u8], row: u64) -> usize {
-        if (self.len + 1) * 4 > self.slots.len() * 3 {
+        if (self.order.len() + 1) * 4 > self.slots.len() * 3 {
             self.grow();
         }
         let mask = self.mask();
@@ -153,7 +151,6 @@ impl Part {
         let group = u32::try_from(self.order.len()).expect("fewer than 2^32 groups a part");
         self.slots[at] = Slot { hash, count: 0.0, size: 0.0, first_row: row, segment, key_len, group, key };
         self.order.push(u32::try_from(at).expect("fewer than 2^32 slots a part"));
-        self.len += 1;
         at
     }
 
@@ -221,9 +218,10 @@ pub struct BatchRows {
 }
 
 impl BatchRows {
-    /// Room for `rows` rows.
-    pub fn with_capacity(rows: usize) -> Self {
+    /// No rows yet of the batch starting at `first_row`, with room for `rows`.
+    pub fn new(first_row: usize, rows: usize) -> Self {
         BatchRows {
+            first_row: first_row as u64,
             rows: Vec::with_capacity(rows),
             segments: Vec::with_capacity(rows),
             counts: Vec::with_capacity(rows),
@@ -231,15 +229,6 @@ impl BatchRows {
             hashes: Vec::with_capacity(rows),
             ..Default::default()
         }
-    }
-
-    /// Empties the rows for the batch starting at `first_row`.
-    pub fn start(&mut self, first_row: usize) {
-        self.first_row = first_row as u64;
-        self.rows.clear();
-        self.segments.clear();
-        self.counts.clear();
-        self.sizes.clear();
     }
 
     /// Adds `row` of the batch, of a group in `segment`, adding (count, size).
@@ -395,7 +384,7 @@ impl GroupTable {
         if self.parts.is_empty() {
             self.summed.sizes.len()
         } else {
-            self.parts.iter().map(|part| part.len).sum()
+            self.parts.iter().map(|part| part.order.len()).sum()
         }
     }
 
@@ -489,8 +478,7 @@ mod tests {
             let mut first_row = 0;
             for batch in batches {
                 let array: ArrayRef = Arc::new(StringArray::from(batch.clone()));
-                let mut rows = BatchRows::default();
-                rows.start(first_row);
+                let mut rows = BatchRows::new(first_row, batch.len());
                 for row in 0..batch.len() {
                     rows.push(row, 0, ((first_row + row) % 3) as f64, 1.0);
                 }
@@ -527,7 +515,7 @@ mod tests {
         let long = [b'z'; 40];
         let c = part.find_or_insert(7, 0, &long, 2);
         let d = part.find_or_insert(7, 1, b"first", 3);
-        assert_eq!(part.len, 4);
+        assert_eq!(part.order.len(), 4);
         assert_eq!((part.find_or_insert(7, 0, b"second", 4), part.find_or_insert(7, 0, &long, 5)), (b, c));
         assert_eq!(part.find_or_insert(7, 1, b"first", 6), d);
         assert_ne!(a, d, "one id in two segments is two groups");
@@ -541,8 +529,7 @@ mod tests {
             for batch in 0..3 {
                 let ids: Vec<String> = (0..64).map(|r| format!("g{}", r % 16)).collect();
                 let array: ArrayRef = Arc::new(StringArray::from(ids));
-                let mut rows = BatchRows::default();
-                rows.start(batch * 64);
+                let mut rows = BatchRows::new(batch * 64, 64);
                 for row in 0..64 {
                     // Rows 16 on repeat rows 0 to 15; in batch 1, rows 21 and 40 pass the limit.
                     let count = if batch == 1 && [21, 40].contains(&row) { limit } else { 1.0 };

@@ -98,13 +98,16 @@ impl ReferenceRates {
     /// (so the scored areas are measured by the same yardstick); else pooled
     /// from the input (one reading, before the areas are summed).
     pub fn of(job: &Job, standard: &Standardisation) -> Result<Self> {
-        match (&standard.reference, &job.prior) {
-            (Some(path), _) => Self::external(job, standard, path),
-            (None, PriorSource::Saved { path, summary }) if summary.standardisation.is_some() => {
-                let saved = summary.standardisation.as_ref().expect("checked");
-                Self::saved(standard, saved, path)
+        let saved = match &job.prior {
+            PriorSource::Saved { path, summary } => {
+                summary.standardisation.as_ref().map(|saved| (saved, path))
             }
-            (None, _) => Self::internal(job, standard),
+            PriorSource::Fit => None,
+        };
+        match (&standard.reference, saved) {
+            (Some(path), _) => Self::external(job, standard, path),
+            (None, Some((saved, path))) => Self::saved(standard, saved, path),
+            (None, None) => Self::internal(job, standard),
         }
     }
 
@@ -130,7 +133,7 @@ impl ReferenceRates {
         let mut columns =
             vec![(job.columns.count.as_str(), "events"), (standard.population.as_str(), "population")];
         columns.extend(standard.strata.iter().map(|c| (c.as_str(), STRATUM_ROLE)));
-        let input = Input::open(&job.input, job.delimiter, &columns, 65_536)?;
+        let input = Input::open(&job.input, job.delimiter, &columns, super::DEFAULT_BATCH_ROWS)?;
         // The strata met, and each one's (events, population).
         let mut index = SegmentIndex::default();
         let mut sums: Vec<(f64, f64)> = Vec::new();
@@ -179,7 +182,7 @@ impl ReferenceRates {
         let mut columns: Vec<(&str, &str)> =
             standard.strata.iter().map(|c| (c.as_str(), STRATUM_ROLE)).collect();
         columns.push(("rate", "reference rate"));
-        let input = Input::open(path, job.delimiter, &columns, 65_536)?;
+        let input = Input::open(path, job.delimiter, &columns, super::DEFAULT_BATCH_ROWS)?;
         let width = standard.strata.len();
         let (mut index, mut rates, mut first_rows) = (HashMap::new(), Vec::new(), Vec::new());
         input.for_each_batch(|batch| {
