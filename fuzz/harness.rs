@@ -62,6 +62,7 @@ pub fn exercise(data: &[u8]) {
         seed: ratepool::pipeline::DEFAULT_SEED,
         intervals: Default::default(),
         likelihood: if restricted { Likelihood::Restricted } else { Likelihood::Marginal },
+        prior_shape: Default::default(),
         pair_output: None,
         invalid,
         prior: PriorSource::Fit,

@@ -35,6 +35,12 @@ district_bands.csv  400 invented districts by five age bands (seed 20261207):
                  rates rise with age; the districts' relative risks are
                  Gamma(shape 20, rate 20) around 1, except a hidden hot spot of
                  twelve districts (district-0101 to district-0112) at 1.6 times.
+storefronts.csv  3,000 invented storefronts' visits and purchases (seed
+                 20261208): two kinds of storefront the table does not name.
+                 Most (70%) convert visits at about 6% (Beta(30, 470)); the
+                 rest were opened in bulk by one importer and convert at about
+                 1% (Beta(10, 990)). Visits are heavy-tailed, 5 to a few
+                 thousand. One Beta prior cannot hold both humps.
 No real people, sellers, brands or places are represented.
 """
 
@@ -165,6 +171,18 @@ def district_bands():
     (OUT / "district_bands.csv").write_text("\n".join(lines) + "\n")
 
 
+def storefronts():
+    rng = np.random.default_rng(20261208)
+    count = 3_000
+    bulk = rng.random(count) < 0.3
+    rate = np.where(bulk, rng.beta(10.0, 990.0, count), rng.beta(30.0, 470.0, count))
+    visits = 5 + np.floor(rng.lognormal(mean=4.5, sigma=1.0, size=count)).astype(np.int64)
+    purchases = rng.binomial(visits, rate)
+    lines = ["storefront_id,purchases,visits"]
+    lines += [f"store-{i:04d},{k},{n}" for i, (k, n) in enumerate(zip(purchases, visits), start=1)]
+    (OUT / "storefronts.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
@@ -176,6 +194,7 @@ def main():
     sellers()
     district_profiles()
     district_bands()
+    storefronts()
 
 
 if __name__ == "__main__":

@@ -7,8 +7,8 @@ use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
     load_summary, Aggregation, CovariateColumn, CovariateRole, FlagEvent, FlagRule, Intervals, InvalidRows,
-    Job, Layout, Level, Likelihood, Model, PriorSource, RankOrder, Standardisation, Thresholds, TopChoice,
-    TopRule,
+    Job, Layout, Level, Likelihood, Model, PriorShape, PriorSource, RankOrder, Standardisation, Thresholds,
+    TopChoice, TopRule,
 };
 use crate::progress::{Terminal, Watch};
 use clap::{Args, Parser, Subcommand, ValueEnum};
@@ -647,6 +647,15 @@ pub struct TableArgs {
     pub run: RunArgs,
 }
 
+/// The shape of a fitted prior.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum PriorShapeArg {
+    /// The model's own law.
+    Parametric,
+    /// Masses on a grid.
+    Free,
+}
+
 /// Options of `fit`.
 #[derive(Debug, Args)]
 pub struct FitArgs {
@@ -659,6 +668,17 @@ pub struct FitArgs {
     /// normal-normal's tau^2 by ml (default) or reml
     #[arg(long_help = "How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated mean: the usual choice when groups are few).", long, value_enum, value_name = "METHOD", default_value_t = VarianceMethodArg::Ml, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub variance_method: VarianceMethodArg,
+    /// parametric (default) or free (any shape)
+    #[arg(long_help = "The shape of the prior: `parametric` (the model's own law: Beta, Gamma or normal, with one hump) or `free` (masses on a grid of rates, of any shape, such as two humps; it maximises the same marginal likelihood, and the summary compares it with the parametric prior).", long, value_enum, value_name = "SHAPE", default_value_t = PriorShapeArg::Parametric, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
+    pub prior_shape: PriorShapeArg,
+    /// Points of a free prior's grid (default 300)
+    #[arg(
+        long_help = "The number of points of a free prior's grid, from 10 to 5000 (default 300): evenly spaced from the smallest raw rate to the largest, on the log or logit scale where they span more than a factor of 10.",
+        long,
+        value_name = "N",
+        help_heading = "Analysis"
+    )]
+    pub grid_points: Option<usize>,
     /// Input is a pair table; COLUMN counts its groups
     #[arg(
         long_help = "The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL GROUP BY) and this column holds how many groups share each pair; only the summary (the prior) is written.",
@@ -967,6 +987,51 @@ fn refuse_covariates_with(
     }
 }
 
+/// What a free prior does not yet combine with, refused with the reason.
+fn refuse_free_prior_with(table: &TableArgs, shape: PriorShape) -> Result<()> {
+    if shape == PriorShape::Parametric {
+        return Ok(());
+    }
+    let refusal = if !table.covariates.is_empty()
+        || !table.covariates_log.is_empty()
+        || !table.covariates_levels.is_empty()
+    {
+        Some("covariates: a free prior has no centre for them to move; segments (--by) give each kind of group its own free prior")
+    } else if table.intervals == IntervalsArg::Corrected {
+        Some("--intervals corrected: the correction integrates over a parametric prior's two parameters; a free prior's intervals are plug-in")
+    } else if table.top.is_some() {
+        Some("--top: the draws of prob_top are from parametric posteriors; rank by posterior mean with --ranks instead")
+    } else {
+        None
+    };
+    match refusal {
+        Some(why) => Err(Error::Usage(format!("a free prior does not combine with {why}"))),
+        None => Ok(()),
+    }
+}
+
+/// The shape of the prior a fit looks for.
+fn prior_shape_of(args: &FitArgs) -> Result<PriorShape> {
+    match (args.prior_shape, args.grid_points) {
+        (PriorShapeArg::Parametric, None) => Ok(PriorShape::Parametric),
+        (PriorShapeArg::Parametric, Some(_)) => {
+            Err(Error::Usage("--grid-points applies to a free prior: give --prior-shape free".to_string()))
+        }
+        (PriorShapeArg::Free, points) => {
+            let points = points.unwrap_or(crate::core::model::free::DEFAULT_GRID_POINTS);
+            if !(10..=5000).contains(&points) {
+                return Err(Error::Usage(format!("--grid-points must be from 10 to 5000, got {points}")));
+            }
+            if args.variance_method == VarianceMethodArg::Reml {
+                return Err(Error::Usage(
+                    "--variance-method reml restricts a normal prior's likelihood; a free prior has no variance parameter to restrict".to_string(),
+                ));
+            }
+            Ok(PriorShape::Free { points })
+        }
+    }
+}
+
 /// The rule of `--top K`.
 fn top_rule(table: &TableArgs) -> Result<Option<TopRule>> {
     let Some(k) = table.top else { return Ok(None) };
@@ -1080,10 +1145,11 @@ fn rows_and_columns(
 
 fn job_of(
     table: &TableArgs,
-    (pair_counts, likelihood): (Option<&String>, Likelihood),
+    (pair_counts, likelihood, prior_shape): (Option<&String>, Likelihood, PriorShape),
     model: Model,
     prior: PriorSource,
 ) -> Result<Job> {
+    refuse_free_prior_with(table, prior_shape)?;
     let (aggregation, count, size) = rows_and_columns(table, model, pair_counts.is_some())?;
     let invalid = match (table.on_invalid, &table.rejects) {
         (InvalidArg::Error, None) => InvalidRows::Fail,
@@ -1125,6 +1191,7 @@ fn job_of(
             IntervalsArg::Corrected => Intervals::Corrected,
         },
         likelihood,
+        prior_shape,
         pair_output: table.pair_output.clone(),
         ranks: match (table.ranks, table.rank_lowest_first) {
             (_, true) => Some(RankOrder::LowestFirst),
@@ -1335,7 +1402,7 @@ impl Command {
                         )))
                     }
                 };
-                let rows = (args.pair_counts.as_ref(), likelihood);
+                let rows = (args.pair_counts.as_ref(), likelihood, prior_shape_of(&args)?);
                 job_of(&args.table, rows, args.model, PriorSource::Fit)
             }
             Command::Score(args) => {
@@ -1364,9 +1431,14 @@ impl Command {
                     )));
                 }
                 let model = args.model.unwrap_or(saved);
+                // A saved free prior refuses what a free fit refuses.
+                let shape = match summary.fitted_prior.free_part() {
+                    Some(free) => PriorShape::Free { points: free.grid.len() },
+                    None => PriorShape::Parametric,
+                };
                 job_of(
                     &args.table,
-                    (None, Likelihood::Marginal),
+                    (None, Likelihood::Marginal, shape),
                     model,
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
                 )

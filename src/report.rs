@@ -1,7 +1,9 @@
 //! The short text of a run's summary shown on the terminal.
 
 use crate::core::model::Model;
-use crate::summary::{p_value_figure, p_value_text, plain, three_digits, CovariatePrior, Summary};
+use crate::summary::{
+    p_value_figure, p_value_text, plain, three_digits, CovariatePrior, FreePriorReport, Summary,
+};
 use std::fmt::Write;
 
 fn show(value: Option<f64>) -> String {
@@ -36,6 +38,7 @@ pub fn render_text(summary: &Summary) -> String {
     let model = Model::from_name(&summary.model);
     match (prior.covariates(), model) {
         (Some(covariates), Some(model)) => covariate_lines(&mut out, summary, covariates, model),
+        _ if prior.free_part().is_some() => free_lines(&mut out, summary),
         _ => {
             let shape = match model {
                 Some(model) => prior.terminal_words(model.terms(), &show, &three_digits),
@@ -144,6 +147,59 @@ pub fn render_text(summary: &Summary) -> String {
     }
     // The warnings are not repeated here: the caller shows each once, on stderr.
     out
+}
+
+/// A free prior: its grid, its support and the comparison with the
+/// parametric prior on the same data.
+fn free_lines(out: &mut String, summary: &Summary) {
+    let prior = &summary.fitted_prior;
+    let Some(free) = prior.free_part() else { return };
+    let _ = writeln!(
+        out,
+        "  prior        free: masses on {} grid points ({} spacing), {} holding at least {} of the mass; mean {:.6}, sd {}",
+        free.grid.len(),
+        free.spacing,
+        free.support.len(),
+        FreePriorReport::SHOWN_MASS,
+        prior.mean(),
+        three_digits(prior.get("sd").unwrap_or(f64::NAN))
+    );
+    let shown: Vec<String> =
+        free.support.iter().map(|[rate, mass]| format!("{} ({:.3})", plain(*rate), mass)).collect();
+    let _ = writeln!(out, "  support      {}", shown.join(", "));
+    let Some(comparison) = &summary.prior_comparison else { return };
+    match (&comparison.parametric_prior, comparison.log_likelihood_gain, &comparison.parametric_checks) {
+        (Some(parametric), Some(gain), Some(checks)) => {
+            let model = Model::from_name(&summary.model);
+            let shape = match model {
+                Some(model) => parametric.terminal_words(model.terms(), &show, &three_digits),
+                None => "the parametric prior".to_string(),
+            };
+            let _ = writeln!(
+                out,
+                "  parametric   {shape}: log marginal likelihood {:.4} ({} lower); calibration {}: {}",
+                comparison.parametric_log_marginal_likelihood.unwrap_or(f64::NAN),
+                plain(gain),
+                p_value_text(checks.calibration.p_value),
+                checks.verdict
+            );
+            let flags = comparison
+                .flags_changed
+                .map_or(String::new(), |changed| format!("{changed} groups change their flag, "));
+            let _ = writeln!(
+                out,
+                "  shapes       {flags}{} groups move more than 10 ranks by posterior mean between the two priors",
+                comparison.moved_over_ten_ranks.unwrap_or(0)
+            );
+        }
+        _ => {
+            let _ = writeln!(
+                out,
+                "  parametric   not fitted: {}",
+                comparison.parametric_failure.as_deref().unwrap_or("no reason recorded")
+            );
+        }
+    }
 }
 
 /// A covariate prior: its law and common parameter, the coefficient table

@@ -73,6 +73,10 @@ pub struct Summary {
     /// `prob_top` (which rates are best); null without either.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub rank_order: Option<String>,
+    /// With `--prior-shape free`: the free prior against the parametric one
+    /// fitted to the same data.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub prior_comparison: Option<ShapeComparison>,
     /// How the expected counts were made, with `--population` and `--strata`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub standardisation: Option<StandardisationReport>,
@@ -305,7 +309,36 @@ fn plug_in() -> String {
 pub struct FittedPrior {
     entries: Vec<(String, Option<f64>)>,
     covariates: Option<Box<CovariatePrior>>,
+    free: Option<Box<FreePriorReport>>,
 }
+
+/// The free part of a prior (`--prior-shape free`): masses on a grid of
+/// rates, written after its mean and sd in the same object.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FreePriorReport {
+    /// "free" (the key is not "shape", a Gamma prior's parameter).
+    pub prior_shape: String,
+    /// How the grid is spaced: "linear", "log" or "logit".
+    pub spacing: String,
+    /// The points holding at least [`FreePriorReport::SHOWN_MASS`] of the
+    /// mass, as [rate, mass]: what the prior looks like.
+    pub support: Vec<[f64; 2]>,
+    /// The certified bound on how far the fit's log marginal likelihood is
+    /// below the maximum on the grid (0 for a point mass).
+    pub duality_gap: f64,
+    /// Every point of the grid.
+    pub grid: Vec<f64>,
+    /// The mass at each point of the grid (what `score --prior` reads).
+    pub masses: Vec<f64>,
+}
+
+impl FreePriorReport {
+    /// The least mass of a point listed in `support`.
+    pub const SHOWN_MASS: f64 = 1e-3;
+}
+
+/// The keys [`FreePriorReport`] writes into the prior's object.
+const FREE_KEYS: [&str; 6] = ["prior_shape", "spacing", "support", "duality_gap", "grid", "masses"];
 
 /// The covariate part of a prior: how each covariate entered, the
 /// coefficients of the linear predictor on the model's link, and the test
@@ -368,6 +401,14 @@ impl Serialize for FittedPrior {
             map.serialize_entry("covariates", &covariates.covariates)?;
             map.serialize_entry("likelihood_ratio_test", &covariates.likelihood_ratio_test)?;
         }
+        if let Some(free) = &self.free {
+            map.serialize_entry("prior_shape", &free.prior_shape)?;
+            map.serialize_entry("spacing", &free.spacing)?;
+            map.serialize_entry("support", &free.support)?;
+            map.serialize_entry("duality_gap", &free.duality_gap)?;
+            map.serialize_entry("grid", &free.grid)?;
+            map.serialize_entry("masses", &free.masses)?;
+        }
         map.end()
     }
 }
@@ -383,9 +424,12 @@ impl<'de> Deserialize<'de> for FittedPrior {
             fn visit_map<A: serde::de::MapAccess<'de>>(self, mut map: A) -> Result<FittedPrior, A::Error> {
                 let mut entries = Vec::new();
                 let mut parts = serde_json::Map::new();
+                let mut free_parts = serde_json::Map::new();
                 while let Some(key) = map.next_key::<String>()? {
                     if COVARIATE_KEYS.contains(&key.as_str()) {
                         parts.insert(key, map.next_value::<serde_json::Value>()?);
+                    } else if FREE_KEYS.contains(&key.as_str()) {
+                        free_parts.insert(key, map.next_value::<serde_json::Value>()?);
                     } else {
                         let value = map.next_value::<Option<f64>>()?;
                         entries.push((key, value));
@@ -398,7 +442,14 @@ impl<'de> Deserialize<'de> for FittedPrior {
                         .map_err(serde::de::Error::custom)?;
                     Some(Box::new(part))
                 };
-                let prior = FittedPrior { entries, covariates };
+                let free = if free_parts.is_empty() {
+                    None
+                } else {
+                    let part: FreePriorReport = serde_json::from_value(serde_json::Value::Object(free_parts))
+                        .map_err(serde::de::Error::custom)?;
+                    Some(Box::new(part))
+                };
+                let prior = FittedPrior { entries, covariates, free };
                 match prior.get("mean") {
                     Some(_) => Ok(prior),
                     None => Err(serde::de::Error::missing_field("mean")),
@@ -407,6 +458,33 @@ impl<'de> Deserialize<'de> for FittedPrior {
         }
         deserializer.deserialize_map(Entries)
     }
+}
+
+/// A free prior against the parametric prior fitted to the same data, each
+/// scored the same way (per segment with `--by`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ShapeComparison {
+    /// The parametric prior fitted to all groups; null where it could not be.
+    pub parametric_prior: Option<FittedPrior>,
+    /// Why it could not be, when it could not.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub parametric_failure: Option<String>,
+    /// The log marginal likelihood of the data under the free prior(s).
+    pub free_log_marginal_likelihood: f64,
+    /// The same under the parametric prior(s).
+    pub parametric_log_marginal_likelihood: Option<f64>,
+    /// Free less parametric: at least 0 up to the grid's resolution, since
+    /// masses on a grid can take nearly any shape the family's law takes.
+    pub log_likelihood_gain: Option<f64>,
+    /// The checks of the parametric prior(s) on the same data (the free
+    /// prior's are the summary's `checks`).
+    pub parametric_checks: Option<ChecksReport>,
+    /// Groups whose flag differs between the two priors, with `--flag-fdr`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub flags_changed: Option<u64>,
+    /// Groups whose rank by posterior mean moves by more than 10 places
+    /// between the two priors.
+    pub moved_over_ten_ranks: Option<u64>,
 }
 
 /// The optimiser's account of the fit.
@@ -530,7 +608,18 @@ impl FittedPrior {
                 (key.to_string(), value)
             })
             .collect();
-        FittedPrior { entries, covariates: None }
+        FittedPrior { entries, covariates: None, free: None }
+    }
+
+    /// The wire form of a free prior: its mean and sd, and the grid.
+    pub fn free(mean: f64, sd: f64, free: FreePriorReport) -> Self {
+        let entries = vec![("mean".to_string(), Some(mean)), ("sd".to_string(), Some(sd))];
+        FittedPrior { entries, covariates: None, free: Some(Box::new(free)) }
+    }
+
+    /// The free part, for a free prior.
+    pub fn free_part(&self) -> Option<&FreePriorReport> {
+        self.free.as_deref()
     }
 
     /// The wire form of a covariate prior of the model described by
@@ -548,7 +637,7 @@ impl FittedPrior {
             (key.to_string(), common),
             (format!("{key}_se"), common_se),
         ];
-        FittedPrior { entries, covariates: Some(Box::new(covariates)) }
+        FittedPrior { entries, covariates: Some(Box::new(covariates)), free: None }
     }
 
     /// The covariate part, for a prior whose centre follows covariates.
@@ -565,6 +654,9 @@ impl FittedPrior {
     /// and no others, with a value wherever that model always writes one;
     /// the reason where it does not.
     pub fn check(&self, terms: &ModelTerms) -> Result<(), String> {
+        if self.free.is_some() {
+            return Err("it is a free prior (masses on a grid), not one of the family's law".to_string());
+        }
         if let Some(covariates) = &self.covariates {
             let columns: Vec<&str> = covariates.covariates.iter().map(|c| c.column.as_str()).collect();
             return Err(format!(
@@ -723,6 +815,25 @@ pub fn p_value_figure(p: f64) -> String {
 mod tests {
     use super::*;
     use crate::core::model::Model;
+
+    #[test]
+    fn a_free_prior_reads_back_and_is_no_familys_law() {
+        let free = FreePriorReport {
+            prior_shape: "free".to_string(),
+            spacing: "log".to_string(),
+            support: vec![[0.5, 0.25], [2.0, 0.75]],
+            duality_gap: 1e-9,
+            grid: vec![0.5, 1.0, 2.0],
+            masses: vec![0.25, 0.0, 0.75],
+        };
+        let prior = FittedPrior::free(1.625, 0.65, free);
+        let read: FittedPrior = serde_json::from_str(&serde_json::to_string(&prior).unwrap()).unwrap();
+        assert_eq!(read, prior);
+        assert_eq!(read.free_part().map(|f| f.masses.clone()), Some(vec![0.25, 0.0, 0.75]));
+        for model in Model::ALL {
+            assert!(read.check(model.terms()).unwrap_err().contains("free prior"));
+        }
+    }
 
     #[test]
     fn every_family_writes_a_prior_it_reads_back() {

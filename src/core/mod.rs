@@ -1,8 +1,9 @@
 //! The pure numerical core: special functions, distributions, the three
-//! models, the fit (with covariates or without), the bootstrap of a fitted prior and the posterior
+//! models (each with a free variant on a grid), the fit (with covariates or without), the bootstrap of a fitted prior and the posterior
 //! summaries. Nothing here reads or writes files.
 
 pub mod bootstrap;
+pub mod dense;
 pub mod diagnostics;
 pub mod fit;
 pub mod incomplete;

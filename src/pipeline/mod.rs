@@ -113,6 +113,19 @@ pub enum Intervals {
     Corrected,
 }
 
+/// The shape of the prior a fit looks for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum PriorShape {
+    /// The family's own law (Beta, Gamma, normal).
+    #[default]
+    Parametric,
+    /// Masses on a grid of this many rates, of any shape.
+    Free {
+        /// Grid points.
+        points: usize,
+    },
+}
+
 /// What a row of the input is.
 #[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub enum Aggregation {
@@ -278,6 +291,8 @@ pub struct Job {
     pub intervals: Intervals,
     /// The likelihood a fit maximises (restricted: `--variance-method reml`).
     pub likelihood: Likelihood,
+    /// The shape of the prior fitted (`--prior-shape`).
+    pub prior_shape: PriorShape,
     /// What a row is: a group, a trial, or a part of a group.
     pub aggregation: Aggregation,
     /// Segment columns: one prior per segment (empty: one prior for all).

@@ -512,6 +512,7 @@ mod tests {
             seed: crate::pipeline::DEFAULT_SEED,
             intervals: Default::default(),
             likelihood: Default::default(),
+            prior_shape: Default::default(),
             pair_output: None,
             invalid: InvalidRows::Fail,
             prior: PriorSource::Fit,

@@ -11,16 +11,19 @@
 
 use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, PlainFit};
 use super::segments::{SegmentKey, SegmentPairs};
-use super::{FlagEvent, Intervals, Job, Model, PhaseClock, PriorSource, TopChoice, TopRule, DRAW_BUDGET};
+use super::{
+    FlagEvent, Intervals, Job, Model, PhaseClock, PriorShape, PriorSource, TopChoice, TopRule, DRAW_BUDGET,
+};
 use crate::core::diagnostics::calibration;
 use crate::core::diagnostics::Pull;
 use crate::core::fit::{
     evaluate, fit_by, pooled_log_likelihood, Boundary, Fit, FitFailure, Likelihood, PoolingTest,
 };
 use crate::core::incomplete::gamma_tails;
+use crate::core::model::free::{fit_free, FreeFit, FreePrior, Spacing};
 use crate::core::model::{
     corrected_posterior, corrected_tails, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw,
-    RateRange, Uncertainty, Unidentifiable,
+    RateRange, ShapedPrior, Uncertainty, Unidentifiable,
 };
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{
@@ -30,8 +33,8 @@ use crate::core::ranking::{
 use crate::error::{Error, Result};
 use crate::io::sink::PairValues;
 use crate::summary::{
-    CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, SegmentTest, TestReport,
-    VarianceReport,
+    CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, FreePriorReport, SegmentTest,
+    ShapeComparison, TestReport, VarianceReport,
 };
 use arrow_array::ArrayRef;
 use rayon::prelude::*;
@@ -91,6 +94,8 @@ pub struct Scored {
     pub checks: ChecksReport,
     /// With covariates: each pair's covariate values and centre.
     pub covariates: Option<CovariateScore>,
+    /// With a free prior: how it compares with the parametric one.
+    pub comparison: Option<ShapeComparison>,
 }
 
 /// What the output holds of the covariates: per pair, its covariate
@@ -157,7 +162,7 @@ impl FamilyVisitor for ScorePairs<'_, '_> {
 /// A prior with its wire form, its account and its log marginal likelihood.
 #[derive(Clone)]
 struct Chosen {
-    prior: Prior,
+    prior: ShapedPrior,
     fitted_prior: FittedPrior,
     fit: FitReport,
     warnings: Vec<String>,
@@ -170,13 +175,17 @@ struct Chosen {
 
 /// The prior for all groups: fitted, or the saved one.
 fn all_groups_prior<F: Family>(job: &Job, table: &PairTable) -> Result<Chosen> {
-    match &job.prior {
-        PriorSource::Fit => {
+    match (&job.prior, job.prior_shape) {
+        (PriorSource::Fit, PriorShape::Free { points }) => {
+            let fitted = fit_free::<F>(table, points).map_err(|fault| Error::Fit(fault.to_string()))?;
+            Ok(chosen_of_free_fit::<F>(table, &fitted))
+        }
+        (PriorSource::Fit, PriorShape::Parametric) => {
             let fitted = fit_by::<F>(table, job.likelihood)
                 .map_err(|failure| Error::Fit(describe_failure(failure, job.model)))?;
             Ok(chosen_of_fit::<F>(job.model, &fitted))
         }
-        PriorSource::Saved { path, summary } => {
+        (PriorSource::Saved { path, summary }, _) => {
             let mut fit = summary.fit.clone();
             fit.source = path.display().to_string();
             chosen_of_saved(job.model, (&summary.fitted_prior, fit), (&summary.model, path))
@@ -192,8 +201,13 @@ fn chosen_of_saved(
 ) -> Result<Chosen> {
     let prior = prior_of_saved(fitted_prior, saved_model, path, model)?;
     let uncertainty = match prior {
-        Prior::Conjugate { .. } => fit.working_covariance.map(PriorUncertainty::Working),
-        Prior::CompletePooling { .. } => Some(PriorUncertainty::PooledMean(fitted_prior.mean_se().powi(2))),
+        ShapedPrior::Parametric(Prior::Conjugate { .. }) => {
+            fit.working_covariance.map(PriorUncertainty::Working)
+        }
+        ShapedPrior::Parametric(Prior::CompletePooling { .. }) => {
+            Some(PriorUncertainty::PooledMean(fitted_prior.mean_se().powi(2)))
+        }
+        ShapedPrior::Free(_) => None,
     };
     Ok(Chosen {
         prior,
@@ -207,12 +221,66 @@ fn chosen_of_saved(
 
 fn chosen_of_fit<F: Family>(model: Model, fitted: &Fit) -> Chosen {
     Chosen {
-        prior: fitted.prior,
+        prior: ShapedPrior::Parametric(fitted.prior),
         fitted_prior: fitted_prior_of(model, fitted),
         fit: fit_report_of::<F>(fitted, "fit"),
         warnings: fit_warnings(fitted),
         log_likelihood: Some(fitted.log_marginal_likelihood),
         uncertainty: Some(fitted.uncertainty),
+    }
+}
+
+/// A free prior fitted to `table`: the prior, its wire form and account.
+fn chosen_of_free_fit<F: Family>(table: &PairTable, fitted: &FreeFit) -> Chosen {
+    let prior = &fitted.prior;
+    let (mean, sd) = prior.mean_sd();
+    let report = FreePriorReport {
+        prior_shape: "free".to_string(),
+        spacing: prior.spacing().name().to_string(),
+        support: prior
+            .support()
+            .filter(|&(_, m)| m >= FreePriorReport::SHOWN_MASS)
+            .map(|(x, m)| [x, m])
+            .collect(),
+        duality_gap: fitted.duality_gap,
+        grid: prior.points().to_vec(),
+        masses: prior.masses().to_vec(),
+    };
+    let pooled_mean = F::pooled_mean(table);
+    let z = F::overdispersion_z(table, pooled_mean);
+    let fit = FitReport {
+        source: "fit".to_string(),
+        log_marginal_likelihood: fitted.log_marginal_likelihood,
+        start_log_marginal_likelihood: fitted.start_log_marginal_likelihood,
+        converged: fitted.converged,
+        iterations: fitted.iterations,
+        gradient_norm: fitted.duality_gap / table.groups().max(1.0),
+        boundary: "none".to_string(),
+        overdispersion_test: TestReport {
+            name: F::TERMS.overdispersion_test.to_string(),
+            statistic: z,
+            p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
+        },
+        boundary_score: None,
+        likelihood: "marginal".to_string(),
+        restricted_log_likelihood: None,
+        pooling_test: None,
+        working_bias: None,
+        working_covariance: None,
+    };
+    let warnings = match fitted.point_mass {
+        Some(at) => vec![format!(
+            "every group's raw value is {at}: the free prior is a point mass there (its grid has one point), and every group is given that value"
+        )],
+        None => Vec::new(),
+    };
+    Chosen {
+        prior: ShapedPrior::Free(std::sync::Arc::new(prior.clone())),
+        fitted_prior: FittedPrior::free(mean, sd, report),
+        fit,
+        warnings,
+        log_likelihood: Some(fitted.log_marginal_likelihood),
+        uncertainty: None,
     }
 }
 
@@ -235,9 +303,15 @@ fn segment_prior<F: Family>(
         PriorSource::Fit if groups < job.min_groups as f64 => {
             Ok(Err(format!("fewer than {} groups ({groups})", job.min_groups)))
         }
-        PriorSource::Fit => Ok(match fit_by::<F>(&segment.table, job.likelihood) {
-            Ok(fitted) => Ok(chosen_of_fit::<F>(job.model, &fitted)),
-            Err(failure) => Err(describe_failure(failure, job.model)),
+        PriorSource::Fit => Ok(match job.prior_shape {
+            PriorShape::Free { points } => match fit_free::<F>(&segment.table, points) {
+                Ok(fitted) => Ok(chosen_of_free_fit::<F>(&segment.table, &fitted)),
+                Err(fault) => Err(fault.to_string()),
+            },
+            PriorShape::Parametric => match fit_by::<F>(&segment.table, job.likelihood) {
+                Ok(fitted) => Ok(chosen_of_fit::<F>(job.model, &fitted)),
+                Err(failure) => Err(describe_failure(failure, job.model)),
+            },
         }),
         PriorSource::Saved { path, summary } => {
             let saved = summary.segments.iter().find(|s| key_of_report(&job.segments, s) == segment.key);
@@ -275,7 +349,97 @@ fn score_with<F: Family>(
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
     clock.lap("posteriors", "posteriors");
-    Ok(scored_of::<F>(job, segments, priors, places, (posteriors, decisions)))
+    let comparison = match (job.prior_shape, &job.prior) {
+        (PriorShape::Free { .. }, PriorSource::Fit) => {
+            let free = (&posteriors[..], &decisions);
+            let comparison = compare_with_parametric::<F>(job, &segments, &places, free);
+            clock.lap("prior-comparison", "the parametric prior on the same data, for comparison");
+            Some(comparison)
+        }
+        _ => None,
+    };
+    let mut scored = scored_of::<F>(job, segments, priors, places, (posteriors, decisions));
+    if let Some(mut comparison) = comparison {
+        comparison.free_log_marginal_likelihood = scored.checks.log_marginal_likelihood;
+        comparison.log_likelihood_gain =
+            comparison.parametric_log_marginal_likelihood.map(|p| scored.checks.log_marginal_likelihood - p);
+        if comparison.parametric_checks.as_ref().is_some_and(ChecksReport::poor_fit)
+            && !scored.checks.poor_fit()
+        {
+            scored.warnings.push(format!(
+                "the parametric prior does not describe {} well (calibration {}) and the free prior does ({}): its groups' posteriors, ranks and flags would have been pulled toward the wrong place",
+                scored.checks.data,
+                crate::summary::p_value_text(comparison.parametric_checks.as_ref().map_or(f64::NAN, |c| c.calibration.p_value)),
+                crate::summary::p_value_text(scored.checks.calibration.p_value),
+            ));
+        }
+        scored.comparison = Some(comparison);
+    }
+    Ok(scored)
+}
+
+/// The same run under the parametric prior, for the comparison a free
+/// prior's summary holds: its fit(s), likelihood and checks, and how many
+/// groups change their flag or move more than ten ranks. The free side's
+/// likelihood is filled in by the caller from its own checks.
+fn compare_with_parametric<F: Family>(
+    job: &Job,
+    segments: &[SegmentPairs],
+    places: &PairPlaces,
+    (free_posteriors, free_decisions): (&[Posterior], &Decisions),
+) -> ShapeComparison {
+    let parametric_job = Job { prior_shape: PriorShape::Parametric, top: None, ..job.clone() };
+    let mut unwatched = super::Unwatched;
+    let mut quiet = PhaseClock::start(&mut unwatched);
+    let mut comparison = ShapeComparison {
+        parametric_prior: None,
+        parametric_failure: None,
+        free_log_marginal_likelihood: f64::NAN,
+        parametric_log_marginal_likelihood: None,
+        log_likelihood_gain: None,
+        parametric_checks: None,
+        flags_changed: None,
+        moved_over_ten_ranks: None,
+    };
+    let priors = match priors_in_use::<F>(&parametric_job, segments, &places.pairs, &mut quiet) {
+        Ok(priors) => priors,
+        Err(failure) => {
+            comparison.parametric_failure = Some(failure.to_string());
+            return comparison;
+        }
+    };
+    let posteriors = posteriors_of::<F>(&parametric_job, &priors, places);
+    let decisions = decisions_of::<F>(&parametric_job, &priors, places, &posteriors);
+    let checks = model_checks::<F>(
+        &parametric_job,
+        &places.pairs,
+        &priors.all_table,
+        &priors.priors,
+        &places.place_of_pair,
+    );
+    let weights = places.weights();
+    if let (Some(free), Some(parametric)) = (&free_decisions.flags, &decisions.flags) {
+        let changed: f64 = (0..weights.len())
+            .filter(|&i| free.flagged[i] != parametric.flagged[i])
+            .map(|i| weights[i])
+            .sum();
+        comparison.flags_changed = Some(changed as u64);
+    }
+    let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
+    let ranks_of = |posteriors: &[Posterior]| {
+        let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
+        crate::core::ranking::competition_ranks(&means, &weights, order)
+    };
+    let (free_ranks, parametric_ranks) = (ranks_of(free_posteriors), ranks_of(&posteriors));
+    let moved: f64 = (0..weights.len())
+        .filter(|&i| (free_ranks[i] - parametric_ranks[i]).abs() > 10)
+        .map(|i| weights[i])
+        .sum();
+    comparison.moved_over_ten_ranks = Some(moved as u64);
+    comparison.parametric_log_marginal_likelihood = Some(checks.log_marginal_likelihood);
+    comparison.parametric_prior = Some(priors.all.fitted_prior.clone());
+    comparison.parametric_checks = Some(checks);
+    comparison
 }
 
 /// `--top K` with K at least the number of groups asks nothing: refused.
@@ -326,7 +490,7 @@ struct PriorsInUse {
     all_table: PairTable,
     all: Chosen,
     choices: Vec<std::result::Result<Chosen, String>>,
-    priors: Vec<Prior>,
+    priors: Vec<ShapedPrior>,
     spreads: Vec<Option<Uncertainty>>,
     /// With covariates: the covariate prior, whose cells are the places.
     covariates: Option<CellPriors>,
@@ -375,7 +539,10 @@ fn priors_in_use<F: Family>(
     }
     let biases: Vec<Option<[f64; 2]>> =
         choices.iter().map(|c| c.as_ref().map_or(all.fit.working_bias, |own| own.fit.working_bias)).collect();
-    let priors: Vec<Prior> = choices.iter().map(|c| c.as_ref().map_or(all.prior, |own| own.prior)).collect();
+    let priors: Vec<ShapedPrior> = choices
+        .iter()
+        .map(|c| c.as_ref().map_or_else(|_| all.prior.clone(), |own| own.prior.clone()))
+        .collect();
     let uncertainties: Vec<Option<PriorUncertainty>> =
         choices.iter().map(|c| c.as_ref().map_or(all.uncertainty, |own| own.uncertainty)).collect();
     if job.intervals == Intervals::Corrected && uncertainties.iter().any(Option::is_none) {
@@ -392,8 +559,10 @@ fn priors_in_use<F: Family>(
         .iter()
         .zip(&uncertainties)
         .enumerate()
-        .map(|(place, (prior, known))| match (job.intervals, known) {
-            (Intervals::Corrected, Some(known)) => Some(Uncertainty::of::<F>(prior, *known, biases[place])),
+        .map(|(place, (prior, known))| match (job.intervals, known, prior.parametric()) {
+            (Intervals::Corrected, Some(known), Some(prior)) => {
+                Some(Uncertainty::of::<F>(prior, *known, biases[place]))
+            }
             _ => None,
         })
         .collect();
@@ -421,7 +590,7 @@ fn covariate_priors_in_use<F: Family>(
         let fitted = saved_cell_priors::<F>((table, pairs), (&summary.fitted_prior, path), fit.clone())?;
         // The all-groups prior is not used with covariates (the pairs' own are); it stands for the saved one.
         let all = Chosen {
-            prior: Prior::CompletePooling { mean: summary.fitted_prior.mean() },
+            prior: ShapedPrior::Parametric(Prior::CompletePooling { mean: summary.fitted_prior.mean() }),
             fitted_prior: summary.fitted_prior.clone(),
             fit,
             warnings: Vec::new(),
@@ -433,7 +602,10 @@ fn covariate_priors_in_use<F: Family>(
     let all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(pairs.len());
     clock.lap("fit", &format!("fit without covariates ({} distinct pairs)", all_table.pairs().len()));
-    let plain = PlainFit { prior: &all.prior, log_likelihood: all.log_likelihood, fit: &all.fit };
+    let Some(plain_prior) = all.prior.parametric() else {
+        return Err(Error::Usage("covariates do not combine with a free prior".to_string()));
+    };
+    let plain = PlainFit { prior: plain_prior, log_likelihood: all.log_likelihood, fit: &all.fit };
     let fitted = cell_priors::<F>(job, (table, pairs), plain, F::strength_unit(&all_table))?;
     clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()));
     Ok(PriorsInUse::of_covariates(all_table, all, fitted))
@@ -460,7 +632,7 @@ impl PriorsInUse {
     /// The priors of a covariate run: each pair's own (moved out of the
     /// covariate prior, not copied: one a pair) and the covariate prior.
     fn of_covariates(all_table: PairTable, all: Chosen, mut fitted: CellPriors) -> Self {
-        let priors = std::mem::take(&mut fitted.priors);
+        let priors = std::mem::take(&mut fitted.priors).into_iter().map(ShapedPrior::Parametric).collect();
         PriorsInUse {
             all_table,
             all,
@@ -474,9 +646,12 @@ impl PriorsInUse {
     /// The spread of the prior at `place` for corrected intervals (None for plug-in ones).
     fn spread<F: Family>(&self, job: &Job, place: usize) -> Option<Cow<'_, Uncertainty>> {
         match &self.covariates {
-            Some(cells) => (job.intervals == Intervals::Corrected).then(|| {
-                Cow::Owned(Uncertainty::of::<F>(&self.priors[place], cells.uncertainties[place], None))
-            }),
+            Some(cells) => match (job.intervals, self.priors[place].parametric()) {
+                (Intervals::Corrected, Some(prior)) => {
+                    Some(Cow::Owned(Uncertainty::of::<F>(prior, cells.uncertainties[place], None)))
+                }
+                _ => None,
+            },
             None => self.spreads[place].as_ref().map(Cow::Borrowed),
         }
     }
@@ -490,11 +665,14 @@ fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces
         .pairs
         .par_iter()
         .zip(&places.place_of_pair)
-        .map(|(p, &place)| match priors.spread::<F>(job, place) {
-            Some(uncertainty) => {
-                corrected_posterior::<F>(&priors.priors[place], &uncertainty, p.size, p.count, tail)
+        .map(|(p, &place)| {
+            let prior = &priors.priors[place];
+            match (priors.spread::<F>(job, place), prior.parametric()) {
+                (Some(uncertainty), Some(prior)) => {
+                    corrected_posterior::<F>(prior, &uncertainty, p.size, p.count, tail)
+                }
+                _ => prior.posterior::<F>(p.size, p.count, tail),
             }
-            None => F::posterior(&priors.priors[place], p.size, p.count, tail),
         })
         .collect()
 }
@@ -519,11 +697,14 @@ fn decisions_of<F: Family>(
         all_pairs
             .par_iter()
             .zip(place_of_pair)
-            .map(|(p, &place)| match priors.spread::<F>(job, place) {
-                Some(uncertainty) => {
-                    corrected_tails::<F>(&priors.priors[place], &uncertainty, p.size, p.count, threshold)
+            .map(|(p, &place)| {
+                let prior = &priors.priors[place];
+                match (priors.spread::<F>(job, place), prior.parametric()) {
+                    (Some(uncertainty), Some(prior)) => {
+                        corrected_tails::<F>(prior, &uncertainty, p.size, p.count, threshold)
+                    }
+                    _ => prior.rate_tails::<F>(p.size, p.count, threshold),
                 }
-                None => F::rate_tails(&priors.priors[place], p.size, p.count, threshold),
             })
             .collect()
     };
@@ -566,7 +747,7 @@ fn top_of<F: Family>(
     let draws = rule.draws_for(groups);
     let beyond = |i: usize, c: f64| {
         let pair = &all_pairs[i];
-        let (below, above) = F::rate_tails(&priors.priors[place_of_pair[i]], pair.size, pair.count, c);
+        let (below, above) = priors.priors[place_of_pair[i]].rate_tails::<F>(pair.size, pair.count, c);
         if order == RankOrder::HighestFirst {
             above
         } else {
@@ -600,7 +781,7 @@ fn scored_of<F: Family>(
         Some(cells) => (cells.fitted_prior.clone(), cells.fit.clone(), cells.warnings.clone()),
         None => (all.fitted_prior.clone(), all.fit.clone(), all.warnings.clone()),
     };
-    if let (None, Prior::CompletePooling { .. }) = (&covariates, all.prior) {
+    if let (None, ShapedPrior::Parametric(Prior::CompletePooling { .. })) = (&covariates, &all.prior) {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
     let covariate_score =
@@ -608,11 +789,15 @@ fn scored_of<F: Family>(
     let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
     if checks.poor_fit() {
         warnings.push(format!(
-            "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, {}; raw-rate variance {:.2} times the expected). One prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags",
+            "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, {}; raw-rate variance {:.2} times the expected). One {} prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by where a column names the kinds, or a prior of any shape with --prior-shape free where none does, before trusting the intervals and flags",
             checks.data,
             checks.calibration.statistic,
             crate::summary::p_value_text(checks.calibration.p_value),
-            checks.raw_rate_variance.ratio.unwrap_or(f64::NAN)
+            checks.raw_rate_variance.ratio.unwrap_or(f64::NAN),
+            match job.prior_shape {
+                PriorShape::Parametric => F::TERMS.prior_words.law,
+                PriorShape::Free { .. } => "free",
+            }
         ));
     }
     // Restricted likelihoods of fits with different means (one per segment)
@@ -658,6 +843,7 @@ fn scored_of<F: Family>(
         segments: scores,
         segment_test,
         checks,
+        comparison: None,
     }
 }
 
@@ -667,7 +853,7 @@ fn segment_scores<F: Family>(
     job: &Job,
     segments: Vec<SegmentPairs>,
     choices: Vec<std::result::Result<Chosen, String>>,
-    (priors, ranges): (&[Prior], &[std::ops::Range<usize>]),
+    (priors, ranges): (&[ShapedPrior], &[std::ops::Range<usize>]),
     (all_prior, all_pairs, posteriors): (&FittedPrior, &[WeightedPair], &[Posterior]),
 ) -> Vec<SegmentScore> {
     segments
@@ -718,7 +904,7 @@ const BOOTSTRAP_MAX_GROUPS: f64 = 20_000.0;
 /// The median bias of a chosen prior fitted to `table`, for corrected
 /// intervals (None for complete pooling, a large table or failed refits).
 fn bias_of<F: Family>(job: &Job, chosen: &Chosen, table: &PairTable, salt: u64) -> Option<[f64; 2]> {
-    let Prior::Conjugate { natural } = chosen.prior else { return None };
+    let ShapedPrior::Parametric(Prior::Conjugate { natural }) = chosen.prior else { return None };
     if table.groups() > BOOTSTRAP_MAX_GROUPS {
         return None;
     }
@@ -736,22 +922,19 @@ fn model_checks<F: Family>(
     job: &Job,
     pairs: &[WeightedPair],
     table: &PairTable,
-    priors: &[Prior],
+    priors: &[ShapedPrior],
     place_of_pair: &[usize],
 ) -> ChecksReport {
     let prior_of = |i: usize| &priors[place_of_pair[i]];
     let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
     let calibration =
-        calibration(&weights, |i| F::predictive_cdf(prior_of(i), pairs[i].size, pairs[i].count), job.seed);
+        calibration(&weights, |i| prior_of(i).predictive_cdf::<F>(pairs[i].size, pairs[i].count), job.seed);
     let (mut observed, mut expected, mut with_data) = (0.0, 0.0, 0.0);
     for (i, pair) in pairs.iter().enumerate() {
         let Some(raw) = F::TERMS.raw_value(pair.size, pair.count) else { continue };
-        let mean = match *prior_of(i) {
-            Prior::CompletePooling { mean } => mean,
-            Prior::Conjugate { natural } => F::mean_strength_of_natural(natural).0,
-        };
+        let mean = prior_of(i).mean::<F>();
         observed += pair.weight * (raw - mean).powi(2);
-        expected += pair.weight * F::raw_rate_variance(prior_of(i), pair.size);
+        expected += pair.weight * prior_of(i).raw_rate_variance::<F>(pair.size);
         with_data += pair.weight;
     }
     let (observed, expected) = (observed / with_data.max(1.0), expected / with_data.max(1.0));
@@ -799,16 +982,19 @@ enum PriorPoint<F: Family> {
     Pooled(f64),
     /// A proper prior, at its point in working coordinates.
     Proper(F::AtPoint),
+    /// A free prior.
+    Free(std::sync::Arc<FreePrior>),
 }
 
 impl<F: Family> PriorPoint<F> {
-    fn of(prior: &Prior) -> Self {
-        match *prior {
-            Prior::CompletePooling { mean } => PriorPoint::Pooled(mean),
-            Prior::Conjugate { natural } => {
-                let (mean, strength) = F::mean_strength_of_natural(natural);
+    fn of(prior: &ShapedPrior) -> Self {
+        match prior {
+            ShapedPrior::Parametric(Prior::CompletePooling { mean }) => PriorPoint::Pooled(*mean),
+            ShapedPrior::Parametric(Prior::Conjugate { natural }) => {
+                let (mean, strength) = F::mean_strength_of_natural(*natural);
                 PriorPoint::Proper(F::at_point(F::working(mean, strength)))
             }
+            ShapedPrior::Free(free) => PriorPoint::Free(free.clone()),
         }
     }
 
@@ -817,6 +1003,7 @@ impl<F: Family> PriorPoint<F> {
         match self {
             PriorPoint::Pooled(mean) => F::pooled_log_pmf(*mean, pair),
             PriorPoint::Proper(at) => F::pair_terms_at(at, pair).log_likelihood,
+            PriorPoint::Free(free) => free.log_pmf::<F>(pair),
         }
     }
 }
@@ -973,7 +1160,12 @@ fn refuse_other_segments(path: &Path, fitted: &[String], asked: &[String]) -> Re
 
 /// The prior held in a saved summary (the whole table's, or a segment's),
 /// checked against the model in use.
-fn prior_of_saved(fitted_prior: &FittedPrior, saved_model: &str, path: &Path, model: Model) -> Result<Prior> {
+fn prior_of_saved(
+    fitted_prior: &FittedPrior,
+    saved_model: &str,
+    path: &Path,
+    model: Model,
+) -> Result<ShapedPrior> {
     if saved_model != model.name() {
         return Err(Error::Input(format!(
             "{}: the prior is for the {} model, not {}",
@@ -981,6 +1173,26 @@ fn prior_of_saved(fitted_prior: &FittedPrior, saved_model: &str, path: &Path, mo
             saved_model,
             model.name()
         )));
+    }
+    if let Some(free) = fitted_prior.free_part() {
+        let spacing = Spacing::from_name(&free.spacing).ok_or_else(|| {
+            Error::Input(format!(
+                "{}: the free prior's spacing '{}' is not known",
+                path.display(),
+                free.spacing
+            ))
+        })?;
+        let prior = FreePrior::new(free.grid.clone(), free.masses.clone(), spacing)
+            .map_err(|fault| Error::Input(format!("{}: the free prior: {fault}", path.display())))?;
+        let rates = model.terms().rates;
+        if let Some(outside) = prior.points().iter().find(|&&x| !rates.contains(x)) {
+            return Err(Error::Input(format!(
+                "{}: the free prior's grid holds {outside}, which is not a rate {}",
+                path.display(),
+                rates.describe()
+            )));
+        }
+        return Ok(ShapedPrior::Free(std::sync::Arc::new(prior)));
     }
     if let Err(reason) = fitted_prior.check(model.terms()) {
         return Err(Error::Input(format!(
@@ -995,8 +1207,12 @@ fn prior_of_saved(fitted_prior: &FittedPrior, saved_model: &str, path: &Path, mo
     let rates = model.terms().rates;
     let first_valid = |v: f64| if rates == RateRange::Real { v.is_finite() } else { valid(v) };
     match (first, second) {
-        (Some(a), Some(b)) if first_valid(a) && valid(b) => Ok(Prior::Conjugate { natural: [a, b] }),
-        (None, None) if rates.holds_inside(mean) => Ok(Prior::CompletePooling { mean }),
+        (Some(a), Some(b)) if first_valid(a) && valid(b) => {
+            Ok(ShapedPrior::Parametric(Prior::Conjugate { natural: [a, b] }))
+        }
+        (None, None) if rates.holds_inside(mean) => {
+            Ok(ShapedPrior::Parametric(Prior::CompletePooling { mean }))
+        }
         _ => Err(Error::Input(format!(
             "{}: the prior's parameters are missing or out of range",
             path.display()

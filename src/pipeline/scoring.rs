@@ -4,7 +4,7 @@
 use super::prior::Scored;
 use super::segments::segment_pair_values;
 use super::validate::{cell_text, ColumnNames, Rejection};
-use super::{FlagEvent, Intervals, Job, Thresholds};
+use super::{FlagEvent, Intervals, Job, PriorShape, Thresholds};
 use crate::core::diagnostics::Pull;
 use crate::core::model::Posterior;
 use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
@@ -73,9 +73,11 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         ("interval_lo".to_string(), each(&|p| p.lower)),
         ("interval_hi".to_string(), each(&|p| p.upper)),
         ("pool_weight".to_string(), each(&|p| p.pool_weight)),
-        parameter(0),
-        parameter(1),
     ]);
+    // A free prior's posteriors are masses on its grid: no law's parameters.
+    if job.prior_shape == PriorShape::Parametric {
+        columns.extend([parameter(0), parameter(1)]);
+    }
     if !scored.segments.is_empty() {
         let mut fallback = vec![false; pairs.len()];
         for segment in scored.segments.iter().filter(|s| s.fallback.is_some()) {
@@ -346,6 +348,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             expected_false_flags: flags.expected_false,
         }),
         standardisation: None,
+        prior_comparison: scored.comparison.clone(),
         columns: Some(ColumnsReport {
             group: job.columns.group.clone(),
             count: job.columns.count.clone(),

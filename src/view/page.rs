@@ -228,7 +228,7 @@ fn checks_text(checks: &ChecksReport) -> String {
         )
     } else {
         format!(
-            "Calibration: <strong>poor fit</strong>. The groups sit unevenly in their prior predictive distributions (chi-square {} on 9 df, {}).{variance} One prior cannot describe groups of different kinds (two humps, say): fit per segment with --by, check the data for mixed groups, or use a different model before trusting the intervals and flags.",
+            "Calibration: <strong>poor fit</strong>. The groups sit unevenly in their prior predictive distributions (chi-square {} on 9 df, {}).{variance} One prior of the model's law cannot describe groups of different kinds (two humps, say): fit per segment with --by where a column names the kinds, or with a prior of any shape (--prior-shape free) where none does, before trusting the intervals and flags.",
             num(calibration.statistic),
             p_value_text(calibration.p_value)
         )
@@ -367,7 +367,7 @@ pub fn cautions(summary: &Summary) -> Vec<String> {
     let mut cautions = Vec::new();
     if let Some(checks) = &summary.checks {
         if checks.poor_fit() {
-            cautions.push("The calibration check found a poor fit: one prior does not describe these groups, and every posterior, rank and flag leans on it. Look for groups of different kinds (fit per segment with --by) before acting on any result.".to_string());
+            cautions.push("The calibration check found a poor fit: one prior does not describe these groups, and every posterior, rank and flag leans on it. Look for groups of different kinds (fit per segment with --by, or with --prior-shape free) before acting on any result.".to_string());
         } else if checks.too_few_to_judge() {
             cautions.push(format!("With {} groups the calibration check cannot judge whether one prior describes them: the results lean on a prior that nothing here has checked.", checks.calibration.groups));
         }

@@ -42,6 +42,7 @@ fn a_bimodal_input_is_a_poor_fit_and_says_what_to_do() {
     assert_eq!(s["checks"]["verdict"], "poor fit");
     assert!(s["checks"]["calibration"]["p_value"].as_f64().unwrap() < 1e-3);
     assert!(printed.contains("fit per segment with --by"), "{printed}");
+    assert!(printed.contains("--prior-shape free"), "the remedy without a column: {printed}");
     assert!(s["warnings"]
         .as_array()
         .unwrap()

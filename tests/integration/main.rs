@@ -13,6 +13,7 @@ mod edges;
 mod facts;
 mod faults;
 mod fits;
+mod free_prior;
 mod fuzz_corpus;
 mod logs;
 mod no_overwrite;

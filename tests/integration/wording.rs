@@ -224,6 +224,7 @@ fn placeholders_say_what_kind_of_value_and_the_model_comes_first() {
         "CHAR",
         "MODEL",
         "METHOD",
+        "SHAPE",
     ];
     let kinds = [&kinds[..], &["ACTION", "FORMAT", "SHELL", "COMMAND"]].concat();
     for sub in SUBCOMMANDS {

@@ -12,6 +12,7 @@
 //! (Tarone's and Dean's statistics), not reached by drifting to infinity.
 
 pub mod beta_binomial;
+pub mod free;
 pub mod gamma_poisson;
 pub mod normal_normal;
 
@@ -55,6 +56,67 @@ pub enum Prior {
         /// The pooled rate.
         mean: f64,
     },
+}
+
+/// The prior a pair is scored with, of either shape: a parametric one
+/// (conjugate, or complete pooling) or a free one on a grid ([`free`]).
+#[derive(Debug, Clone, PartialEq)]
+pub enum ShapedPrior {
+    /// A prior of the family's own law.
+    Parametric(Prior),
+    /// Masses on a grid of rates.
+    Free(std::sync::Arc<free::FreePrior>),
+}
+
+impl ShapedPrior {
+    /// The parametric prior, when it is one.
+    pub fn parametric(&self) -> Option<&Prior> {
+        match self {
+            ShapedPrior::Parametric(prior) => Some(prior),
+            ShapedPrior::Free(_) => None,
+        }
+    }
+
+    /// The prior mean.
+    pub fn mean<F: Family>(&self) -> f64 {
+        match self {
+            ShapedPrior::Parametric(Prior::CompletePooling { mean }) => *mean,
+            ShapedPrior::Parametric(Prior::Conjugate { natural }) => F::mean_strength_of_natural(*natural).0,
+            ShapedPrior::Free(free) => free.mean_sd().0,
+        }
+    }
+
+    /// Posterior summary of one pair ([`Family::posterior`]).
+    pub fn posterior<F: Family>(&self, size: f64, count: f64, tail: f64) -> Posterior {
+        match self {
+            ShapedPrior::Parametric(prior) => F::posterior(prior, size, count, tail),
+            ShapedPrior::Free(free) => free.posterior::<F>(size, count, tail),
+        }
+    }
+
+    /// P(rate < t) and P(rate > t) under one pair's posterior ([`Family::rate_tails`]).
+    pub fn rate_tails<F: Family>(&self, size: f64, count: f64, threshold: f64) -> (f64, f64) {
+        match self {
+            ShapedPrior::Parametric(prior) => F::rate_tails(prior, size, count, threshold),
+            ShapedPrior::Free(free) => free.rate_tails::<F>(size, count, threshold),
+        }
+    }
+
+    /// Where a pair's count falls in its prior predictive distribution ([`Family::predictive_cdf`]).
+    pub fn predictive_cdf<F: Family>(&self, size: f64, count: f64) -> (f64, f64) {
+        match self {
+            ShapedPrior::Parametric(prior) => F::predictive_cdf(prior, size, count),
+            ShapedPrior::Free(free) => free.predictive_cdf::<F>(size, count),
+        }
+    }
+
+    /// The prior predictive variance of a raw rate of this size ([`Family::raw_rate_variance`]).
+    pub fn raw_rate_variance<F: Family>(&self, size: f64) -> f64 {
+        match self {
+            ShapedPrior::Parametric(prior) => F::raw_rate_variance(prior, size),
+            ShapedPrior::Free(free) => free.raw_rate_variance::<F>(size),
+        }
+    }
 }
 
 /// Posterior summary of one distinct pair.
