@@ -3,7 +3,7 @@
 //! likelihood over masses on the same grid (scripts/make_free_prior_fixtures.py),
 //! the pmfs from scipy.stats.
 
-use crate::util::json_fixture;
+use crate::util::{assert_refused, json_fixture, paired, ratepool, stderr, summary, write, Csv};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Beta, Binomial, Distribution};
@@ -16,6 +16,12 @@ use ratepool::core::model::normal_normal::NormalNormal;
 use ratepool::core::model::{Family, Prior};
 use ratepool::core::pairs::{PairTable, WeightedPair};
 use serde_json::Value;
+use std::path::Path;
+
+/// A demo data file, by its path.
+fn demo(name: &str) -> String {
+    format!("{}/demo-data/{name}", env!("CARGO_MANIFEST_DIR"))
+}
 
 fn floats(value: &Value) -> Vec<f64> {
     value.as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect()
@@ -169,4 +175,186 @@ fn on_two_humps_the_free_prior_is_nearer_the_truth_and_fits() {
     // one's over the 100 seeds, and lower on each of them (the README states these).
     let ratio = free_error / parametric_error;
     assert!(ratio < 0.65 && free_better >= 95, "ratio {ratio}, better on {free_better} seeds");
+}
+
+/// Runs ratepool in `dir` and returns the summary, stdout and stderr together.
+fn run(dir: &Path, args: &[&str]) -> (Value, String) {
+    let out = ratepool(dir, args);
+    assert!(out.status.success(), "{args:?}: {}", stderr(&out));
+    let printed = String::from_utf8_lossy(&out.stdout).into_owned() + &stderr(&out);
+    (summary(&dir.join("s.json")), printed)
+}
+
+const STOREFRONTS: [&str; 8] = [
+    "--model",
+    "beta-binomial",
+    "--group",
+    "storefront_id",
+    "--successes",
+    "purchases",
+    "--trials",
+    "visits",
+];
+
+#[test]
+fn two_humps_fit_under_the_free_prior_and_the_summary_says_why() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo("storefronts.csv");
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STOREFRONTS);
+    args.extend(["--prior-shape", "free", "--below", "0.02", "--flag-fdr", "0.05", "--ranks"]);
+    args.extend(["--output", "out.csv", "--summary", "s.json", "--pair-output", "pairs.csv"]);
+    let (s, printed) = run(dir.path(), &args);
+    // The free prior fits; the parametric one, fitted beside it, does not.
+    assert_eq!(s["checks"]["verdict"], "fits");
+    let comparison = &s["prior_comparison"];
+    assert_eq!(comparison["parametric_checks"]["verdict"], "poor fit");
+    assert!(comparison["log_likelihood_gain"].as_f64().unwrap() > 100.0, "{comparison}");
+    assert!(comparison["flags_changed"].as_u64().unwrap() > 0);
+    assert!(comparison["parametric_prior"]["alpha"].as_f64().is_some());
+    assert!(printed.contains("the parametric prior does not describe"), "{printed}");
+    // The prior: masses summing to 1 on an increasing grid, and its support among them.
+    let prior = &s["prior"];
+    assert_eq!(prior["prior_shape"], "free");
+    let (grid, masses) = (floats(&prior["grid"]), floats(&prior["masses"]));
+    assert_eq!(grid.len(), DEFAULT_GRID_POINTS);
+    assert!(grid.windows(2).all(|w| w[0] < w[1]));
+    assert!((masses.iter().sum::<f64>() - 1.0).abs() < 1e-12);
+    let support = prior["support"].as_array().unwrap();
+    assert!(support.len() >= 2, "two humps need two points at least: {support:?}");
+    // The table: no law's parameters; intervals hold their means.
+    let table = Csv::read(&dir.path().join("out.csv"));
+    assert!(!table.header.iter().any(|c| c.starts_with("posterior_param_")));
+    let (mean, lo, hi) =
+        (table.floats("posterior_mean"), table.floats("interval_lo"), table.floats("interval_hi"));
+    for ((m, l), h) in paired(&mean, &lo, "means").zip(&hi) {
+        assert!(l <= m && m <= h, "{l} <= {m} <= {h}");
+    }
+    // Scored again with the saved prior: the same columns, bit for bit.
+    let mut again = vec!["score", "--input", &input, "--prior", "s.json"];
+    again.extend(&STOREFRONTS[2..]);
+    again.extend([
+        "--below",
+        "0.02",
+        "--flag-fdr",
+        "0.05",
+        "--ranks",
+        "--output",
+        "again.csv",
+        "--summary",
+        "s2.json",
+    ]);
+    let out = ratepool(dir.path(), &again);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let rescored = Csv::read(&dir.path().join("again.csv"));
+    for column in
+        ["posterior_mean", "interval_lo", "interval_hi", "pool_weight", "prob_below", "flag_fdr", "rank_mean"]
+    {
+        assert_eq!(rescored.column(column), table.column(column), "{column}");
+    }
+}
+
+#[test]
+fn each_segment_gets_a_free_prior_of_its_own() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo("returns.csv");
+    let args = [
+        "fit",
+        "--input",
+        &input,
+        "--model",
+        "beta-binomial",
+        "--group",
+        "store_id",
+        "--outcome",
+        "returned",
+        "--by",
+        "store_kind",
+        "--prior-shape",
+        "free",
+        "--output",
+        "out.csv",
+        "--summary",
+        "s.json",
+    ];
+    let (s, _) = run(dir.path(), &args);
+    let segments = s["segments"].as_array().unwrap();
+    assert_eq!(segments.len(), 4);
+    let means: Vec<f64> = segments.iter().map(|g| g["prior"]["mean"].as_f64().unwrap()).collect();
+    for segment in segments {
+        assert_eq!(segment["prior"]["prior_shape"], "free", "{segment}");
+    }
+    // The kinds' return rates differ (demo-data: 0.04 to 0.16), and so do their priors' means.
+    let (low, high) = means.iter().fold((1.0f64, 0.0f64), |(l, h), &m| (l.min(m), h.max(m)));
+    assert!(high > 2.0 * low, "{means:?}");
+    assert!(s["prior_comparison"]["parametric_checks"]["verdict"].is_string());
+}
+
+#[test]
+fn identical_groups_make_a_point_mass_and_few_groups_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let free = ["--prior-shape", "free", "--output", "out.csv", "--summary", "s.json"];
+    let same: String = (0..40).map(|i| format!("g{i},3,10\n")).collect();
+    write(dir.path(), "same.csv", &format!("id,k,n\n{same}"));
+    let mut args = vec!["fit", "--input", "same.csv", "--model", "beta-binomial", "--group", "id"];
+    args.extend(["--successes", "k", "--trials", "n"]);
+    let (s, printed) = run(dir.path(), &[&args[..], &free[..]].concat());
+    assert!(printed.contains("the free prior is a point mass there"), "{printed}");
+    assert_eq!(floats(&s["prior"]["grid"]), vec![0.3]);
+    let table = Csv::read(&dir.path().join("out.csv"));
+    assert!(table.floats("posterior_mean").iter().all(|&m| m == 0.3));
+    // Nine groups: refused with the reason, exit 3, nothing written.
+    let few: String = (0..9).map(|i| format!("g{i},{i},10\n")).collect();
+    write(dir.path(), "few.csv", &format!("id,k,n\n{few}"));
+    args[2] = "few.csv";
+    std::fs::remove_file(dir.path().join("out.csv")).unwrap();
+    let out = ratepool(dir.path(), &[&args[..], &free[..]].concat());
+    assert_eq!(out.status.code(), Some(3), "{}", stderr(&out));
+    assert!(stderr(&out).contains("at least 10 groups with data"), "{}", stderr(&out));
+    assert!(!dir.path().join("out.csv").exists());
+}
+
+#[test]
+fn what_a_free_prior_does_not_combine_with_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo("storefronts.csv");
+    let mut base = vec!["fit", "--input", &input];
+    base.extend(STOREFRONTS);
+    base.extend(["--output", "out.csv"]);
+    let free = [&base[..], &["--prior-shape", "free"]].concat();
+    for (extra, message) in [
+        (vec!["--intervals", "corrected"], "a free prior does not combine with --intervals corrected"),
+        (vec!["--top", "5"], "a free prior does not combine with --top"),
+        (vec!["--covariates", "visits"], "a free prior does not combine with covariates"),
+        (vec!["--grid-points", "5"], "--grid-points must be from 10 to 5000"),
+    ] {
+        assert_refused(dir.path(), &[&free[..], &extra[..]].concat(), message, "out.csv");
+    }
+    assert_refused(
+        dir.path(),
+        &[&base[..], &["--grid-points", "100"]].concat(),
+        "give --prior-shape free",
+        "out.csv",
+    );
+}
+
+#[test]
+fn a_saved_free_prior_that_is_not_a_prior_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo("storefronts.csv");
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STOREFRONTS);
+    args.extend(["--prior-shape", "free", "--output", "out.csv", "--summary", "s.json"]);
+    let (mut s, _) = run(dir.path(), &args);
+    s["prior"]["masses"][7] = Value::from(-0.5);
+    std::fs::write(dir.path().join("bad.json"), s.to_string()).unwrap();
+    let mut score = vec!["score", "--input", &input, "--prior", "bad.json"];
+    score.extend(&STOREFRONTS[2..]);
+    score.extend(["--output", "scored.csv"]);
+    assert_refused(
+        dir.path(),
+        &score,
+        "bad.json: the free prior: the grid's masses must be finite and at least 0",
+        "scored.csv",
+    );
 }
