@@ -671,9 +671,9 @@ pub struct FitArgs {
     /// parametric (default) or free (any shape)
     #[arg(long_help = "The shape of the prior: `parametric` (the model's own law: Beta, Gamma or normal, with one hump) or `free` (masses on a grid of rates, of any shape, such as two humps; it maximises the same marginal likelihood, and the summary compares it with the parametric prior).", long, value_enum, value_name = "SHAPE", default_value_t = PriorShapeArg::Parametric, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub prior_shape: PriorShapeArg,
-    /// Points of a free prior's grid (default 300)
+    /// Points of a free prior's grid (default 300+)
     #[arg(
-        long_help = "The number of points of a free prior's grid, from 10 to 5000 (default 300): evenly spaced from the smallest raw rate to the largest, on the log or logit scale where they span more than a factor of 10.",
+        long_help = "The number of points of a free prior's grid, from 10 to 5000. They are evenly spaced from the smallest raw rate to the largest on the scale where a group's sampling noise is the same at every rate (arcsine square root for proportions, square root for rates, the value itself for estimates). By default 300, or more (up to 2000) where the 1% of groups with the least noise need points closer together than their noise.",
         long,
         value_name = "N",
         help_heading = "Analysis"
@@ -1018,8 +1018,7 @@ fn prior_shape_of(args: &FitArgs) -> Result<PriorShape> {
             Err(Error::Usage("--grid-points applies to a free prior: give --prior-shape free".to_string()))
         }
         (PriorShapeArg::Free, points) => {
-            let points = points.unwrap_or(crate::core::model::free::DEFAULT_GRID_POINTS);
-            if !(10..=5000).contains(&points) {
+            if let Some(points) = points.filter(|p| !(10..=5000).contains(p)) {
                 return Err(Error::Usage(format!("--grid-points must be from 10 to 5000, got {points}")));
             }
             if args.variance_method == VarianceMethodArg::Reml {
@@ -1433,7 +1432,7 @@ impl Command {
                 let model = args.model.unwrap_or(saved);
                 // A saved free prior refuses what a free fit refuses.
                 let shape = match summary.fitted_prior.free_part() {
-                    Some(free) => PriorShape::Free { points: free.grid.len() },
+                    Some(free) => PriorShape::Free { points: Some(free.grid.len()) },
                     None => PriorShape::Parametric,
                 };
                 job_of(

@@ -121,8 +121,8 @@ pub enum PriorShape {
     Parametric,
     /// Masses on a grid of this many rates, of any shape.
     Free {
-        /// Grid points.
-        points: usize,
+        /// Grid points (None: the default rule of [`crate::core::model::free::grid_of`]).
+        points: Option<usize>,
     },
 }
 

@@ -79,7 +79,10 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         );
         compared += 1;
     }
-    assert_eq!(compared, 5, "the marketplace, sellers, district bands, returns and clinics outputs");
+    assert_eq!(
+        compared, 6,
+        "the marketplace, sellers, storefronts, district bands, returns and clinics outputs"
+    );
 }
 
 /// The row of `group` in a CSV output.
@@ -219,6 +222,38 @@ fn the_district_bands_figures_in_the_prose() {
     printed(district("smr"), 2, "1.70");
     printed(district("cases"), 0, "14");
     assert!(!flag_of("district-0101"));
+}
+
+#[test]
+fn the_storefront_figures_in_the_prose() {
+    let dir = scratch();
+    let storefronts = "fit --input demo-data/storefronts.csv --model beta-binomial --group storefront_id --successes purchases --trials visits --below 0.02 --flag-fdr 0.05";
+    run(dir.path(), &format!("{storefronts} --prior-shape free --output free.csv --summary free.json"));
+    run(dir.path(), &format!("{storefronts} --output beta.csv --summary beta.json"));
+    let s = summary(&dir.path().join("free.json"));
+    let below: f64 = s["prior"]["support"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|point| point[0].as_f64().unwrap() < 0.02)
+        .map(|point| point[1].as_f64().unwrap())
+        .sum();
+    printed(below, 2, "0.31");
+    let comparison = &s["prior_comparison"];
+    printed(comparison["parametric_prior"]["mean"].as_f64().unwrap(), 3, "0.045");
+    printed(comparison["log_likelihood_gain"].as_f64().unwrap(), 0, "327");
+    let (free, beta) = (Csv::read(&dir.path().join("free.csv")), Csv::read(&dir.path().join("beta.csv")));
+    let flags = |table: &Csv| table.column("flagged").iter().map(|f| f == "true").collect::<Vec<bool>>();
+    let (free_flags, beta_flags) = (flags(&free), flags(&beta));
+    assert_eq!(free_flags.iter().filter(|&&f| f).count(), 597);
+    assert_eq!(beta_flags.iter().filter(|&&f| f).count(), 114);
+    assert!(free_flags.iter().zip(&beta_flags).all(|(free, beta)| *free || !beta), "one lost its flag");
+    let (free_store, beta_store) =
+        (row(&free, "storefront_id", "store-0240"), row(&beta, "storefront_id", "store-0240"));
+    printed(free_store("purchases"), 0, "0");
+    printed(free_store("visits"), 0, "45");
+    printed(100.0 * free_store("posterior_mean"), 2, "1.84");
+    printed(100.0 * beta_store("posterior_mean"), 2, "2.31");
 }
 
 #[test]

@@ -203,6 +203,7 @@ impl Family for BetaBinomial {
             "every group has at most one trial, so the data say nothing about how much groups differ",
         overdispersion_test: "Tarone",
         restricted_likelihood: false,
+        grid_spacing: super::free::Spacing::ArcsineRoot,
         covariate_terms: CovariateTerms { link: "logit", common_key: "strength", common_sign: 1.0 },
         law_of: |[alpha, beta]| RateLaw::Beta { alpha, beta },
         prior_keys: &[
@@ -276,6 +277,14 @@ impl Family for BetaBinomial {
         let h22 = at.at_a.scaled_trigamma_excess(k) + at.at_b.scaled_trigamma_excess(n - k)
             - at.at_s.scaled_trigamma_excess(n);
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
+    }
+
+    fn rate_axes(p: f64) -> [f64; 2] {
+        [p.ln(), (-p).ln_1p()]
+    }
+
+    fn pair_axes(trials: f64, successes: f64) -> [f64; 2] {
+        [successes, trials - successes]
     }
 
     fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64 {

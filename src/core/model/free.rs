@@ -24,6 +24,7 @@
 use super::{Family, Posterior, Prior, RateRange};
 use crate::core::dense::{cholesky, cholesky_solve};
 use crate::core::pairs::{PairTable, WeightedPair};
+use rayon::prelude::*;
 
 /// The default number of grid points.
 pub const DEFAULT_GRID_POINTS: usize = 300;
@@ -39,58 +40,80 @@ pub const GAP_PER_GROUP: f64 = 1e-9;
 /// whose gap is at the floor set by rounding.
 const STALLED_STEPS: u32 = 5;
 
+/// Where rounding stops the steps short of [`GAP_PER_GROUP`] (millions of
+/// groups), a fit whose gap is within this share of |ℓ| has converged: the
+/// log marginal likelihood is then within 1e-6 of its maximum, relatively.
+pub const STALLED_GAP: f64 = 1e-6;
+
 /// Likelihoods below e^(−BAND_DEPTH) of a row's largest are taken as 0.
 const BAND_DEPTH: f64 = 40.0;
+
+/// A Newton step's support while mass sits on most of the grid: every
+/// this-many-th point.
+const STARTING_STRIDE: usize = 4;
 
 /// Iterations of the Newton method before a fit is called unconverged.
 const MAX_ITERATIONS: u64 = 1_000;
 
-/// How the grid's points are spaced between its ends.
+/// How the grid's points are spaced between its ends: evenly on the scale
+/// where a group's sampling noise has the same spread at every rate (the
+/// variance-stabilising transform of its family's likelihood), so that
+/// neighbouring points are equally far apart in units of that noise.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Spacing {
-    /// Evenly.
+    /// Evenly in the value itself (a normal estimate's noise is its standard error).
     Linear,
-    /// Evenly in ln(rate): rates over orders of magnitude.
-    Log,
-    /// Evenly in ln(p / (1 − p)): proportions over orders of magnitude.
-    Logit,
+    /// Evenly in √rate (a Poisson count's noise there is 1/(2√exposure)).
+    SquareRoot,
+    /// Evenly in arcsin √p (a binomial proportion's noise there is 1/(2√trials)).
+    ArcsineRoot,
 }
 
 impl Spacing {
+    const ALL: [Spacing; 3] = [Spacing::Linear, Spacing::SquareRoot, Spacing::ArcsineRoot];
+
     /// The name written in a summary.
     pub fn name(self) -> &'static str {
         match self {
             Spacing::Linear => "linear",
-            Spacing::Log => "log",
-            Spacing::Logit => "logit",
+            Spacing::SquareRoot => "square-root",
+            Spacing::ArcsineRoot => "arcsine-root",
         }
     }
 
     /// The spacing of a name written by [`Spacing::name`].
     pub fn from_name(name: &str) -> Option<Self> {
-        [Spacing::Linear, Spacing::Log, Spacing::Logit].into_iter().find(|s| s.name() == name)
+        Spacing::ALL.into_iter().find(|s| s.name() == name)
     }
 
     fn axis_of(self, x: f64) -> f64 {
         match self {
             Spacing::Linear => x,
-            Spacing::Log => x.ln(),
-            Spacing::Logit => x.ln() - (-x).ln_1p(),
+            Spacing::SquareRoot => x.sqrt(),
+            Spacing::ArcsineRoot => x.sqrt().asin(),
         }
     }
 
     fn rate_at(self, t: f64) -> f64 {
         match self {
             Spacing::Linear => t,
-            Spacing::Log => t.exp(),
-            Spacing::Logit => 1.0 / (1.0 + (-t).exp()),
+            Spacing::SquareRoot => t * t,
+            Spacing::ArcsineRoot => t.sin().powi(2),
+        }
+    }
+
+    /// The spread of a group's raw value on this scale, given its size.
+    fn noise(self, size: f64) -> f64 {
+        match self {
+            Spacing::Linear => size,
+            Spacing::SquareRoot | Spacing::ArcsineRoot => 0.5 / size.sqrt(),
         }
     }
 }
 
 /// A free prior: masses on a grid of rates, with the cells each point's
 /// mass is spread over when a posterior's interval or tails are read.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone)]
 pub struct FreePrior {
     points: Vec<f64>,
     masses: Vec<f64>,
@@ -100,6 +123,15 @@ pub struct FreePrior {
     edges: Vec<f64>,
     /// The points with mass, in order.
     support: Vec<usize>,
+    /// The family's [`Family::rate_axes`] at each support point, made on
+    /// first use (a prior is used with one family).
+    axes: std::sync::OnceLock<Vec<[f64; 2]>>,
+}
+
+impl PartialEq for FreePrior {
+    fn eq(&self, other: &Self) -> bool {
+        (&self.points, &self.masses, self.spacing) == (&other.points, &other.masses, other.spacing)
+    }
 }
 
 /// Why a free prior cannot be made.
@@ -139,7 +171,7 @@ impl std::fmt::Display for FreeFault {
 
 impl FreePrior {
     /// A prior of `masses` on sorted `points` spaced by `spacing`; masses
-    /// are scaled to sum to 1.
+    /// are scaled to sum to 1 (unless they do to within 1e-12).
     pub fn new(points: Vec<f64>, masses: Vec<f64>, spacing: Spacing) -> Result<Self, FreeFault> {
         let invalid = |reason: &str| Err(FreeFault::Invalid(reason.to_string()));
         if points.is_empty() || points.len() != masses.len() {
@@ -155,7 +187,10 @@ impl FreePrior {
         if total <= 0.0 {
             return invalid("the grid's masses sum to 0");
         }
-        let masses: Vec<f64> = masses.iter().map(|m| m / total).collect();
+        // Masses that sum to 1 to rounding are kept as they are, so a prior
+        // read back from its summary is the same bits as the one written.
+        let masses =
+            if (total - 1.0).abs() <= 1e-12 { masses } else { masses.iter().map(|m| m / total).collect() };
         let mut edges = Vec::with_capacity(points.len() + 1);
         edges.push(points[0]);
         for w in points.windows(2) {
@@ -164,7 +199,7 @@ impl FreePrior {
         }
         edges.push(points[points.len() - 1]);
         let support = (0..points.len()).filter(|&j| masses[j] > 0.0).collect();
-        Ok(FreePrior { points, masses, spacing, edges, support })
+        Ok(FreePrior { points, masses, spacing, edges, support, axes: std::sync::OnceLock::new() })
     }
 
     /// A point mass at `at`.
@@ -204,11 +239,20 @@ impl FreePrior {
         (mean, variance.sqrt())
     }
 
+    /// Each support point's log likelihood of one pair, less a term of the
+    /// pair alone (w · a(rate) of [`Family::rate_axes`]), and the largest.
+    fn support_logs<F: Family>(&self, size: f64, count: f64) -> (Vec<f64>, f64) {
+        let axes =
+            self.axes.get_or_init(|| self.support.iter().map(|&j| F::rate_axes(self.points[j])).collect());
+        let w = F::pair_axes(size, count);
+        let logs: Vec<f64> = axes.iter().map(|a| w[0] * a[0] + w[1] * a[1]).collect();
+        let top = logs.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        (logs, top)
+    }
+
     /// The posterior masses of one pair on the support: (grid index, mass).
     fn posterior_masses<F: Family>(&self, size: f64, count: f64) -> Vec<(usize, f64)> {
-        let pair = WeightedPair { size, count, weight: 1.0 };
-        let logs: Vec<f64> = self.support.iter().map(|&j| F::pooled_log_pmf(self.points[j], &pair)).collect();
-        let top = logs.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        let (logs, top) = self.support_logs::<F>(size, count);
         let mut masses: Vec<(usize, f64)> = if top.is_finite() {
             self.support.iter().zip(&logs).map(|(&j, &l)| (j, self.masses[j] * (l - top).exp())).collect()
         } else {
@@ -303,14 +347,17 @@ impl FreePrior {
         sampling + sd * sd
     }
 
-    /// ln of the marginal pmf of one pair: ln Σⱼ fⱼ p(pair | rate j).
+    /// ln of the marginal pmf of one pair: ln Σⱼ fⱼ p(pair | rate j), the
+    /// pair's own term from its pmf at the support point it likes best.
     pub fn log_pmf<F: Family>(&self, pair: &WeightedPair) -> f64 {
-        let logs: Vec<(f64, f64)> = self.support().map(|(x, m)| (m, F::pooled_log_pmf(x, pair))).collect();
-        let top = logs.iter().map(|&(_, l)| l).fold(f64::NEG_INFINITY, f64::max);
+        let (logs, top) = self.support_logs::<F>(pair.size, pair.count);
         if !top.is_finite() {
-            return top;
+            return f64::NEG_INFINITY;
         }
-        top + logs.iter().map(|&(m, l)| m * (l - top).exp()).sum::<f64>().ln()
+        let best = logs.iter().position(|&l| l == top).unwrap_or(0);
+        let own = F::pooled_log_pmf(self.points[self.support[best]], pair) - top;
+        let sum: f64 = self.support.iter().zip(&logs).map(|(&j, &l)| self.masses[j] * (l - top).exp()).sum();
+        own + top + sum.ln()
     }
 }
 
@@ -334,44 +381,51 @@ pub struct FreeFit {
     pub point_mass: Option<f64>,
 }
 
-/// The grid of a table: `points` points from its smallest to its largest
-/// raw value, evenly spaced, or evenly on the log (logit) axis when the
-/// rates (or odds) span more than a factor of 10. A raw value of 0 (or 1)
-/// is represented by half the smallest positive one (or the like from 1),
-/// or 1/(2 × the largest size) if that is nearer the edge, the rate a group
-/// of the largest size can just tell from the edge. None when every raw
-/// value is the same (that value is returned instead).
-pub fn grid_of<F: Family>(table: &PairTable, points: usize) -> Result<(Vec<f64>, Spacing), f64> {
-    let raws: Vec<f64> = table.pairs().iter().filter_map(|p| F::TERMS.raw_value(p.size, p.count)).collect();
+/// The most grid points the default rule takes.
+pub const MOST_DEFAULT_POINTS: usize = 2_000;
+
+/// The grid of a table, evenly spaced on its family's stabilised scale
+/// ([`Spacing`]) from the smallest raw value to the largest. A raw value of
+/// 0 (or 1) stands as half the smallest positive one (or the like from 1),
+/// or 1/(2 × the largest size) if that is nearer the edge: the rate a group
+/// of the largest size can just tell from the edge. `points` points, or by
+/// default [`DEFAULT_GRID_POINTS`], more where needed for neighbouring points
+/// to be at most one noise spread apart for the 1% of groups with the least
+/// noise (at most [`MOST_DEFAULT_POINTS`]). Err holds the one raw value when
+/// every group's is the same.
+pub fn grid_of<F: Family>(table: &PairTable, points: Option<usize>) -> Result<(Vec<f64>, Spacing), f64> {
+    let spacing = F::TERMS.grid_spacing;
+    let with_data: Vec<(f64, f64)> = table
+        .pairs()
+        .iter()
+        .filter_map(|p| F::TERMS.raw_value(p.size, p.count).map(|raw| (raw, p.weight)))
+        .collect();
     let (min, max) =
-        raws.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &r| (lo.min(r), hi.max(r)));
+        with_data.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(r, _)| (lo.min(r), hi.max(r)));
     if min == max {
         return Err(min);
     }
     let floor = 0.5 / table.max_size().max(1.0);
-    let above_zero = || {
-        let smallest = raws.iter().copied().filter(|&r| r > 0.0).fold(f64::INFINITY, f64::min);
-        (0.5 * smallest).min(floor)
-    };
-    let (low, high, spacing) = match F::TERMS.rates {
-        RateRange::Real => (min, max, Spacing::Linear),
-        RateRange::NonNegative => {
-            let low = if min > 0.0 { min } else { above_zero() };
-            (low, max, if max / low > 10.0 { Spacing::Log } else { Spacing::Linear })
-        }
-        RateRange::Proportion => {
-            let low = if min > 0.0 { min } else { above_zero() };
-            let high = if max < 1.0 {
-                max
-            } else {
-                let largest = raws.iter().copied().filter(|&r| r < 1.0).fold(f64::NEG_INFINITY, f64::max);
-                1.0 - (0.5 * (1.0 - largest)).min(floor)
-            };
-            let wide = high / low > 10.0 || (1.0 - low) / (1.0 - high) > 10.0;
-            (low, high, if wide { Spacing::Logit } else { Spacing::Linear })
-        }
-    };
+    let (mut low, mut high) = (min, max);
+    if F::TERMS.rates != RateRange::Real && low <= 0.0 {
+        let smallest = with_data.iter().map(|&(r, _)| r).filter(|&r| r > 0.0).fold(f64::INFINITY, f64::min);
+        low = (0.5 * smallest).min(floor);
+    }
+    if F::TERMS.rates == RateRange::Proportion && high >= 1.0 {
+        let largest =
+            with_data.iter().map(|&(r, _)| r).filter(|&r| r < 1.0).fold(f64::NEG_INFINITY, f64::max);
+        high = 1.0 - (0.5 * (1.0 - largest)).min(floor);
+    }
     let (a, b) = (spacing.axis_of(low), spacing.axis_of(high));
+    let points = points.unwrap_or_else(|| {
+        let least_noise = quietest_percent::<F>(table, spacing);
+        let needed = ((b - a) / least_noise).ceil();
+        if needed.is_finite() {
+            (needed as usize).clamp(DEFAULT_GRID_POINTS, MOST_DEFAULT_POINTS)
+        } else {
+            DEFAULT_GRID_POINTS
+        }
+    });
     let last = (points - 1) as f64;
     let mut grid: Vec<f64> = (0..points).map(|j| spacing.rate_at(a + (b - a) * j as f64 / last)).collect();
     grid[0] = low;
@@ -379,6 +433,32 @@ pub fn grid_of<F: Family>(table: &PairTable, points: usize) -> Result<(Vec<f64>,
     grid.dedup();
     Ok((grid, spacing))
 }
+
+/// The noise spread on the grid's scale that 1% of the groups with data
+/// are at or below.
+fn quietest_percent<F: Family>(table: &PairTable, spacing: Spacing) -> f64 {
+    let mut noise: Vec<(f64, f64)> = table
+        .pairs()
+        .iter()
+        .filter(|p| F::TERMS.raw_value(p.size, p.count).is_some())
+        .map(|p| (spacing.noise(p.size), p.weight))
+        .collect();
+    noise.sort_by(|x, y| x.0.total_cmp(&y.0));
+    let total: f64 = noise.iter().map(|&(_, w)| w).sum();
+    let mut below = 0.0;
+    for &(spread, weight) in &noise {
+        below += weight;
+        if below >= 0.01 * total {
+            return spread;
+        }
+    }
+    noise.last().map_or(f64::INFINITY, |&(spread, _)| spread)
+}
+
+/// Rows of the likelihood matrix are built and passed over in chunks of
+/// this many, each chunk's sums added in chunk order: the same bits on any
+/// number of threads.
+const ROW_CHUNK: usize = 2_048;
 
 /// The rows of the likelihood matrix: per pair with data, its weight, the
 /// ln of its largest likelihood on the grid, and the band of grid points
@@ -393,6 +473,32 @@ struct Rows {
 
 impl Rows {
     fn of<F: Family>(table: &PairTable, grid: &[f64]) -> Self {
+        let axes: Vec<[f64; 2]> = grid.iter().map(|&x| F::rate_axes(x)).collect();
+        let pairs: Vec<&WeightedPair> =
+            table.pairs().iter().filter(|p| F::TERMS.raw_value(p.size, p.count).is_some()).collect();
+        let chunks: Vec<Rows> =
+            pairs.par_chunks(ROW_CHUNK).map(|chunk| Rows::of_chunk::<F>(chunk, grid, &axes)).collect();
+        let mut rows = Rows {
+            weight: Vec::new(),
+            scale: Vec::new(),
+            first: Vec::new(),
+            offset: vec![0],
+            values: Vec::new(),
+        };
+        for chunk in chunks {
+            let base = rows.values.len();
+            rows.weight.extend(chunk.weight);
+            rows.scale.extend(chunk.scale);
+            rows.first.extend(chunk.first);
+            rows.offset.extend(chunk.offset[1..].iter().map(|o| o + base));
+            rows.values.extend(chunk.values);
+        }
+        rows
+    }
+
+    /// One chunk's rows: each pair's log likelihood on the grid as w · a(rate)
+    /// plus its own term, found from its peak, which sits by its raw value.
+    fn of_chunk<F: Family>(pairs: &[&WeightedPair], grid: &[f64], axes: &[[f64; 2]]) -> Rows {
         let mut rows = Rows {
             weight: Vec::new(),
             scale: Vec::new(),
@@ -401,27 +507,35 @@ impl Rows {
             values: Vec::new(),
         };
         let mut band = Vec::new();
-        for pair in table.pairs() {
-            let Some(raw) = F::TERMS.raw_value(pair.size, pair.count) else { continue };
-            let at = |j: usize| F::pooled_log_pmf(grid[j], pair);
-            // The likelihood is unimodal in the rate, with its peak at the raw value.
-            let right = grid.partition_point(|&x| x < raw).min(grid.len() - 1);
-            let mut peak = right;
-            if right > 0 && at(right - 1) > at(right) {
-                peak = right - 1;
+        for pair in pairs {
+            let raw = F::TERMS.raw_value(pair.size, pair.count).unwrap_or(grid[0]);
+            let w = F::pair_axes(pair.size, pair.count);
+            let at = |j: usize| w[0] * axes[j][0] + w[1] * axes[j][1];
+            // The likelihood is unimodal in the rate: climb from the raw value to its peak.
+            let mut peak = grid.partition_point(|&x| x < raw).min(grid.len() - 1);
+            while peak > 0 && at(peak - 1) > at(peak) {
+                peak -= 1;
+            }
+            while peak + 1 < grid.len() && at(peak + 1) > at(peak) {
+                peak += 1;
             }
             let top = at(peak);
-            let (mut low, mut high) = (peak, peak);
+            band.clear();
+            let mut low = peak;
             while low > 0 && at(low - 1) >= top - BAND_DEPTH {
                 low -= 1;
             }
-            while high + 1 < grid.len() && at(high + 1) >= top - BAND_DEPTH {
-                high += 1;
+            let mut j = low;
+            while j < grid.len() {
+                let v = at(j) - top;
+                if j > peak && v < -BAND_DEPTH {
+                    break;
+                }
+                band.push(v.exp());
+                j += 1;
             }
-            band.clear();
-            band.extend((low..=high).map(|j| (at(j) - top).exp()));
             rows.weight.push(pair.weight);
-            rows.scale.push(top);
+            rows.scale.push(F::pooled_log_pmf(grid[peak], pair));
             rows.first.push(low);
             rows.values.extend_from_slice(&band);
             rows.offset.push(rows.values.len());
@@ -440,6 +554,8 @@ impl Rows {
     /// Lᵢ·f for every row.
     fn fitted(&self, f: &[f64]) -> Vec<f64> {
         (0..self.len())
+            .into_par_iter()
+            .with_min_len(ROW_CHUNK)
             .map(|i| {
                 let (first, values) = self.row(i);
                 values.iter().zip(&f[first..]).map(|(l, m)| l * m).sum()
@@ -452,22 +568,78 @@ impl Rows {
         s.iter().zip(&self.weight).zip(&self.scale).map(|((s, c), k)| c * (k + s.ln())).sum()
     }
 
-    /// dⱼ = Σᵢ cᵢ Lᵢⱼ / sᵢ for every grid point.
-    fn gradient(&self, s: &[f64], points: usize) -> Vec<f64> {
-        let mut d = vec![0.0; points];
-        for (i, s) in s.iter().enumerate() {
-            let (first, values) = self.row(i);
-            let scale = self.weight[i] / s;
-            for (dj, l) in d[first..].iter_mut().zip(values) {
-                *dj += scale * l;
+    /// Σ over chunks of rows, in chunk order, of `each(rows of the chunk)`, a
+    /// vector of `length`.
+    fn chunked_sum(
+        &self,
+        length: usize,
+        each: impl Fn(std::ops::Range<usize>, &mut [f64]) + Sync,
+    ) -> Vec<f64> {
+        let starts: Vec<usize> = (0..self.len()).step_by(ROW_CHUNK).collect();
+        let parts: Vec<Vec<f64>> = starts
+            .par_iter()
+            .map(|&start| {
+                let mut part = vec![0.0; length];
+                each(start..(start + ROW_CHUNK).min(self.len()), &mut part);
+                part
+            })
+            .collect();
+        let mut total = vec![0.0; length];
+        for part in parts {
+            for (t, p) in total.iter_mut().zip(part) {
+                *t += p;
             }
         }
-        d
+        total
+    }
+
+    /// The share α in (0, 1) of mass to move to grid point `j` that
+    /// maximises the likelihood of (1 − α) f + α eⱼ, given the fitted values
+    /// `s` of f: the root of Σᵢ cᵢ (Lᵢⱼ − sᵢ) / (sᵢ + α (Lᵢⱼ − sᵢ)), which
+    /// falls from dⱼ − N > 0, by bisection. Rows whose band misses j add
+    /// −cᵢ / (1 − α) each.
+    fn vertex_step(&self, s: &[f64], j: usize, groups: f64) -> f64 {
+        let mut touching = Vec::new();
+        let mut elsewhere = groups;
+        for (i, s) in s.iter().enumerate() {
+            let (first, values) = self.row(i);
+            if let Some(&l) = j.checked_sub(first).and_then(|at| values.get(at)) {
+                touching.push((self.weight[i], l, *s));
+                elsewhere -= self.weight[i];
+            }
+        }
+        let slope = |alpha: f64| -> f64 {
+            let near: f64 = touching.iter().map(|&(c, l, s)| c * (l - s) / (s + alpha * (l - s))).sum();
+            near - elsewhere.max(0.0) / (1.0 - alpha)
+        };
+        let (mut low, mut high) = (0.0, 1.0);
+        for _ in 0..60 {
+            let mid = 0.5 * (low + high);
+            if slope(mid) > 0.0 {
+                low = mid;
+            } else {
+                high = mid;
+            }
+        }
+        low
+    }
+
+    /// dⱼ = Σᵢ cᵢ Lᵢⱼ / sᵢ for every grid point.
+    fn gradient(&self, s: &[f64], points: usize) -> Vec<f64> {
+        self.chunked_sum(points, |range, d| {
+            for i in range {
+                let (first, values) = self.row(i);
+                let scale = self.weight[i] / s[i];
+                for (dj, l) in d[first..].iter_mut().zip(values) {
+                    *dj += scale * l;
+                }
+            }
+        })
     }
 }
 
 /// Fits the free prior to a table on a grid of `points` points.
-pub fn fit_free<F: Family>(table: &PairTable, points: usize) -> Result<FreeFit, FreeFault> {
+pub fn fit_free<F: Family>(table: &PairTable, points: Option<usize>) -> Result<FreeFit, FreeFault> {
     let groups: f64 = table
         .pairs()
         .iter()
@@ -504,18 +676,35 @@ pub fn fit_free<F: Family>(table: &PairTable, points: usize) -> Result<FreeFit, 
     let mut iterations = 0;
     let mut still = 0;
     loop {
-        let d = rows.gradient(&s, m);
-        let gap = d.iter().copied().fold(f64::NEG_INFINITY, f64::max) - groups;
+        let mut d = rows.gradient(&s, m);
+        let mut gap = d.iter().copied().fold(f64::NEG_INFINITY, f64::max) - groups;
+        // Far from the optimum (some groups left with almost no fitted mass),
+        // the quadratic model of ln is poor and Newton steps grow a missing
+        // point's mass only twofold at a time: first move mass to the point
+        // the gradient favours most, by an exact line search.
+        if gap > groups {
+            let best = (0..m).max_by(|&a, &b| d[a].total_cmp(&d[b])).unwrap_or(0);
+            let alpha = rows.vertex_step(&s, best, groups);
+            for x in &mut f {
+                *x *= 1.0 - alpha;
+            }
+            f[best] += alpha;
+            s = rows.fitted(&f);
+            log_likelihood = rows.log_likelihood(&s);
+            d = rows.gradient(&s, m);
+            gap = d.iter().copied().fold(f64::NEG_INFINITY, f64::max) - groups;
+        }
         // Rows without data add ln 1 = 0 to the likelihood. Where no step
         // gains any more, the optimum is reached to rounding.
-        if gap <= tolerance || still >= STALLED_STEPS {
+        let rounded = still >= STALLED_STEPS || (still > 0 && gap <= STALLED_GAP * log_likelihood.abs());
+        if gap <= tolerance || rounded {
             return Ok(FreeFit {
                 prior: FreePrior::new(grid, f, spacing)?,
                 log_marginal_likelihood: log_likelihood,
                 start_log_marginal_likelihood,
                 duality_gap: gap.max(0.0),
                 iterations,
-                converged: gap <= tolerance,
+                converged: gap <= tolerance || gap <= STALLED_GAP * log_likelihood.abs(),
                 point_mass: None,
             });
         }
@@ -524,9 +713,15 @@ pub fn fit_free<F: Family>(table: &PairTable, points: usize) -> Result<FreeFit, 
         }
         iterations += 1;
         // The support and the gradient's local maxima above N.
+        // The support and the gradient's local maxima above N. While mass
+        // sits on most of the grid (from the even start), every
+        // STARTING_STRIDE-th point stands for its neighbours: a Newton step's
+        // work grows as the square of the support, and most of it is let go.
+        let dense = f.iter().filter(|&&x| x > 0.0).count() > m / 2;
+        let stride = if dense { STARTING_STRIDE } else { 1 };
         let mut support: Vec<usize> = (0..m)
             .filter(|&j| {
-                f[j] > 0.0
+                (f[j] > 0.0 && j % stride == 0)
                     || (d[j] > groups && (j == 0 || d[j] >= d[j - 1]) && (j + 1 == m || d[j] >= d[j + 1]))
             })
             .collect();
@@ -572,31 +767,43 @@ fn newton_masses(rows: &Rows, s: &[f64], support: &[usize], (d, groups): (&[f64]
     for (p, &j) in support.iter().enumerate() {
         place[j] = p;
     }
-    let mut gram = vec![0.0; k * k];
-    let mut columns: Vec<(usize, f64)> = Vec::new();
-    for (i, s) in s.iter().enumerate() {
-        let (first, values) = rows.row(i);
-        columns.clear();
-        for (offset, l) in values.iter().enumerate() {
-            let p = place[first + offset];
-            if p != usize::MAX {
-                columns.push((p, l / s));
+    let mut gram = rows.chunked_sum(k * k, |range, gram| {
+        let mut columns: Vec<(usize, f64)> = Vec::new();
+        for i in range {
+            let (first, values) = rows.row(i);
+            columns.clear();
+            for (offset, l) in values.iter().enumerate() {
+                let p = place[first + offset];
+                if p != usize::MAX {
+                    columns.push((p, l / s[i]));
+                }
+            }
+            let c = rows.weight[i];
+            for (a, &(pa, va)) in columns.iter().enumerate() {
+                for &(pb, vb) in &columns[a..] {
+                    gram[pa * k + pb] += c * va * vb;
+                }
             }
         }
-        let c = rows.weight[i];
-        for (a, &(pa, va)) in columns.iter().enumerate() {
-            for &(pb, vb) in &columns[a..] {
-                gram[pa * k + pb] += c * va * vb;
-            }
-        }
-    }
+    });
     for a in 0..k {
         for b in 0..a {
             gram[a * k + b] = gram[b * k + a];
         }
     }
     let h: Vec<f64> = support.iter().map(|&j| 2.0 * d[j] - groups).collect();
-    non_negative_quadratic(&gram, &h, k)
+    // Solved in columns scaled to a unit diagonal (y = √G_jj β, still ≥ 0):
+    // a point where some groups have almost no fitted mass has a diagonal
+    // many orders above the rest.
+    let unit: Vec<f64> = (0..k).map(|a| 1.0 / gram[a * k + a].sqrt().max(f64::MIN_POSITIVE)).collect();
+    for a in 0..k {
+        for b in 0..k {
+            gram[a * k + b] *= unit[a] * unit[b];
+        }
+    }
+    let scaled_h: Vec<f64> = h.iter().zip(&unit).map(|(h, u)| h * u).collect();
+    let y = non_negative_quadratic(&gram, &scaled_h, k);
+    y.iter().zip(&unit).map(|(y, u)| y * u).collect()
 }
 
 /// min ½ βᵀGβ − hᵀβ over β ≥ 0 (G positive semi-definite, k × k, row

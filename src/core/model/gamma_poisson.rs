@@ -77,6 +77,7 @@ impl Family for GammaPoisson {
         mean_only_data: "the data say nothing about how much groups differ",
         overdispersion_test: "Dean",
         restricted_likelihood: false,
+        grid_spacing: super::free::Spacing::SquareRoot,
         covariate_terms: CovariateTerms { link: "log", common_key: "shape", common_sign: 1.0 },
         law_of: |[shape, rate]| RateLaw::Gamma { shape, rate },
         prior_keys: &[
@@ -144,6 +145,14 @@ impl Family for GammaPoisson {
             )
         };
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
+    }
+
+    fn rate_axes(rate: f64) -> [f64; 2] {
+        [rate.ln(), rate]
+    }
+
+    fn pair_axes(exposure: f64, events: f64) -> [f64; 2] {
+        [events, -exposure]
     }
 
     fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64 {

@@ -198,6 +198,9 @@ pub struct ModelTerms {
     pub overdispersion_test: &'static str,
     /// Whether the model has a restricted likelihood (REML) to maximise.
     pub restricted_likelihood: bool,
+    /// The scale a free prior's grid is evenly spaced on: the one where a
+    /// group's sampling noise has the same spread at every rate.
+    pub grid_spacing: free::Spacing,
     /// How a covariate prior of this family is named: its link and its
     /// common parameter ([`crate::core::regression`]).
     pub covariate_terms: CovariateTerms,
@@ -859,6 +862,13 @@ pub trait Family: Sync {
     }
     /// ln pmf under no overdispersion at rate `mean`.
     fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64;
+    /// The log pmf at a rate as a sum of two products, for a free prior's
+    /// grid: ln p(count | size, rate) = w · a(rate) + a term of the pair
+    /// alone, with a(rate) these two functions of the rate (an exponential
+    /// family's sufficient statistics: ln p and ln(1 − p), ln λ and λ, θ and θ²).
+    fn rate_axes(rate: f64) -> [f64; 2];
+    /// The pair's weights w on [`Family::rate_axes`].
+    fn pair_axes(size: f64, count: f64) -> [f64; 2];
     /// Maximum-likelihood rate under no overdispersion.
     fn pooled_mean(table: &PairTable) -> f64;
     /// Its standard error, from the binomial or Poisson information.

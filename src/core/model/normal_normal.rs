@@ -83,6 +83,7 @@ impl Family for NormalNormal {
         mean_only_data: "there is only one group, so nothing says how much groups differ",
         overdispersion_test: "score test for tau^2 = 0",
         restricted_likelihood: true,
+        grid_spacing: super::free::Spacing::Linear,
         covariate_terms: CovariateTerms { link: "identity", common_key: "variance", common_sign: -1.0 },
         law_of: |[mean, variance]| RateLaw::Normal { mean, sd: variance.sqrt() },
         prior_keys: &[
@@ -127,6 +128,15 @@ impl Family for NormalNormal {
             gradient: [r / v, -tau2 * d_v],
             hessian: [[-1.0 / v, h12], [h12, dd_v * tau2 * tau2 + d_v * tau2]],
         }
+    }
+
+    fn rate_axes(mean: f64) -> [f64; 2] {
+        [mean, mean * mean]
+    }
+
+    fn pair_axes(se: f64, estimate: f64) -> [f64; 2] {
+        let precision = 1.0 / (se * se);
+        [estimate * precision, -0.5 * precision]
     }
 
     fn pooled_log_pmf(mean: f64, pair: &WeightedPair) -> f64 {
