@@ -45,6 +45,9 @@ const STALLED_STEPS: u32 = 5;
 /// log marginal likelihood is then within 1e-6 of its maximum, relatively.
 pub const STALLED_GAP: f64 = 1e-6;
 
+/// Scaled likelihoods below this are left out of a Newton step's quadratic model.
+const NEWTON_DEPTH: f64 = 1e-9;
+
 /// Likelihoods below e^(−BAND_DEPTH) of a row's largest are taken as 0.
 const BAND_DEPTH: f64 = 40.0;
 
@@ -123,6 +126,8 @@ pub struct FreePrior {
     edges: Vec<f64>,
     /// The points with mass, in order.
     support: Vec<usize>,
+    /// The prior's mean and standard deviation.
+    moments: (f64, f64),
     /// The family's [`Family::rate_axes`] at each support point, made on
     /// first use (a prior is used with one family).
     axes: std::sync::OnceLock<Vec<[f64; 2]>>,
@@ -198,8 +203,11 @@ impl FreePrior {
             edges.push(spacing.rate_at(mid).clamp(w[0], w[1]));
         }
         edges.push(points[points.len() - 1]);
-        let support = (0..points.len()).filter(|&j| masses[j] > 0.0).collect();
-        Ok(FreePrior { points, masses, spacing, edges, support, axes: std::sync::OnceLock::new() })
+        let support: Vec<usize> = (0..points.len()).filter(|&j| masses[j] > 0.0).collect();
+        let mean: f64 = support.iter().map(|&j| masses[j] * points[j]).sum();
+        let variance: f64 = support.iter().map(|&j| masses[j] * (points[j] - mean).powi(2)).sum();
+        let moments = (mean, variance.sqrt());
+        Ok(FreePrior { points, masses, spacing, edges, support, moments, axes: std::sync::OnceLock::new() })
     }
 
     /// A point mass at `at`.
@@ -234,9 +242,7 @@ impl FreePrior {
 
     /// The prior's mean and standard deviation.
     pub fn mean_sd(&self) -> (f64, f64) {
-        let mean: f64 = self.support().map(|(x, m)| m * x).sum();
-        let variance: f64 = self.support().map(|(x, m)| m * (x - mean).powi(2)).sum();
-        (mean, variance.sqrt())
+        self.moments
     }
 
     /// Each support point's log likelihood of one pair, less a term of the
@@ -772,9 +778,12 @@ fn newton_masses(rows: &Rows, s: &[f64], support: &[usize], (d, groups): (&[f64]
         for i in range {
             let (first, values) = rows.row(i);
             columns.clear();
-            for (offset, l) in values.iter().enumerate() {
+            for (offset, &l) in values.iter().enumerate() {
                 let p = place[first + offset];
-                if p != usize::MAX {
+                // Entries below 1e-9 of the row's largest add at most 1e-18 of
+                // the largest to the quadratic model: left out of it (not of
+                // the likelihood, whose gap still decides convergence).
+                if p != usize::MAX && l >= NEWTON_DEPTH {
                     columns.push((p, l / s[i]));
                 }
             }
