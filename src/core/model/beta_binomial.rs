@@ -460,6 +460,20 @@ impl Family for BetaBinomial {
         }
     }
 
+    fn pool_weight(prior: &Prior, n: f64) -> f64 {
+        match *prior {
+            Prior::CompletePooling { .. } => 1.0,
+            Prior::Conjugate { natural: [alpha, beta] } => (alpha + beta) / (alpha + beta + n),
+        }
+    }
+
+    fn posterior_natural(prior: &Prior, n: f64, k: f64) -> Option<[f64; 2]> {
+        match *prior {
+            Prior::CompletePooling { .. } => None,
+            Prior::Conjugate { natural: [alpha, beta] } => Some([alpha + k, beta + (n - k)]),
+        }
+    }
+
     fn posterior(prior: &Prior, n: f64, k: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
@@ -471,8 +485,8 @@ impl Family for BetaBinomial {
                     sd,
                     lower: beta_quantile(a, b, Tail::Lower, tail),
                     upper: beta_quantile(a, b, Tail::Upper, tail),
-                    pool_weight: (alpha + beta) / (alpha + beta + n),
-                    natural: Some([a, b]),
+                    pool_weight: Self::pool_weight(prior, n),
+                    natural: Self::posterior_natural(prior, n, k),
                 }
             }
         }

@@ -314,6 +314,20 @@ impl Family for GammaPoisson {
         }
     }
 
+    fn pool_weight(prior: &Prior, exposure: f64) -> f64 {
+        match *prior {
+            Prior::CompletePooling { .. } => 1.0,
+            Prior::Conjugate { natural: [_, rate] } => rate / (rate + exposure),
+        }
+    }
+
+    fn posterior_natural(prior: &Prior, exposure: f64, y: f64) -> Option<[f64; 2]> {
+        match *prior {
+            Prior::CompletePooling { .. } => None,
+            Prior::Conjugate { natural: [shape, rate] } => Some([shape + y, rate + exposure]),
+        }
+    }
+
     fn posterior(prior: &Prior, exposure: f64, y: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
@@ -325,8 +339,8 @@ impl Family for GammaPoisson {
                     sd,
                     lower: gamma_quantile(a, Tail::Lower, tail) / b,
                     upper: gamma_quantile(a, Tail::Upper, tail) / b,
-                    pool_weight: rate / (rate + exposure),
-                    natural: Some([a, b]),
+                    pool_weight: Self::pool_weight(prior, exposure),
+                    natural: Self::posterior_natural(prior, exposure, y),
                 }
             }
         }

@@ -283,20 +283,39 @@ impl Family for NormalNormal {
         }
     }
 
+    fn pool_weight(prior: &Prior, se: f64) -> f64 {
+        match *prior {
+            Prior::CompletePooling { .. } => 1.0,
+            Prior::Conjugate { natural: [_, tau2] } => {
+                let s2 = se * se;
+                s2 / (s2 + tau2)
+            }
+        }
+    }
+
+    fn posterior_natural(prior: &Prior, se: f64, y: f64) -> Option<[f64; 2]> {
+        match *prior {
+            Prior::CompletePooling { .. } => None,
+            Prior::Conjugate { .. } => {
+                let (mean, sd) = Self::posterior_mean_sd(prior, se, y);
+                Some([mean, sd * sd])
+            }
+        }
+    }
+
     fn posterior(prior: &Prior, se: f64, y: f64, tail: f64) -> Posterior {
         match *prior {
             Prior::CompletePooling { mean } => Posterior::pooled(mean),
-            Prior::Conjugate { natural: [_, tau2] } => {
+            Prior::Conjugate { .. } => {
                 let (mean, sd) = Self::posterior_mean_sd(prior, se, y);
                 let (lower, upper) = normal_interval(mean, sd, tail);
-                let s2 = se * se;
                 Posterior {
                     mean,
                     sd,
                     lower,
                     upper,
-                    pool_weight: s2 / (s2 + tau2),
-                    natural: Some([mean, sd * sd]),
+                    pool_weight: Self::pool_weight(prior, se),
+                    natural: Self::posterior_natural(prior, se, y),
                 }
             }
         }
