@@ -2,8 +2,8 @@
 # Checks the HTML report in a real browser on a clean machine: installs
 # Debian's chromium (when missing) and playwright-core (pinned in
 # scripts/browser/package-lock.json), writes reports of the demo data (a plain
-# fit with flags and ranks, the normal model, and a segmented fit through
-# `ratepool report`), opens each headless, screenshots every plot into
+# fit with flags and ranks, the normal model, a segmented fit through
+# `ratepool report`, and a free prior), opens each headless, screenshots every plot into
 # SCREENSHOTS (default target/report-check), and fails when a plot is missing
 # or empty or the page logs an error.
 #
@@ -28,4 +28,8 @@ trap 'rm -rf "$work"' EXIT
 "$bin" --quiet fit --input demo-data/returns.csv --model beta-binomial --group store_id --outcome returned \
   --by store_kind --ranks --output "$work/returns.parquet" --summary "$work/returns.json"
 "$bin" report --table "$work/returns.parquet" --summary "$work/returns.json" --output "$work/returns.html"
-node scripts/browser/check_report.mjs "$shots" "$work/districts.html" "$work/clinics.html" "$work/returns.html"
+"$bin" --quiet fit --input demo-data/storefronts.csv --model beta-binomial --group storefront_id \
+  --successes purchases --trials visits --prior-shape free --below 0.02 --flag-fdr 0.05 \
+  --output "$work/storefronts.csv" --summary "$work/storefronts.json" --report "$work/storefronts.html"
+node scripts/browser/check_report.mjs "$shots" "$work/districts.html" "$work/clinics.html" "$work/returns.html" \
+  "$work/storefronts.html"

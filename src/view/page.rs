@@ -2,7 +2,7 @@
 //! and one section per segment. Escaped text, inline SVG, inline style.
 
 use super::collect::{Collected, GroupRow, LISTED, SAMPLE, WELL_MEASURED};
-use super::plots;
+use super::plots::{self, PriorShown};
 use super::Figure;
 use crate::core::model::{Model, RateLaw};
 use crate::error::Result;
@@ -105,20 +105,44 @@ pub fn figures(
             svg: plots::raw_against_centre(&collected.sample, terms)?,
         });
     } else {
+        let parametric = summary.prior_comparison.as_ref().and_then(|c| c.parametric_prior.as_ref());
+        let shown = match (summary.fitted_prior.free_part(), prior) {
+            (Some(free), _) => PriorShown::Free {
+                support: &free.support,
+                parametric: parametric.and_then(|p| match p.natural(terms) {
+                    [Some(a), Some(b)] => Some((terms.law_of)([a, b])),
+                    _ => None,
+                }),
+            },
+            (None, Some(law)) => PriorShown::Law(law),
+            (None, None) => PriorShown::Pooled(prior_mean),
+        };
+        let under = match &shown {
+            PriorShown::Law(_) => "under the fitted prior's density".to_string(),
+            PriorShown::Pooled(_) => "under a line at the pooled value (complete pooling)".to_string(),
+            PriorShown::Free { parametric, .. } => format!(
+                "under the free prior's masses (red bars: each point holding at least {} of the mass, as its mass over one histogram bin's width){}",
+                crate::summary::FreePriorReport::SHOWN_MASS,
+                if parametric.is_some() {
+                    " and the parametric prior fitted to the same data (grey line): where the bars gather in humps the line does not follow, the parametric prior pulls groups toward the wrong place"
+                } else {
+                    ""
+                }
+            ),
+        };
         figures.push(Figure {
         name: "prior".into(),
         title: "The prior over the raw values".into(),
         caption: format!(
-            "Histogram (as a density) of the raw values of {} well-measured groups (pool weight at most {WELL_MEASURED}, so their own data carry at least 80% of their posterior mean){}, under the fitted prior's density{}.",
+            "Histogram (as a density) of the raw values of {} well-measured groups (pool weight at most {WELL_MEASURED}, so their own data carry at least 80% of their posterior mean){}, {under}.",
             collected.well_measured_count,
             if (collected.well_measured.len() as u64) < collected.well_measured_count {
                 format!(", a seeded sample of {}", collected.well_measured.len())
             } else {
                 String::new()
             },
-            if prior.is_some() { "" } else { " (here a line at the pooled value: complete pooling)" }
         ),
-        svg: plots::prior_over_raw(&collected.well_measured, (prior, prior_mean), terms)?,
+        svg: plots::prior_over_raw(&collected.well_measured, &shown, terms)?,
     });
     }
     if let Some(checks) = &summary.checks {
@@ -179,6 +203,17 @@ fn segment_name(summary: &Summary, i: usize) -> String {
 
 /// A prior in words.
 fn prior_text(prior: &FittedPrior, model: Model) -> String {
+    if let Some(free) = prior.free_part() {
+        return format!(
+            "free: masses on {} grid points ({} spacing), {} of them holding at least {} of the mass; mean {}, standard deviation {}",
+            free.grid.len(),
+            free.spacing,
+            free.support.len(),
+            crate::summary::FreePriorReport::SHOWN_MASS,
+            num(prior.mean()),
+            num(prior.get("sd").unwrap_or(f64::NAN))
+        );
+    }
     if let Some(covariates) = prior.covariates() {
         let terms = model.terms();
         let key = terms.covariate_terms.common_key;

@@ -199,29 +199,61 @@ fn bars(counts: &[u64], (low, high): (f64, f64), scale: f64) -> Vec<Rectangle<(f
         .collect()
 }
 
+/// What the prior plot draws over the histogram.
+pub enum PriorShown<'a> {
+    /// A law's density.
+    Law(RateLaw),
+    /// Complete pooling: a line at the pooled value.
+    Pooled(f64),
+    /// A free prior's support as [rate, mass] (each drawn as a bar of its
+    /// mass over one histogram bin's width, so it reads on the histogram's
+    /// scale), with the parametric prior fitted beside it as a line.
+    Free {
+        /// The points holding a share of the mass worth showing.
+        support: &'a [[f64; 2]],
+        /// The parametric prior's law, when it was fitted.
+        parametric: Option<RateLaw>,
+    },
+}
+
 /// The histogram of the raw rates of well-measured groups, as a density,
-/// under the fitted prior's density (or the pooled rate, at complete pooling).
-pub fn prior_over_raw(
-    raw: &[f64],
-    (prior, prior_mean): (Option<RateLaw>, f64),
-    terms: &ModelTerms,
-) -> Result<String> {
+/// under the fitted prior: its density, the pooled rate at complete
+/// pooling, or a free prior's masses beside the parametric prior's density.
+pub fn prior_over_raw(raw: &[f64], shown: &PriorShown<'_>, terms: &ModelTerms) -> Result<String> {
     const BINS: usize = 40;
-    let (mut low, mut high) = span(raw.iter().copied().chain([prior_mean]));
-    if prior.is_some() {
+    let marks: Vec<f64> = match shown {
+        PriorShown::Pooled(at) => vec![*at],
+        PriorShown::Free { support, .. } => support.iter().map(|p| p[0]).collect(),
+        PriorShown::Law(_) => Vec::new(),
+    };
+    let (mut low, mut high) = span(raw.iter().copied().chain(marks));
+    if !matches!(shown, PriorShown::Pooled(_)) {
         (low, high) = terms.rates.clamp((low, high));
     }
     let counts = bin(raw, (low, high), BINS);
-    let scale = 1.0 / (raw.len().max(1) as f64 * (high - low) / BINS as f64);
-    let curve: Vec<(f64, f64)> = match prior {
-        Some(law) => (0..=300)
+    let bin_width = (high - low) / BINS as f64;
+    let scale = 1.0 / (raw.len().max(1) as f64 * bin_width);
+    let curve_of = |law: &RateLaw| -> Vec<(f64, f64)> {
+        (0..=300)
             .map(|i| low + (high - low) * f64::from(i) / 300.0)
             .map(|x| (x, law.density(x)))
             .filter(|p| p.1.is_finite())
-            .collect(),
-        None => Vec::new(),
+            .collect()
     };
-    let top = counts.iter().map(|&c| c as f64 * scale).chain(curve.iter().map(|p| p.1)).fold(0.0, f64::max);
+    let curve = match shown {
+        PriorShown::Law(law) | PriorShown::Free { parametric: Some(law), .. } => curve_of(law),
+        _ => Vec::new(),
+    };
+    let stems: Vec<(f64, f64)> = match shown {
+        PriorShown::Free { support, .. } => support.iter().map(|p| (p[0], p[1] / bin_width)).collect(),
+        _ => Vec::new(),
+    };
+    let top = counts
+        .iter()
+        .map(|&c| c as f64 * scale)
+        .chain(curve.iter().map(|p| p.1))
+        .chain(stems.iter().map(|p| p.1))
+        .fold(0.0, f64::max);
     let top = if top > 0.0 { top * 1.08 } else { 1.0 };
     svg(|root| {
         let mut chart = ChartBuilder::on(root)
@@ -238,11 +270,21 @@ pub fn prior_over_raw(
             .light_line_style(WHITE)
             .draw()?;
         chart.draw_series(bars(&counts, (low, high), scale))?;
-        if curve.is_empty() {
-            chart
-                .draw_series(LineSeries::new([(prior_mean, 0.0), (prior_mean, top)], FLAG.stroke_width(2)))?;
-        } else {
-            chart.draw_series(LineSeries::new(curve, FLAG.stroke_width(2)))?;
+        match shown {
+            PriorShown::Pooled(at) => {
+                chart.draw_series(LineSeries::new([(*at, 0.0), (*at, top)], FLAG.stroke_width(2)))?;
+            }
+            PriorShown::Law(_) => {
+                chart.draw_series(LineSeries::new(curve, FLAG.stroke_width(2)))?;
+            }
+            PriorShown::Free { .. } => {
+                chart.draw_series(LineSeries::new(curve, LINE.stroke_width(2)))?;
+                chart.draw_series(
+                    stems
+                        .iter()
+                        .map(|&(x, h)| PathElement::new(vec![(x, 0.0), (x, h)], FLAG.stroke_width(3))),
+                )?;
+            }
         }
         Ok(())
     })

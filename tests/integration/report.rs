@@ -193,3 +193,31 @@ fn plots_alone_come_as_png_too_the_same_bytes_each_time() {
         );
     }
 }
+
+#[test]
+fn a_free_prior_is_drawn_as_its_masses_beside_the_parametric_prior() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/storefronts.csv");
+    let mut args = vec!["--quiet", "fit", "--input", input.to_str().unwrap(), "--model", "beta-binomial"];
+    args.extend(["--group", "storefront_id", "--successes", "purchases", "--trials", "visits"]);
+    args.extend(["--prior-shape", "free", "--output", "sf.csv", "--summary", "s.json"]);
+    args.extend(["--report", "sf.html", "--plots", "plots"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = read(dir.path(), "sf.html");
+    let s = summary(&dir.path().join("s.json"));
+    let support = s["prior"]["support"].as_array().unwrap().len();
+    assert!(
+        page.contains(&format!("free: masses on 300 grid points (arcsine-root spacing), {support} of them"))
+    );
+    assert!(
+        page.contains("masses (red bars: each point holding at least 0.001"),
+        "the caption names what is drawn"
+    );
+    assert!(page.contains("the parametric prior fitted to the same data (grey line)"));
+    assert!(!page.contains("complete pooling"), "a free prior is not complete pooling");
+    // The prior plot: one red bar per support point shown, and the parametric prior's curve.
+    let prior = read(dir.path(), "plots/prior.svg");
+    assert_eq!(prior.matches("stroke=\"#C4362C\"").count(), support, "{prior:.400}");
+    assert!(prior.matches("stroke=\"#5A5A5A\"").count() >= 1);
+}

@@ -681,8 +681,8 @@ impl SpreadPrior {
 /// the coverage study (benches/coverage.py: 89.8% at 50 groups, against
 /// 93.9% for the mixture in a prototype). Its mean and variance are the
 /// mixture's; its interval ends solve Σ wⱼ P(rate < x | node j) = tail and
-/// 1 − tail (regula falsi, Illinois, bracketed from the interval of the law
-/// matched to the mixture's mean and variance). The posterior parameters
+/// 1 − tail ([`mixture_quantile`]: Halley's method from the interval of the
+/// law matched to the mixture's mean and variance). The posterior parameters
 /// written are the plug-in ones. At complete pooling the posterior mean is
 /// the pooled rate itself, so the mixture is over it: the law matched to the
 /// pooled rate and its variance.
