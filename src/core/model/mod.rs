@@ -763,6 +763,7 @@ fn mixture_quantile<F: Family>(
         x = 0.5 * (1.0 + start.clamp(0.0, 1.0));
     }
     let (mut low, mut high): (Option<f64>, Option<f64>) = (None, None);
+    let mut reach = 0.5 * scale.max(f64::MIN_POSITIVE);
     for _ in 0..200 {
         let (mut g, mut density, mut slope) = (-target, 0.0, 0.0);
         for c in mixture {
@@ -788,23 +789,28 @@ fn mixture_quantile<F: Family>(
                 && (!positive || y > 0.0)
                 && inside(y)
         };
-        // Halley's error falls as the cube of the last: a step of at most
-        // 1e-6 of |x| leaves an error near 1e-18 of it, so it ends the search.
+        // Halley's error falls as the cube of the last: near the target, a
+        // step of at most 1e-6 of |x| leaves an error near 1e-18 of it, so it
+        // ends the search. Far out in a tail its steps are short and say
+        // nothing: there the search steps out, growing, until it brackets.
+        let near = g.abs() <= 0.1 * target.min(1.0 - target);
         let width = if positive { halley.abs() } else { halley.abs().max(scale) };
-        if density > 0.0 && halley.is_finite() && (halley - x).abs() <= 1e-6 * width {
+        if near && density > 0.0 && halley.is_finite() && (halley - x).abs() <= 1e-6 * width {
             return halley;
         }
-        let next = if density > 0.0 && within(halley) {
+        let next = if density > 0.0 && within(halley) && (near || (low.is_some() && high.is_some())) {
             halley
         } else {
+            reach *= 2.0;
             match (low, high) {
+                (Some(l), Some(h)) if positive && h > 4.0 * l => (l * h).sqrt(),
                 (Some(l), Some(h)) => 0.5 * (l + h),
                 // One side known: step out from it, geometrically.
                 (Some(l), None) if positive && rates == RateRange::Proportion => 0.5 * (l + 1.0),
                 (Some(l), None) if positive => 2.0 * l.max(f64::MIN_POSITIVE),
                 (None, Some(h)) if positive => 0.5 * h,
-                (Some(l), None) => l + scale.max(l.abs() * 1e-3),
-                (None, Some(h)) => h - scale.max(h.abs() * 1e-3),
+                (Some(l), None) => l + reach,
+                (None, Some(h)) => h - reach,
                 (None, None) => return x,
             }
         };
@@ -1055,6 +1061,60 @@ pub(crate) fn assert_derivatives_match<F: Family>(pairs: &[(f64, f64)], points: 
 #[cfg(test)]
 mod quadrature {
     use super::*;
+
+    /// The quantile of one pair's corrected posterior under `natural` spread
+    /// by `covariance`, from `start`: where it lands, and the mixture's CDF there.
+    fn quantile_from<F: Family>(
+        natural: [f64; 2],
+        (size, count): (f64, f64),
+        target: f64,
+        start: f64,
+    ) -> (f64, f64) {
+        let spread = SpreadPrior::new::<F>(natural, [[0.04, 0.01], [0.01, 0.09]], None).unwrap();
+        let mixture: Vec<Component<'_>> = spread
+            .nodes
+            .iter()
+            .map(|(weight, node)| {
+                let law = (F::TERMS.law_of)(F::posterior_natural(node, size, count).unwrap());
+                Component { weight: *weight, node, ln_norm: law.ln_normaliser(), law }
+            })
+            .collect();
+        let x = mixture_quantile::<F>(&mixture, (size, count), target, start, 1.0);
+        let cdf: f64 = mixture.iter().map(|c| c.weight * F::rate_tails(c.node, size, count, x).0).sum();
+        (x, cdf)
+    }
+
+    #[test]
+    fn the_mixture_quantile_is_found_from_near_and_far_starts() {
+        use super::beta_binomial::BetaBinomial;
+        use super::gamma_poisson::GammaPoisson;
+        use super::normal_normal::NormalNormal;
+        // Starts on both sides, near and far: each ends where the mixture's CDF is the target.
+        type Solve<'a> = &'a dyn Fn(f64, f64) -> (f64, f64);
+        let cases: [(Solve<'_>, [f64; 3]); 3] = [
+            (
+                &|target, start| quantile_from::<BetaBinomial>([3.0, 12.0], (40.0, 7.0), target, start),
+                [0.01, 0.2, 0.999],
+            ),
+            (
+                &|target, start| quantile_from::<GammaPoisson>([6.0, 6.0], (3.5, 9.0), target, start),
+                [1e-3, 2.0, 40.0],
+            ),
+            (
+                &|target, start| quantile_from::<NormalNormal>([1.5, 0.25], (0.4, 2.2), target, start),
+                [-30.0, 1.7, 25.0],
+            ),
+        ];
+        for (solve, starts) in cases {
+            for target in [0.025, 0.975] {
+                let answers: Vec<(f64, f64)> = starts.iter().map(|&start| solve(target, start)).collect();
+                for &(x, cdf) in &answers {
+                    assert!((cdf - target).abs() < 1e-12, "CDF {cdf} at {x} for {target}");
+                    assert!((x - answers[1].0).abs() <= 1e-10 * x.abs().max(1.0), "{answers:?}");
+                }
+            }
+        }
+    }
 
     #[test]
     fn the_hermite_rule_integrates_the_normal_moments() {
