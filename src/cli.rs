@@ -999,8 +999,8 @@ fn refuse_free_prior_with(table: &TableArgs, shape: PriorShape) -> Result<()> {
         Some("covariates: a free prior has no centre for them to move; segments (--by) give each kind of group its own free prior")
     } else if table.intervals == IntervalsArg::Corrected {
         Some("--intervals corrected: the correction integrates over a parametric prior's two parameters; a free prior's intervals are plug-in")
-    } else if table.top.is_some() {
-        Some("--top: the draws of prob_top are from parametric posteriors; rank by posterior mean with --ranks instead")
+    } else if table.top.is_some() && table.top_method == TopMethodArg::Draws {
+        Some("--top-method draws: the draws of prob_top are from parametric posteriors; a free prior's prob_top is by the threshold method (the default for it)")
     } else {
         None
     };

@@ -211,18 +211,37 @@ pub fn top_probabilities_by_draws(
     totals.iter().zip(weights).map(|(&t, &w)| t / (draws as f64 * w)).collect()
 }
 
+/// What the threshold search needs to know of the posteriors' laws.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct LawKinds {
+    /// Every posterior is a point mass (complete pooling).
+    pub all_points: bool,
+    /// No posterior puts mass below zero (rates, not estimates).
+    pub floored: bool,
+}
+
+impl LawKinds {
+    /// The kinds of these laws.
+    pub fn of(laws: &[RateLaw]) -> Self {
+        LawKinds {
+            all_points: laws.iter().all(RateLaw::is_point),
+            floored: !laws.iter().any(RateLaw::reaches_below_zero),
+        }
+    }
+}
+
 /// P(a group is among the `k` best) per pair by the threshold c where the
 /// expected number of groups beyond it is `k`: Σ weights · P(rate beyond c)
 /// = k, solved by bracketing and the Illinois variant of regula falsi to a
 /// relative error of 1e-9 in the count; each pair's probability is then
 /// P(rate beyond c). `beyond(i, c)` is P(rate > c) for pair `i` (P(rate < c)
-/// for [`RankOrder::LowestFirst`]), `means` the posterior means, `laws`
-/// the posterior laws. When every posterior is a point mass (complete
+/// for [`RankOrder::LowestFirst`]), `means` the posterior means, `kinds`
+/// what kind of laws the posteriors are. When every posterior is a point mass (complete
 /// pooling) the groups tied at the cut share what is left of the `k` places.
 pub fn top_probabilities_by_threshold(
     means: &[f64],
     weights: &[f64],
-    laws: &[RateLaw],
+    kinds: LawKinds,
     k: usize,
     order: RankOrder,
     beyond: impl Fn(usize, f64) -> f64 + Sync,
@@ -232,7 +251,7 @@ pub fn top_probabilities_by_threshold(
     if k >= groups {
         return (vec![1.0; means.len()], f64::NAN);
     }
-    if laws.iter().all(RateLaw::is_point) {
+    if kinds.all_points {
         return point_mass_top(means, weights, k, order);
     }
     let expected =
@@ -270,7 +289,7 @@ pub fn top_probabilities_by_threshold(
     let (mut f_low, mut f_high) = (excess(low), excess(high));
     let mut step = scale * 0.5;
     // Beta and Gamma rates are at least 0; normal values may take any sign.
-    let floored = !laws.iter().any(RateLaw::reaches_below_zero);
+    let floored = kinds.floored;
     while f_low < 0.0 {
         low -= step;
         if floored && low <= 0.0 {
@@ -419,23 +438,35 @@ mod tests {
         let means: Vec<f64> = rates.iter().map(|r| 1.0 / r).collect();
         let weights = [1.0, 1.0, 2.0, 3.0];
         let above = |i: usize, c: f64| (-rates[i] * c).exp();
-        let (p, c) =
-            top_probabilities_by_threshold(&means, &weights, &laws, 2, RankOrder::HighestFirst, above);
+        let (p, c) = top_probabilities_by_threshold(
+            &means,
+            &weights,
+            LawKinds::of(&laws),
+            2,
+            RankOrder::HighestFirst,
+            above,
+        );
         let expected: f64 = p.iter().zip(weights).map(|(p, w)| p * w).sum();
         assert!((expected - 2.0).abs() < 1e-8, "{expected}");
         for (i, p) in p.iter().enumerate() {
             assert_eq!(*p, above(i, c));
         }
         let below = |i: usize, c: f64| 1.0 - (-rates[i] * c).exp();
-        let (p, _) =
-            top_probabilities_by_threshold(&means, &weights, &laws, 2, RankOrder::LowestFirst, below);
+        let (p, _) = top_probabilities_by_threshold(
+            &means,
+            &weights,
+            LawKinds::of(&laws),
+            2,
+            RankOrder::LowestFirst,
+            below,
+        );
         let expected: f64 = p.iter().zip(weights).map(|(p, w)| p * w).sum();
         assert!((expected - 2.0).abs() < 1e-8, "{expected}");
         let points = [RateLaw::Point(0.5), RateLaw::Point(0.2), RateLaw::Point(0.2)];
         let (p, _) = top_probabilities_by_threshold(
             &[0.5, 0.2, 0.2],
             &[1.0, 2.0, 1.0],
-            &points,
+            LawKinds::of(&points),
             2,
             RankOrder::HighestFirst,
             |_, _| 0.0,

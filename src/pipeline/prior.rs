@@ -27,8 +27,8 @@ use crate::core::model::{
 };
 use crate::core::pairs::{PairTable, WeightedPair};
 use crate::core::ranking::{
-    posterior_fdr_flags, top_probabilities_by_draws, top_probabilities_by_threshold, FdrFlags, RankOrder,
-    TopMethod,
+    posterior_fdr_flags, top_probabilities_by_draws, top_probabilities_by_threshold, FdrFlags, LawKinds,
+    RankOrder, TopMethod,
 };
 use crate::error::{Error, Result};
 use crate::io::sink::PairValues;
@@ -739,7 +739,11 @@ fn top_of<F: Family>(
     let laws: Vec<RateLaw> = posteriors.iter().map(F::rate_law).collect();
     let weights = places.weights();
     let groups: f64 = weights.iter().sum();
+    // A free prior's posteriors are masses on a grid, not laws to draw from:
+    // its groups get the threshold method (the CLI refuses --top-method draws).
+    let free = matches!(job.prior_shape, PriorShape::Free { .. });
     let by_draws = match rule.method {
+        _ if free => false,
         TopChoice::Draws => true,
         TopChoice::Threshold => false,
         TopChoice::Auto => groups * rule.draws_for(groups) as f64 <= DRAW_BUDGET,
@@ -759,7 +763,15 @@ fn top_of<F: Family>(
         (p, TopMethod::Draws { draws, seed: job.seed })
     } else {
         let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
-        let (p, threshold) = top_probabilities_by_threshold(&means, &weights, &laws, rule.k, order, beyond);
+        let kinds = if free {
+            LawKinds {
+                all_points: posteriors.iter().all(|p| p.sd == 0.0),
+                floored: F::TERMS.rates != RateRange::Real,
+            }
+        } else {
+            LawKinds::of(&laws)
+        };
+        let (p, threshold) = top_probabilities_by_threshold(&means, &weights, kinds, rule.k, order, beyond);
         (p, TopMethod::Threshold { threshold })
     }
 }

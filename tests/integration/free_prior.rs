@@ -326,7 +326,10 @@ fn what_a_free_prior_does_not_combine_with_is_refused() {
     let free = [&base[..], &["--prior-shape", "free"]].concat();
     for (extra, message) in [
         (vec!["--intervals", "corrected"], "a free prior does not combine with --intervals corrected"),
-        (vec!["--top", "5"], "a free prior does not combine with --top"),
+        (
+            vec!["--top", "5", "--top-method", "draws"],
+            "a free prior does not combine with --top-method draws",
+        ),
         (vec!["--covariates", "visits"], "a free prior does not combine with covariates"),
         (vec!["--grid-points", "5"], "--grid-points must be from 10 to 5000"),
     ] {
@@ -359,4 +362,36 @@ fn a_saved_free_prior_that_is_not_a_prior_is_refused() {
         "bad.json: the free prior: the grid's masses must be finite and at least 0",
         "scored.csv",
     );
+}
+
+#[test]
+fn prob_top_under_a_free_prior_is_by_the_threshold_and_adds_up_to_k() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo("storefronts.csv");
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STOREFRONTS);
+    args.extend([
+        "--prior-shape",
+        "free",
+        "--top",
+        "50",
+        "--ranks",
+        "--output",
+        "out.csv",
+        "--summary",
+        "s.json",
+    ]);
+    let (s, _) = run(dir.path(), &args);
+    assert_eq!(s["top"]["method"], "threshold", "{}", s["top"]);
+    let table = Csv::read(&dir.path().join("out.csv"));
+    let top = table.floats("prob_top");
+    // The threshold method's defining sum: the expected number of groups beyond it is K.
+    let expected: f64 = top.iter().sum();
+    assert!((expected - 50.0).abs() < 1e-6, "{expected}");
+    // The best by posterior mean is likelier among the best 50 than the median group.
+    let ranks = table.floats("rank_mean");
+    let best = ranks.iter().position(|&r| r == 1.0).unwrap();
+    let mut sorted = top.clone();
+    sorted.sort_by(f64::total_cmp);
+    assert!(top[best] > sorted[sorted.len() / 2], "{} against {}", top[best], sorted[sorted.len() / 2]);
 }
