@@ -149,6 +149,9 @@ pub fn render_text(summary: &Summary) -> String {
     out
 }
 
+/// The most support points of a free prior the terminal lists.
+const SUPPORT_SHOWN: usize = 12;
+
 /// A free prior: its grid, its support and the comparison with the
 /// parametric prior on the same data.
 fn free_lines(out: &mut String, summary: &Summary) {
@@ -164,8 +167,19 @@ fn free_lines(out: &mut String, summary: &Summary) {
         prior.mean(),
         three_digits(prior.get("sd").unwrap_or(f64::NAN))
     );
-    let shown: Vec<String> =
-        free.support.iter().map(|[rate, mass]| format!("{} ({:.3})", plain(*rate), mass)).collect();
+    // At most the twelve points with the most mass, in rate order; the rest summed.
+    let mut heaviest: Vec<&[f64; 2]> = free.support.iter().collect();
+    heaviest.sort_by(|a, b| b[1].total_cmp(&a[1]));
+    let rest: f64 = heaviest.iter().skip(SUPPORT_SHOWN).map(|p| p[1]).sum();
+    let left = heaviest.len().saturating_sub(SUPPORT_SHOWN);
+    heaviest.truncate(SUPPORT_SHOWN);
+    heaviest.sort_by(|a, b| a[0].total_cmp(&b[0]));
+    let mut shown: Vec<String> =
+        heaviest.iter().map(|[rate, mass]| format!("{} ({:.3})", plain(*rate), mass)).collect();
+    if left > 0 {
+        let points = if left == 1 { "point" } else { "points" };
+        shown.push(format!("and {left} more {points} holding {rest:.3}"));
+    }
     let _ = writeln!(out, "  support      {}", shown.join(", "));
     let Some(comparison) = &summary.prior_comparison else { return };
     match (&comparison.parametric_prior, comparison.log_likelihood_gain, &comparison.parametric_checks) {

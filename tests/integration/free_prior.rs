@@ -395,3 +395,36 @@ fn prob_top_under_a_free_prior_is_by_the_threshold_and_adds_up_to_k() {
     sorted.sort_by(f64::total_cmp);
     assert!(top[best] > sorted[sorted.len() / 2], "{} against {}", top[best], sorted[sorted.len() / 2]);
 }
+
+#[test]
+fn the_terminal_lists_the_twelve_heaviest_support_points_and_sums_the_rest() {
+    // The demo clinics' free prior holds 13 points of at least 0.001 of the mass.
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo("clinic_waits.csv");
+    let args = [
+        "fit",
+        "--input",
+        &input,
+        "--model",
+        "normal-normal",
+        "--group",
+        "clinic_id",
+        "--estimate",
+        "mean_wait_minutes",
+        "--std-error",
+        "wait_se",
+        "--prior-shape",
+        "free",
+        "--output",
+        "out.csv",
+        "--summary",
+        "s.json",
+    ];
+    let (s, printed) = run(dir.path(), &args);
+    let support = s["prior"]["support"].as_array().unwrap();
+    assert_eq!(support.len(), 13);
+    let lightest = support.iter().map(|p| p[1].as_f64().unwrap()).fold(f64::INFINITY, f64::min);
+    let line = printed.lines().find(|l| l.trim_start().starts_with("support")).unwrap();
+    assert_eq!(line.matches(" (0.").count(), 12, "{line}");
+    assert!(line.ends_with(&format!("and 1 more point holding {lightest:.3}")), "{line}");
+}
