@@ -246,8 +246,6 @@ fn chosen_of_free_fit<F: Family>(table: &PairTable, fitted: &FreeFit) -> Chosen 
         grid: prior.points().to_vec(),
         masses: prior.masses().to_vec(),
     };
-    let pooled_mean = F::pooled_mean(table);
-    let z = F::overdispersion_z(table, pooled_mean);
     let fit = FitReport {
         source: "fit".to_string(),
         log_marginal_likelihood: fitted.log_marginal_likelihood,
@@ -256,11 +254,7 @@ fn chosen_of_free_fit<F: Family>(table: &PairTable, fitted: &FreeFit) -> Chosen 
         iterations: fitted.iterations,
         gradient_norm: fitted.duality_gap / table.groups().max(1.0),
         boundary: "none".to_string(),
-        overdispersion_test: TestReport {
-            name: F::TERMS.overdispersion_test.to_string(),
-            statistic: z,
-            p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
-        },
+        overdispersion_test: overdispersion_report::<F>(table),
         boundary_score: None,
         likelihood: "marginal".to_string(),
         restricted_log_likelihood: None,
@@ -955,8 +949,6 @@ fn model_checks<F: Family>(
     let terms: Vec<f64> =
         pairs.par_iter().zip(place_of_pair).map(|(p, &place)| p.weight * points[place].log_pmf(p)).collect();
     let log_likelihood: f64 = terms.iter().sum();
-    let pooled_mean = F::pooled_mean(table);
-    let z = F::overdispersion_z(table, pooled_mean);
     let groups = table.groups();
     ChecksReport {
         data: match job.prior {
@@ -966,11 +958,7 @@ fn model_checks<F: Family>(
         .to_string(),
         log_marginal_likelihood: log_likelihood,
         log_marginal_likelihood_per_group: log_likelihood / groups,
-        overdispersion_test: TestReport {
-            name: F::TERMS.overdispersion_test.to_string(),
-            statistic: z,
-            p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
-        },
+        overdispersion_test: overdispersion_report::<F>(table),
         verdict: ChecksReport::verdict_of(calibration.groups, calibration.p_value, POOR_FIT_P),
         calibration: CalibrationReport {
             bins: calibration.bins.to_vec(),
@@ -985,6 +973,17 @@ fn model_checks<F: Family>(
             expected,
             ratio: (expected > 0.0).then(|| observed / expected),
         },
+    }
+}
+
+/// The family's score test for overdispersion on `table`, at its pooled
+/// rate, with its one-sided p-value.
+fn overdispersion_report<F: Family>(table: &PairTable) -> TestReport {
+    let z = F::overdispersion_z(table, F::pooled_mean(table));
+    TestReport {
+        name: F::TERMS.overdispersion_test.to_string(),
+        statistic: z,
+        p_value: 0.5 * crate::core::incomplete::erfc(z / std::f64::consts::SQRT_2),
     }
 }
 

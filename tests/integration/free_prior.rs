@@ -3,7 +3,7 @@
 //! likelihood over masses on the same grid (scripts/make_free_prior_fixtures.py),
 //! the pmfs from scipy.stats.
 
-use crate::util::{assert_refused, json_fixture, paired, ratepool, stderr, summary, write, Csv};
+use crate::util::{assert_refused, json_fixture, paired, ratepool, stderr, summary, write, Csv, CLINICS};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Beta, Binomial, Distribution};
@@ -401,25 +401,9 @@ fn the_terminal_lists_the_twelve_heaviest_support_points_and_sums_the_rest() {
     // The demo clinics' free prior holds 13 points of at least 0.001 of the mass.
     let dir = tempfile::tempdir().unwrap();
     let input = demo("clinic_waits.csv");
-    let args = [
-        "fit",
-        "--input",
-        &input,
-        "--model",
-        "normal-normal",
-        "--group",
-        "clinic_id",
-        "--estimate",
-        "mean_wait_minutes",
-        "--std-error",
-        "wait_se",
-        "--prior-shape",
-        "free",
-        "--output",
-        "out.csv",
-        "--summary",
-        "s.json",
-    ];
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(CLINICS);
+    args.extend(["--prior-shape", "free", "--output", "out.csv", "--summary", "s.json"]);
     let (s, printed) = run(dir.path(), &args);
     let support = s["prior"]["support"].as_array().unwrap();
     assert_eq!(support.len(), 13);

@@ -91,3 +91,15 @@ pub fn paired<'a, A, B>(
     assert_eq!(got.len(), want.len(), "{what}: {} values against {} expected", got.len(), want.len());
     got.iter().zip(want)
 }
+
+/// The demo clinics' model and columns (demo-data/clinic_waits.csv).
+pub const CLINICS: [&str; 8] = [
+    "--model",
+    "normal-normal",
+    "--group",
+    "clinic_id",
+    "--estimate",
+    "mean_wait_minutes",
+    "--std-error",
+    "wait_se",
+];

@@ -2,7 +2,7 @@
 //! holds, help that fits the screen, numbers written for people, and a
 //! clear answer to each ordinary mistake (exit code and words).
 
-use crate::util::{ratepool, stderr, summary, write, Csv};
+use crate::util::{ratepool, stderr, summary, write, Csv, CLINICS};
 use std::path::Path;
 
 fn demo(name: &str) -> String {
@@ -34,16 +34,6 @@ const DISTRICTS: [&str; 8] = [
     "observed_cases",
     "--exposure",
     "expected_cases",
-];
-const CLINICS: [&str; 8] = [
-    "--model",
-    "normal-normal",
-    "--group",
-    "clinic_id",
-    "--estimate",
-    "mean_wait_minutes",
-    "--std-error",
-    "wait_se",
 ];
 
 fn marketplace_fit(dir: &Path, extra: &[&str]) -> std::process::Output {

@@ -478,19 +478,18 @@ struct Rows {
 }
 
 impl Rows {
+    /// No rows yet.
+    fn empty() -> Self {
+        Rows { weight: Vec::new(), scale: Vec::new(), first: Vec::new(), offset: vec![0], values: Vec::new() }
+    }
+
     fn of<F: Family>(table: &PairTable, grid: &[f64]) -> Self {
         let axes: Vec<[f64; 2]> = grid.iter().map(|&x| F::rate_axes(x)).collect();
         let pairs: Vec<&WeightedPair> =
             table.pairs().iter().filter(|p| F::TERMS.raw_value(p.size, p.count).is_some()).collect();
         let chunks: Vec<Rows> =
             pairs.par_chunks(ROW_CHUNK).map(|chunk| Rows::of_chunk::<F>(chunk, grid, &axes)).collect();
-        let mut rows = Rows {
-            weight: Vec::new(),
-            scale: Vec::new(),
-            first: Vec::new(),
-            offset: vec![0],
-            values: Vec::new(),
-        };
+        let mut rows = Rows::empty();
         for chunk in chunks {
             let base = rows.values.len();
             rows.weight.extend(chunk.weight);
@@ -505,13 +504,7 @@ impl Rows {
     /// One chunk's rows: each pair's log likelihood on the grid as w · a(rate)
     /// plus its own term, found from its peak, which sits by its raw value.
     fn of_chunk<F: Family>(pairs: &[&WeightedPair], grid: &[f64], axes: &[[f64; 2]]) -> Rows {
-        let mut rows = Rows {
-            weight: Vec::new(),
-            scale: Vec::new(),
-            first: Vec::new(),
-            offset: vec![0],
-            values: Vec::new(),
-        };
+        let mut rows = Rows::empty();
         let mut band = Vec::new();
         for pair in pairs {
             let raw = F::TERMS.raw_value(pair.size, pair.count).unwrap_or(grid[0]);
