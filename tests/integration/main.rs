@@ -15,6 +15,7 @@ mod faults;
 mod fits;
 mod free_prior;
 mod fuzz_corpus;
+mod levels;
 mod logs;
 mod no_overwrite;
 mod normal;

@@ -12,6 +12,7 @@
 //! (Tarone's and Dean's statistics), not reached by drifting to infinity.
 
 pub mod beta_binomial;
+pub mod dirichlet_multinomial;
 pub mod free;
 pub mod gamma_poisson;
 pub mod normal_normal;

@@ -1,0 +1,336 @@
+//! The law of a weighted mean of Dirichlet shares: M = Σ s_k p_k for
+//! p ~ Dirichlet(β₁, …, β_K) and fixed scores s_k (a seller's mean star
+//! score under its posterior). Its CDF, density and quantiles, accurate to
+//! about 1e-13 in probability.
+//!
+//! The shares are independent Gammas over their sum, p_k = G_k / Σ G_j with
+//! G_k ~ Gamma(β_k, 1), so M ≤ t exactly when X = Σ (s_k − t) G_k ≤ 0: a
+//! weighted sum of independent Gammas, whose moment generating function is
+//! E e^{zX} = Π (1 − w_k z)^{−β_k}, w_k = s_k − t, in the strip where every
+//! 1 − w_k Re z > 0. By the inversion integral along a vertical line Re z = c
+//! in that strip (Lévy's formula for the Laplace transform of a step),
+//!
+//!   P(X > 0) =  (1/π) ∫₀^∞ Re[E e^{zX} / z] dy   for 0 < c,
+//!   P(X < 0) = −(1/π) ∫₀^∞ Re[E e^{zX} / z] dy   for c < 0,   z = c + iy.
+//!
+//! The line is put through the saddle point of |E e^{zX}/z| on the side of
+//! the smaller tail, so the integrand is positive and bell-shaped near y = 0
+//! and the smaller tail comes out with relative accuracy. Its phase is
+//! Σ β_k atan(·), bounded by π Σ β_k / 2, so it does not oscillate without
+//! end; its modulus falls as y^{−Σβ−1}. The substitution y = σ sinh τ (σ the
+//! saddle point's width) turns that algebraic fall into an exponential one,
+//! and the trapezoidal rule in τ, halving its step until two steps agree,
+//! converges geometrically (the integrand is analytic in a strip about the
+//! real τ axis: Trefethen and Weideman, SIAM Review 56, 2014).
+//!
+//! The density of M at t comes from the same line:
+//! f(t) = (1/π) ∫₀^∞ Re[E e^{zX} Σ_k β_k / (1 − w_k z)] dy, since
+//! d/dt P(X_t ≤ 0) = E[S δ(X_t)] with S = Σ G_k, and E[S e^{zX}] is that
+//! product.
+
+use crate::core::quantile::{beta_quantile, Tail};
+
+/// The trapezoidal rule's first step in τ.
+const FIRST_STEP: f64 = 0.5;
+/// Two successive steps agreeing to this, relative, end the halving.
+const AGREEMENT: f64 = 1e-13;
+/// The fewest halvings (steps of 0.125 at least are taken).
+const MIN_HALVINGS: u32 = 2;
+/// The most halvings.
+const MAX_HALVINGS: u32 = 9;
+/// A term below this share of the sum, with the tail it bounds, ends a sweep.
+const TAIL_SHARE: f64 = 1e-17;
+/// The most points of one sweep.
+const MAX_POINTS: usize = 200_000;
+
+/// A mean score law: the Dirichlet shapes and the levels' scores.
+#[derive(Debug, Clone, Copy)]
+pub struct MeanScoreLaw<'a> {
+    /// β_k > 0, one per level.
+    pub shapes: &'a [f64],
+    /// s_k, one per level, all different.
+    pub scores: &'a [f64],
+}
+
+/// P(M ≤ t), P(M > t) and the density of M at t.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct AtThreshold {
+    /// P(M ≤ t).
+    pub lower: f64,
+    /// P(M > t).
+    pub upper: f64,
+    /// The density of M at t.
+    pub density: f64,
+}
+
+impl MeanScoreLaw<'_> {
+    /// E M.
+    pub fn mean(&self) -> f64 {
+        let total: f64 = self.shapes.iter().sum();
+        self.shapes.iter().zip(self.scores).map(|(b, s)| b * s).sum::<f64>() / total
+    }
+
+    /// Var M = (Σ s² β/B − (E M)²) / (B + 1), B = Σ β (the Dirichlet's
+    /// covariance, common practice), written about the mean to keep its digits.
+    pub fn variance(&self) -> f64 {
+        let total: f64 = self.shapes.iter().sum();
+        let mean = self.mean();
+        let spread: f64 = self.shapes.iter().zip(self.scores).map(|(b, s)| b * (s - mean).powi(2)).sum();
+        spread / total / (total + 1.0)
+    }
+
+    /// The lowest and highest score.
+    fn range(&self) -> (f64, f64) {
+        self.scores.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &s| (lo.min(s), hi.max(s)))
+    }
+
+    /// P(M ≤ t), P(M > t) and the density at t.
+    pub fn at(&self, t: f64) -> AtThreshold {
+        let (lo, hi) = self.range();
+        if t <= lo {
+            return AtThreshold { lower: 0.0, upper: 1.0, density: 0.0 };
+        }
+        if t >= hi {
+            return AtThreshold { lower: 1.0, upper: 0.0, density: 0.0 };
+        }
+        let line = Line::through_saddle(self, t);
+        let (tail, density) = line.integrate();
+        if line.c > 0.0 {
+            AtThreshold { lower: 1.0 - tail, upper: tail, density }
+        } else {
+            AtThreshold { lower: tail, upper: 1.0 - tail, density }
+        }
+    }
+
+    /// The t with P(M ≤ t) = p (`Tail::Lower`) or P(M > t) = p (`Tail::Upper`),
+    /// to about 1e-12 of the score range; p in (0, 1).
+    pub fn quantile(&self, tail: Tail, p: f64) -> f64 {
+        let (lo, hi) = self.range();
+        let width = hi - lo;
+        // Start from the Beta on [lo, hi] with M's mean and variance.
+        let m = ((self.mean() - lo) / width).clamp(1e-12, 1.0 - 1e-12);
+        let v = self.variance() / (width * width);
+        let strength = (m * (1.0 - m) / v - 1.0).max(1e-6);
+        let mut t = lo + width * beta_quantile(m * strength, (1.0 - m) * strength, tail, p);
+        let (mut below, mut above) = (lo, hi);
+        for _ in 0..100 {
+            let at = self.at(t);
+            // Mass beyond t on the asked side, less p: positive means t is too far in.
+            let (excess, slope) = match tail {
+                Tail::Lower => (at.lower - p, at.density),
+                Tail::Upper => (p - at.upper, at.density),
+            };
+            if excess > 0.0 {
+                above = t;
+            } else {
+                below = t;
+            }
+            let mut next = if slope > 0.0 { t - excess / slope } else { f64::NAN };
+            if !(next > below && next < above) {
+                next = 0.5 * (below + above);
+            }
+            let step = (next - t).abs();
+            t = next;
+            if step <= 1e-13 * width || above - below <= 1e-13 * width {
+                break;
+            }
+        }
+        t
+    }
+}
+
+/// The line Re z = c the inversion integral runs along, with what the
+/// integrand needs at each point.
+struct Line<'a> {
+    law: &'a MeanScoreLaw<'a>,
+    /// w_k = s_k − t.
+    weights: Vec<f64>,
+    /// c.
+    c: f64,
+    /// The saddle point's width: 1 / √(d²/dc² of ln(E e^{cX} / |c|)).
+    sigma: f64,
+    /// ln E e^{cX}.
+    ln_mgf_at_c: f64,
+    /// Σ β_k over the levels whose w_k is not 0: the modulus falls as y to minus this.
+    decay: f64,
+}
+
+impl<'a> Line<'a> {
+    /// The line through the saddle point of ln E e^{cX} − ln |c| on the
+    /// side of the smaller tail: c > 0 (P(X > 0)) when E X < 0, else c < 0.
+    fn through_saddle(law: &'a MeanScoreLaw<'a>, t: f64) -> Self {
+        let weights: Vec<f64> = law.scores.iter().map(|s| s - t).collect();
+        let mean_x: f64 = law.shapes.iter().zip(&weights).map(|(b, w)| b * w).sum();
+        let side = if mean_x < 0.0 { 1.0 } else { -1.0 };
+        // The strip's edge on that side: 1 / (the largest w with the side's sign).
+        let edge = weights
+            .iter()
+            .filter(|w| **w * side > 0.0)
+            .map(|w| 1.0 / w)
+            .fold(f64::INFINITY * side, |e, x| if side > 0.0 { e.min(x) } else { e.max(x) });
+        let derivatives = |c: f64| {
+            let (mut first, mut second) = (-1.0 / c, 1.0 / (c * c));
+            for (b, w) in law.shapes.iter().zip(&weights) {
+                let r = w / (1.0 - w * c);
+                first += b * r;
+                second += b * r * r;
+            }
+            (first, second)
+        };
+        // h'(c) rises from −∞ (or +∞ side) at 0 to the other sign at the edge:
+        // a safeguarded Newton search in the bracket (0, edge), to a few digits
+        // (the integral is exact on any line in the strip; the saddle only
+        // makes it quick).
+        let (mut near, mut far) = (0.0, edge);
+        let mut c = 0.5 * edge;
+        for _ in 0..60 {
+            let (first, second) = derivatives(c);
+            if first * side > 0.0 {
+                far = c;
+            } else {
+                near = c;
+            }
+            let mut next = c - first / second;
+            if !((next - near) * side > 0.0 && (far - next) * side > 0.0) {
+                next = 0.5 * (near + far);
+            }
+            let done = (next - c).abs() <= 1e-6 * c.abs();
+            c = next;
+            if done {
+                break;
+            }
+        }
+        let (_, second) = derivatives(c);
+        let ln_mgf_at_c = -law.shapes.iter().zip(&weights).map(|(b, w)| b * (-w * c).ln_1p()).sum::<f64>();
+        let decay = law.shapes.iter().zip(&weights).filter(|(_, w)| **w != 0.0).map(|(b, _)| b).sum();
+        Line { law, weights, c, sigma: 1.0 / second.sqrt(), ln_mgf_at_c, decay }
+    }
+
+    /// At τ: the tail integrand and the density integrand (each times
+    /// dy/dτ, relative to E e^{cX}), and a bound on the modulus of both.
+    fn at(&self, tau: f64) -> (f64, f64, f64) {
+        let y = self.sigma * tau.sinh();
+        let jacobian = self.sigma * tau.cosh();
+        let (mut ln_modulus, mut phase) = (0.0, 0.0);
+        let (mut sum_re, mut sum_im, mut sum_modulus) = (0.0, 0.0, 0.0);
+        for (b, w) in self.law.shapes.iter().zip(&self.weights) {
+            // 1 − w z = a + i q.
+            let a = 1.0 - w * self.c;
+            let q = -w * y;
+            let ratio = q / a;
+            ln_modulus -= 0.5 * b * (ratio * ratio).ln_1p();
+            phase -= b * ratio.atan();
+            let norm = a * a + q * q;
+            sum_re += b * a / norm;
+            sum_im -= b * q / norm;
+            sum_modulus += b / norm.sqrt();
+        }
+        let modulus = ln_modulus.exp();
+        let (sin, cos) = phase.sin_cos();
+        let z_norm = self.c * self.c + y * y;
+        let tail = modulus * (self.c * cos + y * sin) / z_norm * jacobian;
+        let density = modulus * (cos * sum_re - sin * sum_im) * jacobian;
+        let bound = modulus * jacobian * (1.0 / z_norm.sqrt()).max(sum_modulus);
+        (tail, density, bound)
+    }
+
+    /// Σ over τ = (first + j·every)·step, j = 0, 1, …, of both integrands,
+    /// until a term and the tail it bounds are negligible.
+    fn sweep(&self, step: f64, first: f64, every: f64) -> (f64, f64) {
+        let (mut tail, mut density) = (0.0, 0.0);
+        // Beyond τ the terms fall at least as e^{−decay·τ}; the tail past a
+        // term is at most the term over (1 − e^{−decay·gap}).
+        let gap = every * step;
+        let tail_factor = 1.0 / (-(-self.decay * gap).exp_m1()).max(1e-300);
+        for j in 0..MAX_POINTS {
+            let tau = (first + j as f64 * every) * step;
+            let (t, d, bound) = self.at(tau);
+            tail += t;
+            density += d;
+            let scale = tail.abs().max(density.abs() * self.sigma).max(1e-300);
+            if bound * tail_factor.min(1e12) < TAIL_SHARE * scale || bound == 0.0 {
+                break;
+            }
+        }
+        (tail, density)
+    }
+
+    /// (the smaller tail, the density at t), by the trapezoidal rule in τ
+    /// with the step halved until two steps agree.
+    fn integrate(&self) -> (f64, f64) {
+        let mut step = FIRST_STEP;
+        let (t0, d0, _) = self.at(0.0);
+        let (mut tail_sum, mut density_sum) = self.sweep(step, 1.0, 1.0);
+        tail_sum += 0.5 * t0;
+        density_sum += 0.5 * d0;
+        let (mut tail, mut density) = (tail_sum * step, density_sum * step);
+        for halving in 1..=MAX_HALVINGS {
+            step *= 0.5;
+            // The new points sit halfway between the old ones.
+            let (t, d) = self.sweep(step, 1.0, 2.0);
+            tail_sum += t;
+            density_sum += d;
+            let (next_tail, next_density) = (tail_sum * step, density_sum * step);
+            let agreed = (next_tail - tail).abs() <= AGREEMENT * next_tail.abs()
+                && (next_density - density).abs() <= AGREEMENT * next_density.abs();
+            tail = next_tail;
+            density = next_density;
+            if agreed && halving >= MIN_HALVINGS {
+                break;
+            }
+        }
+        let scale = self.ln_mgf_at_c.exp() / std::f64::consts::PI;
+        let tail = (tail * scale * self.c.signum()).clamp(0.0, 1.0);
+        (tail, (density * scale).max(0.0))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::core::incomplete::beta_tails;
+
+    #[test]
+    fn two_levels_give_the_beta_law() {
+        // With scores (0, 1), M is the second share: Beta(β₂, β₁) (common practice).
+        for &(b1, b2) in &[(0.3, 0.7), (2.0, 5.0), (40.0, 900.0), (1e4, 3.0)] {
+            let shapes = [b1, b2];
+            let law = MeanScoreLaw { shapes: &shapes, scores: &[0.0, 1.0] };
+            for &x in &[1e-3, 0.1, 0.5, 0.9, 0.999] {
+                let at = law.at(x);
+                let exact = beta_tails(b2, b1, x, 1.0 - x);
+                assert!(
+                    (at.lower - exact.lower).abs() <= 1e-13 + 1e-11 * exact.lower,
+                    "β = {shapes:?}, x = {x}: {} vs {}",
+                    at.lower,
+                    exact.lower
+                );
+                assert!((at.upper - exact.upper).abs() <= 1e-13 + 1e-11 * exact.upper);
+            }
+        }
+    }
+
+    #[test]
+    fn the_density_is_the_slope_of_the_cdf() {
+        let shapes = [0.8, 2.5, 4.0, 30.0, 12.0];
+        let law = MeanScoreLaw { shapes: &shapes, scores: &[1.0, 2.0, 3.0, 4.0, 5.0] };
+        for &t in &[1.5, 3.2, 3.9, 4.4, 4.95] {
+            let h = 1e-5;
+            let slope = (law.at(t + h).lower - law.at(t - h).lower) / (2.0 * h);
+            let density = law.at(t).density;
+            assert!((slope - density).abs() <= 1e-6 * density.max(1e-3), "t = {t}: {slope} vs {density}");
+        }
+    }
+
+    #[test]
+    fn quantiles_invert_the_cdf() {
+        let shapes = [0.2, 0.1, 0.5, 3.0, 9.0];
+        let law = MeanScoreLaw { shapes: &shapes, scores: &[1.0, 2.0, 3.0, 4.0, 5.0] };
+        for &p in &[1e-6, 0.025, 0.5, 0.975] {
+            let t = law.quantile(Tail::Lower, p);
+            assert!((law.at(t).lower - p).abs() <= 1e-11, "p = {p}");
+            let t = law.quantile(Tail::Upper, p);
+            assert!((law.at(t).upper - p).abs() <= 1e-11, "p = {p}");
+        }
+    }
+}
