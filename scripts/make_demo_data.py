@@ -41,6 +41,12 @@ storefronts.csv  3,000 invented storefronts' visits and purchases (seed
                  rest were opened in bulk by one importer and convert at about
                  1% (Beta(10, 990)). Visits are heavy-tailed, 5 to a few
                  thousand. One Beta prior cannot hold both humps.
+star_sellers.csv  2,000 invented sellers' star ratings, one count column per
+                 star (seed 20261209): each seller's shares of 1 to 5 stars
+                 from Dirichlet(0.5, 0.3, 0.6, 2.0, 6.6) (mean score 4.35),
+                 ratings per seller lognormal (median 12, from 0 to a few
+                 hundred); seller-0007 has three five-star ratings and
+                 seller-0042 has 800 ratings averaging 4.72.
 No real people, sellers, brands or places are represented.
 """
 
@@ -183,6 +189,20 @@ def storefronts():
     (OUT / "storefronts.csv").write_text("\n".join(lines) + "\n")
 
 
+def star_sellers():
+    rng = np.random.default_rng(20261209)
+    count = 2_000
+    shares = rng.dirichlet([0.5, 0.3, 0.6, 2.0, 6.6], size=count)
+    ratings = np.floor(rng.lognormal(mean=2.5, sigma=1.4, size=count)).astype(np.int64)
+    stars = np.array([rng.multinomial(n, p) for n, p in zip(ratings, shares)])
+    # The README's two sellers: three five-star ratings, and 800 ratings averaging 4.72.
+    stars[6] = [0, 0, 0, 0, 3]
+    stars[41] = [16, 8, 24, 88, 664]
+    lines = ["seller_id,stars_1,stars_2,stars_3,stars_4,stars_5"]
+    lines += [f"seller-{i:04d}," + ",".join(str(c) for c in row) for i, row in enumerate(stars, start=1)]
+    (OUT / "star_sellers.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
@@ -195,6 +215,7 @@ def main():
     district_profiles()
     district_bands()
     storefronts()
+    star_sellers()
 
 
 if __name__ == "__main__":

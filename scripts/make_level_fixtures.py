@@ -21,10 +21,16 @@ tests/fixtures/levels/mean_score.json: the mean score M = sum s_k p_k under
     draws        P(M <= t) estimated from 10^7 Dirichlet draws (numpy), with
                  its binomial standard error
 
+tests/fixtures/levels/demo.json: demo-data/star_sellers.csv fitted as
+  above, and for three sellers the interval and P(mean score > 4.5) by
+  mpmath at that prior.
+
 Run from the repository root:  python3 scripts/make_level_fixtures.py
+(or name the parts to remake: fits, mean_score, demo).
 """
 import json
 import os
+import sys
 
 import mpmath as mp
 import numpy as np
@@ -179,8 +185,42 @@ def mean_score():
     return {"cdf": cdfs, "quantiles": quantiles, "draws": draws}
 
 
+def demo():
+    """The demo sellers: scipy's fit, and for three sellers the posterior mean
+    score's interval and P(mean score > 4.5) by mpmath at that prior."""
+    import csv
+
+    with open("demo-data/star_sellers.csv") as f:
+        rows = list(csv.DictReader(f))
+    columns = [f"stars_{k}" for k in range(1, 6)]
+    counts = np.array([[int(r[c]) for c in columns] for r in rows])
+    distinct, weights = np.unique(counts, axis=0, return_counts=True)
+    a, ll = fit(distinct, weights)
+    scores = [1, 2, 3, 4, 5]
+    sellers = []
+    for seller in ["seller-0002", "seller-0007", "seller-0042"]:
+        n = counts[[r["seller_id"] for r in rows].index(seller)]
+        shapes = [float(x) for x in a + n]
+        sellers.append(
+            {
+                "seller_id": seller,
+                "posterior_mean": float(sum(b * s for b, s in zip(shapes, scores)) / sum(shapes)),
+                "interval_lo": float(quantile(shapes, scores, 0.025)),
+                "interval_hi": float(quantile(shapes, scores, 0.975)),
+                "prob_above": float(1 - cdf(shapes, scores, 4.5)),
+            }
+        )
+    return {"shapes": [float(x) for x in a], "log_likelihood": ll, "sellers": sellers}
+
+
 os.makedirs(OUT, exist_ok=True)
-with open(f"{OUT}/fits.json", "w") as f:
-    json.dump(fits(), f, indent=1)
-with open(f"{OUT}/mean_score.json", "w") as f:
-    json.dump(mean_score(), f, indent=1)
+parts = sys.argv[1:] or ["fits", "mean_score", "demo"]
+if "fits" in parts:
+    with open(f"{OUT}/fits.json", "w") as f:
+        json.dump(fits(), f, indent=1)
+if "mean_score" in parts:
+    with open(f"{OUT}/mean_score.json", "w") as f:
+        json.dump(mean_score(), f, indent=1)
+if "demo" in parts:
+    with open(f"{OUT}/demo.json", "w") as f:
+        json.dump(demo(), f, indent=1)

@@ -135,6 +135,8 @@ pub use crate::config::clap_message;
 pub struct Outcome {
     /// The summary of a fit or score.
     pub summary: Option<crate::summary::Summary>,
+    /// The summary of a star-rating fit (`--model dirichlet-multinomial`).
+    pub levels: Option<crate::summary::LevelSummary>,
     /// Every file written, in the order written.
     pub outputs: Vec<PathBuf>,
 }
@@ -659,12 +661,31 @@ pub enum PriorShapeArg {
 /// Options of `fit`.
 #[derive(Debug, Args)]
 pub struct FitArgs {
-    /// beta-binomial, gamma-poisson or normal-normal
-    #[arg(long_help = "The model: beta-binomial (successes out of trials, Beta prior), gamma-poisson (events over exposure, Gamma prior) or normal-normal (estimates with known standard errors, normal prior). It decides which column options apply.", long, value_name = "MODEL", value_parser = parse_model, help_heading = "Model", display_order = 0)]
-    pub model: Model,
+    /// beta-binomial, gamma-poisson, normal-normal, ...
+    #[arg(long_help = "The model: beta-binomial (successes out of trials, Beta prior), gamma-poisson (events over exposure, Gamma prior), normal-normal (estimates with known standard errors, normal prior) or dirichlet-multinomial (ratings counted over K levels, such as stars, Dirichlet prior). It decides which column options apply.", long, value_name = "MODEL", value_parser = parse_fit_model, help_heading = "Model", display_order = 0)]
+    pub model: FitModel,
     /// Input, columns and outputs.
     #[command(flatten)]
     pub table: TableArgs,
+    /// Count columns, one per level
+    #[arg(
+        long_help = "The dirichlet-multinomial model's input: one column per level holding each group's count of ratings at that level, in the levels' order (comma-separated names: `stars_1,stars_2,stars_3,stars_4,stars_5`). At least two.",
+        long,
+        value_name = "COLUMN[,COLUMN...]",
+        value_delimiter = ',',
+        help_heading = "Star ratings"
+    )]
+    pub level_counts: Vec<String>,
+    /// Each level's score (1, 2, ..., K)
+    #[arg(
+        long_help = "The score of each level of --level-counts, in the same order (comma-separated numbers, all different; default 1, 2, ..., K). A group's mean score is the sum of its shares times these; --above and --below are thresholds of it.",
+        long,
+        value_name = "SCORE[,SCORE...]",
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        help_heading = "Star ratings"
+    )]
+    pub level_scores: Vec<f64>,
     /// normal-normal's tau^2 by ml (default) or reml
     #[arg(long_help = "How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated mean: the usual choice when groups are few).", long, value_enum, value_name = "METHOD", default_value_t = VarianceMethodArg::Ml, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub variance_method: VarianceMethodArg,
@@ -748,6 +769,26 @@ fn parse_model(text: &str) -> std::result::Result<Model, String> {
         let names: Vec<&str> = Model::ALL.iter().map(|m| m.name()).collect();
         format!("unknown model '{text}'; the accepted values: {}", names.join(", "))
     })
+}
+
+/// What `fit --model` names: a model of one count and one size per group,
+/// or the star-rating model of counts over levels.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FitModel {
+    /// A registered model of (size, count) pairs.
+    Pairs(Model),
+    /// The Dirichlet-multinomial model over level counts.
+    LevelCounts,
+}
+
+/// A model of `fit`, by its name.
+fn parse_fit_model(text: &str) -> std::result::Result<FitModel, String> {
+    if text == crate::pipeline::levels::MODEL_NAME {
+        return Ok(FitModel::LevelCounts);
+    }
+    parse_model(text)
+        .map(FitModel::Pairs)
+        .map_err(|message| format!("{message}, {}", crate::pipeline::levels::MODEL_NAME))
 }
 
 /// The column options, by the role a model gives its columns
@@ -1142,6 +1183,25 @@ fn rows_and_columns(
     }
 }
 
+/// What to do with invalid rows: stop, or skip them to the rejects file.
+fn invalid_rows(table: &TableArgs) -> Result<InvalidRows> {
+    match (table.on_invalid, &table.rejects) {
+        (InvalidArg::Error, None) => Ok(InvalidRows::Fail),
+        (InvalidArg::Error, Some(_)) => Err(Error::Usage("--rejects needs --on-invalid skip".to_string())),
+        (InvalidArg::Skip, Some(path)) => Ok(InvalidRows::Skip { rejects: path.clone() }),
+        (InvalidArg::Skip, None) => Err(Error::Usage("--on-invalid skip needs --rejects FILE".to_string())),
+    }
+}
+
+/// The rank columns' order, when asked for.
+fn rank_order(table: &TableArgs) -> Option<RankOrder> {
+    match (table.ranks, table.rank_lowest_first) {
+        (_, true) => Some(RankOrder::LowestFirst),
+        (true, false) => Some(RankOrder::HighestFirst),
+        (false, false) => None,
+    }
+}
+
 fn job_of(
     table: &TableArgs,
     (pair_counts, likelihood, prior_shape): (Option<&String>, Likelihood, PriorShape),
@@ -1150,16 +1210,7 @@ fn job_of(
 ) -> Result<Job> {
     refuse_free_prior_with(table, prior_shape)?;
     let (aggregation, count, size) = rows_and_columns(table, model, pair_counts.is_some())?;
-    let invalid = match (table.on_invalid, &table.rejects) {
-        (InvalidArg::Error, None) => InvalidRows::Fail,
-        (InvalidArg::Error, Some(_)) => {
-            return Err(Error::Usage("--rejects needs --on-invalid skip".to_string()))
-        }
-        (InvalidArg::Skip, Some(path)) => InvalidRows::Skip { rejects: path.clone() },
-        (InvalidArg::Skip, None) => {
-            return Err(Error::Usage("--on-invalid skip needs --rejects FILE".to_string()))
-        }
-    };
+    let invalid = invalid_rows(table)?;
     if let Some(path) = &table.pair_output {
         crate::io::TableFormat::from_path(path)?;
     }
@@ -1192,11 +1243,7 @@ fn job_of(
         likelihood,
         prior_shape,
         pair_output: table.pair_output.clone(),
-        ranks: match (table.ranks, table.rank_lowest_first) {
-            (_, true) => Some(RankOrder::LowestFirst),
-            (true, false) => Some(RankOrder::HighestFirst),
-            (false, false) => None,
-        },
+        ranks: rank_order(table),
         invalid,
         prior,
     })
@@ -1324,6 +1371,112 @@ fn run_report(args: &ReportArgs) -> Result<()> {
     })
 }
 
+/// The star-rating job of `fit --model dirichlet-multinomial`: its columns
+/// and scores checked, and every option it does not (yet) take refused by name.
+fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
+    use crate::pipeline::levels::{LevelJob, MAX_LEVELS, MODEL_NAME};
+    let table = &args.table;
+    refuse_overlaps(table, None)?;
+    let refused = [
+        (table.outcome.is_some(), "--outcome"),
+        (table.population.is_some(), "--population"),
+        (table.aggregate, "--aggregate"),
+        (table.successes.is_some(), "--successes"),
+        (table.trials.is_some(), "--trials"),
+        (table.events.is_some(), "--events"),
+        (table.exposure.is_some(), "--exposure"),
+        (table.estimate.is_some(), "--estimate"),
+        (table.std_error.is_some(), "--std-error"),
+        (!table.by.is_empty(), "--by"),
+        (table.min_groups.is_some(), "--min-groups"),
+        (!table.covariates.is_empty() || !table.covariates_log.is_empty(), "--covariates"),
+        (table.top.is_some(), "--top"),
+        (table.intervals == IntervalsArg::Corrected, "--intervals corrected"),
+        (table.pair_output.is_some(), "--pair-output"),
+        (table.report.is_some(), "--report"),
+        (table.plots.is_some(), "--plots"),
+        (args.pair_counts.is_some(), "--pair-counts"),
+        (args.prior_shape == PriorShapeArg::Free, "--prior-shape free"),
+        (args.grid_points.is_some(), "--grid-points"),
+        (args.variance_method == VarianceMethodArg::Reml, "--variance-method reml"),
+    ];
+    if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
+        return Err(Error::Usage(format!("{flag} does not apply to the {MODEL_NAME} model (yet)")));
+    }
+    let levels = args.level_counts.clone();
+    if levels.len() < 2 {
+        return Err(Error::Usage(format!(
+            "the {MODEL_NAME} model needs --level-counts with at least two columns, one per level, got {}",
+            levels.len()
+        )));
+    }
+    if levels.len() > MAX_LEVELS {
+        return Err(Error::Usage(format!(
+            "--level-counts takes at most {MAX_LEVELS} columns, got {}",
+            levels.len()
+        )));
+    }
+    for (i, column) in levels.iter().enumerate() {
+        if column.is_empty() || levels[..i].contains(column) {
+            return Err(Error::Usage(format!("--level-counts names '{column}' twice or empty")));
+        }
+    }
+    let scores = if args.level_scores.is_empty() {
+        (1..=levels.len()).map(|k| k as f64).collect()
+    } else {
+        args.level_scores.clone()
+    };
+    if scores.len() != levels.len() {
+        return Err(Error::Usage(format!(
+            "--level-scores gives {} scores for {} level columns; give one per column",
+            scores.len(),
+            levels.len()
+        )));
+    }
+    if let Some(bad) = scores.iter().find(|s| !s.is_finite() || s.abs() > 1e12) {
+        return Err(Error::Usage(format!("--level-scores must be finite numbers within ±1e12, got {bad}")));
+    }
+    for (i, score) in scores.iter().enumerate() {
+        if scores[..i].contains(score) {
+            return Err(Error::Usage(format!(
+                "--level-scores gives the score {score} twice; each level needs its own"
+            )));
+        }
+    }
+    let (low, high) =
+        scores.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &s| (l.min(s), h.max(s)));
+    for (value, flag) in [(table.above, "above"), (table.below, "below")] {
+        if let Some(t) = value.filter(|t| !(t.is_finite() && (low..=high).contains(t))) {
+            return Err(Error::Usage(format!(
+                "--{flag} is a mean score for the {MODEL_NAME} model, from {low} to {high} (the level scores), got {t}"
+            )));
+        }
+    }
+    let group = table.group.clone().ok_or_else(|| Error::Usage("--group COLUMN is required".to_string()))?;
+    if levels.contains(&group) {
+        return Err(Error::Usage(format!("--group '{group}' is also a level column")));
+    }
+    let output = table.output.clone().ok_or_else(|| Error::Usage("--output FILE is required".to_string()))?;
+    crate::io::TableFormat::from_path(&output)?;
+    let invalid = invalid_rows(table)?;
+    Ok(LevelJob {
+        input: table.input.clone(),
+        delimiter: table.delimiter,
+        group,
+        levels,
+        scores,
+        output,
+        batch_rows: table.batch_rows.max(1),
+        summary: table.summary.clone(),
+        level: Level::new(table.level)?,
+        thresholds: Thresholds { above: table.above, below: table.below },
+        flag_fdr: flag_rule(table)?,
+        ranks: rank_order(table),
+        invalid,
+        id_memory: table.memory_budget.max(1).saturating_mul(1 << 20) / 2,
+    })
+}
+
 impl Command {
     /// Runs the command: a fit or a score (with its report when asked for),
     /// or a report of an earlier run. Returns the summary of a fit or score.
@@ -1333,22 +1486,30 @@ impl Command {
                 run_report(args)?;
                 let mut outputs = vec![args.output.clone()];
                 outputs.extend(args.plots.clone());
-                return Ok(Outcome { summary: None, outputs });
+                return Ok(Outcome { summary: None, levels: None, outputs });
             }
             Command::CheckConfig(args) => {
                 println!("{}", check_job_file(&args.file, args.command.as_deref())?);
-                return Ok(Outcome { summary: None, outputs: Vec::new() });
+                return Ok(Outcome { summary: None, levels: None, outputs: Vec::new() });
             }
             Command::Completions { shell } => {
                 use clap::CommandFactory;
                 let mut text = Vec::new();
                 clap_complete::generate(*shell, &mut Cli::command(), "ratepool", &mut text);
                 print_bytes(&text, "the completion script")?;
-                return Ok(Outcome { summary: None, outputs: Vec::new() });
+                return Ok(Outcome { summary: None, levels: None, outputs: Vec::new() });
             }
             Command::Manpage => {
                 print_bytes(&manual_page()?, "the manual page")?;
-                return Ok(Outcome { summary: None, outputs: Vec::new() });
+                return Ok(Outcome { summary: None, levels: None, outputs: Vec::new() });
+            }
+            Command::Fit(args) if args.model == FitModel::LevelCounts => {
+                let job = level_job_of(args)?;
+                let summary = crate::pipeline::levels::run_levels(&job)?;
+                let mut outputs = vec![job.output.clone()];
+                outputs.extend(args.table.rejects.clone());
+                outputs.extend(job.summary.clone());
+                return Ok(Outcome { summary: None, levels: Some(summary), outputs });
             }
             Command::Fit(args) => &args.table,
             Command::Score(args) => &args.table,
@@ -1377,7 +1538,7 @@ impl Command {
             outputs.push(html);
             outputs.extend(plots);
         }
-        Ok(Outcome { summary: Some(summary), outputs })
+        Ok(Outcome { summary: Some(summary), levels: None, outputs })
     }
 
     /// Validates the arguments into a job (reading the prior file for `score`).
@@ -1388,21 +1549,30 @@ impl Command {
             }
             Command::Fit(args) => {
                 refuse_overlaps(&args.table, None)?;
+                let FitModel::Pairs(model) = args.model else {
+                    return Err(Error::Usage(
+                        "the dirichlet-multinomial model runs through its own job".to_string(),
+                    ));
+                };
+                if !args.level_counts.is_empty() || !args.level_scores.is_empty() {
+                    return Err(Error::Usage(format!(
+                        "--level-counts and --level-scores apply to the dirichlet-multinomial model, not {}",
+                        model.name()
+                    )));
+                }
                 let likelihood = match args.variance_method {
                     VarianceMethodArg::Ml => Likelihood::Marginal,
-                    VarianceMethodArg::Reml if args.model.terms().restricted_likelihood => {
-                        Likelihood::Restricted
-                    }
+                    VarianceMethodArg::Reml if model.terms().restricted_likelihood => Likelihood::Restricted,
                     VarianceMethodArg::Reml => {
                         return Err(Error::Usage(format!(
                             "--variance-method reml applies to the {} model, not {}",
                             models_where(|t| t.restricted_likelihood),
-                            args.model.name()
+                            model.name()
                         )))
                     }
                 };
                 let rows = (args.pair_counts.as_ref(), likelihood, prior_shape_of(&args)?);
-                job_of(&args.table, rows, args.model, PriorSource::Fit)
+                job_of(&args.table, rows, model, PriorSource::Fit)
             }
             Command::Score(args) => {
                 if args.table.min_groups.is_some() {

@@ -20,21 +20,32 @@ fn run(cli: Cli) -> ratepool::error::Result<Outcome> {
     let outcome = cli.command.execute(watch)?;
     if let Some(summary) = &outcome.summary {
         // --quiet leaves only errors on the terminal; the warnings stay in the summary file.
-        for warning in summary.warnings.iter().filter(|_| !quiet) {
-            if json {
-                eprintln!("{}", serde_json::json!({ "event": "warning", "message": warning }));
-            } else {
-                eprintln!("ratepool: warning: {warning}");
-            }
-        }
+        show_warnings(&summary.warnings, quiet, json);
         if !quiet {
             print!("{}", ratepool::report::render_text(summary));
+        }
+    }
+    if let Some(summary) = &outcome.levels {
+        show_warnings(&summary.warnings, quiet, json);
+        if !quiet {
+            print!("{}", ratepool::report::render_level_text(summary));
         }
     }
     Ok(outcome)
 }
 
 /// The last line of a JSON log: the exit status and what was written, or the error.
+/// Each warning once on stderr, as a JSON event or a line (none when quiet).
+fn show_warnings(warnings: &[String], quiet: bool, json: bool) {
+    for warning in warnings.iter().filter(|_| !quiet) {
+        if json {
+            eprintln!("{}", serde_json::json!({ "event": "warning", "message": warning }));
+        } else {
+            eprintln!("ratepool: warning: {warning}");
+        }
+    }
+}
+
 fn end_event(result: &ratepool::error::Result<Outcome>) -> serde_json::Value {
     match result {
         Ok(outcome) => serde_json::json!({
@@ -42,7 +53,8 @@ fn end_event(result: &ratepool::error::Result<Outcome>) -> serde_json::Value {
             "status": "ok",
             "exit_code": 0,
             "outputs": outcome.outputs,
-            "warnings": outcome.summary.as_ref().map_or(0, |s| s.warnings.len()),
+            "warnings": outcome.summary.as_ref().map_or(0, |s| s.warnings.len())
+                + outcome.levels.as_ref().map_or(0, |s| s.warnings.len()),
         }),
         Err(error) => serde_json::json!({
             "event": "end",

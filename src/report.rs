@@ -2,7 +2,8 @@
 
 use crate::core::model::Model;
 use crate::summary::{
-    p_value_figure, p_value_text, plain, three_digits, CovariatePrior, FreePriorReport, Summary,
+    p_value_figure, p_value_text, plain, three_digits, CovariatePrior, FlagReport, FreePriorReport,
+    LevelSummary, Summary,
 };
 use std::fmt::Write;
 
@@ -75,13 +76,7 @@ pub fn render_text(summary: &Summary) -> String {
         );
     }
     let test = &fit.overdispersion_test;
-    let _ = writeln!(
-        out,
-        "  dispersion   {} Z = {:.3}, one-sided {}",
-        test.name,
-        test.statistic,
-        p_value_text(test.p_value)
-    );
+    dispersion_line(&mut out, test);
     if let Some(test) = &fit.pooling_test {
         let _ = writeln!(
             out,
@@ -139,14 +134,84 @@ pub fn render_text(summary: &Summary) -> String {
         );
     }
     if let Some(flags) = &summary.flags {
-        let _ = writeln!(
-            out,
-            "  flags        {} groups flagged {} {} at Q = {} (expected false flags {:.3})",
-            flags.groups_flagged, flags.event, flags.threshold, flags.fdr_level, flags.expected_false_flags
-        );
+        flag_line(&mut out, flags);
     }
     // The warnings are not repeated here: the caller shows each once, on stderr.
     out
+}
+
+/// The terminal version of a star-rating run's summary (without its warnings).
+pub fn render_level_text(summary: &LevelSummary) -> String {
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "ratepool {}: {} groups scored ({} rows read, {} rejected; {} distinct count vectors)",
+        summary.model, summary.groups, summary.rows_read, summary.rows_rejected, summary.distinct_vectors
+    );
+    let shapes: Vec<String> = summary
+        .levels
+        .iter()
+        .map(|level| match (level.prior_shape, level.prior_shape_se) {
+            (Some(a), Some(se)) => format!("{} {} ({})", level.column, three_digits(a), three_digits(se)),
+            _ => format!("{} share {}", level.column, three_digits(level.prior_share)),
+        })
+        .collect();
+    let law = if summary.strength.is_some() { "Dirichlet, shapes (se)" } else { "pooled shares" };
+    let _ = writeln!(out, "  prior        {law}: {}", shapes.join(", "));
+    let scores: Vec<String> = summary.levels.iter().map(|l| plain_score(l.score)).collect();
+    let _ = writeln!(
+        out,
+        "  mean score   {:.4} (se {}) on scores {}; strength {}{}",
+        summary.mean_score,
+        three_digits(summary.mean_score_se),
+        scores.join(", "),
+        summary.strength.map_or("infinite".to_string(), plain),
+        summary.strength_se.map_or(String::new(), |se| format!(" (se {})", three_digits(se)))
+    );
+    let _ = writeln!(
+        out,
+        "  fit          log marginal likelihood {:.4}, {} Newton steps",
+        summary.log_marginal_likelihood, summary.iterations
+    );
+    let test = &summary.overdispersion_test;
+    dispersion_line(&mut out, test);
+    let test = &summary.pooling_test;
+    let _ =
+        writeln!(out, "  pooling      {} {:.3}, {}", test.name, test.statistic, p_value_text(test.p_value));
+    let _ = writeln!(out, "  pool weight  mean {:.3}", summary.mean_pool_weight);
+    if let Some(flags) = &summary.flags {
+        flag_line(&mut out, flags);
+    }
+    out
+}
+
+/// The overdispersion test's line.
+fn dispersion_line(out: &mut String, test: &crate::summary::TestReport) {
+    let _ = writeln!(
+        out,
+        "  dispersion   {} Z = {:.3}, one-sided {}",
+        test.name,
+        test.statistic,
+        p_value_text(test.p_value)
+    );
+}
+
+/// The flags' line.
+fn flag_line(out: &mut String, flags: &FlagReport) {
+    let _ = writeln!(
+        out,
+        "  flags        {} groups flagged {} {} at Q = {} (expected false flags {:.3})",
+        flags.groups_flagged, flags.event, flags.threshold, flags.fdr_level, flags.expected_false_flags
+    );
+}
+
+/// A level's score as given: `4`, `0.25`.
+fn plain_score(score: f64) -> String {
+    if score.fract() == 0.0 && score.abs() < 1e15 {
+        format!("{}", score as i64)
+    } else {
+        format!("{score}")
+    }
 }
 
 /// The most support points of a free prior the terminal lists.

@@ -905,3 +905,68 @@ mod tests {
         assert_eq!(three_digits(3.2e-6), "3.20e-6");
     }
 }
+
+/// The summary of a star-rating run (the Dirichlet-multinomial model over
+/// level counts).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelSummary {
+    /// `dirichlet-multinomial`.
+    pub model: String,
+    /// Data rows in the input.
+    pub rows_read: u64,
+    /// Rows rejected.
+    pub rows_rejected: u64,
+    /// Groups scored.
+    pub groups: u64,
+    /// Distinct count vectors the fit ran over.
+    pub distinct_vectors: u64,
+    /// Each level: its column, score and prior.
+    pub levels: Vec<LevelReport>,
+    /// "Dirichlet", or "pooled shares" at the boundary of no overdispersion.
+    pub prior_law: String,
+    /// A = Σ a_k; null when infinite (pooled shares).
+    pub strength: Option<f64>,
+    /// Its standard error.
+    pub strength_se: Option<f64>,
+    /// The prior's mean score, Σ s_k a_k / A.
+    pub mean_score: f64,
+    /// Its standard error.
+    pub mean_score_se: f64,
+    /// The maximised log marginal likelihood, with the multinomial coefficients.
+    pub log_marginal_likelihood: f64,
+    /// Newton steps taken.
+    pub iterations: u64,
+    /// The fitted prior against every group having the pooled shares.
+    pub pooling_test: TestReport,
+    /// The score test for overdispersion at 1/A = 0.
+    pub overdispersion_test: TestReport,
+    /// The groups' mean pool weight A / (A + N).
+    pub mean_pool_weight: f64,
+    /// Credible level of the intervals.
+    pub credible_level: f64,
+    /// The mean-score threshold of `prob_above`.
+    pub above: Option<f64>,
+    /// The mean-score threshold of `prob_below`.
+    pub below: Option<f64>,
+    /// Flags under the posterior false-discovery rate.
+    pub flags: Option<FlagReport>,
+    /// Warnings.
+    pub warnings: Vec<String>,
+}
+
+/// One level of a star-rating prior.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelReport {
+    /// The count column.
+    pub column: String,
+    /// Its score.
+    pub score: f64,
+    /// The Dirichlet shape a_k (null at the boundary).
+    pub prior_shape: Option<f64>,
+    /// Its standard error.
+    pub prior_shape_se: Option<f64>,
+    /// The prior mean share a_k / A.
+    pub prior_share: f64,
+    /// Its standard error.
+    pub prior_share_se: f64,
+}

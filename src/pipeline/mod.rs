@@ -11,6 +11,7 @@ mod covariates;
 mod driver;
 pub mod duplicates;
 mod group_table;
+pub mod levels;
 mod pair_table;
 pub mod passes;
 mod prior;

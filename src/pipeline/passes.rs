@@ -317,12 +317,12 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
 }
 
 /// A failure to write or read the id hashes spilled to temporary files.
-fn spill_failed(e: std::io::Error) -> Error {
+pub(super) fn spill_failed(e: std::io::Error) -> Error {
     Error::io("cannot write or read the group ids' hashes in the temporary folder (TMPDIR)", e)
 }
 
 /// The reason given to a row whose id repeats an earlier row's.
-fn repeat_reason(input: &Input, group: &str, first: usize) -> String {
+pub(super) fn repeat_reason(input: &Input, group: &str, first: usize) -> String {
     let place = input.place(first);
     let part = if input.has_parts() { format!(" of {}", place.file.display()) } else { String::new() };
     format!("duplicate group id '{group}' (first at row {}{part})", place.row_in_file + 1)

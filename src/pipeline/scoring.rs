@@ -87,19 +87,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     }
     if let Some(order) = job.ranks {
         let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
-        let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
-        let bounds: Vec<f64> = match order {
-            RankOrder::HighestFirst => posteriors.iter().map(|p| p.lower).collect(),
-            RankOrder::LowestFirst => posteriors.iter().map(|p| p.upper).collect(),
-        };
-        columns.push((
-            "rank_mean".to_string(),
-            PairValues::Integers(competition_ranks(&means, &weights, order)),
-        ));
-        columns.push((
-            "rank_conservative".to_string(),
-            PairValues::Integers(competition_ranks(&bounds, &weights, order)),
-        ));
+        columns.extend(rank_columns(order, &weights, posteriors.iter().map(|p| (p.mean, p.lower, p.upper))));
     }
     let exceedance = [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)];
     for (name, values) in exceedance {
@@ -115,6 +103,26 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr.clone())));
     }
     Ok(columns)
+}
+
+/// `rank_mean` and `rank_conservative` (by the interval's end nearer the
+/// bottom of the order) from each key's posterior (mean, lower, upper) and
+/// the number of groups sharing it.
+pub fn rank_columns(
+    order: RankOrder,
+    weights: &[f64],
+    summaries: impl Iterator<Item = (f64, f64, f64)>,
+) -> [(String, PairValues); 2] {
+    let (means, bounds): (Vec<f64>, Vec<f64>) = summaries
+        .map(|(mean, lower, upper)| match order {
+            RankOrder::HighestFirst => (mean, lower),
+            RankOrder::LowestFirst => (mean, upper),
+        })
+        .unzip();
+    [
+        ("rank_mean".to_string(), PairValues::Integers(competition_ranks(&means, weights, order))),
+        ("rank_conservative".to_string(), PairValues::Integers(competition_ranks(&bounds, weights, order))),
+    ]
 }
 
 /// The pair posterior table: one row per distinct (segment, size, count)

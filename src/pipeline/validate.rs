@@ -56,7 +56,7 @@ fn describe(cell: &Cell) -> String {
 }
 
 /// A whole, non-negative, exactly representable count.
-fn whole_count(cell: &Cell) -> Result<f64, String> {
+pub fn whole_count(cell: &Cell) -> Result<f64, String> {
     match *cell {
         Cell::Missing => Err("missing value".to_string()),
         Cell::Text(ref t) => Err(format!("'{t}' is not a number")),

@@ -5,7 +5,7 @@
 //! (scripts/make_level_fixtures.py); with two levels, against the
 //! project's beta-binomial, whose own checks are against scipy.
 
-use crate::util::json_fixture;
+use crate::util::{assert_refused, json_fixture, ratepool, stderr, summary, write, Csv};
 use ratepool::core::fit::fit;
 use ratepool::core::model::beta_binomial::BetaBinomial;
 use ratepool::core::model::dirichlet_multinomial::mean_score::MeanScoreLaw;
@@ -161,4 +161,138 @@ fn identical_shares_everywhere_are_the_boundary() {
     assert_eq!(fitted.prior, LevelPrior::Pooled { shares: vec![1.0 / 6.0, 2.0 / 6.0, 3.0 / 6.0] });
     assert!(fitted.overdispersion.statistic <= 0.0);
     assert_eq!(fitted.pooling.p_value, 1.0);
+}
+
+/// The demo sellers' columns and model.
+const STARS: [&str; 6] = [
+    "--model",
+    "dirichlet-multinomial",
+    "--group",
+    "seller_id",
+    "--level-counts",
+    "stars_1,stars_2,stars_3,stars_4,stars_5",
+];
+
+fn demo_sellers() -> String {
+    format!("{}/demo-data/star_sellers.csv", env!("CARGO_MANIFEST_DIR"))
+}
+
+#[test]
+fn the_demo_sellers_match_scipy_and_mpmath_end_to_end() {
+    // Source: scripts/make_level_fixtures.py (demo): scipy's fit of the demo file
+    // and mpmath's intervals and tails at that prior.
+    let reference = json_fixture("levels/demo.json");
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_sellers();
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STARS);
+    args.extend(["--output", "out.csv", "--summary", "s.json", "--above", "4.5", "--ranks"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let s = summary(&dir.path().join("s.json"));
+    let shapes: Vec<f64> =
+        s["levels"].as_array().unwrap().iter().map(|l| l["prior_shape"].as_f64().unwrap()).collect();
+    for (got, want) in shapes.iter().zip(floats(&reference["shapes"])) {
+        assert!(((got - want) / want).abs() < 1e-6, "shape {got} vs {want}");
+    }
+    let want = reference["log_likelihood"].as_f64().unwrap();
+    assert!(((s["log_marginal_likelihood"].as_f64().unwrap() - want) / want).abs() < 1e-9);
+    let table = Csv::read(&dir.path().join("out.csv"));
+    let ids = table.column("seller_id");
+    assert_eq!(ids.len(), 2000);
+    for seller in reference["sellers"].as_array().unwrap() {
+        let row = ids.iter().position(|id| id == seller["seller_id"].as_str().unwrap()).unwrap();
+        for column in ["posterior_mean", "interval_lo", "interval_hi", "prob_above"] {
+            let (got, want) = (table.floats(column)[row], seller[column].as_f64().unwrap());
+            // The bar: 1e-6 on the score scale.
+            assert!((got - want).abs() < 1e-6, "{}: {column} {got} vs {want}", seller["seller_id"]);
+        }
+    }
+    // The 800-rating seller at 4.72 outranks the 3-rating seller at 5.0 on the conservative rank.
+    let conservative = table.floats("rank_conservative");
+    let at = |id: &str| ids.iter().position(|x| x == id).unwrap();
+    assert!(conservative[at("seller-0042")] < conservative[at("seller-0007")]);
+    // A seller with no ratings: no raw mean, the prior's mean score, pool weight 1.
+    let none = at("seller-0002");
+    assert_eq!(table.column("raw_mean")[none], "");
+    assert!((table.floats("posterior_mean")[none] - s["mean_score"].as_f64().unwrap()).abs() < 1e-12);
+    assert_eq!(table.floats("pool_weight")[none], 1.0);
+}
+
+#[test]
+fn bad_counts_and_options_are_refused_with_row_and_column() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path();
+    let table = |rows: &str| write(path, "in.csv", &format!("id,one,two,three\n{rows}"));
+    let run = |extra: &[&str], message: &str| {
+        let mut args = vec!["fit", "--input", "in.csv", "--model", "dirichlet-multinomial", "--group", "id"];
+        args.extend(extra);
+        args.extend(["--output", "out.csv"]);
+        assert_refused(path, &args, message, "out.csv");
+    };
+    let three = ["--level-counts", "one,two,three"];
+    table("a,1,2,3\nb,1,-2,3\n");
+    run(&three, "row 2, column 'two': -2 is negative");
+    table("a,1,2,3\nb,1,2,3.5\n");
+    run(&three, "row 2, column 'three': 3.5 is not a whole number");
+    table("a,1,2,3\nb,,2,3\n");
+    run(&three, "row 2, column 'one': missing value");
+    table("a,1,2,3\na,1,2,3\n");
+    run(&three, "duplicate group id 'a' (first at row 1)");
+    table("a,1,2,3\n");
+    run(&["--level-counts", "one,two,four"], "no column 'four' (given as the level count column)");
+    run(&["--level-counts", "one"], "needs --level-counts with at least two columns");
+    run(&["--level-counts", "one,two,one"], "names 'one' twice");
+    run(&["--level-counts", "one,two,three", "--level-scores", "1,2"], "gives 2 scores for 3 level columns");
+    run(&["--level-counts", "one,two,three", "--level-scores", "1,2,2"], "gives the score 2 twice");
+    run(&["--level-counts", "one,two,three", "--level-scores", "1,2,inf"], "must be finite");
+    run(&["--level-counts", "one,two,three", "--above", "3.5"], "--above is a mean score");
+    run(
+        &["--level-counts", "one,two,three", "--by", "one"],
+        "--by does not apply to the dirichlet-multinomial model",
+    );
+}
+
+#[test]
+fn skipped_rows_go_to_the_rejects_with_their_cells_and_the_rest_is_scored() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path();
+    let mut rows = String::from("id,low,high\n");
+    for i in 0..300 {
+        rows += &format!("g{i},{},{}\n", i % 7, (i * 5) % 11);
+    }
+    rows += "bad,2,x\n";
+    write(path, "in.csv", &rows);
+    let args =
+        level_run("low,high", &["--on-invalid", "skip", "--rejects", "rejects.csv", "--summary", "s.json"]);
+    let out = ratepool(path, &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let rejects = Csv::read(&path.join("rejects.csv"));
+    assert_eq!(rejects.header, ["row", "id", "low", "high", "column", "reason"]);
+    assert_eq!(rejects.rows, [["301", "bad", "2", "x", "high", "'x' is not a number"]]);
+    assert_eq!(Csv::read(&path.join("out.csv")).rows.len(), 300);
+    let s = summary(&path.join("s.json"));
+    assert_eq!(
+        (s["rows_read"].as_u64(), s["rows_rejected"].as_u64(), s["groups"].as_u64()),
+        (Some(301), Some(1), Some(300))
+    );
+}
+
+#[test]
+fn a_level_no_group_used_is_a_fit_failure_that_names_it() {
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "in.csv", "id,a,b,c\nx,1,0,2\ny,3,0,1\nz,0,0,4\n");
+    let args = level_run("a,b,c", &[]);
+    let out = ratepool(dir.path(), &args);
+    assert_eq!(out.status.code(), Some(3), "{}", stderr(&out));
+    assert!(stderr(&out).contains("the level column 'b' has no ratings in any group"), "{}", stderr(&out));
+    assert!(!dir.path().join("out.csv").exists());
+}
+
+/// A star-rating fit of `in.csv` (group `id`) with `levels`, to `out.csv`, and `extra`.
+fn level_run<'a>(levels: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
+    let mut args = vec!["fit", "--input", "in.csv", "--model", "dirichlet-multinomial", "--group", "id"];
+    args.extend(["--level-counts", levels, "--output", "out.csv"]);
+    args.extend(extra);
+    args
 }

@@ -204,6 +204,7 @@ fn placeholders_say_what_kind_of_value_and_the_model_comes_first() {
     let kinds = [
         "COLUMN",
         "COLUMN[,COLUMN...]",
+        "SCORE[,SCORE...]",
         "FILE",
         "FOLDER",
         "T",

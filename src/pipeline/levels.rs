@@ -1,0 +1,527 @@
+//! The star-rating run: one row per group with a count per level (one
+//! column each), fitted by the Dirichlet-multinomial model over the distinct
+//! count vectors ([`crate::core::model::dirichlet_multinomial`]), and each
+//! group's posterior mean score written beside its id.
+//!
+//! It reads as the pair path does, in two passes over the input: pass 1
+//! validates every row, counts the distinct vectors and hashes every id
+//! (one more read compares the ids whose hashes repeat); pass 2 validates
+//! again with the same check and writes each group's row from its vector's
+//! posterior. Every output is staged and renamed into place at the end,
+//! all or nothing.
+
+use super::duplicates::{IdHashes, RepeatFinder, Repeats};
+use super::passes::{repeat_reason, spill_failed};
+use super::scoring::rank_columns;
+use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
+use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
+use crate::core::model::dirichlet_multinomial::{
+    fit_levels, mean_score_tails, posterior, posterior_shares, LevelFit, LevelFitFailure, LevelPosterior,
+    LevelPrior, LevelTable,
+};
+use crate::core::ranking::{posterior_fdr_flags, RankOrder};
+use crate::error::{Error, Result};
+use crate::io::atomic::{stage_bytes, StagedOutputs};
+use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
+use crate::io::input::{Input, InputBatch};
+use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
+use crate::summary::{FlagReport, LevelReport, LevelSummary, TestReport};
+use rayon::prelude::*;
+use std::collections::HashMap;
+use std::path::PathBuf;
+
+/// The name of the model on the command line and in files.
+pub const MODEL_NAME: &str = "dirichlet-multinomial";
+
+/// A star-rating run.
+#[derive(Debug, Clone)]
+pub struct LevelJob {
+    /// Input table.
+    pub input: PathBuf,
+    /// Field separator of CSV input.
+    pub delimiter: u8,
+    /// The group id column.
+    pub group: String,
+    /// One count column per level, in order.
+    pub levels: Vec<String>,
+    /// Each level's score.
+    pub scores: Vec<f64>,
+    /// The scored table.
+    pub output: PathBuf,
+    /// Rows per batch.
+    pub batch_rows: usize,
+    /// Summary file, written last.
+    pub summary: Option<PathBuf>,
+    /// Credible level.
+    pub level: Level,
+    /// Thresholds of the mean score for `prob_above` and `prob_below`.
+    pub thresholds: Thresholds,
+    /// Flags under a posterior false-discovery rate.
+    pub flag_fdr: Option<FlagRule>,
+    /// Rank columns.
+    pub ranks: Option<RankOrder>,
+    /// Invalid-row policy.
+    pub invalid: InvalidRows,
+    /// Bytes the ids' hashes may hold in memory before they spill to disk.
+    pub id_memory: usize,
+}
+
+/// Counts above this many levels are refused: the fit's Hessian is K × K.
+pub const MAX_LEVELS: usize = 100;
+
+/// One batch's columns in the forms the check reads.
+struct LevelBatch<'a> {
+    batch: &'a InputBatch<'a>,
+    group: GroupColumn,
+    counts: Vec<NumericColumn>,
+}
+
+impl<'a> LevelBatch<'a> {
+    fn of(batch: &'a InputBatch<'a>) -> Result<Self> {
+        let counts = batch.columns[1..].iter().map(NumericColumn::of).collect::<Result<_>>()?;
+        Ok(LevelBatch { batch, group: GroupColumn::of(&batch.columns[0])?, counts })
+    }
+
+    /// The row's counts into `vector`, or its first fault.
+    fn check(
+        &self,
+        job: &LevelJob,
+        row: usize,
+        vector: &mut Vec<f64>,
+    ) -> Result<std::result::Result<(), Rejection>> {
+        let reject = |column: &str, reason: String| Rejection { row, column: column.to_string(), reason };
+        if self.group.is_missing(row) {
+            return Ok(Err(reject(&job.group, MISSING_GROUP.to_string())));
+        }
+        vector.clear();
+        for (k, column) in self.counts.iter().enumerate() {
+            let plain = column.integer(row).filter(|&n| (0..=1 << 53).contains(&n)).map(|n| n as f64);
+            let value = match plain {
+                Some(value) => value,
+                None => match whole_count(&cell_at(&self.batch.columns[k + 1], row)?) {
+                    Ok(value) => value,
+                    Err(reason) => return Ok(Err(reject(&job.levels[k], reason))),
+                },
+            };
+            vector.push(value);
+        }
+        Ok(Ok(()))
+    }
+}
+
+/// A vector's key: its counts' bits.
+fn key_of(vector: &[f64]) -> Vec<u64> {
+    vector.iter().map(|v| v.to_bits()).collect()
+}
+
+/// What pass 1 found.
+#[derive(Default)]
+struct Counted {
+    vectors: HashMap<Vec<u64>, f64>,
+    rows: usize,
+    rejected: usize,
+    first_fault: Option<(usize, Error)>,
+    repeats: Repeats,
+}
+
+/// Runs a star-rating job: reads, fits, scores, writes. Returns the summary.
+pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
+    let mut columns = vec![(job.group.as_str(), "group")];
+    columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
+    let input = Input::open(&job.input, job.delimiter, &columns, job.batch_rows)?;
+    let counted = count_vectors(job, &input)?;
+    if counted.rows == 0 {
+        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
+    }
+    if let Some((_, fault)) = counted.first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
+        return Err(fault);
+    }
+    let table = LevelTable::new(
+        job.levels.len(),
+        counted.vectors.iter().map(|(key, w)| (key.iter().map(|b| f64::from_bits(*b)).collect(), *w)),
+    );
+    if table.is_empty() {
+        return Err(Error::Input(format!(
+            "{}: no valid data rows ({} rejected)",
+            job.input.display(),
+            counted.rejected
+        )));
+    }
+    let fitted = fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?;
+    let scored = score_vectors(job, &table, &fitted);
+    let mut staged = StagedOutputs::default();
+    write_groups(job, &input, &table, &scored, counted.repeats, counted.rows, &mut staged)?;
+    let summary = summarise(job, &table, &fitted, &scored, (counted.rows, counted.rejected));
+    if let Some(path) = &job.summary {
+        let json = serde_json::to_string_pretty(&summary)
+            .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
+        staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
+    }
+    staged.commit()?;
+    Ok(summary)
+}
+
+/// A failed fit in words.
+fn describe_failure(job: &LevelJob, failure: &LevelFitFailure) -> String {
+    match failure {
+        LevelFitFailure::NoData => "no group has any rating: there is nothing to fit".to_string(),
+        LevelFitFailure::EmptyLevel { level } => format!(
+            "the level column '{}' has no ratings in any group, so its share's prior sits at 0; leave the column out, or give data where it occurs",
+            job.levels[*level]
+        ),
+        LevelFitFailure::SharesOnly => {
+            "every group has at most one rating: the shares can be estimated but not how much groups differ".to_string()
+        }
+        LevelFitFailure::NotConverged { iterations } => {
+            format!("the search for the prior did not converge in {iterations} steps")
+        }
+    }
+}
+
+/// Pass 1 (and the repeated-id check): the distinct vectors of the valid rows.
+fn count_vectors(job: &LevelJob, input: &Input) -> Result<Counted> {
+    let mut counted = Counted::default();
+    let mut ids = IdHashes::new(job.id_memory, input.known_rows().unwrap_or(0));
+    let mut vector = Vec::with_capacity(job.levels.len());
+    input.for_each_batch(|batch| {
+        let view = LevelBatch::of(&batch)?;
+        for row in 0..batch.rows() {
+            if !view.group.is_missing(row) {
+                view.group.with_bytes(row, |id| ids.push(id)).map_err(spill_failed)?;
+            }
+            match view.check(job, row, &mut vector)? {
+                Ok(()) => *counted.vectors.entry(key_of(&vector)).or_default() += 1.0,
+                Err(rejection) => {
+                    counted.rejected += 1;
+                    if counted.first_fault.is_none() {
+                        counted.first_fault = Some((batch.first_row + row, rejection.stopping(&batch)));
+                    }
+                }
+            }
+        }
+        counted.rows = batch.first_row + batch.rows();
+        Ok(())
+    })?;
+    let candidates = ids.repeated().map_err(spill_failed)?;
+    if candidates.is_empty() {
+        return Ok(counted);
+    }
+    let mut finder = RepeatFinder::new(candidates);
+    input.for_each_batch(|batch| {
+        let view = LevelBatch::of(&batch)?;
+        for row in 0..batch.rows() {
+            if view.group.is_missing(row) {
+                continue;
+            }
+            let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
+            if let (Some(first), Ok(())) = (repeat, view.check(job, row, &mut vector)?) {
+                *counted.vectors.get_mut(&key_of(&vector)).expect("counted in pass 1") -= 1.0;
+                counted.rejected += 1;
+                let at = batch.first_row + row;
+                if counted.first_fault.as_ref().is_none_or(|(earliest, _)| at < *earliest) {
+                    let place = input.place(at);
+                    let reason = repeat_reason(input, &view.group.text(row), first);
+                    let error = row_fault(&place.file, place.row_in_file, job.group.clone(), reason);
+                    counted.first_fault = Some((at, error));
+                }
+            }
+        }
+        Ok(())
+    })?;
+    counted.repeats = finder.finish();
+    Ok(counted)
+}
+
+/// Every vector's posterior and the columns asked for.
+struct ScoredVectors {
+    posteriors: Vec<LevelPosterior>,
+    shares: Vec<Vec<f64>>,
+    prob_above: Option<Vec<f64>>,
+    prob_below: Option<Vec<f64>>,
+    flags: Option<crate::core::ranking::FdrFlags>,
+}
+
+fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> ScoredVectors {
+    let prior = &fitted.prior;
+    let tail = (1.0 - job.level.get()) / 2.0;
+    let posteriors: Vec<LevelPosterior> = (0..table.len())
+        .into_par_iter()
+        .map(|i| posterior(prior, &job.scores, table.vector(i), tail))
+        .collect();
+    let shares = (0..table.len()).map(|i| posterior_shares(prior, table.vector(i))).collect();
+    let tails_at = |t: f64| -> Vec<(f64, f64)> {
+        (0..table.len())
+            .into_par_iter()
+            .map(|i| mean_score_tails(prior, &job.scores, table.vector(i), t))
+            .collect()
+    };
+    let above = job.thresholds.above.map(tails_at);
+    let below = job.thresholds.below.map(tails_at);
+    let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
+    let flags = job.flag_fdr.map(|rule| {
+        let no_event: Vec<f64> = match rule.event {
+            FlagEvent::Above => {
+                above.as_ref().expect("--flag-fdr needs --above").iter().map(|t| t.0).collect()
+            }
+            FlagEvent::Below => {
+                below.as_ref().expect("--flag-fdr needs --below").iter().map(|t| t.1).collect()
+            }
+        };
+        posterior_fdr_flags(&no_event, &weights, rule.bound)
+    });
+    ScoredVectors {
+        posteriors,
+        shares,
+        prob_above: above.map(|t| t.iter().map(|t| t.1).collect()),
+        prob_below: below.map(|t| t.iter().map(|t| t.0).collect()),
+        flags,
+    }
+}
+
+/// The output columns after the group id, each as its value per vector.
+fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) -> PairColumns {
+    let posteriors = &scored.posteriors;
+    let each = |f: &dyn Fn(&LevelPosterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
+    let mut columns: PairColumns = job
+        .levels
+        .iter()
+        .enumerate()
+        .map(|(k, name)| {
+            (
+                name.clone(),
+                PairValues::Integers((0..table.len()).map(|i| table.vector(i)[k] as i64).collect()),
+            )
+        })
+        .collect();
+    let raw = (0..table.len())
+        .map(|i| {
+            let vector = table.vector(i);
+            let total: f64 = vector.iter().sum();
+            (total > 0.0).then(|| vector.iter().zip(&job.scores).map(|(n, s)| n * s).sum::<f64>() / total)
+        })
+        .collect();
+    columns.extend([
+        ("raw_mean".to_string(), PairValues::OptionalFloats(raw)),
+        ("posterior_mean".to_string(), each(&|p| p.mean)),
+        ("posterior_sd".to_string(), each(&|p| p.sd)),
+        ("interval_lo".to_string(), each(&|p| p.lower)),
+        ("interval_hi".to_string(), each(&|p| p.upper)),
+        ("pool_weight".to_string(), each(&|p| p.pool_weight)),
+    ]);
+    for (k, name) in job.levels.iter().enumerate() {
+        let values = scored.shares.iter().map(|s| s[k]).collect();
+        columns.push((format!("posterior_share_{name}"), PairValues::Floats(values)));
+    }
+    if let Some(order) = job.ranks {
+        let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
+        let summaries = posteriors.iter().map(|p| (p.mean, p.lower, p.upper));
+        columns.extend(rank_columns(order, &weights, summaries));
+    }
+    for (name, values) in [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)] {
+        if let Some(values) = values {
+            columns.push((name.to_string(), PairValues::Floats(values.clone())));
+        }
+    }
+    if let Some(flags) = &scored.flags {
+        columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
+        columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr.clone())));
+    }
+    columns
+}
+
+/// Rejected rows as found, for the rejects table.
+#[derive(Default)]
+struct LevelRejects {
+    rows: Vec<i64>,
+    groups: Vec<String>,
+    cells: Vec<Vec<String>>,
+    columns: Vec<String>,
+    reasons: Vec<String>,
+}
+
+impl LevelRejects {
+    fn push(&mut self, batch: &InputBatch<'_>, group: String, rejection: &Rejection) -> Result<()> {
+        self.rows.push((batch.first_row + rejection.row + 1) as i64);
+        self.groups.push(group);
+        let cells = batch.columns[1..].iter().map(|c| cell_at(c, rejection.row).map(|c| cell_text(&c)));
+        self.cells.push(cells.collect::<Result<_>>()?);
+        self.columns.push(rejection.column.clone());
+        self.reasons.push(rejection.reason.clone());
+        Ok(())
+    }
+
+    fn take_columns(&mut self, job: &LevelJob) -> Columns {
+        let taken = std::mem::take(self);
+        let mut columns = vec![
+            ("row".to_string(), ColumnValues::Integers(taken.rows)),
+            (job.group.clone(), ColumnValues::Texts(taken.groups)),
+        ];
+        for (k, name) in job.levels.iter().enumerate() {
+            columns.push((
+                name.clone(),
+                ColumnValues::Texts(taken.cells.iter().map(|c| c[k].clone()).collect()),
+            ));
+        }
+        columns.push(("column".to_string(), ColumnValues::Texts(taken.columns)));
+        columns.push(("reason".to_string(), ColumnValues::Texts(taken.reasons)));
+        columns
+    }
+}
+
+/// Pass 2: every valid row's group id with its vector's columns; the
+/// rejects beside them.
+fn write_groups(
+    job: &LevelJob,
+    input: &Input,
+    table: &LevelTable,
+    scored: &ScoredVectors,
+    repeats: Repeats,
+    rows: usize,
+    staged: &mut StagedOutputs,
+) -> Result<()> {
+    let positions: HashMap<Vec<u64>, u32> =
+        (0..table.len()).map(|i| (key_of(table.vector(i)), i as u32)).collect();
+    let mut sink = TableSink::create_scored(&job.output, vector_columns(job, table, scored))?;
+    let mut rejects = match &job.invalid {
+        InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, LevelRejects::default())),
+        InvalidRows::Fail => None,
+    };
+    let changed = || {
+        Error::Input(format!(
+            "{}: the file changed while it was read (the second pass found rows the first did not); nothing was written",
+            job.input.display()
+        ))
+    };
+    let mut vector = Vec::with_capacity(job.levels.len());
+    let mut seen = 0;
+    input.for_each_batch(|batch| {
+        let view = LevelBatch::of(&batch)?;
+        let (mut kept, mut vector_of_row) = (Vec::new(), Vec::new());
+        for row in 0..batch.rows() {
+            let mut outcome = view.check(job, row, &mut vector)?;
+            if let (false, Some(first)) =
+                (view.group.is_missing(row), repeats.first_of(batch.first_row + row))
+            {
+                let reason = repeat_reason(input, &view.group.text(row), first);
+                outcome = Err(Rejection { row, column: job.group.clone(), reason });
+            }
+            match outcome {
+                Ok(()) => {
+                    let position = positions.get(&key_of(&vector)).ok_or_else(changed)?;
+                    kept.push(row as u32);
+                    vector_of_row.push(*position);
+                }
+                Err(rejection) => {
+                    if let Some((_, held)) = &mut rejects {
+                        held.push(&batch, view.group.text(row), &rejection)?;
+                    }
+                }
+            }
+        }
+        sink.write_scored(vec![(job.group.clone(), view.group.take(&kept))], &vector_of_row)?;
+        if let Some((rejects_sink, held)) = &mut rejects {
+            if !held.rows.is_empty() {
+                rejects_sink.write(held.take_columns(job))?;
+            }
+        }
+        seen = batch.first_row + batch.rows();
+        if seen > rows {
+            return Err(changed());
+        }
+        Ok(())
+    })?;
+    if seen != rows {
+        return Err(changed());
+    }
+    staged.add(sink.finish()?);
+    if let Some((mut rejects_sink, mut held)) = rejects {
+        // An empty rejects table still has its header.
+        rejects_sink.write(held.take_columns(job))?;
+        staged.add(rejects_sink.finish()?);
+    }
+    Ok(())
+}
+
+/// The run's summary.
+fn summarise(
+    job: &LevelJob,
+    table: &LevelTable,
+    fitted: &LevelFit,
+    scored: &ScoredVectors,
+    (rows, rejected): (usize, usize),
+) -> LevelSummary {
+    let shares = fitted.prior.shares();
+    let shapes = match &fitted.prior {
+        LevelPrior::Dirichlet { shapes } => Some(shapes.clone()),
+        LevelPrior::Pooled { .. } => None,
+    };
+    let levels = job
+        .levels
+        .iter()
+        .enumerate()
+        .map(|(k, column)| LevelReport {
+            column: column.clone(),
+            score: job.scores[k],
+            prior_shape: shapes.as_ref().map(|a| a[k]),
+            prior_shape_se: fitted.shapes_se.as_ref().map(|se| se[k]),
+            prior_share: shares[k],
+            prior_share_se: fitted.shares_se[k],
+        })
+        .collect();
+    let (mean_score, mean_score_se) = fitted.mean_score(&job.scores, table);
+    let groups = table.groups();
+    let pool: Vec<f64> = scored.posteriors.iter().map(|p| p.pool_weight).collect();
+    let mean_pool_weight = (0..table.len()).map(|i| table.weight(i) * pool[i]).sum::<f64>() / groups.max(1.0);
+    let mut warnings = Vec::new();
+    if shapes.is_none() {
+        warnings.push(
+            "the groups' shares vary no more than multinomial sampling allows: every group is given the pooled shares (no overdispersion)"
+                .to_string(),
+        );
+    }
+    LevelSummary {
+        model: MODEL_NAME.to_string(),
+        rows_read: rows as u64,
+        rows_rejected: rejected as u64,
+        groups: groups as u64,
+        distinct_vectors: table.len() as u64,
+        levels,
+        prior_law: if shapes.is_some() { "Dirichlet" } else { "pooled shares" }.to_string(),
+        strength: fitted.prior.strength(),
+        strength_se: fitted.strength_se,
+        mean_score,
+        mean_score_se,
+        log_marginal_likelihood: fitted.log_marginal_likelihood,
+        iterations: fitted.iterations,
+        pooling_test: TestReport {
+            name:
+                "likelihood ratio against the same shares for every group (50:50 chi-square(0):chi-square(1))"
+                    .to_string(),
+            statistic: fitted.pooling.statistic,
+            p_value: fitted.pooling.p_value,
+        },
+        overdispersion_test: TestReport {
+            name: "score test at 1/strength = 0 (Tarone's statistic over levels)".to_string(),
+            statistic: fitted.overdispersion.statistic,
+            p_value: fitted.overdispersion.p_value,
+        },
+        mean_pool_weight,
+        credible_level: job.level.get(),
+        above: job.thresholds.above,
+        below: job.thresholds.below,
+        flags: scored.flags.as_ref().zip(job.flag_fdr).map(|(flags, rule)| FlagReport {
+            event: match rule.event {
+                FlagEvent::Above => "above".to_string(),
+                FlagEvent::Below => "below".to_string(),
+            },
+            threshold: match rule.event {
+                FlagEvent::Above => job.thresholds.above.unwrap_or(f64::NAN),
+                FlagEvent::Below => job.thresholds.below.unwrap_or(f64::NAN),
+            },
+            fdr_level: rule.bound,
+            groups_flagged: flags.groups_flagged as u64,
+            expected_false_flags: flags.expected_false,
+        }),
+        warnings,
+    }
+}
