@@ -176,8 +176,13 @@ pub fn render_level_text(summary: &LevelSummary) -> String {
     let test = &summary.overdispersion_test;
     dispersion_line(&mut out, test);
     let test = &summary.pooling_test;
-    let _ =
-        writeln!(out, "  pooling      {} {:.3}, {}", test.name, test.statistic, p_value_text(test.p_value));
+    let _ = writeln!(
+        out,
+        "  pooling      {} {:.3}, {} (50:50 chi-square(0):chi-square(1))",
+        test.name,
+        test.statistic,
+        p_value_text(test.p_value)
+    );
     let _ = writeln!(out, "  pool weight  mean {:.3}", summary.mean_pool_weight);
     if let Some(flags) = &summary.flags {
         flag_line(&mut out, flags);

@@ -109,15 +109,70 @@ impl<'a> LevelBatch<'a> {
     }
 }
 
-/// A vector's key: its counts' bits.
-fn key_of(vector: &[f64]) -> Vec<u64> {
-    vector.iter().map(|v| v.to_bits()).collect()
+/// The distinct count vectors met, numbered as met and stored flat (a
+/// vector of K counts in K doubles, not an allocation of its own: at 10M
+/// sellers there are over a million), each found by a 64-bit hash of its
+/// counts; the rare vector whose hash another already holds is kept by its
+/// full key beside them.
+#[derive(Default)]
+struct VectorIndex {
+    levels: usize,
+    counts: Vec<f64>,
+    weights: Vec<f64>,
+    by_hash: HashMap<u64, u32, std::hash::BuildHasherDefault<crate::core::pairs::PairHasher>>,
+    collided: HashMap<Vec<u64>, u32>,
+}
+
+impl VectorIndex {
+    fn new(levels: usize) -> Self {
+        VectorIndex { levels, ..VectorIndex::default() }
+    }
+
+    fn hash(vector: &[f64]) -> u64 {
+        use std::hash::Hasher;
+        let mut hasher = crate::core::pairs::PairHasher::default();
+        for v in vector {
+            hasher.write_u64(v.to_bits());
+        }
+        hasher.finish()
+    }
+
+    fn vector(&self, i: u32) -> &[f64] {
+        &self.counts[i as usize * self.levels..(i as usize + 1) * self.levels]
+    }
+
+    fn find(&self, vector: &[f64]) -> Option<u32> {
+        let first = *self.by_hash.get(&Self::hash(vector))?;
+        if self.vector(first) == vector {
+            return Some(first);
+        }
+        self.collided.get(&vector.iter().map(|v| v.to_bits()).collect::<Vec<_>>()).copied()
+    }
+
+    /// Adds `weight` groups to `vector`'s count, numbering it if new.
+    fn add(&mut self, vector: &[f64], weight: f64) {
+        let at = match self.find(vector) {
+            Some(at) => at,
+            None => {
+                let at = self.weights.len() as u32;
+                self.counts.extend_from_slice(vector);
+                self.weights.push(0.0);
+                if let Some(held) = self.by_hash.insert(Self::hash(vector), at) {
+                    // Another vector has this hash: it keeps the slot, this one goes beside.
+                    self.by_hash.insert(Self::hash(vector), held);
+                    self.collided.insert(vector.iter().map(|v| v.to_bits()).collect(), at);
+                }
+                at
+            }
+        };
+        self.weights[at as usize] += weight;
+    }
 }
 
 /// What pass 1 found.
 #[derive(Default)]
 struct Counted {
-    vectors: HashMap<Vec<u64>, f64>,
+    vectors: VectorIndex,
     rows: usize,
     rejected: usize,
     first_fault: Option<(usize, Error)>,
@@ -136,10 +191,8 @@ pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
     if let Some((_, fault)) = counted.first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
         return Err(fault);
     }
-    let table = LevelTable::new(
-        job.levels.len(),
-        counted.vectors.iter().map(|(key, w)| (key.iter().map(|b| f64::from_bits(*b)).collect(), *w)),
-    );
+    let (table, place) =
+        LevelTable::of_distinct(job.levels.len(), &counted.vectors.counts, &counted.vectors.weights);
     if table.is_empty() {
         return Err(Error::Input(format!(
             "{}: no valid data rows ({} rejected)",
@@ -149,9 +202,13 @@ pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
     }
     let fitted = fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?;
     let scored = score_vectors(job, &table, &fitted);
-    let mut staged = StagedOutputs::default();
-    write_groups(job, &input, &table, &scored, counted.repeats, counted.rows, &mut staged)?;
     let summary = summarise(job, &table, &fitted, &scored, (counted.rows, counted.rejected));
+    // The columns hold all pass 2 needs of the posteriors: let those go before it.
+    let columns = vector_columns(job, &table, &scored);
+    drop((scored, table));
+    let mut staged = StagedOutputs::default();
+    let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
+    write_groups(job, &input, columns, found, &mut staged)?;
     if let Some(path) = &job.summary {
         let json = serde_json::to_string_pretty(&summary)
             .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
@@ -180,7 +237,7 @@ fn describe_failure(job: &LevelJob, failure: &LevelFitFailure) -> String {
 
 /// Pass 1 (and the repeated-id check): the distinct vectors of the valid rows.
 fn count_vectors(job: &LevelJob, input: &Input) -> Result<Counted> {
-    let mut counted = Counted::default();
+    let mut counted = Counted { vectors: VectorIndex::new(job.levels.len()), ..Counted::default() };
     let mut ids = IdHashes::new(job.id_memory, input.known_rows().unwrap_or(0));
     let mut vector = Vec::with_capacity(job.levels.len());
     input.for_each_batch(|batch| {
@@ -190,7 +247,7 @@ fn count_vectors(job: &LevelJob, input: &Input) -> Result<Counted> {
                 view.group.with_bytes(row, |id| ids.push(id)).map_err(spill_failed)?;
             }
             match view.check(job, row, &mut vector)? {
-                Ok(()) => *counted.vectors.entry(key_of(&vector)).or_default() += 1.0,
+                Ok(()) => counted.vectors.add(&vector, 1.0),
                 Err(rejection) => {
                     counted.rejected += 1;
                     if counted.first_fault.is_none() {
@@ -215,7 +272,7 @@ fn count_vectors(job: &LevelJob, input: &Input) -> Result<Counted> {
             }
             let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
             if let (Some(first), Ok(())) = (repeat, view.check(job, row, &mut vector)?) {
-                *counted.vectors.get_mut(&key_of(&vector)).expect("counted in pass 1") -= 1.0;
+                counted.vectors.add(&vector, -1.0);
                 counted.rejected += 1;
                 let at = batch.first_row + row;
                 if counted.first_fault.as_ref().is_none_or(|(earliest, _)| at < *earliest) {
@@ -235,7 +292,8 @@ fn count_vectors(job: &LevelJob, input: &Input) -> Result<Counted> {
 /// Every vector's posterior and the columns asked for.
 struct ScoredVectors {
     posteriors: Vec<LevelPosterior>,
-    shares: Vec<Vec<f64>>,
+    /// Each vector's posterior mean shares, flat (K a vector).
+    shares: Vec<f64>,
     prob_above: Option<Vec<f64>>,
     prob_below: Option<Vec<f64>>,
     flags: Option<crate::core::ranking::FdrFlags>,
@@ -248,7 +306,7 @@ fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> Score
         .into_par_iter()
         .map(|i| posterior(prior, &job.scores, table.vector(i), tail))
         .collect();
-    let shares = (0..table.len()).map(|i| posterior_shares(prior, table.vector(i))).collect();
+    let shares = (0..table.len()).flat_map(|i| posterior_shares(prior, table.vector(i))).collect();
     let tails_at = |t: f64| -> Vec<(f64, f64)> {
         (0..table.len())
             .into_par_iter()
@@ -309,7 +367,7 @@ fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) ->
         ("pool_weight".to_string(), each(&|p| p.pool_weight)),
     ]);
     for (k, name) in job.levels.iter().enumerate() {
-        let values = scored.shares.iter().map(|s| s[k]).collect();
+        let values = scored.shares.iter().skip(k).step_by(job.levels.len()).copied().collect();
         columns.push((format!("posterior_share_{name}"), PairValues::Floats(values)));
     }
     if let Some(order) = job.ranks {
@@ -368,20 +426,26 @@ impl LevelRejects {
     }
 }
 
-/// Pass 2: every valid row's group id with its vector's columns; the
+/// What pass 2 needs of pass 1: the vectors met, each one's place in the
+/// table, the repeated ids, and the rows read.
+struct Found {
+    vectors: VectorIndex,
+    place: Vec<u32>,
+    repeats: Repeats,
+    rows: usize,
+}
+
+/// Pass 2: every valid row's group id with its vector's `columns`; the
 /// rejects beside them.
 fn write_groups(
     job: &LevelJob,
     input: &Input,
-    table: &LevelTable,
-    scored: &ScoredVectors,
-    repeats: Repeats,
-    rows: usize,
+    columns: PairColumns,
+    found: Found,
     staged: &mut StagedOutputs,
 ) -> Result<()> {
-    let positions: HashMap<Vec<u64>, u32> =
-        (0..table.len()).map(|i| (key_of(table.vector(i)), i as u32)).collect();
-    let mut sink = TableSink::create_scored(&job.output, vector_columns(job, table, scored))?;
+    let Found { vectors, place, repeats, rows } = found;
+    let mut sink = TableSink::create_scored(&job.output, columns)?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, LevelRejects::default())),
         InvalidRows::Fail => None,
@@ -407,9 +471,13 @@ fn write_groups(
             }
             match outcome {
                 Ok(()) => {
-                    let position = positions.get(&key_of(&vector)).ok_or_else(changed)?;
+                    let position = vectors
+                        .find(&vector)
+                        .map(|met| place[met as usize])
+                        .filter(|&p| p != u32::MAX)
+                        .ok_or_else(changed)?;
                     kept.push(row as u32);
-                    vector_of_row.push(*position);
+                    vector_of_row.push(position);
                 }
                 Err(rejection) => {
                     if let Some((_, held)) = &mut rejects {
@@ -494,14 +562,12 @@ fn summarise(
         log_marginal_likelihood: fitted.log_marginal_likelihood,
         iterations: fitted.iterations,
         pooling_test: TestReport {
-            name:
-                "likelihood ratio against the same shares for every group (50:50 chi-square(0):chi-square(1))"
-                    .to_string(),
+            name: "likelihood ratio against the same shares for every group".to_string(),
             statistic: fitted.pooling.statistic,
             p_value: fitted.pooling.p_value,
         },
         overdispersion_test: TestReport {
-            name: "score test at 1/strength = 0 (Tarone's statistic over levels)".to_string(),
+            name: "score test at 1/strength = 0".to_string(),
             statistic: fitted.overdispersion.statistic,
             p_value: fitted.overdispersion.p_value,
         },
@@ -523,5 +589,27 @@ fn summarise(
             expected_false_flags: flags.expected_false,
         }),
         warnings,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn vectors_whose_hashes_meet_are_kept_apart() {
+        let mut index = VectorIndex::new(2);
+        index.add(&[1.0, 2.0], 1.0);
+        // As if [3, 4] hashed to the slot [1, 2] holds.
+        index.by_hash.insert(VectorIndex::hash(&[3.0, 4.0]), 0);
+        index.add(&[3.0, 4.0], 1.0);
+        index.add(&[3.0, 4.0], 1.0);
+        index.add(&[1.0, 2.0], -1.0);
+        assert_eq!(index.find(&[1.0, 2.0]), Some(0));
+        assert_eq!(index.find(&[3.0, 4.0]), Some(1));
+        assert_eq!(index.find(&[5.0, 6.0]), None);
+        assert_eq!(index.weights, [0.0, 2.0]);
+        let (table, place) = LevelTable::of_distinct(2, &index.counts, &index.weights);
+        assert_eq!((table.len(), place), (1, vec![u32::MAX, 0]));
     }
 }

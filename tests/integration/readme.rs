@@ -80,8 +80,8 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         compared += 1;
     }
     assert_eq!(
-        compared, 6,
-        "the marketplace, sellers, storefronts, district bands, returns and clinics outputs"
+        compared, 7,
+        "the marketplace, sellers, storefronts, star sellers, district bands, returns and clinics outputs"
     );
 }
 
@@ -254,6 +254,40 @@ fn the_storefront_figures_in_the_prose() {
     printed(free_store("visits"), 0, "45");
     printed(100.0 * free_store("posterior_mean"), 2, "1.84");
     printed(100.0 * beta_store("posterior_mean"), 2, "2.31");
+}
+
+#[test]
+fn the_star_seller_figures_in_the_prose() {
+    let dir = scratch();
+    run(dir.path(), "fit --input demo-data/star_sellers.csv --model dirichlet-multinomial --group seller_id --level-counts stars_1,stars_2,stars_3,stars_4,stars_5 --above 4.5 --flag-fdr 0.1 --ranks --output stars.csv --summary stars.json");
+    let s = summary(&dir.path().join("stars.json"));
+    printed(s["mean_score"].as_f64().unwrap(), 2, "4.38");
+    printed(s["strength"].as_f64().unwrap(), 1, "9.9");
+    let table = Csv::read(&dir.path().join("stars.csv"));
+    let three = row(&table, "seller_id", "seller-0007");
+    let counts: Vec<f64> = (1..=5).map(|k| three(&format!("stars_{k}"))).collect();
+    assert_eq!(counts, [0.0, 0.0, 0.0, 0.0, 3.0]);
+    printed(three("raw_mean"), 1, "5.0");
+    printed(three("posterior_mean"), 2, "4.53");
+    printed(three("interval_lo"), 2, "3.88");
+    printed(three("interval_hi"), 2, "4.89");
+    printed(three("prob_above"), 2, "0.62");
+    assert_eq!(
+        table.column("flagged")[table.column("seller_id").iter().position(|g| g == "seller-0007").unwrap()],
+        "false"
+    );
+    let many = row(&table, "seller_id", "seller-0042");
+    printed((1..=5).map(|k| many(&format!("stars_{k}"))).sum::<f64>(), 0, "800");
+    printed(many("raw_mean"), 2, "4.72");
+    printed(many("posterior_mean"), 3, "4.716");
+    printed(many("interval_lo"), 3, "4.661");
+    printed(many("interval_hi"), 3, "4.765");
+    assert!(many("prob_above") > 0.99999999);
+    assert_eq!(ranks(&table, "seller_id", "seller-0042").1, 27);
+    assert_eq!(ranks(&table, "seller_id", "seller-0007").1, 1048);
+    let none = row(&table, "seller_id", "seller-0002");
+    printed(none("posterior_mean"), 2, "4.38");
+    assert_eq!(none("pool_weight"), 1.0);
 }
 
 #[test]

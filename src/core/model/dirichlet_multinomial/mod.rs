@@ -69,6 +69,28 @@ impl LevelTable {
         kept
     }
 
+    /// The table of distinct vectors stored flat (`counts` holds vector i
+    /// at `i * levels ..`) with their weights, and for each the place it
+    /// takes in the table (`u32::MAX` for a weight of 0, left out).
+    pub fn of_distinct(levels: usize, counts: &[f64], weights: &[f64]) -> (Self, Vec<u32>) {
+        let vector = |i: usize| &counts[i * levels..(i + 1) * levels];
+        let mut order: Vec<u32> = (0..weights.len() as u32).filter(|&i| weights[i as usize] != 0.0).collect();
+        order
+            .sort_by(|&x, &y| vector(x as usize).partial_cmp(vector(y as usize)).expect("counts are finite"));
+        let mut table = LevelTable {
+            levels,
+            counts: Vec::with_capacity(order.len() * levels),
+            weights: Vec::with_capacity(order.len()),
+        };
+        let mut place = vec![u32::MAX; weights.len()];
+        for (position, &i) in order.iter().enumerate() {
+            table.counts.extend_from_slice(vector(i as usize));
+            table.weights.push(weights[i as usize]);
+            place[i as usize] = position as u32;
+        }
+        (table, place)
+    }
+
     /// The number of levels.
     pub fn levels(&self) -> usize {
         self.levels
