@@ -2,8 +2,8 @@
 # What the star-rating model costs against the beta-binomial on the same
 # sellers, side by side in one run (benches/generate_stars.py: sellers with
 # lognormal numbers of ratings, median 12, and star counts from a Dirichlet;
-# about 223,000 distinct count vectors per million sellers against 25,000
-# distinct (positive, total) pairs):
+# 1,396,422 distinct count vectors at 10M sellers against 81,166 distinct
+# (positive, total) pairs):
 #   beta-binomial:          4 and 5 stars counted as positive, out of all ratings;
 #   dirichlet-multinomial:  the five star counts, each seller's mean score.
 # Runs alternate, each timed with /usr/bin/time (wall, peak memory); medians

@@ -23,7 +23,7 @@ tests/fixtures/levels/mean_score.json: the mean score M = sum s_k p_k under
 
 tests/fixtures/levels/demo.json: demo-data/star_sellers.csv fitted as
   above, and for three sellers the interval and P(mean score > 4.5) by
-  mpmath at that prior.
+  mpmath at that prior, and P(share of one star > 0.1) by scipy.stats.beta.
 
 Run from the repository root:  python3 scripts/make_level_fixtures.py
 (or name the parts to remake: fits, mean_score, demo).
@@ -208,6 +208,8 @@ def demo():
                 "interval_lo": float(quantile(shapes, scores, 0.025)),
                 "interval_hi": float(quantile(shapes, scores, 0.975)),
                 "prob_above": float(1 - cdf(shapes, scores, 4.5)),
+                # P(share of one-star ratings > 0.1): the share is Beta(b_1, B - b_1) (scipy.stats.beta).
+                "prob_share_above": float(stats.beta.sf(0.1, shapes[0], sum(shapes) - shapes[0])),
             }
         )
     return {"shapes": [float(x) for x in a], "log_likelihood": ll, "sellers": sellers}

@@ -686,6 +686,14 @@ pub struct FitArgs {
         help_heading = "Star ratings"
     )]
     pub level_scores: Vec<f64>,
+    /// Add prob_share_above for one level
+    #[arg(
+        long_help = "Add `prob_share_above`: each group's posterior probability that the share of its ratings at one level exceeds P, given as the level's count column and P (`stars_1=0.1`: the share of one-star ratings above 10%, the usual complaint flag). The share's posterior is a Beta law.",
+        long,
+        value_name = "COLUMN=P",
+        help_heading = "Star ratings"
+    )]
+    pub share_above: Option<String>,
     /// normal-normal's tau^2 by ml (default) or reml
     #[arg(long_help = "How the normal-normal model estimates the prior variance tau^2: `ml` (maximum marginal likelihood) or `reml` (restricted maximum likelihood, which allows for the estimated mean: the usual choice when groups are few).", long, value_enum, value_name = "METHOD", default_value_t = VarianceMethodArg::Ml, hide_possible_values = true, hide_default_value = true, help_heading = "Analysis")]
     pub variance_method: VarianceMethodArg,
@@ -1452,6 +1460,22 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
             )));
         }
     }
+    let share_above = match &args.share_above {
+        None => None,
+        Some(text) => {
+            let parsed = text.split_once('=').and_then(|(column, p)| {
+                let level = levels.iter().position(|c| c == column)?;
+                let share: f64 = p.trim().parse().ok()?;
+                (share > 0.0 && share < 1.0).then_some((level, share))
+            });
+            Some(parsed.ok_or_else(|| {
+                Error::Usage(format!(
+                    "--share-above takes a level column and a share strictly between 0 and 1, as {}=0.1; got '{text}'",
+                    levels[0]
+                ))
+            })?)
+        }
+    };
     let group = table.group.clone().ok_or_else(|| Error::Usage("--group COLUMN is required".to_string()))?;
     if levels.contains(&group) {
         return Err(Error::Usage(format!("--group '{group}' is also a level column")));
@@ -1470,6 +1494,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         summary: table.summary.clone(),
         level: Level::new(table.level)?,
         thresholds: Thresholds { above: table.above, below: table.below },
+        share_above,
         flag_fdr: flag_rule(table)?,
         ranks: rank_order(table),
         invalid,
@@ -1554,9 +1579,12 @@ impl Command {
                         "the dirichlet-multinomial model runs through its own job".to_string(),
                     ));
                 };
-                if !args.level_counts.is_empty() || !args.level_scores.is_empty() {
+                if !args.level_counts.is_empty()
+                    || !args.level_scores.is_empty()
+                    || args.share_above.is_some()
+                {
                     return Err(Error::Usage(format!(
-                        "--level-counts and --level-scores apply to the dirichlet-multinomial model, not {}",
+                        "--level-counts, --level-scores and --share-above apply to the dirichlet-multinomial model, not {}",
                         model.name()
                     )));
                 }

@@ -948,6 +948,8 @@ pub struct LevelSummary {
     pub above: Option<f64>,
     /// The mean-score threshold of `prob_below`.
     pub below: Option<f64>,
+    /// The level column and share of `prob_share_above`.
+    pub share_above: Option<(String, f64)>,
     /// Flags under the posterior false-discovery rate.
     pub flags: Option<FlagReport>,
     /// Warnings.

@@ -16,8 +16,8 @@ use super::scoring::rank_columns;
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
 use crate::core::model::dirichlet_multinomial::{
-    fit_levels, mean_score_tails, posterior, posterior_shares, LevelFit, LevelFitFailure, LevelPosterior,
-    LevelPrior, LevelTable,
+    fit_levels, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit, LevelFitFailure,
+    LevelPosterior, LevelPrior, LevelTable,
 };
 use crate::core::ranking::{posterior_fdr_flags, RankOrder};
 use crate::error::{Error, Result};
@@ -56,6 +56,8 @@ pub struct LevelJob {
     pub level: Level,
     /// Thresholds of the mean score for `prob_above` and `prob_below`.
     pub thresholds: Thresholds,
+    /// `prob_share_above`: a level (from 0) and a share.
+    pub share_above: Option<(usize, f64)>,
     /// Flags under a posterior false-discovery rate.
     pub flag_fdr: Option<FlagRule>,
     /// Rank columns.
@@ -296,6 +298,7 @@ struct ScoredVectors {
     shares: Vec<f64>,
     prob_above: Option<Vec<f64>>,
     prob_below: Option<Vec<f64>>,
+    prob_share_above: Option<Vec<f64>>,
     flags: Option<crate::core::ranking::FdrFlags>,
 }
 
@@ -327,9 +330,13 @@ fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> Score
         };
         posterior_fdr_flags(&no_event, &weights, rule.bound)
     });
+    let prob_share_above = job.share_above.map(|(level, share)| {
+        (0..table.len()).map(|i| share_tails(prior, table.vector(i), level, share).1).collect()
+    });
     ScoredVectors {
         posteriors,
         shares,
+        prob_share_above,
         prob_above: above.map(|t| t.iter().map(|t| t.1).collect()),
         prob_below: below.map(|t| t.iter().map(|t| t.0).collect()),
         flags,
@@ -375,7 +382,12 @@ fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) ->
         let summaries = posteriors.iter().map(|p| (p.mean, p.lower, p.upper));
         columns.extend(rank_columns(order, &weights, summaries));
     }
-    for (name, values) in [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)] {
+    let exceedance = [
+        ("prob_above", &scored.prob_above),
+        ("prob_below", &scored.prob_below),
+        ("prob_share_above", &scored.prob_share_above),
+    ];
+    for (name, values) in exceedance {
         if let Some(values) = values {
             columns.push((name.to_string(), PairValues::Floats(values.clone())));
         }
@@ -575,6 +587,7 @@ fn summarise(
         credible_level: job.level.get(),
         above: job.thresholds.above,
         below: job.thresholds.below,
+        share_above: job.share_above.map(|(level, share)| (job.levels[level].clone(), share)),
         flags: scored.flags.as_ref().zip(job.flag_fdr).map(|(flags, rule)| FlagReport {
             event: match rule.event {
                 FlagEvent::Above => "above".to_string(),

@@ -187,6 +187,7 @@ fn the_demo_sellers_match_scipy_and_mpmath_end_to_end() {
     let mut args = vec!["fit", "--input", &input];
     args.extend(STARS);
     args.extend(["--output", "out.csv", "--summary", "s.json", "--above", "4.5", "--ranks"]);
+    args.extend(["--share-above", "stars_1=0.1"]);
     let out = ratepool(dir.path(), &args);
     assert!(out.status.success(), "{}", stderr(&out));
     let s = summary(&dir.path().join("s.json"));
@@ -202,7 +203,7 @@ fn the_demo_sellers_match_scipy_and_mpmath_end_to_end() {
     assert_eq!(ids.len(), 2000);
     for seller in reference["sellers"].as_array().unwrap() {
         let row = ids.iter().position(|id| id == seller["seller_id"].as_str().unwrap()).unwrap();
-        for column in ["posterior_mean", "interval_lo", "interval_hi", "prob_above"] {
+        for column in ["posterior_mean", "interval_lo", "interval_hi", "prob_above", "prob_share_above"] {
             let (got, want) = (table.floats(column)[row], seller[column].as_f64().unwrap());
             // The bar: 1e-6 on the score scale.
             assert!((got - want).abs() < 1e-6, "{}: {column} {got} vs {want}", seller["seller_id"]);
@@ -247,6 +248,11 @@ fn bad_counts_and_options_are_refused_with_row_and_column() {
     run(&["--level-counts", "one,two,three", "--level-scores", "1,2,2"], "gives the score 2 twice");
     run(&["--level-counts", "one,two,three", "--level-scores", "1,2,inf"], "must be finite");
     run(&["--level-counts", "one,two,three", "--above", "3.5"], "--above is a mean score");
+    run(
+        &["--level-counts", "one,two,three", "--share-above", "four=0.1"],
+        "--share-above takes a level column",
+    );
+    run(&["--level-counts", "one,two,three", "--share-above", "one=1.5"], "strictly between 0 and 1");
     run(
         &["--level-counts", "one,two,three", "--by", "one"],
         "--by does not apply to the dirichlet-multinomial model",

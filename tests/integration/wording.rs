@@ -205,6 +205,7 @@ fn placeholders_say_what_kind_of_value_and_the_model_comes_first() {
         "COLUMN",
         "COLUMN[,COLUMN...]",
         "SCORE[,SCORE...]",
+        "COLUMN=P",
         "FILE",
         "FOLDER",
         "T",
