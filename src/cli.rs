@@ -378,7 +378,7 @@ pub struct TableArgs {
     pub input: PathBuf,
     /// Rows are trials: this column holds 1 or 0
     #[arg(
-        long_help = "Rows are trials: this column holds each trial's outcome (1 or 0, true or false), and trials and successes are counted per group before the fit (beta-binomial; --successes and --trials then name the output's count columns, by default `successes` and `trials`).",
+        long_help = "Rows are trials: this column holds each trial's outcome (1 or 0, true or false), and trials and successes are counted per group before the fit (beta-binomial; --successes and --trials then name the output's count columns, by default `successes` and `trials`). With the dirichlet-multinomial model each row is one rating, its value one of --levels.",
         long,
         value_name = "COLUMN",
         help_heading = "Input"
@@ -686,6 +686,15 @@ pub struct FitArgs {
         help_heading = "Star ratings"
     )]
     pub level_scores: Vec<f64>,
+    /// Values of --outcome, one per level
+    #[arg(
+        long_help = "With --outcome (one row per rating), the values the outcome column holds, one per level, in the levels' order (comma-separated: `1,2,3,4,5`, or `poor,fair,good`). Each group's ratings are counted per level, and the output names each count after the outcome column and the level's value (`stars_1`).",
+        long,
+        value_name = "VALUE[,VALUE...]",
+        value_delimiter = ',',
+        help_heading = "Star ratings"
+    )]
+    pub levels: Vec<String>,
     /// Add prob_share_above for one level
     #[arg(
         long_help = "Add `prob_share_above`: each group's posterior probability that the share of its ratings at one level exceeds P, given as the level's count column and P (`stars_1=0.1`: the share of one-star ratings above 10%, the usual complaint flag). The share's posterior is a Beta law.",
@@ -1386,7 +1395,6 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
     let table = &args.table;
     refuse_overlaps(table, None)?;
     let refused = [
-        (table.outcome.is_some(), "--outcome"),
         (table.population.is_some(), "--population"),
         (table.aggregate, "--aggregate"),
         (table.successes.is_some(), "--successes"),
@@ -1411,10 +1419,34 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
     if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
         return Err(Error::Usage(format!("{flag} does not apply to the {MODEL_NAME} model (yet)")));
     }
-    let levels = args.level_counts.clone();
+    let outcome = match (&table.outcome, args.levels.is_empty(), args.level_counts.is_empty()) {
+        (None, true, _) => None,
+        (None, false, _) => return Err(Error::Usage("--levels names the values of --outcome COLUMN: give it too".to_string())),
+        (Some(_), _, false) => {
+            return Err(Error::Usage(
+                "give --level-counts (a count column per level) or --outcome with --levels (one row per rating), not both"
+                    .to_string(),
+            ))
+        }
+        (Some(_), true, true) => {
+            return Err(Error::Usage("--outcome with the dirichlet-multinomial model needs --levels VALUE,VALUE,...: the value of each level, in order".to_string()))
+        }
+        (Some(column), false, true) => {
+            for (i, value) in args.levels.iter().enumerate() {
+                if value.is_empty() || args.levels[..i].contains(value) {
+                    return Err(Error::Usage(format!("--levels names '{value}' twice or empty")));
+                }
+            }
+            Some((column.clone(), args.levels.clone()))
+        }
+    };
+    let levels = match &outcome {
+        Some((column, values)) => values.iter().map(|v| format!("{column}_{v}")).collect(),
+        None => args.level_counts.clone(),
+    };
     if levels.len() < 2 {
         return Err(Error::Usage(format!(
-            "the {MODEL_NAME} model needs --level-counts with at least two columns, one per level, got {}",
+            "the {MODEL_NAME} model needs at least two levels (--level-counts columns, or --levels values with --outcome), got {}",
             levels.len()
         )));
     }
@@ -1488,6 +1520,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         delimiter: table.delimiter,
         group,
         levels,
+        outcome,
         scores,
         output,
         batch_rows: table.batch_rows.max(1),

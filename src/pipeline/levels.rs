@@ -26,9 +26,11 @@ use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch};
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
 use crate::summary::{FlagReport, LevelReport, LevelSummary, TestReport};
+use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
 use std::collections::HashMap;
 use std::path::PathBuf;
+use std::sync::Arc;
 
 /// The name of the model on the command line and in files.
 pub const MODEL_NAME: &str = "dirichlet-multinomial";
@@ -42,8 +44,12 @@ pub struct LevelJob {
     pub delimiter: u8,
     /// The group id column.
     pub group: String,
-    /// One count column per level, in order.
+    /// One count column per level, in order (with `outcome`: the output's
+    /// names for the levels' counts).
     pub levels: Vec<String>,
+    /// With one row per rating: the column holding each rating, and the
+    /// value (as text) of each level, in order.
+    pub outcome: Option<(String, Vec<String>)>,
     /// Each level's score.
     pub scores: Vec<f64>,
     /// The scored table.
@@ -183,6 +189,9 @@ struct Counted {
 
 /// Runs a star-rating job: reads, fits, scores, writes. Returns the summary.
 pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
+    if let Some((outcome, values)) = &job.outcome {
+        return run_rating_rows(job, outcome, values);
+    }
     let mut columns = vec![(job.group.as_str(), "group")];
     columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
     let input = Input::open(&job.input, job.delimiter, &columns, job.batch_rows)?;
@@ -195,29 +204,165 @@ pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
     }
     let (table, place) =
         LevelTable::of_distinct(job.levels.len(), &counted.vectors.counts, &counted.vectors.weights);
+    let (summary, columns) = fit_and_score(job, table, (counted.rows, counted.rejected))?;
+    let mut staged = StagedOutputs::default();
+    let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
+    write_groups(job, &input, columns, found, &mut staged)?;
+    commit(job, &summary, staged)?;
+    Ok(summary)
+}
+
+/// The fit, the summary, and the output columns per vector (the posteriors
+/// let go once the columns hold all the writing needs of them).
+fn fit_and_score(
+    job: &LevelJob,
+    table: LevelTable,
+    (rows, rejected): (usize, usize),
+) -> Result<(LevelSummary, PairColumns)> {
     if table.is_empty() {
         return Err(Error::Input(format!(
-            "{}: no valid data rows ({} rejected)",
-            job.input.display(),
-            counted.rejected
+            "{}: no valid data rows ({rejected} rejected)",
+            job.input.display()
         )));
     }
     let fitted = fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?;
     let scored = score_vectors(job, &table, &fitted);
-    let summary = summarise(job, &table, &fitted, &scored, (counted.rows, counted.rejected));
-    // The columns hold all pass 2 needs of the posteriors: let those go before it.
+    let summary = summarise(job, &table, &fitted, &scored, (rows, rejected));
     let columns = vector_columns(job, &table, &scored);
-    drop((scored, table));
-    let mut staged = StagedOutputs::default();
-    let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
-    write_groups(job, &input, columns, found, &mut staged)?;
+    Ok((summary, columns))
+}
+
+/// Stages the summary, if asked for, after every other output, and renames them all into place.
+fn commit(job: &LevelJob, summary: &LevelSummary, mut staged: StagedOutputs) -> Result<()> {
     if let Some(path) = &job.summary {
-        let json = serde_json::to_string_pretty(&summary)
+        let json = serde_json::to_string_pretty(summary)
             .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
         staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
     }
-    staged.commit()?;
+    staged.commit()
+}
+
+/// One row per rating: each group's ratings counted per level in one pass
+/// (groups numbered in the order they first appear), then fitted, and one
+/// row written per group in that order.
+fn run_rating_rows(job: &LevelJob, outcome: &str, values: &[String]) -> Result<LevelSummary> {
+    let input = Input::open(
+        &job.input,
+        job.delimiter,
+        &[(&job.group, "group"), (outcome, "outcome")],
+        job.batch_rows,
+    )?;
+    let levels = values.len();
+    let mut groups: HashMap<Vec<u8>, u32> = HashMap::new();
+    let (mut ids, mut counts): (Vec<String>, Vec<f64>) = (Vec::new(), Vec::new());
+    let mut integer_ids = true;
+    let (mut rows, mut rejected) = (0, 0);
+    let mut rejects = match &job.invalid {
+        InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RatingRejects::default())),
+        InvalidRows::Fail => None,
+    };
+    input.for_each_batch(|batch| {
+        let group = GroupColumn::of(&batch.columns[0])?;
+        integer_ids &= matches!(group, GroupColumn::Integers(_));
+        for row in 0..batch.rows() {
+            let cell = cell_at(&batch.columns[1], row)?;
+            let text = cell_text(&cell);
+            let fault = if group.is_missing(row) {
+                Some((job.group.clone(), MISSING_GROUP.to_string()))
+            } else if let Some(level) = values.iter().position(|v| *v == text) {
+                let at = group.with_bytes(row, |id| match groups.get(id) {
+                    Some(&at) => at,
+                    None => {
+                        let at = ids.len() as u32;
+                        groups.insert(id.to_vec(), at);
+                        ids.push(String::from_utf8_lossy(id).into_owned());
+                        counts.extend(std::iter::repeat_n(0.0, levels));
+                        at
+                    }
+                });
+                counts[at as usize * levels + level] += 1.0;
+                None
+            } else {
+                let found = if text.is_empty() { "missing value".to_string() } else { format!("'{text}'") };
+                Some((outcome.to_string(), format!("{found} is not among --levels {}", values.join(", "))))
+            };
+            if let Some((column, reason)) = fault {
+                rejected += 1;
+                let rejection = Rejection { row, column, reason };
+                match &mut rejects {
+                    Some((_, held)) => {
+                        held.push(batch.first_row + row + 1, group.text(row), text, &rejection)
+                    }
+                    None => return Err(rejection.stopping(&batch)),
+                }
+            }
+        }
+        rows = batch.first_row + batch.rows();
+        if let Some((sink, held)) = &mut rejects {
+            if !held.rows.is_empty() {
+                sink.write(held.take_columns(job, outcome))?;
+            }
+        }
+        Ok(())
+    })?;
+    if rows == 0 {
+        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
+    }
+    drop(groups);
+    let mut vectors = VectorIndex::new(levels);
+    for group in counts.chunks(levels) {
+        vectors.add(group, 1.0);
+    }
+    let (table, place) = LevelTable::of_distinct(levels, &vectors.counts, &vectors.weights);
+    let (summary, columns) = fit_and_score(job, table, (rows, rejected))?;
+    let vector_of_group: Vec<u32> =
+        counts.chunks(levels).map(|group| place[vectors.find(group).expect("counted") as usize]).collect();
+    let id_column: ArrayRef = if integer_ids {
+        Arc::new(ids.iter().map(|id| id.parse::<i64>().ok()).collect::<Int64Array>())
+    } else {
+        Arc::new(ids.iter().map(Some).collect::<StringArray>())
+    };
+    let mut staged = StagedOutputs::default();
+    let mut sink = TableSink::create_scored(&job.output, columns)?;
+    sink.write_scored(vec![(job.group.clone(), id_column)], &vector_of_group)?;
+    staged.add(sink.finish()?);
+    if let Some((mut sink, mut held)) = rejects {
+        sink.write(held.take_columns(job, outcome))?;
+        staged.add(sink.finish()?);
+    }
+    commit(job, &summary, staged)?;
     Ok(summary)
+}
+
+/// Rejected rating rows as found, for the rejects table.
+#[derive(Default)]
+struct RatingRejects {
+    rows: Vec<i64>,
+    groups: Vec<String>,
+    outcomes: Vec<String>,
+    columns: Vec<String>,
+    reasons: Vec<String>,
+}
+
+impl RatingRejects {
+    fn push(&mut self, row: usize, group: String, outcome: String, rejection: &Rejection) {
+        self.rows.push(row as i64);
+        self.groups.push(group);
+        self.outcomes.push(outcome);
+        self.columns.push(rejection.column.clone());
+        self.reasons.push(rejection.reason.clone());
+    }
+
+    fn take_columns(&mut self, job: &LevelJob, outcome: &str) -> Columns {
+        let taken = std::mem::take(self);
+        vec![
+            ("row".to_string(), ColumnValues::Integers(taken.rows)),
+            (job.group.clone(), ColumnValues::Texts(taken.groups)),
+            (outcome.to_string(), ColumnValues::Texts(taken.outcomes)),
+            ("column".to_string(), ColumnValues::Texts(taken.columns)),
+            ("reason".to_string(), ColumnValues::Texts(taken.reasons)),
+        ]
+    }
 }
 
 /// A failed fit in words.

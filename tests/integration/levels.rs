@@ -242,7 +242,7 @@ fn bad_counts_and_options_are_refused_with_row_and_column() {
     run(&three, "duplicate group id 'a' (first at row 1)");
     table("a,1,2,3\n");
     run(&["--level-counts", "one,two,four"], "no column 'four' (given as the level count column)");
-    run(&["--level-counts", "one"], "needs --level-counts with at least two columns");
+    run(&["--level-counts", "one"], "needs at least two levels");
     run(&["--level-counts", "one,two,one"], "names 'one' twice");
     run(&["--level-counts", "one,two,three", "--level-scores", "1,2"], "gives 2 scores for 3 level columns");
     run(&["--level-counts", "one,two,three", "--level-scores", "1,2,2"], "gives the score 2 twice");
@@ -301,4 +301,95 @@ fn level_run<'a>(levels: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
     args.extend(["--level-counts", levels, "--output", "out.csv"]);
     args.extend(extra);
     args
+}
+
+#[test]
+fn one_row_per_rating_gives_the_same_sellers_as_their_counts() {
+    // The demo sellers' star counts written out as one row per rating, in an
+    // order that mixes sellers, must give every seller the same row as the
+    // count columns do (the counts are the sufficient statistic).
+    let dir = tempfile::tempdir().unwrap();
+    let sellers = Csv::read(std::path::Path::new(&demo_sellers()));
+    let mut ratings: Vec<(usize, String, usize)> = Vec::new();
+    for (i, row) in sellers.rows.iter().enumerate() {
+        for (stars, count) in row[1..].iter().enumerate() {
+            for j in 0..count.parse::<usize>().unwrap() {
+                ratings.push(((j * 7919 + i * 104_729) % 10_007, row[0].clone(), stars + 1));
+            }
+        }
+    }
+    ratings.sort();
+    assert_eq!(ratings.len(), 65_528, "the README's count of rating rows");
+    let mut text = String::from("seller_id,stars\n");
+    for (_, seller, stars) in &ratings {
+        text += &format!("{seller},{stars}\n");
+    }
+    text += "seller-9999,6\n";
+    write(dir.path(), "ratings.csv", &text);
+    let input = demo_sellers();
+    let mut counts = vec!["fit", "--input", &input];
+    counts.extend(STARS);
+    counts.extend(["--output", "counts.csv", "--above", "4.5"]);
+    assert!(ratepool(dir.path(), &counts).status.success());
+    let rows = [
+        "fit",
+        "--input",
+        "ratings.csv",
+        "--model",
+        "dirichlet-multinomial",
+        "--group",
+        "seller_id",
+        "--outcome",
+        "stars",
+        "--levels",
+        "1,2,3,4,5",
+        "--above",
+        "4.5",
+        "--output",
+        "rows.csv",
+        "--on-invalid",
+        "skip",
+        "--rejects",
+        "rejects.csv",
+    ];
+    let out = ratepool(dir.path(), &rows);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let (by_counts, by_rows) =
+        (Csv::read(&dir.path().join("counts.csv")), Csv::read(&dir.path().join("rows.csv")));
+    assert_eq!(by_rows.header[1..6], ["stars_1", "stars_2", "stars_3", "stars_4", "stars_5"]);
+    // Sellers with no ratings have no rows, so they are not in the rows' table;
+    // they add nothing to the likelihood, so the prior and every other seller's
+    // row are the same, column for column.
+    let rated: Vec<&Vec<String>> =
+        by_counts.rows.iter().filter(|row| row[1..6].iter().any(|c| c != "0")).collect();
+    assert_eq!(by_rows.rows.len(), rated.len());
+    assert_eq!(by_rows.header, by_counts.header);
+    let at: std::collections::HashMap<&str, &Vec<String>> =
+        by_rows.rows.iter().map(|r| (r[0].as_str(), r)).collect();
+    for row in rated {
+        assert_eq!(at[row[0].as_str()], row, "{}", row[0]);
+    }
+    let rejects = std::fs::read_to_string(dir.path().join("rejects.csv")).unwrap();
+    let line =
+        format!("{},seller-9999,6,stars,\"'6' is not among --levels 1, 2, 3, 4, 5\"", ratings.len() + 1);
+    assert_eq!(rejects.lines().collect::<Vec<_>>(), ["row,seller_id,stars,column,reason", line.as_str()]);
+}
+
+#[test]
+fn rating_rows_refuse_a_value_outside_the_levels_and_options_that_do_not_fit() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path();
+    write(path, "in.csv", "id,stars\na,5\nb,4\na,3\nb,7\n");
+    let run = |extra: &[&str], message: &str| {
+        let mut args = vec!["fit", "--input", "in.csv", "--model", "dirichlet-multinomial", "--group", "id"];
+        args.extend(extra);
+        args.extend(["--output", "out.csv"]);
+        assert_refused(path, &args, message, "out.csv");
+    };
+    let five = ["--outcome", "stars", "--levels", "1,2,3,4,5"];
+    run(&five, "row 4, column 'stars': '7' is not among --levels 1, 2, 3, 4, 5");
+    run(&["--outcome", "stars"], "needs --levels VALUE,VALUE,...");
+    run(&["--levels", "1,2"], "--levels names the values of --outcome COLUMN");
+    run(&["--outcome", "stars", "--levels", "1,2,1"], "--levels names '1' twice");
+    run(&["--outcome", "stars", "--levels", "1,2", "--level-counts", "a,b"], "not both");
 }

@@ -206,6 +206,7 @@ fn placeholders_say_what_kind_of_value_and_the_model_comes_first() {
         "COLUMN[,COLUMN...]",
         "SCORE[,SCORE...]",
         "COLUMN=P",
+        "VALUE[,VALUE...]",
         "FILE",
         "FOLDER",
         "T",
