@@ -85,20 +85,7 @@ pub fn render_text(summary: &Summary) -> String {
             p_value_text(test.p_value)
         );
     }
-    let pull = &summary.pull;
-    let _ = writeln!(
-        out,
-        "  pool weight  mean {:.3}, median {:.3}, p10 {:.3}, p90 {:.3}",
-        pull.pool_weight_mean, pull.pool_weight_median, pull.pool_weight_p10, pull.pool_weight_p90
-    );
-    let _ = writeln!(
-        out,
-        "  shift        mean |posterior - raw| {}, largest {} (group {}), rank correlation {}",
-        show(pull.mean_abs_shift),
-        show(pull.max_abs_shift),
-        pull.max_shift_group.as_deref().unwrap_or("n/a"),
-        show(pull.rank_correlation)
-    );
+    pull_lines(&mut out, &summary.pull);
     if !summary.segments.is_empty() {
         let fallbacks = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
         let _ = writeln!(
@@ -183,11 +170,28 @@ pub fn render_level_text(summary: &LevelSummary) -> String {
         test.statistic,
         p_value_text(test.p_value)
     );
-    let _ = writeln!(out, "  pool weight  mean {:.3}", summary.mean_pool_weight);
+    pull_lines(&mut out, &summary.pull);
     if let Some(flags) = &summary.flags {
         flag_line(&mut out, flags);
     }
     out
+}
+
+/// The pool weights' and the shifts' lines.
+fn pull_lines(out: &mut String, pull: &crate::summary::PullReport) {
+    let _ = writeln!(
+        out,
+        "  pool weight  mean {:.3}, median {:.3}, p10 {:.3}, p90 {:.3}",
+        pull.pool_weight_mean, pull.pool_weight_median, pull.pool_weight_p10, pull.pool_weight_p90
+    );
+    let _ = writeln!(
+        out,
+        "  shift        mean |posterior - raw| {}, largest {} (group {}), rank correlation {}",
+        show(pull.mean_abs_shift),
+        show(pull.max_abs_shift),
+        pull.max_shift_group.as_deref().unwrap_or("n/a"),
+        show(pull.rank_correlation)
+    );
 }
 
 /// The overdispersion test's line.

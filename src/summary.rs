@@ -940,8 +940,9 @@ pub struct LevelSummary {
     pub pooling_test: TestReport,
     /// The score test for overdispersion at 1/A = 0.
     pub overdispersion_test: TestReport,
-    /// The groups' mean pool weight A / (A + N).
-    pub mean_pool_weight: f64,
+    /// How far the groups were pulled: pool weights A / (A + N), shifts of
+    /// the mean score from the raw mean, and the rank correlation of the two.
+    pub pull: PullReport,
     /// Credible level of the intervals.
     pub credible_level: f64,
     /// The mean-score threshold of `prob_above`.

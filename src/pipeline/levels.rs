@@ -12,9 +12,10 @@
 
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{repeat_reason, spill_failed};
-use super::scoring::rank_columns;
+use super::scoring::{pull_report, rank_columns};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
+use crate::core::diagnostics::PairOutcome;
 use crate::core::model::dirichlet_multinomial::{
     fit_levels, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit, LevelFitFailure,
     LevelPosterior, LevelPrior, LevelTable,
@@ -204,21 +205,22 @@ pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
     }
     let (table, place) =
         LevelTable::of_distinct(job.levels.len(), &counted.vectors.counts, &counted.vectors.weights);
-    let (summary, columns) = fit_and_score(job, table, (counted.rows, counted.rejected))?;
+    let (mut summary, columns, furthest) = fit_and_score(job, table, (counted.rows, counted.rejected))?;
     let mut staged = StagedOutputs::default();
     let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
-    write_groups(job, &input, columns, found, &mut staged)?;
+    summary.pull.max_shift_group = write_groups(job, &input, columns, (found, furthest), &mut staged)?;
     commit(job, &summary, staged)?;
     Ok(summary)
 }
 
-/// The fit, the summary, and the output columns per vector (the posteriors
-/// let go once the columns hold all the writing needs of them).
+/// The fit, the summary, the output columns per vector (the posteriors let
+/// go once the columns hold all the writing needs of them), and the vector
+/// whose groups moved furthest, for the summary to name one of them.
 fn fit_and_score(
     job: &LevelJob,
     table: LevelTable,
     (rows, rejected): (usize, usize),
-) -> Result<(LevelSummary, PairColumns)> {
+) -> Result<(LevelSummary, PairColumns, Option<u32>)> {
     if table.is_empty() {
         return Err(Error::Input(format!(
             "{}: no valid data rows ({rejected} rejected)",
@@ -227,9 +229,9 @@ fn fit_and_score(
     }
     let fitted = fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?;
     let scored = score_vectors(job, &table, &fitted);
-    let summary = summarise(job, &table, &fitted, &scored, (rows, rejected));
+    let (summary, furthest) = summarise(job, &table, &fitted, &scored, (rows, rejected));
     let columns = vector_columns(job, &table, &scored);
-    Ok((summary, columns))
+    Ok((summary, columns, furthest))
 }
 
 /// Stages the summary, if asked for, after every other output, and renames them all into place.
@@ -314,9 +316,11 @@ fn run_rating_rows(job: &LevelJob, outcome: &str, values: &[String]) -> Result<L
         vectors.add(group, 1.0);
     }
     let (table, place) = LevelTable::of_distinct(levels, &vectors.counts, &vectors.weights);
-    let (summary, columns) = fit_and_score(job, table, (rows, rejected))?;
+    let (mut summary, columns, furthest) = fit_and_score(job, table, (rows, rejected))?;
     let vector_of_group: Vec<u32> =
         counts.chunks(levels).map(|group| place[vectors.find(group).expect("counted") as usize]).collect();
+    summary.pull.max_shift_group =
+        furthest.and_then(|v| vector_of_group.iter().position(|&g| g == v)).map(|g| ids[g].clone());
     let id_column: ArrayRef = if integer_ids {
         Arc::new(ids.iter().map(|id| id.parse::<i64>().ok()).collect::<Int64Array>())
     } else {
@@ -488,6 +492,12 @@ fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> Score
     }
 }
 
+/// A group's own mean score (None without ratings).
+fn raw_mean(vector: &[f64], scores: &[f64]) -> Option<f64> {
+    let total: f64 = vector.iter().sum();
+    (total > 0.0).then(|| vector.iter().zip(scores).map(|(n, s)| n * s).sum::<f64>() / total)
+}
+
 /// The output columns after the group id, each as its value per vector.
 fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) -> PairColumns {
     let posteriors = &scored.posteriors;
@@ -503,13 +513,7 @@ fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) ->
             )
         })
         .collect();
-    let raw = (0..table.len())
-        .map(|i| {
-            let vector = table.vector(i);
-            let total: f64 = vector.iter().sum();
-            (total > 0.0).then(|| vector.iter().zip(&job.scores).map(|(n, s)| n * s).sum::<f64>() / total)
-        })
-        .collect();
+    let raw = (0..table.len()).map(|i| raw_mean(table.vector(i), &job.scores)).collect();
     columns.extend([
         ("raw_mean".to_string(), PairValues::OptionalFloats(raw)),
         ("posterior_mean".to_string(), each(&|p| p.mean)),
@@ -593,15 +597,16 @@ struct Found {
 }
 
 /// Pass 2: every valid row's group id with its vector's `columns`; the
-/// rejects beside them.
+/// rejects beside them. Returns the first group with the vector `furthest`.
 fn write_groups(
     job: &LevelJob,
     input: &Input,
     columns: PairColumns,
-    found: Found,
+    (found, furthest): (Found, Option<u32>),
     staged: &mut StagedOutputs,
-) -> Result<()> {
+) -> Result<Option<String>> {
     let Found { vectors, place, repeats, rows } = found;
+    let mut furthest_group = None;
     let mut sink = TableSink::create_scored(&job.output, columns)?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, LevelRejects::default())),
@@ -633,6 +638,9 @@ fn write_groups(
                         .map(|met| place[met as usize])
                         .filter(|&p| p != u32::MAX)
                         .ok_or_else(changed)?;
+                    if furthest_group.is_none() && Some(position) == furthest {
+                        furthest_group = Some(view.group.text(row));
+                    }
                     kept.push(row as u32);
                     vector_of_row.push(position);
                 }
@@ -664,7 +672,7 @@ fn write_groups(
         rejects_sink.write(held.take_columns(job))?;
         staged.add(rejects_sink.finish()?);
     }
-    Ok(())
+    Ok(furthest_group)
 }
 
 /// The run's summary.
@@ -674,7 +682,7 @@ fn summarise(
     fitted: &LevelFit,
     scored: &ScoredVectors,
     (rows, rejected): (usize, usize),
-) -> LevelSummary {
+) -> (LevelSummary, Option<u32>) {
     let shares = fitted.prior.shares();
     let shapes = match &fitted.prior {
         LevelPrior::Dirichlet { shapes } => Some(shapes.clone()),
@@ -695,8 +703,15 @@ fn summarise(
         .collect();
     let (mean_score, mean_score_se) = fitted.mean_score(&job.scores, table);
     let groups = table.groups();
-    let pool: Vec<f64> = scored.posteriors.iter().map(|p| p.pool_weight).collect();
-    let mean_pool_weight = (0..table.len()).map(|i| table.weight(i) * pool[i]).sum::<f64>() / groups.max(1.0);
+    let outcomes: Vec<PairOutcome> = (0..table.len())
+        .map(|i| PairOutcome {
+            raw_rate: raw_mean(table.vector(i), &job.scores),
+            posterior_mean: scored.posteriors[i].mean,
+            pool_weight: scored.posteriors[i].pool_weight,
+            groups: table.weight(i),
+        })
+        .collect();
+    let pull = crate::core::diagnostics::pull(&outcomes);
     let mut warnings = Vec::new();
     if shapes.is_none() {
         warnings.push(
@@ -704,7 +719,7 @@ fn summarise(
                 .to_string(),
         );
     }
-    LevelSummary {
+    let summary = LevelSummary {
         model: MODEL_NAME.to_string(),
         rows_read: rows as u64,
         rows_rejected: rejected as u64,
@@ -728,7 +743,7 @@ fn summarise(
             statistic: fitted.overdispersion.statistic,
             p_value: fitted.overdispersion.p_value,
         },
-        mean_pool_weight,
+        pull: pull_report(&pull, None),
         credible_level: job.level.get(),
         above: job.thresholds.above,
         below: job.thresholds.below,
@@ -747,7 +762,8 @@ fn summarise(
             expected_false_flags: flags.expected_false,
         }),
         warnings,
-    }
+    };
+    (summary, pull.max_shift_row.map(|row| row as u32))
 }
 
 #[cfg(test)]

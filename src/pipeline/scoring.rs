@@ -239,7 +239,7 @@ pub struct RowCounts {
 }
 
 /// The pull report of a pull summary, naming the group that moved furthest.
-fn pull_report(p: &Pull, max_shift_group: Option<String>) -> PullReport {
+pub fn pull_report(p: &Pull, max_shift_group: Option<String>) -> PullReport {
     PullReport {
         pool_weight_mean: p.pool_weight_mean,
         pool_weight_median: p.pool_weight_median,

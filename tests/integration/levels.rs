@@ -213,6 +213,18 @@ fn the_demo_sellers_match_scipy_and_mpmath_end_to_end() {
     let conservative = table.floats("rank_conservative");
     let at = |id: &str| ids.iter().position(|x| x == id).unwrap();
     assert!(conservative[at("seller-0042")] < conservative[at("seller-0007")]);
+    // The pull: the mean shift over rated sellers, and the seller named as moved furthest.
+    let (raw, posterior) = (table.column("raw_mean"), table.floats("posterior_mean"));
+    let shifts: Vec<(f64, usize)> = raw
+        .iter()
+        .enumerate()
+        .filter(|(_, r)| !r.is_empty())
+        .map(|(i, r)| ((posterior[i] - r.parse::<f64>().unwrap()).abs(), i))
+        .collect();
+    let mean_shift = shifts.iter().map(|s| s.0).sum::<f64>() / shifts.len() as f64;
+    assert!((s["pull"]["mean_abs_shift"].as_f64().unwrap() - mean_shift).abs() < 1e-12);
+    let furthest = shifts.iter().fold((0.0, 0), |m, s| if s.0 > m.0 { *s } else { m });
+    assert_eq!(s["pull"]["max_shift_group"].as_str().unwrap(), ids[furthest.1]);
     // A seller with no ratings: no raw mean, the prior's mean score, pool weight 1.
     let none = at("seller-0002");
     assert_eq!(table.column("raw_mean")[none], "");

@@ -285,6 +285,10 @@ fn the_star_seller_figures_in_the_prose() {
     assert!(many("prob_above") > 0.99999999);
     assert_eq!(ranks(&table, "seller_id", "seller-0042").1, 27);
     assert_eq!(ranks(&table, "seller_id", "seller-0007").1, 1048);
+    let furthest = row(&table, "seller_id", "seller-0344");
+    let counts: Vec<f64> = (1..=5).map(|k| furthest(&format!("stars_{k}"))).collect();
+    assert_eq!(counts, [1.0, 0.0, 0.0, 0.0, 0.0]);
+    printed(furthest("posterior_mean"), 2, "4.07");
     let none = row(&table, "seller_id", "seller-0002");
     printed(none("posterior_mean"), 2, "4.38");
     assert_eq!(none("pool_weight"), 1.0);
