@@ -1508,12 +1508,12 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
             })?)
         }
     };
-    let group = table.group.clone().ok_or_else(|| Error::Usage("--group COLUMN is required".to_string()))?;
+    let (group, Layout::Groups { output, batch_rows }) = layout_of(table, None)? else {
+        unreachable!("without --pair-counts the layout is groups")
+    };
     if levels.contains(&group) {
         return Err(Error::Usage(format!("--group '{group}' is also a level column")));
     }
-    let output = table.output.clone().ok_or_else(|| Error::Usage("--output FILE is required".to_string()))?;
-    crate::io::TableFormat::from_path(&output)?;
     let invalid = invalid_rows(table)?;
     Ok(LevelJob {
         input: table.input.clone(),
@@ -1523,7 +1523,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         outcome,
         scores,
         output,
-        batch_rows: table.batch_rows.max(1),
+        batch_rows,
         summary: table.summary.clone(),
         level: Level::new(table.level)?,
         thresholds: Thresholds { above: table.above, below: table.below },

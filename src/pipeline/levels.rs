@@ -11,7 +11,7 @@
 //! all or nothing.
 
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
-use super::passes::{repeat_reason, spill_failed};
+use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
 use super::scoring::{pull_report, rank_columns};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
@@ -20,6 +20,7 @@ use crate::core::model::dirichlet_multinomial::{
     fit_levels, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit, LevelFitFailure,
     LevelPosterior, LevelPrior, LevelTable,
 };
+use crate::core::model::ValueRule;
 use crate::core::ranking::{posterior_fdr_flags, RankOrder};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
@@ -104,8 +105,7 @@ impl<'a> LevelBatch<'a> {
         }
         vector.clear();
         for (k, column) in self.counts.iter().enumerate() {
-            let plain = column.integer(row).filter(|&n| (0..=1 << 53).contains(&n)).map(|n| n as f64);
-            let value = match plain {
+            let value = match plain_value(column, ValueRule::WholeCount, row) {
                 Some(value) => value,
                 None => match whole_count(&cell_at(&self.batch.columns[k + 1], row)?) {
                     Ok(value) => value,
@@ -151,7 +151,11 @@ impl VectorIndex {
     }
 
     fn find(&self, vector: &[f64]) -> Option<u32> {
-        let first = *self.by_hash.get(&Self::hash(vector))?;
+        self.find_hashed(vector, Self::hash(vector))
+    }
+
+    fn find_hashed(&self, vector: &[f64], hash: u64) -> Option<u32> {
+        let first = *self.by_hash.get(&hash)?;
         if self.vector(first) == vector {
             return Some(first);
         }
@@ -160,16 +164,21 @@ impl VectorIndex {
 
     /// Adds `weight` groups to `vector`'s count, numbering it if new.
     fn add(&mut self, vector: &[f64], weight: f64) {
-        let at = match self.find(vector) {
+        let hash = Self::hash(vector);
+        let at = match self.find_hashed(vector, hash) {
             Some(at) => at,
             None => {
                 let at = self.weights.len() as u32;
                 self.counts.extend_from_slice(vector);
                 self.weights.push(0.0);
-                if let Some(held) = self.by_hash.insert(Self::hash(vector), at) {
+                match self.by_hash.entry(hash) {
+                    std::collections::hash_map::Entry::Vacant(slot) => {
+                        slot.insert(at);
+                    }
                     // Another vector has this hash: it keeps the slot, this one goes beside.
-                    self.by_hash.insert(Self::hash(vector), held);
-                    self.collided.insert(vector.iter().map(|v| v.to_bits()).collect(), at);
+                    std::collections::hash_map::Entry::Occupied(_) => {
+                        self.collided.insert(vector.iter().map(|v| v.to_bits()).collect(), at);
+                    }
                 }
                 at
             }
@@ -612,12 +621,7 @@ fn write_groups(
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, LevelRejects::default())),
         InvalidRows::Fail => None,
     };
-    let changed = || {
-        Error::Input(format!(
-            "{}: the file changed while it was read (the second pass found rows the first did not); nothing was written",
-            job.input.display()
-        ))
-    };
+    let changed = || changed_between_passes(&job.input);
     let mut vector = Vec::with_capacity(job.levels.len());
     let mut seen = 0;
     input.for_each_batch(|batch| {

@@ -128,7 +128,7 @@ impl<'a> BatchView<'a> {
 
 /// A value of `column` that is plainly valid under `rule` as read: a whole
 /// count as an integer, anything else as a real.
-fn plain_value(column: &NumericColumn, rule: ValueRule, row: usize) -> Option<f64> {
+pub(super) fn plain_value(column: &NumericColumn, rule: ValueRule, row: usize) -> Option<f64> {
     if rule.is_whole() {
         return column.integer(row).filter(|k| (0..=MAX_EXACT).contains(k)).map(|k| k as f64);
     }
@@ -357,7 +357,8 @@ fn group_text_at(input: &Input, row: usize) -> Result<String> {
     Ok(text)
 }
 
-fn changed_between_passes(file: &Path) -> Error {
+/// The error of an input that changed between the passes.
+pub(super) fn changed_between_passes(file: &Path) -> Error {
     Error::Input(format!(
         "{}: the file changed while it was read (the second pass found rows the first did not); nothing was written",
         file.display()

@@ -22,7 +22,7 @@ pub mod mean_score;
 use crate::core::dense::{cholesky, cholesky_solve};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
 use crate::core::incomplete::{beta_tails, erfc};
-use crate::core::quantile::{beta_quantile, Tail};
+use crate::core::quantile::Tail;
 use crate::core::special::{digamma_diff, ln_gamma, ln_rising_excess, trigamma_diff};
 use mean_score::MeanScoreLaw;
 
@@ -49,24 +49,17 @@ impl LevelTable {
     pub fn new(levels: usize, vectors: impl IntoIterator<Item = (Vec<f64>, f64)>) -> Self {
         let mut rows: Vec<(Vec<f64>, f64)> = vectors.into_iter().collect();
         rows.sort_by(|x, y| x.0.partial_cmp(&y.0).expect("counts are finite"));
-        let mut table = LevelTable { levels, counts: Vec::new(), weights: Vec::new() };
+        let (mut counts, mut weights): (Vec<f64>, Vec<f64>) = (Vec::new(), Vec::new());
         for (vector, weight) in rows {
             debug_assert_eq!(vector.len(), levels);
-            if !table.is_empty() && table.vector(table.len() - 1) == &vector[..] {
-                *table.weights.last_mut().expect("a row") += weight;
+            if !weights.is_empty() && counts[counts.len() - levels..] == vector[..] {
+                *weights.last_mut().expect("a row") += weight;
             } else {
-                table.counts.extend_from_slice(&vector);
-                table.weights.push(weight);
+                counts.extend_from_slice(&vector);
+                weights.push(weight);
             }
         }
-        let mut kept = LevelTable { levels, counts: Vec::new(), weights: Vec::new() };
-        for i in 0..table.len() {
-            if table.weights[i] != 0.0 {
-                kept.counts.extend_from_slice(table.vector(i));
-                kept.weights.push(table.weights[i]);
-            }
-        }
-        kept
+        Self::of_distinct(levels, &counts, &weights).0
     }
 
     /// The table of distinct vectors stored flat (`counts` holds vector i
@@ -580,6 +573,15 @@ pub fn posterior_shares(prior: &LevelPrior, counts: &[f64]) -> Vec<f64> {
     }
 }
 
+/// (P(X ≤ t), P(X > t)) for X fixed at `value` (pooled shares).
+fn point_tails(value: f64, t: f64) -> (f64, f64) {
+    if value > t {
+        (0.0, 1.0)
+    } else {
+        (1.0, 0.0)
+    }
+}
+
 /// (P(mean score ≤ t), P(mean score > t)) under the posterior of `counts`.
 pub fn mean_score_tails(prior: &LevelPrior, scores: &[f64], counts: &[f64], t: f64) -> (f64, f64) {
     match posterior_shapes(prior, counts) {
@@ -587,14 +589,7 @@ pub fn mean_score_tails(prior: &LevelPrior, scores: &[f64], counts: &[f64], t: f
             let at = MeanScoreLaw { shapes: &shapes, scores }.at(t);
             (at.lower, at.upper)
         }
-        None => {
-            let mean = prior.mean_score(scores);
-            if mean > t {
-                (0.0, 1.0)
-            } else {
-                (1.0, 0.0)
-            }
-        }
+        None => point_tails(prior.mean_score(scores), t),
     }
 }
 
@@ -607,28 +602,7 @@ pub fn share_tails(prior: &LevelPrior, counts: &[f64], level: usize, x: f64) -> 
             let t = beta_tails(shapes[level], total - shapes[level], x, 1.0 - x);
             (t.lower, t.upper)
         }
-        None => {
-            if prior.shares()[level] > x {
-                (0.0, 1.0)
-            } else {
-                (1.0, 0.0)
-            }
-        }
-    }
-}
-
-/// The interval of one share under the posterior of `counts`.
-pub fn share_interval(prior: &LevelPrior, counts: &[f64], level: usize, tail: f64) -> (f64, f64) {
-    match posterior_shapes(prior, counts) {
-        Some(shapes) => {
-            let total: f64 = shapes.iter().sum();
-            let (b, rest) = (shapes[level], total - shapes[level]);
-            (beta_quantile(b, rest, Tail::Lower, tail), beta_quantile(b, rest, Tail::Upper, tail))
-        }
-        None => {
-            let share = prior.shares()[level];
-            (share, share)
-        }
+        None => point_tails(prior.shares()[level], x),
     }
 }
 
