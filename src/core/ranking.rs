@@ -254,8 +254,13 @@ pub fn top_probabilities_by_threshold(
     if kinds.all_points {
         return point_mass_top(means, weights, k, order);
     }
-    let expected =
-        |c: f64| -> f64 { (0..means.len()).into_par_iter().map(|i| weights[i] * beyond(i, c)).sum() };
+    // Terms are computed in parallel and added in one fixed order: a parallel
+    // sum would add them in an order that depends on the threads' timing, and
+    // the threshold (so every prob_top) could then differ between runs in the last bits.
+    let expected = |c: f64| -> f64 {
+        let terms: Vec<f64> = (0..means.len()).into_par_iter().map(|i| weights[i] * beyond(i, c)).collect();
+        terms.iter().sum()
+    };
     // Start at the k-th best posterior mean, then widen until the count is bracketed.
     let mut seen = 0.0;
     let mut start = means[0];
@@ -427,6 +432,29 @@ mod tests {
             top_probabilities_by_draws(&points, &[1.0; 2], (1, RankOrder::LowestFirst), (10, 1), |_, _| 0.0);
         assert_eq!(lowest_first, vec![0.0, 1.0]);
         assert_eq!(lowest, vec![1.0, 0.0]);
+    }
+
+    #[test]
+    fn the_threshold_is_the_same_bits_on_any_number_of_threads() {
+        // Many groups with rates of every size, so that any change in the
+        // order the expected count is added in shows in its last bits.
+        let rates: Vec<f64> =
+            (0..60_000).map(|i| 0.5 + (i as f64 * 0.618_033_988_7).fract() * 20.0).collect();
+        let laws: Vec<RateLaw> = rates.iter().map(|&rate| RateLaw::Gamma { shape: 1.0, rate }).collect();
+        let means: Vec<f64> = rates.iter().map(|r| 1.0 / r).collect();
+        let weights: Vec<f64> = (0..rates.len()).map(|i| 1.0 + (i % 7) as f64).collect();
+        let threshold = |threads: usize| {
+            let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+            pool.install(|| {
+                let above = |i: usize, c: f64| (-rates[i] * c).exp();
+                let kinds = LawKinds::of(&laws);
+                top_probabilities_by_threshold(&means, &weights, kinds, 500, RankOrder::HighestFirst, above).1
+            })
+        };
+        let one = threshold(1);
+        for threads in [2, 3, 4, 2, 3, 4] {
+            assert_eq!(threshold(threads).to_bits(), one.to_bits(), "{threads} threads");
+        }
     }
 
     #[test]
