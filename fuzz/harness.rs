@@ -43,7 +43,7 @@ pub fn exercise(data: &[u8]) {
         InvalidRows::Fail
     };
     let job = Job {
-        input,
+        input: ratepool::pipeline::TableSource::File(input),
         model,
         columns: ColumnNames { group: "id".into(), count: count.into(), size: size.into() },
         layout,

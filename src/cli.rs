@@ -3,6 +3,7 @@
 
 use crate::core::model::ModelTerms;
 use crate::error::{Error, Result};
+use crate::io::input::TableSource;
 use crate::io::overlap::RunPath;
 use crate::pipeline::validate::ColumnNames;
 use crate::pipeline::{
@@ -1237,7 +1238,7 @@ fn job_of(
     let covariates = saved_covariates(&prior, covariates)?;
     refuse_covariates_with(table, &covariates, pair_counts.is_some())?;
     Ok(Job {
-        input: table.input.clone(),
+        input: TableSource::File(table.input.clone()),
         model,
         columns: ColumnNames { group, count, size },
         layout,
@@ -1516,7 +1517,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
     }
     let invalid = invalid_rows(table)?;
     Ok(LevelJob {
-        input: table.input.clone(),
+        input: TableSource::File(table.input.clone()),
         delimiter: table.delimiter,
         group,
         levels,
@@ -1539,6 +1540,21 @@ impl Command {
     /// Runs the command: a fit or a score (with its report when asked for),
     /// or a report of an earlier run. Returns the summary of a fit or score.
     pub fn execute(self, watch: Watch) -> Result<Outcome> {
+        self.execute_with(None, &mut Terminal::new(watch))
+    }
+
+    /// Runs the command as [`Command::execute`] does, for a library caller:
+    /// a fit or score reads `memory` in place of the `--input` file when one
+    /// is given, and `observer` watches the run (and may stop it).
+    pub fn execute_with(
+        self,
+        memory: Option<std::sync::Arc<crate::io::input::MemoryTable>>,
+        observer: &mut dyn crate::pipeline::RunObserver,
+    ) -> Result<Outcome> {
+        let source = |path: &PathBuf| match &memory {
+            Some(table) => TableSource::Memory(table.clone()),
+            None => TableSource::File(path.clone()),
+        };
         let table = match &self {
             Command::Report(args) => {
                 run_report(args)?;
@@ -1562,7 +1578,8 @@ impl Command {
                 return Ok(Outcome { summary: None, levels: None, outputs: Vec::new() });
             }
             Command::Fit(args) if args.model == FitModel::LevelCounts => {
-                let job = level_job_of(args)?;
+                let mut job = level_job_of(args)?;
+                job.input = source(&args.table.input);
                 let summary = crate::pipeline::levels::run_levels(&job)?;
                 let mut outputs = vec![job.output.clone()];
                 outputs.extend(args.table.rejects.clone());
@@ -1579,8 +1596,10 @@ impl Command {
             .flatten()
             .cloned()
             .collect();
-        let job = self.into_job()?;
-        let summary = crate::pipeline::run(&job, &mut Terminal::new(watch))?;
+        let input = source(&table.input);
+        let mut job = self.into_job()?;
+        job.input = input;
+        let summary = crate::pipeline::run(&job, observer)?;
         if let (Some((html, plots)), Layout::Groups { output, .. }) = (report, &job.layout) {
             crate::view::write_report(&crate::view::ReportRequest {
                 table: output,

@@ -1,7 +1,7 @@
 //! The crate's one error type, with the exit code each kind maps to.
 //!
 //! Exit codes: 0 success; 2 bad usage or bad input data; 3 the model could
-//! not be fitted; 1 anything else (I/O, disk, bugs).
+//! not be fitted; 130 interrupted; 1 anything else (I/O, disk, bugs).
 
 use std::path::PathBuf;
 
@@ -38,6 +38,10 @@ pub enum Error {
         /// The underlying error.
         source: std::io::Error,
     },
+    /// The caller asked the run to stop (a library caller's interrupt);
+    /// nothing was written.
+    #[error("interrupted; no output was written")]
+    Interrupted,
     /// Anything else, including failures inside libraries.
     #[error("{0}")]
     Other(String),
@@ -50,6 +54,8 @@ impl Error {
             Error::Usage(_) | Error::InvalidRow { .. } | Error::Input(_) => 2,
             Error::Fit(_) => 3,
             Error::Io { .. } | Error::Other(_) => 1,
+            // As a shell reports a command ended by SIGINT.
+            Error::Interrupted => 130,
         }
     }
 

@@ -1,13 +1,18 @@
-//! Every input the same way: a CSV file, a Parquet file or a folder of
-//! Parquet parts, opened with the columns a run needs (each checked to exist,
-//! naming the available ones if not) and read in batches of rows, as often
-//! as the run needs to pass over it.
+//! Every input the same way: a CSV file, a Parquet file, a folder of
+//! Parquet parts or a table already in memory (Arrow record batches handed
+//! over by a library caller), opened with the columns a run needs (each
+//! checked to exist, naming the available ones if not) and read in batches
+//! of rows, as often as the run needs to pass over it.
 
+use super::batch::keys_cells;
 use super::csv_input::CsvFile;
 use super::parquet_input::ParquetParts;
 use super::TableFormat;
 use crate::error::{Error, Result};
+use arrow_array::{ArrayRef, RecordBatch};
+use arrow_schema::DataType;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 pub use super::batch::{InputBatch, COVARIATE_ROLE, SEGMENT_ROLE, STRATUM_ROLE};
 
@@ -18,6 +23,67 @@ pub struct RowPlace {
     pub file: PathBuf,
     /// 0-based row within that file.
     pub row_in_file: usize,
+}
+
+/// Where a run's rows come from.
+#[derive(Debug, Clone, PartialEq)]
+pub enum TableSource {
+    /// A CSV file, a Parquet file or a folder of Parquet parts.
+    File(PathBuf),
+    /// A table in memory.
+    Memory(Arc<MemoryTable>),
+}
+
+impl TableSource {
+    /// The name messages give the input: the path, or the memory table's name.
+    pub fn name(&self) -> &Path {
+        match self {
+            TableSource::File(path) => path,
+            TableSource::Memory(table) => &table.name,
+        }
+    }
+
+    /// The name for display in messages.
+    pub fn display(&self) -> std::path::Display<'_> {
+        self.name().display()
+    }
+}
+
+/// A table held in memory as Arrow record batches of one schema.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MemoryTable {
+    /// What messages call the table (a library caller's argument name).
+    name: PathBuf,
+    /// The column names, in order.
+    columns: Vec<String>,
+    batches: Vec<RecordBatch>,
+}
+
+impl MemoryTable {
+    /// A table named `name` in messages, from batches that share one schema
+    /// (`columns` names them; needed when there are no batches).
+    pub fn new(name: &str, columns: Vec<String>, batches: Vec<RecordBatch>) -> Result<Self> {
+        for batch in &batches {
+            let names: Vec<&String> = batch.schema_ref().fields().iter().map(|f| f.name()).collect();
+            if names.len() != columns.len() || names.iter().zip(&columns).any(|(a, b)| *a != b) {
+                return Err(Error::Input(format!("{name}: the record batches do not share one schema")));
+            }
+        }
+        Ok(MemoryTable { name: PathBuf::from(name), columns, batches })
+    }
+
+    /// Rows in the table.
+    pub fn rows(&self) -> usize {
+        self.batches.iter().map(RecordBatch::num_rows).sum()
+    }
+}
+
+/// The columns of a memory table that a run reads, by their place in its
+/// schema, and whether each keys cells (its text then read dictionary-encoded,
+/// as the Parquet reader does).
+pub struct MemoryColumns {
+    places: Vec<usize>,
+    keys_cells: Vec<bool>,
 }
 
 /// An opened input.
@@ -33,6 +99,15 @@ pub enum Input {
     },
     /// A Parquet file or a folder of parts.
     Parquet(ParquetParts),
+    /// A table in memory.
+    Memory {
+        /// The table.
+        table: Arc<MemoryTable>,
+        /// The columns to read.
+        columns: MemoryColumns,
+        /// Rows per batch.
+        batch_rows: usize,
+    },
 }
 
 /// A hint when a CSV header read as one column that holds a likely
@@ -47,7 +122,49 @@ fn separator_hint(header: &[String]) -> String {
     }
 }
 
+/// The text column `array` dictionary-encoded, as the Parquet reader hands
+/// over a text column that keys cells; any other column as it is.
+fn as_cell_keys(array: &ArrayRef) -> Result<ArrayRef> {
+    match array.data_type() {
+        DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => {
+            let to = DataType::Dictionary(Box::new(DataType::Int32), Box::new(DataType::Utf8));
+            arrow_cast::cast(array, &to).map_err(|e| Error::Input(format!("cannot read a text column: {e}")))
+        }
+        _ => Ok(array.clone()),
+    }
+}
+
 impl Input {
+    /// Opens `source` as [`Input::open`] opens a file, or the memory table.
+    pub fn open_source(
+        source: &TableSource,
+        delimiter: u8,
+        columns: &[(&str, &str)],
+        batch_rows: usize,
+    ) -> Result<Self> {
+        let table = match source {
+            TableSource::File(path) => return Self::open(path, delimiter, columns, batch_rows),
+            TableSource::Memory(table) => table,
+        };
+        let mut places = Vec::with_capacity(columns.len());
+        for (name, role) in columns {
+            let place = table.columns.iter().position(|c| c == name).ok_or_else(|| {
+                Error::Input(format!(
+                    "{}: no column '{name}' (given as the {role} column); available columns: {}",
+                    table.name.display(),
+                    table.columns.join(", ")
+                ))
+            })?;
+            places.push(place);
+        }
+        let keys_cells = columns.iter().map(|(_, role)| keys_cells(role)).collect();
+        Ok(Input::Memory {
+            table: table.clone(),
+            columns: MemoryColumns { places, keys_cells },
+            batch_rows: batch_rows.max(1),
+        })
+    }
+
     /// Opens `path` (CSV fields separated by `delimiter`) to read `columns`,
     /// each given with its role for the message when it is missing.
     pub fn open(path: &Path, delimiter: u8, columns: &[(&str, &str)], batch_rows: usize) -> Result<Self> {
@@ -97,6 +214,31 @@ impl Input {
                     visit(InputBatch { file: file.path(), first_row_in_file: first_row, first_row, columns })
                 })
             }
+            Input::Memory { table, columns, batch_rows } => {
+                let mut first_row = 0;
+                for batch in &table.batches {
+                    for start in (0..batch.num_rows()).step_by(*batch_rows) {
+                        let rows = (*batch_rows).min(batch.num_rows() - start);
+                        let arrays = columns
+                            .places
+                            .iter()
+                            .zip(&columns.keys_cells)
+                            .map(|(&place, &keys)| {
+                                let array = batch.column(place).slice(start, rows);
+                                if keys {
+                                    as_cell_keys(&array)
+                                } else {
+                                    Ok(array)
+                                }
+                            })
+                            .collect::<Result<Vec<_>>>()?;
+                        let file = table.name.as_path();
+                        visit(InputBatch { file, first_row_in_file: first_row, first_row, columns: arrays })?;
+                        first_row += rows;
+                    }
+                }
+                Ok(())
+            }
         }
     }
 
@@ -114,6 +256,7 @@ impl Input {
                 }
                 RowPlace { file: PathBuf::new(), row_in_file: row }
             }
+            Input::Memory { table, .. } => RowPlace { file: table.name.clone(), row_in_file: row },
         }
     }
 
@@ -121,6 +264,7 @@ impl Input {
     pub fn known_rows(&self) -> Option<usize> {
         match self {
             Input::Parquet(parts) => Some(parts.files().map(|(_, rows)| rows).sum()),
+            Input::Memory { table, .. } => Some(table.rows()),
             Input::Csv { .. } => None,
         }
     }

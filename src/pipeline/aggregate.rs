@@ -144,7 +144,7 @@ impl<'a> SummedRows<'a> {
             _ => lead.extend(count_and_size(job)),
         }
         let first_segment = lead.len();
-        let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
+        let input = Input::open_source(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
         let totals = GroupTotals { integer_ids: true, ..Default::default() };
         Ok(SummedRows {
             input,
@@ -163,7 +163,7 @@ impl Source for SummedRows<'_> {
         let names = &job.columns;
         if let Aggregation::Standardised(standard) = &job.aggregation {
             self.rates = Some(ReferenceRates::of(job, standard)?);
-            clock.lap("reference-rates", "reference rates");
+            clock.lap("reference-rates", "reference rates")?;
         }
         let SummedRows { input, first_segment, totals, rejects, rates, .. } = self;
         let mut segment_index = SegmentIndex::default();
@@ -256,7 +256,7 @@ impl Source for SummedRows<'_> {
             }
             rows = batch.first_row + batch.rows();
             feed.send(batch_rows, group, place);
-            clock.rows("read and sum", rows, input.known_rows());
+            clock.rows("read and sum", rows, input.known_rows())?;
             Ok(())
         }));
         if let Some((over, batch)) = too_large {
@@ -268,7 +268,7 @@ impl Source for SummedRows<'_> {
         if rates.is_some() {
             no_area_without_expected_count(job, input, totals)?;
         }
-        clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()));
+        clock.lap("read-and-sum", &format!("read and sum ({} groups)", totals.len()))?;
         if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
             return Err(fault.error);
         }
@@ -309,7 +309,7 @@ impl Source for SummedRows<'_> {
     ) -> Result<(ShiftGroups, StagedOutputs)> {
         let (shift_groups, mut staged) =
             write_groups(job, (self.output, self.batch_rows), scored, &self.totals, placement)?;
-        clock.lap("score-and-write", "score and write");
+        clock.lap("score-and-write", "score and write")?;
         if let InvalidRows::Skip { rejects: path } = &job.invalid {
             let mut sink = TableSink::create(path)?;
             sink.write(self.rejects.take_columns(&reject_names(job)))?;

@@ -4,6 +4,7 @@
 //! observer's business, outside the pipeline; progress is looked at once per
 //! batch, never per row, and none of it changes an output.
 
+use crate::error::{Error, Result};
 use std::time::Instant;
 
 /// A phase that has ended.
@@ -37,12 +38,18 @@ pub struct RowsThrough<'a> {
 }
 
 /// Whoever watches a run: told of each phase as it ends and of the rows
-/// through the passes.
+/// through the passes, and asked at each whether the run should go on.
 pub trait RunObserver {
     /// A phase ended.
     fn phase_ended(&mut self, phase: &PhaseEnd<'_>);
     /// Rows went through a pass (once per batch).
     fn rows_through(&mut self, rows: &RowsThrough<'_>);
+    /// Whether the run should go on; asked after every phase and batch.
+    /// When it says no, the run ends with [`crate::error::Error::Interrupted`]
+    /// before anything is committed.
+    fn keep_going(&mut self) -> bool {
+        true
+    }
 }
 
 /// An observer that shows nothing.
@@ -76,8 +83,9 @@ impl<'a> PhaseClock<'a> {
         self.pairs = Some(pairs);
     }
 
-    /// Ends the current phase: `name` is its stable name, `description` its words.
-    pub(crate) fn lap(&mut self, name: &str, description: &str) {
+    /// Ends the current phase: `name` is its stable name, `description` its
+    /// words. An error when the observer asks the run to stop.
+    pub(crate) fn lap(&mut self, name: &str, description: &str) -> Result<()> {
         let now = Instant::now();
         self.observer.phase_ended(&PhaseEnd {
             name,
@@ -89,12 +97,23 @@ impl<'a> PhaseClock<'a> {
         });
         self.rows = None;
         self.last = now;
+        self.go_on()
     }
 
-    /// Within a phase: `done` of `total` rows (when known) are through.
-    pub(crate) fn rows(&mut self, phase: &str, done: usize, total: Option<usize>) {
+    fn go_on(&mut self) -> Result<()> {
+        if self.observer.keep_going() {
+            Ok(())
+        } else {
+            Err(Error::Interrupted)
+        }
+    }
+
+    /// Within a phase: `done` of `total` rows (when known) are through. An
+    /// error when the observer asks the run to stop.
+    pub(crate) fn rows(&mut self, phase: &str, done: usize, total: Option<usize>) -> Result<()> {
         self.rows = Some(done);
         let since_start = self.started.elapsed().as_secs_f64();
         self.observer.rows_through(&RowsThrough { phase, done, total, since_start });
+        self.go_on()
     }
 }

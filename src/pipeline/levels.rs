@@ -25,7 +25,7 @@ use crate::core::ranking::{posterior_fdr_flags, RankOrder};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
-use crate::io::input::{Input, InputBatch};
+use crate::io::input::{Input, InputBatch, TableSource};
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
 use crate::summary::{FlagReport, LevelReport, LevelSummary, TestReport};
 use arrow_array::{ArrayRef, Int64Array, StringArray};
@@ -41,7 +41,7 @@ pub const MODEL_NAME: &str = "dirichlet-multinomial";
 #[derive(Debug, Clone)]
 pub struct LevelJob {
     /// Input table.
-    pub input: PathBuf,
+    pub input: TableSource,
     /// Field separator of CSV input.
     pub delimiter: u8,
     /// The group id column.
@@ -204,7 +204,7 @@ pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
     }
     let mut columns = vec![(job.group.as_str(), "group")];
     columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
-    let input = Input::open(&job.input, job.delimiter, &columns, job.batch_rows)?;
+    let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
     let counted = count_vectors(job, &input)?;
     if counted.rows == 0 {
         return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
@@ -257,7 +257,7 @@ fn commit(job: &LevelJob, summary: &LevelSummary, mut staged: StagedOutputs) -> 
 /// (groups numbered in the order they first appear), then fitted, and one
 /// row written per group in that order.
 fn run_rating_rows(job: &LevelJob, outcome: &str, values: &[String]) -> Result<LevelSummary> {
-    let input = Input::open(
+    let input = Input::open_source(
         &job.input,
         job.delimiter,
         &[(&job.group, "group"), (outcome, "outcome")],
@@ -621,7 +621,7 @@ fn write_groups(
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, LevelRejects::default())),
         InvalidRows::Fail => None,
     };
-    let changed = || changed_between_passes(&job.input);
+    let changed = || changed_between_passes(job.input.name());
     let mut vector = Vec::with_capacity(job.levels.len());
     let mut seen = 0;
     input.for_each_batch(|batch| {

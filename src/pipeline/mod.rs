@@ -21,6 +21,7 @@ mod standardise;
 pub mod validate;
 
 use crate::error::{Error, Result};
+pub use crate::io::input::{MemoryTable, TableSource};
 use crate::summary::Summary;
 use std::path::{Path, PathBuf};
 use validate::ColumnNames;
@@ -265,7 +266,7 @@ pub enum CovariateRole {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Job {
     /// Input table.
-    pub input: PathBuf,
+    pub input: TableSource,
     /// Model.
     pub model: Model,
     /// Columns in play.

@@ -26,7 +26,8 @@ impl<'a> PairRows<'a> {
     pub(super) fn open(job: &Job, weights: &'a str) -> Result<Self> {
         let mut lead = vec![(weights, "group count")];
         lead.extend(count_and_size(job));
-        let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), DEFAULT_BATCH_ROWS)?;
+        let input =
+            Input::open_source(&job.input, job.delimiter, &input_columns(job, lead), DEFAULT_BATCH_ROWS)?;
         Ok(PairRows { input, weights })
     }
 }
@@ -55,7 +56,7 @@ impl Source for PairRows<'_> {
         if rows == 0 {
             return Ok(Counted::default());
         }
-        clock.lap("read-and-validate", "read and validate");
+        clock.lap("read-and-validate", "read and validate")?;
         Ok(Counted { pairs, segments: segments_met, rows, rejected: 0, covariates: None })
     }
 

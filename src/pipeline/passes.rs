@@ -175,7 +175,7 @@ impl<'a> GroupRows<'a> {
     pub(super) fn open(job: &Job, output: &'a Path, batch_rows: usize) -> Result<Self> {
         let mut lead = vec![(job.columns.group.as_str(), "group")];
         lead.extend(count_and_size(job));
-        let input = Input::open(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
+        let input = Input::open_source(&job.input, job.delimiter, &input_columns(job, lead), batch_rows)?;
         Ok(GroupRows { input, output, rows: 0, repeats: Repeats::default() })
     }
 }
@@ -183,13 +183,13 @@ impl<'a> GroupRows<'a> {
 impl Source for GroupRows<'_> {
     fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
         let mut first = count_pairs(job, &self.input, clock)?;
-        clock.lap("pass-1", "pass 1: read, validate, count pairs");
+        clock.lap("pass-1", "pass 1: read, validate, count pairs")?;
         if first.rows == 0 {
             return Ok(Counted::default());
         }
         self.rows = first.rows;
         self.repeats = find_repeats(job, &self.input, &mut first)?;
-        clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat");
+        clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat")?;
         if let Some(fault) = earliest_fault(job, &self.input, first.first_fault.take(), &self.repeats) {
             return Err(fault);
         }
@@ -218,7 +218,7 @@ impl Source for GroupRows<'_> {
             repeats,
         };
         let written = score_and_write(job, &self.input, scored, self.output, found, (clock, rows))?;
-        clock.lap("pass-2", "pass 2: read, score, write");
+        clock.lap("pass-2", "pass 2: read, score, write")?;
         Ok(written)
     }
 }
@@ -269,7 +269,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<P
             }
         }
         pass.rows = batch.first_row + batch.rows();
-        clock.rows("pass 1 of 2", pass.rows, total);
+        clock.rows("pass 1 of 2", pass.rows, total)?;
         Ok(())
     })?;
     Ok(pass)
@@ -457,7 +457,7 @@ fn score_and_write(
             if seen > rows {
                 return Err(changed_between_passes(batch.file));
             }
-            clock.rows("pass 2 of 2", seen, Some(rows));
+            clock.rows("pass 2 of 2", seen, Some(rows))?;
             Ok(())
         });
         drop(sender);
@@ -466,7 +466,7 @@ fn score_and_write(
         let sink = written?;
         produced?;
         if seen != rows {
-            return Err(changed_between_passes(&job.input));
+            return Err(changed_between_passes(job.input.name()));
         }
         sink.finish()
     })?;
@@ -494,7 +494,7 @@ mod tests {
 
     fn job(input: &Path, output: &Path) -> Job {
         Job {
-            input: input.to_path_buf(),
+            input: crate::io::input::TableSource::File(input.to_path_buf()),
             model: Model::BetaBinomial,
             columns: ColumnNames { group: "id".into(), count: "k".into(), size: "n".into() },
             layout: Layout::Groups { output: output.to_path_buf(), batch_rows: DEFAULT_BATCH_ROWS },

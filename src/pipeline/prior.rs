@@ -342,12 +342,12 @@ fn score_with<F: Family>(
     let priors = priors_in_use::<F>(job, &segments, &places.pairs, clock)?;
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
-    clock.lap("posteriors", "posteriors");
+    clock.lap("posteriors", "posteriors")?;
     let comparison = match (job.prior_shape, &job.prior) {
         (PriorShape::Free { .. }, PriorSource::Fit) => {
             let free = (&posteriors[..], &decisions);
             let comparison = compare_with_parametric::<F>(job, &segments, &places, free);
-            clock.lap("prior-comparison", "the parametric prior on the same data, for comparison");
+            clock.lap("prior-comparison", "the parametric prior on the same data, for comparison")?;
             Some(comparison)
         }
         _ => None,
@@ -507,7 +507,7 @@ fn priors_in_use<F: Family>(
     };
     let mut all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(all_table.pairs().len());
-    clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()));
+    clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()))?;
     // Corrected intervals of a fit: the median bias of each prior, by parametric bootstrap.
     let bootstrap = job.intervals == Intervals::Corrected && matches!(job.prior, PriorSource::Fit);
     if bootstrap {
@@ -526,10 +526,10 @@ fn priors_in_use<F: Family>(
         }
     }
     if segmented {
-        clock.lap("segment-fits", &format!("segment fits ({} segments)", segments.len()));
+        clock.lap("segment-fits", &format!("segment fits ({} segments)", segments.len()))?;
     }
     if bootstrap {
-        clock.lap("bootstrap", "median bias of the priors (parametric bootstrap)");
+        clock.lap("bootstrap", "median bias of the priors (parametric bootstrap)")?;
     }
     let biases: Vec<Option<[f64; 2]>> =
         choices.iter().map(|c| c.as_ref().map_or(all.fit.working_bias, |own| own.fit.working_bias)).collect();
@@ -595,13 +595,13 @@ fn covariate_priors_in_use<F: Family>(
     }
     let all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(pairs.len());
-    clock.lap("fit", &format!("fit without covariates ({} distinct pairs)", all_table.pairs().len()));
+    clock.lap("fit", &format!("fit without covariates ({} distinct pairs)", all_table.pairs().len()))?;
     let Some(plain_prior) = all.prior.parametric() else {
         return Err(Error::Usage("covariates do not combine with a free prior".to_string()));
     };
     let plain = PlainFit { prior: plain_prior, log_likelihood: all.log_likelihood, fit: &all.fit };
     let fitted = cell_priors::<F>(job, (table, pairs), plain, F::strength_unit(&all_table))?;
-    clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()));
+    clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()))?;
     Ok(PriorsInUse::of_covariates(all_table, all, fitted))
 }
 
@@ -618,7 +618,7 @@ fn score_covariates_with<F: Family>(
     let priors = covariate_priors_in_use::<F>(job, (table, &places.pairs), clock)?;
     let posteriors = posteriors_of::<F>(job, &priors, &places);
     let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
-    clock.lap("posteriors", "posteriors");
+    clock.lap("posteriors", "posteriors")?;
     Ok(scored_of::<F>(job, Vec::new(), priors, places, (posteriors, decisions)))
 }
 

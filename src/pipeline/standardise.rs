@@ -133,7 +133,7 @@ impl ReferenceRates {
         let mut columns =
             vec![(job.columns.count.as_str(), "events"), (standard.population.as_str(), "population")];
         columns.extend(standard.strata.iter().map(|c| (c.as_str(), STRATUM_ROLE)));
-        let input = Input::open(&job.input, job.delimiter, &columns, super::DEFAULT_BATCH_ROWS)?;
+        let input = Input::open_source(&job.input, job.delimiter, &columns, super::DEFAULT_BATCH_ROWS)?;
         // The strata met, and each one's (events, population).
         let mut index = SegmentIndex::default();
         let mut sums: Vec<(f64, f64)> = Vec::new();
