@@ -20,5 +20,6 @@ fi
 "$venv/bin/pip" install --quiet --disable-pip-version-check -r python/tests/requirements.txt
 PATH="$venv/bin:$PATH" MATURIN_PEP517_ARGS="--profile dev" \
   "$venv/bin/pip" install --quiet --disable-pip-version-check --no-build-isolation --force-reinstall --no-deps ./python
-RATEPOOL_REQUIRE_SPARK=1 RATEPOOL_BIN="$CARGO_TARGET_DIR/debug/ratepool" \
+# Spark's Python workers must run the environment's interpreter, which has pyarrow.
+PYSPARK_PYTHON="$venv/bin/python" RATEPOOL_REQUIRE_SPARK=1 RATEPOOL_BIN="$CARGO_TARGET_DIR/debug/ratepool" \
   "$venv/bin/python" -m pytest -q -p no:cacheprovider python/tests

@@ -161,7 +161,7 @@ pub enum Command {
         mut_arg("min_groups", |a| a.hide(true)),
         mut_arg("group", |a| a.long_help("Column holding the group id.")),
         mut_arg("output", |a| a.long_help(
-            "Output table (.csv or .parquet), written atomically: it appears complete or not at all."
+            "Output table (.csv, .parquet or .arrow, an Arrow IPC file), written atomically: it appears complete or not at all."
         ))
     )]
     Score(ScoreArgs),
@@ -606,9 +606,9 @@ pub struct TableArgs {
         help_heading = "Analysis"
     )]
     pub level: f64,
-    /// Output table (.csv or .parquet)
+    /// Output table (.csv, .parquet or .arrow)
     #[arg(
-        long_help = "Output table (.csv or .parquet), written atomically: it appears complete or not at all (not with --pair-counts, which writes only the summary).",
+        long_help = "Output table (.csv, .parquet or .arrow, an Arrow IPC file), written atomically: it appears complete or not at all (not with --pair-counts, which writes only the summary).",
         long,
         value_name = "FILE",
         help_heading = "Output"
@@ -1580,7 +1580,7 @@ impl Command {
             Command::Fit(args) if args.model == FitModel::LevelCounts => {
                 let mut job = level_job_of(args)?;
                 job.input = source(&args.table.input);
-                let summary = crate::pipeline::levels::run_levels(&job)?;
+                let summary = crate::pipeline::levels::run_levels(&job, observer)?;
                 let mut outputs = vec![job.output.clone()];
                 outputs.extend(args.table.rejects.clone());
                 outputs.extend(job.summary.clone());

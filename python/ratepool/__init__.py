@@ -70,11 +70,13 @@ def score(data: Any, prior: Union[str, os.PathLike, Dict[str, Any]], **options: 
     the `.summary` of an earlier `fit` result. The other options are those of
     `ratepool score`; `data` and the result are as for `fit`.
 
+    >>> import polars as pl
+    >>> sellers = pl.read_csv("demo-data/marketplace.csv")
     >>> prior = ratepool.fit(sellers, model="beta-binomial", group="seller_id",
     ...     successes="positive_ratings", trials="total_ratings").summary
-    >>> ratepool.score(new_sellers, prior=prior, group="seller_id",
+    >>> ratepool.score(sellers.head(100), prior=prior, group="seller_id",
     ...     successes="positive_ratings", trials="total_ratings").table.num_rows
-    20000
+    100
     """
     if isinstance(prior, dict):
         result = _engine.run("score", data, options, scratch=[("prior", json.dumps(prior))])
@@ -95,10 +97,12 @@ def fit_pairs(pairs: Any, weights: str, **options: Any) -> Result:
     weight, exceedance, ranks and flags decided over all the groups). Join it
     back to the rows on the pair's columns. Options as for `fit`.
 
-    >>> keys = duckdb.sql("SELECT positive_ratings, total_ratings, count(*) AS sellers "
-    ...                   "FROM 'demo-data/marketplace.csv' GROUP BY ALL").arrow()
-    >>> ratepool.fit_pairs(keys, weights="sellers", model="beta-binomial",
-    ...     successes="positive_ratings", trials="total_ratings").table.num_rows
-    3512
+    >>> import pyarrow.csv as pacsv
+    >>> rows = pacsv.read_csv("demo-data/marketplace.csv")
+    >>> keys = rows.group_by(["positive_ratings", "total_ratings"]).aggregate([([], "count_all")])
+    >>> scored = ratepool.fit_pairs(keys, weights="count_all", model="beta-binomial",
+    ...     successes="positive_ratings", trials="total_ratings")
+    >>> scored.table.num_rows == keys.num_rows, scored.table.column_names[2]
+    (True, 'group_count')
     """
     return _engine.run("fit", pairs, dict(options, pair_counts=weights), table_option="pair_output")

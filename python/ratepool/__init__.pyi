@@ -51,7 +51,7 @@ def fit(
     seed: Optional[int] = None,  # Seed of every random draw
     intervals: Optional[Literal['plug-in', 'corrected']] = None,  # Intervals plug-in (default) or corrected
     level: Optional[float] = None,  # Credible level, 0 to 1
-    output: Optional[Union[str, os.PathLike[str]]] = None,  # Output table (.csv or .parquet)
+    output: Optional[Union[str, os.PathLike[str]]] = None,  # Output table (.csv, .parquet or .arrow)
     pair_output: Optional[Union[str, os.PathLike[str]]] = None,  # Also write a pair table, to join back in SQL
     summary: Optional[Union[str, os.PathLike[str]]] = None,  # Summary file (JSON), written last
     report: Optional[Union[str, os.PathLike[str]]] = None,  # Also write the HTML report of the run
@@ -119,7 +119,7 @@ def score(
     log_format: Optional[Literal['text', 'json']] = None,  # How stderr speaks: text, or json for schedulers
     by: Optional[Union[str, Sequence[str]]] = None,  # Score each segment with its saved prior
     group: Optional[str] = None,  # Column holding the group id
-    output: Optional[Union[str, os.PathLike[str]]] = None,  # Output table (.csv or .parquet)
+    output: Optional[Union[str, os.PathLike[str]]] = None,  # Output table (.csv, .parquet or .arrow)
 ) -> Result: ...
 
 def fit_pairs(
@@ -161,7 +161,7 @@ def fit_pairs(
     seed: Optional[int] = None,  # Seed of every random draw
     intervals: Optional[Literal['plug-in', 'corrected']] = None,  # Intervals plug-in (default) or corrected
     level: Optional[float] = None,  # Credible level, 0 to 1
-    output: Optional[Union[str, os.PathLike[str]]] = None,  # Output table (.csv or .parquet)
+    output: Optional[Union[str, os.PathLike[str]]] = None,  # Output table (.csv, .parquet or .arrow)
     pair_output: Optional[Union[str, os.PathLike[str]]] = None,  # Also write a pair table, to join back in SQL
     summary: Optional[Union[str, os.PathLike[str]]] = None,  # Summary file (JSON), written last
     report: Optional[Union[str, os.PathLike[str]]] = None,  # Also write the HTML report of the run

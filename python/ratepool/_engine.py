@@ -1,8 +1,8 @@
 """How a Python call becomes a run of the engine: keyword options become the
 command line's own options (named as there, with `_` for `-`), the data
 becomes the run's input (a file path as is, anything else through the Arrow C
-stream interface), the output table goes to a temporary Parquet file that
-pyarrow reads back, and the engine's errors become the package's exceptions.
+stream interface), the output table goes to a temporary Arrow IPC file that
+pyarrow maps back, and the engine's errors become the package's exceptions.
 """
 
 from __future__ import annotations
@@ -159,7 +159,7 @@ def run(
     scratch: Sequence[Tuple[str, Any]] = (),
 ) -> Result:
     """Runs `subcommand` on `data` with the keyword options `given`; the
-    table is read from `table_option`'s file, a temporary Parquet file unless
+    table is read from `table_option`'s file, a temporary Arrow IPC file unless
     the caller named one. `scratch` holds (keyword, text) pairs written to
     temporary files whose paths are passed as those options."""
     given = dict(given)
@@ -171,7 +171,8 @@ def run(
             given[keyword] = path
         wanted = given.get(table_option)
         if wanted is None:
-            given[table_option] = os.path.join(folder, "table.parquet")
+            # An Arrow IPC file: read back by mapping it, no decoding.
+            given[table_option] = os.path.join(folder, "table.arrow")
         # A pair table's run writes only the summary, so it must have a file.
         scratch_summary = os.path.join(folder, "summary.json")
         if given.get("summary") is None:
@@ -194,9 +195,16 @@ def run(
 
 
 def _read_table(path: str) -> pa.Table:
-    if path.lower().endswith(".csv"):
+    lowered = path.lower()
+    if lowered.endswith(".csv"):
         import pyarrow.csv as pacsv
 
         return pacsv.read_csv(path)
+    if lowered.endswith(".arrow"):
+        if os.name == "posix":
+            # Mapped, not copied: the mapping outlives the file's removal.
+            return pa.ipc.open_file(pa.memory_map(path)).read_all()
+        with pa.OSFile(path) as source:
+            return pa.ipc.open_file(source).read_all()
     # Read whole into memory: the file may be in a folder about to be removed.
     return pq.read_table(path, memory_map=False)

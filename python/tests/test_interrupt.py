@@ -10,26 +10,33 @@ import time
 
 import numpy as np
 import pyarrow as pa
+import pytest
 
 import ratepool
 
+GROUPS = 3_000_000
 
-def test_a_keyboard_interrupt_stops_a_long_fit_and_writes_nothing(tmp_path):
-    groups = 3_000_000
+
+def groups(model: str):
     rng = np.random.default_rng(20261204)
-    trials = rng.integers(1, 200, groups)
-    table = pa.table({
-        "id": pa.array(np.arange(groups)),
-        "k": pa.array(rng.binomial(trials, 0.3)),
-        "n": pa.array(trials),
-    })
+    if model == "beta-binomial":
+        trials = rng.integers(1, 200, GROUPS)
+        table = pa.table({"id": np.arange(GROUPS), "k": rng.binomial(trials, 0.3), "n": trials})
+        return table, dict(successes="k", trials="n")
+    stars = {f"stars_{level}": rng.poisson(2.0 * level, GROUPS) for level in range(1, 6)}
+    return pa.table({"id": np.arange(GROUPS), **stars}), dict(level_counts=list(stars))
+
+
+@pytest.mark.parametrize("model", ["beta-binomial", "dirichlet-multinomial"])
+def test_a_keyboard_interrupt_stops_a_long_fit_and_writes_nothing(tmp_path, model):
+    table, columns = groups(model)
     output = tmp_path / "table.parquet"
     timer = threading.Timer(0.5, _thread.interrupt_main)
     started = time.monotonic()
     timer.start()
     try:
-        ratepool.fit(table, model="beta-binomial", group="id", successes="k", trials="n",
-                     batch_rows=10_000, output=str(output), summary=str(tmp_path / "s.json"))
+        ratepool.fit(table, model=model, group="id", **columns, batch_rows=10_000,
+                     output=str(output), summary=str(tmp_path / "s.json"))
     except KeyboardInterrupt:
         stopped = time.monotonic() - started
     else:

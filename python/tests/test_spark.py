@@ -4,6 +4,7 @@ column of every row equals the command line's output on the same rows."""
 from __future__ import annotations
 
 import os
+import sys
 
 import pandas as pd
 import pytest
@@ -22,6 +23,9 @@ import ratepool.spark  # noqa: E402
 @pytest.fixture(scope="module")
 def spark():
     from pyspark.sql import SparkSession
+
+    # Spark's Python workers run this interpreter, which has pyarrow.
+    os.environ.setdefault("PYSPARK_PYTHON", sys.executable)
 
     session = (
         SparkSession.builder.master("local[2]")
@@ -76,3 +80,22 @@ def test_a_missing_column_names_the_spark_frames_columns(spark):
     frame = spark.createDataFrame(pd.DataFrame({"id": ["a"], "k": [1], "n": [2]}))
     with pytest.raises(ratepool.InputError, match="available columns: id, k, n"):
         ratepool.spark.fit(frame, model="beta-binomial", group="id", successes="k", trials="trials")
+
+
+def test_the_spark_docstring_example_prints_what_it_shows(spark):
+    import doctest
+    import os
+
+    from conftest import ROOT
+
+    here = os.getcwd()
+    os.chdir(ROOT)
+    try:
+        finder = doctest.DocTestFinder()
+        runner = doctest.DocTestRunner(verbose=False)
+        for test in finder.find(ratepool.spark.fit, "fit", globs={"ratepool": ratepool}):
+            runner.run(test)
+    finally:
+        os.chdir(here)
+    results = runner.summarize(verbose=False)
+    assert results.attempted >= 4 and results.failed == 0

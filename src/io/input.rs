@@ -122,6 +122,18 @@ fn separator_hint(header: &[String]) -> String {
     }
 }
 
+/// An Arrow IPC file, read whole into memory (as written by `--output
+/// table.arrow`, so that the report can read it back).
+fn read_arrow_file(path: &Path) -> Result<MemoryTable> {
+    let cannot =
+        |e: &dyn std::fmt::Display| Error::Input(format!("{}: cannot read the table: {e}", path.display()));
+    let file = std::fs::File::open(path).map_err(|e| cannot(&e))?;
+    let reader = arrow_ipc::reader::FileReader::try_new_buffered(file, None).map_err(|e| cannot(&e))?;
+    let columns = reader.schema().fields().iter().map(|f| f.name().clone()).collect();
+    let batches = reader.collect::<std::result::Result<Vec<_>, _>>().map_err(|e| cannot(&e))?;
+    MemoryTable::new(&path.display().to_string(), columns, batches)
+}
+
 /// The text column `array` dictionary-encoded, as the Parquet reader hands
 /// over a text column that keys cells; any other column as it is.
 fn as_cell_keys(array: &ArrayRef) -> Result<ArrayRef> {
@@ -168,8 +180,16 @@ impl Input {
     /// Opens `path` (CSV fields separated by `delimiter`) to read `columns`,
     /// each given with its role for the message when it is missing.
     pub fn open(path: &Path, delimiter: u8, columns: &[(&str, &str)], batch_rows: usize) -> Result<Self> {
-        if path.is_dir() || TableFormat::from_path(path)? == TableFormat::Parquet {
-            return Ok(Input::Parquet(ParquetParts::open(path, columns, batch_rows)?));
+        let format = if path.is_dir() { TableFormat::Parquet } else { TableFormat::from_path(path)? };
+        match format {
+            TableFormat::Parquet => {
+                return Ok(Input::Parquet(ParquetParts::open(path, columns, batch_rows)?))
+            }
+            TableFormat::ArrowIpc => {
+                let table = Arc::new(read_arrow_file(path)?);
+                return Self::open_source(&TableSource::Memory(table), delimiter, columns, batch_rows);
+            }
+            TableFormat::Csv => {}
         }
         if !path.exists() {
             return Err(Error::Input(format!("{}: no such file", path.display())));

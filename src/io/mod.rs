@@ -25,17 +25,22 @@ pub enum TableFormat {
     Csv,
     /// Apache Parquet.
     Parquet,
+    /// The Arrow IPC file format (output only): columns as Arrow holds them
+    /// in memory, which a reader maps without decoding.
+    ArrowIpc,
 }
 
 impl TableFormat {
-    /// The format named by a path's extension (`.csv`, `.parquet` or `.pq`).
+    /// The format named by a path's extension (`.csv`, `.parquet` or `.pq`,
+    /// `.arrow`).
     pub fn from_path(path: &Path) -> Result<Self> {
         let extension = path.extension().and_then(|e| e.to_str()).map(str::to_ascii_lowercase);
         match extension.as_deref() {
             Some("csv") => Ok(TableFormat::Csv),
             Some("parquet") | Some("pq") => Ok(TableFormat::Parquet),
+            Some("arrow") => Ok(TableFormat::ArrowIpc),
             _ => Err(Error::Usage(format!(
-                "{}: unknown table format; use a .csv or .parquet file name",
+                "{}: unknown table format; use a .csv, .parquet or .arrow file name",
                 path.display()
             ))),
         }

@@ -1,7 +1,8 @@
 //! Output tables written batch by batch, always atomically: Parquet through
 //! arrow-rs's `ArrowWriter` (zstd, dictionary pages), CSV by [`CsvWriter`]
 //! (RFC 4180: comma-separated, text quoted where it must be, numbers in
-//! their shortest round-trip form, nulls empty).
+//! their shortest round-trip form, nulls empty), Arrow IPC files through
+//! arrow-rs's `FileWriter` (uncompressed: the columns as held in memory).
 //!
 //! arrow-rs carries the Parquet output because it measured faster and far
 //! leaner than polars' writer on output-shaped tables (see DEVELOPERS.md). Row groups hold a fixed
@@ -429,6 +430,33 @@ enum Writer {
     Parquet(Box<ParquetChunks>),
     Scored(Box<ScoredParquet>),
     Csv(CsvWriter),
+    ArrowIpc(Box<IpcWriter>),
+}
+
+/// An Arrow IPC file. Every field is nullable: a batch's columns decide
+/// nothing about the file's schema, which the first batch fixes.
+struct IpcWriter {
+    schema: SchemaRef,
+    writer: arrow_ipc::writer::FileWriter<BufWriter<File>>,
+}
+
+impl IpcWriter {
+    fn new(file: File, batch: &RecordBatch) -> std::result::Result<Self, arrow_schema::ArrowError> {
+        let fields: Vec<Field> =
+            batch.schema().fields().iter().map(|f| f.as_ref().clone().with_nullable(true)).collect();
+        let schema = Arc::new(Schema::new(fields));
+        let writer = arrow_ipc::writer::FileWriter::try_new(BufWriter::new(file), &schema)?;
+        Ok(IpcWriter { schema, writer })
+    }
+
+    fn write(&mut self, batch: RecordBatch) -> std::result::Result<(), arrow_schema::ArrowError> {
+        self.writer.write(&RecordBatch::try_new(self.schema.clone(), batch.columns().to_vec())?)
+    }
+
+    fn finish(mut self) -> std::result::Result<(), arrow_schema::ArrowError> {
+        self.writer.finish()?;
+        self.writer.get_mut().flush().map_err(arrow_schema::ArrowError::from)
+    }
 }
 
 /// An output table being written; [`TableSink::finish`] completes it for
@@ -491,7 +519,7 @@ impl TableSink {
         let path = self.file.target().to_path_buf();
         let pair_columns =
             self.pair_columns.clone().ok_or_else(|| write_error(&path, "not a scored table"))?;
-        if self.format == TableFormat::Csv {
+        if self.format != TableFormat::Parquet {
             let mut columns: Columns =
                 row_columns.into_iter().map(|(name, values)| (name, ColumnValues::Arrow(values))).collect();
             columns.extend(
@@ -543,6 +571,16 @@ impl TableSink {
                     writer.write(&batch).map_err(|e| write_error(&path, e))?;
                 }
             }
+            TableFormat::ArrowIpc => {
+                if self.writer.is_none() {
+                    let writer =
+                        IpcWriter::new(self.file.handle()?, &batch).map_err(|e| write_error(&path, e))?;
+                    self.writer = Some(Writer::ArrowIpc(Box::new(writer)));
+                }
+                if let Some(Writer::ArrowIpc(writer)) = &mut self.writer {
+                    writer.write(batch).map_err(|e| write_error(&path, e))?;
+                }
+            }
         }
         Ok(())
     }
@@ -556,6 +594,7 @@ impl TableSink {
             }
             Some(Writer::Scored(writer)) => writer.close().map_err(|e| write_error(&path, e))?,
             Some(Writer::Csv(writer)) => writer.finish().map_err(|e| write_error(&path, e))?,
+            Some(Writer::ArrowIpc(writer)) => writer.finish().map_err(|e| write_error(&path, e))?,
             None => return Err(Error::Other(format!("{}: no rows were given to write", path.display()))),
         }
         self.file.seal()

@@ -61,6 +61,15 @@ impl RunObserver for Unwatched {
     fn rows_through(&mut self, _: &RowsThrough<'_>) {}
 }
 
+/// Ok while `observer` lets the run go on; [`Error::Interrupted`] once it asks it to stop.
+pub(crate) fn go_on(observer: &mut dyn RunObserver) -> Result<()> {
+    if observer.keep_going() {
+        Ok(())
+    } else {
+        Err(Error::Interrupted)
+    }
+}
+
 /// The phase clock of one run.
 pub(crate) struct PhaseClock<'a> {
     observer: &'a mut dyn RunObserver,
@@ -101,11 +110,7 @@ impl<'a> PhaseClock<'a> {
     }
 
     fn go_on(&mut self) -> Result<()> {
-        if self.observer.keep_going() {
-            Ok(())
-        } else {
-            Err(Error::Interrupted)
-        }
+        go_on(self.observer)
     }
 
     /// Within a phase: `done` of `total` rows (when known) are through. An

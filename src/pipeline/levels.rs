@@ -10,10 +10,12 @@
 //! posterior. Every output is staged and renamed into place at the end,
 //! all or nothing.
 
+use super::clock::go_on;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
 use super::scoring::{pull_report, rank_columns};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
+use super::RunObserver;
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
 use crate::core::diagnostics::PairOutcome;
 use crate::core::model::dirichlet_multinomial::{
@@ -197,15 +199,16 @@ struct Counted {
     repeats: Repeats,
 }
 
-/// Runs a star-rating job: reads, fits, scores, writes. Returns the summary.
-pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
+/// Runs a star-rating job: reads, fits, scores, writes. Returns the
+/// summary. `observer` is asked at every batch whether to go on.
+pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<LevelSummary> {
     if let Some((outcome, values)) = &job.outcome {
-        return run_rating_rows(job, outcome, values);
+        return run_rating_rows(job, outcome, values, observer);
     }
     let mut columns = vec![(job.group.as_str(), "group")];
     columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
     let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
-    let counted = count_vectors(job, &input)?;
+    let counted = count_vectors(job, &input, observer)?;
     if counted.rows == 0 {
         return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
     }
@@ -217,7 +220,8 @@ pub fn run_levels(job: &LevelJob) -> Result<LevelSummary> {
     let (mut summary, columns, furthest) = fit_and_score(job, table, (counted.rows, counted.rejected))?;
     let mut staged = StagedOutputs::default();
     let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
-    summary.pull.max_shift_group = write_groups(job, &input, columns, (found, furthest), &mut staged)?;
+    summary.pull.max_shift_group =
+        write_groups(job, &input, columns, (found, furthest), (&mut staged, observer))?;
     commit(job, &summary, staged)?;
     Ok(summary)
 }
@@ -256,7 +260,12 @@ fn commit(job: &LevelJob, summary: &LevelSummary, mut staged: StagedOutputs) -> 
 /// One row per rating: each group's ratings counted per level in one pass
 /// (groups numbered in the order they first appear), then fitted, and one
 /// row written per group in that order.
-fn run_rating_rows(job: &LevelJob, outcome: &str, values: &[String]) -> Result<LevelSummary> {
+fn run_rating_rows(
+    job: &LevelJob,
+    outcome: &str,
+    values: &[String],
+    observer: &mut dyn RunObserver,
+) -> Result<LevelSummary> {
     let input = Input::open_source(
         &job.input,
         job.delimiter,
@@ -273,6 +282,7 @@ fn run_rating_rows(job: &LevelJob, outcome: &str, values: &[String]) -> Result<L
         InvalidRows::Fail => None,
     };
     input.for_each_batch(|batch| {
+        go_on(observer)?;
         let group = GroupColumn::of(&batch.columns[0])?;
         integer_ids &= matches!(group, GroupColumn::Integers(_));
         for row in 0..batch.rows() {
@@ -396,11 +406,12 @@ fn describe_failure(job: &LevelJob, failure: &LevelFitFailure) -> String {
 }
 
 /// Pass 1 (and the repeated-id check): the distinct vectors of the valid rows.
-fn count_vectors(job: &LevelJob, input: &Input) -> Result<Counted> {
+fn count_vectors(job: &LevelJob, input: &Input, observer: &mut dyn RunObserver) -> Result<Counted> {
     let mut counted = Counted { vectors: VectorIndex::new(job.levels.len()), ..Counted::default() };
     let mut ids = IdHashes::new(job.id_memory, input.known_rows().unwrap_or(0));
     let mut vector = Vec::with_capacity(job.levels.len());
     input.for_each_batch(|batch| {
+        go_on(observer)?;
         let view = LevelBatch::of(&batch)?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
@@ -612,7 +623,7 @@ fn write_groups(
     input: &Input,
     columns: PairColumns,
     (found, furthest): (Found, Option<u32>),
-    staged: &mut StagedOutputs,
+    (staged, observer): (&mut StagedOutputs, &mut dyn RunObserver),
 ) -> Result<Option<String>> {
     let Found { vectors, place, repeats, rows } = found;
     let mut furthest_group = None;
@@ -625,6 +636,7 @@ fn write_groups(
     let mut vector = Vec::with_capacity(job.levels.len());
     let mut seen = 0;
     input.for_each_batch(|batch| {
+        go_on(observer)?;
         let view = LevelBatch::of(&batch)?;
         let (mut kept, mut vector_of_row) = (Vec::new(), Vec::new());
         for row in 0..batch.rows() {

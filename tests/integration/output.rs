@@ -1,7 +1,7 @@
-//! The Parquet output holds exactly the values of the CSV output, read back
-//! with arrow-rs's reader: nulls where the raw rate or the posterior
-//! parameters are absent, several row groups and data pages, and a table
-//! under complete pooling.
+//! The Parquet and Arrow IPC outputs hold exactly the values of the CSV
+//! output, read back with arrow-rs's readers: nulls where the raw rate or the
+//! posterior parameters are absent, several row groups and data pages, and a
+//! table under complete pooling.
 
 use crate::util::{fixture, ratepool, stderr, Csv};
 use arrow_array::cast::AsArray;
@@ -10,6 +10,12 @@ use arrow_array::{Array, RecordBatch};
 use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 use std::path::Path;
+
+/// Every batch of an Arrow IPC file.
+fn read_arrow(path: &Path) -> Vec<RecordBatch> {
+    let file = std::fs::File::open(path).unwrap();
+    arrow_ipc::reader::FileReader::try_new(file, None).unwrap().map(Result::unwrap).collect()
+}
 
 /// Every batch of a Parquet file.
 fn read_parquet(path: &Path) -> Vec<RecordBatch> {
@@ -44,7 +50,7 @@ fn cells(batches: &[RecordBatch]) -> (Vec<String>, Vec<Vec<String>>) {
 
 fn assert_parquet_matches_csv(input: &Path, model_args: &[&str]) {
     let dir = tempfile::tempdir().unwrap();
-    for output in ["out.csv", "out.parquet"] {
+    for output in ["out.csv", "out.parquet", "out.arrow"] {
         let mut args = vec!["--quiet", "fit", "--input", input.to_str().unwrap()];
         args.extend(model_args);
         args.extend(["--output", output]);
@@ -52,11 +58,15 @@ fn assert_parquet_matches_csv(input: &Path, model_args: &[&str]) {
         assert!(out.status.success(), "{}", stderr(&out));
     }
     let csv = Csv::read(&dir.path().join("out.csv"));
-    let (header, rows) = cells(&read_parquet(&dir.path().join("out.parquet")));
-    assert_eq!(header, csv.header);
-    assert_eq!(rows.len(), csv.rows.len());
-    for (i, (got, expected)) in rows.iter().zip(&csv.rows).enumerate() {
-        assert_eq!(got, expected, "row {}", i + 1);
+    let parquet = read_parquet(&dir.path().join("out.parquet"));
+    let arrow = read_arrow(&dir.path().join("out.arrow"));
+    for (format, batches) in [("parquet", parquet), ("arrow", arrow)] {
+        let (header, rows) = cells(&batches);
+        assert_eq!(header, csv.header, "{format}");
+        assert_eq!(rows.len(), csv.rows.len(), "{format}");
+        for (i, (got, expected)) in rows.iter().zip(&csv.rows).enumerate() {
+            assert_eq!(got, expected, "{format}: row {}", i + 1);
+        }
     }
 }
 

@@ -60,6 +60,18 @@ fn fit_with_report_and_report_later_give_the_same_self_contained_page() {
     }
 }
 
+#[test]
+fn the_report_of_an_arrow_ipc_table_is_the_report_of_its_parquet_twin() {
+    let dir = tempfile::tempdir().unwrap();
+    for table in ["d.parquet", "d.arrow"] {
+        let page = format!("{table}.html");
+        let out = districts(dir.path(), table, &["--report", &page]);
+        assert!(out.status.success(), "{}", stderr(&out));
+    }
+    let page = |name: &str| read(dir.path(), name).replace(name.trim_end_matches(".html"), "TABLE");
+    assert_eq!(page("d.parquet.html"), page("d.arrow.html"));
+}
+
 /// The group in the first row of the table under the heading `title`.
 fn first_group<'a>(page: &'a str, title: &str) -> &'a str {
     let section = &page[page.find(&format!("<h3>{title}</h3>")).unwrap()..];
