@@ -109,7 +109,10 @@ impl Cli {
             Command::Fit(args) => Some(&args.table.run),
             Command::Score(args) => Some(&args.table.run),
             Command::Report(args) => Some(&args.run),
-            Command::CheckConfig(_) | Command::Completions { .. } | Command::Manpage => None,
+            Command::CheckConfig(_)
+            | Command::Neighbours(_)
+            | Command::Completions { .. }
+            | Command::Manpage => None,
         };
         later.map_or_else(|| self.run.clone(), |later| self.run.with(later))
     }
@@ -168,6 +171,15 @@ pub enum Command {
     /// Write the HTML report of a run from its table and summary.
     #[command(after_help = SHORT_AFTER, after_long_help = REPORT_AFTER)]
     Report(ReportArgs),
+    /// Derive the neighbour table of a map's areas.
+    ///
+    /// Derive the neighbour table of a map's areas (GeoJSON): one row per pair of areas whose boundaries share a point (queen, the default) or a stretch of boundary (--rook), in two columns, area and neighbour.
+    #[command(
+        after_help = SHORT_AFTER,
+        after_long_help = NEIGHBOURS_AFTER,
+        override_usage = "ratepool neighbours --map <FILE> --key <PROPERTY> --output <FILE>\n       [--rook]"
+    )]
+    Neighbours(NeighboursArgs),
     /// Check a job file (--config) without running it.
     ///
     /// Check a job file (--config) without running it, naming the key and line of each mistake.
@@ -239,6 +251,14 @@ macro_rules! report_examples {
     };
 }
 
+macro_rules! neighbours_examples {
+    () => {
+        "Example (from the repository root, on the North Carolina counties of the test fixtures):
+  ratepool neighbours --map tests/fixtures/neighbours/nc_counties.geojson \\
+    --key county --output county_neighbours.csv"
+    };
+}
+
 macro_rules! check_examples {
     () => {
         "Example (from the repository root):
@@ -249,16 +269,18 @@ macro_rules! check_examples {
 /// The exit status, in `--help` and the manual page.
 pub const EXIT_STATUS: &str = exit_status!();
 /// The worked examples of each subcommand, in its `--help` and the manual page (a test runs them).
-pub const EXAMPLES: [(&str, &str); 4] = [
+pub const EXAMPLES: [(&str, &str); 5] = [
     ("fit", fit_examples!()),
     ("score", score_examples!()),
     ("report", report_examples!()),
+    ("neighbours", neighbours_examples!()),
     ("check-config", check_examples!()),
 ];
 const FIT_AFTER: &str = concat!(fit_examples!(), "\n\n", exit_status!());
 const SCORE_AFTER: &str = concat!(score_examples!(), "\n\n", exit_status!());
 const REPORT_AFTER: &str = concat!(report_examples!(), "\n\n", exit_status!());
 const CHECK_AFTER: &str = concat!(check_examples!(), "\n\n", exit_status!());
+const NEIGHBOURS_AFTER: &str = concat!(neighbours_examples!(), "\n\n", exit_status!());
 
 /// Options of `check-config`.
 #[derive(Debug, Args)]
@@ -269,6 +291,38 @@ pub struct CheckConfigArgs {
     /// fit or score (default: its `command` key, else fit).
     #[arg(long, value_name = "COMMAND", value_parser = ["fit", "score"], hide_possible_values = true)]
     pub command: Option<String>,
+}
+
+/// Options of `neighbours`.
+#[derive(Debug, Args)]
+pub struct NeighboursArgs {
+    /// The map (GeoJSON)
+    #[arg(
+        long_help = "The map: a GeoJSON FeatureCollection whose features are the areas, each a Polygon or a MultiPolygon.",
+        long,
+        value_name = "FILE"
+    )]
+    pub map: PathBuf,
+    /// The property that names each area
+    #[arg(
+        long_help = "The property of each feature that names its area, as the group column of a fit does; each area's must be different.",
+        long,
+        value_name = "PROPERTY"
+    )]
+    pub key: String,
+    /// Neighbours share an edge, not just a point
+    #[arg(
+        long_help = "Areas are neighbours when their boundaries share a stretch of boundary (rook contiguity), not just a point (queen contiguity, the default).",
+        long
+    )]
+    pub rook: bool,
+    /// The table (.csv, .parquet or .arrow)
+    #[arg(
+        long_help = "Where the table goes (.csv, .parquet or .arrow), written atomically: columns `area` and `neighbour`, each pair once with the smaller first (as the areas appear on the map).",
+        long,
+        value_name = "FILE"
+    )]
+    pub output: PathBuf,
 }
 
 /// Options of `report`.
@@ -1389,6 +1443,43 @@ fn run_report(args: &ReportArgs) -> Result<()> {
     })
 }
 
+/// `neighbours`: the map's areas, their neighbour pairs written as a table;
+/// returns what was found, in words.
+fn run_neighbours(args: &NeighboursArgs) -> Result<String> {
+    use crate::core::contiguity::{neighbour_pairs, Contiguity};
+    use crate::io::sink::{write_table, ColumnValues};
+    let inputs = [RunPath { option: "--map", path: &args.map }];
+    let outputs = [RunPath { option: "--output", path: &args.output }];
+    crate::io::overlap::refuse_overlaps(&inputs, &outputs)?;
+    crate::io::TableFormat::from_path(&args.output)?;
+    let areas = crate::io::geojson::read_map(&args.map, &args.key)?;
+    let (rule, word) = if args.rook { (Contiguity::Rook, "rook") } else { (Contiguity::Queen, "queen") };
+    let rings: Vec<_> = areas.iter().map(|a| a.rings.clone()).collect();
+    let pairs = neighbour_pairs(&rings, rule);
+    let mut alone = vec![true; areas.len()];
+    for &(a, b) in &pairs {
+        alone[a as usize] = false;
+        alone[b as usize] = false;
+    }
+    let text = |pick: fn(&(u32, u32)) -> u32| -> ColumnValues {
+        let keys: arrow_array::StringArray =
+            pairs.iter().map(|p| Some(areas[pick(p) as usize].key.as_str())).collect();
+        ColumnValues::Arrow(std::sync::Arc::new(keys))
+    };
+    let columns = vec![("area".to_string(), text(|p| p.0)), ("neighbour".to_string(), text(|p| p.1))];
+    let mut staged = crate::io::atomic::StagedOutputs::default();
+    staged.add(write_table(columns, &args.output, Vec::new())?);
+    staged.commit()?;
+    let isolated: Vec<&str> =
+        areas.iter().zip(&alone).filter(|(_, &alone)| alone).map(|(a, _)| a.key.as_str()).collect();
+    let plural = if pairs.len() == 1 { "pair" } else { "pairs" };
+    let mut words = format!("{} areas, {} neighbour {plural} ({word} contiguity)", areas.len(), pairs.len());
+    if !isolated.is_empty() {
+        words.push_str(&format!("; {} without neighbours: {}", isolated.len(), isolated.join(", ")));
+    }
+    Ok(words)
+}
+
 /// The star-rating job of `fit --model dirichlet-multinomial`: its columns
 /// and scores checked, and every option it does not (yet) take refused by name.
 fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
@@ -1566,6 +1657,10 @@ impl Command {
                 println!("{}", check_job_file(&args.file, args.command.as_deref())?);
                 return Ok(Outcome { summary: None, levels: None, outputs: Vec::new() });
             }
+            Command::Neighbours(args) => {
+                println!("{}", run_neighbours(args)?);
+                return Ok(Outcome { summary: None, levels: None, outputs: vec![args.output.clone()] });
+            }
             Command::Completions { shell } => {
                 use clap::CommandFactory;
                 let mut text = Vec::new();
@@ -1621,9 +1716,11 @@ impl Command {
     /// Validates the arguments into a job (reading the prior file for `score`).
     pub fn into_job(self) -> Result<Job> {
         match self {
-            Command::Report(_) | Command::CheckConfig(_) | Command::Completions { .. } | Command::Manpage => {
-                Err(Error::Usage("this command runs no fit".to_string()))
-            }
+            Command::Report(_)
+            | Command::Neighbours(_)
+            | Command::CheckConfig(_)
+            | Command::Completions { .. }
+            | Command::Manpage => Err(Error::Usage("this command runs no fit".to_string())),
             Command::Fit(args) => {
                 refuse_overlaps(&args.table, None)?;
                 let FitModel::Pairs(model) = args.model else {

@@ -3,6 +3,7 @@
 //! summaries. Nothing here reads or writes files.
 
 pub mod bootstrap;
+pub mod contiguity;
 pub mod dense;
 pub mod diagnostics;
 pub mod fit;

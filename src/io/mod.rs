@@ -8,6 +8,7 @@ pub mod atomic;
 pub mod batch;
 pub mod cells;
 pub mod csv_input;
+pub mod geojson;
 pub mod guard;
 pub mod input;
 pub mod overlap;

@@ -438,8 +438,9 @@ fn every_worked_example_in_the_help_runs_on_the_demo_data() {
     let dir = tempfile::tempdir().unwrap();
     let root = Path::new(env!("CARGO_MANIFEST_DIR"));
     std::os::unix::fs::symlink(root.join("demo-data"), dir.path().join("demo-data")).unwrap();
+    std::os::unix::fs::symlink(root.join("tests"), dir.path().join("tests")).unwrap();
     let mut ran = 0;
-    for subcommand in ["fit", "score", "report", "check-config"] {
+    for subcommand in ["fit", "score", "report", "neighbours", "check-config"] {
         for args in help_examples(subcommand) {
             let args: Vec<&str> = args.iter().map(String::as_str).collect();
             let out = ratepool(dir.path(), &[&["--quiet"], &args[..]].concat());
@@ -447,8 +448,9 @@ fn every_worked_example_in_the_help_runs_on_the_demo_data() {
             ran += 1;
         }
     }
-    assert_eq!(ran, 7);
+    assert_eq!(ran, 8);
     let written = [
+        "county_neighbours.csv",
         "sellers.parquet",
         "districts.html",
         "profiles.parquet",

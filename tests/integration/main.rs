@@ -17,6 +17,7 @@ mod free_prior;
 mod fuzz_corpus;
 mod levels;
 mod logs;
+mod neighbours;
 mod no_overwrite;
 mod normal;
 mod output;

@@ -148,7 +148,8 @@ fn help_at_80(args: &[&str]) -> String {
     String::from_utf8(out.stdout).unwrap()
 }
 
-const SUBCOMMANDS: [&str; 7] = ["", "fit", "score", "report", "check-config", "completions", "manpage"];
+const SUBCOMMANDS: [&str; 8] =
+    ["", "fit", "score", "report", "neighbours", "check-config", "completions", "manpage"];
 
 #[test]
 fn help_fits_80_columns_and_short_help_gives_each_option_one_line() {
@@ -179,7 +180,7 @@ fn help_fits_80_columns_and_short_help_gives_each_option_one_line() {
 
 #[test]
 fn long_help_and_the_manual_page_give_the_exit_status_and_the_examples() {
-    for sub in ["", "fit", "score", "report", "check-config"] {
+    for sub in ["", "fit", "score", "report", "neighbours", "check-config"] {
         let args: Vec<&str> = [sub, "--help"].into_iter().filter(|s| !s.is_empty()).collect();
         let help = help_at_80(&args);
         assert!(help.contains("Exit status:"), "{sub}");
@@ -219,7 +220,7 @@ fn placeholders_say_what_kind_of_value_and_the_model_comes_first() {
         "METHOD",
         "SHAPE",
     ];
-    let kinds = [&kinds[..], &["ACTION", "FORMAT", "SHELL", "COMMAND"]].concat();
+    let kinds = [&kinds[..], &["ACTION", "FORMAT", "SHELL", "COMMAND", "PROPERTY"]].concat();
     for sub in SUBCOMMANDS {
         let args: Vec<&str> = [sub, "--help"].into_iter().filter(|s| !s.is_empty()).collect();
         let help = help_at_80(&args);

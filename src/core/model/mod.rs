@@ -15,6 +15,7 @@ pub mod beta_binomial;
 pub mod dirichlet_multinomial;
 pub mod free;
 pub mod gamma_poisson;
+pub mod neighbourhood;
 pub mod normal_normal;
 
 use crate::core::pairs::{PairTable, WeightedPair};
