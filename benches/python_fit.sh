@@ -8,6 +8,8 @@
 # the Parquet read into polars included), and the `ratepool.fit` call alone
 # (benches/python_fit.py), which is what a notebook holding the frame pays;
 # the script fails when the call alone takes more than 1.5 x the command line.
+# Last, the driver's share of ratepool.spark.fit: fit_pairs on the key table
+# of the same rows (benches/python_fit_pairs.py).
 #
 # usage: benches/python_fit.sh [GROUPS]        default: 10000000
 # env:   RUNS (3), PYTHON (python3, with numpy and pyarrow to generate the input),
@@ -44,3 +46,5 @@ call = statistics.median(float(l) for l in open(sys.argv[2]))
 print(f"ratepool.fit call alone: median {call:.2f} s, {call / cli:.2f} x the command line's {cli:.2f} s")
 sys.exit(0 if call <= 1.5 * cli else "the call alone takes more than 1.5 x the command line")
 CHECK
+# The driver's share of ratepool.spark.fit: fit_pairs on the rows' key table.
+"$venv/bin/python" benches/python_fit_pairs.py "$input" "$runs"
