@@ -47,6 +47,14 @@ star_sellers.csv  2,000 invented sellers' star ratings, one count column per
                  ratings per seller lognormal (median 12, from 0 to a few
                  hundred); seller-0007 has three five-star ratings and
                  seller-0042 has 800 ratings averaging 4.72.
+district_map.geojson  the map of the 400 districts of district_bands.csv: an
+                 invented region of 20 x 20 hexagons (4 km from centre to
+                 corner, coordinates in km, no randomness), each a Polygon
+                 keyed by `district_id`. The hidden hot spot's twelve
+                 districts (district-0101 to district-0112) are the twelve
+                 cells nearest the cell in column 13 of row 7, so they lie
+                 together; the other districts fill the remaining cells in
+                 row order. Neighbouring hexagons share their corners exactly.
 No real people, sellers, brands or places are represented.
 """
 
@@ -177,6 +185,41 @@ def district_bands():
     (OUT / "district_bands.csv").write_text("\n".join(lines) + "\n")
 
 
+def district_map():
+    import json
+
+    columns, rows, radius = 20, 20, 4.0
+    # Pointy-top hexagons on an integer lattice (odd rows shifted half a cell):
+    # a cell's centre is (2 col + row % 2, 3 row) and its corners are the
+    # lattice points around it, so neighbours compute the same corners exactly.
+    corners = [(0, 2), (1, 1), (1, -1), (0, -2), (-1, -1), (-1, 1)]
+    unit_x, unit_y = radius * np.sqrt(3.0) / 2.0, radius / 2.0
+    cells = [(col, row) for row in range(rows) for col in range(columns)]
+
+    def cube(col, row):
+        x = col - (row - (row & 1)) // 2
+        return x, row, -x - row
+
+    def distance(a, b):
+        return max(abs(u - v) for u, v in zip(cube(*a), cube(*b)))
+
+    centre = (13, 7)
+    hot = sorted(cells, key=lambda c: (distance(c, centre), c[1], c[0]))[:12]
+    others = iter(c for c in cells if c not in hot)
+    ids = {}
+    for number in range(1, columns * rows + 1):
+        ids[hot[number - 101] if 101 <= number <= 112 else next(others)] = f"district-{number:04d}"
+    features = []
+    for (col, row), district in sorted(ids.items(), key=lambda item: item[1]):
+        cx, cy = 2 * col + (row & 1), 3 * row
+        ring = [[round((cx + dx) * unit_x, 4), round((cy + dy) * unit_y, 4)] for dx, dy in corners]
+        ring.append(ring[0])
+        features.append({"type": "Feature", "properties": {"district_id": district},
+                         "geometry": {"type": "Polygon", "coordinates": [ring]}})
+    text = json.dumps({"type": "FeatureCollection", "features": features}, separators=(",", ":"))
+    (OUT / "district_map.geojson").write_text(text + "\n")
+
+
 def storefronts():
     rng = np.random.default_rng(20261208)
     count = 3_000
@@ -214,6 +257,7 @@ def main():
     sellers()
     district_profiles()
     district_bands()
+    district_map()
     storefronts()
     star_sellers()
 

@@ -166,3 +166,48 @@ fn a_map_that_is_not_one_is_refused_by_feature_and_nothing_is_written() {
     );
     assert_eq!(std::fs::read_to_string(dir.path().join("pairs.csv")).unwrap(), "area,neighbour\na,b\n");
 }
+
+#[test]
+fn the_demo_district_map_is_a_hexagon_grid_with_its_hot_spot_in_one_piece() {
+    let dir = tempfile::tempdir().unwrap();
+    let map = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/district_map.geojson");
+    let mut tables = Vec::new();
+    for (output, extra) in [("queen.csv", None), ("rook.csv", Some("--rook"))] {
+        let mut args =
+            vec!["neighbours", "--map", map.to_str().unwrap(), "--key", "district_id", "--output", output];
+        args.extend(extra);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        if extra.is_none() {
+            // As the README quotes it.
+            let printed = String::from_utf8(out.stdout).unwrap();
+            assert_eq!(printed.trim(), "400 areas, 1121 neighbour pairs (queen contiguity)");
+        }
+        tables.push(Csv::read(&dir.path().join(output)).rows);
+    }
+    // Hexagons meet only along edges, so queen and rook agree; a 20 x 20 grid of
+    // them (odd rows shifted) has 19 x 20 pairs within rows and 19 x 39 between.
+    assert_eq!(tables[0], tables[1]);
+    let pairs = &tables[0];
+    assert_eq!(pairs.len(), 19 * 20 + 19 * 39);
+    let mut count: HashMap<&str, usize> = HashMap::new();
+    for pair in pairs {
+        *count.entry(&pair[0]).or_default() += 1;
+        *count.entry(&pair[1]).or_default() += 1;
+    }
+    assert_eq!(count.len(), 400);
+    assert_eq!(count.values().max(), Some(&6));
+    // The hidden hot spot (district-0101 to district-0112) is one connected patch.
+    let hot = |id: &str| ("district-0101".."district-0113").contains(&id);
+    let inside: Vec<&Vec<String>> = pairs.iter().filter(|p| hot(&p[0]) && hot(&p[1])).collect();
+    let mut reached = vec!["district-0101"];
+    while let Some(next) = inside
+        .iter()
+        .flat_map(|p| [(&p[0], &p[1]), (&p[1], &p[0])])
+        .find(|(a, b)| reached.contains(&a.as_str()) && !reached.contains(&b.as_str()))
+        .map(|(_, b)| b.as_str())
+    {
+        reached.push(next);
+    }
+    assert_eq!(reached.len(), 12, "{reached:?}");
+}
