@@ -64,6 +64,20 @@ def _key_columns(model: str, by: Union[None, str, Sequence[str]], options: Dict[
     return segments + counts
 
 
+def _about_rows(error: InputError, key_table: pa.Table, keys: List[str]) -> InputError:
+    """A bad value of the key table named by the rows it stands for: their
+    key and how many there are (a row of the key table means nothing to the
+    caller, whose rows are on the cluster)."""
+    if error.index is None:
+        return error
+    key = key_table.slice(error.index, 1).to_pylist()[0]
+    described = ", ".join(f"{name}={key[name]!r}" for name in keys)
+    rows = key[_WEIGHTS]
+    message = (f"the {rows} row{'s' if rows != 1 else ''} with {described}: "
+               f"column '{error.column}': {error.reason}")
+    return InputError(message, column=error.column, reason=error.reason)
+
+
 def _to_arrow(frame: Any) -> pa.Table:
     if hasattr(frame, "toArrow"):
         return frame.toArrow()
@@ -79,7 +93,7 @@ def fit(df: Any, *, model: str, group: Union[str, None] = None, by=None, **optio
     models: segments (`by`), exceedance (`above`, `below`), `ranks`,
     `flag_fdr`, `top`, `level`, `intervals`, ... Returns a `SparkResult`;
     errors raise as `ratepool.fit` raises them, a bad value named by its
-    column and key (the key table's row).
+    column and by the key of the rows that hold it (and how many they are).
 
     >>> from pyspark.sql import SparkSession
     >>> spark = SparkSession.builder.master("local[2]").getOrCreate()
@@ -104,12 +118,15 @@ def fit(df: Any, *, model: str, group: Union[str, None] = None, by=None, **optio
         )
     counted = df.groupBy(*keys).agg(F.count(F.lit(1)).alias(_WEIGHTS)).orderBy(*keys)
     key_table = _to_arrow(counted)
-    scored = _engine.run(
-        "fit",
-        key_table,
-        dict(options, model=model, by=by, pair_counts=_WEIGHTS),
-        table_option="pair_output",
-    )
+    try:
+        scored = _engine.run(
+            "fit",
+            key_table,
+            dict(options, model=model, by=by, pair_counts=_WEIGHTS),
+            table_option="pair_output",
+        )
+    except InputError as error:
+        raise _about_rows(error, key_table, keys) from None
     posteriors = scored.table.drop_columns(["group_count"])
     spark = df.sparkSession
     try:

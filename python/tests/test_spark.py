@@ -82,6 +82,17 @@ def test_a_missing_column_names_the_spark_frames_columns(spark):
         ratepool.spark.fit(frame, model="beta-binomial", group="id", successes="k", trials="trials")
 
 
+def test_a_bad_value_is_named_by_its_rows_key_and_column(spark):
+    rows = pd.DataFrame({"id": ["a", "b", "c", "d"], "k": [1, 5, 5, 2], "n": [3, 3, 3, 4]})
+    with pytest.raises(ratepool.InputError) as caught:
+        ratepool.spark.fit(spark.createDataFrame(rows), model="beta-binomial", group="id",
+                           successes="k", trials="n")
+    error = caught.value
+    assert str(error).startswith("the 2 rows with k=5, n=3: column 'k': ")
+    assert error.column == "k" and error.reason == "5 successes exceed 3 trials"
+    assert error.row is None
+
+
 def test_the_spark_docstring_example_prints_what_it_shows(spark):
     import doctest
     import os
