@@ -1452,18 +1452,18 @@ fn run_neighbours(args: &NeighboursArgs) -> Result<String> {
     let outputs = [RunPath { option: "--output", path: &args.output }];
     crate::io::overlap::refuse_overlaps(&inputs, &outputs)?;
     crate::io::TableFormat::from_path(&args.output)?;
-    let areas = crate::io::geojson::read_map(&args.map, &args.key)?;
+    let (keys, rings): (Vec<String>, Vec<_>) =
+        crate::io::geojson::read_map(&args.map, &args.key)?.into_iter().map(|a| (a.key, a.rings)).unzip();
     let (rule, word) = if args.rook { (Contiguity::Rook, "rook") } else { (Contiguity::Queen, "queen") };
-    let rings: Vec<_> = areas.iter().map(|a| a.rings.clone()).collect();
     let pairs = neighbour_pairs(&rings, rule);
-    let mut alone = vec![true; areas.len()];
+    let mut alone = vec![true; keys.len()];
     for &(a, b) in &pairs {
         alone[a as usize] = false;
         alone[b as usize] = false;
     }
     let text = |pick: fn(&(u32, u32)) -> u32| -> ColumnValues {
         let keys: arrow_array::StringArray =
-            pairs.iter().map(|p| Some(areas[pick(p) as usize].key.as_str())).collect();
+            pairs.iter().map(|p| Some(keys[pick(p) as usize].as_str())).collect();
         ColumnValues::Arrow(std::sync::Arc::new(keys))
     };
     let columns = vec![("area".to_string(), text(|p| p.0)), ("neighbour".to_string(), text(|p| p.1))];
@@ -1471,9 +1471,9 @@ fn run_neighbours(args: &NeighboursArgs) -> Result<String> {
     staged.add(write_table(columns, &args.output, Vec::new())?);
     staged.commit()?;
     let isolated: Vec<&str> =
-        areas.iter().zip(&alone).filter(|(_, &alone)| alone).map(|(a, _)| a.key.as_str()).collect();
+        keys.iter().zip(&alone).filter(|(_, &alone)| alone).map(|(key, _)| key.as_str()).collect();
     let plural = if pairs.len() == 1 { "pair" } else { "pairs" };
-    let mut words = format!("{} areas, {} neighbour {plural} ({word} contiguity)", areas.len(), pairs.len());
+    let mut words = format!("{} areas, {} neighbour {plural} ({word} contiguity)", keys.len(), pairs.len());
     if !isolated.is_empty() {
         words.push_str(&format!("; {} without neighbours: {}", isolated.len(), isolated.join(", ")));
     }

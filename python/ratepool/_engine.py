@@ -185,7 +185,7 @@ def run(
             argv += ["--input", "data"]
             stream = _stream_of(data)
         try:
-            _, summary, outputs = _native.run(argv, stream, "data")
+            summary, outputs = _native.run(argv, stream, "data")
         except _native.EngineError as error:
             raise _exception(error) from None
         table_path = os.fspath(given[table_option])

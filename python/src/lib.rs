@@ -98,8 +98,8 @@ fn engine_error(error: Error) -> PyErr {
 
 /// Runs the command line `argv` (without the program name). With `data`,
 /// the run reads that table in place of its `--input` file, and messages
-/// call it `name`. Returns the summary as JSON (with the summary's kind:
-/// "pairs" or "levels"), and the files written.
+/// call it `name`. Returns the summary as JSON (null for a command that
+/// writes none), and the files written.
 #[pyfunction]
 #[pyo3(signature = (argv, data=None, name="data"))]
 fn run(
@@ -107,7 +107,7 @@ fn run(
     argv: Vec<String>,
     data: Option<&Bound<'_, PyAny>>,
     name: &str,
-) -> PyResult<(String, String, Vec<String>)> {
+) -> PyResult<(String, Vec<String>)> {
     let cli = Cli::try_parse_from(std::iter::once("ratepool".to_string()).chain(argv))
         .map_err(|e| engine_error(Error::Usage(ratepool::cli::clap_message(&e))))?;
     let memory = match data {
@@ -136,14 +136,13 @@ fn run(
     }
     let outcome = outcome.map_err(engine_error)?;
     let outputs = outcome.outputs.iter().map(|p| p.display().to_string()).collect();
-    let json = |value: serde_json::Result<String>| {
-        value.map_err(|e| EngineError::new_err(("other", format!("cannot write the summary: {e}"))))
-    };
-    match (&outcome.summary, &outcome.levels) {
-        (Some(summary), _) => Ok(("pairs".to_string(), json(serde_json::to_string(summary))?, outputs)),
-        (None, Some(levels)) => Ok(("levels".to_string(), json(serde_json::to_string(levels))?, outputs)),
-        (None, None) => Ok(("none".to_string(), "null".to_string(), outputs)),
+    let json = match (&outcome.summary, &outcome.levels) {
+        (Some(summary), _) => serde_json::to_string(summary),
+        (None, Some(levels)) => serde_json::to_string(levels),
+        (None, None) => Ok("null".to_string()),
     }
+    .map_err(|e| EngineError::new_err(("other", format!("cannot write the summary: {e}"))))?;
+    Ok((json, outputs))
 }
 
 /// The long options of a subcommand (`fit` or `score`) as the command line

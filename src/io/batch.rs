@@ -3,6 +3,7 @@
 //! which chooses among them.
 
 use arrow_array::ArrayRef;
+use arrow_schema::DataType;
 use std::path::Path;
 
 /// The role of a column that keys segments: Parquet text in this role is
@@ -21,6 +22,28 @@ pub const STRATUM_ROLE: &str = "stratum";
 /// it is read dictionary-encoded).
 pub fn keys_cells(role: &str) -> bool {
     role == SEGMENT_ROLE || role == COVARIATE_ROLE || role == STRATUM_ROLE
+}
+
+/// The type a text column that keys cells is read as (dictionary-encoded,
+/// so that no text is copied per row); None for a column read as stored.
+pub fn cell_key_type(stored: &DataType) -> Option<DataType> {
+    matches!(stored, DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View)
+        .then(|| DataType::Dictionary(Box::new(DataType::Int32), Box::new(DataType::Utf8)))
+}
+
+/// The message for a column a table does not have, naming those it has.
+pub fn missing_column<'a>(
+    table: &Path,
+    name: &str,
+    role: &str,
+    available: impl IntoIterator<Item = &'a str>,
+) -> String {
+    let available: Vec<&str> = available.into_iter().collect();
+    format!(
+        "{}: no column '{name}' (given as the {role} column); available columns: {}",
+        table.display(),
+        available.join(", ")
+    )
 }
 
 /// One batch of input rows.

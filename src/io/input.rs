@@ -4,13 +4,12 @@
 //! checked to exist, naming the available ones if not) and read in batches
 //! of rows, as often as the run needs to pass over it.
 
-use super::batch::keys_cells;
+use super::batch::{cell_key_type, keys_cells, missing_column};
 use super::csv_input::CsvFile;
 use super::parquet_input::ParquetParts;
 use super::TableFormat;
 use crate::error::{Error, Result};
 use arrow_array::{ArrayRef, RecordBatch};
-use arrow_schema::DataType;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
@@ -137,12 +136,11 @@ fn read_arrow_file(path: &Path) -> Result<MemoryTable> {
 /// The text column `array` dictionary-encoded, as the Parquet reader hands
 /// over a text column that keys cells; any other column as it is.
 fn as_cell_keys(array: &ArrayRef) -> Result<ArrayRef> {
-    match array.data_type() {
-        DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => {
-            let to = DataType::Dictionary(Box::new(DataType::Int32), Box::new(DataType::Utf8));
+    match cell_key_type(array.data_type()) {
+        Some(to) => {
             arrow_cast::cast(array, &to).map_err(|e| Error::Input(format!("cannot read a text column: {e}")))
         }
-        _ => Ok(array.clone()),
+        None => Ok(array.clone()),
     }
 }
 
@@ -161,10 +159,11 @@ impl Input {
         let mut places = Vec::with_capacity(columns.len());
         for (name, role) in columns {
             let place = table.columns.iter().position(|c| c == name).ok_or_else(|| {
-                Error::Input(format!(
-                    "{}: no column '{name}' (given as the {role} column); available columns: {}",
-                    table.name.display(),
-                    table.columns.join(", ")
+                Error::Input(missing_column(
+                    &table.name,
+                    name,
+                    role,
+                    table.columns.iter().map(String::as_str),
                 ))
             })?;
             places.push(place);
@@ -197,12 +196,9 @@ impl Input {
         let file = CsvFile::open(path, delimiter)?;
         for (name, role) in columns {
             if !file.header().iter().any(|h| h == name) {
-                return Err(Error::Input(format!(
-                    "{}: no column '{name}' (given as the {role} column); available columns: {}{}",
-                    path.display(),
-                    file.header().join(", "),
-                    separator_hint(file.header())
-                )));
+                let available = file.header().iter().map(String::as_str);
+                let message = missing_column(path, name, role, available);
+                return Err(Error::Input(message + &separator_hint(file.header())));
             }
         }
         let columns = columns.iter().map(|(name, _)| name.to_string()).collect();

@@ -3,10 +3,10 @@
 //! arrow-rs. Memory follows the batch size, not the file size. Every codec a
 //! producer writes is read (snappy, gzip, both LZ4 codecs, zstd, brotli).
 
-use super::batch::{keys_cells, InputBatch};
+use super::batch::{cell_key_type, keys_cells, missing_column, InputBatch};
 use super::guard::guard_read;
 use crate::error::{Error, Result};
-use arrow_schema::{DataType, Field, Schema};
+use arrow_schema::{Field, Schema};
 use parquet::arrow::arrow_reader::{ArrowReaderOptions, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
 use std::fs::File;
@@ -64,12 +64,8 @@ impl ParquetParts {
             let schema = builder.schema();
             for (name, role) in columns {
                 if schema.column_with_name(name).is_none() {
-                    let available: Vec<&str> = schema.fields().iter().map(|f| f.name().as_str()).collect();
-                    return Err(Error::Input(format!(
-                        "{}: no column '{name}' (given as the {role} column); available columns: {}",
-                        file.display(),
-                        available.join(", ")
-                    )));
+                    let available = schema.fields().iter().map(|f| f.name().as_str());
+                    return Err(Error::Input(missing_column(file, name, role, available)));
                 }
             }
         }
@@ -103,17 +99,13 @@ impl ParquetParts {
         let fields: Vec<Field> = schema
             .fields()
             .iter()
-            .map(|field| match field.data_type() {
-                DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View
-                    if self.dictionary.contains(field.name()) =>
-                {
-                    let text = Box::new(DataType::Utf8);
-                    field
-                        .as_ref()
-                        .clone()
-                        .with_data_type(DataType::Dictionary(Box::new(DataType::Int32), text))
+            .map(|field| {
+                let keyed =
+                    cell_key_type(field.data_type()).filter(|_| self.dictionary.contains(field.name()));
+                match keyed {
+                    Some(read_as) => field.as_ref().clone().with_data_type(read_as),
+                    None => field.as_ref().clone(),
                 }
-                _ => field.as_ref().clone(),
             })
             .collect();
         let options = ArrowReaderOptions::new().with_schema(Arc::new(Schema::new(fields)));

@@ -106,10 +106,6 @@ impl<'a> PhaseClock<'a> {
         });
         self.rows = None;
         self.last = now;
-        self.go_on()
-    }
-
-    fn go_on(&mut self) -> Result<()> {
         go_on(self.observer)
     }
 
@@ -119,6 +115,6 @@ impl<'a> PhaseClock<'a> {
         self.rows = Some(done);
         let since_start = self.started.elapsed().as_secs_f64();
         self.observer.rows_through(&RowsThrough { phase, done, total, since_start });
-        self.go_on()
+        go_on(self.observer)
     }
 }
