@@ -56,6 +56,7 @@ pub fn exercise(data: &[u8]) {
         segments: Vec::new(),
         min_groups: ratepool::pipeline::DEFAULT_MIN_GROUPS,
         covariates: Vec::new(),
+        neighbours: None,
         memory_budget: 1 << 30,
         aggregation: Default::default(),
         top: None,

@@ -183,6 +183,10 @@ def district_bands():
         cases = rng.poisson(population * rates * risk[i])
         lines += [f"district-{i + 1:04d},{b},{c},{p}" for b, c, p in zip(bands, cases, population)]
     (OUT / "district_bands.csv").write_text("\n".join(lines) + "\n")
+    # The hidden truth the cases were drawn from, known only because the data are
+    # invented: the README's reading of the neighbour prior is checked against it.
+    truth = ["district_id,true_risk"] + [f"district-{i + 1:04d},{risk[i]:.6f}" for i in range(count)]
+    (OUT / "district_truth.csv").write_text("\n".join(truth) + "\n")
 
 
 def district_map():

@@ -772,6 +772,14 @@ pub struct FitArgs {
         help_heading = "Analysis"
     )]
     pub grid_points: Option<usize>,
+    /// Pull each area toward its neighbours' rate
+    #[arg(
+        long_help = "A table of neighbouring areas (.csv or .parquet): its first column an area, its second a neighbour, both by the ids of --group (header names free; each pair may be listed once, either way round). Each area's Gamma prior is then fitted by moments to the area and its neighbours (Marshall's local empirical Bayes), so it is pulled toward its neighbourhood's rate, not the whole map's; an area without neighbours takes the prior fitted to all areas. Adds `prior_mean` (the neighbourhood's rate) and `neighbours` (how many). `ratepool neighbours` makes the table from a map.",
+        long,
+        value_name = "FILE",
+        help_heading = "Neighbours"
+    )]
+    pub neighbours: Option<PathBuf>,
     /// Input is a pair table; COLUMN counts its groups
     #[arg(
         long_help = "The input is a pre-aggregated pair table (one row per distinct pair, as from a SQL GROUP BY) and this column holds how many groups share each pair; only the summary (the prior) is written.",
@@ -817,9 +825,14 @@ fn parse_delimiter(text: &str) -> std::result::Result<u8, String> {
 
 /// Refuses, before anything is read, a run where an output would overwrite
 /// an input, the prior, or another output.
-fn refuse_overlaps(table: &TableArgs, prior: Option<&PathBuf>) -> Result<()> {
+fn refuse_overlaps<'a>(
+    table: &'a TableArgs,
+    more_inputs: impl IntoIterator<Item = (&'static str, Option<&'a PathBuf>)>,
+) -> Result<()> {
     let mut inputs = vec![RunPath { option: "--input", path: &table.input }];
-    inputs.extend(prior.map(|path| RunPath { option: "--prior", path }));
+    inputs.extend(
+        more_inputs.into_iter().filter_map(|(option, path)| path.map(|path| RunPath { option, path })),
+    );
     inputs.extend(table.config.as_deref().map(|path| RunPath { option: "--config", path }));
     let outputs: Vec<RunPath<'_>> = [
         ("--output", &table.output),
@@ -1100,6 +1113,46 @@ fn refuse_covariates_with(
     }
 }
 
+/// What the neighbour prior applies to and does not combine with, refused
+/// with the reason.
+fn refuse_neighbours_with(
+    table: &TableArgs,
+    (model, neighbours): (Model, Option<&PathBuf>),
+    (pair_counts, shape): (bool, PriorShape),
+) -> Result<()> {
+    if neighbours.is_none() {
+        return Ok(());
+    }
+    if model.terms().local_prior.is_none() {
+        return Err(Error::Usage(format!(
+            "--neighbours applies to the {} model (areas' events against their expected counts), not {}",
+            models_where(|t| t.local_prior.is_some()),
+            model.name()
+        )));
+    }
+    let covariates = !table.covariates.is_empty()
+        || !table.covariates_log.is_empty()
+        || !table.covariates_levels.is_empty();
+    let refused = [
+        (!table.by.is_empty(), "--by: each area's neighbourhood is its segment"),
+        (covariates, "covariates: the neighbourhood's rate is each area's centre"),
+        (shape != PriorShape::Parametric, "--prior-shape free: the local priors are Gamma laws fitted by moments"),
+        (
+            table.intervals == IntervalsArg::Corrected,
+            "--intervals corrected: the local moments carry no covariance to correct for",
+        ),
+        (pair_counts, "--pair-counts: a pair table holds no areas"),
+        (
+            table.pair_output.is_some(),
+            "--pair-output: each area has a prior of its own, so areas with the same counts do not share a row",
+        ),
+    ];
+    match refused.iter().find(|(given, _)| *given) {
+        Some((_, why)) => Err(Error::Usage(format!("--neighbours does not combine with {why}"))),
+        None => Ok(()),
+    }
+}
+
 /// What a free prior does not yet combine with, refused with the reason.
 fn refuse_free_prior_with(table: &TableArgs, shape: PriorShape) -> Result<()> {
     if shape == PriorShape::Parametric {
@@ -1277,10 +1330,11 @@ fn rank_order(table: &TableArgs) -> Option<RankOrder> {
 fn job_of(
     table: &TableArgs,
     (pair_counts, likelihood, prior_shape): (Option<&String>, Likelihood, PriorShape),
-    model: Model,
+    (model, neighbours): (Model, Option<&PathBuf>),
     prior: PriorSource,
 ) -> Result<Job> {
     refuse_free_prior_with(table, prior_shape)?;
+    refuse_neighbours_with(table, (model, neighbours), (pair_counts.is_some(), prior_shape))?;
     let (aggregation, count, size) = rows_and_columns(table, model, pair_counts.is_some())?;
     let invalid = invalid_rows(table)?;
     if let Some(path) = &table.pair_output {
@@ -1304,6 +1358,7 @@ fn job_of(
         segments,
         min_groups: table.min_groups.unwrap_or(crate::pipeline::DEFAULT_MIN_GROUPS),
         covariates,
+        neighbours: neighbours.cloned(),
         memory_budget: table.memory_budget.max(1).saturating_mul(1 << 20),
         aggregation,
         top: top_rule(table)?,
@@ -1485,7 +1540,7 @@ fn run_neighbours(args: &NeighboursArgs) -> Result<String> {
 fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
     use crate::pipeline::levels::{LevelJob, MAX_LEVELS, MODEL_NAME};
     let table = &args.table;
-    refuse_overlaps(table, None)?;
+    refuse_overlaps(table, [])?;
     let refused = [
         (table.population.is_some(), "--population"),
         (table.aggregate, "--aggregate"),
@@ -1506,6 +1561,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         (args.pair_counts.is_some(), "--pair-counts"),
         (args.prior_shape == PriorShapeArg::Free, "--prior-shape free"),
         (args.grid_points.is_some(), "--grid-points"),
+        (args.neighbours.is_some(), "--neighbours"),
         (args.variance_method == VarianceMethodArg::Reml, "--variance-method reml"),
     ];
     if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
@@ -1722,7 +1778,7 @@ impl Command {
             | Command::Completions { .. }
             | Command::Manpage => Err(Error::Usage("this command runs no fit".to_string())),
             Command::Fit(args) => {
-                refuse_overlaps(&args.table, None)?;
+                refuse_overlaps(&args.table, [("--neighbours", args.neighbours.as_ref())])?;
                 let FitModel::Pairs(model) = args.model else {
                     return Err(Error::Usage(
                         "the dirichlet-multinomial model runs through its own job".to_string(),
@@ -1749,7 +1805,7 @@ impl Command {
                     }
                 };
                 let rows = (args.pair_counts.as_ref(), likelihood, prior_shape_of(&args)?);
-                job_of(&args.table, rows, model, PriorSource::Fit)
+                job_of(&args.table, rows, (model, args.neighbours.as_ref()), PriorSource::Fit)
             }
             Command::Score(args) => {
                 if args.table.min_groups.is_some() {
@@ -1757,7 +1813,7 @@ impl Command {
                         "--min-groups applies when fitting: a score takes each segment's prior from the prior file as it was fitted".to_string(),
                     ));
                 }
-                refuse_overlaps(&args.table, Some(&args.prior))?;
+                refuse_overlaps(&args.table, [("--prior", Some(&args.prior))])?;
                 let summary = load_summary(&args.prior)?;
                 let saved = Model::from_name(&summary.model).ok_or_else(|| {
                     Error::Input(format!(
@@ -1782,10 +1838,17 @@ impl Command {
                     Some(free) => PriorShape::Free { points: Some(free.grid.len()) },
                     None => PriorShape::Parametric,
                 };
+                if let Some(hoods) = &summary.neighbourhood {
+                    return Err(Error::Usage(format!(
+                        "{}: the prior was fitted with the neighbour table {}: each area's prior came from its neighbours' data, which the summary does not hold; fit again with --neighbours on these areas",
+                        args.prior.display(),
+                        hoods.file
+                    )));
+                }
                 job_of(
                     &args.table,
                     (None, Likelihood::Marginal, shape),
-                    model,
+                    (model, None),
                     PriorSource::Saved { path: args.prior.clone(), summary: Box::new(summary) },
                 )
             }

@@ -47,12 +47,20 @@ pub fn render_text(summary: &Summary) -> String {
             };
             let _ = writeln!(
                 out,
-                "  prior        {shape}; mean {:.6} (se {}), strength {}",
+                "  {:<13}{shape}; mean {:.6} (se {}), strength {}",
+                if summary.neighbourhood.is_some() { "all areas" } else { "prior" },
                 prior.mean(),
                 three_digits(prior.mean_se()),
                 prior.strength().map_or("infinite".to_string(), plain)
             );
         }
+    }
+    if let Some(hoods) = &summary.neighbourhood {
+        let _ = writeln!(
+            out,
+            "  neighbours   each area's prior from its neighbourhood ({} pairs of neighbours over {} areas, {}); {} pooled to the local rate (local variance 0), {} without neighbours (the all-areas prior)",
+            hoods.pairs, hoods.areas, hoods.file, hoods.zero_variance, hoods.without_neighbours
+        );
     }
     let fit = &summary.fit;
     let fitted_here = fit.source == "fit";

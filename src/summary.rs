@@ -80,8 +80,55 @@ pub struct Summary {
     /// How the expected counts were made, with `--population` and `--strata`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub standardisation: Option<StandardisationReport>,
+    /// With `--neighbours`: each area's prior from its neighbourhood.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub neighbourhood: Option<NeighbourhoodReport>,
     /// Conditions a reader must know about (boundary results, rejected rows).
     pub warnings: Vec<String>,
+}
+
+/// The neighbour prior (`--neighbours`, Marshall's local empirical Bayes):
+/// each area's Gamma prior fitted by moments to the area and its
+/// neighbours; the summary's `prior` is then the all-areas prior, which the
+/// areas without neighbours take.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct NeighbourhoodReport {
+    /// The neighbour table read.
+    pub file: String,
+    /// Its data rows.
+    pub rows: u64,
+    /// Areas scored.
+    pub areas: u64,
+    /// Pairs of neighbouring areas among them, each counted once however
+    /// often (and in whichever order) the table lists it.
+    pub pairs: u64,
+    /// Areas with no neighbour among the areas scored (or whose
+    /// neighbourhood has no exposure): they take the all-areas prior.
+    pub without_neighbours: u64,
+    /// Areas whose local variance is zero (the neighbourhood's rates vary no
+    /// more than Poisson noise allows): pooled to the local mean.
+    pub zero_variance: u64,
+    /// Rows of the table naming an area that is not among those scored
+    /// (left out), and the first such area.
+    pub rows_left_out: u64,
+    /// The first area named but not scored, when any.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub first_left_out: Option<String>,
+}
+
+impl Summary {
+    /// Where each group's own prior centre (`prior_mean`) comes from, in
+    /// words, when groups have their own: "its covariates" or "its
+    /// neighbours"; None when one prior serves all groups (or a segment).
+    pub fn own_centres(&self) -> Option<&'static str> {
+        if self.fitted_prior.covariates().is_some() {
+            Some("its covariates")
+        } else if self.neighbourhood.is_some() {
+            Some("its neighbours")
+        } else {
+            None
+        }
+    }
 }
 
 /// Expected counts by indirect standardisation: the standard and its rates.

@@ -69,6 +69,7 @@ def fit(
     variance_method: Optional[Literal['ml', 'reml']] = None,  # normal-normal's tau^2 by ml (default) or reml
     prior_shape: Optional[Literal['parametric', 'free']] = None,  # parametric (default) or free (any shape)
     grid_points: Optional[int] = None,  # Points of a free prior's grid (default 300+)
+    neighbours: Optional[Union[str, os.PathLike[str]]] = None,  # Pull each area toward its neighbours' rate
 ) -> Result: ...
 
 def score(
@@ -179,4 +180,5 @@ def fit_pairs(
     variance_method: Optional[Literal['ml', 'reml']] = None,  # normal-normal's tau^2 by ml (default) or reml
     prior_shape: Optional[Literal['parametric', 'free']] = None,  # parametric (default) or free (any shape)
     grid_points: Optional[int] = None,  # Points of a free prior's grid (default 300+)
+    neighbours: Optional[Union[str, os.PathLike[str]]] = None,  # Pull each area toward its neighbours' rate
 ) -> Result: ...

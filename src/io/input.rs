@@ -205,6 +205,20 @@ impl Input {
         Ok(Input::Csv { file, columns, batch_rows: batch_rows.max(1) })
     }
 
+    /// The column names of the table at `path`, in the file's order (for a
+    /// table whose columns are known by place, not by name).
+    pub fn column_names(path: &Path, delimiter: u8) -> Result<Vec<String>> {
+        let format = if path.is_dir() { TableFormat::Parquet } else { TableFormat::from_path(path)? };
+        match format {
+            TableFormat::Parquet => ParquetParts::column_names(path),
+            TableFormat::ArrowIpc => Ok(read_arrow_file(path)?.columns),
+            TableFormat::Csv if !path.exists() => {
+                Err(Error::Input(format!("{}: no such file", path.display())))
+            }
+            TableFormat::Csv => Ok(CsvFile::open(path, delimiter)?.header().to_vec()),
+        }
+    }
+
     /// Calls `visit` on every batch, in file and row order. The batches are
     /// decoded on a thread of their own, up to two ahead of `visit`, so that
     /// reading overlaps the work done on them.

@@ -116,6 +116,13 @@ impl ParquetParts {
         })
     }
 
+    /// The column names of `path` (a file, or the first part of a folder).
+    pub fn column_names(path: &Path) -> Result<Vec<String>> {
+        let files = parquet_files(path)?;
+        let builder = Self::builder(&files[0])?;
+        Ok(builder.schema().fields().iter().map(|f| f.name().clone()).collect())
+    }
+
     /// True when the input is a folder of parts.
     pub fn is_folder(&self) -> bool {
         self.folder

@@ -272,9 +272,19 @@ impl Source for SummedRows<'_> {
         if let (InvalidRows::Fail, Some(fault), true) = (&job.invalid, fault, rows > 0) {
             return Err(fault.error);
         }
-        if let Some(state) = covariates {
-            // Every group was made by a row whose covariates it then held.
-            let mut counted = CovariatePairs::new(job.covariates.len());
+        // With covariates every group was made by a row whose covariates it then
+        // held; with neighbours each summed group is an area, numbered by its place.
+        let keyed = match covariates {
+            Some(state) => Some(state),
+            None if job.neighbours.is_some() => {
+                totals.covariate_width = 1;
+                totals.covariate_keys = (0..totals.len() as u64).collect();
+                Some(CovariateState::of_named_areas((0..totals.len()).map(|g| totals.id_text(g)).collect()))
+            }
+            None => None,
+        };
+        if let Some(state) = keyed {
+            let mut counted = CovariatePairs::new(totals.covariate_width);
             for g in 0..totals.len() {
                 let (size, count) = totals.table.sums(g);
                 counted.add(totals.covariate_key(g), size, count, 1.0);
@@ -385,7 +395,7 @@ impl<'a> RowReader<'a> {
                 strata: SegmentColumns::of(&batch.columns[3..3 + standard.strata.len()])?,
                 rates,
             },
-            _ => RowReader::Counts(Box::new(BatchView::of(batch, job.model.terms(), None)?)),
+            _ => RowReader::Counts(Box::new(BatchView::of(batch, job, None)?)),
         })
     }
 

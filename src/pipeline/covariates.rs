@@ -24,7 +24,8 @@ use crate::error::{Error, Result};
 use crate::io::cells::{Cell, NumericColumn};
 use crate::io::sink::PairValues;
 use crate::summary::{
-    CoefficientReport, CovariatePrior, CovariateReport, FitReport, FittedPrior, SegmentTest,
+    CoefficientReport, CovariatePrior, CovariateReport, FitReport, FittedPrior, NeighbourhoodReport,
+    SegmentTest,
 };
 use arrow_array::ArrayRef;
 use std::collections::HashMap;
@@ -62,6 +63,29 @@ pub(super) struct CovariateState {
 }
 
 impl CovariateState {
+    /// The state of a neighbour run, whose one key column is the group id
+    /// read as levels: an area's number is its level's code.
+    pub(super) fn of_areas() -> Self {
+        CovariateState {
+            readings: vec![Some(Reading::Levels)],
+            levels: vec![LevelIndex::default()],
+            frozen: false,
+        }
+    }
+
+    /// The state of a neighbour run whose areas are already numbered
+    /// (summed groups, in first-appearance order): `names` by number.
+    pub(super) fn of_named_areas(names: Vec<String>) -> Self {
+        let mut state = Self::of_areas();
+        state.levels[0].texts = names;
+        state
+    }
+
+    /// The areas' names by number, in a neighbour run.
+    pub(super) fn area_names(&self) -> &[String] {
+        &self.levels[0].texts
+    }
+
     pub(super) fn new(job: &Job) -> Self {
         let readings = job
             .covariates
@@ -331,6 +355,11 @@ impl CovariatePairs {
         }
     }
 
+    /// Word `j` of the covariate key of `pair`.
+    pub(super) fn covariate_word(&self, pair: usize, j: usize) -> u64 {
+        self.keys[pair * self.width + j]
+    }
+
     /// Pairs met.
     pub(super) fn len(&self) -> usize {
         self.weights.len()
@@ -516,6 +545,9 @@ pub(super) struct CellPriors {
     pub fit: FitReport,
     /// Boundary warnings.
     pub warnings: Vec<String>,
+    /// With `--neighbours`: per pair (an area), its number of neighbours,
+    /// and what the summary says of the neighbourhoods.
+    pub neighbours: Option<(Vec<i64>, NeighbourhoodReport)>,
 }
 
 /// The fit without covariates a covariate fit starts from and is tested
@@ -594,7 +626,7 @@ pub(super) fn cell_priors<F: Family>(
         working_bias: None,
         working_covariance: None,
     };
-    Ok(CellPriors { priors, uncertainties, centres, values, fitted_prior, fit, warnings })
+    Ok(CellPriors { priors, uncertainties, centres, values, fitted_prior, fit, warnings, neighbours: None })
 }
 
 /// Each pair's prior under a saved covariate prior (`score --prior`):
@@ -647,6 +679,7 @@ pub(super) fn saved_cell_priors<F: Family>(
         fitted_prior: saved.clone(),
         fit,
         warnings: Vec::new(),
+        neighbours: None,
     })
 }
 

@@ -9,7 +9,8 @@
 //! nothing.
 
 use super::covariates::{covariate_table, CovariatePairs, CovariateState};
-use super::prior::{score_covariate_pairs, score_pairs, Scored};
+use super::neighbours::area_table;
+use super::prior::{score_covariate_pairs, score_neighbour_pairs, score_pairs, Scored};
 use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts, ShiftGroups};
 use super::segments::{PairLookup, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::{no_data_rows, no_valid_rows, Job, PhaseClock};
@@ -30,7 +31,8 @@ pub(super) struct Counted {
     pub rows: usize,
     /// Rows rejected.
     pub rejected: usize,
-    /// With covariates: the pairs by their covariates (the segment counts then stay empty).
+    /// With covariates (or `--neighbours`, keyed by area): the pairs by
+    /// their covariates (the segment counts then stay empty).
     pub covariates: Option<CovariateCount>,
 }
 
@@ -41,6 +43,21 @@ pub(super) struct CovariateCount {
     pub pairs: CovariatePairs,
     /// The columns' readings and levels.
     pub state: CovariateState,
+}
+
+impl CovariateCount {
+    /// What a run that reads each group's row keys its cells by: its
+    /// covariates, or with `--neighbours` its area (None: by segment and pair).
+    pub(super) fn of(job: &Job) -> Option<Self> {
+        if job.neighbours.is_some() {
+            Some(CovariateCount { pairs: CovariatePairs::new(1), state: CovariateState::of_areas() })
+        } else {
+            (!job.covariates.is_empty()).then(|| CovariateCount {
+                pairs: CovariatePairs::new(job.covariates.len()),
+                state: CovariateState::new(job),
+            })
+        }
+    }
 }
 
 /// Where a scored group's values are: its segment as met, and its pair's
@@ -88,8 +105,15 @@ pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'
             if covariates.pairs.len() == 0 {
                 return Err(no_valid_rows(job, counted.rejected));
             }
-            let table = covariate_table(job, &covariates.pairs, &covariates.state)?;
-            let scored = score_covariate_pairs(job, table, clock)?;
+            let scored = if job.neighbours.is_some() {
+                score_neighbour_pairs(job, area_table(job, &covariates.pairs, &covariates.state)?, clock)?
+            } else {
+                score_covariate_pairs(
+                    job,
+                    covariate_table(job, &covariates.pairs, &covariates.state)?,
+                    clock,
+                )?
+            };
             let placement = Placement {
                 segments: SegmentIndex::default(),
                 pairs: PairLookup::new(&[], &[]),

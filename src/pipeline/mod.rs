@@ -12,6 +12,7 @@ mod driver;
 pub mod duplicates;
 mod group_table;
 pub mod levels;
+mod neighbours;
 mod pair_table;
 pub mod passes;
 mod prior;
@@ -304,6 +305,9 @@ pub struct Job {
     /// Covariate columns: each group's prior centre follows them (empty:
     /// one centre for all).
     pub covariates: Vec<CovariateColumn>,
+    /// The neighbour table of `--neighbours`: each area's prior is fitted to
+    /// its neighbourhood (None: one prior for all areas).
+    pub neighbours: Option<PathBuf>,
     /// Bytes of memory a run aims to stay within (`--memory-budget`): the
     /// group ids' hashes hold at most half of it, and spill to disk beyond.
     pub memory_budget: usize,

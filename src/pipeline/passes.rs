@@ -13,7 +13,7 @@
 //!
 //! Every output is staged and renamed into place only at the end.
 
-use super::covariates::{CovariateBatch, CovariatePairs, CovariateState};
+use super::covariates::{CovariateBatch, CovariateState};
 use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::prior::Scored;
@@ -48,14 +48,17 @@ impl<'a> BatchView<'a> {
     /// covariate columns (with `covariates`, the state of the latter).
     pub(super) fn of(
         batch: &'a InputBatch<'a>,
-        terms: &ModelTerms,
+        job: &Job,
         covariates: Option<&mut CovariateState>,
     ) -> Result<Self> {
+        let terms = job.model.terms();
         // Estimates and standard errors are read as reals; counts and sizes as integers where they are.
         let numeric =
             |rule: ValueRule| if rule.reads_reals() { NumericColumn::of_reals } else { NumericColumn::of };
         let (segments, covariates) = match covariates {
-            Some(state) => (SegmentColumns::of(&[])?, Some(CovariateBatch::of(&batch.columns[3..], state)?)),
+            Some(state) => {
+                (SegmentColumns::of(&[])?, Some(CovariateBatch::of(key_columns(job, batch), state)?))
+            }
             None => (SegmentColumns::of(&batch.columns[3..])?, None),
         };
         Ok(BatchView {
@@ -123,6 +126,16 @@ impl<'a> BatchView<'a> {
             }
         }
         Ok(Ok(pair))
+    }
+}
+
+/// The columns of a batch that key a row's cell: the covariates, or with
+/// `--neighbours` the group id itself (each area its own cell).
+fn key_columns<'b>(job: &Job, batch: &'b InputBatch<'_>) -> &'b [ArrayRef] {
+    if job.neighbours.is_some() {
+        &batch.columns[..1]
+    } else {
+        &batch.columns[3..]
     }
 }
 
@@ -227,10 +240,7 @@ impl Source for GroupRows<'_> {
 /// first row fault, and a hash of every group id.
 fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<PassOne> {
     let total = input.known_rows();
-    let covariates = (!job.covariates.is_empty()).then(|| CovariateCount {
-        pairs: CovariatePairs::new(job.covariates.len()),
-        state: CovariateState::new(job),
-    });
+    let covariates = CovariateCount::of(job);
     let mut key = Vec::new();
     let mut pass = PassOne {
         covariates,
@@ -242,7 +252,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<P
         ids: IdHashes::new(job.id_memory(), total.unwrap_or(0)),
     };
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch, job.model.terms(), pass.covariates.as_mut().map(|c| &mut c.state))?;
+        let view = BatchView::of(&batch, job, pass.covariates.as_mut().map(|c| &mut c.state))?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
                 view.group.with_bytes(row, |id| pass.ids.push(id)).map_err(spill_failed)?;
@@ -286,7 +296,7 @@ fn find_repeats(job: &Job, input: &Input, pass: &mut PassOne) -> Result<Repeats>
     let mut finder = RepeatFinder::new(candidates);
     let mut key = Vec::new();
     input.for_each_batch(|batch| {
-        let view = BatchView::of(&batch, job.model.terms(), pass.covariates.as_mut().map(|c| &mut c.state))?;
+        let view = BatchView::of(&batch, job, pass.covariates.as_mut().map(|c| &mut c.state))?;
         for row in 0..batch.rows() {
             if view.group.is_missing(row) {
                 continue;
@@ -406,8 +416,7 @@ fn score_and_write(
         });
         let mut key = Vec::new();
         let produced = input.for_each_batch(|batch| {
-            let view =
-                BatchView::of(&batch, job.model.terms(), found.covariates.as_mut().map(|c| &mut c.state))?;
+            let view = BatchView::of(&batch, job, found.covariates.as_mut().map(|c| &mut c.state))?;
             let (mut kept, mut pair_of_row) =
                 (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
             for row in 0..batch.rows() {
@@ -507,6 +516,7 @@ mod tests {
             segments: Vec::new(),
             min_groups: crate::pipeline::DEFAULT_MIN_GROUPS,
             covariates: Vec::new(),
+            neighbours: None,
             memory_budget: 1 << 30,
             aggregation: Default::default(),
             top: None,

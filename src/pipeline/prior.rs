@@ -10,6 +10,7 @@
 //! ratio test says whether one prior per segment fits better than one for all.
 
 use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, PlainFit};
+use super::neighbours::{neighbour_cell_priors, AllAreas, AreaTable};
 use super::segments::{SegmentKey, SegmentPairs};
 use super::{
     FlagEvent, Intervals, Job, Model, PhaseClock, PriorShape, PriorSource, TopChoice, TopRule, DRAW_BUDGET,
@@ -33,8 +34,8 @@ use crate::core::ranking::{
 use crate::error::{Error, Result};
 use crate::io::sink::PairValues;
 use crate::summary::{
-    CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, FreePriorReport, SegmentTest,
-    ShapeComparison, TestReport, VarianceReport,
+    CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, FreePriorReport,
+    NeighbourhoodReport, SegmentTest, ShapeComparison, TestReport, VarianceReport,
 };
 use arrow_array::ArrayRef;
 use rayon::prelude::*;
@@ -96,15 +97,20 @@ pub struct Scored {
     pub covariates: Option<CovariateScore>,
     /// With a free prior: how it compares with the parametric one.
     pub comparison: Option<ShapeComparison>,
+    /// With `--neighbours`: what the summary says of the neighbourhoods.
+    pub neighbourhood: Option<NeighbourhoodReport>,
 }
 
 /// What the output holds of the covariates: per pair, its covariate
-/// values and its centre.
+/// values and its centre (with `--neighbours`, its neighbourhood's rate
+/// and its number of neighbours).
 pub struct CovariateScore {
     /// Each covariate column's value per pair, in the order given.
     pub values: Vec<(String, PairValues)>,
     /// Per pair, the centre of its prior (the rate it is pulled toward).
     pub prior_mean: Vec<f64>,
+    /// With `--neighbours`: per pair (an area), its number of neighbours.
+    pub neighbours: Option<Vec<i64>>,
 }
 
 impl Scored {
@@ -136,6 +142,56 @@ impl FamilyVisitor for ScoreCovariatePairs<'_, '_> {
     fn visit<F: Family>(self) -> Result<Scored> {
         score_covariates_with::<F>(self.job, self.table, self.clock)
     }
+}
+
+/// Fits the all-areas prior, gives each area its prior from its
+/// neighbourhood, and scores every area.
+pub fn score_neighbour_pairs(job: &Job, table: AreaTable, clock: &mut PhaseClock<'_>) -> Result<Scored> {
+    job.model.visit(ScoreNeighbourPairs { job, table, clock })
+}
+
+/// [`score_neighbours_with`] for the job's model.
+struct ScoreNeighbourPairs<'a, 'b> {
+    job: &'a Job,
+    table: AreaTable,
+    clock: &'a mut PhaseClock<'b>,
+}
+
+impl FamilyVisitor for ScoreNeighbourPairs<'_, '_> {
+    type Output = Result<Scored>;
+
+    fn visit<F: Family>(self) -> Result<Scored> {
+        score_neighbours_with::<F>(self.job, self.table, self.clock)
+    }
+}
+
+/// Each area under its local prior (the all-areas prior where it has none).
+fn score_neighbours_with<F: Family>(
+    job: &Job,
+    table: AreaTable,
+    clock: &mut PhaseClock<'_>,
+) -> Result<Scored> {
+    let Some(local) = F::TERMS.local_prior else {
+        return Err(Error::Usage(format!("the {} model has no neighbour prior", F::TERMS.name)));
+    };
+    refuse_top_of_everyone(job, &table.pairs)?;
+    let all_table = PairTable::from_weighted(table.pairs.iter().copied());
+    let all = all_groups_prior::<F>(job, &all_table)?;
+    clock.pairs(table.pairs.len());
+    clock.lap("fit", &format!("fit to all areas ({} distinct pairs)", all_table.pairs().len()))?;
+    let Some(prior) = all.prior.parametric() else {
+        return Err(Error::Usage("the neighbour prior does not combine with a free prior".to_string()));
+    };
+    let fallback =
+        AllAreas { prior, fitted_prior: &all.fitted_prior, fit: &all.fit, warnings: &all.warnings };
+    let (pairs, cells) = neighbour_cell_priors(table, fallback, local);
+    clock.lap("local-priors", &format!("local priors ({} areas)", pairs.len()))?;
+    let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
+    let priors = PriorsInUse::of_covariates(all_table, all, cells);
+    let posteriors = posteriors_of::<F>(job, &priors, &places);
+    let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
+    clock.lap("posteriors", "posteriors")?;
+    Ok(scored_of::<F>(job, Vec::new(), priors, places, (posteriors, decisions)))
 }
 
 /// Fits or loads the priors for the segments' pairs (one segment of every
@@ -790,8 +846,15 @@ fn scored_of<F: Family>(
     if let (None, ShapedPrior::Parametric(Prior::CompletePooling { .. })) = (&covariates, &all.prior) {
         warnings.push("no overdispersion: every group is given the pooled rate (complete pooling); intervals are degenerate".to_string());
     }
-    let covariate_score =
-        covariates.map(|cells| CovariateScore { values: cells.values, prior_mean: cells.centres });
+    let (covariate_score, neighbourhood) = match covariates {
+        Some(cells) => {
+            let (counts, report) = cells.neighbours.unzip();
+            let score =
+                CovariateScore { values: cells.values, prior_mean: cells.centres, neighbours: counts };
+            (Some(score), report)
+        }
+        None => (None, None),
+    };
     let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
     if checks.poor_fit() {
         warnings.push(format!(
@@ -850,6 +913,7 @@ fn scored_of<F: Family>(
         segment_test,
         checks,
         comparison: None,
+        neighbourhood,
     }
 }
 

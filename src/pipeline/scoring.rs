@@ -66,6 +66,9 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     ]);
     if let Some(covariates) = &scored.covariates {
         columns.push(("prior_mean".to_string(), PairValues::Floats(covariates.prior_mean.clone())));
+        if let Some(counts) = &covariates.neighbours {
+            columns.push(("neighbours".to_string(), PairValues::Integers(counts.clone())));
+        }
     }
     columns.extend([
         ("posterior_mean".to_string(), each(&|p| p.mean)),
@@ -356,6 +359,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             expected_false_flags: flags.expected_false,
         }),
         standardisation: None,
+        neighbourhood: scored.neighbourhood.clone(),
         prior_comparison: scored.comparison.clone(),
         columns: Some(ColumnsReport {
             group: job.columns.group.clone(),

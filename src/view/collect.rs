@@ -186,8 +186,8 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
     if let Some(event) = &event_column {
         wanted.extend([(event.as_str(), "event probability"), ("flag_fdr", "flag")]);
     }
-    // With covariates each group has its own prior centre; numbers[i] is wanted[i + 1].
-    let centre_at = summary.fitted_prior.covariates().map(|_| {
+    // With covariates or neighbours each group has its own prior centre; numbers[i] is wanted[i + 1].
+    let centre_at = summary.own_centres().map(|_| {
         wanted.push(("prior_mean", "prior centre"));
         wanted.len() - 2
     });

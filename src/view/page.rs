@@ -67,8 +67,8 @@ pub fn figures(
         caption: format!(
             "Raw value against posterior mean for {}; marker size grows with the group's data. Groups on the diagonal kept their own value; groups pulled to the horizontal line ({}, {}) took the pool's. Small groups move, large ones stay.",
             sampled(collected.sample.len(), collected.groups),
-            if summary.fitted_prior.covariates().is_some() {
-                "the groups' mean prior centre; each group is pulled toward its own, `prior_mean`"
+            if summary.own_centres().is_some() {
+                "the mean of the prior fitted to all groups; each group is pulled toward its own centre, `prior_mean`"
             } else {
                 "the prior mean"
             },
@@ -94,12 +94,12 @@ pub fn figures(
             collected.funnel_range,
         )?,
     });
-    if summary.fitted_prior.covariates().is_some() {
+    if let Some(source) = summary.own_centres() {
         figures.push(Figure {
             name: "centres".into(),
             title: "Raw values against their prior centres".into(),
             caption: format!(
-                "Raw value against each group's prior centre (`prior_mean`, from its covariates) for {}; marker size grows with the group's data. Groups on the diagonal are what their covariates predict; the spread about it, wide for small groups, is what the pooling works on.",
+                "Raw value against each group's prior centre (`prior_mean`, from {source}) for {}; marker size grows with the group's data. Groups on the diagonal are what {source} predict; the spread about it, wide for small groups, is what the pooling works on.",
                 sampled(collected.sample.len(), collected.groups)
             ),
             svg: plots::raw_against_centre(&collected.sample, terms)?,
@@ -425,6 +425,9 @@ pub fn cautions(summary: &Summary) -> Vec<String> {
         let columns: Vec<&str> = covariates.covariates.iter().map(|c| c.column.as_str()).collect();
         cautions.push(format!("Each group is pulled toward what its covariates ({}) predict, so its posterior, rank and flags say how it does against groups like it, not against all groups. Which characteristics to adjust for is a choice of policy: adjusting can hide a difference that matters, and some characteristics may not be used at all where you work. A coefficient describes these groups, not the effect of changing a covariate.", columns.join(", ")));
     }
+    if let Some(hoods) = &summary.neighbourhood {
+        cautions.push(format!("Each area is pulled toward the rate of its neighbourhood (itself and the {} pairs of neighbours in {}), not toward the whole map's: this helps where neighbouring areas share their risk and misleads where they do not. It spreads a high rate to the areas around it, so an area can be flagged for its neighbours' cases rather than its own (compare `smr` with `prior_mean`), and it smooths away a real difference at a border. A high area among high neighbours is not by itself a disease cluster: follow local public-health practice on investigating one.", hoods.pairs, hoods.file));
+    }
     let borrowed = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
     if borrowed > 0 {
         cautions.push(format!("{borrowed} of {} segments had too few groups or no fit of their own and borrow the all-groups prior: their groups are pulled toward all groups, not toward their own kind.", summary.segments.len()));
@@ -464,7 +467,17 @@ pub fn render(
         collected.groups,
         summary.rows_read,
         summary.rows_rejected,
-        escape(&prior_text(&summary.fitted_prior, model)),
+        escape(&match &summary.neighbourhood {
+            Some(hoods) => format!(
+                "each area's own, fitted by moments to its neighbourhood ({} areas, {} pairs of neighbours; {} pooled to their neighbourhood's rate); for the {} areas without neighbours, the prior fitted to all areas: {}",
+                hoods.areas,
+                hoods.pairs,
+                hoods.zero_variance,
+                hoods.without_neighbours,
+                prior_text(&summary.fitted_prior, model)
+            ),
+            None => prior_text(&summary.fitted_prior, model),
+        }),
         num(summary.pull.pool_weight_mean),
         num(summary.pull.pool_weight_median),
         num(summary.pull.pool_weight_p10),

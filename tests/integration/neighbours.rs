@@ -211,3 +211,309 @@ fn the_demo_district_map_is_a_hexagon_grid_with_its_hot_spot_in_one_piece() {
     }
     assert_eq!(reached.len(), 12, "{reached:?}");
 }
+
+/// The NC counties' fit, run in `dir`: `more` options after the model and columns
+/// (`--neighbours FILE` for the neighbour prior).
+fn fit_counties_with(dir: &std::path::Path, more: &[&str]) -> std::process::Output {
+    let input = fixture("neighbours/nc_sids.csv");
+    let columns = "--group county --events deaths --exposure expected";
+    let mut args = vec!["fit", "--model", "gamma-poisson", "--input", input.to_str().unwrap()];
+    args.extend(columns.split(' '));
+    args.extend(more);
+    ratepool(dir, &args)
+}
+
+/// The NC counties' fit with `table` as the neighbour table; more options after.
+fn fit_counties(dir: &std::path::Path, table: &str, more: &[&str]) -> std::process::Output {
+    let mut args = vec!["--neighbours", table];
+    args.extend(more);
+    fit_counties_with(dir, &args)
+}
+
+#[test]
+fn fit_with_neighbours_gives_each_county_marshalls_estimate_and_its_gamma_posterior() {
+    let dir = tempfile::tempdir().unwrap();
+    let gal = fixture("neighbours/nc_sids_neighbours.csv");
+    let out =
+        fit_counties(dir.path(), gal.to_str().unwrap(), &["--output", "out.csv", "--summary", "s.json"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let table = Csv::read(&dir.path().join("out.csv"));
+    let reference = json_fixture("neighbours/marshall.json");
+    let column = |name: &str| -> Vec<f64> {
+        reference[name].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect()
+    };
+    let (means, variances) = (column("local_mean"), column("local_variance"));
+    let (shrinkage, posterior) = (column("shrinkage"), column("posterior_mean"));
+    let (deaths, expected) = (table.floats("deaths"), table.floats("expected"));
+    let (sds, weights) = (table.floats("posterior_sd"), table.floats("pool_weight"));
+    let (ours_prior, ours_posterior) = (table.floats("prior_mean"), table.floats("posterior_mean"));
+    let counts = table.column("neighbours");
+    // Each county's neighbourhood (itself and its GAL neighbours): total deaths and expected.
+    let ids = table.column("county");
+    let mut totals: HashMap<&str, (f64, f64)> =
+        ids.iter().enumerate().map(|(i, id)| (id.as_str(), (deaths[i], expected[i]))).collect();
+    let place: HashMap<&str, usize> = ids.iter().enumerate().map(|(i, id)| (id.as_str(), i)).collect();
+    for pair in &Csv::read(&gal).rows {
+        for (a, b) in [(&pair[0], &pair[1]), (&pair[1], &pair[0])] {
+            let total = totals.get_mut(a.as_str()).unwrap();
+            total.0 += deaths[place[b.as_str()]];
+            total.1 += expected[place[b.as_str()]];
+        }
+    }
+    let mut pooled = 0;
+    for (i, county) in ids.iter().enumerate() {
+        assert_eq!(reference["county"][i].as_i64().unwrap().to_string(), *county, "row order is the input's");
+        assert_eq!(counts[i], reference["neighbours"][i].as_i64().unwrap().to_string(), "{county}");
+        assert!(relative(ours_prior[i], means[i]) < 1e-13, "{county}: prior_mean {}", ours_prior[i]);
+        assert!(relative(ours_posterior[i], posterior[i]) < 1e-12, "{county}: {}", ours_posterior[i]);
+        // The Gamma posterior with prior mean m and variance v (textbook conjugacy):
+        // shape m²/v + O, rate m/v + E, so sd = sqrt(shape) / rate, and pool_weight (the
+        // prior's share of the posterior mean) is 1 - C_i. Where v = 0 the posterior is the
+        // neighbourhood's pooled counts, Gamma(Σ O, Σ E) (the README's rule): mean m_i, and
+        // pool_weight the neighbours' share of the exposure.
+        let (want_sd, want_weight) = if variances[i] > 0.0 {
+            let (shape, rate) = (means[i] * means[i] / variances[i], means[i] / variances[i]);
+            ((shape + deaths[i]).sqrt() / (rate + expected[i]), 1.0 - shrinkage[i])
+        } else {
+            pooled += 1;
+            let (events, exposure) = totals[county.as_str()];
+            assert!(
+                relative(events / exposure, means[i]) < 1e-13,
+                "{county}: the local mean is the pooled rate"
+            );
+            if events > deaths[i] {
+                (events.sqrt() / exposure, 1.0 - expected[i] / exposure)
+            } else {
+                // The neighbours have no deaths: a point mass at m_i, as Marshall's estimate.
+                (0.0, 1.0)
+            }
+        };
+        assert!((weights[i] - want_weight).abs() < 1e-12, "{county}: pool_weight {}", weights[i]);
+        assert!(
+            (sds[i] - want_sd).abs() <= 1e-12 * want_sd.max(1e-300),
+            "{county}: sd {} against {want_sd}",
+            sds[i]
+        );
+    }
+    assert_eq!(pooled, 56);
+    let hoods = &crate::util::summary(&dir.path().join("s.json"))["neighbourhood"];
+    assert_eq!(hoods["areas"], 100);
+    assert_eq!(hoods["pairs"], 231);
+    assert_eq!(hoods["rows"], 231);
+    assert_eq!(hoods["zero_variance"], 56, "the counties numpy floors at 0");
+    assert_eq!(hoods["without_neighbours"], 0);
+    assert_eq!(hoods["rows_left_out"], 0);
+    let printed = String::from_utf8(out.stdout).unwrap();
+    assert!(printed.contains("  all areas    Gamma("), "{printed}");
+    assert!(printed.contains("(231 pairs of neighbours over 100 areas, "), "{printed}");
+    assert!(
+        printed.contains("56 pooled to the local rate (local variance 0), 0 without neighbours"),
+        "{printed}"
+    );
+}
+
+#[test]
+fn a_neighbour_table_listed_either_way_round_or_twice_gives_the_same_output() {
+    let dir = tempfile::tempdir().unwrap();
+    let gal = Csv::read(&fixture("neighbours/nc_sids_neighbours.csv"));
+    let lines = |rows: &mut dyn Iterator<Item = String>| -> String {
+        std::iter::once("from,to".to_string()).chain(rows).map(|l| l + "\n").collect()
+    };
+    let reversed = lines(&mut gal.rows.iter().map(|r| format!("{},{}", r[1], r[0])));
+    let twice = lines(
+        &mut gal.rows.iter().flat_map(|r| [format!("{},{}", r[0], r[1]), format!("{},{}", r[1], r[0])]),
+    );
+    let original = fixture("neighbours/nc_sids_neighbours.csv");
+    let mut outputs = Vec::new();
+    for (name, text) in [("reversed.csv", Some(reversed)), ("twice.csv", Some(twice)), ("original.csv", None)]
+    {
+        let table = match text {
+            Some(text) => crate::util::write(dir.path(), name, &text),
+            None => original.to_str().unwrap().to_string(),
+        };
+        let output = format!("out-{name}");
+        let out = fit_counties(dir.path(), &table, &["--output", &output]);
+        assert!(out.status.success(), "{}", stderr(&out));
+        outputs.push(std::fs::read(dir.path().join(output)).unwrap());
+    }
+    assert!(outputs[0] == outputs[2] && outputs[1] == outputs[2], "the relation is made symmetric");
+}
+
+#[test]
+fn an_area_without_neighbours_takes_the_all_areas_prior_and_unknown_areas_are_left_out_with_a_warning() {
+    let dir = tempfile::tempdir().unwrap();
+    let gal = Csv::read(&fixture("neighbours/nc_sids_neighbours.csv"));
+    // Ashe (37009) loses its neighbours; a row names an area not in the data.
+    let mut text = String::from("area,neighbour\n");
+    for row in gal.rows.iter().filter(|r| r[0] != "37009" && r[1] != "37009") {
+        text.push_str(&format!("{},{}\n", row[0], row[1]));
+    }
+    text.push_str("37001,99999\n");
+    let table = crate::util::write(dir.path(), "pairs.csv", &text);
+    let out = fit_counties(dir.path(), &table, &["--output", "local.csv", "--summary", "s.json"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let warnings = stderr(&out);
+    assert!(warnings.contains("1 of 100 areas have no neighbour among the areas scored"), "{warnings}");
+    assert!(warnings.contains("1 of the 229 rows of the neighbour table"), "{warnings}");
+    assert!(warnings.contains("(the first: '99999'); they were left out"), "{warnings}");
+    let hoods = &crate::util::summary(&dir.path().join("s.json"))["neighbourhood"];
+    assert_eq!((hoods["without_neighbours"].as_u64(), hoods["rows_left_out"].as_u64()), (Some(1), Some(1)));
+    assert_eq!(hoods["first_left_out"], "99999");
+    // The plain fit of the same counties gives Ashe the all-areas prior's posterior.
+    let plain = fit_counties_with(dir.path(), &["--output", "plain.csv"]);
+    assert!(plain.status.success(), "{}", stderr(&plain));
+    let (local, plain) = (Csv::read(&dir.path().join("local.csv")), Csv::read(&dir.path().join("plain.csv")));
+    assert_eq!(local.column("county")[0], "37009");
+    assert_eq!(local.column("neighbours")[0], "0");
+    for column in ["posterior_mean", "posterior_sd", "interval_lo", "interval_hi"] {
+        assert_eq!(local.column(column)[0], plain.column(column)[0], "{column}");
+    }
+}
+
+#[test]
+fn summed_areas_by_stratum_take_the_same_neighbour_priors_as_one_row_per_area() {
+    let dir = tempfile::tempdir().unwrap();
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let bands = root.join("demo-data/district_bands.csv");
+    let map = root.join("demo-data/district_map.geojson");
+    let made = ratepool(
+        dir.path(),
+        &["neighbours", "--map", map.to_str().unwrap(), "--key", "district_id", "--output", "pairs.csv"],
+    );
+    assert!(made.status.success(), "{}", stderr(&made));
+    let summed = ratepool(
+        dir.path(),
+        &[
+            "fit",
+            "--model",
+            "gamma-poisson",
+            "--input",
+            bands.to_str().unwrap(),
+            "--group",
+            "district_id",
+            "--events",
+            "cases",
+            "--population",
+            "population",
+            "--strata",
+            "age_band",
+            "--neighbours",
+            "pairs.csv",
+            "--above",
+            "1.2",
+            "--output",
+            "summed.csv",
+            "--report",
+            "r.html",
+        ],
+    );
+    assert!(summed.status.success(), "{}", stderr(&summed));
+    // The report says where each area's centre comes from, and what that costs.
+    let page = std::fs::read_to_string(dir.path().join("r.html")).unwrap();
+    assert!(
+        page.contains("each area&#39;s own, fitted by moments to its neighbourhood (400 areas, 1121 pairs")
+    );
+    assert!(
+        page.contains("Raw value against each group&#39;s prior centre (`prior_mean`, from its neighbours)")
+    );
+    assert!(page.contains("an area can be flagged for its neighbours&#39; cases rather than its own"));
+    // The summed table's areas, read again one row per area.
+    let once = ratepool(
+        dir.path(),
+        &[
+            "fit",
+            "--model",
+            "gamma-poisson",
+            "--input",
+            "summed.csv",
+            "--group",
+            "district_id",
+            "--events",
+            "cases",
+            "--exposure",
+            "expected",
+            "--neighbours",
+            "pairs.csv",
+            "--above",
+            "1.2",
+            "--output",
+            "once.csv",
+        ],
+    );
+    assert!(once.status.success(), "{}", stderr(&once));
+    let (summed, once) = (Csv::read(&dir.path().join("summed.csv")), Csv::read(&dir.path().join("once.csv")));
+    assert_eq!(summed.column("district_id").len(), 400);
+    for column in ["district_id", "neighbours", "prior_mean", "posterior_mean", "interval_hi", "prob_above"] {
+        assert_eq!(summed.column(column), once.column(column), "{column}");
+    }
+}
+
+#[test]
+fn neighbour_tables_and_options_that_cannot_be_used_are_refused_and_nothing_is_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let gal = fixture("neighbours/nc_sids_neighbours.csv");
+    let gal = gal.to_str().unwrap();
+    let input = fixture("neighbours/nc_sids.csv");
+    let input = input.to_str().unwrap();
+    let base = [
+        "fit",
+        "--model",
+        "gamma-poisson",
+        "--input",
+        input,
+        "--group",
+        "county",
+        "--events",
+        "deaths",
+        "--exposure",
+        "expected",
+        "--output",
+        "out.csv",
+    ];
+    let refused = |table: &str, more: &[&str], message: &str| {
+        let mut args = base.to_vec();
+        args.extend(["--neighbours", table]);
+        args.extend(more);
+        assert_refused(dir.path(), &args, message, "out.csv");
+    };
+    let missing = crate::util::write(dir.path(), "missing.csv", "a,b\n37001,37033\n37001,\n");
+    refused(&missing, &[], "missing.csv: row 2, column 'b': missing neighbour");
+    let one = crate::util::write(dir.path(), "one.csv", "a\n37001\n");
+    refused(&one, &[], "a neighbour table needs two columns, an area and its neighbour (by the ids of the column 'county'); it has 1");
+    let strangers = crate::util::write(dir.path(), "strangers.csv", "a,b\nx,y\nx,z\n");
+    refused(
+        &strangers,
+        &[],
+        "none of its 2 rows names two areas of the input (the first area not found: 'x')",
+    );
+    refused("absent.csv", &[], "absent.csv: no such file");
+    refused(gal, &["--by", "name"], "--neighbours does not combine with --by");
+    refused(gal, &["--covariates", "births"], "--neighbours does not combine with covariates");
+    refused(gal, &["--intervals", "corrected"], "--neighbours does not combine with --intervals corrected");
+    refused(gal, &["--prior-shape", "free"], "--neighbours does not combine with --prior-shape free");
+    refused(gal, &["--pair-output", "pairs.csv"], "--neighbours does not combine with --pair-output");
+    refused(gal, &["--output", gal], "--neighbours");
+    // Only the gamma-poisson model has a neighbour prior.
+    let rates = crate::util::write(dir.path(), "rates.csv", "county,k,n\n37001,1,4\n37033,2,5\n");
+    assert_refused(
+        dir.path(),
+        &[
+            "fit", "--model", "beta-binomial", "--input", &rates, "--group", "county", "--successes", "k",
+            "--trials", "n", "--neighbours", gal, "--output", "out.csv",
+        ],
+        "--neighbours applies to the gamma-poisson model (areas' events against their expected counts), not beta-binomial",
+        "out.csv",
+    );
+    // A saved neighbour fit is not a prior for other areas.
+    let fitted = fit_counties(dir.path(), gal, &["--output", "fitted.csv", "--summary", "s.json"]);
+    assert!(fitted.status.success(), "{}", stderr(&fitted));
+    assert_refused(
+        dir.path(),
+        &[
+            "score", "--prior", "s.json", "--input", input, "--group", "county", "--events", "deaths",
+            "--exposure", "expected", "--output", "out.csv",
+        ],
+        "each area's prior came from its neighbours' data, which the summary does not hold; fit again with --neighbours",
+        "out.csv",
+    );
+}

@@ -70,6 +70,11 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
             .find_map(|b| b.lines().rfind(|l| l.starts_with("cargo run -- fit")))
             .unwrap_or_else(|| panic!("no command before the output {block}"));
         let dir = scratch();
+        // A neighbour table the command reads is made first, as the README's block makes it.
+        let block_of_command = blocks[..i].iter().rev().find(|b| b.lines().any(|l| l == command)).unwrap();
+        for line in block_of_command.lines().filter(|l| l.starts_with("cargo run -- neighbours")) {
+            run(dir.path(), line);
+        }
         let printed = run(dir.path(), command);
         let (pasted, printed): (Vec<&str>, Vec<&str>) = (block.lines().collect(), printed.lines().collect());
         assert!(
@@ -80,8 +85,8 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         compared += 1;
     }
     assert_eq!(
-        compared, 7,
-        "the marketplace, sellers, storefronts, star sellers, district bands, returns and clinics outputs"
+        compared, 8,
+        "the marketplace, sellers, storefronts, star sellers, district bands (global and neighbour priors), returns and clinics outputs"
     );
 }
 
@@ -222,6 +227,81 @@ fn the_district_bands_figures_in_the_prose() {
     printed(district("smr"), 2, "1.70");
     printed(district("cases"), 0, "14");
     assert!(!flag_of("district-0101"));
+}
+
+/// Mean squared error of `column` against the districts' hidden risks, over `ids` (or all).
+fn squared_error(
+    table: &Csv,
+    column: &str,
+    truth: &std::collections::HashMap<String, f64>,
+    ids: Option<&[String]>,
+) -> f64 {
+    let (names, values) = (table.column("district_id"), table.floats(column));
+    let chosen: Vec<(f64, f64)> = names
+        .iter()
+        .zip(values)
+        .filter(|(id, _)| ids.is_none_or(|ids| ids.contains(id)))
+        .map(|(id, v)| (v, truth[id]))
+        .collect();
+    assert!(!chosen.is_empty());
+    chosen.iter().map(|(v, t)| (v - t) * (v - t)).sum::<f64>() / chosen.len() as f64
+}
+
+#[test]
+fn the_neighbour_prior_figures_in_the_prose() {
+    let dir = scratch();
+    let common = "fit --model gamma-poisson --input demo-data/district_bands.csv --group district_id --events cases --population population --strata age_band --above 1.2 --flag-fdr 0.1";
+    run(
+        dir.path(),
+        "neighbours --map demo-data/district_map.geojson --key district_id --output district_neighbours.csv",
+    );
+    run(dir.path(), &format!("{common} --output global.csv"));
+    run(dir.path(), &format!("{common} --neighbours district_neighbours.csv --output local.csv"));
+    let truth_table = Csv::read(&root().join("demo-data/district_truth.csv"));
+    let truth: std::collections::HashMap<String, f64> =
+        truth_table.column("district_id").into_iter().zip(truth_table.floats("true_risk")).collect();
+    let hot: Vec<String> = (101..=112).map(|i| format!("district-{i:04}")).collect();
+    let (global, local) =
+        (Csv::read(&dir.path().join("global.csv")), Csv::read(&dir.path().join("local.csv")));
+    let flagged = |table: &Csv| -> Vec<String> {
+        let ids = table.column("district_id");
+        ids.into_iter().zip(table.column("flagged")).filter(|(_, f)| f == "true").map(|(id, _)| id).collect()
+    };
+    let (global_flags, local_flags) = (flagged(&global), flagged(&local));
+    let truly = |flags: &[String]| flags.iter().filter(|id| truth[id.as_str()] > 1.2).count();
+    let in_hot = |flags: &[String]| flags.iter().filter(|id| hot.contains(id)).count();
+    assert_eq!((global_flags.len(), truly(&global_flags), in_hot(&global_flags)), (19, 19, 7));
+    assert_eq!((local_flags.len(), truly(&local_flags), in_hot(&local_flags)), (31, 29, 9));
+    let wrong: Vec<&String> = local_flags.iter().filter(|id| truth[id.as_str()] <= 1.2).collect();
+    assert_eq!(wrong, ["district-0076", "district-0208"]);
+    let (before, after) =
+        (row(&global, "district_id", "district-0101"), row(&local, "district_id", "district-0101"));
+    printed(after("smr"), 2, "1.70");
+    printed(after("cases"), 0, "14");
+    printed(before("posterior_mean"), 2, "1.19");
+    assert!(
+        !global_flags.contains(&"district-0101".to_string())
+            && local_flags.contains(&"district-0101".to_string())
+    );
+    printed(after("prior_mean"), 2, "1.60");
+    printed(after("posterior_mean"), 2, "1.62");
+    printed(after("prob_above"), 2, "0.99");
+    for (id, smr, risk, centre) in
+        [("district-0076", "1.08", "0.90", "1.23"), ("district-0208", "1.16", "1.15", "1.29")]
+    {
+        let district = row(&local, "district_id", id);
+        printed(district("smr"), 2, smr);
+        printed(truth[id], 2, risk);
+        printed(district("prior_mean"), 2, centre);
+        // Local variance 0: the prior is the neighbours' pooled counts, so the posterior
+        // mean is the neighbourhood's rate, the prior centre.
+        assert!((district("posterior_mean") - district("prior_mean")).abs() < 1e-12, "{id}");
+    }
+    printed(squared_error(&local, "posterior_mean", &truth, Some(&hot)), 3, "0.023");
+    printed(squared_error(&global, "posterior_mean", &truth, Some(&hot)), 3, "0.109");
+    printed(squared_error(&global, "posterior_mean", &truth, None), 4, "0.0286");
+    printed(squared_error(&local, "posterior_mean", &truth, None), 4, "0.0327");
+    printed(squared_error(&local, "smr", &truth, None), 4, "0.0484");
 }
 
 #[test]

@@ -229,6 +229,7 @@ impl Family for BetaBinomial {
             funnel_x: FunnelAxis::Size,
             unit_variance: |p| p * (1.0 - p),
         },
+        local_prior: None,
     };
 
     type AtPoint = BetaPoint;

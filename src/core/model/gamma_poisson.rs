@@ -103,6 +103,7 @@ impl Family for GammaPoisson {
             funnel_x: FunnelAxis::Size,
             unit_variance: |rate| rate,
         },
+        local_prior: Some(super::neighbourhood::LocalPrior::gamma_prior),
     };
 
     type AtPoint = GammaPoint;

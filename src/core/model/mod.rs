@@ -215,6 +215,10 @@ pub struct ModelTerms {
     pub prior_words: PriorWords,
     /// The words and axes of the report's plots.
     pub plots: PlotTerms,
+    /// How an area's prior fitted by moments to its neighbourhood
+    /// ([`neighbourhood`], `--neighbours`) becomes a prior of this family's
+    /// law; None for a family without that variant.
+    pub local_prior: Option<fn(&neighbourhood::LocalPrior) -> Prior>,
 }
 
 impl ModelTerms {

@@ -6,12 +6,22 @@
 //! * local mean m_i = Σ O_j / Σ E_j over the neighbourhood S_i;
 //! * local variance v_i = Σ E_j (O_j/E_j − m_i)² / Σ E_j − m_i / Ē_i, with Ē_i
 //!   the mean exposure over S_i, set to 0 where negative;
-//! * the prior is Gamma(shape m_i²/v_i, rate m_i/v_i), or a point mass at m_i
-//!   where v_i = 0, so the posterior mean is Marshall's
-//!   m_i + C_i (O_i/E_i − m_i) with C_i = v_i / (v_i + m_i/E_i).
+//! * the prior is Gamma(shape m_i²/v_i, rate m_i/v_i), so the posterior mean
+//!   is Marshall's m_i + C_i (O_i/E_i − m_i) with C_i = v_i / (v_i + m_i/E_i).
+//!
+//! Where v_i = 0 Marshall's estimate is m_i itself: the neighbourhood's
+//! rates vary no more than Poisson noise, so it is pooled into one rate. A
+//! point mass at m_i would claim that rate known exactly (a point interval,
+//! exceedance 0 or 1), though it rests on the neighbourhood's counts alone.
+//! The prior there is the neighbours' pooled counts instead,
+//! Gamma(Σ O_j, Σ E_j) over the neighbours j ≠ i: the area's posterior is
+//! then Gamma(Σ O_j, Σ E_j) over the whole neighbourhood, whose mean is still
+//! m_i (Marshall's estimate) and whose spread is that of the pooled rate
+//! (a point mass remains only where the neighbours have no events).
 //!
 //! Pure numerics: the neighbour relation comes in as area numbers.
 
+use super::Prior;
 use rayon::prelude::*;
 
 /// Who neighbours whom: for every area, its neighbours (symmetric, each
@@ -61,6 +71,10 @@ pub struct LocalPrior {
     pub mean: f64,
     /// v_i: the spread of the rates about it beyond Poisson noise (0: none).
     pub variance: f64,
+    /// Σ O_j over the neighbours (the area left out).
+    pub neighbour_events: f64,
+    /// Σ E_j over the neighbours (the area left out).
+    pub neighbour_exposure: f64,
 }
 
 impl LocalPrior {
@@ -68,6 +82,20 @@ impl LocalPrior {
     pub fn gamma(&self) -> Option<(f64, f64)> {
         (self.variance > 0.0 && self.mean > 0.0)
             .then(|| (self.mean * self.mean / self.variance, self.mean / self.variance))
+    }
+
+    /// The prior as the gamma-Poisson model holds it (natural parameters
+    /// shape and rate): Gamma(m_i²/v_i, m_i/v_i) where v_i > 0; where v_i = 0
+    /// the neighbours' pooled counts, Gamma(Σ O_j, Σ E_j) over j ≠ i (see the
+    /// module's note), or a point mass at m_i where they hold no events.
+    pub fn gamma_prior(&self) -> Prior {
+        match self.gamma() {
+            Some((shape, rate)) => Prior::Conjugate { natural: [shape, rate] },
+            None if self.neighbour_events > 0.0 && self.neighbour_exposure > 0.0 => {
+                Prior::Conjugate { natural: [self.neighbour_events, self.neighbour_exposure] }
+            }
+            None => Prior::CompletePooling { mean: self.mean },
+        }
     }
 
     /// Marshall's shrinkage factor C_i of an area with exposure `exposure`:
@@ -126,7 +154,8 @@ pub fn local_priors(
                 / exposed;
             let mean_exposure = exposed / (around.len() + 1) as f64;
             let variance = (spread - mean / mean_exposure).max(0.0);
-            Some(LocalPrior { mean, variance })
+            let (neighbour_events, neighbour_exposure) = (observed - events[i], exposed - exposure[i]);
+            Some(LocalPrior { mean, variance, neighbour_events, neighbour_exposure })
         })
         .collect()
 }
@@ -149,11 +178,14 @@ mod tests {
         // Rates within Poisson noise of each other: v = 0, so the posterior is the local mean.
         let hoods = Neighbourhoods::from_pairs(3, [(0, 1)]);
         let priors = local_priors(&[10.0, 11.0, 3.0], &[10.0, 10.0, 1.0], &hoods);
-        let alike = priors[0].unwrap();
-        assert_eq!(alike, priors[1].unwrap());
+        let (alike, other) = (priors[0].unwrap(), priors[1].unwrap());
+        assert_eq!((alike.mean, alike.variance), (other.mean, other.variance));
         assert_eq!(alike.mean, 21.0 / 20.0);
         assert_eq!(alike.variance, 0.0);
         assert_eq!(alike.posterior_mean(10.0, 10.0), alike.mean);
+        // Its Gamma prior is the neighbour's counts; the posterior, the pair's pooled counts.
+        assert_eq!(alike.gamma_prior(), Prior::Conjugate { natural: [11.0, 10.0] });
+        assert_eq!(other.gamma_prior(), Prior::Conjugate { natural: [10.0, 10.0] });
         assert_eq!(priors[2], None, "no neighbours: the all-areas prior instead");
         // Rates far apart: v > 0, and the Gamma posterior mean (a + O)/(b + E) is m + C (O/E − m).
         let hoods = Neighbourhoods::from_pairs(2, [(0, 1)]);

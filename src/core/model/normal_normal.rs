@@ -107,6 +107,7 @@ impl Family for NormalNormal {
             funnel_x: FunnelAxis::Precision,
             unit_variance: |_| 1.0,
         },
+        local_prior: None,
     };
 
     type AtPoint = [f64; 2];
