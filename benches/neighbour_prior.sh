@@ -31,3 +31,11 @@ for _ in $(seq "$runs"); do
   timed "$log" "$areas" local -- "${common[@]}" --neighbours "$pairs"
 done
 "$python" benches/common/medians.py "$log" plain
+# The target, checked: the neighbour prior's whole run under a second.
+"$python" - "$log" <<'PY'
+import statistics, sys
+walls = [float(line.split("\t")[2]) for line in open(sys.argv[1]) if line.split("\t")[1] == "local"]
+median = statistics.median(walls)
+print(f"fit --neighbours: median {median:.2f} s (target under 1 s: {'met' if median < 1.0 else 'NOT met'})")
+sys.exit(0 if median < 1.0 else 1)
+PY
