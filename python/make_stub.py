@@ -28,6 +28,7 @@ TYPES = {
     "P": "float",
     "Q": "float",
     "FILE": "Union[str, os.PathLike[str]]",
+    "PROPERTY": "str",
     "FOLDER": "Union[str, os.PathLike[str]]",
     "COLUMN": "str",
     "CHAR": "str",

@@ -3,7 +3,8 @@
 # Debian's chromium (when missing) and playwright-core (pinned in
 # scripts/browser/package-lock.json), writes reports of the demo data (a plain
 # fit with flags and ranks, the normal model, a segmented fit through
-# `ratepool report`, and a free prior), opens each headless, screenshots every plot into
+# `ratepool report`, a free prior, and the demo districts with the neighbour prior
+# and their map), opens each headless, screenshots every plot into
 # SCREENSHOTS (default target/report-check), and fails when a plot is missing
 # or empty or the page logs an error.
 #
@@ -31,5 +32,10 @@ trap 'rm -rf "$work"' EXIT
 "$bin" --quiet fit --input demo-data/storefronts.csv --model beta-binomial --group storefront_id \
   --successes purchases --trials visits --prior-shape free --below 0.02 --flag-fdr 0.05 \
   --output "$work/storefronts.csv" --summary "$work/storefronts.json" --report "$work/storefronts.html"
+"$bin" neighbours --map demo-data/district_map.geojson --key district_id --output "$work/district_neighbours.csv"
+"$bin" --quiet fit --input demo-data/district_bands.csv --model gamma-poisson --group district_id --events cases \
+  --population population --strata age_band --neighbours "$work/district_neighbours.csv" --above 1.2 --flag-fdr 0.1 \
+  --output "$work/bands.csv" --summary "$work/bands.json" --report "$work/bands.html" \
+  --map demo-data/district_map.geojson --map-key district_id
 node scripts/browser/check_report.mjs "$shots" "$work/districts.html" "$work/clinics.html" "$work/returns.html" \
-  "$work/storefronts.html"
+  "$work/storefronts.html" "$work/bands.html"

@@ -13,7 +13,7 @@ use crate::pipeline::{
 };
 use crate::progress::{Terminal, Watch};
 use clap::{Args, Parser, Subcommand, ValueEnum};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 /// Empirical-Bayes shrinkage of rates over many groups.
 #[derive(Debug, Parser)]
@@ -352,6 +352,22 @@ pub struct ReportArgs {
         long_help = "The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans)."
     )]
     pub plot_format: PlotFormatArg,
+    /// Draw the areas of this map in the report
+    #[arg(
+        long_help = "A GeoJSON map of the groups (areas): a FeatureCollection of Polygon or MultiPolygon features, each naming its group id in the property --map-key. The report then draws each area's raw value and posterior mean side by side on one colour scale, with --above the probability of exceeding it, and the flagged areas outlined; areas on the map but not in the table, and the reverse, are listed under it.",
+        long,
+        value_name = "FILE",
+        requires = "map_key"
+    )]
+    pub map: Option<PathBuf>,
+    /// The map's property naming each area's group
+    #[arg(
+        long_help = "The property of each feature of --map that holds its group id, as the group column writes it.",
+        long,
+        value_name = "PROPERTY",
+        requires = "map"
+    )]
+    pub map_key: Option<String>,
     /// Seed of the scatter plots' samples
     #[arg(long, value_name = "N", default_value_t = crate::pipeline::DEFAULT_SEED, long_help = "Seed of the samples drawn for the scatter plots (default 20261202).", hide_default_value = true)]
     pub seed: u64,
@@ -699,6 +715,18 @@ pub struct TableArgs {
     /// svg or png, for --plots
     #[arg(long_help = "The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans).", long, value_enum, value_name = "FORMAT", default_value_t = PlotFormatArg::Svg, hide_possible_values = true, requires = "plots", help_heading = "Output")]
     pub plot_format: PlotFormatArg,
+    /// Draw the areas of this map in the report
+    #[arg(long_help = "With --report: A GeoJSON map of the groups (areas): a FeatureCollection of Polygon or MultiPolygon features, each naming its group id in the property --map-key. The report then draws each area's raw value and posterior mean side by side on one colour scale, with --above the probability of exceeding it, and the flagged areas outlined; areas on the map but not in the table, and the reverse, are listed under it.", long, value_name = "FILE", requires_all = ["report", "map_key"], help_heading = "Output")]
+    pub map: Option<PathBuf>,
+    /// The map's property naming each area's group
+    #[arg(
+        long_help = "The property of each feature of --map that holds its group id, as the group column writes it.",
+        long,
+        value_name = "PROPERTY",
+        requires = "map",
+        help_heading = "Output"
+    )]
+    pub map_key: Option<String>,
     /// How the run speaks.
     #[command(flatten)]
     pub run: RunArgs,
@@ -834,6 +862,7 @@ fn refuse_overlaps<'a>(
         more_inputs.into_iter().filter_map(|(option, path)| path.map(|path| RunPath { option, path })),
     );
     inputs.extend(table.config.as_deref().map(|path| RunPath { option: "--config", path }));
+    inputs.extend(table.map.as_deref().map(|path| RunPath { option: "--map", path }));
     let outputs: Vec<RunPath<'_>> = [
         ("--output", &table.output),
         ("--summary", &table.summary),
@@ -1486,8 +1515,11 @@ fn run_report(args: &ReportArgs) -> Result<()> {
     ];
     let mut outputs = vec![RunPath { option: "--output", path: &args.output }];
     outputs.extend(args.plots.as_deref().map(|path| RunPath { option: "--plots", path }));
+    let mut inputs = inputs.to_vec();
+    inputs.extend(args.map.as_deref().map(|path| RunPath { option: "--map", path }));
     crate::io::overlap::refuse_overlaps(&inputs, &outputs)?;
     let summary = load_summary(&args.summary)?;
+    let shown = report_map(args.map.as_deref(), args.map_key.as_deref())?;
     crate::view::write_report(&crate::view::ReportRequest {
         table: &args.table,
         summary: &summary,
@@ -1495,7 +1527,16 @@ fn run_report(args: &ReportArgs) -> Result<()> {
         plots: args.plots.as_deref(),
         plot_format: args.plot_format.format(),
         seed: args.seed,
+        map: shown.as_ref(),
     })
+}
+
+/// The map of `--map FILE --map-key PROPERTY`, read (and a bad one refused)
+/// before anything is written.
+fn report_map(path: Option<&Path>, key: Option<&str>) -> Result<Option<crate::view::map::ReportMap>> {
+    let (Some(path), Some(key)) = (path, key) else { return Ok(None) };
+    let areas = crate::io::geojson::read_map(path, key)?;
+    Ok(Some(crate::view::map::ReportMap { file: path.display().to_string(), key: key.to_string(), areas }))
 }
 
 /// `neighbours`: the map's areas, their neighbour pairs written as a table;
@@ -1558,6 +1599,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         (table.pair_output.is_some(), "--pair-output"),
         (table.report.is_some(), "--report"),
         (table.plots.is_some(), "--plots"),
+        (table.map.is_some(), "--map"),
         (args.pair_counts.is_some(), "--pair-counts"),
         (args.prior_shape == PriorShapeArg::Free, "--prior-shape free"),
         (args.grid_points.is_some(), "--grid-points"),
@@ -1748,6 +1790,7 @@ impl Command {
             .cloned()
             .collect();
         let input = source(&table.input);
+        let shown = report_map(table.map.as_deref(), table.map_key.as_deref())?;
         let mut job = self.into_job()?;
         job.input = input;
         let summary = crate::pipeline::run(&job, observer)?;
@@ -1759,6 +1802,7 @@ impl Command {
                 plots: plots.as_deref(),
                 plot_format,
                 seed: job.seed,
+                map: shown.as_ref(),
             })
             .map_err(|e| {
                 Error::Other(format!("the table and summary were written, but not the report: {e}"))

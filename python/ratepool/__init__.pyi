@@ -57,6 +57,8 @@ def fit(
     report: Optional[Union[str, os.PathLike[str]]] = None,  # Also write the HTML report of the run
     plots: Optional[Union[str, os.PathLike[str]]] = None,  # Also write each plot into this folder
     plot_format: Optional[Literal['svg', 'png']] = None,  # svg or png, for --plots
+    map: Optional[Union[str, os.PathLike[str]]] = None,  # Draw the areas of this map in the report
+    map_key: Optional[str] = None,  # The map's property naming each area's group
     threads: Optional[int] = None,  # Worker threads (default: all cores)
     quiet: Optional[bool] = None,  # Print nothing but errors
     timings: Optional[bool] = None,  # Print the wall time of each phase on stderr
@@ -113,6 +115,8 @@ def score(
     report: Optional[Union[str, os.PathLike[str]]] = None,  # Also write the HTML report of the run
     plots: Optional[Union[str, os.PathLike[str]]] = None,  # Also write each plot into this folder
     plot_format: Optional[Literal['svg', 'png']] = None,  # svg or png, for --plots
+    map: Optional[Union[str, os.PathLike[str]]] = None,  # Draw the areas of this map in the report
+    map_key: Optional[str] = None,  # The map's property naming each area's group
     threads: Optional[int] = None,  # Worker threads (default: all cores)
     quiet: Optional[bool] = None,  # Print nothing but errors
     timings: Optional[bool] = None,  # Print the wall time of each phase on stderr
@@ -168,6 +172,8 @@ def fit_pairs(
     report: Optional[Union[str, os.PathLike[str]]] = None,  # Also write the HTML report of the run
     plots: Optional[Union[str, os.PathLike[str]]] = None,  # Also write each plot into this folder
     plot_format: Optional[Literal['svg', 'png']] = None,  # svg or png, for --plots
+    map: Optional[Union[str, os.PathLike[str]]] = None,  # Draw the areas of this map in the report
+    map_key: Optional[str] = None,  # The map's property naming each area's group
     threads: Optional[int] = None,  # Worker threads (default: all cores)
     quiet: Optional[bool] = None,  # Print nothing but errors
     timings: Optional[bool] = None,  # Print the wall time of each phase on stderr

@@ -36,7 +36,28 @@ for (const report of reports) {
     width: f.querySelector("svg")?.getBoundingClientRect().width ?? 0,
     height: f.querySelector("svg")?.getBoundingClientRect().height ?? 0,
   })));
-  for (const expected of EXPECTED) {
+  // A map: every area of the map drawn once per panel, each panel's areas with
+  // different keys, and a legend with the scale's classes.
+  const maps = await page.$$eval("figure.plot svg[data-areas]", (svgs) => svgs.map((svg) => ({
+    name: svg.closest("figure").dataset.plot,
+    areas: Number(svg.dataset.areas),
+    panels: [...svg.querySelectorAll("g.panel")].map((g) => {
+      const keys = [...g.querySelectorAll("path.area")].map((p) => p.dataset.key);
+      return { drawn: keys.length, distinct: new Set(keys).size };
+    }),
+    legend: svg.querySelectorAll("g.legend rect").length,
+  })));
+  for (const map of maps) {
+    for (const panel of map.panels) {
+      if (panel.drawn !== map.areas || panel.distinct !== map.areas) {
+        fail(`${report}: map ${map.name} draws ${panel.drawn} areas (${panel.distinct} distinct) of ${map.areas}`);
+      }
+    }
+    if (map.panels.length === 0 || map.legend < 3) fail(`${report}: map ${map.name} has no panel or no legend`);
+    console.log(`${report}: ${map.name}: ${map.panels.length} panels of ${map.areas} areas each, ${map.legend} legend swatches`);
+  }
+  const expectedPlots = plots.some((p) => p.name === "centres") ? EXPECTED.filter((e) => e !== "prior") : EXPECTED;
+  for (const expected of expectedPlots) {
     if (!plots.some((p) => p.name === expected)) fail(`${report}: plot ${expected} is missing`);
   }
   for (const plot of plots) {

@@ -2,6 +2,7 @@
 //! bounded memory whatever the number of groups: a seeded sample for the
 //! scatter plots, the few groups each table lists, and histograms.
 
+use super::map::AreaValues;
 use crate::core::model::Model;
 use crate::error::{Error, Result};
 use crate::io::cells::{float_column, GroupColumn};
@@ -155,6 +156,86 @@ fn conservative_key(lowest_first: bool, lower: f64, upper: f64) -> f64 {
     }
 }
 
+/// The output table's raw-value column. Tables written before the
+/// summary's format version 2 call every raw value `raw_rate`; standardised
+/// runs call it `smr` (observed over expected).
+pub fn raw_column_of(summary: &Summary, model: Model) -> &'static str {
+    match (summary.format_version, &summary.standardisation) {
+        (..=1, _) => "raw_rate",
+        (_, Some(_)) => "smr",
+        _ => model.terms().raw_column,
+    }
+}
+
+/// What a map needs of the output table: the values of the areas on the
+/// map, and the first of the table's areas that are not on it.
+pub struct TableAreas {
+    /// By area id, for the map's areas the table holds.
+    pub values: HashMap<String, AreaValues>,
+    /// The first ids (at most [`LISTED`]) of the table's areas not on the map.
+    pub unmapped: Vec<String>,
+    /// How many of the table's areas are not on the map.
+    pub unmapped_count: usize,
+}
+
+/// Reads, from the output table of the run described by `summary`, the
+/// values of every area whose id is among `keys` (one more pass, in memory
+/// that grows with the map, not the table).
+pub fn area_values(
+    table: &Path,
+    summary: &Summary,
+    model: Model,
+    keys: &std::collections::HashSet<&str>,
+) -> Result<TableAreas> {
+    let group = summary.columns.as_ref().map_or("group", |c| c.group.as_str());
+    let mut wanted = vec![
+        (group, "group"),
+        (raw_column_of(summary, model), "raw value"),
+        ("posterior_mean", "posterior mean"),
+        ("interval_lo", "interval"),
+        ("interval_hi", "interval"),
+    ];
+    if summary.thresholds.as_ref().is_some_and(|t| t.above.is_some()) {
+        wanted.push(("prob_above", "exceedance"));
+    }
+    let flag_bound = summary.flags.as_ref().map(|f| f.fdr_level);
+    let flag_at = flag_bound.map(|_| {
+        wanted.push(("flag_fdr", "flag"));
+        wanted.len() - 2
+    });
+    let input = Input::open(table, b',', &wanted, crate::pipeline::DEFAULT_BATCH_ROWS)?;
+    let mut out = TableAreas { values: HashMap::new(), unmapped: Vec::new(), unmapped_count: 0 };
+    input.for_each_batch(|batch| {
+        let group = GroupColumn::of(&batch.columns[0])?;
+        let numbers: Vec<Float64Array> =
+            batch.columns[1..].iter().map(float_column).collect::<Result<_>>()?;
+        for row in 0..batch.rows() {
+            let id = group.text(row);
+            if !keys.contains(id.as_str()) {
+                out.unmapped_count += 1;
+                if out.unmapped.len() < LISTED {
+                    out.unmapped.push(id);
+                }
+                continue;
+            }
+            let value =
+                |i: usize| Some(numbers[i].value(row)).filter(|v| numbers[i].is_valid(row) && v.is_finite());
+            let flagged = flag_bound.zip(flag_at.and_then(value)).is_some_and(|(q, fdr)| fdr <= q);
+            let values = AreaValues {
+                raw: value(0),
+                mean: value(1).unwrap_or(f64::NAN),
+                lower: value(2).unwrap_or(f64::NAN),
+                upper: value(3).unwrap_or(f64::NAN),
+                prob_above: (wanted.len() > 5 && wanted[5].0 == "prob_above").then(|| value(4)).flatten(),
+                flagged,
+            };
+            out.values.insert(id, values);
+        }
+        Ok(())
+    })?;
+    Ok(out)
+}
+
 /// Reads the output table `table` of the run described by `summary`.
 pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Result<Collected> {
     let columns = summary.columns.as_ref().ok_or_else(|| {
@@ -166,13 +247,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
     let axis = model.terms().plots.funnel_x;
     let flag_bound = summary.flags.as_ref().map(|f| f.fdr_level);
     let event_column = summary.flags.as_ref().map(|f| format!("prob_{}", f.event));
-    // Tables written before the summary's format version 2 call every raw value `raw_rate`.
-    // Standardised runs call it `smr` (observed over expected).
-    let raw_column = match (summary.format_version, &summary.standardisation) {
-        (..=1, _) => "raw_rate",
-        (_, Some(_)) => "smr",
-        _ => model.terms().raw_column,
-    };
+    let raw_column = raw_column_of(summary, model);
     let mut wanted: Vec<(&str, &str)> = vec![
         (columns.group.as_str(), "group"),
         (columns.count.as_str(), model.terms().count_role),

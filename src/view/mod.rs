@@ -5,6 +5,7 @@
 //! wrote.
 
 pub mod collect;
+pub mod map;
 mod page;
 pub mod plots;
 
@@ -28,6 +29,8 @@ pub struct ReportRequest<'a> {
     pub plot_format: PlotFormat,
     /// Seed of the samples drawn for the scatter plots.
     pub seed: u64,
+    /// A map of the groups (areas) to draw, when asked for (`--map`).
+    pub map: Option<&'a map::ReportMap>,
 }
 
 /// The format of the plots written alone.
@@ -60,6 +63,52 @@ fn prior_law(summary: &Summary, model: Model) -> Option<RateLaw> {
     }
 }
 
+/// How a run's map is worded and coloured. Rates and proportions are
+/// shown as ratios: centred on 1 where they are observed over expected
+/// counts (standardised, or a rate model whose all-groups mean lies between
+/// 0.5 and 2, as with expected counts for exposure), otherwise on the
+/// all-groups prior mean; estimates on steps of their spread about it.
+fn map_terms<'a>(summary: &Summary, model: Model, table: &collect::TableAreas) -> map::MapTerms<'a> {
+    let terms = model.terms();
+    let mean = summary.fitted_prior.mean();
+    let raw_name = match collect::raw_column_of(summary, model) {
+        "smr" => "SMR",
+        "raw_rate" => "raw rate",
+        "raw_proportion" => "raw proportion",
+        _ => "raw estimate",
+    };
+    let expected_counts = summary.standardisation.is_some()
+        || (terms.rates == crate::core::model::RateRange::NonNegative && (0.5..=2.0).contains(&mean));
+    let (scale, scale_words) = match terms.raw_value {
+        crate::core::model::RawValue::Ratio if expected_counts => {
+            (map::ColourScale::ratio(1.0), "observed over expected (1: as expected)".to_string())
+        }
+        crate::core::model::RawValue::Ratio => (
+            map::ColourScale::ratio(mean),
+            format!("classes at ratios to the all-groups prior mean {}", page::num(mean)),
+        ),
+        crate::core::model::RawValue::Count => {
+            let raws: Vec<f64> = table.values.values().filter_map(|v| v.raw).collect();
+            let spread = if raws.len() > 1 {
+                let centre = raws.iter().sum::<f64>() / raws.len() as f64;
+                (raws.iter().map(|r| (r - centre).powi(2)).sum::<f64>() / (raws.len() - 1) as f64).sqrt()
+            } else {
+                1.0
+            };
+            let step = if spread > 0.0 { spread } else { 1.0 };
+            (
+                map::ColourScale::additive(mean, step),
+                format!(
+                    "classes at steps of {} about the all-groups prior mean {}",
+                    page::num(step),
+                    page::num(mean)
+                ),
+            )
+        }
+    };
+    map::MapTerms { raw_name, scale, scale_words, above: summary.thresholds.as_ref().and_then(|t| t.above) }
+}
+
 /// Writes the report (atomically) and, when asked, each plot beside it.
 pub fn write_report(request: &ReportRequest<'_>) -> Result<()> {
     let summary = request.summary;
@@ -74,7 +123,13 @@ pub fn write_report(request: &ReportRequest<'_>) -> Result<()> {
             summary.groups
         )));
     }
-    let (figures, segment_figures) = page::figures(summary, model, &collected, prior_law(summary, model))?;
+    let (mut figures, segment_figures) =
+        page::figures(summary, model, &collected, prior_law(summary, model))?;
+    if let Some(shown) = request.map {
+        let keys = shown.areas.iter().map(|a| a.key.as_str()).collect();
+        let table = collect::area_values(request.table, summary, model, &keys)?;
+        figures.extend(map::map_figures(shown, &table, &map_terms(summary, model, &table))?);
+    }
     let html = page::render(summary, model, &collected, &figures, &segment_figures);
     let mut staged = crate::io::atomic::StagedOutputs::default();
     staged.add(stage_bytes(request.output, html.as_bytes())?);

@@ -29,7 +29,7 @@ fn escape(text: &str) -> String {
 }
 
 /// A number for a reader: four significant digits, or a plain integer.
-fn num(v: f64) -> String {
+pub(super) fn num(v: f64) -> String {
     if !v.is_finite() {
         return "n/a".to_string();
     }
@@ -387,11 +387,13 @@ fn group_table(title: &str, note: &str, rows: &[&GroupRow], model: Model, out: &
 fn figure_html(figure: &Figure, out: &mut String) {
     let _ = writeln!(
         out,
-        "<figure class=\"plot\" id=\"plot-{0}\" data-plot=\"{0}\"><h3>{1}</h3>{2}<figcaption>{3}</figcaption></figure>",
+        "<figure class=\"plot{4}\" id=\"plot-{0}\" data-plot=\"{0}\"><h3>{1}</h3>{2}<figcaption>{3}</figcaption></figure>",
         figure.name,
         escape(&figure.title),
         figure.svg,
-        escape(&figure.caption)
+        escape(&figure.caption),
+        // Maps take the page's width.
+        if figure.name.starts_with("map") { " wide" } else { "" }
     );
 }
 
@@ -439,7 +441,7 @@ pub fn cautions(summary: &Summary) -> Vec<String> {
 const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}\
 h1{font-size:1.6em}h2{margin-top:2em;border-bottom:1px solid #ccc}\
 figure.plot{display:inline-block;vertical-align:top;width:calc(50% - 1em);margin:0 1em 1.5em 0}\
-figure.plot svg{width:100%;height:auto}@media (max-width:900px){figure.plot{width:100%}}\
+figure.plot svg{width:100%;height:auto}figure.plot.wide{width:calc(100% - 1em)}@media (max-width:900px){figure.plot{width:100%}}\
 figure.plot h3{margin:.2em 0;font-size:1.05em}figcaption{font-size:.9em;color:#444}\
 table{border-collapse:collapse;font-size:.9em;margin-bottom:1em}td,th{border:1px solid #ddd;padding:.25em .5em;text-align:right}\
 td:first-child,th:first-child{text-align:left}.warning{color:#a33}dl{display:grid;grid-template-columns:max-content auto;gap:.2em 1em}";

@@ -216,11 +216,17 @@ fn the_demo_district_map_is_a_hexagon_grid_with_its_hot_spot_in_one_piece() {
 /// (`--neighbours FILE` for the neighbour prior).
 fn fit_counties_with(dir: &std::path::Path, more: &[&str]) -> std::process::Output {
     let input = fixture("neighbours/nc_sids.csv");
-    let columns = "--group county --events deaths --exposure expected";
-    let mut args = vec!["fit", "--model", "gamma-poisson", "--input", input.to_str().unwrap()];
-    args.extend(columns.split(' '));
+    let mut args = counties_fit(input.to_str().unwrap());
     args.extend(more);
     ratepool(dir, &args)
+}
+
+/// The arguments of the NC counties' fit of `input`, up to the options of a test.
+fn counties_fit(input: &str) -> Vec<&str> {
+    let columns = "--group county --events deaths --exposure expected";
+    let mut args = vec!["fit", "--model", "gamma-poisson", "--input", input];
+    args.extend(columns.split(' '));
+    args
 }
 
 /// The NC counties' fit with `table` as the neighbour table; more options after.
@@ -455,21 +461,8 @@ fn neighbour_tables_and_options_that_cannot_be_used_are_refused_and_nothing_is_w
     let gal = gal.to_str().unwrap();
     let input = fixture("neighbours/nc_sids.csv");
     let input = input.to_str().unwrap();
-    let base = [
-        "fit",
-        "--model",
-        "gamma-poisson",
-        "--input",
-        input,
-        "--group",
-        "county",
-        "--events",
-        "deaths",
-        "--exposure",
-        "expected",
-        "--output",
-        "out.csv",
-    ];
+    let mut base = counties_fit(input);
+    base.extend(["--output", "out.csv"]);
     let refused = |table: &str, more: &[&str], message: &str| {
         let mut args = base.to_vec();
         args.extend(["--neighbours", table]);
@@ -516,4 +509,134 @@ fn neighbour_tables_and_options_that_cannot_be_used_are_refused_and_nothing_is_w
         "each area's prior came from its neighbours' data, which the summary does not hold; fit again with --neighbours",
         "out.csv",
     );
+}
+
+/// The demo districts' neighbour fit with the map in the report, in `dir`
+/// (the neighbour table made first); more options after.
+fn mapped_districts(dir: &std::path::Path, map: &str, more: &[&str]) -> std::process::Output {
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let demo_map = root.join("demo-data/district_map.geojson");
+    let made = ratepool(
+        dir,
+        &["neighbours", "--map", demo_map.to_str().unwrap(), "--key", "district_id", "--output", "pairs.csv"],
+    );
+    assert!(made.status.success(), "{}", stderr(&made));
+    let bands = root.join("demo-data/district_bands.csv");
+    let line = "fit --model gamma-poisson --group district_id --events cases --population population --strata age_band --neighbours pairs.csv --above 1.2 --flag-fdr 0.1 --map-key district_id";
+    let mut args: Vec<&str> = line.split(' ').collect();
+    args.extend(["--input", bands.to_str().unwrap(), "--map", map]);
+    args.extend(more);
+    ratepool(dir, &args)
+}
+
+#[test]
+fn the_report_maps_every_area_once_per_panel_with_its_values_and_the_flags_outlined() {
+    let dir = tempfile::tempdir().unwrap();
+    let map = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/district_map.geojson");
+    let map = map.to_str().unwrap();
+    let more = ["--output", "out.csv", "--summary", "s.json", "--report", "r.html"];
+    let out = mapped_districts(dir.path(), map, &more);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = std::fs::read_to_string(dir.path().join("r.html")).unwrap();
+    // Two panels (raw and posterior) and the exceedance map, each drawing the 400 areas once.
+    assert_eq!(page.matches(r#"<path class="area""#).count(), 3 * 400);
+    assert_eq!(page.matches(r#"data-key="district-0101""#).count(), 3);
+    let table = Csv::read(&dir.path().join("out.csv"));
+    let flagged = table.column("flagged").iter().filter(|f| *f == "true").count();
+    assert_eq!(flagged, 31);
+    assert_eq!(page.matches(r#"class="flag-outline""#).count(), 3 * flagged);
+    // The hover text holds the area's values as the table has them (to the page's four digits).
+    let row = table.column("district_id").iter().position(|id| id == "district-0101").unwrap();
+    let start = page.find("<title>district-0101: SMR ").expect("district-0101's hover text");
+    let text = &page[start + "<title>district-0101: ".len()..];
+    let text = &text[..text.find("</title>").unwrap()];
+    assert!(text.starts_with("SMR ") && text.ends_with(", flagged"), "{text}");
+    let figures: Vec<f64> = text
+        .split(|c: char| !(c.is_ascii_digit() || c == '.'))
+        .filter(|t| !t.is_empty() && t.chars().any(|c| c.is_ascii_digit()))
+        .map(|t| t.parse().unwrap())
+        .collect();
+    let wanted: Vec<f64> = ["smr", "posterior_mean", "interval_lo", "interval_hi"]
+        .iter()
+        .map(|c| table.column(c)[row].parse::<f64>().unwrap())
+        .chain([1.2, table.column("prob_above")[row].parse().unwrap()])
+        .collect();
+    for (shown, value) in crate::util::paired(&figures, &wanted, "hover figures") {
+        assert!(relative(*shown, *value) < 1e-3, "{text}: {shown} against {value}");
+    }
+    // One legend per map: the ratio scale's breaks, and the probability scale's.
+    assert_eq!(page.matches(r#"<g class="legend""#).count(), 2);
+    for break_label in ["0.50", "0.67", "0.80", "0.91", "1.10", "1.25", "1.50", "2.00", "0.05", "0.95"] {
+        assert!(page.contains(&format!(r#"text-anchor="middle">{break_label}</text>"#)), "{break_label}");
+    }
+    assert!(page.contains("observed over expected (1: as expected)"));
+    assert!(!page.contains("not in the table"), "every area is in the table");
+    // `ratepool report` with the same map writes the same page.
+    let again = ratepool(
+        dir.path(),
+        &[
+            "report",
+            "--table",
+            "out.csv",
+            "--summary",
+            "s.json",
+            "--output",
+            "again.html",
+            "--map",
+            map,
+            "--map-key",
+            "district_id",
+        ],
+    );
+    assert!(again.status.success(), "{}", stderr(&again));
+    assert!(std::fs::read(dir.path().join("again.html")).unwrap() == page.as_bytes());
+}
+
+#[test]
+fn areas_on_one_side_only_are_listed_and_a_bad_map_writes_nothing() {
+    let dir = tempfile::tempdir().unwrap();
+    let demo = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/district_map.geojson");
+    let mut document: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(demo).unwrap()).unwrap();
+    // Leave out district-0001's feature; rename district-0002's to an area of no table.
+    let features = document["features"].as_array_mut().unwrap();
+    features.remove(0);
+    features[0]["properties"]["district_id"] = "district-9999".into();
+    std::fs::write(dir.path().join("partial.geojson"), document.to_string()).unwrap();
+    let out = mapped_districts(dir.path(), "partial.geojson", &["--output", "out.csv", "--report", "r.html"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = std::fs::read_to_string(dir.path().join("r.html")).unwrap();
+    assert!(page.contains("Areas on the map but not in the table (grey): district-9999."), "missing");
+    assert!(
+        page.contains("Areas in the table but not on the map: district-0001, district-0002."),
+        "unmapped"
+    );
+    assert!(page.contains("<title>district-9999: not in the table</title>"));
+    // A map that cannot be drawn stops the run before anything is written.
+    let cases = [
+        ("not.geojson", "not json".to_string(), "not GeoJSON: not valid JSON"),
+        (
+            "nokey.geojson",
+            r#"{"type":"FeatureCollection","features":[{"type":"Feature","properties":{"name":"x"},"geometry":{"type":"Polygon","coordinates":[[[0,0],[1,0],[1,1],[0,0]]]}}]}"#.to_string(),
+            "feature 1 has no property 'district_id' (given as the key); its properties: name",
+        ),
+    ];
+    for (name, text, message) in cases {
+        std::fs::write(dir.path().join(name), text).unwrap();
+        let out = mapped_districts(dir.path(), name, &["--output", "bad.csv", "--report", "bad.html"]);
+        assert_eq!(out.status.code(), Some(2), "{name}: {}", stderr(&out));
+        assert!(stderr(&out).contains(message), "{name}: {}", stderr(&out));
+        assert!(!dir.path().join("bad.csv").exists() && !dir.path().join("bad.html").exists(), "{name}");
+    }
+    // A map needs a report to be drawn in, and its key.
+    let input = fixture("neighbours/nc_sids.csv");
+    for (extra, message) in [
+        (vec!["--map", "partial.geojson", "--map-key", "district_id"], "--report"),
+        (vec!["--report", "r2.html", "--map", "partial.geojson"], "--map-key"),
+    ] {
+        let mut args = counties_fit(input.to_str().unwrap());
+        args.extend(["--output", "x.csv"]);
+        args.extend(extra);
+        assert_refused(dir.path(), &args, message, "x.csv");
+    }
 }

@@ -302,6 +302,15 @@ fn the_neighbour_prior_figures_in_the_prose() {
     printed(squared_error(&global, "posterior_mean", &truth, None), 4, "0.0286");
     printed(squared_error(&local, "posterior_mean", &truth, None), 4, "0.0327");
     printed(squared_error(&local, "smr", &truth, None), 4, "0.0484");
+    // The maps' two darkest classes (1.5 and above): on the raw map, and on the posterior map.
+    let dark = |column: &str| -> (usize, usize) {
+        let ids = local.column("district_id");
+        let dark: Vec<&String> =
+            ids.iter().zip(local.floats(column)).filter(|(_, v)| *v >= 1.5).map(|(id, _)| id).collect();
+        (dark.len(), dark.iter().filter(|id| hot.contains(id)).count())
+    };
+    assert_eq!(dark("smr"), (23, 8));
+    assert_eq!(dark("posterior_mean"), (8, 8));
 }
 
 #[test]
