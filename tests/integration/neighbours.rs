@@ -640,3 +640,55 @@ fn areas_on_one_side_only_are_listed_and_a_bad_map_writes_nothing() {
         assert_refused(dir.path(), &args, message, "x.csv");
     }
 }
+
+#[test]
+fn a_score_draws_the_nc_counties_map_in_longitude_and_latitude() {
+    let dir = tempfile::tempdir().unwrap();
+    let fitted = fit_counties_with(dir.path(), &["--output", "fit.csv", "--summary", "s.json"]);
+    assert!(fitted.status.success(), "{}", stderr(&fitted));
+    let input = fixture("neighbours/nc_sids.csv");
+    let map = fixture("neighbours/nc_counties.geojson");
+    let line = "score --prior s.json --group county --events deaths --exposure expected --above 1.5 --output scored.csv --report r.html --map-key county";
+    let mut args: Vec<&str> = line.split(' ').collect();
+    args.extend(["--input", input.to_str().unwrap(), "--map", map.to_str().unwrap()]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = std::fs::read_to_string(dir.path().join("r.html")).unwrap();
+    assert_eq!(page.matches(r#"<path class="area""#).count(), 3 * 100, "two panels and the exceedance map");
+    assert!(page.contains("<title>37009: raw rate "), "the counties' ids as the map's property holds them");
+    // The panel's width over its height is the map's span of longitude times the cosine
+    // of its middle latitude over its span of latitude, computed here from the file.
+    let document: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&map).unwrap()).unwrap();
+    let (mut lon, mut lat) = ([f64::MAX, f64::MIN], [f64::MAX, f64::MIN]);
+    let mut visit = |point: &serde_json::Value| {
+        let (x, y) = (point[0].as_f64().unwrap(), point[1].as_f64().unwrap());
+        lon = [lon[0].min(x), lon[1].max(x)];
+        lat = [lat[0].min(y), lat[1].max(y)];
+    };
+    for feature in document["features"].as_array().unwrap() {
+        let geometry = &feature["geometry"];
+        let polygons = match geometry["type"].as_str().unwrap() {
+            "Polygon" => vec![&geometry["coordinates"]],
+            _ => geometry["coordinates"].as_array().unwrap().iter().collect(),
+        };
+        for ring in polygons.iter().flat_map(|p| p.as_array().unwrap()) {
+            ring.as_array().unwrap().iter().for_each(&mut visit);
+        }
+    }
+    let want = (lon[1] - lon[0]) * ((lat[0] + lat[1]) / 2.0).to_radians().cos() / (lat[1] - lat[0]);
+    let svg = &page[page.find(r#"data-areas="100""#).unwrap()..];
+    let paths: Vec<&str> = svg.split(r#"d="M"#).skip(1).take(100).collect();
+    let (mut low, mut high) = ([f64::MAX; 2], [f64::MIN; 2]);
+    for path in paths {
+        let d = &path[..path.find('"').unwrap()];
+        for point in d.split(['M', 'L', 'Z']).filter(|p| !p.is_empty()) {
+            let xy: Vec<f64> = point.split(' ').map(|v| v.parse().unwrap()).collect();
+            for k in 0..2 {
+                low[k] = low[k].min(xy[k]);
+                high[k] = high[k].max(xy[k]);
+            }
+        }
+    }
+    let aspect = (high[0] - low[0]) / (high[1] - low[1]);
+    assert!(relative(aspect, want) < 2e-3, "width over height {aspect} against {want}");
+}
