@@ -1503,8 +1503,62 @@ fn check_job_file(path: &std::path::Path, asked: Option<&str>) -> Result<String>
     full.extend(arguments.iter().cloned());
     let cli = Cli::try_parse_from(&full)
         .map_err(|e| mistakes_error(path, &[file.mistake_of(&clap_message(&e))]))?;
-    cli.command.into_job().map_err(|e| mistakes_error(path, &[file.mistake_of(&e.to_string())]))?;
+    cli.command.validate().map_err(|e| mistakes_error(path, &[file.mistake_of(&e.to_string())]))?;
     Ok(format!("{}: a valid `{command}` job ({} keys)", path.display(), file.keys()))
+}
+
+/// Runs a star-rating job on `table`'s input (through `source`, which may
+/// put a library caller's table in its place); what it wrote.
+fn run_level_job(
+    mut job: crate::pipeline::levels::LevelJob,
+    table: &TableArgs,
+    source: impl Fn(&PathBuf) -> TableSource,
+    observer: &mut dyn crate::pipeline::RunObserver,
+) -> Result<Outcome> {
+    job.input = source(&table.input);
+    let summary = crate::pipeline::levels::run_levels(&job, observer)?;
+    let mut outputs = vec![job.output.clone()];
+    outputs.extend(table.rejects.clone());
+    outputs.extend(job.summary.clone());
+    Ok(Outcome { summary: None, levels: Some(summary), outputs })
+}
+
+/// The saved star-rating prior of `score --prior FILE`, when FILE is a
+/// star-rating fit's summary (told by its `model` key).
+fn saved_level_prior(prior: &Path) -> Result<Option<crate::summary::LevelSummary>> {
+    if saved_model(prior)? != crate::pipeline::levels::MODEL_NAME {
+        return Ok(None);
+    }
+    let text = std::fs::read_to_string(prior)
+        .map_err(|e| Error::Input(format!("{}: cannot read the prior file: {e}", prior.display())))?;
+    let saved = serde_json::from_str(&text)
+        .map_err(|e| Error::Input(format!("{}: not a ratepool summary file: {e}", prior.display())))?;
+    Ok(Some(saved))
+}
+
+impl Command {
+    /// Checks a fit or score as it would run, reading nothing but a saved
+    /// prior: the star-rating model's own job, or every other model's.
+    fn validate(self) -> Result<()> {
+        match &self {
+            Command::Fit(args) if args.model == FitModel::LevelCounts => level_job_of(args).map(|_| ()),
+            Command::Score(args) => match saved_level_prior(&args.prior)? {
+                Some(saved) => level_score_job_of(args, saved).map(|_| ()),
+                None => self.into_job().map(|_| ()),
+            },
+            _ => self.into_job().map(|_| ()),
+        }
+    }
+}
+
+/// The model a prior file was fitted with (its `model` key), read before
+/// the file is read as the summary of that model's runs.
+fn saved_model(path: &Path) -> Result<String> {
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| Error::Input(format!("{}: cannot read the prior file: {e}", path.display())))?;
+    let value: serde_json::Value = serde_json::from_str(&text)
+        .map_err(|e| Error::Input(format!("{}: not a ratepool summary file: {e}", path.display())))?;
+    Ok(value.get("model").and_then(serde_json::Value::as_str).unwrap_or_default().to_string())
 }
 
 /// Writes the HTML report of `report` from its table and summary.
@@ -1576,12 +1630,10 @@ fn run_neighbours(args: &NeighboursArgs) -> Result<String> {
     Ok(words)
 }
 
-/// The star-rating job of `fit --model dirichlet-multinomial`: its columns
-/// and scores checked, and every option it does not (yet) take refused by name.
-fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
-    use crate::pipeline::levels::{LevelJob, MAX_LEVELS, MODEL_NAME};
-    let table = &args.table;
-    refuse_overlaps(table, [])?;
+/// What the star-rating model does not (yet) take of the options `fit` and
+/// `score` share, and `more` of the command's own, refused by name.
+fn refuse_for_levels(table: &TableArgs, more: &[(bool, &str)]) -> Result<()> {
+    use crate::pipeline::levels::MODEL_NAME;
     let refused = [
         (table.population.is_some(), "--population"),
         (table.aggregate, "--aggregate"),
@@ -1600,15 +1652,29 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         (table.report.is_some(), "--report"),
         (table.plots.is_some(), "--plots"),
         (table.map.is_some(), "--map"),
-        (args.pair_counts.is_some(), "--pair-counts"),
-        (args.prior_shape == PriorShapeArg::Free, "--prior-shape free"),
-        (args.grid_points.is_some(), "--grid-points"),
-        (args.neighbours.is_some(), "--neighbours"),
-        (args.variance_method == VarianceMethodArg::Reml, "--variance-method reml"),
     ];
-    if let Some((_, flag)) = refused.iter().find(|(given, _)| *given) {
+    if let Some((_, flag)) = refused.iter().chain(more).find(|(given, _)| *given) {
         return Err(Error::Usage(format!("{flag} does not apply to the {MODEL_NAME} model (yet)")));
     }
+    Ok(())
+}
+
+/// The star-rating job of `fit --model dirichlet-multinomial`: its columns
+/// and scores checked, and every option it does not (yet) take refused by name.
+fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
+    use crate::pipeline::levels::{MAX_LEVELS, MODEL_NAME};
+    let table = &args.table;
+    refuse_overlaps(table, [])?;
+    refuse_for_levels(
+        table,
+        &[
+            (args.pair_counts.is_some(), "--pair-counts"),
+            (args.prior_shape == PriorShapeArg::Free, "--prior-shape free"),
+            (args.grid_points.is_some(), "--grid-points"),
+            (args.neighbours.is_some(), "--neighbours"),
+            (args.variance_method == VarianceMethodArg::Reml, "--variance-method reml"),
+        ],
+    )?;
     let outcome = match (&table.outcome, args.levels.is_empty(), args.level_counts.is_empty()) {
         (None, true, _) => None,
         (None, false, _) => return Err(Error::Usage("--levels names the values of --outcome COLUMN: give it too".to_string())),
@@ -1673,6 +1739,27 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
             )));
         }
     }
+    let spec = LevelSpec { levels, outcome, scores, share_above: args.share_above.as_deref() };
+    level_job(table, spec, None)
+}
+
+/// What a star-rating job reads and scores.
+struct LevelSpec<'a> {
+    levels: Vec<String>,
+    outcome: Option<(String, Vec<String>)>,
+    scores: Vec<f64>,
+    share_above: Option<&'a str>,
+}
+
+/// The star-rating job of `spec` with the options `fit` and `score` share;
+/// `prior` a saved one to score with.
+fn level_job(
+    table: &TableArgs,
+    spec: LevelSpec<'_>,
+    prior: Option<crate::pipeline::levels::SavedLevelPrior>,
+) -> Result<crate::pipeline::levels::LevelJob> {
+    use crate::pipeline::levels::{LevelJob, MODEL_NAME};
+    let LevelSpec { levels, outcome, scores, share_above } = spec;
     let (low, high) =
         scores.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &s| (l.min(s), h.max(s)));
     for (value, flag) in [(table.above, "above"), (table.below, "below")] {
@@ -1682,7 +1769,7 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
             )));
         }
     }
-    let share_above = match &args.share_above {
+    let share_above = match share_above {
         None => None,
         Some(text) => {
             let parsed = text.split_once('=').and_then(|(column, p)| {
@@ -1722,7 +1809,43 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
         ranks: rank_order(table),
         invalid,
         id_memory: table.memory_budget.max(1).saturating_mul(1 << 20) / 2,
+        prior,
     })
+}
+
+/// The star-rating job of `score --prior` with a star-rating fit's summary:
+/// the count columns and scores the prior was fitted with.
+fn level_score_job_of(
+    args: &ScoreArgs,
+    saved: crate::summary::LevelSummary,
+) -> Result<crate::pipeline::levels::LevelJob> {
+    let table = &args.table;
+    refuse_overlaps(table, [("--prior", Some(&args.prior))])?;
+    refuse_for_levels(table, &[])?;
+    if let Some(model) = args.model.filter(|m| m.name() != saved.model) {
+        return Err(Error::Usage(format!(
+            "{}: the prior file holds a {} prior and this run asks for a {} one",
+            args.prior.display(),
+            saved.model,
+            model.name()
+        )));
+    }
+    if table.outcome.is_some() {
+        return Err(Error::Usage(format!(
+            "{}: score reads one row per group with the count columns the prior was fitted with ({}), not one row per rating",
+            args.prior.display(),
+            saved.levels.iter().map(|l| l.column.as_str()).collect::<Vec<_>>().join(", ")
+        )));
+    }
+    let spec = LevelSpec {
+        levels: saved.levels.iter().map(|l| l.column.clone()).collect(),
+        outcome: None,
+        scores: saved.levels.iter().map(|l| l.score).collect(),
+        share_above: None,
+    };
+    let prior =
+        crate::pipeline::levels::SavedLevelPrior { path: args.prior.clone(), summary: Box::new(saved) };
+    level_job(table, spec, Some(prior))
 }
 
 impl Command {
@@ -1771,13 +1894,11 @@ impl Command {
                 return Ok(Outcome { summary: None, levels: None, outputs: Vec::new() });
             }
             Command::Fit(args) if args.model == FitModel::LevelCounts => {
-                let mut job = level_job_of(args)?;
-                job.input = source(&args.table.input);
-                let summary = crate::pipeline::levels::run_levels(&job, observer)?;
-                let mut outputs = vec![job.output.clone()];
-                outputs.extend(args.table.rejects.clone());
-                outputs.extend(job.summary.clone());
-                return Ok(Outcome { summary: None, levels: Some(summary), outputs });
+                return run_level_job(level_job_of(args)?, &args.table, source, observer);
+            }
+            Command::Score(args) if saved_model(&args.prior)? == crate::pipeline::levels::MODEL_NAME => {
+                let saved = saved_level_prior(&args.prior)?.expect("a star-rating summary");
+                return run_level_job(level_score_job_of(args, saved)?, &args.table, source, observer);
             }
             Command::Fit(args) => &args.table,
             Command::Score(args) => &args.table,

@@ -165,8 +165,13 @@ pub fn render_level_text(summary: &LevelSummary) -> String {
     );
     let _ = writeln!(
         out,
-        "  fit          log marginal likelihood {:.4}, {} Newton steps",
-        summary.log_marginal_likelihood, summary.iterations
+        "  {}log marginal likelihood {:.4}, {} Newton steps",
+        match &summary.prior_file {
+            Some(file) => format!("prior fit    (saved in {file}, on the data it was fitted to) "),
+            None => "fit          ".to_string(),
+        },
+        summary.log_marginal_likelihood,
+        summary.iterations
     );
     let test = &summary.overdispersion_test;
     dispersion_line(&mut out, test);

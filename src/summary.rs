@@ -959,6 +959,10 @@ mod tests {
 pub struct LevelSummary {
     /// `dirichlet-multinomial`.
     pub model: String,
+    /// In a `score`: the summary file whose prior scored the groups (the
+    /// prior's figures and tests below are that fit's, on its own data).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub prior_file: Option<String>,
     /// Data rows in the input.
     pub rows_read: u64,
     /// Rows rejected.

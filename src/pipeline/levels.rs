@@ -18,6 +18,7 @@ use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROU
 use super::RunObserver;
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
 use crate::core::diagnostics::PairOutcome;
+use crate::core::fit::{OverdispersionTest, PoolingTest};
 use crate::core::model::dirichlet_multinomial::{
     fit_levels, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit, LevelFitFailure,
     LevelPosterior, LevelPrior, LevelTable,
@@ -76,6 +77,60 @@ pub struct LevelJob {
     pub invalid: InvalidRows,
     /// Bytes the ids' hashes may hold in memory before they spill to disk.
     pub id_memory: usize,
+    /// A saved prior to score with (`score --prior`), instead of a fit.
+    pub prior: Option<SavedLevelPrior>,
+}
+
+/// A star-rating prior saved by an earlier fit: its summary file and what it holds.
+#[derive(Debug, Clone)]
+pub struct SavedLevelPrior {
+    /// The summary file.
+    pub path: PathBuf,
+    /// Its content.
+    pub summary: Box<LevelSummary>,
+}
+
+impl SavedLevelPrior {
+    /// The saved prior as a fit's result: the Dirichlet of the saved shapes
+    /// (the pooled shares at the boundary), with the saved fit's standard
+    /// errors and tests.
+    fn as_fit(&self) -> Result<LevelFit> {
+        let saved = &self.summary;
+        let shapes: Option<Vec<f64>> = saved.levels.iter().map(|l| l.prior_shape).collect();
+        let prior = match shapes {
+            Some(shapes) if shapes.iter().all(|a| a.is_finite() && *a > 0.0) => {
+                LevelPrior::Dirichlet { shapes }
+            }
+            _ if saved.prior_law == "pooled shares" => {
+                LevelPrior::Pooled { shares: saved.levels.iter().map(|l| l.prior_share).collect() }
+            }
+            _ => {
+                return Err(Error::Input(format!(
+                    "{}: the prior's shapes are missing or not above zero; fit again",
+                    self.path.display()
+                )))
+            }
+        };
+        Ok(LevelFit {
+            prior,
+            shapes_se: saved.levels.iter().map(|l| l.prior_shape_se).collect(),
+            strength_se: saved.strength_se,
+            shares_se: saved.levels.iter().map(|l| l.prior_share_se).collect(),
+            log_marginal_likelihood: saved.log_marginal_likelihood,
+            pooled_log_likelihood: f64::NAN,
+            pooling: PoolingTest {
+                statistic: saved.pooling_test.statistic,
+                p_value: saved.pooling_test.p_value,
+            },
+            overdispersion: OverdispersionTest {
+                statistic: saved.overdispersion_test.statistic,
+                p_value: saved.overdispersion_test.p_value,
+            },
+            iterations: saved.iterations,
+            gradient_norm: 0.0,
+            covariance: None,
+        })
+    }
 }
 
 /// Counts above this many levels are refused: the fit's Hessian is K × K.
@@ -240,9 +295,18 @@ fn fit_and_score(
             job.input.display()
         )));
     }
-    let fitted = fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?;
+    let fitted = match &job.prior {
+        Some(saved) => saved.as_fit()?,
+        None => fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?,
+    };
     let scored = score_vectors(job, &table, &fitted);
-    let (summary, furthest) = summarise(job, &table, &fitted, &scored, (rows, rejected));
+    let (mut summary, furthest) = summarise(job, &table, &fitted, &scored, (rows, rejected));
+    if let Some(saved) = &job.prior {
+        // The prior's figures as fitted, not recomputed from the scored groups.
+        summary.prior_file = Some(saved.path.display().to_string());
+        summary.mean_score = saved.summary.mean_score;
+        summary.mean_score_se = saved.summary.mean_score_se;
+    }
     let columns = vector_columns(job, &table, &scored);
     Ok((summary, columns, furthest))
 }
@@ -737,6 +801,7 @@ fn summarise(
     }
     let summary = LevelSummary {
         model: MODEL_NAME.to_string(),
+        prior_file: None,
         rows_read: rows as u64,
         rows_rejected: rejected as u64,
         groups: groups as u64,

@@ -121,3 +121,41 @@ fn the_demo_job_files_are_valid() {
     let summary = crate::util::summary(&dir.path().join("nightly.json"));
     assert_eq!(summary["checks"]["data"], "the scored data under the saved prior");
 }
+
+#[test]
+fn check_config_checks_star_rating_fits_and_scores_as_they_would_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let sellers = format!("{}/demo-data/star_sellers.csv", env!("CARGO_MANIFEST_DIR"));
+    let fit = format!(
+        "command = \"fit\"\ninput = \"{sellers}\"\nmodel = \"dirichlet-multinomial\"\ngroup = \"seller_id\"\nlevel-counts = [\"stars_1\", \"stars_2\", \"stars_3\", \"stars_4\", \"stars_5\"]\noutput = \"stars.csv\"\nsummary = \"stars.json\"\n"
+    );
+    write(dir.path(), "fit.toml", &fit);
+    let out = ratepool(dir.path(), &["check-config", "fit.toml"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    assert!(!dir.path().join("stars.csv").exists(), "check-config ran the job");
+    write(
+        dir.path(),
+        "one.toml",
+        &fit.replace("\"stars_1\", \"stars_2\", \"stars_3\", \"stars_4\", \"stars_5\"", "\"stars_1\""),
+    );
+    let out = ratepool(dir.path(), &["check-config", "one.toml"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        stderr(&out).contains(
+            "line 5, key 'level-counts': the dirichlet-multinomial model needs at least two levels"
+        ),
+        "{}",
+        stderr(&out)
+    );
+    // A score with the fit's saved prior is checked as a star-rating score.
+    let ran = ratepool(dir.path(), &["--quiet", "fit", "--config", "fit.toml"]);
+    assert!(ran.status.success(), "{}", stderr(&ran));
+    let score = format!("command = \"score\"\ninput = \"{sellers}\"\nprior = \"stars.json\"\ngroup = \"seller_id\"\noutput = \"scored.csv\"\n");
+    write(dir.path(), "score.toml", &score);
+    let out = ratepool(dir.path(), &["check-config", "score.toml"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    write(dir.path(), "rows.toml", &format!("{score}outcome = \"stars\"\n"));
+    let out = ratepool(dir.path(), &["check-config", "rows.toml"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr(&out).contains("not one row per rating"), "{}", stderr(&out));
+}

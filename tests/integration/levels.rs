@@ -405,3 +405,94 @@ fn rating_rows_refuse_a_value_outside_the_levels_and_options_that_do_not_fit() {
     run(&["--outcome", "stars", "--levels", "1,2,1"], "--levels names '1' twice");
     run(&["--outcome", "stars", "--levels", "1,2", "--level-counts", "a,b"], "not both");
 }
+
+#[test]
+fn score_with_a_saved_star_prior_gives_each_seller_the_posterior_of_that_prior() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_sellers();
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STARS);
+    args.extend([
+        "--output",
+        "fit.csv",
+        "--summary",
+        "s.json",
+        "--above",
+        "4.5",
+        "--flag-fdr",
+        "0.1",
+        "--ranks",
+    ]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let scored_args = |input: &str, output: &str| -> Vec<String> {
+        let line = format!("score --prior s.json --group seller_id --above 4.5 --flag-fdr 0.1 --ranks --input {input} --output {output} --summary {output}.json");
+        line.split(' ').map(String::from).collect()
+    };
+    // The sellers the prior was fitted to, scored with it: the fit's table, byte for byte.
+    let args = scored_args(&input, "same.csv");
+    let out = ratepool(dir.path(), &args.iter().map(String::as_str).collect::<Vec<_>>());
+    assert!(out.status.success(), "{}", stderr(&out));
+    assert!(
+        std::fs::read(dir.path().join("same.csv")).unwrap()
+            == std::fs::read(dir.path().join("fit.csv")).unwrap()
+    );
+    let printed = String::from_utf8(out.stdout).unwrap();
+    assert!(
+        printed.contains(
+            "  prior fit    (saved in s.json, on the data it was fitted to) log marginal likelihood"
+        ),
+        "{printed}"
+    );
+    let saved = summary(&dir.path().join("s.json"));
+    let scored = summary(&dir.path().join("same.csv.json"));
+    assert_eq!(scored["prior_file"], "s.json");
+    assert_eq!(scored["levels"], saved["levels"]);
+    assert_eq!(scored["mean_score"], saved["mean_score"]);
+    // A few sellers alone keep the posteriors the whole fit gave them (a fit of the
+    // few would give another prior); the mean score is the closed form
+    // Σ s_k (a_k + n_k) / (A + N) at the saved shapes (conjugacy, common practice).
+    let whole = Csv::read(&dir.path().join("fit.csv"));
+    let mut few = String::from("seller_id,stars_1,stars_2,stars_3,stars_4,stars_5\n");
+    let all = Csv::read(std::path::Path::new(&input));
+    for row in all.rows.iter().take(40) {
+        few.push_str(&row.join(","));
+        few.push('\n');
+    }
+    let few_path = write(dir.path(), "few.csv", &few);
+    let args = scored_args(&few_path, "few_out.csv");
+    let out = ratepool(dir.path(), &args.iter().map(String::as_str).collect::<Vec<_>>());
+    assert!(out.status.success(), "{}", stderr(&out));
+    let few_out = Csv::read(&dir.path().join("few_out.csv"));
+    let shapes: Vec<f64> =
+        saved["levels"].as_array().unwrap().iter().map(|l| l["prior_shape"].as_f64().unwrap()).collect();
+    for (i, row) in few_out.rows.iter().enumerate() {
+        let at = |table: &Csv, name: &str| table.header.iter().position(|h| h == name).unwrap();
+        assert_eq!(row[at(&few_out, "seller_id")], whole.rows[i][at(&whole, "seller_id")]);
+        for column in ["posterior_mean", "posterior_sd", "interval_lo", "interval_hi", "prob_above"] {
+            assert_eq!(row[at(&few_out, column)], whole.rows[i][at(&whole, column)], "{column}");
+        }
+        let counts: Vec<f64> =
+            (1..=5).map(|k| row[at(&few_out, &format!("stars_{k}"))].parse().unwrap()).collect();
+        let total: f64 = shapes.iter().sum::<f64>() + counts.iter().sum::<f64>();
+        let mean: f64 = (0..5).map(|k| (k + 1) as f64 * (shapes[k] + counts[k])).sum::<f64>() / total;
+        let got: f64 = row[at(&few_out, "posterior_mean")].parse().unwrap();
+        assert!((got - mean).abs() < 1e-12 * mean, "{got} against {mean}");
+    }
+    // What score cannot read is refused, naming why, and nothing is written.
+    let missing = write(dir.path(), "missing.csv", "seller_id,stars_1,stars_2,stars_3,stars_4\ns1,0,0,0,1\n");
+    let args = scored_args(&missing, "x.csv");
+    let args: Vec<&str> = args.iter().map(String::as_str).collect();
+    assert_refused(dir.path(), &args, "stars_5", "x.csv");
+    let mut rows = args.clone();
+    rows.extend(["--outcome", "stars"]);
+    assert_refused(dir.path(), &rows, "score reads one row per group with the count columns the prior was fitted with (stars_1, stars_2, stars_3, stars_4, stars_5)", "x.csv");
+    let mut other = args.clone();
+    other.extend(["--model", "beta-binomial"]);
+    assert_refused(
+        dir.path(),
+        &other,
+        "the prior file holds a dirichlet-multinomial prior and this run asks for a beta-binomial one",
+        "x.csv",
+    );
+}
