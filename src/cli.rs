@@ -1519,6 +1519,7 @@ fn run_level_job(
     let summary = crate::pipeline::levels::run_levels(&job, observer)?;
     let mut outputs = vec![job.output.clone()];
     outputs.extend(table.rejects.clone());
+    outputs.extend(job.pair_output.clone());
     outputs.extend(job.summary.clone());
     Ok(Outcome { summary: None, levels: Some(summary), outputs })
 }
@@ -1646,9 +1647,9 @@ fn refuse_for_levels(table: &TableArgs, more: &[(bool, &str)]) -> Result<()> {
         (!table.by.is_empty(), "--by"),
         (table.min_groups.is_some(), "--min-groups"),
         (!table.covariates.is_empty() || !table.covariates_log.is_empty(), "--covariates"),
-        (table.top.is_some(), "--top"),
+        (table.top_method == TopMethodArg::Draws, "--top-method draws (prob_top is by the threshold method)"),
+        (table.top_draws.is_some(), "--top-draws (prob_top is by the threshold method)"),
         (table.intervals == IntervalsArg::Corrected, "--intervals corrected"),
-        (table.pair_output.is_some(), "--pair-output"),
         (table.report.is_some(), "--report"),
         (table.plots.is_some(), "--plots"),
         (table.map.is_some(), "--map"),
@@ -1760,6 +1761,9 @@ fn level_job(
 ) -> Result<crate::pipeline::levels::LevelJob> {
     use crate::pipeline::levels::{LevelJob, MODEL_NAME};
     let LevelSpec { levels, outcome, scores, share_above } = spec;
+    if let Some(path) = &table.pair_output {
+        crate::io::TableFormat::from_path(path)?;
+    }
     let (low, high) =
         scores.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &s| (l.min(s), h.max(s)));
     for (value, flag) in [(table.above, "above"), (table.below, "below")] {
@@ -1807,6 +1811,8 @@ fn level_job(
         share_above,
         flag_fdr: flag_rule(table)?,
         ranks: rank_order(table),
+        top: top_rule(table)?.map(|rule| rule.k),
+        pair_output: table.pair_output.clone(),
         invalid,
         id_memory: table.memory_budget.max(1).saturating_mul(1 << 20) / 2,
         prior,

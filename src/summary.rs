@@ -1002,6 +1002,13 @@ pub struct LevelSummary {
     pub below: Option<f64>,
     /// The level column and share of `prob_share_above`.
     pub share_above: Option<(String, f64)>,
+    /// How `prob_top` was computed, when asked for (the threshold method).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top: Option<TopReport>,
+    /// "highest-first" or "lowest-first": the order of the ranks and of
+    /// `prob_top`; null without either.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub rank_order: Option<String>,
     /// Flags under the posterior false-discovery rate.
     pub flags: Option<FlagReport>,
     /// Warnings.

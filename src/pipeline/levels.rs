@@ -24,13 +24,13 @@ use crate::core::model::dirichlet_multinomial::{
     LevelPosterior, LevelPrior, LevelTable,
 };
 use crate::core::model::ValueRule;
-use crate::core::ranking::{posterior_fdr_flags, RankOrder};
+use crate::core::ranking::{posterior_fdr_flags, top_probabilities_by_threshold, LawKinds, RankOrder};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch, TableSource};
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
-use crate::summary::{FlagReport, LevelReport, LevelSummary, TestReport};
+use crate::summary::{FlagReport, LevelReport, LevelSummary, TestReport, TopReport};
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
 use std::collections::HashMap;
@@ -73,6 +73,10 @@ pub struct LevelJob {
     pub flag_fdr: Option<FlagRule>,
     /// Rank columns.
     pub ranks: Option<RankOrder>,
+    /// `prob_top`: K, by the threshold method, ordered as the ranks are.
+    pub top: Option<usize>,
+    /// Where to write one row per distinct count vector with every per-vector column.
+    pub pair_output: Option<PathBuf>,
     /// Invalid-row policy.
     pub invalid: InvalidRows,
     /// Bytes the ids' hashes may hold in memory before they spill to disk.
@@ -272,8 +276,9 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
     }
     let (table, place) =
         LevelTable::of_distinct(job.levels.len(), &counted.vectors.counts, &counted.vectors.weights);
-    let (mut summary, columns, furthest) = fit_and_score(job, table, (counted.rows, counted.rejected))?;
     let mut staged = StagedOutputs::default();
+    let (mut summary, columns, furthest) =
+        fit_and_score(job, table, (counted.rows, counted.rejected), &mut staged)?;
     let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
     summary.pull.max_shift_group =
         write_groups(job, &input, columns, (found, furthest), (&mut staged, observer))?;
@@ -288,6 +293,7 @@ fn fit_and_score(
     job: &LevelJob,
     table: LevelTable,
     (rows, rejected): (usize, usize),
+    staged: &mut StagedOutputs,
 ) -> Result<(LevelSummary, PairColumns, Option<u32>)> {
     if table.is_empty() {
         return Err(Error::Input(format!(
@@ -308,7 +314,33 @@ fn fit_and_score(
         summary.mean_score_se = saved.summary.mean_score_se;
     }
     let columns = vector_columns(job, &table, &scored);
+    let group_counts = (0..table.len()).map(|i| table.weight(i) as i64).collect();
+    stage_vector_output(job, &columns, group_counts, staged)?;
     Ok((summary, columns, furthest))
+}
+
+/// With `--pair-output`: one row per distinct count vector, its counts, the
+/// number of groups sharing it (`group_count`) and every per-vector column,
+/// for joining back to the rows on the count columns; staged with the rest.
+fn stage_vector_output(
+    job: &LevelJob,
+    columns: &PairColumns,
+    group_counts: Vec<i64>,
+    staged: &mut StagedOutputs,
+) -> Result<()> {
+    let Some(path) = &job.pair_output else { return Ok(()) };
+    let mut table: Columns =
+        columns.iter().map(|(name, values)| (name.clone(), values.clone().into_column())).collect();
+    let rest = table.split_off(job.levels.len());
+    table.push(("group_count".to_string(), ColumnValues::Integers(group_counts)));
+    table.extend(rest);
+    let metadata = vec![
+        ("ratepool.version".to_string(), env!("CARGO_PKG_VERSION").to_string()),
+        ("ratepool.model".to_string(), MODEL_NAME.to_string()),
+        ("ratepool.level".to_string(), job.level.get().to_string()),
+    ];
+    staged.add(crate::io::sink::write_table(table, path, metadata)?);
+    Ok(())
 }
 
 /// Stages the summary, if asked for, after every other output, and renames them all into place.
@@ -399,7 +431,8 @@ fn run_rating_rows(
         vectors.add(group, 1.0);
     }
     let (table, place) = LevelTable::of_distinct(levels, &vectors.counts, &vectors.weights);
-    let (mut summary, columns, furthest) = fit_and_score(job, table, (rows, rejected))?;
+    let mut staged = StagedOutputs::default();
+    let (mut summary, columns, furthest) = fit_and_score(job, table, (rows, rejected), &mut staged)?;
     let vector_of_group: Vec<u32> =
         counts.chunks(levels).map(|group| place[vectors.find(group).expect("counted") as usize]).collect();
     summary.pull.max_shift_group =
@@ -409,7 +442,6 @@ fn run_rating_rows(
     } else {
         Arc::new(ids.iter().map(Some).collect::<StringArray>())
     };
-    let mut staged = StagedOutputs::default();
     let mut sink = TableSink::create_scored(&job.output, columns)?;
     sink.write_scored(vec![(job.group.clone(), id_column)], &vector_of_group)?;
     staged.add(sink.finish()?);
@@ -533,6 +565,8 @@ struct ScoredVectors {
     prob_below: Option<Vec<f64>>,
     prob_share_above: Option<Vec<f64>>,
     flags: Option<crate::core::ranking::FdrFlags>,
+    /// P(among the K best) per vector, and the threshold with K groups expected beyond it.
+    prob_top: Option<(Vec<f64>, f64)>,
 }
 
 fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> ScoredVectors {
@@ -566,7 +600,24 @@ fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> Score
     let prob_share_above = job.share_above.map(|(level, share)| {
         (0..table.len()).map(|i| share_tails(prior, table.vector(i), level, share).1).collect()
     });
+    let prob_top = job.top.map(|k| {
+        // The threshold method: the mean score c with K groups expected beyond it, then
+        // each vector's P(mean score beyond c). A pooled prior's posteriors are points.
+        let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
+        let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
+        let kinds = LawKinds { all_points: matches!(prior, LevelPrior::Pooled { .. }), floored: false };
+        let beyond = |i: usize, c: f64| {
+            let (below, above) = mean_score_tails(prior, &job.scores, table.vector(i), c);
+            if order == RankOrder::HighestFirst {
+                above
+            } else {
+                below
+            }
+        };
+        top_probabilities_by_threshold(&means, &weights, kinds, k, order, beyond)
+    });
     ScoredVectors {
+        prob_top,
         posteriors,
         shares,
         prob_share_above,
@@ -624,6 +675,9 @@ fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) ->
         if let Some(values) = values {
             columns.push((name.to_string(), PairValues::Floats(values.clone())));
         }
+    }
+    if let Some((values, _)) = &scored.prob_top {
+        columns.push(("prob_top".to_string(), PairValues::Floats(values.clone())));
     }
     if let Some(flags) = &scored.flags {
         columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
@@ -829,6 +883,20 @@ fn summarise(
         above: job.thresholds.above,
         below: job.thresholds.below,
         share_above: job.share_above.map(|(level, share)| (job.levels[level].clone(), share)),
+        top: job.top.zip(scored.prob_top.as_ref()).map(|(k, (_, threshold))| TopReport {
+            k: k as u64,
+            method: "threshold".to_string(),
+            draws: None,
+            seed: None,
+            threshold: threshold.is_finite().then_some(*threshold),
+        }),
+        rank_order: job.ranks.or(job.top.map(|_| RankOrder::HighestFirst)).map(|order| {
+            match order {
+                RankOrder::HighestFirst => "highest-first",
+                RankOrder::LowestFirst => "lowest-first",
+            }
+            .to_string()
+        }),
         flags: scored.flags.as_ref().zip(job.flag_fdr).map(|(flags, rule)| FlagReport {
             event: match rule.event {
                 FlagEvent::Above => "above".to_string(),

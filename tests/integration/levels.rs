@@ -496,3 +496,112 @@ fn score_with_a_saved_star_prior_gives_each_seller_the_posterior_of_that_prior()
         "x.csv",
     );
 }
+
+#[test]
+fn prob_top_is_the_chance_of_a_mean_score_beyond_the_threshold_with_k_sellers_expected_beyond_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_sellers();
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STARS);
+    args.extend(["--output", "top.csv", "--summary", "top.json", "--top", "20", "--ranks"]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let s = summary(&dir.path().join("top.json"));
+    assert_eq!((s["top"]["k"].as_u64(), s["top"]["method"].as_str()), (Some(20), Some("threshold")));
+    assert_eq!(s["rank_order"], "highest-first");
+    let threshold = s["top"]["threshold"].as_f64().unwrap();
+    let top = Csv::read(&dir.path().join("top.csv"));
+    let expected: f64 = top.floats("prob_top").iter().sum();
+    assert!((expected - 20.0).abs() < 1e-6, "sellers expected among the best 20: {expected}");
+    // Each seller's prob_top is its P(mean score > c) at that threshold: the
+    // exceedance that --above computes (checked against mpmath above), to the bit.
+    let shown = format!("{threshold:?}");
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STARS);
+    args.extend(["--output", "above.csv", "--above", &shown]);
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let above = Csv::read(&dir.path().join("above.csv"));
+    assert_eq!(top.column("prob_top"), above.column("prob_above"));
+}
+
+#[test]
+fn prob_top_over_two_levels_is_the_beta_binomials() {
+    // The demo sellers' ratings as two levels, 1-3 stars and 4-5 stars, scored 0 and 1:
+    // the beta-binomial of 4-5 stars among all ratings, whose prob_top the same threshold method gives.
+    let dir = tempfile::tempdir().unwrap();
+    let sellers = Csv::read(std::path::Path::new(&demo_sellers()));
+    let mut text = String::from("seller_id,low,high,total\n");
+    for row in &sellers.rows {
+        let stars: Vec<i64> = row[1..].iter().map(|v| v.parse().unwrap()).collect();
+        let high = stars[3] + stars[4];
+        let total: i64 = stars.iter().sum();
+        text.push_str(&format!("{},{},{high},{total}\n", row[0], total - high));
+    }
+    let input = write(dir.path(), "two.csv", &text);
+    let line = "--group seller_id --top 25 --rank-lowest-first --output";
+    let mut stars =
+        vec!["fit", "--input", &input, "--model", "dirichlet-multinomial", "--level-counts", "low,high"];
+    stars.extend(["--level-scores", "0,1"]);
+    stars.extend(line.split(' '));
+    stars.push("stars.csv");
+    let mut binomial = vec!["fit", "--input", &input, "--model", "beta-binomial", "--successes", "high"];
+    binomial.extend(["--trials", "total", "--top-method", "threshold"]);
+    binomial.extend(line.split(' '));
+    binomial.push("binomial.csv");
+    for args in [&stars, &binomial] {
+        let out = ratepool(dir.path(), args);
+        assert!(out.status.success(), "{}", stderr(&out));
+    }
+    let (stars, binomial) =
+        (Csv::read(&dir.path().join("stars.csv")), Csv::read(&dir.path().join("binomial.csv")));
+    let pairs = crate::util::paired(&stars.rows, &binomial.rows, "sellers");
+    let (at_stars, at_binomial) = (
+        stars.header.iter().position(|h| h == "prob_top").unwrap(),
+        binomial.header.iter().position(|h| h == "prob_top").unwrap(),
+    );
+    let mut largest = 0.0f64;
+    for (a, b) in pairs {
+        let (a, b): (f64, f64) = (a[at_stars].parse().unwrap(), b[at_binomial].parse().unwrap());
+        largest = largest.max((a - b).abs());
+    }
+    assert!(largest < 1e-6, "prob_top differs by {largest}");
+    assert!(stars.floats("prob_top").iter().any(|&p| p > 0.5), "some seller is likely among the lowest 25");
+}
+
+#[test]
+fn the_pair_output_holds_each_distinct_count_vector_once_and_joins_back_to_every_seller() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_sellers();
+    let mut args = vec!["fit", "--input", &input];
+    args.extend(STARS);
+    let more = "--output out.csv --summary s.json --pair-output vectors.csv --above 4.5 --flag-fdr 0.1 --ranks --top 10";
+    args.extend(more.split(' '));
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let vectors = Csv::read(&dir.path().join("vectors.csv"));
+    let table = Csv::read(&dir.path().join("out.csv"));
+    let s = summary(&dir.path().join("s.json"));
+    assert_eq!(vectors.rows.len() as u64, s["distinct_vectors"].as_u64().unwrap(), "one row per vector");
+    let levels = ["stars_1", "stars_2", "stars_3", "stars_4", "stars_5"];
+    assert_eq!(vectors.header[..6], ["stars_1", "stars_2", "stars_3", "stars_4", "stars_5", "group_count"]);
+    // The output's columns after the id are the vector's, in the same order.
+    assert_eq!(vectors.header[6..], table.header[6..]);
+    let key = |row: &[String], header: &[String]| -> Vec<String> {
+        levels.iter().map(|l| row[header.iter().position(|h| h == l).unwrap()].clone()).collect()
+    };
+    let by_vector: std::collections::HashMap<Vec<String>, &Vec<String>> =
+        vectors.rows.iter().map(|row| (key(row, &vectors.header), row)).collect();
+    assert_eq!(by_vector.len(), vectors.rows.len(), "each vector once");
+    // Joined back on the count columns, every seller's row is its vector's, and the group counts add up.
+    let mut counted: std::collections::HashMap<Vec<String>, i64> = std::collections::HashMap::new();
+    for row in &table.rows {
+        let vector = key(row, &table.header);
+        let joined = by_vector[&vector];
+        assert_eq!(row[6..], joined[6..], "{vector:?}");
+        *counted.entry(vector).or_default() += 1;
+    }
+    for (vector, row) in &by_vector {
+        assert_eq!(counted[vector], row[5].parse::<i64>().unwrap(), "group_count of {vector:?}");
+    }
+}
