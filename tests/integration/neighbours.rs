@@ -692,3 +692,31 @@ fn a_score_draws_the_nc_counties_map_in_longitude_and_latitude() {
     let aspect = (high[0] - low[0]) / (high[1] - low[1]);
     assert!(relative(aspect, want) < 2e-3, "width over height {aspect} against {want}");
 }
+
+#[test]
+fn a_parquet_neighbour_table_made_from_the_map_gives_the_csv_tables_output() {
+    let dir = tempfile::tempdir().unwrap();
+    let map = fixture("neighbours/nc_counties.geojson");
+    let made = ratepool(
+        dir.path(),
+        &[
+            "neighbours",
+            "--map",
+            map.to_str().unwrap(),
+            "--key",
+            "county",
+            "--rook",
+            "--output",
+            "rook.parquet",
+        ],
+    );
+    assert!(made.status.success(), "{}", stderr(&made));
+    let gal = fixture("neighbours/nc_sids_neighbours.csv");
+    let mut outputs = Vec::new();
+    for (table, output) in [("rook.parquet", "from-parquet.csv"), (gal.to_str().unwrap(), "from-csv.csv")] {
+        let out = fit_counties(dir.path(), table, &["--output", output]);
+        assert!(out.status.success(), "{}", stderr(&out));
+        outputs.push(std::fs::read(dir.path().join(output)).unwrap());
+    }
+    assert!(outputs[0] == outputs[1], "the map's rook pairs are the GAL file's, so the outputs agree");
+}
