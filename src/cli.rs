@@ -230,7 +230,14 @@ macro_rules! fit_examples {
     --covariates deprivation,outdoor_share --output profiles.parquet
   ratepool fit --input demo-data/clinic_waits.csv --model normal-normal \\
     --group clinic_id --estimate mean_wait_minutes --std-error wait_se \\
-    --variance-method reml --output clinics.csv"
+    --variance-method reml --output clinics.csv
+The districts by age band, each pulled toward its neighbours' rate (the
+neighbour table from the second neighbours example), with a map in the report:
+  ratepool fit --input demo-data/district_bands.csv --model gamma-poisson \\
+    --group district_id --events cases --population population \\
+    --strata age_band --neighbours district_neighbours.csv --above 1.2 \\
+    --flag-fdr 0.1 --output local.csv --report local.html \\
+    --map demo-data/district_map.geojson --map-key district_id"
     };
 }
 
@@ -253,9 +260,12 @@ macro_rules! report_examples {
 
 macro_rules! neighbours_examples {
     () => {
-        "Example (from the repository root, on the North Carolina counties of the test fixtures):
+        "Examples (from the repository root: the North Carolina counties of the test
+fixtures, and the invented demo districts):
   ratepool neighbours --map tests/fixtures/neighbours/nc_counties.geojson \\
-    --key county --output county_neighbours.csv"
+    --key county --output county_neighbours.csv
+  ratepool neighbours --map demo-data/district_map.geojson \\
+    --key district_id --output district_neighbours.csv"
     };
 }
 

@@ -4,6 +4,8 @@ Arrow C stream interface (pyarrow, polars, pandas)."""
 
 from __future__ import annotations
 
+import subprocess
+
 import pandas as pd
 import polars as pl
 import pyarrow as pa
@@ -121,3 +123,27 @@ def test_to_polars_and_to_pandas_hold_the_table():
     result = ratepool.fit(pl.read_csv(DEMO / "marketplace.csv"), **SELLERS)
     assert result.to_polars().shape == (result.table.num_rows, result.table.num_columns)
     assert list(result.to_pandas().columns) == result.table.column_names
+
+
+def test_districts_by_age_band_with_the_neighbour_prior_are_the_command_lines(cli, tmp_path):
+    # The neighbour table made by the command line from the demo map, then the districts
+    # by age band from a polars frame, each pulled toward its neighbourhood's rate.
+    pairs = tmp_path / "district_neighbours.csv"
+    done = subprocess.run(
+        [str(cli.binary), "neighbours", "--map", str(DEMO / "district_map.geojson"),
+         "--key", "district_id", "--output", str(pairs)],
+        capture_output=True, text=True,
+    )
+    assert done.returncode == 0, done.stderr
+    options = dict(model="gamma-poisson", group="district_id", events="cases", population="population",
+                   strata=["age_band"], neighbours=str(pairs), above=1.2, flag_fdr=0.1)
+    result = ratepool.fit(pl.read_csv(DEMO / "district_bands.csv"), **options)
+    table, summary = cli.run(
+        "fit", "--input", "demo-data/district_bands.csv", "--model", "gamma-poisson", "--group", "district_id",
+        "--events", "cases", "--population", "population", "--strata", "age_band",
+        "--neighbours", str(pairs), "--above", "1.2", "--flag-fdr", "0.1",
+    )
+    same_table(result.table, table)
+    assert result.summary == summary
+    assert result.summary["neighbourhood"]["pairs"] == 1121
+    assert {"prior_mean", "neighbours"} <= set(result.table.column_names)
