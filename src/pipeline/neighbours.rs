@@ -140,9 +140,13 @@ fn read_pairs(job: &Job, path: &Path, by_name: &HashMap<&str, u32>) -> Result<Re
 
 /// The all-areas prior a neighbour run falls back on, as fitted.
 pub(super) struct AllAreas<'a> {
+    /// The prior fitted to all areas.
     pub prior: &'a Prior,
+    /// Its wire form, which the summary's `prior` holds.
     pub fitted_prior: &'a FittedPrior,
+    /// How it was fitted.
     pub fit: &'a FitReport,
+    /// Its boundary warnings.
     pub warnings: &'a [String],
 }
 
