@@ -1,8 +1,8 @@
 //! One pass over a run's output table, keeping what the report shows in
 //! bounded memory whatever the number of groups: a seeded sample for the
-//! scatter plots, the few groups each table lists, and histograms.
+//! scatter plots, the few groups each table lists, and histograms; with a
+//! map, one more pass keeping the values of the map's areas.
 
-use super::map::AreaValues;
 use crate::core::model::Model;
 use crate::error::{Error, Result};
 use crate::io::cells::{float_column, GroupColumn};
@@ -165,6 +165,23 @@ pub fn raw_column_of(summary: &Summary, model: Model) -> &'static str {
         (_, Some(_)) => "smr",
         _ => model.terms().raw_column,
     }
+}
+
+/// What the output table holds of one area.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AreaValues {
+    /// The raw value (None without exposure).
+    pub raw: Option<f64>,
+    /// Posterior mean and interval.
+    pub mean: f64,
+    /// Interval ends.
+    pub lower: f64,
+    /// Upper interval end.
+    pub upper: f64,
+    /// P(rate > T of `--above`), when the run has it.
+    pub prob_above: Option<f64>,
+    /// Flagged under the run's false-discovery bound.
+    pub flagged: bool,
 }
 
 /// What a map needs of the output table: the values of the areas on the

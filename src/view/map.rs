@@ -12,7 +12,7 @@
 //! turns from blue below its centre to orange and red above it, a contrast
 //! that the common red-green colour deficiencies keep.
 
-use super::collect::{TableAreas, LISTED};
+use super::collect::{AreaValues, TableAreas, LISTED};
 use super::Figure;
 use crate::core::contiguity::Point;
 use crate::error::Result;
@@ -28,23 +28,6 @@ pub struct ReportMap {
     pub key: String,
     /// The areas, in the file's order.
     pub areas: Vec<MapArea>,
-}
-
-/// What the output table holds of one area.
-#[derive(Debug, Clone, PartialEq)]
-pub struct AreaValues {
-    /// The raw value (None without exposure).
-    pub raw: Option<f64>,
-    /// Posterior mean and interval.
-    pub mean: f64,
-    /// Interval ends.
-    pub lower: f64,
-    /// Upper interval end.
-    pub upper: f64,
-    /// P(rate > T of `--above`), when the run has it.
-    pub prob_above: Option<f64>,
-    /// Flagged under the run's false-discovery bound.
-    pub flagged: bool,
 }
 
 /// A binned colour scale: class i holds values in [breaks[i-1], breaks[i]).
