@@ -276,6 +276,17 @@ macro_rules! check_examples {
     };
 }
 
+// The long help of `--map`, which `fit`, `score` (with --report) and `report` share.
+macro_rules! map_help {
+    () => {
+        "A GeoJSON map of the groups (areas): a FeatureCollection of Polygon or MultiPolygon features, each naming its group id in the property --map-key. The report then draws each area's raw value and posterior mean side by side on one colour scale, with --above the probability of exceeding it, and the flagged areas outlined; areas on the map but not in the table, and the reverse, are listed under it."
+    };
+}
+
+/// The long help of `--map-key`.
+const MAP_KEY_HELP: &str =
+    "The property of each feature of --map that holds its group id, as the group column writes it.";
+
 /// The exit status, in `--help` and the manual page.
 pub const EXIT_STATUS: &str = exit_status!();
 /// The worked examples of each subcommand, in its `--help` and the manual page (a test runs them).
@@ -364,7 +375,7 @@ pub struct ReportArgs {
     pub plot_format: PlotFormatArg,
     /// Draw the areas of this map in the report
     #[arg(
-        long_help = "A GeoJSON map of the groups (areas): a FeatureCollection of Polygon or MultiPolygon features, each naming its group id in the property --map-key. The report then draws each area's raw value and posterior mean side by side on one colour scale, with --above the probability of exceeding it, and the flagged areas outlined; areas on the map but not in the table, and the reverse, are listed under it.",
+        long_help = map_help!(),
         long,
         value_name = "FILE",
         requires = "map_key"
@@ -372,7 +383,7 @@ pub struct ReportArgs {
     pub map: Option<PathBuf>,
     /// The map's property naming each area's group
     #[arg(
-        long_help = "The property of each feature of --map that holds its group id, as the group column writes it.",
+        long_help = MAP_KEY_HELP,
         long,
         value_name = "PROPERTY",
         requires = "map"
@@ -726,11 +737,11 @@ pub struct TableArgs {
     #[arg(long_help = "The format of the plots written with --plots: svg, or png (rasterised, text in DejaVu Sans).", long, value_enum, value_name = "FORMAT", default_value_t = PlotFormatArg::Svg, hide_possible_values = true, requires = "plots", help_heading = "Output")]
     pub plot_format: PlotFormatArg,
     /// Draw the areas of this map in the report
-    #[arg(long_help = "With --report: A GeoJSON map of the groups (areas): a FeatureCollection of Polygon or MultiPolygon features, each naming its group id in the property --map-key. The report then draws each area's raw value and posterior mean side by side on one colour scale, with --above the probability of exceeding it, and the flagged areas outlined; areas on the map but not in the table, and the reverse, are listed under it.", long, value_name = "FILE", requires_all = ["report", "map_key"], help_heading = "Output")]
+    #[arg(long_help = concat!("With --report: ", map_help!()), long, value_name = "FILE", requires_all = ["report", "map_key"], help_heading = "Output")]
     pub map: Option<PathBuf>,
     /// The map's property naming each area's group
     #[arg(
-        long_help = "The property of each feature of --map that holds its group id, as the group column writes it.",
+        long_help = MAP_KEY_HELP,
         long,
         value_name = "PROPERTY",
         requires = "map",
@@ -1535,16 +1546,19 @@ fn run_level_job(
 }
 
 /// The saved star-rating prior of `score --prior FILE`, when FILE is a
-/// star-rating fit's summary (told by its `model` key).
+/// star-rating fit's summary (told by its `model` key); None for any other
+/// model's summary, which the score reads as its own.
 fn saved_level_prior(prior: &Path) -> Result<Option<crate::summary::LevelSummary>> {
-    if saved_model(prior)? != crate::pipeline::levels::MODEL_NAME {
-        return Ok(None);
-    }
+    let not_summary = |e: &dyn std::fmt::Display| {
+        Error::Input(format!("{}: not a ratepool summary file: {e}", prior.display()))
+    };
     let text = std::fs::read_to_string(prior)
         .map_err(|e| Error::Input(format!("{}: cannot read the prior file: {e}", prior.display())))?;
-    let saved = serde_json::from_str(&text)
-        .map_err(|e| Error::Input(format!("{}: not a ratepool summary file: {e}", prior.display())))?;
-    Ok(Some(saved))
+    let value: serde_json::Value = serde_json::from_str(&text).map_err(|e| not_summary(&e))?;
+    if value.get("model").and_then(serde_json::Value::as_str) != Some(crate::pipeline::levels::MODEL_NAME) {
+        return Ok(None);
+    }
+    serde_json::from_value(value).map(Some).map_err(|e| not_summary(&e))
 }
 
 impl Command {
@@ -1560,16 +1574,6 @@ impl Command {
             _ => self.into_job().map(|_| ()),
         }
     }
-}
-
-/// The model a prior file was fitted with (its `model` key), read before
-/// the file is read as the summary of that model's runs.
-fn saved_model(path: &Path) -> Result<String> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| Error::Input(format!("{}: cannot read the prior file: {e}", path.display())))?;
-    let value: serde_json::Value = serde_json::from_str(&text)
-        .map_err(|e| Error::Input(format!("{}: not a ratepool summary file: {e}", path.display())))?;
-    Ok(value.get("model").and_then(serde_json::Value::as_str).unwrap_or_default().to_string())
 }
 
 /// Writes the HTML report of `report` from its table and summary.
@@ -1912,12 +1916,13 @@ impl Command {
             Command::Fit(args) if args.model == FitModel::LevelCounts => {
                 return run_level_job(level_job_of(args)?, &args.table, source, observer);
             }
-            Command::Score(args) if saved_model(&args.prior)? == crate::pipeline::levels::MODEL_NAME => {
-                let saved = saved_level_prior(&args.prior)?.expect("a star-rating summary");
-                return run_level_job(level_score_job_of(args, saved)?, &args.table, source, observer);
-            }
             Command::Fit(args) => &args.table,
-            Command::Score(args) => &args.table,
+            Command::Score(args) => match saved_level_prior(&args.prior)? {
+                Some(saved) => {
+                    return run_level_job(level_score_job_of(args, saved)?, &args.table, source, observer)
+                }
+                None => &args.table,
+            },
         };
         let report = table.report.clone().map(|html| (html, table.plots.clone()));
         let plot_format = table.plot_format.format();

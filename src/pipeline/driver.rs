@@ -10,7 +10,7 @@
 
 use super::covariates::{covariate_table, CovariatePairs, CovariateState};
 use super::neighbours::area_table;
-use super::prior::{score_covariate_pairs, score_neighbour_pairs, score_pairs, Scored};
+use super::prior::{score_cell_pairs, score_pairs, CellTable, Scored};
 use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts, ShiftGroups};
 use super::segments::{PairLookup, SegmentCounters, SegmentIndex, SegmentPairs};
 use super::{no_data_rows, no_valid_rows, Job, PhaseClock};
@@ -105,15 +105,12 @@ pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'
             if covariates.pairs.len() == 0 {
                 return Err(no_valid_rows(job, counted.rejected));
             }
-            let scored = if job.neighbours.is_some() {
-                score_neighbour_pairs(job, area_table(job, &covariates.pairs, &covariates.state)?, clock)?
+            let table = if job.neighbours.is_some() {
+                CellTable::Areas(area_table(job, &covariates.pairs, &covariates.state)?)
             } else {
-                score_covariate_pairs(
-                    job,
-                    covariate_table(job, &covariates.pairs, &covariates.state)?,
-                    clock,
-                )?
+                CellTable::Covariates(covariate_table(job, &covariates.pairs, &covariates.state)?)
             };
+            let scored = score_cell_pairs(job, table, clock)?;
             let placement = Placement {
                 segments: SegmentIndex::default(),
                 pairs: PairLookup::new(&[], &[]),

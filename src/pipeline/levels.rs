@@ -13,7 +13,7 @@
 use super::clock::go_on;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
-use super::scoring::{pull_report, rank_columns};
+use super::scoring::{pull_report, rank_columns, rank_order_words};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::RunObserver;
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
@@ -890,13 +890,7 @@ fn summarise(
             seed: None,
             threshold: threshold.is_finite().then_some(*threshold),
         }),
-        rank_order: job.ranks.or(job.top.map(|_| RankOrder::HighestFirst)).map(|order| {
-            match order {
-                RankOrder::HighestFirst => "highest-first",
-                RankOrder::LowestFirst => "lowest-first",
-            }
-            .to_string()
-        }),
+        rank_order: rank_order_words(job.ranks, job.top.is_some()),
         flags: scored.flags.as_ref().zip(job.flag_fdr).map(|(flags, rule)| FlagReport {
             event: match rule.event {
                 FlagEvent::Above => "above".to_string(),

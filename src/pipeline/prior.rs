@@ -124,45 +124,50 @@ impl Scored {
     }
 }
 
-/// Fits the covariate prior to a covariate table and scores every pair.
-pub fn score_covariate_pairs(job: &Job, table: CovariateTable, clock: &mut PhaseClock<'_>) -> Result<Scored> {
-    job.model.visit(ScoreCovariatePairs { job, table, clock })
+/// The table of a run whose groups each have a prior of their own: the
+/// covariate pairs, or (with `--neighbours`) the areas.
+pub enum CellTable {
+    /// The distinct (covariates, size, count) pairs and their design.
+    Covariates(CovariateTable),
+    /// The areas and who neighbours whom.
+    Areas(AreaTable),
 }
 
-/// [`score_covariates_with`] for the job's model.
-struct ScoreCovariatePairs<'a, 'b> {
+/// Fits the priors of a cell table (the covariate prior, or the all-areas
+/// prior and each area's local one) and scores every pair.
+pub fn score_cell_pairs(job: &Job, table: CellTable, clock: &mut PhaseClock<'_>) -> Result<Scored> {
+    job.model.visit(ScoreCellPairs { job, table, clock })
+}
+
+/// [`score_covariates_with`] or [`score_neighbours_with`] for the job's model.
+struct ScoreCellPairs<'a, 'b> {
     job: &'a Job,
-    table: CovariateTable,
+    table: CellTable,
     clock: &'a mut PhaseClock<'b>,
 }
 
-impl FamilyVisitor for ScoreCovariatePairs<'_, '_> {
+impl FamilyVisitor for ScoreCellPairs<'_, '_> {
     type Output = Result<Scored>;
 
     fn visit<F: Family>(self) -> Result<Scored> {
-        score_covariates_with::<F>(self.job, self.table, self.clock)
+        match self.table {
+            CellTable::Covariates(table) => score_covariates_with::<F>(self.job, table, self.clock),
+            CellTable::Areas(table) => score_neighbours_with::<F>(self.job, table, self.clock),
+        }
     }
 }
 
-/// Fits the all-areas prior, gives each area its prior from its
-/// neighbourhood, and scores every area.
-pub fn score_neighbour_pairs(job: &Job, table: AreaTable, clock: &mut PhaseClock<'_>) -> Result<Scored> {
-    job.model.visit(ScoreNeighbourPairs { job, table, clock })
-}
-
-/// [`score_neighbours_with`] for the job's model.
-struct ScoreNeighbourPairs<'a, 'b> {
-    job: &'a Job,
-    table: AreaTable,
-    clock: &'a mut PhaseClock<'b>,
-}
-
-impl FamilyVisitor for ScoreNeighbourPairs<'_, '_> {
-    type Output = Result<Scored>;
-
-    fn visit<F: Family>(self) -> Result<Scored> {
-        score_neighbours_with::<F>(self.job, self.table, self.clock)
-    }
+/// Each pair under its own prior: posteriors, decisions and the scored table.
+fn score_cells<F: Family>(
+    job: &Job,
+    priors: PriorsInUse,
+    places: PairPlaces,
+    clock: &mut PhaseClock<'_>,
+) -> Result<Scored> {
+    let posteriors = posteriors_of::<F>(job, &priors, &places);
+    let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
+    clock.lap("posteriors", "posteriors")?;
+    Ok(scored_of::<F>(job, Vec::new(), priors, places, (posteriors, decisions)))
 }
 
 /// Each area under its local prior (the all-areas prior where it has none).
@@ -187,11 +192,7 @@ fn score_neighbours_with<F: Family>(
     let (pairs, cells) = neighbour_cell_priors(table, fallback, local);
     clock.lap("local-priors", &format!("local priors ({} areas)", pairs.len()))?;
     let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
-    let priors = PriorsInUse::of_covariates(all_table, all, cells);
-    let posteriors = posteriors_of::<F>(job, &priors, &places);
-    let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
-    clock.lap("posteriors", "posteriors")?;
-    Ok(scored_of::<F>(job, Vec::new(), priors, places, (posteriors, decisions)))
+    score_cells::<F>(job, PriorsInUse::of_covariates(all_table, all, cells), places, clock)
 }
 
 /// Fits or loads the priors for the segments' pairs (one segment of every
@@ -672,10 +673,7 @@ fn score_covariates_with<F: Family>(
     refuse_top_of_everyone(job, &pairs)?;
     let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
     let priors = covariate_priors_in_use::<F>(job, (table, &places.pairs), clock)?;
-    let posteriors = posteriors_of::<F>(job, &priors, &places);
-    let decisions = decisions_of::<F>(job, &priors, &places, &posteriors);
-    clock.lap("posteriors", "posteriors")?;
-    Ok(scored_of::<F>(job, Vec::new(), priors, places, (posteriors, decisions)))
+    score_cells::<F>(job, priors, places, clock)
 }
 
 impl PriorsInUse {

@@ -301,6 +301,18 @@ impl ShiftTracker {
     }
 }
 
+/// The summary's `rank_order`: the order of the ranks, or of `prob_top`
+/// (highest first unless ranked otherwise); None with neither.
+pub fn rank_order_words(ranks: Option<RankOrder>, top: bool) -> Option<String> {
+    ranks.or(top.then_some(RankOrder::HighestFirst)).map(|order| {
+        match order {
+            RankOrder::HighestFirst => "highest-first",
+            RankOrder::LowestFirst => "lowest-first",
+        }
+        .to_string()
+    })
+}
+
 /// The run's summary.
 pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGroups) -> Summary {
     let mut warnings = scored.warnings.clone();
@@ -366,13 +378,7 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
             count: job.columns.count.clone(),
             size: job.columns.size.clone(),
         }),
-        rank_order: job.ranks.or(job.top.map(|_| RankOrder::HighestFirst)).map(|order| {
-            match order {
-                RankOrder::HighestFirst => "highest-first",
-                RankOrder::LowestFirst => "lowest-first",
-            }
-            .to_string()
-        }),
+        rank_order: rank_order_words(job.ranks, job.top.is_some()),
         top: job.top.zip(scored.prob_top.as_ref()).map(|(rule, (_, method))| TopReport {
             k: rule.k as u64,
             method: match method {

@@ -212,14 +212,19 @@ pub fn area_values(
         ("interval_lo", "interval"),
         ("interval_hi", "interval"),
     ];
-    if summary.thresholds.as_ref().is_some_and(|t| t.above.is_some()) {
-        wanted.push(("prob_above", "exceedance"));
-    }
+    // numbers[i] is wanted[i + 1].
+    let mut optional = |wanted_here: bool, column: (&'static str, &'static str)| {
+        wanted_here.then(|| {
+            wanted.push(column);
+            wanted.len() - 2
+        })
+    };
+    let above_at = optional(
+        summary.thresholds.as_ref().is_some_and(|t| t.above.is_some()),
+        ("prob_above", "exceedance"),
+    );
     let flag_bound = summary.flags.as_ref().map(|f| f.fdr_level);
-    let flag_at = flag_bound.map(|_| {
-        wanted.push(("flag_fdr", "flag"));
-        wanted.len() - 2
-    });
+    let flag_at = optional(flag_bound.is_some(), ("flag_fdr", "flag"));
     let input = Input::open(table, b',', &wanted, crate::pipeline::DEFAULT_BATCH_ROWS)?;
     let mut out = TableAreas { values: HashMap::new(), unmapped: Vec::new(), unmapped_count: 0 };
     input.for_each_batch(|batch| {
@@ -243,7 +248,7 @@ pub fn area_values(
                 mean: value(1).unwrap_or(f64::NAN),
                 lower: value(2).unwrap_or(f64::NAN),
                 upper: value(3).unwrap_or(f64::NAN),
-                prob_above: (wanted.len() > 5 && wanted[5].0 == "prob_above").then(|| value(4)).flatten(),
+                prob_above: above_at.and_then(value),
                 flagged,
             };
             out.values.insert(id, values);

@@ -13,6 +13,7 @@
 //! that the common red-green colour deficiencies keep.
 
 use super::collect::{AreaValues, TableAreas, LISTED};
+use super::page::escape;
 use super::Figure;
 use crate::core::contiguity::Point;
 use crate::error::Result;
@@ -211,10 +212,6 @@ impl Projection {
         }
         d
     }
-}
-
-fn escape(text: &str) -> String {
-    text.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
 }
 
 /// One panel of a map: what it shows of each area, and its heading.

@@ -13,7 +13,7 @@ use std::fmt::Write;
 const SEGMENT_PLOTS: usize = 12;
 
 /// Text made safe for HTML.
-fn escape(text: &str) -> String {
+pub(super) fn escape(text: &str) -> String {
     let mut out = String::with_capacity(text.len());
     for c in text.chars() {
         match c {
