@@ -8,9 +8,15 @@
 //! lower tail's 2.5% point and the upper tail's), as scoring does; criterion's
 //! throughput (quantiles per second) inverts to the time per call.
 //!
+//! Mixture: the tails at one point of the 49 posteriors a corrected interval
+//! mixes (a pair of 400 trials and 80 successes under a Beta(3, 12) prior
+//! whose mean and strength move a few percent from node to node), each law
+//! alone and side by side (`beta_tails_at`), at the interval's two ends.
+//!
 //! `cargo bench --bench quantiles`
 
 use criterion::{criterion_group, criterion_main, Criterion, Throughput};
+use ratepool::core::incomplete::{beta_tails, beta_tails_at, BetaLaw};
 use ratepool::core::quantile::{beta_quantile, gamma_quantile, Tail};
 use std::hint::black_box;
 
@@ -94,6 +100,35 @@ fn quantiles(c: &mut Criterion) {
         });
     }
     large.finish();
+    let mut mixture = c.benchmark_group("tails of a corrected posterior's 49 laws");
+    let laws: Vec<BetaLaw> = (0..49)
+        .map(|node| {
+            let strength = 15.0 * (1.0 + 0.05 * (f64::from(node / 7) - 3.0));
+            let mean = 0.2 * (1.0 + 0.02 * (f64::from(node % 7) - 3.0));
+            BetaLaw::new(mean * strength + 80.0, (1.0 - mean) * strength + 320.0)
+        })
+        .collect();
+    mixture.throughput(Throughput::Elements(2 * laws.len() as u64));
+    let ends = [0.165, 0.24];
+    mixture.bench_function("each law alone, both ends", |bench| {
+        bench.iter(|| {
+            ends.iter()
+                .map(|&x| laws.iter().map(|l| beta_tails(l.a, l.b, black_box(x), 1.0 - x).lower).sum::<f64>())
+                .sum::<f64>()
+        })
+    });
+    let mut out = Vec::new();
+    mixture.bench_function("side by side, both ends", |bench| {
+        bench.iter(|| {
+            ends.iter()
+                .map(|&x| {
+                    beta_tails_at(&laws, black_box(x), 1.0 - x, &mut out);
+                    out.iter().map(|t| t.lower).sum::<f64>()
+                })
+                .sum::<f64>()
+        })
+    });
+    mixture.finish();
 }
 
 criterion_group!(benches, quantiles);

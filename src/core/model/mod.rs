@@ -18,6 +18,7 @@ pub mod gamma_poisson;
 pub mod neighbourhood;
 pub mod normal_normal;
 
+use crate::core::incomplete::{beta_lower_tails_and_densities_at, BetaLaw};
 use crate::core::pairs::{PairTable, WeightedPair};
 
 /// Log-likelihood with its gradient and Hessian in working coordinates.
@@ -710,13 +711,7 @@ pub fn corrected_posterior<F: Family>(
             }
             let variance = (second - mean * mean).max(0.0);
             let (start_low, start_high) = F::matched_interval(mean, variance, tail);
-            let mixture: Vec<Component<'_>> = components
-                .iter()
-                .filter_map(|(weight, node)| {
-                    let law = (F::TERMS.law_of)(F::posterior_natural(node, size, count)?);
-                    Some(Component { weight: *weight, node, ln_norm: law.ln_normaliser(), law })
-                })
-                .collect();
+            let mixture = Mixture::new::<F>(components, size, count);
             let scale = variance.sqrt();
             let lower = mixture_quantile::<F>(&mixture, (size, count), tail, start_low, scale);
             let upper = mixture_quantile::<F>(&mixture, (size, count), 1.0 - tail, start_high, scale);
@@ -747,6 +742,89 @@ struct Component<'a> {
     ln_norm: f64,
 }
 
+/// A corrected posterior's components, with their Beta laws when every
+/// component is a Beta law (their tails and densities are then evaluated
+/// together: [`beta_lower_tails_and_densities_at`]).
+struct Mixture<'a> {
+    components: Vec<Component<'a>>,
+    beta_laws: Option<Vec<BetaLaw>>,
+}
+
+/// A mixture's CDF at a point, its density there, and the density's slope.
+#[derive(Debug, Clone, Copy, Default)]
+struct MixtureAt {
+    cdf: f64,
+    density: f64,
+    slope: f64,
+}
+
+impl<'a> Mixture<'a> {
+    /// The posteriors one pair has under each node of `nodes`.
+    fn new<F: Family>(nodes: &'a [(f64, Prior)], size: f64, count: f64) -> Self {
+        let laws: Vec<(f64, &Prior, RateLaw)> = nodes
+            .iter()
+            .filter_map(|(weight, node)| {
+                Some((*weight, node, (F::TERMS.law_of)(F::posterior_natural(node, size, count)?)))
+            })
+            .collect();
+        let beta_laws: Option<Vec<BetaLaw>> = laws
+            .iter()
+            .map(|(_, _, law)| match *law {
+                RateLaw::Beta { alpha, beta } => Some(BetaLaw::new(alpha, beta)),
+                _ => None,
+            })
+            .collect();
+        // Beta densities come from the tails' kernels, without a normaliser.
+        let normalised = beta_laws.is_none();
+        let components = laws
+            .into_iter()
+            .map(|(weight, node, law)| Component {
+                weight,
+                node,
+                law,
+                ln_norm: if normalised { law.ln_normaliser() } else { 0.0 },
+            })
+            .collect();
+        Mixture { components, beta_laws }
+    }
+
+    /// The mixture at `x`: each component's P(rate < x) as
+    /// [`Family::rate_tails`] gives it, weighted and summed, with the
+    /// density and its slope. Beta components are taken together
+    /// ([`beta_lower_tails_and_densities_at`]: their fractions side by side,
+    /// tail and density from one kernel); `scratch` holds what that returns.
+    fn at<F: Family>(&self, (size, count): (f64, f64), x: f64, scratch: &mut Vec<[f64; 2]>) -> MixtureAt {
+        let mut sum = MixtureAt::default();
+        let mut add = |weight: f64, below: f64, (density, slope): (f64, f64)| {
+            sum.cdf += weight * below;
+            sum.density += weight * density;
+            sum.slope += weight * density * slope;
+        };
+        match &self.beta_laws {
+            // Beta(α + k, β + n − k) at x, as the family's tails take it.
+            Some(laws) => {
+                let y = 1.0 - x;
+                beta_lower_tails_and_densities_at(laws, x, y, scratch);
+                let inside = x > 0.0 && y > 0.0;
+                for ((c, &[lower, density]), law) in self.components.iter().zip(scratch.iter()).zip(laws) {
+                    let slope = if inside { (law.a - 1.0) / x - (law.b - 1.0) / y } else { 0.0 };
+                    add(c.weight, lower, (density, slope));
+                }
+            }
+            None => {
+                for c in &self.components {
+                    add(
+                        c.weight,
+                        F::rate_tails(c.node, size, count, x).0,
+                        c.law.density_and_slope(x, c.ln_norm),
+                    );
+                }
+            }
+        }
+        sum
+    }
+}
+
 /// The x where the mixture's P(rate < x) equals `target`: Halley's method
 /// from `start` on the mixture CDF, its density and the density's slope
 /// (each a weighted sum over the components), kept inside the bracket its
@@ -755,7 +833,7 @@ struct Component<'a> {
 /// sign), since Halley's error then falls cubically to far below that. From
 /// the matched law's interval one evaluation usually suffices.
 fn mixture_quantile<F: Family>(
-    mixture: &[Component<'_>],
+    mixture: &Mixture<'_>,
     (size, count): (f64, f64),
     target: f64,
     start: f64,
@@ -770,14 +848,10 @@ fn mixture_quantile<F: Family>(
     }
     let (mut low, mut high): (Option<f64>, Option<f64>) = (None, None);
     let mut reach = 0.5 * scale.max(f64::MIN_POSITIVE);
+    let mut scratch = Vec::new();
     for _ in 0..200 {
-        let (mut g, mut density, mut slope) = (-target, 0.0, 0.0);
-        for c in mixture {
-            g += c.weight * F::rate_tails(c.node, size, count, x).0;
-            let (d, s) = c.law.density_and_slope(x, c.ln_norm);
-            density += c.weight * d;
-            slope += c.weight * d * s;
-        }
+        let MixtureAt { cdf, density, slope } = mixture.at::<F>((size, count), x, &mut scratch);
+        let g = cdf - target;
         if g == 0.0 {
             return x;
         }
@@ -1077,16 +1151,10 @@ mod quadrature {
         start: f64,
     ) -> (f64, f64) {
         let spread = SpreadPrior::new::<F>(natural, [[0.04, 0.01], [0.01, 0.09]], None).unwrap();
-        let mixture: Vec<Component<'_>> = spread
-            .nodes
-            .iter()
-            .map(|(weight, node)| {
-                let law = (F::TERMS.law_of)(F::posterior_natural(node, size, count).unwrap());
-                Component { weight: *weight, node, ln_norm: law.ln_normaliser(), law }
-            })
-            .collect();
+        let mixture = Mixture::new::<F>(&spread.nodes, size, count);
         let x = mixture_quantile::<F>(&mixture, (size, count), target, start, 1.0);
-        let cdf: f64 = mixture.iter().map(|c| c.weight * F::rate_tails(c.node, size, count, x).0).sum();
+        let cdf: f64 =
+            mixture.components.iter().map(|c| c.weight * F::rate_tails(c.node, size, count, x).0).sum();
         (x, cdf)
     }
 
