@@ -1830,6 +1830,7 @@ fn level_job(
         invalid,
         id_memory: table.memory_budget.max(1).saturating_mul(1 << 20) / 2,
         prior,
+        seed: table.seed,
     })
 }
 

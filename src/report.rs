@@ -118,12 +118,9 @@ pub fn render_text(summary: &Summary) -> String {
         let c = &checks.calibration;
         let _ = writeln!(
             out,
-            "  calibration  {}: chi-square {:.2} on {} df, {} over {} groups; raw-rate variance observed/expected {:.3}: {}",
+            "  calibration  {}: {}; raw-rate variance observed/expected {:.3}: {}",
             checks.data,
-            c.statistic,
-            c.degrees_of_freedom,
-            p_value_text(c.p_value),
-            c.groups,
+            c.test_words(),
             checks.raw_rate_variance.ratio.unwrap_or(f64::NAN),
             checks.verdict
         );
@@ -184,6 +181,16 @@ pub fn render_level_text(summary: &LevelSummary) -> String {
         p_value_text(test.p_value)
     );
     pull_lines(&mut out, &summary.pull);
+    if let Some(checks) = &summary.checks {
+        let _ = writeln!(
+            out,
+            "  calibration  {}: each mean score placed among {} replicates from its prior predictive, {}: {}",
+            checks.data,
+            checks.replicates,
+            checks.calibration.test_words(),
+            checks.verdict
+        );
+    }
     if let Some(flags) = &summary.flags {
         flag_line(&mut out, flags);
     }

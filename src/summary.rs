@@ -248,6 +248,31 @@ pub struct CalibrationReport {
     pub seed: u64,
 }
 
+impl CalibrationReport {
+    /// The report of `calibration`, drawn with `seed`.
+    pub fn of(calibration: &crate::core::diagnostics::Calibration, seed: u64) -> Self {
+        CalibrationReport {
+            bins: calibration.bins.to_vec(),
+            statistic: calibration.statistic,
+            degrees_of_freedom: 9,
+            p_value: calibration.p_value,
+            groups: calibration.groups,
+            seed,
+        }
+    }
+
+    /// The terminal's words for the test: "chi-square … on … df, p … over … groups".
+    pub fn test_words(&self) -> String {
+        format!(
+            "chi-square {:.2} on {} df, {} over {} groups",
+            self.statistic,
+            self.degrees_of_freedom,
+            p_value_text(self.p_value),
+            self.groups
+        )
+    }
+}
+
 /// Observed against expected variance of the raw rates.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct VarianceReport {
@@ -1011,8 +1036,27 @@ pub struct LevelSummary {
     pub rank_order: Option<String>,
     /// Flags under the posterior false-discovery rate.
     pub flags: Option<FlagReport>,
+    /// The calibration check (absent from summaries of earlier versions).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub checks: Option<LevelChecks>,
     /// Warnings.
     pub warnings: Vec<String>,
+}
+
+/// The star-rating model's calibration check: each group's mean score
+/// placed among replicates of the group drawn from its prior predictive
+/// (uniform on 0..=replicates under the model), the places counted in ten
+/// bins as the other models' randomised PIT is.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelChecks {
+    /// "the fitted data", or "the scored data under the saved prior".
+    pub data: String,
+    /// Replicates drawn per group located (9: ten places, ten bins).
+    pub replicates: u64,
+    /// The places' histogram and its test.
+    pub calibration: CalibrationReport,
+    /// As [`ChecksReport::verdict`].
+    pub verdict: String,
 }
 
 /// One level of a star-rating prior.

@@ -246,23 +246,9 @@ pub const CALIBRATION_GROUPS: f64 = 100_000.0;
 /// (binomially) first; the draws come from ChaCha8 streams of `seed` taken in
 /// table order, so the result is fixed by the seed.
 pub fn calibration(weights: &[f64], cdf: impl Fn(usize) -> (f64, f64) + Sync, seed: u64) -> Calibration {
-    use rand::{Rng, SeedableRng};
-    use rand_distr::{Binomial, Distribution};
+    use rand::Rng;
     use rayon::prelude::*;
-    let total: f64 = weights.iter().sum();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
-    rng.set_stream(1);
-    let share = (CALIBRATION_GROUPS / total).min(1.0);
-    let located: Vec<u64> = weights
-        .iter()
-        .map(|&w| {
-            if share >= 1.0 {
-                w as u64
-            } else {
-                Binomial::new(w as u64, share).map_or(0, |b| b.sample(&mut rng))
-            }
-        })
-        .collect();
+    let (located, mut rng) = located_groups(weights, seed);
     let cdfs: Vec<(f64, f64)> = (0..weights.len())
         .into_par_iter()
         .map(|i| if located[i] > 0 { cdf(i) } else { (0.0, 0.0) })
@@ -276,10 +262,81 @@ pub fn calibration(weights: &[f64], cdf: impl Fn(usize) -> (f64, f64) + Sync, se
             bins[((u * 10.0) as usize).min(9)] += 1;
         }
     }
-    let groups: u64 = bins.iter().sum();
-    let expected = groups as f64 / 10.0;
-    let statistic =
-        if groups > 0 { bins.iter().map(|&b| (b as f64 - expected).powi(2) / expected).sum() } else { 0.0 };
-    let p_value = crate::core::incomplete::gamma_tails(4.5, statistic / 2.0).upper;
-    Calibration { bins, statistic, p_value, groups }
+    Calibration::of_bins(bins)
+}
+
+/// The calibration check where each group is located by its place among
+/// nine replicates of it (0 to 9, uniform under the model): `place(i, rng)`
+/// draws them for one group of pair `i` and returns how many fall below it
+/// and how many tie; the ties are broken at random. Groups are sampled as
+/// [`calibration`] samples them; each pair draws from its own ChaCha8 stream
+/// of `seed`, so the result is fixed by the seed on any number of threads.
+pub fn calibration_by_places(
+    weights: &[f64],
+    place: impl Fn(usize, &mut rand_chacha::ChaCha8Rng) -> (usize, usize) + Sync,
+    seed: u64,
+) -> Calibration {
+    use rand::{Rng, SeedableRng};
+    use rayon::prelude::*;
+    let (located, _) = located_groups(weights, seed);
+    let per_pair: Vec<[u64; 10]> = (0..weights.len())
+        .into_par_iter()
+        .map(|i| {
+            let mut bins = [0u64; 10];
+            if located[i] > 0 {
+                let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+                rng.set_stream(3 + i as u64);
+                for _ in 0..located[i] {
+                    let (below, ties) = place(i, &mut rng);
+                    bins[(below + rng.random_range(0..=ties)).min(9)] += 1;
+                }
+            }
+            bins
+        })
+        .collect();
+    let mut bins = [0u64; 10];
+    for pair in per_pair {
+        for (bin, n) in bins.iter_mut().zip(pair) {
+            *bin += n;
+        }
+    }
+    Calibration::of_bins(bins)
+}
+
+/// How many groups of each pair a calibration locates: all, or with more
+/// than [`CALIBRATION_GROUPS`] a binomial share of each pair's, drawn from
+/// stream 1 of `seed` in table order; with the generator for later streams.
+fn located_groups(weights: &[f64], seed: u64) -> (Vec<u64>, rand_chacha::ChaCha8Rng) {
+    use rand::SeedableRng;
+    use rand_distr::{Binomial, Distribution};
+    let total: f64 = weights.iter().sum();
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    rng.set_stream(1);
+    let share = (CALIBRATION_GROUPS / total).min(1.0);
+    let located = weights
+        .iter()
+        .map(|&w| {
+            if share >= 1.0 {
+                w as u64
+            } else {
+                Binomial::new(w as u64, share).map_or(0, |b| b.sample(&mut rng))
+            }
+        })
+        .collect();
+    (located, rng)
+}
+
+impl Calibration {
+    /// Pearson's chi-square of `bins` against equal counts, on 9 degrees of freedom.
+    fn of_bins(bins: [u64; 10]) -> Self {
+        let groups: u64 = bins.iter().sum();
+        let expected = groups as f64 / 10.0;
+        let statistic = if groups > 0 {
+            bins.iter().map(|&b| (b as f64 - expected).powi(2) / expected).sum()
+        } else {
+            0.0
+        };
+        let p_value = crate::core::incomplete::gamma_tails(4.5, statistic / 2.0).upper;
+        Calibration { bins, statistic, p_value, groups }
+    }
 }

@@ -13,12 +13,14 @@
 use super::clock::go_on;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
+use super::prior::POOR_FIT_P;
 use super::scoring::{pull_report, rank_columns, rank_order_words};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::RunObserver;
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
-use crate::core::diagnostics::PairOutcome;
+use crate::core::diagnostics::{calibration_by_places, PairOutcome};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
+use crate::core::model::dirichlet_multinomial::replicates::{predictive_place, REPLICATES};
 use crate::core::model::dirichlet_multinomial::{
     fit_levels, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit, LevelFitFailure,
     LevelPosterior, LevelPrior, LevelTable,
@@ -30,7 +32,10 @@ use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch, TableSource};
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
-use crate::summary::{FlagReport, LevelReport, LevelSummary, TestReport, TopReport};
+use crate::summary::{
+    CalibrationReport, ChecksReport, FlagReport, LevelChecks, LevelReport, LevelSummary, TestReport,
+    TopReport, VERDICT_POOR_FIT,
+};
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
 use std::collections::HashMap;
@@ -83,6 +88,8 @@ pub struct LevelJob {
     pub id_memory: usize,
     /// A saved prior to score with (`score --prior`), instead of a fit.
     pub prior: Option<SavedLevelPrior>,
+    /// Seed of the calibration check's draws.
+    pub seed: u64,
 }
 
 /// A star-rating prior saved by an earlier fit: its summary file and what it holds.
@@ -846,12 +853,20 @@ fn summarise(
         })
         .collect();
     let pull = crate::core::diagnostics::pull(&outcomes);
+    let checks = level_checks(job, table, &fitted.prior);
     let mut warnings = Vec::new();
     if shapes.is_none() {
         warnings.push(
             "the groups' shares vary no more than multinomial sampling allows: every group is given the pooled shares (no overdispersion)"
                 .to_string(),
         );
+    }
+    if checks.verdict == VERDICT_POOR_FIT {
+        warnings.push(format!(
+            "the prior does not describe the groups well: their mean scores sit unevenly among replicates drawn from their prior predictive (calibration chi-square {:.1} on 9 df, {}). One Dirichlet prior cannot describe groups of different kinds (two humps, say): look for a column that names the kinds, and fit each kind apart, before trusting the intervals and flags",
+            checks.calibration.statistic,
+            crate::summary::p_value_text(checks.calibration.p_value)
+        ));
     }
     let summary = LevelSummary {
         model: MODEL_NAME.to_string(),
@@ -904,9 +919,32 @@ fn summarise(
             groups_flagged: flags.groups_flagged as u64,
             expected_false_flags: flags.expected_false,
         }),
+        checks: Some(checks),
         warnings,
     };
     (summary, pull.max_shift_row.map(|row| row as u32))
+}
+
+/// The calibration check: a seeded sample of the groups (all, up to
+/// 100,000), each group's mean score placed among nine replicates of it
+/// drawn from its prior predictive ([`predictive_place`]).
+fn level_checks(job: &LevelJob, table: &LevelTable, prior: &LevelPrior) -> LevelChecks {
+    let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
+    let calibration = calibration_by_places(
+        &weights,
+        |i, rng| predictive_place(prior, &job.scores, table.vector(i), rng),
+        job.seed,
+    );
+    LevelChecks {
+        data: match job.prior {
+            None => "the fitted data",
+            Some(_) => "the scored data under the saved prior",
+        }
+        .to_string(),
+        replicates: REPLICATES as u64,
+        verdict: ChecksReport::verdict_of(calibration.groups, calibration.p_value, POOR_FIT_P),
+        calibration: CalibrationReport::of(&calibration, job.seed),
+    }
 }
 
 #[cfg(test)]

@@ -981,7 +981,7 @@ fn bias_of<F: Family>(job: &Job, chosen: &Chosen, table: &PairTable, salt: u64) 
 
 /// A calibration p-value below this calls the fit poor: a false alarm one
 /// time in a thousand when the model holds.
-const POOR_FIT_P: f64 = 1e-3;
+pub(super) const POOR_FIT_P: f64 = 1e-3;
 
 /// The checks of the model against the data scored (each pair under its
 /// prior): log marginal likelihood, the overdispersion test, the calibration
@@ -1022,14 +1022,7 @@ fn model_checks<F: Family>(
         log_marginal_likelihood_per_group: log_likelihood / groups,
         overdispersion_test: overdispersion_report::<F>(table),
         verdict: ChecksReport::verdict_of(calibration.groups, calibration.p_value, POOR_FIT_P),
-        calibration: CalibrationReport {
-            bins: calibration.bins.to_vec(),
-            statistic: calibration.statistic,
-            degrees_of_freedom: 9,
-            p_value: calibration.p_value,
-            groups: calibration.groups,
-            seed: job.seed,
-        },
+        calibration: CalibrationReport::of(&calibration, job.seed),
         raw_rate_variance: VarianceReport {
             observed,
             expected,

@@ -18,6 +18,7 @@
 //! at φ = 1/A = 0 before any search, as the other models' boundaries are.
 
 pub mod mean_score;
+pub mod replicates;
 
 use crate::core::dense::{cholesky, cholesky_solve};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
