@@ -47,6 +47,16 @@ star_sellers.csv  2,000 invented sellers' star ratings, one count column per
                  ratings per seller lognormal (median 12, from 0 to a few
                  hundred); seller-0007 has three five-star ratings and
                  seller-0042 has 800 ratings averaging 4.72.
+star_shops.csv   1,215 invented shops' star ratings in four categories (seed
+                 20261211), one count column per star and a `category`
+                 column: prints (400 shops, shares from Dirichlet(0.2, 0.2,
+                 0.4, 1.6, 7.6), mean score 4.62), repairs (400,
+                 Dirichlet(1.6, 0.6, 0.8, 2.0, 3.0), mean score 3.52), food
+                 (400, Dirichlet(0.5, 0.4, 0.8, 3.0, 4.3), mean score 4.17)
+                 and gadgets (15 shops, too few for a prior of their own, from
+                 the food law); ratings per shop lognormal (median 15).
+                 shop-0003 (repairs) and shop-0401 (prints) each have ten
+                 ratings averaging 4.6.
 district_map.geojson  the map of the 400 districts of district_bands.csv: an
                  invented region of 20 x 20 hexagons (4 km from centre to
                  corner, coordinates in km, no randomness), each a Polygon
@@ -250,6 +260,27 @@ def star_sellers():
     (OUT / "star_sellers.csv").write_text("\n".join(lines) + "\n")
 
 
+def star_shops():
+    rng = np.random.default_rng(20261211)
+    laws = [
+        ("repairs", [1.6, 0.6, 0.8, 2.0, 3.0], 400),
+        ("prints", [0.2, 0.2, 0.4, 1.6, 7.6], 400),
+        ("food", [0.5, 0.4, 0.8, 3.0, 4.3], 400),
+        ("gadgets", [0.5, 0.4, 0.8, 3.0, 4.3], 15),
+    ]
+    rows = []
+    for category, shapes, count in laws:
+        shares = rng.dirichlet(shapes, size=count)
+        ratings = np.floor(rng.lognormal(mean=np.log(15.0), sigma=1.0, size=count)).astype(np.int64)
+        rows += [(category, rng.multinomial(n, p)) for n, p in zip(ratings, shares)]
+    # The README's two shops: ten ratings averaging 4.6, one in repairs and one in prints.
+    rows[2] = ("repairs", np.array([0, 0, 1, 2, 7]))
+    rows[400] = ("prints", np.array([0, 0, 1, 2, 7]))
+    lines = ["shop_id,category,stars_1,stars_2,stars_3,stars_4,stars_5"]
+    lines += [f"shop-{i:04d},{c}," + ",".join(str(n) for n in row) for i, (c, row) in enumerate(rows, start=1)]
+    (OUT / "star_shops.csv").write_text("\n".join(lines) + "\n")
+
+
 def main():
     OUT.mkdir(exist_ok=True)
     rng = np.random.default_rng(SEED)
@@ -264,6 +295,7 @@ def main():
     district_map()
     storefronts()
     star_sellers()
+    star_shops()
 
 
 if __name__ == "__main__":

@@ -1658,8 +1658,6 @@ fn refuse_for_levels(table: &TableArgs, more: &[(bool, &str)]) -> Result<()> {
         (table.exposure.is_some(), "--exposure"),
         (table.estimate.is_some(), "--estimate"),
         (table.std_error.is_some(), "--std-error"),
-        (!table.by.is_empty(), "--by"),
-        (table.min_groups.is_some(), "--min-groups"),
         (!table.covariates.is_empty() || !table.covariates_log.is_empty(), "--covariates"),
         (table.top_method == TopMethodArg::Draws, "--top-method draws (prob_top is by the threshold method)"),
         (table.top_draws.is_some(), "--top-draws (prob_top is by the threshold method)"),
@@ -1754,6 +1752,11 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
             )));
         }
     }
+    if outcome.is_some() && !table.by.is_empty() {
+        return Err(Error::Usage(format!(
+            "--by with one row per rating (--outcome) does not apply to the {MODEL_NAME} model (yet): count the ratings per group and level first, and give --level-counts"
+        )));
+    }
     let spec = LevelSpec { levels, outcome, scores, share_above: args.share_above.as_deref() };
     level_job(table, spec, None)
 }
@@ -1809,6 +1812,14 @@ fn level_job(
     if levels.contains(&group) {
         return Err(Error::Usage(format!("--group '{group}' is also a level column")));
     }
+    for (i, column) in table.by.iter().enumerate() {
+        if column.is_empty() || table.by[..i].contains(column) || *column == group || levels.contains(column)
+        {
+            return Err(Error::Usage(format!(
+                "--by names '{column}' twice, empty, or as the group or a level column"
+            )));
+        }
+    }
     let invalid = invalid_rows(table)?;
     Ok(LevelJob {
         input: TableSource::File(table.input.clone()),
@@ -1831,6 +1842,8 @@ fn level_job(
         id_memory: table.memory_budget.max(1).saturating_mul(1 << 20) / 2,
         prior,
         seed: table.seed,
+        segments: table.by.clone(),
+        min_groups: table.min_groups.unwrap_or(crate::pipeline::DEFAULT_MIN_GROUPS),
     })
 }
 
@@ -1842,7 +1855,13 @@ fn level_score_job_of(
 ) -> Result<crate::pipeline::levels::LevelJob> {
     let table = &args.table;
     refuse_overlaps(table, [("--prior", Some(&args.prior))])?;
-    refuse_for_levels(table, &[])?;
+    refuse_for_levels(
+        table,
+        &[
+            (!table.by.is_empty() || saved.segments.is_some(), "score with a prior per segment (--by)"),
+            (table.min_groups.is_some(), "--min-groups"),
+        ],
+    )?;
     if let Some(model) = args.model.filter(|m| m.name() != saved.model) {
         return Err(Error::Usage(format!(
             "{}: the prior file holds a {} prior and this run asks for a {} one",

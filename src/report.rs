@@ -94,26 +94,9 @@ pub fn render_text(summary: &Summary) -> String {
         );
     }
     pull_lines(&mut out, &summary.pull);
-    if !summary.segments.is_empty() {
-        let fallbacks = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
-        let _ = writeln!(
-            out,
-            "  segments     {} by {} ({} with a prior of their own, {} on the all-groups prior)",
-            summary.segments.len(),
-            summary.segment_columns.join(", "),
-            summary.segments.len() - fallbacks,
-            fallbacks
-        );
-    }
-    if let Some(test) = &summary.segment_test {
-        let _ = writeln!(
-            out,
-            "  segment test one prior for all against one per segment: chi-square {:.3} on {} df, {}",
-            test.statistic,
-            test.degrees_of_freedom,
-            p_value_text(test.p_value)
-        );
-    }
+    let fallbacks = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
+    let counts = (summary.segments.len(), fallbacks);
+    segment_lines(&mut out, &summary.segment_columns, counts, summary.segment_test.as_ref());
     if let Some(checks) = &summary.checks {
         let c = &checks.calibration;
         let _ = writeln!(
@@ -181,6 +164,11 @@ pub fn render_level_text(summary: &LevelSummary) -> String {
         p_value_text(test.p_value)
     );
     pull_lines(&mut out, &summary.pull);
+    if let Some(segments) = &summary.segments {
+        let fallbacks = segments.segments.iter().filter(|s| s.fallback.is_some()).count();
+        let counts = (segments.segments.len(), fallbacks);
+        segment_lines(&mut out, &segments.columns, counts, summary.segment_test.as_ref());
+    }
     if let Some(checks) = &summary.checks {
         let _ = writeln!(
             out,
@@ -195,6 +183,33 @@ pub fn render_level_text(summary: &LevelSummary) -> String {
         flag_line(&mut out, flags);
     }
     out
+}
+
+/// The segments' line (with any segment) and the segment test's (when made):
+/// `counts` holds the segments and how many took the all-groups prior.
+fn segment_lines(
+    out: &mut String,
+    columns: &[String],
+    (segments, fallbacks): (usize, usize),
+    test: Option<&crate::summary::SegmentTest>,
+) {
+    if segments > 0 {
+        let _ = writeln!(
+            out,
+            "  segments     {segments} by {} ({} with a prior of their own, {fallbacks} on the all-groups prior)",
+            columns.join(", "),
+            segments - fallbacks,
+        );
+    }
+    if let Some(test) = test {
+        let _ = writeln!(
+            out,
+            "  segment test one prior for all against one per segment: chi-square {:.3} on {} df, {}",
+            test.statistic,
+            test.degrees_of_freedom,
+            p_value_text(test.p_value)
+        );
+    }
 }
 
 /// The pool weights' and the shifts' lines.

@@ -1039,6 +1039,13 @@ pub struct LevelSummary {
     /// The calibration check (absent from summaries of earlier versions).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub checks: Option<LevelChecks>,
+    /// With `--by`: the segment columns and each segment's prior (the
+    /// summary's own prior is then the all-groups one).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub segments: Option<LevelSegments>,
+    /// With `--by`: one prior for all groups against one per segment.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub segment_test: Option<SegmentTest>,
     /// Warnings.
     pub warnings: Vec<String>,
 }
@@ -1057,6 +1064,41 @@ pub struct LevelChecks {
     pub calibration: CalibrationReport,
     /// As [`ChecksReport::verdict`].
     pub verdict: String,
+}
+
+/// The segments of a star-rating run with `--by`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelSegments {
+    /// The segment columns.
+    pub columns: Vec<String>,
+    /// Each segment, in the order of their keys (text order, nulls last).
+    pub segments: Vec<LevelSegmentReport>,
+}
+
+/// One segment of a star-rating run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelSegmentReport {
+    /// Segment column to value (null for a null value).
+    pub key: std::collections::BTreeMap<String, Option<String>>,
+    /// Groups in the segment.
+    pub groups: u64,
+    /// The prior its groups were scored with: "Dirichlet", "pooled shares",
+    /// or on a fallback that of the all-groups prior.
+    pub prior_law: String,
+    /// That prior's shapes a_k (null for pooled shares).
+    pub shapes: Option<Vec<f64>>,
+    /// Its mean shares.
+    pub shares: Vec<f64>,
+    /// Its strength A (null when infinite).
+    pub strength: Option<f64>,
+    /// Its mean score.
+    pub mean_score: f64,
+    /// The segment's own maximised log marginal likelihood (null on a fallback).
+    pub log_marginal_likelihood: Option<f64>,
+    /// How far its groups were pulled.
+    pub pull: PullReport,
+    /// Why it took the all-groups prior; null when it has its own.
+    pub fallback: Option<String>,
 }
 
 /// One level of a star-rating prior.

@@ -15,26 +15,28 @@ use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
 use super::prior::POOR_FIT_P;
 use super::scoring::{pull_report, rank_columns, rank_order_words};
+use super::segments::{compare_keys, segment_pair_values, SegmentColumns, SegmentIndex, SegmentKey};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::RunObserver;
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
 use crate::core::diagnostics::{calibration_by_places, PairOutcome};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
+use crate::core::incomplete::gamma_tails;
 use crate::core::model::dirichlet_multinomial::replicates::{predictive_place, REPLICATES};
 use crate::core::model::dirichlet_multinomial::{
-    fit_levels, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit, LevelFitFailure,
-    LevelPosterior, LevelPrior, LevelTable,
+    fit_levels, log_marginal_at, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit,
+    LevelFitFailure, LevelPosterior, LevelPrior, LevelTable,
 };
 use crate::core::model::ValueRule;
 use crate::core::ranking::{posterior_fdr_flags, top_probabilities_by_threshold, LawKinds, RankOrder};
 use crate::error::{Error, Result};
 use crate::io::atomic::{stage_bytes, StagedOutputs};
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
-use crate::io::input::{Input, InputBatch, TableSource};
+use crate::io::input::{Input, InputBatch, TableSource, SEGMENT_ROLE};
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
 use crate::summary::{
-    CalibrationReport, ChecksReport, FlagReport, LevelChecks, LevelReport, LevelSummary, TestReport,
-    TopReport, VERDICT_POOR_FIT,
+    CalibrationReport, ChecksReport, FlagReport, LevelChecks, LevelReport, LevelSegmentReport, LevelSegments,
+    LevelSummary, SegmentTest, TestReport, TopReport, VERDICT_POOR_FIT,
 };
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
@@ -90,6 +92,10 @@ pub struct LevelJob {
     pub prior: Option<SavedLevelPrior>,
     /// Seed of the calibration check's draws.
     pub seed: u64,
+    /// `--by`: the segment columns (empty: one prior for all groups).
+    pub segments: Vec<String>,
+    /// A segment with fewer groups takes the all-groups prior.
+    pub min_groups: usize,
 }
 
 /// A star-rating prior saved by an earlier fit: its summary file and what it holds.
@@ -152,12 +158,34 @@ struct LevelBatch<'a> {
     batch: &'a InputBatch<'a>,
     group: GroupColumn,
     counts: Vec<NumericColumn>,
+    /// With `--by`: the segment columns, after the counts.
+    segments: SegmentColumns,
 }
 
 impl<'a> LevelBatch<'a> {
-    fn of(batch: &'a InputBatch<'a>) -> Result<Self> {
-        let counts = batch.columns[1..].iter().map(NumericColumn::of).collect::<Result<_>>()?;
-        Ok(LevelBatch { batch, group: GroupColumn::of(&batch.columns[0])?, counts })
+    fn of(batch: &'a InputBatch<'a>, job: &LevelJob) -> Result<Self> {
+        let after_counts = 1 + job.levels.len();
+        let counts = batch.columns[1..after_counts].iter().map(NumericColumn::of).collect::<Result<_>>()?;
+        let segments = SegmentColumns::of(&batch.columns[after_counts..])?;
+        Ok(LevelBatch { batch, group: GroupColumn::of(&batch.columns[0])?, counts, segments })
+    }
+
+    /// The row's key in the index of distinct vectors: its counts, led with
+    /// `--by` by its segment's number as met (numbered if new).
+    fn key<'k>(
+        &self,
+        row: usize,
+        index: &mut SegmentIndex,
+        vector: &'k [f64],
+        key: &'k mut Vec<f64>,
+    ) -> &'k [f64] {
+        if self.segments.is_empty() {
+            return vector;
+        }
+        key.clear();
+        key.push(f64::from(index.number(&self.segments, row)));
+        key.extend_from_slice(vector);
+        key
     }
 
     /// The row's counts into `vector`, or its first fault.
@@ -259,6 +287,8 @@ impl VectorIndex {
 #[derive(Default)]
 struct Counted {
     vectors: VectorIndex,
+    /// With `--by`: the segments met.
+    segments: SegmentIndex,
     rows: usize,
     rejected: usize,
     first_fault: Option<(usize, Error)>,
@@ -273,6 +303,7 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
     }
     let mut columns = vec![(job.group.as_str(), "group")];
     columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
     let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
     let counted = count_vectors(job, &input, observer)?;
     if counted.rows == 0 {
@@ -281,46 +312,189 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
     if let Some((_, fault)) = counted.first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
         return Err(fault);
     }
-    let (table, place) =
-        LevelTable::of_distinct(job.levels.len(), &counted.vectors.counts, &counted.vectors.weights);
+    let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
     let mut staged = StagedOutputs::default();
     let (mut summary, columns, furthest) =
-        fit_and_score(job, table, (counted.rows, counted.rejected), &mut staged)?;
-    let found = Found { vectors: counted.vectors, place, repeats: counted.repeats, rows: counted.rows };
+        fit_and_score(job, &keyed, (counted.rows, counted.rejected), &mut staged)?;
+    let found = Found {
+        vectors: counted.vectors,
+        segments: counted.segments,
+        place,
+        repeats: counted.repeats,
+        rows: counted.rows,
+    };
     summary.pull.max_shift_group =
         write_groups(job, &input, columns, (found, furthest), (&mut staged, observer))?;
     commit(job, &summary, staged)?;
     Ok(summary)
 }
 
-/// The fit, the summary, the output columns per vector (the posteriors let
-/// go once the columns hold all the writing needs of them), and the vector
+/// The rows of the scored table: one per distinct count vector, and with
+/// `--by` one per distinct (segment, count vector), with the segments in
+/// the order of their keys.
+struct Keyed {
+    /// Each row's counts (rows of different segments may hold equal counts).
+    table: LevelTable,
+    /// Each row's segment, its place in `segments` (0 without `--by`).
+    segment_of: Vec<u32>,
+    /// The segments holding groups, in key order (empty without `--by`).
+    segments: Vec<LevelSegment>,
+}
+
+/// A segment of `--by`: its values, and one row of each segment column holding them.
+struct LevelSegment {
+    key: SegmentKey,
+    samples: Vec<ArrayRef>,
+}
+
+impl Keyed {
+    /// One segment of every row.
+    fn plain(table: LevelTable) -> Self {
+        Keyed { segment_of: vec![0; table.len()], segments: Vec::new(), table }
+    }
+
+    /// The rows of the distinct keys met (each its counts, led with `--by`
+    /// by its segment's number as met), with each key's row (`u32::MAX` for
+    /// a key no group kept).
+    fn of(levels: usize, vectors: &VectorIndex, index: &SegmentIndex) -> (Self, Vec<u32>) {
+        if index.is_empty() {
+            let (table, place) = LevelTable::of_distinct(levels, &vectors.counts, &vectors.weights);
+            return (Keyed::plain(table), place);
+        }
+        let width = levels + 1;
+        let keys = || vectors.counts.chunks(width);
+        let stripped: Vec<f64> = keys().flat_map(|key| key[1..].iter().copied()).collect();
+        let (table, place) = LevelTable::of_distinct(levels, &stripped, &vectors.weights);
+        // Segments holding a group, in key order.
+        let mut held = vec![false; index.len()];
+        for (key, &row) in keys().zip(&place) {
+            if row != u32::MAX {
+                held[key[0] as usize] = true;
+            }
+        }
+        let mut order: Vec<u32> = (0..index.len() as u32).filter(|&n| held[n as usize]).collect();
+        order.sort_by(|&x, &y| compare_keys(index.key(x), index.key(y)));
+        let mut slot_of = vec![u32::MAX; index.len()];
+        for (slot, &number) in order.iter().enumerate() {
+            slot_of[number as usize] = slot as u32;
+        }
+        let mut segment_of = vec![0; table.len()];
+        for (key, &row) in keys().zip(&place) {
+            if row != u32::MAX {
+                segment_of[row as usize] = slot_of[key[0] as usize];
+            }
+        }
+        let segments = order
+            .iter()
+            .map(|&number| LevelSegment {
+                key: index.key(number).clone(),
+                samples: index.sample(number).to_vec(),
+            })
+            .collect();
+        (Keyed { table, segment_of, segments }, place)
+    }
+
+    /// The rows of segment `slot` as a table of their own.
+    fn segment_table(&self, slot: u32) -> LevelTable {
+        let rows = (0..self.table.len()).filter(|&i| self.segment_of[i] == slot);
+        LevelTable::new(
+            self.table.levels(),
+            rows.map(|i| (self.table.vector(i).to_vec(), self.table.weight(i))),
+        )
+    }
+
+    /// Every row's groups in one table, equal counts merged across segments.
+    fn all_groups(&self) -> LevelTable {
+        if self.segments.is_empty() {
+            return self.table.clone();
+        }
+        let rows = (0..self.table.len()).map(|i| (self.table.vector(i).to_vec(), self.table.weight(i)));
+        LevelTable::new(self.table.levels(), rows)
+    }
+}
+
+/// The priors the rows are scored with: the fit to all groups (or the
+/// saved prior), and with `--by` each segment's own fit, or why the
+/// segment took the all-groups prior.
+struct LevelPriors {
+    all: LevelFit,
+    all_table: LevelTable,
+    segments: Vec<SegmentChoice>,
+}
+
+/// A segment's groups and its own fit, or why it took the all-groups prior.
+struct SegmentChoice {
+    table: LevelTable,
+    fit: std::result::Result<LevelFit, String>,
+}
+
+impl LevelPriors {
+    /// The prior of row `i` of `keyed`.
+    fn of_row<'p>(&'p self, keyed: &Keyed, i: usize) -> &'p LevelPrior {
+        match self.segments.get(keyed.segment_of[i] as usize).map(|s| &s.fit) {
+            Some(Ok(own)) => &own.prior,
+            _ => &self.all.prior,
+        }
+    }
+
+    /// Whether row `i` took the all-groups prior in place of its segment's own.
+    fn fell_back(&self, keyed: &Keyed, i: usize) -> bool {
+        self.segments.get(keyed.segment_of[i] as usize).is_some_and(|s| s.fit.is_err())
+    }
+}
+
+/// The fit (or the saved prior), with `--by` one per segment.
+fn fit_priors(job: &LevelJob, keyed: &Keyed) -> Result<LevelPriors> {
+    let all_table = keyed.all_groups();
+    let all = match &job.prior {
+        Some(saved) => saved.as_fit()?,
+        None => fit_levels(&all_table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?,
+    };
+    let segments = (0..keyed.segments.len() as u32)
+        .into_par_iter()
+        .map(|slot| {
+            let table = keyed.segment_table(slot);
+            let groups = table.groups();
+            let fit = if groups < job.min_groups as f64 {
+                Err(format!(
+                    "{groups} groups, fewer than --min-groups {}: the spread between groups is poorly known",
+                    job.min_groups
+                ))
+            } else {
+                fit_levels(&table).map_err(|failure| describe_failure(job, &failure))
+            };
+            SegmentChoice { table, fit }
+        })
+        .collect();
+    Ok(LevelPriors { all, all_table, segments })
+}
+
+/// The fit, the summary, the output columns per row (the posteriors let
+/// go once the columns hold all the writing needs of them), and the row
 /// whose groups moved furthest, for the summary to name one of them.
 fn fit_and_score(
     job: &LevelJob,
-    table: LevelTable,
+    keyed: &Keyed,
     (rows, rejected): (usize, usize),
     staged: &mut StagedOutputs,
 ) -> Result<(LevelSummary, PairColumns, Option<u32>)> {
+    let table = &keyed.table;
     if table.is_empty() {
         return Err(Error::Input(format!(
             "{}: no valid data rows ({rejected} rejected)",
             job.input.display()
         )));
     }
-    let fitted = match &job.prior {
-        Some(saved) => saved.as_fit()?,
-        None => fit_levels(&table).map_err(|failure| Error::Fit(describe_failure(job, &failure)))?,
-    };
-    let scored = score_vectors(job, &table, &fitted);
-    let (mut summary, furthest) = summarise(job, &table, &fitted, &scored, (rows, rejected));
+    let priors = fit_priors(job, keyed)?;
+    let scored = score_vectors(job, keyed, &priors);
+    let (mut summary, furthest) = summarise(job, keyed, &priors, &scored, (rows, rejected));
     if let Some(saved) = &job.prior {
         // The prior's figures as fitted, not recomputed from the scored groups.
         summary.prior_file = Some(saved.path.display().to_string());
         summary.mean_score = saved.summary.mean_score;
         summary.mean_score_se = saved.summary.mean_score_se;
     }
-    let columns = vector_columns(job, &table, &scored);
+    let columns = vector_columns(job, keyed, &priors, &scored)?;
     let group_counts = (0..table.len()).map(|i| table.weight(i) as i64).collect();
     stage_vector_output(job, &columns, group_counts, staged)?;
     Ok((summary, columns, furthest))
@@ -338,7 +512,7 @@ fn stage_vector_output(
     let Some(path) = &job.pair_output else { return Ok(()) };
     let mut table: Columns =
         columns.iter().map(|(name, values)| (name.clone(), values.clone().into_column())).collect();
-    let rest = table.split_off(job.levels.len());
+    let rest = table.split_off(job.segments.len() + job.levels.len());
     table.push(("group_count".to_string(), ColumnValues::Integers(group_counts)));
     table.extend(rest);
     let metadata = vec![
@@ -439,7 +613,8 @@ fn run_rating_rows(
     }
     let (table, place) = LevelTable::of_distinct(levels, &vectors.counts, &vectors.weights);
     let mut staged = StagedOutputs::default();
-    let (mut summary, columns, furthest) = fit_and_score(job, table, (rows, rejected), &mut staged)?;
+    let (mut summary, columns, furthest) =
+        fit_and_score(job, &Keyed::plain(table), (rows, rejected), &mut staged)?;
     let vector_of_group: Vec<u32> =
         counts.chunks(levels).map(|group| place[vectors.find(group).expect("counted") as usize]).collect();
     summary.pull.max_shift_group =
@@ -510,18 +685,19 @@ fn describe_failure(job: &LevelJob, failure: &LevelFitFailure) -> String {
 
 /// Pass 1 (and the repeated-id check): the distinct vectors of the valid rows.
 fn count_vectors(job: &LevelJob, input: &Input, observer: &mut dyn RunObserver) -> Result<Counted> {
-    let mut counted = Counted { vectors: VectorIndex::new(job.levels.len()), ..Counted::default() };
+    let width = job.levels.len() + usize::from(!job.segments.is_empty());
+    let mut counted = Counted { vectors: VectorIndex::new(width), ..Counted::default() };
     let mut ids = IdHashes::new(job.id_memory, input.known_rows().unwrap_or(0));
-    let mut vector = Vec::with_capacity(job.levels.len());
+    let (mut vector, mut key) = (Vec::with_capacity(job.levels.len()), Vec::with_capacity(width));
     input.for_each_batch(|batch| {
         go_on(observer)?;
-        let view = LevelBatch::of(&batch)?;
+        let view = LevelBatch::of(&batch, job)?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
                 view.group.with_bytes(row, |id| ids.push(id)).map_err(spill_failed)?;
             }
             match view.check(job, row, &mut vector)? {
-                Ok(()) => counted.vectors.add(&vector, 1.0),
+                Ok(()) => counted.vectors.add(view.key(row, &mut counted.segments, &vector, &mut key), 1.0),
                 Err(rejection) => {
                     counted.rejected += 1;
                     if counted.first_fault.is_none() {
@@ -539,14 +715,14 @@ fn count_vectors(job: &LevelJob, input: &Input, observer: &mut dyn RunObserver) 
     }
     let mut finder = RepeatFinder::new(candidates);
     input.for_each_batch(|batch| {
-        let view = LevelBatch::of(&batch)?;
+        let view = LevelBatch::of(&batch, job)?;
         for row in 0..batch.rows() {
             if view.group.is_missing(row) {
                 continue;
             }
             let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
             if let (Some(first), Ok(())) = (repeat, view.check(job, row, &mut vector)?) {
-                counted.vectors.add(&vector, -1.0);
+                counted.vectors.add(view.key(row, &mut counted.segments, &vector, &mut key), -1.0);
                 counted.rejected += 1;
                 let at = batch.first_row + row;
                 if counted.first_fault.as_ref().is_none_or(|(earliest, _)| at < *earliest) {
@@ -576,18 +752,19 @@ struct ScoredVectors {
     prob_top: Option<(Vec<f64>, f64)>,
 }
 
-fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> ScoredVectors {
-    let prior = &fitted.prior;
+fn score_vectors(job: &LevelJob, keyed: &Keyed, priors: &LevelPriors) -> ScoredVectors {
+    let table = &keyed.table;
+    let prior = |i: usize| priors.of_row(keyed, i);
     let tail = (1.0 - job.level.get()) / 2.0;
     let posteriors: Vec<LevelPosterior> = (0..table.len())
         .into_par_iter()
-        .map(|i| posterior(prior, &job.scores, table.vector(i), tail))
+        .map(|i| posterior(prior(i), &job.scores, table.vector(i), tail))
         .collect();
-    let shares = (0..table.len()).flat_map(|i| posterior_shares(prior, table.vector(i))).collect();
+    let shares = (0..table.len()).flat_map(|i| posterior_shares(prior(i), table.vector(i))).collect();
     let tails_at = |t: f64| -> Vec<(f64, f64)> {
         (0..table.len())
             .into_par_iter()
-            .map(|i| mean_score_tails(prior, &job.scores, table.vector(i), t))
+            .map(|i| mean_score_tails(prior(i), &job.scores, table.vector(i), t))
             .collect()
     };
     let above = job.thresholds.above.map(tails_at);
@@ -605,16 +782,17 @@ fn score_vectors(job: &LevelJob, table: &LevelTable, fitted: &LevelFit) -> Score
         posterior_fdr_flags(&no_event, &weights, rule.bound)
     });
     let prob_share_above = job.share_above.map(|(level, share)| {
-        (0..table.len()).map(|i| share_tails(prior, table.vector(i), level, share).1).collect()
+        (0..table.len()).map(|i| share_tails(prior(i), table.vector(i), level, share).1).collect()
     });
     let prob_top = job.top.map(|k| {
         // The threshold method: the mean score c with K groups expected beyond it, then
         // each vector's P(mean score beyond c). A pooled prior's posteriors are points.
         let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
         let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
-        let kinds = LawKinds { all_points: matches!(prior, LevelPrior::Pooled { .. }), floored: false };
+        let all_points = (0..table.len()).all(|i| matches!(prior(i), LevelPrior::Pooled { .. }));
+        let kinds = LawKinds { all_points, floored: false };
         let beyond = |i: usize, c: f64| {
-            let (below, above) = mean_score_tails(prior, &job.scores, table.vector(i), c);
+            let (below, above) = mean_score_tails(prior(i), &job.scores, table.vector(i), c);
             if order == RankOrder::HighestFirst {
                 above
             } else {
@@ -641,20 +819,22 @@ fn raw_mean(vector: &[f64], scores: &[f64]) -> Option<f64> {
 }
 
 /// The output columns after the group id, each as its value per vector.
-fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) -> PairColumns {
+fn vector_columns(
+    job: &LevelJob,
+    keyed: &Keyed,
+    priors: &LevelPriors,
+    scored: &ScoredVectors,
+) -> Result<PairColumns> {
+    let table = &keyed.table;
     let posteriors = &scored.posteriors;
     let each = |f: &dyn Fn(&LevelPosterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
-    let mut columns: PairColumns = job
-        .levels
-        .iter()
-        .enumerate()
-        .map(|(k, name)| {
-            (
-                name.clone(),
-                PairValues::Integers((0..table.len()).map(|i| table.vector(i)[k] as i64).collect()),
-            )
-        })
-        .collect();
+    let samples: Vec<&[ArrayRef]> = keyed.segments.iter().map(|s| &s.samples[..]).collect();
+    let segment_values =
+        if samples.is_empty() { Vec::new() } else { segment_pair_values(&samples, &keyed.segment_of)? };
+    let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
+    columns.extend(job.levels.iter().enumerate().map(|(k, name)| {
+        (name.clone(), PairValues::Integers((0..table.len()).map(|i| table.vector(i)[k] as i64).collect()))
+    }));
     let raw = (0..table.len()).map(|i| raw_mean(table.vector(i), &job.scores)).collect();
     columns.extend([
         ("raw_mean".to_string(), PairValues::OptionalFloats(raw)),
@@ -667,6 +847,10 @@ fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) ->
     for (k, name) in job.levels.iter().enumerate() {
         let values = scored.shares.iter().skip(k).step_by(job.levels.len()).copied().collect();
         columns.push((format!("posterior_share_{name}"), PairValues::Floats(values)));
+    }
+    if !keyed.segments.is_empty() {
+        let fell_back = (0..table.len()).map(|i| priors.fell_back(keyed, i)).collect();
+        columns.push(("prior_fallback".to_string(), PairValues::Booleans(fell_back)));
     }
     if let Some(order) = job.ranks {
         let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
@@ -690,7 +874,7 @@ fn vector_columns(job: &LevelJob, table: &LevelTable, scored: &ScoredVectors) ->
         columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
         columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr.clone())));
     }
-    columns
+    Ok(columns)
 }
 
 /// Rejected rows as found, for the rejects table.
@@ -736,6 +920,7 @@ impl LevelRejects {
 /// table, the repeated ids, and the rows read.
 struct Found {
     vectors: VectorIndex,
+    segments: SegmentIndex,
     place: Vec<u32>,
     repeats: Repeats,
     rows: usize,
@@ -750,7 +935,7 @@ fn write_groups(
     (found, furthest): (Found, Option<u32>),
     (staged, observer): (&mut StagedOutputs, &mut dyn RunObserver),
 ) -> Result<Option<String>> {
-    let Found { vectors, place, repeats, rows } = found;
+    let Found { vectors, mut segments, place, repeats, rows } = found;
     let mut furthest_group = None;
     let mut sink = TableSink::create_scored(&job.output, columns)?;
     let mut rejects = match &job.invalid {
@@ -758,11 +943,11 @@ fn write_groups(
         InvalidRows::Fail => None,
     };
     let changed = || changed_between_passes(job.input.name());
-    let mut vector = Vec::with_capacity(job.levels.len());
+    let (mut vector, mut key) = (Vec::with_capacity(job.levels.len()), Vec::new());
     let mut seen = 0;
     input.for_each_batch(|batch| {
         go_on(observer)?;
-        let view = LevelBatch::of(&batch)?;
+        let view = LevelBatch::of(&batch, job)?;
         let (mut kept, mut vector_of_row) = (Vec::new(), Vec::new());
         for row in 0..batch.rows() {
             let mut outcome = view.check(job, row, &mut vector)?;
@@ -775,7 +960,7 @@ fn write_groups(
             match outcome {
                 Ok(()) => {
                     let position = vectors
-                        .find(&vector)
+                        .find(view.key(row, &mut segments, &vector, &mut key))
                         .map(|met| place[met as usize])
                         .filter(|&p| p != u32::MAX)
                         .ok_or_else(changed)?;
@@ -819,11 +1004,12 @@ fn write_groups(
 /// The run's summary.
 fn summarise(
     job: &LevelJob,
-    table: &LevelTable,
-    fitted: &LevelFit,
+    keyed: &Keyed,
+    priors: &LevelPriors,
     scored: &ScoredVectors,
     (rows, rejected): (usize, usize),
 ) -> (LevelSummary, Option<u32>) {
+    let (table, fitted) = (&keyed.table, &priors.all);
     let shares = fitted.prior.shares();
     let shapes = match &fitted.prior {
         LevelPrior::Dirichlet { shapes } => Some(shapes.clone()),
@@ -842,7 +1028,7 @@ fn summarise(
             prior_share_se: fitted.shares_se[k],
         })
         .collect();
-    let (mean_score, mean_score_se) = fitted.mean_score(&job.scores, table);
+    let (mean_score, mean_score_se) = fitted.mean_score(&job.scores, &priors.all_table);
     let groups = table.groups();
     let outcomes: Vec<PairOutcome> = (0..table.len())
         .map(|i| PairOutcome {
@@ -853,7 +1039,8 @@ fn summarise(
         })
         .collect();
     let pull = crate::core::diagnostics::pull(&outcomes);
-    let checks = level_checks(job, table, &fitted.prior);
+    let checks = level_checks(job, keyed, priors);
+    let (segments, segment_test) = segment_reports(job, keyed, priors, &scored.posteriors);
     let mut warnings = Vec::new();
     if shapes.is_none() {
         warnings.push(
@@ -861,9 +1048,18 @@ fn summarise(
                 .to_string(),
         );
     }
+    if let Some(segments) = &segments {
+        let fallbacks = segments.segments.iter().filter(|s| s.fallback.is_some()).count();
+        if fallbacks > 0 {
+            warnings.push(format!(
+                "{fallbacks} of {} segments took the prior fitted to all groups (prior_fallback = true); the summary's segments say why",
+                segments.segments.len()
+            ));
+        }
+    }
     if checks.verdict == VERDICT_POOR_FIT {
         warnings.push(format!(
-            "the prior does not describe the groups well: their mean scores sit unevenly among replicates drawn from their prior predictive (calibration chi-square {:.1} on 9 df, {}). One Dirichlet prior cannot describe groups of different kinds (two humps, say): look for a column that names the kinds, and fit each kind apart, before trusting the intervals and flags",
+            "the prior does not describe the groups well: their mean scores sit unevenly among replicates drawn from their prior predictive (calibration chi-square {:.1} on 9 df, {}). One Dirichlet prior cannot describe groups of different kinds (two humps, say): fit per segment with --by where a column names the kinds, before trusting the intervals and flags",
             checks.calibration.statistic,
             crate::summary::p_value_text(checks.calibration.p_value)
         ));
@@ -876,7 +1072,7 @@ fn summarise(
         groups: groups as u64,
         distinct_vectors: table.len() as u64,
         levels,
-        prior_law: if shapes.is_some() { "Dirichlet" } else { "pooled shares" }.to_string(),
+        prior_law: law_name(&fitted.prior).to_string(),
         strength: fitted.prior.strength(),
         strength_se: fitted.strength_se,
         mean_score,
@@ -920,19 +1116,115 @@ fn summarise(
             expected_false_flags: flags.expected_false,
         }),
         checks: Some(checks),
+        segments,
+        segment_test,
         warnings,
     };
     (summary, pull.max_shift_row.map(|row| row as u32))
 }
 
+/// With `--by`: each segment's prior, groups, pull and fallback, and the
+/// likelihood-ratio test of one prior for all against one per segment
+/// (a fit's, not a saved prior's). A segment on the all-groups prior adds
+/// that prior's likelihood on its groups and no parameters, as for the
+/// other models.
+fn segment_reports(
+    job: &LevelJob,
+    keyed: &Keyed,
+    priors: &LevelPriors,
+    posteriors: &[LevelPosterior],
+) -> (Option<LevelSegments>, Option<SegmentTest>) {
+    if keyed.segments.is_empty() {
+        return (None, None);
+    }
+    let table = &keyed.table;
+    let reports = keyed
+        .segments
+        .iter()
+        .zip(&priors.segments)
+        .enumerate()
+        .map(|(slot, (segment, choice))| {
+            let rows: Vec<usize> = (0..table.len()).filter(|&i| keyed.segment_of[i] == slot as u32).collect();
+            let outcomes: Vec<PairOutcome> = rows
+                .iter()
+                .map(|&i| PairOutcome {
+                    raw_rate: raw_mean(table.vector(i), &job.scores),
+                    posterior_mean: posteriors[i].mean,
+                    pool_weight: posteriors[i].pool_weight,
+                    groups: table.weight(i),
+                })
+                .collect();
+            let (prior, own) = match &choice.fit {
+                Ok(own) => (&own.prior, Some(own.log_marginal_likelihood)),
+                Err(_) => (&priors.all.prior, None),
+            };
+            LevelSegmentReport {
+                key: job.segments.iter().cloned().zip(segment.key.iter().cloned()).collect(),
+                groups: rows.iter().map(|&i| table.weight(i)).sum::<f64>() as u64,
+                prior_law: law_name(prior).to_string(),
+                shapes: match prior {
+                    LevelPrior::Dirichlet { shapes } => Some(shapes.clone()),
+                    LevelPrior::Pooled { .. } => None,
+                },
+                shares: prior.shares(),
+                strength: prior.strength(),
+                mean_score: prior.mean_score(&job.scores),
+                log_marginal_likelihood: own,
+                pull: pull_report(&crate::core::diagnostics::pull(&outcomes), None),
+                fallback: choice.fit.as_ref().err().cloned(),
+            }
+        })
+        .collect();
+    let segments = LevelSegments { columns: job.segments.clone(), segments: reports };
+    let test = job.prior.is_none().then(|| segment_test(job, priors)).flatten();
+    (Some(segments), test)
+}
+
+/// The likelihood-ratio test of one prior for all groups against one per
+/// segment: K shapes per segment with its own prior, less the K of the
+/// all-groups prior when no segment falls back to it.
+fn segment_test(job: &LevelJob, priors: &LevelPriors) -> Option<SegmentTest> {
+    let levels = job.levels.len();
+    let own = priors.segments.iter().filter(|c| c.fit.is_ok()).count();
+    let fallbacks = priors.segments.len() - own;
+    let degrees = levels * own - if fallbacks == 0 { levels } else { 0 };
+    if own == 0 || degrees == 0 {
+        return None;
+    }
+    let segmented: f64 = priors
+        .segments
+        .iter()
+        .map(|choice| match &choice.fit {
+            Ok(own) => own.log_marginal_likelihood,
+            Err(_) => log_marginal_at(&choice.table, &priors.all.prior),
+        })
+        .sum();
+    let statistic = (2.0 * (segmented - priors.all.log_marginal_likelihood)).max(0.0);
+    Some(SegmentTest {
+        name: "likelihood ratio: one prior for all groups against one per segment".to_string(),
+        statistic,
+        degrees_of_freedom: degrees as u64,
+        p_value: gamma_tails(degrees as f64 / 2.0, statistic / 2.0).upper,
+    })
+}
+
+/// The summary's word for a prior's law.
+fn law_name(prior: &LevelPrior) -> &'static str {
+    match prior {
+        LevelPrior::Dirichlet { .. } => "Dirichlet",
+        LevelPrior::Pooled { .. } => "pooled shares",
+    }
+}
+
 /// The calibration check: a seeded sample of the groups (all, up to
 /// 100,000), each group's mean score placed among nine replicates of it
 /// drawn from its prior predictive ([`predictive_place`]).
-fn level_checks(job: &LevelJob, table: &LevelTable, prior: &LevelPrior) -> LevelChecks {
+fn level_checks(job: &LevelJob, keyed: &Keyed, priors: &LevelPriors) -> LevelChecks {
+    let table = &keyed.table;
     let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
     let calibration = calibration_by_places(
         &weights,
-        |i, rng| predictive_place(prior, &job.scores, table.vector(i), rng),
+        |i, rng| predictive_place(priors.of_row(keyed, i), &job.scores, table.vector(i), rng),
         job.seed,
     );
     LevelChecks {

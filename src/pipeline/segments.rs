@@ -229,6 +229,11 @@ impl SegmentIndex {
         &self.keys[number as usize]
     }
 
+    /// One row of each segment column holding segment `number`'s values.
+    pub fn sample(&self, number: u32) -> &[ArrayRef] {
+        &self.samples[number as usize]
+    }
+
     /// Segments met.
     pub fn len(&self) -> usize {
         self.keys.len()
@@ -306,7 +311,7 @@ impl Default for SegmentCounters {
 }
 
 /// Keys in order: value by value, text order, a null after every text.
-fn compare_keys(x: &SegmentKey, y: &SegmentKey) -> std::cmp::Ordering {
+pub(super) fn compare_keys(x: &SegmentKey, y: &SegmentKey) -> std::cmp::Ordering {
     let value = |a: &Option<String>, b: &Option<String>| match (a, b) {
         (Some(a), Some(b)) => a.cmp(b),
         (Some(_), None) => std::cmp::Ordering::Less,

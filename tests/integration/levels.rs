@@ -267,7 +267,11 @@ fn bad_counts_and_options_are_refused_with_row_and_column() {
     run(&["--level-counts", "one,two,three", "--share-above", "one=1.5"], "strictly between 0 and 1");
     run(
         &["--level-counts", "one,two,three", "--by", "one"],
-        "--by does not apply to the dirichlet-multinomial model",
+        "--by names 'one' twice, empty, or as the group or a level column",
+    );
+    run(
+        &["--level-counts", "one,two,three", "--report", "r.html"],
+        "--report does not apply to the dirichlet-multinomial model",
     );
 }
 
@@ -686,4 +690,164 @@ fn the_calibration_check_fits_one_kind_and_finds_two() {
             checks["calibration"]["bins"]
         );
     }
+}
+
+fn demo_shops() -> String {
+    format!("{}/demo-data/star_shops.csv", env!("CARGO_MANIFEST_DIR"))
+}
+
+/// The demo shops' columns and model.
+const SHOPS: [&str; 6] = [
+    "--model",
+    "dirichlet-multinomial",
+    "--group",
+    "shop_id",
+    "--level-counts",
+    "stars_1,stars_2,stars_3,stars_4,stars_5",
+];
+
+/// The Dirichlet-multinomial log pmf of `counts` at `shapes` (the handbook
+/// formula: ln N!/Π n_k! + ln Γ(A)/Γ(A + N) + Σ ln Γ(a_k + n_k)/Γ(a_k)),
+/// with statrs' ln Γ.
+fn dirichlet_multinomial_ln_pmf(shapes: &[f64], counts: &[f64]) -> f64 {
+    use statrs::function::gamma::ln_gamma;
+    let (strength, n) = (shapes.iter().sum::<f64>(), counts.iter().sum::<f64>());
+    let mut ln = ln_gamma(n + 1.0) + ln_gamma(strength) - ln_gamma(strength + n);
+    for (a, k) in shapes.iter().zip(counts) {
+        ln += ln_gamma(a + k) - ln_gamma(*a) - ln_gamma(k + 1.0);
+    }
+    ln
+}
+
+#[test]
+fn each_segment_is_scored_as_its_shops_alone_and_a_small_one_takes_the_all_shops_prior() {
+    // Source: a segment's prior is the fit of its rows alone (the definition
+    // of --by); the fallback segment is scored as the fit without --by scores
+    // it; the segment test's likelihoods are the handbook Dirichlet-multinomial
+    // pmf at the fitted shapes.
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_shops();
+    let run = |args: &[&str], output: &str, summary_file: &str| {
+        let mut full = vec!["--quiet", "fit", "--input"];
+        full.extend(args);
+        full.extend(SHOPS);
+        full.extend(["--above", "4.5", "--output", output, "--summary", summary_file]);
+        let out = ratepool(dir.path(), &full);
+        assert!(out.status.success(), "{}", stderr(&out));
+        (Csv::read(&dir.path().join(output)), summary(&dir.path().join(summary_file)))
+    };
+    let (segmented, s) = run(&[input.as_str(), "--by", "category"], "by.csv", "by.json");
+    let (plain, all) = run(&[input.as_str()], "all.csv", "all.json");
+    assert_eq!(segmented.header[..2], ["shop_id".to_string(), "category".to_string()]);
+    let per_row = [
+        "raw_mean",
+        "posterior_mean",
+        "posterior_sd",
+        "interval_lo",
+        "interval_hi",
+        "pool_weight",
+        "posterior_share_stars_1",
+        "posterior_share_stars_5",
+        "prob_above",
+    ];
+    let categories = segmented.column("category");
+    let fallback = segmented.column("prior_fallback");
+    let text = std::fs::read_to_string(&input).unwrap();
+    let header = text.lines().next().unwrap();
+    let mut own_likelihood = 0.0;
+    for category in ["food", "prints", "repairs"] {
+        let rows: Vec<&str> =
+            text.lines().skip(1).filter(|l| l.split(',').nth(1) == Some(category)).collect();
+        let alone =
+            write(dir.path(), &format!("{category}.csv"), &format!("{header}\n{}\n", rows.join("\n")));
+        let (table, own) =
+            run(&[alone.as_str()], &format!("{category}-out.csv"), &format!("{category}.json"));
+        own_likelihood += own["log_marginal_likelihood"].as_f64().unwrap();
+        let at: Vec<usize> = (0..categories.len()).filter(|&i| categories[i] == category).collect();
+        assert_eq!(at.len(), table.rows.len());
+        for column in per_row {
+            let (mine, theirs) = (segmented.column(column), table.column(column));
+            for (j, &i) in at.iter().enumerate() {
+                assert_eq!(mine[i], theirs[j], "{category} {column} row {i}");
+            }
+        }
+        assert!(at.iter().all(|&i| fallback[i] == "false"));
+    }
+    // The gadgets: 15 shops, under --min-groups 30, on the all-shops prior.
+    let gadgets: Vec<usize> = (0..categories.len()).filter(|&i| categories[i] == "gadgets").collect();
+    assert_eq!(gadgets.len(), 15);
+    for column in per_row {
+        let (mine, theirs) = (segmented.column(column), plain.column(column));
+        for &i in &gadgets {
+            assert_eq!(mine[i], theirs[i], "gadgets {column} row {i}");
+            assert_eq!(fallback[i], "true");
+        }
+    }
+    let report = &s["segments"]["segments"];
+    let keys: Vec<&str> =
+        report.as_array().unwrap().iter().map(|r| r["key"]["category"].as_str().unwrap()).collect();
+    assert_eq!(keys, ["food", "gadgets", "prints", "repairs"]);
+    assert!(report[1]["fallback"].as_str().unwrap().contains("--min-groups 30"));
+    assert_eq!(s["log_marginal_likelihood"], all["log_marginal_likelihood"]);
+    // One prior for all against one per segment: 3 × 5 shapes.
+    let shapes: Vec<f64> =
+        all["levels"].as_array().unwrap().iter().map(|l| l["prior_shape"].as_f64().unwrap()).collect();
+    let gadget_likelihood: f64 = text
+        .lines()
+        .skip(1)
+        .filter(|l| l.split(',').nth(1) == Some("gadgets"))
+        .map(|l| {
+            let counts: Vec<f64> = l.split(',').skip(2).map(|c| c.parse().unwrap()).collect();
+            dirichlet_multinomial_ln_pmf(&shapes, &counts)
+        })
+        .sum();
+    let test = &s["segment_test"];
+    assert_eq!(test["degrees_of_freedom"], 15);
+    let statistic =
+        2.0 * (own_likelihood + gadget_likelihood - all["log_marginal_likelihood"].as_f64().unwrap());
+    assert!(
+        (test["statistic"].as_f64().unwrap() - statistic).abs() < 1e-6 * statistic,
+        "{test} vs {statistic}"
+    );
+    assert!(s["warnings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|w| w.as_str().unwrap().contains("1 of 4 segments")));
+}
+
+#[test]
+fn segments_of_star_ratings_refuse_what_they_do_not_yet_take() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_shops();
+    let mut by_level = vec!["fit", "--input", input.as_str()];
+    by_level.extend(SHOPS);
+    by_level.extend(["--by", "stars_2", "--output", "o.csv"]);
+    assert_refused(dir.path(), &by_level, "--by names 'stars_2'", "o.csv");
+    let ratings = write(dir.path(), "ratings.csv", "shop_id,stars,category\na,5,x\n");
+    let rows = [
+        "fit",
+        "--input",
+        &ratings,
+        "--model",
+        "dirichlet-multinomial",
+        "--group",
+        "shop_id",
+        "--outcome",
+        "stars",
+        "--levels",
+        "1,2,3,4,5",
+        "--by",
+        "category",
+        "--output",
+        "o.csv",
+    ];
+    assert_refused(dir.path(), &rows, "--by with one row per rating", "o.csv");
+    let mut fit = vec!["--quiet", "fit", "--input", input.as_str()];
+    fit.extend(SHOPS);
+    fit.extend(["--by", "category", "--output", "fit.csv", "--summary", "by.json"]);
+    assert!(ratepool(dir.path(), &fit).status.success());
+    let score =
+        ["score", "--prior", "by.json", "--input", input.as_str(), "--group", "shop_id", "--output", "o.csv"];
+    assert_refused(dir.path(), &score, "score with a prior per segment", "o.csv");
 }

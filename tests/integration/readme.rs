@@ -4,6 +4,7 @@
 //! README prints. A change that moves one fails here, not in a reader's hands.
 
 use crate::util::{ratepool, stderr, summary, Csv};
+use ratepool::summary::p_value_text;
 use std::path::Path;
 
 fn root() -> &'static Path {
@@ -85,8 +86,8 @@ fn every_terminal_output_the_readme_pastes_is_what_the_command_prints() {
         compared += 1;
     }
     assert_eq!(
-        compared, 8,
-        "the marketplace, sellers, storefronts, star sellers, district bands (global and neighbour priors), returns and clinics outputs"
+        compared, 9,
+        "the marketplace, sellers, storefronts, star sellers, star shops, district bands (global and neighbour priors), returns and clinics outputs"
     );
 }
 
@@ -381,6 +382,55 @@ fn the_star_seller_figures_in_the_prose() {
     let none = row(&table, "seller_id", "seller-0002");
     printed(none("posterior_mean"), 2, "4.38");
     assert_eq!(none("pool_weight"), 1.0);
+}
+
+#[test]
+fn the_star_shop_figures_in_the_prose() {
+    let dir = scratch();
+    let shops = "fit --input demo-data/star_shops.csv --model dirichlet-multinomial --group shop_id --level-counts stars_1,stars_2,stars_3,stars_4,stars_5 --above 4.5 --flag-fdr 0.1";
+    run(dir.path(), &format!("{shops} --by category --output by.csv --summary by.json"));
+    run(dir.path(), &format!("{shops} --output one.csv --summary one.json"));
+    let s = summary(&dir.path().join("by.json"));
+    printed(s["mean_score"].as_f64().unwrap(), 2, "4.10");
+    let segments = s["segments"]["segments"].as_array().unwrap();
+    for (segment, mean) in [(0, "4.13"), (2, "4.66"), (3, "3.52")] {
+        assert!(segments[segment]["fallback"].is_null());
+        printed(segments[segment]["mean_score"].as_f64().unwrap(), 2, mean);
+    }
+    assert_eq!(segments[1]["key"]["category"], "gadgets");
+    assert_eq!(segments[1]["groups"], 15);
+    assert!(segments[1]["fallback"].as_str().unwrap().contains("fewer than --min-groups 30"));
+    let one = summary(&dir.path().join("one.json"));
+    assert_eq!(one["checks"]["verdict"], "poor fit");
+    assert_eq!(p_value_text(one["checks"]["calibration"]["p_value"].as_f64().unwrap()), "p = 9.3e-10");
+    let (by, plain) = (Csv::read(&dir.path().join("by.csv")), Csv::read(&dir.path().join("one.csv")));
+    for shop in ["shop-0003", "shop-0401"] {
+        let counts: Vec<f64> = (1..=5).map(|k| row(&plain, "shop_id", shop)(&format!("stars_{k}"))).collect();
+        assert_eq!(counts, [0.0, 0.0, 1.0, 2.0, 7.0]);
+        printed(row(&plain, "shop_id", shop)("posterior_mean"), 2, "4.42");
+        assert_eq!(text_of(&plain, "shop_id", shop, "flagged"), "false");
+    }
+    assert_eq!(text_of(&by, "shop_id", "shop-0003", "category"), "repairs");
+    printed(row(&by, "shop_id", "shop-0003")("posterior_mean"), 2, "4.11");
+    printed(row(&by, "shop_id", "shop-0003")("prob_above"), 2, "0.07");
+    assert_eq!(text_of(&by, "shop_id", "shop-0401", "category"), "prints");
+    printed(row(&by, "shop_id", "shop-0401")("posterior_mean"), 2, "4.63");
+    printed(row(&by, "shop_id", "shop-0401")("prob_above"), 2, "0.82");
+    assert_eq!(text_of(&by, "shop_id", "shop-0401", "flagged"), "true");
+    let flagged_prints = |table: &Csv| {
+        let (flags, categories) = (table.column("flagged"), by.column("category"));
+        let flagged = flags.iter().filter(|f| *f == "true").count();
+        let prints = flags.iter().zip(&categories).filter(|(f, c)| *f == "true" && *c == "prints").count();
+        (flagged, prints)
+    };
+    assert_eq!(flagged_prints(&plain), (167, 141));
+    assert_eq!(flagged_prints(&by), (351, 327));
+}
+
+/// The text of `column` in the row of `table` whose `key` column is `id`.
+fn text_of(table: &Csv, key: &str, id: &str, column: &str) -> String {
+    let at = table.column(key).iter().position(|g| g == id).unwrap();
+    table.column(column)[at].clone()
 }
 
 #[test]

@@ -218,6 +218,21 @@ impl Histograms {
     }
 }
 
+/// The log marginal likelihood of `table` under `prior`, with the
+/// multinomial coefficients: what a prior fitted to other groups scores on
+/// these (the pooled shares' multinomial likelihood at the boundary).
+pub fn log_marginal_at(table: &LevelTable, prior: &LevelPrior) -> f64 {
+    let histograms = Histograms::of(table);
+    match prior {
+        LevelPrior::Dirichlet { shapes } => histograms.log_likelihood(shapes),
+        LevelPrior::Pooled { shares } => {
+            let totals = table.level_totals();
+            let terms = totals.iter().zip(shares).map(|(&t, &p)| if t > 0.0 { t * p.ln() } else { 0.0 });
+            histograms.ln_coefficients + terms.sum::<f64>()
+        }
+    }
+}
+
 /// A fitted or assumed prior over the shares.
 #[derive(Debug, Clone, PartialEq)]
 pub enum LevelPrior {
@@ -649,6 +664,35 @@ mod tests {
             assert!(mean.abs() < 1e-9, "N = {total}: mean {mean}");
             assert!((square - 2.0 * 3.0 * n * (n - 1.0)).abs() < 1e-8 * square, "N = {total}: {square}");
         }
+    }
+
+    #[test]
+    fn a_priors_likelihood_on_its_own_table_is_the_fits() {
+        let table = LevelTable::new(
+            3,
+            [
+                (vec![1.0, 2.0, 3.0], 40.0),
+                (vec![5.0, 0.0, 1.0], 25.0),
+                (vec![0.0, 0.0, 4.0], 30.0),
+                (vec![2.0, 2.0, 2.0], 5.0),
+            ],
+        );
+        let fitted = fit_levels(&table).unwrap();
+        assert!(matches!(fitted.prior, LevelPrior::Dirichlet { .. }));
+        assert_eq!(log_marginal_at(&table, &fitted.prior), fitted.log_marginal_likelihood);
+        let pooled = LevelPrior::Pooled { shares: fitted.prior.shares() };
+        let shares = fitted.prior.shares();
+        let totals = table.level_totals();
+        let coefficients: f64 = (0..table.len())
+            .map(|i| {
+                let v = table.vector(i);
+                table.weight(i)
+                    * (ln_gamma(v.iter().sum::<f64>() + 1.0)
+                        - v.iter().map(|n| ln_gamma(n + 1.0)).sum::<f64>())
+            })
+            .sum();
+        let multinomial = coefficients + totals.iter().zip(&shares).map(|(t, p)| t * p.ln()).sum::<f64>();
+        assert!((log_marginal_at(&table, &pooled) - multinomial).abs() < 1e-9 * multinomial.abs());
     }
 
     #[test]
