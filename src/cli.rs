@@ -1857,10 +1857,10 @@ fn level_score_job_of(
     refuse_overlaps(table, [("--prior", Some(&args.prior))])?;
     refuse_for_levels(
         table,
-        &[
-            (!table.by.is_empty() || saved.segments.is_some(), "score with a prior per segment (--by)"),
-            (table.min_groups.is_some(), "--min-groups"),
-        ],
+        &[(
+            table.min_groups.is_some(),
+            "--min-groups (a saved prior per segment is used whatever its groups)",
+        )],
     )?;
     if let Some(model) = args.model.filter(|m| m.name() != saved.model) {
         return Err(Error::Usage(format!(

@@ -13,7 +13,7 @@
 use super::clock::go_on;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
-use super::prior::POOR_FIT_P;
+use super::prior::{refuse_other_segments, POOR_FIT_P};
 use super::scoring::{pull_report, rank_columns, rank_order_words};
 use super::segments::{compare_keys, segment_pair_values, SegmentColumns, SegmentIndex, SegmentKey};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
@@ -40,7 +40,7 @@ use crate::summary::{
 };
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
 use std::path::PathBuf;
 use std::sync::Arc;
 
@@ -144,6 +144,42 @@ impl SavedLevelPrior {
                 p_value: saved.overdispersion_test.p_value,
             },
             iterations: saved.iterations,
+            gradient_norm: 0.0,
+            covariance: None,
+        })
+    }
+}
+
+impl SavedLevelPrior {
+    /// The saved prior of the segment `key` (segment column to value) as a
+    /// fit's result, or why the segment is scored with the all-groups prior:
+    /// it took that prior when fitted, or the file holds no such segment.
+    fn segment_fit(&self, key: &BTreeMap<String, Option<String>>) -> std::result::Result<LevelFit, String> {
+        let Some(saved) =
+            self.summary.segments.as_ref().and_then(|s| s.segments.iter().find(|s| s.key == *key))
+        else {
+            return Err(
+                "a segment the prior file does not hold: scored with the all-groups prior".to_string()
+            );
+        };
+        if let Some(reason) = &saved.fallback {
+            return Err(reason.clone());
+        }
+        let prior = match &saved.shapes {
+            Some(shapes) => LevelPrior::Dirichlet { shapes: shapes.clone() },
+            None => LevelPrior::Pooled { shares: saved.shares.clone() },
+        };
+        let untested = f64::NAN;
+        Ok(LevelFit {
+            prior,
+            shapes_se: None,
+            strength_se: None,
+            shares_se: vec![untested; saved.shares.len()],
+            log_marginal_likelihood: saved.log_marginal_likelihood.unwrap_or(untested),
+            pooled_log_likelihood: untested,
+            pooling: PoolingTest { statistic: untested, p_value: untested },
+            overdispersion: OverdispersionTest { statistic: untested, p_value: untested },
+            iterations: 0,
             gradient_norm: 0.0,
             covariance: None,
         })
@@ -304,6 +340,10 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
     let mut columns = vec![(job.group.as_str(), "group")];
     columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
     columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
+    if let Some(saved) = &job.prior {
+        let fitted = saved.summary.segments.as_ref().map_or(&[][..], |s| &s.columns[..]);
+        refuse_other_segments(&saved.path, fitted, &job.segments)?;
+    }
     let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
     let counted = count_vectors(job, &input, observer)?;
     if counted.rows == 0 {
@@ -455,7 +495,10 @@ fn fit_priors(job: &LevelJob, keyed: &Keyed) -> Result<LevelPriors> {
         .map(|slot| {
             let table = keyed.segment_table(slot);
             let groups = table.groups();
-            let fit = if groups < job.min_groups as f64 {
+            let fit = if let Some(saved) = &job.prior {
+                let key = job.segments.iter().cloned().zip(keyed.segments[slot as usize].key.iter().cloned());
+                saved.segment_fit(&key.collect())
+            } else if groups < job.min_groups as f64 {
                 Err(format!(
                     "{groups} groups, fewer than --min-groups {}: the spread between groups is poorly known",
                     job.min_groups

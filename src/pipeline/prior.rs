@@ -1202,7 +1202,7 @@ fn pooling_report(test: &PoolingTest) -> TestReport {
 
 /// Refuses to score with segments other than those the prior was fitted
 /// with: each segment needs its own prior from the file.
-fn refuse_other_segments(path: &Path, fitted: &[String], asked: &[String]) -> Result<()> {
+pub(super) fn refuse_other_segments(path: &Path, fitted: &[String], asked: &[String]) -> Result<()> {
     let message = match (fitted.is_empty(), asked.is_empty()) {
         _ if fitted == asked => return Ok(()),
         (true, _) => format!(

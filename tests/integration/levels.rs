@@ -843,11 +843,65 @@ fn segments_of_star_ratings_refuse_what_they_do_not_yet_take() {
         "o.csv",
     ];
     assert_refused(dir.path(), &rows, "--by with one row per rating", "o.csv");
-    let mut fit = vec!["--quiet", "fit", "--input", input.as_str()];
-    fit.extend(SHOPS);
-    fit.extend(["--by", "category", "--output", "fit.csv", "--summary", "by.json"]);
-    assert!(ratepool(dir.path(), &fit).status.success());
-    let score =
-        ["score", "--prior", "by.json", "--input", input.as_str(), "--group", "shop_id", "--output", "o.csv"];
-    assert_refused(dir.path(), &score, "score with a prior per segment", "o.csv");
+}
+
+#[test]
+fn score_with_a_segmented_star_prior_gives_each_segment_its_saved_prior() {
+    // Source: the fit itself. Its shops scored with its own summary give its
+    // table byte for byte; shops of a category the file does not hold are
+    // scored as the fit without --by scores them, with prior_fallback.
+    let dir = tempfile::tempdir().unwrap();
+    let input = demo_shops();
+    let fit = |extra: &[&str], output: &str, summary_file: &str| {
+        let mut args = vec!["--quiet", "fit", "--input", input.as_str()];
+        args.extend(SHOPS);
+        args.extend(extra);
+        args.extend([
+            "--above",
+            "4.5",
+            "--flag-fdr",
+            "0.1",
+            "--ranks",
+            "--output",
+            output,
+            "--summary",
+            summary_file,
+        ]);
+        assert!(ratepool(dir.path(), &args).status.success());
+    };
+    fit(&["--by", "category"], "fit.csv", "by.json");
+    fit(&[], "plain.csv", "plain.json");
+    let score = |input: &str, extra: &[&str], output: &str| {
+        let mut args = vec!["--quiet", "score", "--prior", "by.json", "--input", input, "--group", "shop_id"];
+        args.extend(extra);
+        args.extend(["--above", "4.5", "--flag-fdr", "0.1", "--ranks", "--output", output]);
+        ratepool(dir.path(), &args)
+    };
+    let out = score(&input, &["--by", "category"], "scored.csv");
+    assert!(out.status.success(), "{}", stderr(&out));
+    let read = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
+    assert_eq!(read("scored.csv"), read("fit.csv"));
+    // The gadgets renamed: a category the file does not hold.
+    let renamed = std::fs::read_to_string(&input).unwrap().replace(",gadgets,", ",toys,");
+    let toys = write(dir.path(), "toys.csv", &renamed);
+    assert!(score(&toys, &["--by", "category"], "toys-out.csv").status.success());
+    let (scored, plain) =
+        (Csv::read(&dir.path().join("toys-out.csv")), Csv::read(&dir.path().join("plain.csv")));
+    let categories = scored.column("category");
+    let toy_rows: Vec<usize> = (0..categories.len()).filter(|&i| categories[i] == "toys").collect();
+    assert_eq!(toy_rows.len(), 15);
+    for column in ["posterior_mean", "interval_lo", "interval_hi", "prob_above"] {
+        for &i in &toy_rows {
+            assert_eq!(scored.column(column)[i], plain.column(column)[i], "{column} row {i}");
+        }
+    }
+    assert!(toy_rows.iter().all(|&i| scored.column("prior_fallback")[i] == "true"));
+    let refused = |extra: &[&str], message: &str| {
+        let mut args = vec!["score", "--prior", "by.json", "--input", input.as_str(), "--group", "shop_id"];
+        args.extend(extra);
+        args.extend(["--output", "no.csv"]);
+        assert_refused(dir.path(), &args, message, "no.csv");
+    };
+    refused(&[], "give --by category");
+    refused(&["--by", "shop_id"], "--by names 'shop_id'");
 }
