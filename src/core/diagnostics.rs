@@ -279,27 +279,23 @@ pub fn calibration_by_places(
     use rand::{Rng, SeedableRng};
     use rayon::prelude::*;
     let (located, _) = located_groups(weights, seed);
-    let per_pair: Vec<[u64; 10]> = (0..weights.len())
+    // Whole counts, so the order the threads add them in changes nothing.
+    let bins = (0..weights.len())
         .into_par_iter()
-        .map(|i| {
-            let mut bins = [0u64; 10];
-            if located[i] > 0 {
+        .filter(|&i| located[i] > 0)
+        .fold(
+            || [0u64; 10],
+            |mut bins, i| {
                 let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
                 rng.set_stream(3 + i as u64);
                 for _ in 0..located[i] {
                     let (below, ties) = place(i, &mut rng);
                     bins[(below + rng.random_range(0..=ties)).min(9)] += 1;
                 }
-            }
-            bins
-        })
-        .collect();
-    let mut bins = [0u64; 10];
-    for pair in per_pair {
-        for (bin, n) in bins.iter_mut().zip(pair) {
-            *bin += n;
-        }
-    }
+                bins
+            },
+        )
+        .reduce(|| [0u64; 10], |a, b| std::array::from_fn(|k| a[k] + b[k]));
     Calibration::of_bins(bins)
 }
 

@@ -40,6 +40,7 @@ use crate::summary::{
 };
 use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
+use std::borrow::Cow;
 use std::collections::{BTreeMap, HashMap};
 use std::path::PathBuf;
 use std::sync::Arc;
@@ -443,22 +444,23 @@ impl Keyed {
         )
     }
 
-    /// Every row's groups in one table, equal counts merged across segments.
-    fn all_groups(&self) -> LevelTable {
+    /// Every row's groups in one table, equal counts merged across segments
+    /// (the rows themselves without `--by`).
+    fn all_groups(&self) -> Cow<'_, LevelTable> {
         if self.segments.is_empty() {
-            return self.table.clone();
+            return Cow::Borrowed(&self.table);
         }
         let rows = (0..self.table.len()).map(|i| (self.table.vector(i).to_vec(), self.table.weight(i)));
-        LevelTable::new(self.table.levels(), rows)
+        Cow::Owned(LevelTable::new(self.table.levels(), rows))
     }
 }
 
 /// The priors the rows are scored with: the fit to all groups (or the
 /// saved prior), and with `--by` each segment's own fit, or why the
 /// segment took the all-groups prior.
-struct LevelPriors {
+struct LevelPriors<'k> {
     all: LevelFit,
-    all_table: LevelTable,
+    all_table: Cow<'k, LevelTable>,
     segments: Vec<SegmentChoice>,
 }
 
@@ -468,7 +470,7 @@ struct SegmentChoice {
     fit: std::result::Result<LevelFit, String>,
 }
 
-impl LevelPriors {
+impl LevelPriors<'_> {
     /// The prior of row `i` of `keyed`.
     fn of_row<'p>(&'p self, keyed: &Keyed, i: usize) -> &'p LevelPrior {
         match self.segments.get(keyed.segment_of[i] as usize).map(|s| &s.fit) {
@@ -484,7 +486,7 @@ impl LevelPriors {
 }
 
 /// The fit (or the saved prior), with `--by` one per segment.
-fn fit_priors(job: &LevelJob, keyed: &Keyed) -> Result<LevelPriors> {
+fn fit_priors<'k>(job: &LevelJob, keyed: &'k Keyed) -> Result<LevelPriors<'k>> {
     let all_table = keyed.all_groups();
     let all = match &job.prior {
         Some(saved) => saved.as_fit()?,
