@@ -1752,11 +1752,6 @@ fn level_job_of(args: &FitArgs) -> Result<crate::pipeline::levels::LevelJob> {
             )));
         }
     }
-    if outcome.is_some() && !table.by.is_empty() {
-        return Err(Error::Usage(format!(
-            "--by with one row per rating (--outcome) does not apply to the {MODEL_NAME} model (yet): count the ratings per group and level first, and give --level-counts"
-        )));
-    }
     let spec = LevelSpec { levels, outcome, scores, share_above: args.share_above.as_deref() };
     level_job(table, spec, None)
 }

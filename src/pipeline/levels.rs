@@ -588,14 +588,14 @@ fn run_rating_rows(
     values: &[String],
     observer: &mut dyn RunObserver,
 ) -> Result<LevelSummary> {
-    let input = Input::open_source(
-        &job.input,
-        job.delimiter,
-        &[(&job.group, "group"), (outcome, "outcome")],
-        job.batch_rows,
-    )?;
+    let mut columns = vec![(job.group.as_str(), "group"), (outcome, "outcome")];
+    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
+    let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
     let levels = values.len();
+    // A group is its id within its segment (with --by): the key's bytes are
+    // the segment's number, then the id.
     let mut groups: HashMap<Vec<u8>, u32> = HashMap::new();
+    let (mut segments, mut segment_of_group, mut key) = (SegmentIndex::default(), Vec::new(), Vec::new());
     let (mut ids, mut counts): (Vec<String>, Vec<f64>) = (Vec::new(), Vec::new());
     let mut integer_ids = true;
     let (mut rows, mut rejected) = (0, 0);
@@ -606,6 +606,7 @@ fn run_rating_rows(
     input.for_each_batch(|batch| {
         go_on(observer)?;
         let group = GroupColumn::of(&batch.columns[0])?;
+        let segment_columns = SegmentColumns::of(&batch.columns[2..])?;
         integer_ids &= matches!(group, GroupColumn::Integers(_));
         for row in 0..batch.rows() {
             let cell = cell_at(&batch.columns[1], row)?;
@@ -613,14 +614,22 @@ fn run_rating_rows(
             let fault = if group.is_missing(row) {
                 Some((job.group.clone(), MISSING_GROUP.to_string()))
             } else if let Some(level) = values.iter().position(|v| *v == text) {
-                let at = group.with_bytes(row, |id| match groups.get(id) {
-                    Some(&at) => at,
-                    None => {
-                        let at = ids.len() as u32;
-                        groups.insert(id.to_vec(), at);
-                        ids.push(String::from_utf8_lossy(id).into_owned());
-                        counts.extend(std::iter::repeat_n(0.0, levels));
-                        at
+                let segment =
+                    if segment_columns.is_empty() { 0 } else { segments.number(&segment_columns, row) };
+                let at = group.with_bytes(row, |id| {
+                    key.clear();
+                    key.extend_from_slice(&segment.to_le_bytes());
+                    key.extend_from_slice(id);
+                    match groups.get(&key) {
+                        Some(&at) => at,
+                        None => {
+                            let at = ids.len() as u32;
+                            groups.insert(key.clone(), at);
+                            ids.push(String::from_utf8_lossy(id).into_owned());
+                            segment_of_group.push(segment);
+                            counts.extend(std::iter::repeat_n(0.0, levels));
+                            at
+                        }
                     }
                 });
                 counts[at as usize * levels + level] += 1.0;
@@ -652,16 +661,29 @@ fn run_rating_rows(
         return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
     }
     drop(groups);
-    let mut vectors = VectorIndex::new(levels);
-    for group in counts.chunks(levels) {
-        vectors.add(group, 1.0);
+    let segmented = !segments.is_empty();
+    let mut vectors = VectorIndex::new(levels + usize::from(segmented));
+    let key_of = |g: usize, key: &mut Vec<f64>| {
+        key.clear();
+        if segmented {
+            key.push(f64::from(segment_of_group[g]));
+        }
+        key.extend_from_slice(&counts[g * levels..(g + 1) * levels]);
+    };
+    let mut vector = Vec::with_capacity(levels + 1);
+    for g in 0..ids.len() {
+        key_of(g, &mut vector);
+        vectors.add(&vector, 1.0);
     }
-    let (table, place) = LevelTable::of_distinct(levels, &vectors.counts, &vectors.weights);
+    let (keyed, place) = Keyed::of(levels, &vectors, &segments);
     let mut staged = StagedOutputs::default();
-    let (mut summary, columns, furthest) =
-        fit_and_score(job, &Keyed::plain(table), (rows, rejected), &mut staged)?;
-    let vector_of_group: Vec<u32> =
-        counts.chunks(levels).map(|group| place[vectors.find(group).expect("counted") as usize]).collect();
+    let (mut summary, columns, furthest) = fit_and_score(job, &keyed, (rows, rejected), &mut staged)?;
+    let vector_of_group: Vec<u32> = (0..ids.len())
+        .map(|g| {
+            key_of(g, &mut vector);
+            place[vectors.find(&vector).expect("counted") as usize]
+        })
+        .collect();
     summary.pull.max_shift_group =
         furthest.and_then(|v| vector_of_group.iter().position(|&g| g == v)).map(|g| ids[g].clone());
     let id_column: ArrayRef = if integer_ids {

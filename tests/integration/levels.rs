@@ -311,6 +311,34 @@ fn a_level_no_group_used_is_a_fit_failure_that_names_it() {
     assert!(!dir.path().join("out.csv").exists());
 }
 
+/// Every group with ratings has the same row in `rows.csv` (from one row
+/// per rating) as in `counts.csv` (from its counts, in columns `counts_at`),
+/// column for column. Groups with no ratings have no rating rows, so they
+/// are not in the first; they add nothing to the likelihood, so the priors
+/// and every other group's row are the same.
+fn rated_groups_match(dir: &std::path::Path, counts_at: std::ops::Range<usize>) {
+    let (by_counts, by_rows) = (Csv::read(&dir.join("counts.csv")), Csv::read(&dir.join("rows.csv")));
+    let rated: Vec<&Vec<String>> =
+        by_counts.rows.iter().filter(|row| row[counts_at.clone()].iter().any(|c| c != "0")).collect();
+    assert_eq!(by_rows.rows.len(), rated.len());
+    assert_eq!(by_rows.header, by_counts.header);
+    let at: std::collections::HashMap<&str, &Vec<String>> =
+        by_rows.rows.iter().map(|r| (r[0].as_str(), r)).collect();
+    for row in rated {
+        assert_eq!(at[row[0].as_str()], row, "{}", row[0]);
+    }
+}
+
+/// A star-rating fit of `ratings.csv`, one row per rating of 1 to 5 stars
+/// in the column `stars`, grouped by `group`, to `rows.csv`, and `extra`.
+fn rating_rows_run<'a>(group: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
+    let mut args =
+        vec!["fit", "--input", "ratings.csv", "--model", "dirichlet-multinomial", "--group", group];
+    args.extend(["--outcome", "stars", "--levels", "1,2,3,4,5", "--output", "rows.csv"]);
+    args.extend(extra);
+    args
+}
+
 /// A star-rating fit of `in.csv` (group `id`) with `levels`, to `out.csv`, and `extra`.
 fn level_run<'a>(levels: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
     let mut args = vec!["fit", "--input", "in.csv", "--model", "dirichlet-multinomial", "--group", "id"];
@@ -347,44 +375,13 @@ fn one_row_per_rating_gives_the_same_sellers_as_their_counts() {
     counts.extend(STARS);
     counts.extend(["--output", "counts.csv", "--above", "4.5"]);
     assert!(ratepool(dir.path(), &counts).status.success());
-    let rows = [
-        "fit",
-        "--input",
-        "ratings.csv",
-        "--model",
-        "dirichlet-multinomial",
-        "--group",
-        "seller_id",
-        "--outcome",
-        "stars",
-        "--levels",
-        "1,2,3,4,5",
-        "--above",
-        "4.5",
-        "--output",
-        "rows.csv",
-        "--on-invalid",
-        "skip",
-        "--rejects",
-        "rejects.csv",
-    ];
+    let rows =
+        rating_rows_run("seller_id", &["--above", "4.5", "--on-invalid", "skip", "--rejects", "rejects.csv"]);
     let out = ratepool(dir.path(), &rows);
     assert!(out.status.success(), "{}", stderr(&out));
-    let (by_counts, by_rows) =
-        (Csv::read(&dir.path().join("counts.csv")), Csv::read(&dir.path().join("rows.csv")));
+    let by_rows = Csv::read(&dir.path().join("rows.csv"));
     assert_eq!(by_rows.header[1..6], ["stars_1", "stars_2", "stars_3", "stars_4", "stars_5"]);
-    // Sellers with no ratings have no rows, so they are not in the rows' table;
-    // they add nothing to the likelihood, so the prior and every other seller's
-    // row are the same, column for column.
-    let rated: Vec<&Vec<String>> =
-        by_counts.rows.iter().filter(|row| row[1..6].iter().any(|c| c != "0")).collect();
-    assert_eq!(by_rows.rows.len(), rated.len());
-    assert_eq!(by_rows.header, by_counts.header);
-    let at: std::collections::HashMap<&str, &Vec<String>> =
-        by_rows.rows.iter().map(|r| (r[0].as_str(), r)).collect();
-    for row in rated {
-        assert_eq!(at[row[0].as_str()], row, "{}", row[0]);
-    }
+    rated_groups_match(dir.path(), 1..6);
     let rejects = std::fs::read_to_string(dir.path().join("rejects.csv")).unwrap();
     let line =
         format!("{},seller-9999,6,stars,\"'6' is not among --levels 1, 2, 3, 4, 5\"", ratings.len() + 1);
@@ -824,25 +821,6 @@ fn segments_of_star_ratings_refuse_what_they_do_not_yet_take() {
     by_level.extend(SHOPS);
     by_level.extend(["--by", "stars_2", "--output", "o.csv"]);
     assert_refused(dir.path(), &by_level, "--by names 'stars_2'", "o.csv");
-    let ratings = write(dir.path(), "ratings.csv", "shop_id,stars,category\na,5,x\n");
-    let rows = [
-        "fit",
-        "--input",
-        &ratings,
-        "--model",
-        "dirichlet-multinomial",
-        "--group",
-        "shop_id",
-        "--outcome",
-        "stars",
-        "--levels",
-        "1,2,3,4,5",
-        "--by",
-        "category",
-        "--output",
-        "o.csv",
-    ];
-    assert_refused(dir.path(), &rows, "--by with one row per rating", "o.csv");
 }
 
 #[test]
@@ -904,4 +882,59 @@ fn score_with_a_segmented_star_prior_gives_each_segment_its_saved_prior() {
     };
     refused(&[], "give --by category");
     refused(&["--by", "shop_id"], "--by names 'shop_id'");
+}
+
+#[test]
+fn one_row_per_rating_by_segment_gives_the_same_shops_as_their_counts() {
+    // The demo shops written out as one row per rating (shops mixed, each
+    // shop's first rating in shop order so both outputs list the shops alike),
+    // fitted by category: every shop's row as from its counts, and the same summary figures.
+    let dir = tempfile::tempdir().unwrap();
+    let shops = Csv::read(std::path::Path::new(&demo_shops()));
+    let mut first = String::from("shop_id,category,stars\n");
+    let mut rest = String::new();
+    for row in &shops.rows {
+        let mut own = Vec::new();
+        for (stars, count) in row[2..].iter().enumerate() {
+            own.extend(std::iter::repeat_n(stars + 1, count.parse::<usize>().unwrap()));
+        }
+        for (j, stars) in own.iter().enumerate() {
+            let line = format!("{},{},{stars}\n", row[0], row[1]);
+            if j == 0 {
+                first += &line;
+            } else {
+                rest += &line;
+            }
+        }
+    }
+    write(dir.path(), "ratings.csv", &(first + &rest));
+    let input = demo_shops();
+    let mut counts = vec!["--quiet", "fit", "--input", &input];
+    counts.extend(SHOPS);
+    counts.extend([
+        "--by",
+        "category",
+        "--output",
+        "counts.csv",
+        "--summary",
+        "counts.json",
+        "--above",
+        "4.5",
+    ]);
+    assert!(ratepool(dir.path(), &counts).status.success());
+    let rows = rating_rows_run("shop_id", &["--by", "category", "--above", "4.5", "--summary", "rows.json"]);
+    let out = ratepool(dir.path(), &rows);
+    assert!(out.status.success(), "{}", stderr(&out));
+    rated_groups_match(dir.path(), 2..7);
+    let (a, b) = (summary(&dir.path().join("counts.json")), summary(&dir.path().join("rows.json")));
+    for (x, y) in a["segments"]["segments"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .zip(b["segments"]["segments"].as_array().unwrap())
+    {
+        assert_eq!(x["key"], y["key"]);
+        // Shops without ratings add nothing to a fit.
+        assert_eq!(x["shapes"], y["shapes"]);
+    }
 }
