@@ -119,6 +119,19 @@ def test_star_ratings_run_as_on_the_command_line(cli):
     assert result.summary == summary
 
 
+def test_star_ratings_by_category_run_as_on_the_command_line(cli):
+    # A Dirichlet prior per category of the demo shops, from a polars frame.
+    counts = ["stars_1", "stars_2", "stars_3", "stars_4", "stars_5"]
+    result = ratepool.fit(pl.read_csv(DEMO / "star_shops.csv"), model="dirichlet-multinomial",
+                          group="shop_id", level_counts=counts, by="category", above=4.5, flag_fdr=0.1)
+    table, summary = cli.run("fit", "--input", "demo-data/star_shops.csv", "--model",
+                             "dirichlet-multinomial", "--group", "shop_id", "--level-counts",
+                             ",".join(counts), "--by", "category", "--above", "4.5", "--flag-fdr", "0.1")
+    same_table(result.table, table)
+    assert result.summary == summary
+    assert result.table.column("prior_fallback").to_pylist().count(True) == 15
+
+
 def test_to_polars_and_to_pandas_hold_the_table():
     result = ratepool.fit(pl.read_csv(DEMO / "marketplace.csv"), **SELLERS)
     assert result.to_polars().shape == (result.table.num_rows, result.table.num_columns)
