@@ -13,10 +13,16 @@
 //! whose mean and strength move a few percent from node to node), each law
 //! alone and side by side (`beta_tails_at`), at the interval's two ends.
 //!
+//! Mean score: both ends of the 95% interval of a seller's mean star score
+//! (`MeanScoreLaw`), the posterior Dirichlet(a + n) under the bench sellers'
+//! prior a = (0.5, 0.3, 0.6, 2.0, 6.6) (benches/generate_stars.py), for n on
+//! the size grid up to 5,000 ratings spread over the levels in five profiles.
+//!
 //! `cargo bench --bench quantiles`
 
 use criterion::{criterion_group, criterion_main, Criterion, Throughput};
 use ratepool::core::incomplete::{beta_tails, beta_tails_at, BetaLaw};
+use ratepool::core::model::dirichlet_multinomial::mean_score::MeanScoreLaw;
 use ratepool::core::quantile::{beta_quantile, gamma_quantile, Tail};
 use std::hint::black_box;
 
@@ -49,6 +55,24 @@ fn gamma_shapes() -> Vec<f64> {
             shapes.push(6.0 + (expected * ratio).round());
         }
         expected *= 1.6;
+    }
+    shapes
+}
+
+fn mean_score_shapes() -> Vec<[f64; 5]> {
+    let prior = [0.5, 0.3, 0.6, 2.0, 6.6];
+    let profiles = [
+        [0.05, 0.03, 0.06, 0.2, 0.66],
+        [0.0, 0.0, 0.0, 0.0, 1.0],
+        [0.3, 0.1, 0.1, 0.2, 0.3],
+        [0.0, 0.0, 0.1, 0.5, 0.4],
+        [0.6, 0.2, 0.1, 0.05, 0.05],
+    ];
+    let mut shapes = Vec::new();
+    for n in sizes().into_iter().filter(|n| *n <= 5_000.0) {
+        for profile in &profiles {
+            shapes.push(std::array::from_fn(|k| prior[k] + (n * profile[k]).round()));
+        }
     }
     shapes
 }
@@ -100,6 +124,21 @@ fn quantiles(c: &mut Criterion) {
         });
     }
     large.finish();
+    let mut mean_score = c.benchmark_group("mean score quantile per call");
+    let laws = mean_score_shapes();
+    mean_score.throughput(Throughput::Elements(2 * laws.len() as u64));
+    let scores = [1.0, 2.0, 3.0, 4.0, 5.0];
+    mean_score.bench_function(format!("{} posterior Dirichlets, both ends", laws.len()), |bench| {
+        bench.iter(|| {
+            laws.iter()
+                .map(|shapes| {
+                    let law = MeanScoreLaw { shapes: black_box(shapes), scores: &scores };
+                    law.quantile(Tail::Lower, 0.025) + law.quantile(Tail::Upper, 0.025)
+                })
+                .sum::<f64>()
+        })
+    });
+    mean_score.finish();
     let mut mixture = c.benchmark_group("tails of a corrected posterior's 49 laws");
     let laws: Vec<BetaLaw> = (0..49)
         .map(|node| {

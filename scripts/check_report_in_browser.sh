@@ -3,10 +3,11 @@
 # Debian's chromium (when missing) and playwright-core (pinned in
 # scripts/browser/package-lock.json), writes reports of the demo data (a plain
 # fit with flags and ranks, the normal model, a segmented fit through
-# `ratepool report`, a free prior, and the demo districts with the neighbour prior
-# and their map), opens each headless, screenshots every plot into
-# SCREENSHOTS (default target/report-check), and fails when a plot is missing
-# or empty or the page logs an error.
+# `ratepool report`, a free prior, the demo districts with the neighbour prior
+# and their map, and the demo shops' star ratings by category), opens each
+# headless, screenshots every plot into SCREENSHOTS (default
+# target/report-check), and fails when a plot is missing or empty or the page
+# logs an error.
 #
 # usage: bash scripts/check_report_in_browser.sh [SCREENSHOTS]
 set -euo pipefail
@@ -37,5 +38,8 @@ trap 'rm -rf "$work"' EXIT
   --population population --strata age_band --neighbours "$work/district_neighbours.csv" --above 1.2 --flag-fdr 0.1 \
   --output "$work/bands.csv" --summary "$work/bands.json" --report "$work/bands.html" \
   --map demo-data/district_map.geojson --map-key district_id
+"$bin" --quiet fit --input demo-data/star_shops.csv --model dirichlet-multinomial --group shop_id \
+  --level-counts stars_1,stars_2,stars_3,stars_4,stars_5 --by category --above 4.5 --flag-fdr 0.1 --ranks \
+  --output "$work/star_shops.parquet" --summary "$work/star_shops.json" --report "$work/star_shops.html"
 node scripts/browser/check_report.mjs "$shots" "$work/districts.html" "$work/clinics.html" "$work/returns.html" \
-  "$work/storefronts.html" "$work/bands.html"
+  "$work/storefronts.html" "$work/bands.html" "$work/star_shops.html"

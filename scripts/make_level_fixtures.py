@@ -156,18 +156,30 @@ def mean_score():
         ("eight hundred ratings", [30.6, 20.4, 40.9, 180.5, 538.0], stars),
         ("tiny shapes", [0.05, 0.02, 0.1, 0.3, 0.2], stars),
         ("uneven scores", [2.0, 3.0, 0.7], [0.0, 0.25, 1.0]),
+        ("one one-star rating", [1.5, 0.3, 0.6, 2.0, 6.6], stars),
+        ("twenty thousand ratings", [1000.5, 400.3, 1200.6, 4000.0, 13406.6], stars),
+        ("a million ratings", [50000.5, 0.3, 0.6, 100002.0, 850006.6], stars),
     ]
+    draw_rng = np.random.default_rng(20261205)
     cdfs, quantiles = [], []
     for name, shapes, scores in laws:
         for t in [1.2, 2.5, 3.7, 4.3, 4.6, 4.9]:
             lo, hi = min(scores), max(scores)
             t = lo + (t - 1.0) / 4.0 * (hi - lo)
             cdfs.append({"law": name, "shapes": shapes, "scores": scores, "t": t, "lower": float(cdf(shapes, scores, t))})
+        # And about the law's own mean, where a concentrated law has its mass.
+        total = sum(shapes)
+        mean = sum(b * s for b, s in zip(shapes, scores)) / total
+        sd = (sum(b * (s - mean) ** 2 for b, s in zip(shapes, scores)) / total / (total + 1)) ** 0.5
+        for k in [-3.0, -1.0, 0.5, 2.0]:
+            t = mean + k * sd
+            if min(scores) < t < max(scores):
+                cdfs.append({"law": name, "shapes": shapes, "scores": scores, "t": t, "lower": float(cdf(shapes, scores, t))})
         for p in [0.025, 0.5, 0.975]:
             quantiles.append({"law": name, "shapes": shapes, "scores": scores, "p": p, "t": float(quantile(shapes, scores, p))})
     draws = []
     for name, shapes, scores in laws[:3]:
-        shares = rng.dirichlet(shapes, size=10_000_000)
+        shares = draw_rng.dirichlet(shapes, size=10_000_000)
         m = shares @ np.asarray(scores, dtype=float)
         for t in [3.9, 4.5]:
             estimate = float(np.mean(m <= t))

@@ -1542,6 +1542,20 @@ fn run_level_job(
     outputs.extend(table.rejects.clone());
     outputs.extend(job.pair_output.clone());
     outputs.extend(job.summary.clone());
+    if let Some(html) = &table.report {
+        crate::view::levels::write_level_report(&crate::view::ReportRequest {
+            table: &job.output,
+            summary: &summary,
+            output: html,
+            plots: table.plots.as_deref(),
+            plot_format: table.plot_format.format(),
+            seed: job.seed,
+            map: None,
+        })
+        .map_err(|e| Error::Other(format!("the table and summary were written, but not the report: {e}")))?;
+        outputs.push(html.clone());
+        outputs.extend(table.plots.clone());
+    }
     Ok(Outcome { summary: None, levels: Some(summary), outputs })
 }
 
@@ -1549,11 +1563,17 @@ fn run_level_job(
 /// star-rating fit's summary (told by its `model` key); None for any other
 /// model's summary, which the score reads as its own.
 fn saved_level_prior(prior: &Path) -> Result<Option<crate::summary::LevelSummary>> {
+    level_summary_in(prior, "prior file")
+}
+
+/// The star-rating summary in `path` (the `role` it plays, for messages),
+/// or None when it is another model's summary.
+fn level_summary_in(path: &Path, role: &str) -> Result<Option<crate::summary::LevelSummary>> {
     let not_summary = |e: &dyn std::fmt::Display| {
-        Error::Input(format!("{}: not a ratepool summary file: {e}", prior.display()))
+        Error::Input(format!("{}: not a ratepool summary file: {e}", path.display()))
     };
-    let text = std::fs::read_to_string(prior)
-        .map_err(|e| Error::Input(format!("{}: cannot read the prior file: {e}", prior.display())))?;
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| Error::Input(format!("{}: cannot read the {role}: {e}", path.display())))?;
     let value: serde_json::Value = serde_json::from_str(&text).map_err(|e| not_summary(&e))?;
     if value.get("model").and_then(serde_json::Value::as_str) != Some(crate::pipeline::levels::MODEL_NAME) {
         return Ok(None);
@@ -1587,17 +1607,26 @@ fn run_report(args: &ReportArgs) -> Result<()> {
     let mut inputs = inputs.to_vec();
     inputs.extend(args.map.as_deref().map(|path| RunPath { option: "--map", path }));
     crate::io::overlap::refuse_overlaps(&inputs, &outputs)?;
-    let summary = load_summary(&args.summary)?;
     let shown = report_map(args.map.as_deref(), args.map_key.as_deref())?;
-    crate::view::write_report(&crate::view::ReportRequest {
-        table: &args.table,
-        summary: &summary,
-        output: &args.output,
-        plots: args.plots.as_deref(),
-        plot_format: args.plot_format.format(),
-        seed: args.seed,
-        map: shown.as_ref(),
-    })
+    fn request<'a, S>(
+        args: &'a ReportArgs,
+        summary: &'a S,
+        map: Option<&'a crate::view::map::ReportMap>,
+    ) -> crate::view::ReportRequest<'a, S> {
+        crate::view::ReportRequest {
+            table: &args.table,
+            summary,
+            output: &args.output,
+            plots: args.plots.as_deref(),
+            plot_format: args.plot_format.format(),
+            seed: args.seed,
+            map,
+        }
+    }
+    match level_summary_in(&args.summary, "summary file")? {
+        Some(stars) => crate::view::levels::write_level_report(&request(args, &stars, shown.as_ref())),
+        None => crate::view::write_report(&request(args, &load_summary(&args.summary)?, shown.as_ref())),
+    }
 }
 
 /// The map of `--map FILE --map-key PROPERTY`, read (and a bad one refused)
@@ -1662,8 +1691,6 @@ fn refuse_for_levels(table: &TableArgs, more: &[(bool, &str)]) -> Result<()> {
         (table.top_method == TopMethodArg::Draws, "--top-method draws (prob_top is by the threshold method)"),
         (table.top_draws.is_some(), "--top-draws (prob_top is by the threshold method)"),
         (table.intervals == IntervalsArg::Corrected, "--intervals corrected"),
-        (table.report.is_some(), "--report"),
-        (table.plots.is_some(), "--plots"),
         (table.map.is_some(), "--map"),
     ];
     if let Some((_, flag)) = refused.iter().chain(more).find(|(given, _)| *given) {

@@ -988,6 +988,10 @@ pub struct LevelSummary {
     /// prior's figures and tests below are that fit's, on its own data).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub prior_file: Option<String>,
+    /// The group column, first in the output table (absent from summaries
+    /// of earlier versions, which the report cannot read).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub group_column: Option<String>,
     /// Data rows in the input.
     pub rows_read: u64,
     /// Rows rejected.

@@ -8,6 +8,7 @@ import { mkdirSync } from "node:fs";
 import { basename, resolve } from "node:path";
 
 const EXPECTED = ["shrinkage", "funnel", "prior", "calibration", "pool-weights"];
+const STAR_EXPECTED = ["shrinkage", "calibration", "pool-weights"];
 const [folder, ...reports] = process.argv.slice(2);
 if (!folder || reports.length === 0) {
   console.error("usage: node check_report.mjs SCREENSHOT_FOLDER REPORT.html [...]");
@@ -56,7 +57,10 @@ for (const report of reports) {
     if (map.panels.length === 0 || map.legend < 3) fail(`${report}: map ${map.name} has no panel or no legend`);
     console.log(`${report}: ${map.name}: ${map.panels.length} panels of ${map.areas} areas each, ${map.legend} legend swatches`);
   }
-  const expectedPlots = plots.some((p) => p.name === "centres") ? EXPECTED.filter((e) => e !== "prior") : EXPECTED;
+  // A star-rating page (its levels table) has no funnel and no prior density.
+  const stars = (await page.$("table#levels")) !== null;
+  const expectedPlots = stars ? STAR_EXPECTED
+    : plots.some((p) => p.name === "centres") ? EXPECTED.filter((e) => e !== "prior") : EXPECTED;
   for (const expected of expectedPlots) {
     if (!plots.some((p) => p.name === expected)) fail(`${report}: plot ${expected} is missing`);
   }

@@ -357,6 +357,8 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
     let mut staged = StagedOutputs::default();
     let (mut summary, columns, furthest) =
         fit_and_score(job, &keyed, (counted.rows, counted.rejected), &mut staged)?;
+    // Pass 2 needs the columns and the keys' places, not the table (73 MB at 10M sellers).
+    drop(keyed);
     let found = Found {
         vectors: counted.vectors,
         segments: counted.segments,
@@ -678,6 +680,7 @@ fn run_rating_rows(
     let (keyed, place) = Keyed::of(levels, &vectors, &segments);
     let mut staged = StagedOutputs::default();
     let (mut summary, columns, furthest) = fit_and_score(job, &keyed, (rows, rejected), &mut staged)?;
+    drop(keyed);
     let vector_of_group: Vec<u32> = (0..ids.len())
         .map(|g| {
             key_of(g, &mut vector);
@@ -1134,6 +1137,7 @@ fn summarise(
     let summary = LevelSummary {
         model: MODEL_NAME.to_string(),
         prior_file: None,
+        group_column: Some(job.group.clone()),
         rows_read: rows as u64,
         rows_rejected: rejected as u64,
         groups: groups as u64,

@@ -85,19 +85,19 @@ impl Best {
 
 /// A seeded uniform sample of a stream (Algorithm R).
 #[derive(Debug)]
-struct Reservoir<T> {
+pub(super) struct Reservoir<T> {
     n: usize,
     seen: u64,
-    items: Vec<T>,
+    pub(super) items: Vec<T>,
 }
 
 impl<T> Reservoir<T> {
-    fn new(n: usize) -> Self {
+    pub(super) fn new(n: usize) -> Self {
         Reservoir { n, seen: 0, items: Vec::new() }
     }
 
     /// The slot the next item takes, if any.
-    fn slot(&mut self, rng: &mut ChaCha8Rng) -> Option<usize> {
+    pub(super) fn slot(&mut self, rng: &mut ChaCha8Rng) -> Option<usize> {
         self.seen += 1;
         if self.items.len() < self.n {
             return Some(self.items.len());
@@ -106,7 +106,7 @@ impl<T> Reservoir<T> {
         (j < self.n).then_some(j)
     }
 
-    fn put(&mut self, slot: usize, item: T) {
+    pub(super) fn put(&mut self, slot: usize, item: T) {
         if slot == self.items.len() {
             self.items.push(item);
         } else {
@@ -124,16 +124,8 @@ pub struct Collected {
     pub sample: Vec<GroupRow>,
     /// Per segment, a seeded sample of its groups.
     pub segment_samples: Vec<Vec<GroupRow>>,
-    /// The groups whose posterior mean moved furthest from their raw rate.
-    pub moved: Best,
-    /// The top of the conservative ranking.
-    pub top: Best,
-    /// The bottom of the conservative ranking.
-    pub bottom: Best,
-    /// The flagged groups of highest event probability.
-    pub flagged: Best,
-    /// Groups flagged.
-    pub flagged_count: u64,
+    /// The groups the page's tables list.
+    pub listed: Listed,
     /// Counts of pool weights in [`POOL_BINS`] equal bins over [0, 1].
     pub pool_weights: Vec<u64>,
     /// A seeded sample of the raw rates of well-measured groups.
@@ -144,6 +136,60 @@ pub struct Collected {
     pub pooled: f64,
     /// The smallest and largest positive funnel abscissa (size, or precision for estimates).
     pub funnel_range: (f64, f64),
+}
+
+/// The groups a page's tables list, kept in bounded memory as the table is read.
+#[derive(Debug)]
+pub struct Listed {
+    /// The groups whose posterior mean moved furthest from their raw value.
+    pub moved: Best,
+    /// The top of the conservative ranking.
+    pub top: Best,
+    /// The bottom of the conservative ranking.
+    pub bottom: Best,
+    /// The flagged groups of highest event probability.
+    pub flagged: Best,
+    /// Groups flagged.
+    pub flagged_count: u64,
+    /// Whether the ranking puts the lowest first.
+    lowest_first: bool,
+}
+
+impl Listed {
+    pub(super) fn new(lowest_first: bool) -> Self {
+        Listed {
+            moved: Best::new(LISTED),
+            top: Best::new(LISTED),
+            bottom: Best::new(LISTED),
+            flagged: Best::new(LISTED),
+            flagged_count: 0,
+            lowest_first,
+        }
+    }
+
+    /// Offers a group to every list; `build` makes its row, only where it is kept.
+    pub(super) fn offer(&mut self, group: &GroupRow, build: impl Fn() -> GroupRow) {
+        if let Some(raw) = group.raw {
+            let shift = (group.mean - raw).abs();
+            if self.moved.wants(shift) {
+                self.moved.offer(shift, build());
+            }
+        }
+        let key = conservative_key(self.lowest_first, group.lower, group.upper);
+        if self.top.wants(key) {
+            self.top.offer(key, build());
+        }
+        if self.bottom.wants(-key) {
+            self.bottom.offer(-key, build());
+        }
+        if group.flagged {
+            self.flagged_count += 1;
+            let p = group.event_probability.unwrap_or(f64::NAN);
+            if self.flagged.wants(p) {
+                self.flagged.offer(p, build());
+            }
+        }
+    }
 }
 
 /// The conservative ranking's key: the lower end for the highest first, minus
@@ -258,6 +304,20 @@ pub fn area_values(
     Ok(out)
 }
 
+/// The number in column `i` of `numbers` at `row`, when present and finite.
+pub(super) fn number_at(numbers: &[Float64Array], i: usize, row: usize) -> Option<f64> {
+    Some(numbers[i].value(row)).filter(|v| numbers[i].is_valid(row) && v.is_finite())
+}
+
+/// The fault of an output table's row (0-based in its file) whose `what` is missing.
+pub(super) fn missing_in_table(file: &Path, row: usize, what: &str) -> Error {
+    Error::Input(format!(
+        "{}: row {}: the {what} is missing or not a number; is this the table the summary describes?",
+        file.display(),
+        row + 1
+    ))
+}
+
 /// Reads the output table `table` of the run described by `summary`.
 pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Result<Collected> {
     let columns = summary.columns.as_ref().ok_or_else(|| {
@@ -307,11 +367,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
         groups: 0,
         sample: Vec::new(),
         segment_samples: Vec::new(),
-        moved: Best::new(LISTED),
-        top: Best::new(LISTED),
-        bottom: Best::new(LISTED),
-        flagged: Best::new(LISTED),
-        flagged_count: 0,
+        listed: Listed::new(lowest_first),
         pool_weights: vec![0; POOL_BINS],
         well_measured: Vec::new(),
         well_measured_count: 0,
@@ -322,35 +378,36 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
     input.for_each_batch(|batch| {
         let c = &batch.columns;
         let group = GroupColumn::of(&c[0])?;
-        let numbers: Vec<Float64Array> = c[1..first_segment].iter().map(float_column).collect::<Result<_>>()?;
-        let segments: Vec<GroupColumn> = c[first_segment..].iter().map(GroupColumn::of).collect::<Result<_>>()?;
+        let numbers: Vec<Float64Array> =
+            c[1..first_segment].iter().map(float_column).collect::<Result<_>>()?;
+        let segments: Vec<GroupColumn> =
+            c[first_segment..].iter().map(GroupColumn::of).collect::<Result<_>>()?;
         for row in 0..batch.rows() {
-            let value = |i: usize| Some(numbers[i].value(row)).filter(|v| numbers[i].is_valid(row) && v.is_finite());
-            let fault = |what: &str| {
-                Error::Input(format!(
-                    "{}: row {}: the {what} is missing or not a number; is this the table the summary describes?",
-                    batch.file.display(),
-                    batch.first_row_in_file + row + 1
-                ))
-            };
+            let value = |i: usize| number_at(&numbers, i, row);
+            let fault = |what: &str| missing_in_table(batch.file, batch.first_row_in_file + row, what);
             let (Some(count), Some(size)) = (value(0), value(1)) else { return Err(fault("count or size")) };
-            let (Some(mean), Some(lower), Some(upper), Some(pool_weight)) = (value(3), value(4), value(5), value(6))
+            let (Some(mean), Some(lower), Some(upper), Some(pool_weight)) =
+                (value(3), value(4), value(5), value(6))
             else {
                 return Err(fault("posterior"));
             };
             let raw = value(2);
             let event_probability = event_column.as_ref().and_then(|_| value(7));
-            let flagged = flag_bound.zip(event_column.as_ref().and_then(|_| value(8))).is_some_and(|(q, fdr)| fdr <= q);
+            let flagged =
+                flag_bound.zip(event_column.as_ref().and_then(|_| value(8))).is_some_and(|(q, fdr)| fdr <= q);
             let segment = if segments.is_empty() {
                 0
             } else {
                 let key: Vec<Option<String>> =
                     segments.iter().map(|s| (!s.is_null(row)).then(|| s.text(row))).collect();
-                *segment_places.get(&key).ok_or_else(|| fault("segment (not among the summary's segments)"))?
+                *segment_places
+                    .get(&key)
+                    .ok_or_else(|| fault("segment (not among the summary's segments)"))?
             };
             out.groups += 1;
-            let build = || GroupRow {
-                id: group.text(row),
+            // The row without its id (no allocation), and the row in full where one is kept.
+            let probe = GroupRow {
+                id: String::new(),
                 size,
                 count,
                 raw,
@@ -363,6 +420,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
                 flagged,
                 segment,
             };
+            let build = || GroupRow { id: group.text(row), ..probe.clone() };
             // Pooled rate and the funnel's range.
             let (numerator, denominator) = axis.pooled_parts(size, count);
             pooled_numerator += numerator;
@@ -387,26 +445,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
                     own.put(slot, build());
                 }
             }
-            if let Some(raw) = raw {
-                let shift = (mean - raw).abs();
-                if out.moved.wants(shift) {
-                    out.moved.offer(shift, build());
-                }
-            }
-            let key = conservative_key(lowest_first, lower, upper);
-            if out.top.wants(key) {
-                out.top.offer(key, build());
-            }
-            if out.bottom.wants(-key) {
-                out.bottom.offer(-key, build());
-            }
-            if flagged {
-                out.flagged_count += 1;
-                let p = event_probability.unwrap_or(f64::NAN);
-                if out.flagged.wants(p) {
-                    out.flagged.offer(p, build());
-                }
-            }
+            out.listed.offer(&probe, build);
         }
         Ok(())
     })?;

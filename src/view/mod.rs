@@ -5,6 +5,7 @@
 //! wrote.
 
 pub mod collect;
+pub mod levels;
 pub mod map;
 mod page;
 pub mod plots;
@@ -15,12 +16,14 @@ use crate::io::atomic::stage_bytes;
 use crate::summary::Summary;
 use std::path::Path;
 
-/// What a report is drawn from and where it goes.
-pub struct ReportRequest<'a> {
+/// What a report is drawn from and where it goes: the summary of a run of
+/// one of the scalar models, or a [`crate::summary::LevelSummary`] (star
+/// ratings, [`levels::write_level_report`]).
+pub struct ReportRequest<'a, S = Summary> {
     /// The run's output table (CSV or Parquet).
     pub table: &'a Path,
     /// The run's summary.
-    pub summary: &'a Summary,
+    pub summary: &'a S,
     /// The HTML file to write.
     pub output: &'a Path,
     /// A folder to write each plot into as its own file, too.
@@ -115,14 +118,7 @@ pub fn write_report(request: &ReportRequest<'_>) -> Result<()> {
     let model = Model::from_name(&summary.model)
         .ok_or_else(|| Error::Input(format!("unknown model '{}' in the summary", summary.model)))?;
     let collected = collect::collect(request.table, summary, model, request.seed)?;
-    if collected.groups != summary.groups {
-        return Err(Error::Input(format!(
-            "{}: {} groups, but the summary describes {}; give the table and summary of the same run",
-            request.table.display(),
-            collected.groups,
-            summary.groups
-        )));
-    }
+    refuse_other_run(request.table, collected.groups, summary.groups)?;
     let (mut figures, segment_figures) =
         page::figures(summary, model, &collected, prior_law(summary, model))?;
     if let Some(shown) = request.map {
@@ -131,13 +127,37 @@ pub fn write_report(request: &ReportRequest<'_>) -> Result<()> {
         figures.extend(map::map_figures(shown, &table, &map_terms(summary, model, &table))?);
     }
     let html = page::render(summary, model, &collected, &figures, &segment_figures);
+    let all = figures.iter().chain(segment_figures.iter().flatten());
+    write_page(&html, all, request.output, request.plots, request.plot_format)
+}
+
+/// Refuses a table whose groups (`read`) are not the summary's (`described`).
+fn refuse_other_run(table: &Path, read: u64, described: u64) -> Result<()> {
+    if read == described {
+        return Ok(());
+    }
+    Err(Error::Input(format!(
+        "{}: {read} groups, but the summary describes {described}; give the table and summary of the same run",
+        table.display()
+    )))
+}
+
+/// Writes a page and, into `plots` when given, each figure as its own file,
+/// all or nothing.
+fn write_page<'a>(
+    html: &str,
+    figures: impl Iterator<Item = &'a Figure>,
+    output: &Path,
+    plots: Option<&Path>,
+    plot_format: PlotFormat,
+) -> Result<()> {
     let mut staged = crate::io::atomic::StagedOutputs::default();
-    staged.add(stage_bytes(request.output, html.as_bytes())?);
-    if let Some(folder) = request.plots {
+    staged.add(stage_bytes(output, html.as_bytes())?);
+    if let Some(folder) = plots {
         std::fs::create_dir_all(folder)
             .map_err(|e| Error::io(format!("cannot create the folder {}", folder.display()), e))?;
-        for figure in figures.iter().chain(segment_figures.iter().flatten()) {
-            match request.plot_format {
+        for figure in figures {
+            match plot_format {
                 PlotFormat::Svg => staged
                     .add(stage_bytes(&folder.join(format!("{}.svg", figure.name)), figure.svg.as_bytes())?),
                 PlotFormat::Png => {

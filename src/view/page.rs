@@ -1,12 +1,14 @@
 //! The HTML page: the run in figures, the diagnostics in words, the tables
 //! and one section per segment. Escaped text, inline SVG, inline style.
 
-use super::collect::{Collected, GroupRow, LISTED, SAMPLE, WELL_MEASURED};
+use super::collect::{Collected, GroupRow, Listed, LISTED, SAMPLE, WELL_MEASURED};
 use super::plots::{self, PriorShown};
 use super::Figure;
 use crate::core::model::{Model, RateLaw};
 use crate::error::Result;
-use crate::summary::{p_value_figure, p_value_text, ChecksReport, FittedPrior, Summary, MIN_GROUPS_TO_JUDGE};
+use crate::summary::{
+    p_value_figure, p_value_text, ChecksReport, FittedPrior, FlagReport, Summary, MIN_GROUPS_TO_JUDGE,
+};
 use std::fmt::Write;
 
 /// Segments drawn with a plot of their own; the rest are in the table only.
@@ -76,7 +78,7 @@ pub fn figures(
         ),
         svg: plots::shrinkage(&collected.sample, prior_mean, terms)?,
     }];
-    let flagged: Vec<&GroupRow> = collected.flagged.rows().collect();
+    let flagged: Vec<&GroupRow> = collected.listed.flagged.rows().collect();
     figures.push(Figure {
         name: "funnel".into(),
         title: "Funnel plot".into(),
@@ -85,7 +87,7 @@ pub fn figures(
             terms.plots.funnel_noun,
             sampled(collected.sample.len(), collected.groups),
             num(collected.pooled),
-            if collected.flagged_count > 0 { "Flagged groups are red. " } else { "" }
+            if collected.listed.flagged_count > 0 { "Flagged groups are red. " } else { "" }
         ),
         svg: plots::funnel(
             &collected.sample,
@@ -345,30 +347,117 @@ fn diagnostics(summary: &Summary, out: &mut String) {
     let _ = writeln!(out, "</ul></section>");
 }
 
+/// The headings of a group table's count, size and raw columns (no count
+/// column where the count is the size, as for star ratings).
+pub(super) struct TableHeadings<'a> {
+    pub(super) count: Option<&'a str>,
+    pub(super) size: &'a str,
+    pub(super) raw: &'a str,
+}
+
+impl TableHeadings<'static> {
+    fn of(model: Model) -> Self {
+        TableHeadings {
+            count: Some(model.terms().count_role),
+            size: model.terms().plots.size_noun,
+            raw: "raw",
+        }
+    }
+}
+
+/// How a page's group tables name the groups.
+pub(super) struct TableWords<'a> {
+    /// The groups, plural.
+    pub(super) groups: &'a str,
+    /// What "moved most" means, after "whose".
+    pub(super) moved: &'a str,
+    /// The interval ends ranked.
+    pub(super) ends: &'a str,
+}
+
+/// The "Groups" section: the tables of the groups that moved most, the
+/// top and bottom of the conservative ranking, and the flagged.
+pub(super) fn listed_tables(
+    listed: &Listed,
+    rank_order: Option<&str>,
+    flagged: bool,
+    headings: &TableHeadings,
+    words: &TableWords,
+    out: &mut String,
+) {
+    let TableWords { groups, moved, ends } = words;
+    let _ = writeln!(out, "</section><section id=\"tables\"><h2>Groups</h2>");
+    fn rows(best: &super::collect::Best) -> Vec<&GroupRow> {
+        best.rows().collect()
+    }
+    group_table(
+        "Moved most",
+        &format!("The {LISTED} {groups} whose {moved}."),
+        &rows(&listed.moved),
+        headings,
+        out,
+    );
+    let (bound, best) =
+        if rank_order == Some("lowest-first") { ("upper", "lowest") } else { ("lower", "highest") };
+    group_table(
+        "Top of the conservative ranking",
+        &format!("The {LISTED} {groups} with the {best} {bound} {ends}: reliably among the {best}."),
+        &rows(&listed.top),
+        headings,
+        out,
+    );
+    group_table(
+        "Bottom of the conservative ranking",
+        &format!("The {LISTED} {groups} last by their {bound} interval ends."),
+        &rows(&listed.bottom),
+        headings,
+        out,
+    );
+    if flagged {
+        let shown = rows(&listed.flagged);
+        group_table(
+            "Flagged",
+            &format!(
+                "{} {groups} flagged; the {} of highest posterior probability of the event are listed.",
+                listed.flagged_count,
+                shown.len()
+            ),
+            &shown,
+            headings,
+            out,
+        );
+    }
+}
+
 /// A table of groups.
-fn group_table(title: &str, note: &str, rows: &[&GroupRow], model: Model, out: &mut String) {
-    let size_label = model.terms().plots.size_noun;
-    let count_label = model.terms().count_role;
+fn group_table(title: &str, note: &str, rows: &[&GroupRow], headings: &TableHeadings, out: &mut String) {
     let _ = writeln!(out, "<h3>{}</h3><p>{}</p>", escape(title), escape(note));
     if rows.is_empty() {
         let _ = writeln!(out, "<p>None.</p>");
         return;
     }
     let with_probability = rows.iter().any(|r| r.event_probability.is_some());
+    let _ = write!(out, "<table><thead><tr><th>group</th>");
+    if let Some(count) = headings.count {
+        let _ = write!(out, "<th>{count}</th>");
+    }
     let _ = write!(
         out,
-        "<table><thead><tr><th>group</th><th>{count_label}</th><th>{size_label}</th><th>raw</th><th>posterior mean</th><th>interval</th><th>pool weight</th>"
+        "<th>{}</th><th>{}</th><th>posterior mean</th><th>interval</th><th>pool weight</th>",
+        headings.size, headings.raw
     );
     if with_probability {
         let _ = write!(out, "<th>event probability</th>");
     }
     let _ = writeln!(out, "</tr></thead><tbody>");
     for r in rows {
+        let _ = write!(out, "<tr><td>{}</td>", escape(&r.id));
+        if headings.count.is_some() {
+            let _ = write!(out, "<td>{}</td>", num(r.count));
+        }
         let _ = write!(
             out,
-            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{} to {}</td><td>{}</td>",
-            escape(&r.id),
-            num(r.count),
+            "<td>{}</td><td>{}</td><td>{}</td><td>{} to {}</td><td>{}</td>",
             num(r.size),
             r.raw.map_or("n/a".into(), num),
             num(r.mean),
@@ -384,7 +473,7 @@ fn group_table(title: &str, note: &str, rows: &[&GroupRow], model: Model, out: &
     let _ = writeln!(out, "</tbody></table>");
 }
 
-fn figure_html(figure: &Figure, out: &mut String) {
+pub(super) fn figure_html(figure: &Figure, out: &mut String) {
     let _ = writeln!(
         out,
         "<figure class=\"plot{4}\" id=\"plot-{0}\" data-plot=\"{0}\"><h3>{1}</h3>{2}<figcaption>{3}</figcaption></figure>",
@@ -418,10 +507,10 @@ pub fn cautions(summary: &Summary) -> Vec<String> {
         _ => {}
     }
     if summary.rank_order.is_some() {
-        cautions.push("Ranks order groups by their estimated rate, not by how sure the estimate is: where intervals overlap, a rank decides little. A ranking can affect the people, businesses or places ranked; read the interval and the pool weight before acting on any one rank, and follow the rules that govern such decisions where you work.".to_string());
+        cautions.push(RANKING_CAUTION.to_string());
     }
     if let Some(flags) = &summary.flags {
-        cautions.push(format!("A flag is a statement about a set: of the {} groups flagged at a false-discovery rate of {}, about {} are expected to be wrong. A flag is not proof of a problem, a diagnosis or a cluster: look at a group's data, and follow local rules and licensed practice, before acting on it; do not change the rate after seeing the result.", flags.groups_flagged, flags.fdr_level, num(flags.expected_false_flags)));
+        cautions.push(flag_caution(flags));
     }
     if let Some(covariates) = summary.fitted_prior.covariates() {
         let columns: Vec<&str> = covariates.covariates.iter().map(|c| c.column.as_str()).collect();
@@ -432,13 +521,29 @@ pub fn cautions(summary: &Summary) -> Vec<String> {
     }
     let borrowed = summary.segments.iter().filter(|s| s.fallback.is_some()).count();
     if borrowed > 0 {
-        cautions.push(format!("{borrowed} of {} segments had too few groups or no fit of their own and borrow the all-groups prior: their groups are pulled toward all groups, not toward their own kind.", summary.segments.len()));
+        cautions.push(borrowed_caution(borrowed, summary.segments.len()));
     }
-    cautions.push("Results about small groups may identify the people behind them: follow local rules on suppression and disclosure before publishing them.".to_string());
+    cautions.push(DISCLOSURE_CAUTION.to_string());
     cautions
 }
 
-const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}\
+/// The caution of a run that ranked.
+pub(super) const RANKING_CAUTION: &str = "Ranks order groups by their estimated rate, not by how sure the estimate is: where intervals overlap, a rank decides little. A ranking can affect the people, businesses or places ranked; read the interval and the pool weight before acting on any one rank, and follow the rules that govern such decisions where you work.";
+
+/// The caution every report ends with.
+pub(super) const DISCLOSURE_CAUTION: &str = "Results about small groups may identify the people behind them: follow local rules on suppression and disclosure before publishing them.";
+
+/// The caution of a run that flagged.
+pub(super) fn flag_caution(flags: &FlagReport) -> String {
+    format!("A flag is a statement about a set: of the {} groups flagged at a false-discovery rate of {}, about {} are expected to be wrong. A flag is not proof of a problem, a diagnosis or a cluster: look at a group's data, and follow local rules and licensed practice, before acting on it; do not change the rate after seeing the result.", flags.groups_flagged, flags.fdr_level, num(flags.expected_false_flags))
+}
+
+/// The caution of segments that borrowed the all-groups prior.
+pub(super) fn borrowed_caution(borrowed: usize, segments: usize) -> String {
+    format!("{borrowed} of {segments} segments had too few groups or no fit of their own and borrow the all-groups prior: their groups are pulled toward all groups, not toward their own kind.")
+}
+
+pub(super) const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}\
 h1{font-size:1.6em}h2{margin-top:2em;border-bottom:1px solid #ccc}\
 figure.plot{display:inline-block;vertical-align:top;width:calc(50% - 1em);margin:0 1em 1.5em 0}\
 figure.plot svg{width:100%;height:auto}figure.plot.wide{width:calc(100% - 1em)}@media (max-width:900px){figure.plot{width:100%}}\
@@ -491,47 +596,19 @@ pub fn render(
     for figure in figures {
         figure_html(figure, &mut out);
     }
-    let _ = writeln!(out, "</section><section id=\"tables\"><h2>Groups</h2>");
-    let moved: Vec<&GroupRow> = collected.moved.rows().collect();
-    group_table(
-        "Moved most",
-        &format!("The {LISTED} groups whose posterior mean is furthest from their raw value: mostly groups with little data."),
-        &moved,
-        model,
+    let words = TableWords {
+        groups: "groups",
+        moved: "posterior mean is furthest from their raw value: mostly groups with little data",
+        ends: "interval ends",
+    };
+    listed_tables(
+        &collected.listed,
+        summary.rank_order.as_deref(),
+        summary.flags.is_some(),
+        &TableHeadings::of(model),
+        &words,
         &mut out,
     );
-    let lowest_first = summary.rank_order.as_deref() == Some("lowest-first");
-    let (bound, best) = if lowest_first { ("upper", "lowest") } else { ("lower", "highest") };
-    let top: Vec<&GroupRow> = collected.top.rows().collect();
-    group_table(
-        "Top of the conservative ranking",
-        &format!("The {LISTED} groups with the {best} {bound} interval ends: reliably among the {best}."),
-        &top,
-        model,
-        &mut out,
-    );
-    let bottom: Vec<&GroupRow> = collected.bottom.rows().collect();
-    group_table(
-        "Bottom of the conservative ranking",
-        &format!("The {LISTED} groups last by their {bound} interval ends."),
-        &bottom,
-        model,
-        &mut out,
-    );
-    if summary.flags.is_some() {
-        let flagged: Vec<&GroupRow> = collected.flagged.rows().collect();
-        group_table(
-            "Flagged",
-            &format!(
-                "{} groups flagged; the {} of highest posterior probability of the event are listed.",
-                collected.flagged_count,
-                flagged.len()
-            ),
-            &flagged,
-            model,
-            &mut out,
-        );
-    }
     let _ = writeln!(out, "</section>");
     if !summary.segments.is_empty() {
         segments(summary, model, segment_figures, &mut out);

@@ -77,6 +77,12 @@ pub fn shrinkage(sample: &[GroupRow], prior_mean: f64, terms: &ModelTerms) -> Re
     diagonal_scatter(&points, (terms.plots.raw_label, "posterior mean"), Some(prior_mean))
 }
 
+/// A star-rating run's raw mean score against its posterior mean, marker
+/// size by the number of ratings (points are (raw, posterior, ratings)).
+pub fn mean_score_shrinkage(points: &[(f64, f64, f64)], prior_mean: f64) -> Result<String> {
+    diagonal_scatter(points, ("raw mean score", "posterior mean score"), Some(prior_mean))
+}
+
 /// Raw rate against each group's prior centre (with covariates), marker
 /// size by the group's size: groups on the diagonal are what their
 /// covariates predict; the spread about it is what the prior's strength allows.

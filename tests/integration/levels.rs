@@ -62,8 +62,10 @@ fn the_mean_score_law_matches_mpmaths_inversion_integral() {
         let t = case["t"].as_f64().unwrap();
         let want = case["lower"].as_f64().unwrap();
         let got = law.at(t);
-        assert!((got.lower - want).abs() < 1e-12 + 1e-10 * want, "{case}: {} vs {want}", got.lower);
-        assert!((got.upper - (1.0 - want)).abs() < 1e-12 + 1e-10 * (1.0 - want), "{case}");
+        // The smaller tail holds 1e-8 relative, the larger is one less it.
+        let smaller = want.min(1.0 - want);
+        assert!((got.lower - want).abs() < 1e-15 + 1e-8 * smaller, "{case}: {} vs {want}", got.lower);
+        assert!((got.upper - (1.0 - want)).abs() < 1e-15 + 1e-8 * smaller, "{case}");
     }
     for case in reference["quantiles"].as_array().unwrap() {
         let (shapes, scores) = (floats(&case["shapes"]), floats(&case["scores"]));
@@ -72,9 +74,9 @@ fn the_mean_score_law_matches_mpmaths_inversion_integral() {
         let want = case["t"].as_f64().unwrap();
         let lower = law.quantile(Tail::Lower, p);
         let upper = law.quantile(Tail::Upper, 1.0 - p);
-        // The bar is 1e-6 on the score scale; the quantiles hold 1e-10.
-        assert!((lower - want).abs() < 1e-10, "{case}: {lower} vs {want}");
-        assert!((upper - want).abs() < 1e-10, "{case}: {upper} vs {want}");
+        // The bar is 1e-6 on the score scale; the quantiles hold 1e-8.
+        assert!((lower - want).abs() < 1e-8, "{case}: {lower} vs {want}");
+        assert!((upper - want).abs() < 1e-8, "{case}: {upper} vs {want}");
     }
 }
 
@@ -270,8 +272,8 @@ fn bad_counts_and_options_are_refused_with_row_and_column() {
         "--by names 'one' twice, empty, or as the group or a level column",
     );
     run(
-        &["--level-counts", "one,two,three", "--report", "r.html"],
-        "--report does not apply to the dirichlet-multinomial model",
+        &["--level-counts", "one,two,three", "--report", "r.html", "--map", "m.geojson", "--map-key", "id"],
+        "--map does not apply to the dirichlet-multinomial model",
     );
 }
 

@@ -18,6 +18,14 @@ fn districts(dir: &Path, output: &str, extra: &[&str]) -> std::process::Output {
     ratepool(dir, &args)
 }
 
+/// An HTML page with no scripts and no external references.
+fn assert_self_contained(page: &str) {
+    assert!(page.starts_with("<!DOCTYPE html>"));
+    for outside in ["<script", " src=", "href=", "@import", "url("] {
+        assert!(!page.contains(outside), "the page holds {outside}");
+    }
+}
+
 fn read(dir: &Path, name: &str) -> String {
     std::fs::read_to_string(dir.join(name)).unwrap_or_else(|e| panic!("{name}: {e}"))
 }
@@ -39,11 +47,7 @@ fn fit_with_report_and_report_later_give_the_same_self_contained_page() {
     );
     assert!(out.status.success());
     assert_eq!(page, read(dir.path(), "again.html"));
-    // Self-contained: no scripts, no external references.
-    assert!(page.starts_with("<!DOCTYPE html>"));
-    for outside in ["<script", " src=", "href=", "@import", "url("] {
-        assert!(!page.contains(outside), "the page holds {outside}");
-    }
+    assert_self_contained(&page);
     for plot in PLOTS {
         assert!(page.contains(&format!("data-plot=\"{plot}\"")), "{plot} missing");
         let alone = read(&dir.path().join("plots"), &format!("{plot}.svg"));
@@ -232,4 +236,96 @@ fn a_free_prior_is_drawn_as_its_masses_beside_the_parametric_prior() {
     let prior = read(dir.path(), "plots/prior.svg");
     assert_eq!(prior.matches("stroke=\"#C4362C\"").count(), support, "{prior:.400}");
     assert!(prior.matches("stroke=\"#5A5A5A\"").count() >= 1);
+}
+
+/// The demo shops' star ratings by category, fitted in `dir` with flags and ranks.
+fn star_shops(dir: &Path, extra: &[&str]) -> std::process::Output {
+    let input = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/star_shops.csv");
+    let mut args =
+        vec!["--quiet", "fit", "--input", input.to_str().unwrap(), "--model", "dirichlet-multinomial"];
+    args.extend(["--group", "shop_id", "--level-counts", "stars_1,stars_2,stars_3,stars_4,stars_5"]);
+    args.extend(["--by", "category", "--above", "4.5", "--flag-fdr", "0.1", "--ranks"]);
+    args.extend(["--output", "shops.csv", "--summary", "shops.json"]);
+    args.extend(extra);
+    ratepool(dir, &args)
+}
+
+#[test]
+fn a_star_rating_report_lists_what_its_table_and_summary_say() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = star_shops(dir.path(), &["--report", "fit.html", "--plots", "plots"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let args = ["report", "--table", "shops.csv", "--summary", "shops.json", "--output", "later.html"];
+    let out = ratepool(dir.path(), &args);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let page = read(dir.path(), "fit.html");
+    assert_eq!(page, read(dir.path(), "later.html"), "the two ways give the same bytes");
+    assert_self_contained(&page);
+    for plot in ["shrinkage", "calibration", "pool-weights"] {
+        let alone = read(&dir.path().join("plots"), &format!("{plot}.svg"));
+        assert!(page.contains(&format!("data-plot=\"{plot}\"")) && page.contains(&alone), "{plot}");
+    }
+    let s = summary(&dir.path().join("shops.json"));
+    let table = Csv::read(&dir.path().join("shops.csv"));
+    let ids = table.column("shop_id");
+    // The seller that moved furthest, as the run's own pull summary names it, heads "Moved most".
+    assert_eq!(first_group(&page, "Moved most"), s["pull"]["max_shift_group"].as_str().unwrap());
+    // The top of the conservative ranking is rank 1 of rank_conservative.
+    let first = first_group(&page, "Top of the conservative ranking");
+    assert_eq!(table.column("rank_conservative")[ids.iter().position(|i| i == first).unwrap()], "1");
+    // The flag count is the summary's; every listed seller is flagged in the table.
+    let flagged = s["flags"]["groups_flagged"].as_u64().unwrap();
+    assert!(page.contains(&format!("{flagged} sellers flagged;")), "{flagged}");
+    let listed = &page[page.find("<h3>Flagged</h3>").unwrap()..];
+    let listed = &listed[..listed.find("</table>").unwrap()];
+    for id in listed.split("<tr><td>").skip(1).map(|r| r.split('<').next().unwrap()) {
+        assert_eq!(table.column("flagged")[ids.iter().position(|i| i == id).unwrap()], "true", "{id}");
+    }
+    // Each level's share of all ratings: its column's sum over all columns' sums.
+    let sums: Vec<f64> = (1..=5)
+        .map(|k| table.column(&format!("stars_{k}")).iter().map(|v| v.parse::<f64>().unwrap()).sum())
+        .collect();
+    let all: f64 = sums.iter().sum();
+    let levels = &page[page.find("<table id=\"levels\">").unwrap()..];
+    let levels = &levels[..levels.find("</table>").unwrap()];
+    for (k, row) in levels.split("<tr><td>").skip(1).enumerate() {
+        let cells: Vec<&str> = row.split("<td>").map(|c| c.split('<').next().unwrap()).collect();
+        assert_eq!(cells[0], format!("stars_{}", k + 1));
+        let shown: f64 = cells[4].parse().unwrap();
+        assert!((shown - sums[k] / all).abs() < 5e-4 * (sums[k] / all), "stars_{}: {shown}", k + 1);
+    }
+    // One row per segment of the summary, and the cautions of a ranked, flagged run.
+    let segments = s["segments"]["segments"].as_array().unwrap();
+    let section = &page[page.find("<section id=\"segments\">").unwrap()..];
+    assert_eq!(section[..section.find("</table>").unwrap()].matches("<tr><td>").count(), segments.len());
+    for words in [
+        "Ranks order groups by their estimated rate",
+        "A flag is a statement about a set",
+        "Results about small groups",
+    ] {
+        assert!(page.contains(words), "{words}");
+    }
+}
+
+#[test]
+fn a_star_rating_report_refuses_a_map_and_an_old_summary_and_writes_nothing() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = star_shops(dir.path(), &[]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let map = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/district_map.geojson");
+    let args = ["report", "--table", "shops.csv", "--summary", "shops.json", "--output", "r.html"];
+    let mut with_map = args.to_vec();
+    with_map.extend(["--map", map.to_str().unwrap(), "--map-key", "district_id"]);
+    assert_refused(
+        dir.path(),
+        &with_map,
+        "--map does not apply to the dirichlet-multinomial model",
+        "r.html",
+    );
+    // A summary from before the group column was named in it.
+    let mut old = summary(&dir.path().join("shops.json"));
+    old.as_object_mut().unwrap().remove("group_column");
+    write(dir.path(), "old.json", &old.to_string());
+    let args = ["report", "--table", "shops.csv", "--summary", "old.json", "--output", "r.html"];
+    assert_refused(dir.path(), &args, "does not name the group column", "r.html");
 }
