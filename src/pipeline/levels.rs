@@ -10,7 +10,7 @@
 //! posterior. Every output is staged and renamed into place at the end,
 //! all or nothing.
 
-use super::clock::go_on;
+use super::clock::PhaseClock;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
 use super::prior::{refuse_other_segments, POOR_FIT_P};
@@ -333,10 +333,12 @@ struct Counted {
 }
 
 /// Runs a star-rating job: reads, fits, scores, writes. Returns the
-/// summary. `observer` is asked at every batch whether to go on.
+/// summary. `observer` is told of each phase and of the rows through the
+/// passes, and asked at every batch whether to go on.
 pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<LevelSummary> {
+    let clock = &mut PhaseClock::start(observer);
     if let Some((outcome, values)) = &job.outcome {
-        return run_rating_rows(job, outcome, values, observer);
+        return run_rating_rows(job, outcome, values, clock);
     }
     let mut columns = vec![(job.group.as_str(), "group")];
     columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
@@ -346,7 +348,7 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
         refuse_other_segments(&saved.path, fitted, &job.segments)?;
     }
     let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
-    let counted = count_vectors(job, &input, observer)?;
+    let counted = count_vectors(job, &input, clock)?;
     if counted.rows == 0 {
         return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
     }
@@ -356,7 +358,7 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
     let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
     let mut staged = StagedOutputs::default();
     let (mut summary, columns, furthest) =
-        fit_and_score(job, &keyed, (counted.rows, counted.rejected), &mut staged)?;
+        fit_and_score(job, &keyed, (counted.rows, counted.rejected), &mut staged, clock)?;
     // Pass 2 needs the columns and the keys' places, not the table (73 MB at 10M sellers).
     drop(keyed);
     let found = Found {
@@ -367,7 +369,8 @@ pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<Leve
         rows: counted.rows,
     };
     summary.pull.max_shift_group =
-        write_groups(job, &input, columns, (found, furthest), (&mut staged, observer))?;
+        write_groups(job, &input, columns, (found, furthest), (&mut staged, clock))?;
+    clock.lap("pass-2", "pass 2: read, score, write")?;
     commit(job, &summary, staged)?;
     Ok(summary)
 }
@@ -524,6 +527,7 @@ fn fit_and_score(
     keyed: &Keyed,
     (rows, rejected): (usize, usize),
     staged: &mut StagedOutputs,
+    clock: &mut PhaseClock<'_>,
 ) -> Result<(LevelSummary, PairColumns, Option<u32>)> {
     let table = &keyed.table;
     if table.is_empty() {
@@ -533,8 +537,11 @@ fn fit_and_score(
         )));
     }
     let priors = fit_priors(job, keyed)?;
+    clock.lap("fit", &format!("fit ({} distinct count vectors)", table.len()))?;
     let scored = score_vectors(job, keyed, &priors);
+    clock.lap("posteriors", "posteriors (each vector's mean score interval)")?;
     let (mut summary, furthest) = summarise(job, keyed, &priors, &scored, (rows, rejected));
+    clock.lap("summary", "summary and calibration check")?;
     if let Some(saved) = &job.prior {
         // The prior's figures as fitted, not recomputed from the scored groups.
         summary.prior_file = Some(saved.path.display().to_string());
@@ -588,7 +595,7 @@ fn run_rating_rows(
     job: &LevelJob,
     outcome: &str,
     values: &[String],
-    observer: &mut dyn RunObserver,
+    clock: &mut PhaseClock<'_>,
 ) -> Result<LevelSummary> {
     let mut columns = vec![(job.group.as_str(), "group"), (outcome, "outcome")];
     columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
@@ -606,7 +613,6 @@ fn run_rating_rows(
         InvalidRows::Fail => None,
     };
     input.for_each_batch(|batch| {
-        go_on(observer)?;
         let group = GroupColumn::of(&batch.columns[0])?;
         let segment_columns = SegmentColumns::of(&batch.columns[2..])?;
         integer_ids &= matches!(group, GroupColumn::Integers(_));
@@ -652,6 +658,7 @@ fn run_rating_rows(
             }
         }
         rows = batch.first_row + batch.rows();
+        clock.rows("read and count", rows, input.known_rows())?;
         if let Some((sink, held)) = &mut rejects {
             if !held.rows.is_empty() {
                 sink.write(held.take_columns(job, outcome))?;
@@ -663,6 +670,7 @@ fn run_rating_rows(
         return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
     }
     drop(groups);
+    clock.lap("read-and-count", &format!("read and count the ratings ({} groups)", ids.len()))?;
     let segmented = !segments.is_empty();
     let mut vectors = VectorIndex::new(levels + usize::from(segmented));
     let key_of = |g: usize, key: &mut Vec<f64>| {
@@ -679,7 +687,7 @@ fn run_rating_rows(
     }
     let (keyed, place) = Keyed::of(levels, &vectors, &segments);
     let mut staged = StagedOutputs::default();
-    let (mut summary, columns, furthest) = fit_and_score(job, &keyed, (rows, rejected), &mut staged)?;
+    let (mut summary, columns, furthest) = fit_and_score(job, &keyed, (rows, rejected), &mut staged, clock)?;
     drop(keyed);
     let vector_of_group: Vec<u32> = (0..ids.len())
         .map(|g| {
@@ -701,6 +709,7 @@ fn run_rating_rows(
         sink.write(held.take_columns(job, outcome))?;
         staged.add(sink.finish()?);
     }
+    clock.lap("write", "write the groups")?;
     commit(job, &summary, staged)?;
     Ok(summary)
 }
@@ -754,13 +763,12 @@ fn describe_failure(job: &LevelJob, failure: &LevelFitFailure) -> String {
 }
 
 /// Pass 1 (and the repeated-id check): the distinct vectors of the valid rows.
-fn count_vectors(job: &LevelJob, input: &Input, observer: &mut dyn RunObserver) -> Result<Counted> {
+fn count_vectors(job: &LevelJob, input: &Input, clock: &mut PhaseClock<'_>) -> Result<Counted> {
     let width = job.levels.len() + usize::from(!job.segments.is_empty());
     let mut counted = Counted { vectors: VectorIndex::new(width), ..Counted::default() };
     let mut ids = IdHashes::new(job.id_memory, input.known_rows().unwrap_or(0));
     let (mut vector, mut key) = (Vec::with_capacity(job.levels.len()), Vec::with_capacity(width));
     input.for_each_batch(|batch| {
-        go_on(observer)?;
         let view = LevelBatch::of(&batch, job)?;
         for row in 0..batch.rows() {
             if !view.group.is_missing(row) {
@@ -777,10 +785,12 @@ fn count_vectors(job: &LevelJob, input: &Input, observer: &mut dyn RunObserver) 
             }
         }
         counted.rows = batch.first_row + batch.rows();
-        Ok(())
+        clock.rows("pass 1 of 2", counted.rows, input.known_rows())
     })?;
+    clock.lap("pass-1", "pass 1: read, validate, count the count vectors")?;
     let candidates = ids.repeated().map_err(spill_failed)?;
     if candidates.is_empty() {
+        clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat")?;
         return Ok(counted);
     }
     let mut finder = RepeatFinder::new(candidates);
@@ -806,6 +816,7 @@ fn count_vectors(job: &LevelJob, input: &Input, observer: &mut dyn RunObserver) 
         Ok(())
     })?;
     counted.repeats = finder.finish();
+    clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat")?;
     Ok(counted)
 }
 
@@ -1003,7 +1014,7 @@ fn write_groups(
     input: &Input,
     columns: PairColumns,
     (found, furthest): (Found, Option<u32>),
-    (staged, observer): (&mut StagedOutputs, &mut dyn RunObserver),
+    (staged, clock): (&mut StagedOutputs, &mut PhaseClock<'_>),
 ) -> Result<Option<String>> {
     let Found { vectors, mut segments, place, repeats, rows } = found;
     let mut furthest_group = None;
@@ -1016,7 +1027,6 @@ fn write_groups(
     let (mut vector, mut key) = (Vec::with_capacity(job.levels.len()), Vec::new());
     let mut seen = 0;
     input.for_each_batch(|batch| {
-        go_on(observer)?;
         let view = LevelBatch::of(&batch, job)?;
         let (mut kept, mut vector_of_row) = (Vec::new(), Vec::new());
         for row in 0..batch.rows() {
@@ -1057,7 +1067,7 @@ fn write_groups(
         if seen > rows {
             return Err(changed());
         }
-        Ok(())
+        clock.rows("pass 2 of 2", seen, Some(rows))
     })?;
     if seen != rows {
         return Err(changed());

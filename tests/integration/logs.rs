@@ -116,3 +116,39 @@ fn without_a_terminal_nothing_but_the_asked_for_reaches_stderr() {
     // No progress bar (stderr is a pipe here), no control characters.
     assert!(stderr(&out).is_empty(), "{:?}", stderr(&out));
 }
+
+#[test]
+fn a_star_rating_run_logs_its_phases_too() {
+    // Both layouts: a count per level, and one row per rating.
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "counts.csv", "id,s1,s2,s3\na,1,0,3\nb,0,2,2\nc,4,1,0\nd,0,0,5\ne,1,1,1\nf,2,0,0\n");
+    write(dir.path(), "ratings.csv", "id,stars\na,1\na,3\nb,2\nb,3\nc,1\nc,1\nd,3\ne,2\nf,3\nf,1\n");
+    let common =
+        ["--model", "dirichlet-multinomial", "--group", "id", "--output", "out.csv", "--summary", "s.json"];
+    let runs: [(&[&str], &[&str], u64); 2] = [
+        (
+            &["--input", "counts.csv", "--level-counts", "s1,s2,s3"],
+            &["pass-1", "repeated-ids", "fit", "posteriors", "summary", "pass-2"],
+            6,
+        ),
+        (
+            &["--input", "ratings.csv", "--outcome", "stars", "--levels", "1,2,3"],
+            &["read-and-count", "fit", "posteriors", "summary", "write"],
+            10,
+        ),
+    ];
+    for (input, expected, rows) in runs {
+        let mut args = vec!["--log-format", "json", "fit"];
+        args.extend(input);
+        args.extend(common);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        let events = lines(&stderr(&out));
+        let phases: Vec<&Value> = events.iter().filter(|e| e["event"] == "phase").collect();
+        let names: Vec<&str> = phases.iter().map(|e| e["name"].as_str().unwrap()).collect();
+        assert_eq!(names, expected);
+        assert!(phases.iter().all(|p| p["seconds"].as_f64().unwrap() >= 0.0));
+        assert_eq!(phases[0]["rows"].as_u64(), Some(rows), "{:?}", phases[0]);
+        assert_eq!(events.last().unwrap()["status"], "ok");
+    }
+}
