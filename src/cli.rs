@@ -1552,7 +1552,7 @@ fn run_level_job(
             seed: job.seed,
             map: None,
         })
-        .map_err(|e| Error::Other(format!("the table and summary were written, but not the report: {e}")))?;
+        .map_err(report_failed)?;
         outputs.push(html.clone());
         outputs.extend(table.plots.clone());
     }
@@ -1563,22 +1563,40 @@ fn run_level_job(
 /// star-rating fit's summary (told by its `model` key); None for any other
 /// model's summary, which the score reads as its own.
 fn saved_level_prior(prior: &Path) -> Result<Option<crate::summary::LevelSummary>> {
-    level_summary_in(prior, "prior file")
+    Ok(match read_summary(prior, "prior file")? {
+        SummaryFile::Levels(summary) => Some(*summary),
+        SummaryFile::Scalar(_) => None,
+    })
 }
 
-/// The star-rating summary in `path` (the `role` it plays, for messages),
-/// or None when it is another model's summary.
-fn level_summary_in(path: &Path, role: &str) -> Result<Option<crate::summary::LevelSummary>> {
-    let not_summary = |e: &dyn std::fmt::Display| {
-        Error::Input(format!("{}: not a ratepool summary file: {e}", path.display()))
-    };
+/// A report that failed after its run's table and summary were committed.
+fn report_failed(e: Error) -> Error {
+    Error::Other(format!("the table and summary were written, but not the report: {e}"))
+}
+
+/// A summary file, read once: a star-rating run's, or any other model's
+/// (left as JSON until it is wanted, [`not_a_summary`] its fault).
+enum SummaryFile {
+    Levels(Box<crate::summary::LevelSummary>),
+    Scalar(serde_json::Value),
+}
+
+/// The fault of a file that is not a summary.
+fn not_a_summary(path: &Path, e: &dyn std::fmt::Display) -> Error {
+    Error::Input(format!("{}: not a ratepool summary file: {e}", path.display()))
+}
+
+/// The summary in `path` (the `role` it plays, for messages), told apart by its `model` key.
+fn read_summary(path: &Path, role: &str) -> Result<SummaryFile> {
     let text = std::fs::read_to_string(path)
         .map_err(|e| Error::Input(format!("{}: cannot read the {role}: {e}", path.display())))?;
-    let value: serde_json::Value = serde_json::from_str(&text).map_err(|e| not_summary(&e))?;
+    let value: serde_json::Value = serde_json::from_str(&text).map_err(|e| not_a_summary(path, &e))?;
     if value.get("model").and_then(serde_json::Value::as_str) != Some(crate::pipeline::levels::MODEL_NAME) {
-        return Ok(None);
+        return Ok(SummaryFile::Scalar(value));
     }
-    serde_json::from_value(value).map(Some).map_err(|e| not_summary(&e))
+    serde_json::from_value(value)
+        .map(|s| SummaryFile::Levels(Box::new(s)))
+        .map_err(|e| not_a_summary(path, &e))
 }
 
 impl Command {
@@ -1623,9 +1641,14 @@ fn run_report(args: &ReportArgs) -> Result<()> {
             map,
         }
     }
-    match level_summary_in(&args.summary, "summary file")? {
-        Some(stars) => crate::view::levels::write_level_report(&request(args, &stars, shown.as_ref())),
-        None => crate::view::write_report(&request(args, &load_summary(&args.summary)?, shown.as_ref())),
+    match read_summary(&args.summary, "summary file")? {
+        SummaryFile::Levels(stars) => {
+            crate::view::levels::write_level_report(&request(args, &stars, shown.as_ref()))
+        }
+        SummaryFile::Scalar(value) => {
+            let summary = serde_json::from_value(value).map_err(|e| not_a_summary(&args.summary, &e))?;
+            crate::view::write_report(&request(args, &summary, shown.as_ref()))
+        }
     }
 }
 
@@ -1988,9 +2011,7 @@ impl Command {
                 seed: job.seed,
                 map: shown.as_ref(),
             })
-            .map_err(|e| {
-                Error::Other(format!("the table and summary were written, but not the report: {e}"))
-            })?;
+            .map_err(report_failed)?;
             outputs.push(html);
             outputs.extend(plots);
         }

@@ -304,6 +304,11 @@ pub fn area_values(
     Ok(out)
 }
 
+/// Counts a pool weight in its bin of [`POOL_BINS`] equal bins over [0, 1].
+pub(super) fn count_pool_weight(bins: &mut [u64], pool_weight: f64) {
+    bins[((pool_weight * POOL_BINS as f64) as usize).min(POOL_BINS - 1)] += 1;
+}
+
 /// The number in column `i` of `numbers` at `row`, when present and finite.
 pub(super) fn number_at(numbers: &[Float64Array], i: usize, row: usize) -> Option<f64> {
     Some(numbers[i].value(row)).filter(|v| numbers[i].is_valid(row) && v.is_finite())
@@ -429,8 +434,7 @@ pub fn collect(table: &Path, summary: &Summary, model: Model, seed: u64) -> Resu
             if x > 0.0 {
                 out.funnel_range = (out.funnel_range.0.min(x), out.funnel_range.1.max(x));
             }
-            let bin = ((pool_weight * POOL_BINS as f64) as usize).min(POOL_BINS - 1);
-            out.pool_weights[bin] += 1;
+            count_pool_weight(&mut out.pool_weights, pool_weight);
             if let (Some(raw), true) = (raw, pool_weight <= WELL_MEASURED) {
                 out.well_measured_count += 1;
                 if let Some(slot) = raw_sample.slot(&mut rng) {

@@ -3,10 +3,12 @@
 //! table in bounded memory (a seeded sample for the scatter plot, the few
 //! sellers each table lists, histograms, and the observed level totals).
 
-use super::collect::{missing_in_table, number_at, GroupRow, Listed, Reservoir, POOL_BINS, SAMPLE};
+use super::collect::{
+    count_pool_weight, missing_in_table, number_at, GroupRow, Listed, Reservoir, POOL_BINS, SAMPLE,
+};
 use super::page::{
-    borrowed_caution, escape, figure_html, flag_caution, listed_tables, num, TableHeadings, TableWords,
-    DISCLOSURE_CAUTION, RANKING_CAUTION, STYLE,
+    borrowed_caution, close_page, escape, flag_caution, listed_tables, num, open_page, plots_section,
+    segment_test_line, warning_items, TableHeadings, TableWords, DISCLOSURE_CAUTION, RANKING_CAUTION,
 };
 use super::{plots, refuse_other_run, write_page, Figure, ReportRequest};
 use crate::error::{Error, Result};
@@ -115,8 +117,7 @@ pub fn collect_levels(table: &Path, summary: &LevelSummary, seed: u64) -> Result
                 segment: 0,
             };
             let build = || GroupRow { id: ids.text(row), ..probe.clone() };
-            let bin = ((pool_weight * POOL_BINS as f64) as usize).min(POOL_BINS - 1);
-            out.pool_weights[bin] += 1;
+            count_pool_weight(&mut out.pool_weights, pool_weight);
             if raw.is_some() {
                 if let Some(slot) = sample.slot(&mut rng) {
                     sample.put(slot, build());
@@ -249,13 +250,7 @@ fn segment_table(summary: &LevelSummary, out: &mut String) {
     let Some(segments) = &summary.segments else { return };
     let _ = writeln!(out, "<section id=\"segments\"><h2>Segments</h2>");
     if let Some(test) = &summary.segment_test {
-        let _ = writeln!(
-            out,
-            "<p>One prior for all sellers against one per segment: likelihood ratio {} on {} df, {}.</p>",
-            num(test.statistic),
-            test.degrees_of_freedom,
-            escape(&p_value_text(test.p_value))
-        );
+        segment_test_line(test, "sellers", out);
     }
     let _ = write!(out, "<table><thead><tr>");
     for column in &segments.columns {
@@ -291,12 +286,7 @@ fn segment_table(summary: &LevelSummary, out: &mut String) {
 /// The whole star-rating page.
 pub fn render_levels(summary: &LevelSummary, collected: &LevelCollected, figures: &[Figure]) -> String {
     let mut out = String::new();
-    let title = format!("ratepool report: {} groups, {}", collected.groups, summary.model);
-    let _ = writeln!(
-        out,
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{0}</title><style>{STYLE}</style></head><body>\n<h1>{0}</h1>",
-        escape(&title)
-    );
+    open_page(&format!("ratepool report: {} groups, {}", collected.groups, summary.model), &mut out);
     let prior = match summary.strength {
         Some(strength) => format!(
             "{}, mean score {} (se {}), strength {} (se {})",
@@ -346,13 +336,9 @@ pub fn render_levels(summary: &LevelSummary, collected: &LevelCollected, figures
             escape(&p_value_text(checks.calibration.p_value))
         );
     }
-    for warning in &summary.warnings {
-        let _ = writeln!(out, "<li class=\"warning\">Warning: {}</li>", escape(warning));
-    }
-    let _ = writeln!(out, "</ul></section><section id=\"plots\"><h2>Plots</h2>");
-    for figure in figures {
-        figure_html(figure, &mut out);
-    }
+    warning_items(&summary.warnings, &mut out);
+    let _ = writeln!(out, "</ul></section>");
+    plots_section(figures, &mut out);
     let words = TableWords {
         groups: "sellers",
         moved: "posterior mean score is furthest from their raw mean: mostly sellers with few ratings",
@@ -368,13 +354,10 @@ pub fn render_levels(summary: &LevelSummary, collected: &LevelCollected, figures
     );
     let _ = writeln!(out, "</section>");
     segment_table(summary, &mut out);
-    let _ = writeln!(out, "<section id=\"cautions\"><h2>Cautions</h2><ul>");
-    for caution in level_cautions(summary) {
-        let _ = writeln!(out, "<li>{}</li>", escape(&caution));
-    }
-    let _ = writeln!(
-        out,
-        "</ul><p>The scatter plot shows at most {SAMPLE} sellers, drawn with a fixed seed, so the same inputs give the same page.</p></section></body></html>"
+    close_page(
+        &level_cautions(summary),
+        &format!("The scatter plot shows at most {SAMPLE} sellers, drawn with a fixed seed, so the same inputs give the same page."),
+        &mut out,
     );
     out
 }

@@ -7,7 +7,8 @@ use super::Figure;
 use crate::core::model::{Model, RateLaw};
 use crate::error::Result;
 use crate::summary::{
-    p_value_figure, p_value_text, ChecksReport, FittedPrior, FlagReport, Summary, MIN_GROUPS_TO_JUDGE,
+    p_value_figure, p_value_text, ChecksReport, FittedPrior, FlagReport, SegmentTest, Summary,
+    MIN_GROUPS_TO_JUDGE,
 };
 use std::fmt::Write;
 
@@ -341,9 +342,7 @@ fn diagnostics(summary: &Summary, out: &mut String) {
             num(flags.expected_false_flags)
         );
     }
-    for warning in &summary.warnings {
-        let _ = writeln!(out, "<li class=\"warning\">Warning: {}</li>", escape(warning));
-    }
+    warning_items(&summary.warnings, out);
     let _ = writeln!(out, "</ul></section>");
 }
 
@@ -473,7 +472,7 @@ fn group_table(title: &str, note: &str, rows: &[&GroupRow], headings: &TableHead
     let _ = writeln!(out, "</tbody></table>");
 }
 
-pub(super) fn figure_html(figure: &Figure, out: &mut String) {
+fn figure_html(figure: &Figure, out: &mut String) {
     let _ = writeln!(
         out,
         "<figure class=\"plot{4}\" id=\"plot-{0}\" data-plot=\"{0}\"><h3>{1}</h3>{2}<figcaption>{3}</figcaption></figure>",
@@ -543,7 +542,7 @@ pub(super) fn borrowed_caution(borrowed: usize, segments: usize) -> String {
     format!("{borrowed} of {segments} segments had too few groups or no fit of their own and borrow the all-groups prior: their groups are pulled toward all groups, not toward their own kind.")
 }
 
-pub(super) const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}\
+const STYLE: &str = "body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}\
 h1{font-size:1.6em}h2{margin-top:2em;border-bottom:1px solid #ccc}\
 figure.plot{display:inline-block;vertical-align:top;width:calc(50% - 1em);margin:0 1em 1.5em 0}\
 figure.plot svg{width:100%;height:auto}figure.plot.wide{width:calc(100% - 1em)}@media (max-width:900px){figure.plot{width:100%}}\
@@ -560,14 +559,7 @@ pub fn render(
     segment_figures: &[Option<Figure>],
 ) -> String {
     let mut out = String::new();
-    let _ = writeln!(
-        out,
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>ratepool report: {} groups, {}</title><style>{STYLE}</style></head><body>",
-        collected.groups,
-        escape(&summary.model)
-    );
-    let _ =
-        writeln!(out, "<h1>ratepool report: {} groups, {}</h1>", collected.groups, escape(&summary.model));
+    open_page(&format!("ratepool report: {} groups, {}", collected.groups, summary.model), &mut out);
     let _ = writeln!(
         out,
         "<section id=\"overview\"><dl><dt>groups</dt><dd>{}</dd><dt>rows read</dt><dd>{} ({} rejected)</dd><dt>prior</dt><dd>{}</dd><dt>pool weight</dt><dd>mean {}, median {}, 10th to 90th percentile {} to {}</dd><dt>rank correlation, raw and posterior</dt><dd>{}</dd></dl></section>",
@@ -592,10 +584,7 @@ pub fn render(
         summary.pull.rank_correlation.map_or("n/a".into(), num)
     );
     diagnostics(summary, &mut out);
-    let _ = writeln!(out, "<section id=\"plots\"><h2>Plots</h2>");
-    for figure in figures {
-        figure_html(figure, &mut out);
-    }
+    plots_section(figures, &mut out);
     let words = TableWords {
         groups: "groups",
         moved: "posterior mean is furthest from their raw value: mostly groups with little data",
@@ -613,28 +602,63 @@ pub fn render(
     if !summary.segments.is_empty() {
         segments(summary, model, segment_figures, &mut out);
     }
-    let _ = writeln!(out, "<section id=\"cautions\"><h2>Cautions</h2><ul>");
-    for caution in cautions(summary) {
-        let _ = writeln!(out, "<li>{}</li>", escape(&caution));
-    }
-    let _ = writeln!(
-        out,
-        "</ul><p>Scatter plots show at most {SAMPLE} groups, drawn with a fixed seed, so the same inputs give the same page.</p></section></body></html>"
+    close_page(
+        &cautions(summary),
+        &format!("Scatter plots show at most {SAMPLE} groups, drawn with a fixed seed, so the same inputs give the same page."),
+        &mut out,
     );
     out
+}
+
+/// The page's head and heading, `title` in both.
+pub(super) fn open_page(title: &str, out: &mut String) {
+    let title = escape(title);
+    let _ = writeln!(
+        out,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{title}</title><style>{STYLE}</style></head><body>\n<h1>{title}</h1>"
+    );
+}
+
+/// The warnings, as items of the diagnostics' list.
+pub(super) fn warning_items(warnings: &[String], out: &mut String) {
+    for warning in warnings {
+        let _ = writeln!(out, "<li class=\"warning\">Warning: {}</li>", escape(warning));
+    }
+}
+
+/// The plots section's heading and figures (the tables' section closes it).
+pub(super) fn plots_section(figures: &[Figure], out: &mut String) {
+    let _ = writeln!(out, "<section id=\"plots\"><h2>Plots</h2>");
+    for figure in figures {
+        figure_html(figure, out);
+    }
+}
+
+/// The one-prior-against-one-per-segment test, of `groups` (plural).
+pub(super) fn segment_test_line(test: &SegmentTest, groups: &str, out: &mut String) {
+    let _ = writeln!(
+        out,
+        "<p>One prior for all {groups} against one per segment: likelihood ratio {} on {} df, {}.</p>",
+        num(test.statistic),
+        test.degrees_of_freedom,
+        escape(&p_value_text(test.p_value))
+    );
+}
+
+/// The cautions section, `note` after the list, and the page's end.
+pub(super) fn close_page(cautions: &[String], note: &str, out: &mut String) {
+    let _ = writeln!(out, "<section id=\"cautions\"><h2>Cautions</h2><ul>");
+    for caution in cautions {
+        let _ = writeln!(out, "<li>{}</li>", escape(caution));
+    }
+    let _ = writeln!(out, "</ul><p>{}</p></section></body></html>", escape(note));
 }
 
 /// The segments: a table of all, then a section each for the first few.
 fn segments(summary: &Summary, model: Model, segment_figures: &[Option<Figure>], out: &mut String) {
     let _ = writeln!(out, "<section id=\"segments\"><h2>Segments</h2>");
     if let Some(test) = &summary.segment_test {
-        let _ = writeln!(
-            out,
-            "<p>One prior for all groups against one per segment: likelihood ratio {} on {} df, {}.</p>",
-            num(test.statistic),
-            test.degrees_of_freedom,
-            escape(&p_value_text(test.p_value))
-        );
+        segment_test_line(test, "groups", out);
     }
     let _ = writeln!(
         out,

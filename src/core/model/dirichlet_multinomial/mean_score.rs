@@ -38,7 +38,7 @@ use crate::core::quantile::{beta_quantile, Tail};
 const FIRST_STEP: f64 = 0.5;
 /// Two successive steps agreeing to this, relative, end the halving: the
 /// rule's error falls as exp(−c/h), so halving the step squares it, and
-/// the finer of two sums that agree to 1e-7 is good to about 1e-14.
+/// the finer of two sums that agree to 1e-4 is good to about 1e-8.
 const AGREEMENT: f64 = 1e-4;
 /// The fewest halvings (steps of 0.25 at least are taken).
 const MIN_HALVINGS: u32 = 1;
@@ -90,7 +90,7 @@ impl MeanScoreLaw<'_> {
     }
 
     /// Where the quantile search starts: the root of the saddlepoint
-    /// approximation's tail (`saddlepoint_tails`) by the secant method, from
+    /// approximation's tail ([`Self::saddlepoint_tail`]) by the secant method, from
     /// the Beta on the scores' range with M's mean and variance (that Beta
     /// alone where the approximation fails, near the mean). The saddlepoint
     /// start is usually within 1e-3 sd, so that Halley's first step ends the
@@ -175,27 +175,14 @@ impl MeanScoreLaw<'_> {
             }
             k
         };
-        let mut s = if *saddle > below && *saddle < above { *saddle } else { 0.0 };
-        for _ in 0..100 {
+        let start = if *saddle > below && *saddle < above { *saddle } else { 0.0 };
+        let s = rising_root((below, above), start, (1e-10, 100), |s| {
             let [first, second, ..] = slopes(s);
-            if first > 0.0 {
-                above = s;
-            } else {
-                below = s;
-            }
-            let mut next = s - first / second;
-            if !(next > below && next < above) {
-                next = 0.5 * (below + above);
-            }
-            let done = (next - s).abs() <= 1e-10 * s.abs().max(1e-300);
-            s = next;
-            if done {
-                break;
-            }
-        }
+            (first, second)
+        });
         *saddle = s;
         let [_, second, third, fourth] = slopes(s);
-        let k = -self.shapes.iter().zip(weights()).map(|(b, w)| b * (-w * s).ln_1p()).sum::<f64>();
+        let k = cumulant_generating(self.shapes.iter().copied().zip(weights()), s);
         let w = s.signum() * (-2.0 * k).max(0.0).sqrt();
         let u = s * second.sqrt();
         if !(w.abs() > 1e-3 && u.is_finite() && u != 0.0) {
@@ -267,7 +254,7 @@ impl MeanScoreLaw<'_> {
     /// error (about 1e-10 in probability) bounds the rest.
     pub fn quantile(&self, tail: Tail, p: f64) -> f64 {
         if let Some(share) = self.as_beta() {
-            return share.from + share.width * beta_quantile(share.a, share.b, tail, p);
+            return share.quantile(tail, p);
         }
         self.quantile_from(tail, p, self.start(tail, p))
     }
@@ -339,6 +326,48 @@ impl BetaShare {
         let density = ln_beta_kernel(self.a, self.b, x, y).exp() / (x * y * self.width);
         AtThreshold { lower: tails.lower, upper: tails.upper, density, slope: 0.0 }
     }
+
+    /// The Beta's own quantile, on the scores' scale.
+    fn quantile(&self, tail: Tail, p: f64) -> f64 {
+        self.from + self.width * beta_quantile(self.a, self.b, tail, p)
+    }
+}
+
+/// K(s) = −Σ β ln(1 − w s), the cumulant generating function of Σ w G
+/// with G ~ Gamma(β, 1), from its (β, w) pairs.
+fn cumulant_generating(terms: impl Iterator<Item = (f64, f64)>, s: f64) -> f64 {
+    -terms.map(|(b, w)| b * (-w * s).ln_1p()).sum::<f64>()
+}
+
+/// The root in (below, above) of a function that rises across it, from
+/// `start`: Newton's method, a step that would leave the bracket halving
+/// it instead, until a step is within `tolerance` of the point, relative,
+/// or after `iterations`. `slopes` gives the function and its derivative.
+fn rising_root(
+    (mut below, mut above): (f64, f64),
+    start: f64,
+    (tolerance, iterations): (f64, usize),
+    slopes: impl Fn(f64) -> (f64, f64),
+) -> f64 {
+    let mut x = start;
+    for _ in 0..iterations {
+        let (value, slope) = slopes(x);
+        if value > 0.0 {
+            above = x;
+        } else {
+            below = x;
+        }
+        let mut next = x - value / slope;
+        if !(next > below && next < above) {
+            next = 0.5 * (below + above);
+        }
+        let done = (next - x).abs() <= tolerance * x.abs().max(1e-300);
+        x = next;
+        if done {
+            break;
+        }
+    }
+    x
 }
 
 /// The line Re z = c the inversion integral runs along, with what the
@@ -379,31 +408,14 @@ impl<'a> Line<'a> {
             }
             (first, second)
         };
-        // h'(c) rises from −∞ (or +∞ side) at 0 to the other sign at the edge:
-        // a safeguarded Newton search in the bracket (0, edge), to a few digits
-        // (the integral is exact on any line in the strip; the saddle only
-        // makes it quick).
-        let (mut near, mut far) = (0.0, edge);
-        let mut c = 0.5 * edge;
-        for _ in 0..60 {
-            let (first, second) = derivatives(c);
-            if first * side > 0.0 {
-                far = c;
-            } else {
-                near = c;
-            }
-            let mut next = c - first / second;
-            if !((next - near) * side > 0.0 && (far - next) * side > 0.0) {
-                next = 0.5 * (near + far);
-            }
-            let done = (next - c).abs() <= 1e-6 * c.abs();
-            c = next;
-            if done {
-                break;
-            }
-        }
+        // h'(c) rises across the bracket between 0 and the edge (from −∞ to
+        // the other sign, or to +∞): Newton's search kept in it, to a few
+        // digits (the integral is exact on any line in the strip; the saddle
+        // only makes it quick).
+        let bracket = if side > 0.0 { (0.0, edge) } else { (edge, 0.0) };
+        let c = rising_root(bracket, 0.5 * edge, (1e-6, 60), derivatives);
         let (_, second) = derivatives(c);
-        let ln_mgf_at_c = -law.shapes.iter().zip(&weights).map(|(b, w)| b * (-w * c).ln_1p()).sum::<f64>();
+        let ln_mgf_at_c = cumulant_generating(law.shapes.iter().copied().zip(weights.iter().copied()), c);
         let decay = law.shapes.iter().zip(&weights).filter(|(_, w)| **w != 0.0).map(|(b, _)| b).sum();
         Line { law, weights, c, sigma: 1.0 / second.sqrt(), ln_mgf_at_c, decay }
     }
