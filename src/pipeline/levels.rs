@@ -15,13 +15,14 @@ use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
 use super::prior::{refuse_other_segments, POOR_FIT_P};
 use super::scoring::{pull_report, rank_columns, rank_order_words};
-use super::segments::{compare_keys, segment_pair_values, SegmentColumns, SegmentIndex, SegmentKey};
+use super::segments::{
+    compare_keys, segment_likelihood_ratio, segment_pair_values, SegmentColumns, SegmentIndex, SegmentKey,
+};
 use super::validate::{cell_text, row_fault, whole_count, Rejection, MISSING_GROUP};
 use super::RunObserver;
 use super::{FlagEvent, FlagRule, InvalidRows, Level, Thresholds};
 use crate::core::diagnostics::{calibration_by_places, PairOutcome};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
-use crate::core::incomplete::gamma_tails;
 use crate::core::model::dirichlet_multinomial::replicates::{predictive_place, REPLICATES};
 use crate::core::model::dirichlet_multinomial::{
     fit_levels, log_marginal_at, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit,
@@ -1265,13 +1266,7 @@ fn segment_reports(
 /// segment: K shapes per segment with its own prior, less the K of the
 /// all-groups prior when no segment falls back to it.
 fn segment_test(job: &LevelJob, priors: &LevelPriors) -> Option<SegmentTest> {
-    let levels = job.levels.len();
     let own = priors.segments.iter().filter(|c| c.fit.is_ok()).count();
-    let fallbacks = priors.segments.len() - own;
-    let degrees = levels * own - if fallbacks == 0 { levels } else { 0 };
-    if own == 0 || degrees == 0 {
-        return None;
-    }
     let segmented: f64 = priors
         .segments
         .iter()
@@ -1280,13 +1275,13 @@ fn segment_test(job: &LevelJob, priors: &LevelPriors) -> Option<SegmentTest> {
             Err(_) => log_marginal_at(&choice.table, &priors.all.prior),
         })
         .sum();
-    let statistic = (2.0 * (segmented - priors.all.log_marginal_likelihood)).max(0.0);
-    Some(SegmentTest {
-        name: "likelihood ratio: one prior for all groups against one per segment".to_string(),
-        statistic,
-        degrees_of_freedom: degrees as u64,
-        p_value: gamma_tails(degrees as f64 / 2.0, statistic / 2.0).upper,
-    })
+    let fallbacks = priors.segments.len() - own;
+    segment_likelihood_ratio(
+        job.levels.len(),
+        (own, fallbacks),
+        segmented,
+        priors.all.log_marginal_likelihood,
+    )
 }
 
 /// The summary's word for a prior's law.

@@ -11,7 +11,7 @@
 
 use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, PlainFit};
 use super::neighbours::{neighbour_cell_priors, AllAreas, AreaTable};
-use super::segments::{SegmentKey, SegmentPairs};
+use super::segments::{segment_likelihood_ratio, SegmentKey, SegmentPairs};
 use super::{
     FlagEvent, Intervals, Job, Model, PhaseClock, PriorShape, PriorSource, TopChoice, TopRule, DRAW_BUDGET,
 };
@@ -20,7 +20,6 @@ use crate::core::diagnostics::Pull;
 use crate::core::fit::{
     evaluate, fit_by, pooled_log_likelihood, Boundary, Fit, FitFailure, Likelihood, PoolingTest,
 };
-use crate::core::incomplete::gamma_tails;
 use crate::core::model::free::{fit_free, FreeFit, FreePrior, Spacing};
 use crate::core::model::{
     corrected_posterior, corrected_tails, Family, FamilyVisitor, Posterior, Prior, PriorUncertainty, RateLaw,
@@ -1075,23 +1074,15 @@ impl<F: Family> PriorPoint<F> {
 }
 
 /// The likelihood-ratio test of one prior for all groups against the priors
-/// per segment as used: twice the gain in log marginal likelihood, on two
-/// degrees of freedom per segment with a prior of its own, less the two of
-/// the all-groups prior when every segment has its own (when some fall
-/// back, they share the all-groups prior, whose two parameters stay). The
-/// p-value is the upper tail of the chi-square distribution (Wilks); where
-/// a segment sits at the boundary of no overdispersion it is conservative.
+/// per segment as used ([`segment_likelihood_ratio`], two parameters a
+/// prior); where a segment sits at the boundary of no overdispersion it is
+/// conservative.
 fn likelihood_ratio_test<F: Family>(
     all: &Chosen,
     choices: &[std::result::Result<Chosen, String>],
     segments: &[SegmentPairs],
 ) -> Option<SegmentTest> {
     let own = choices.iter().filter(|c| c.is_ok()).count();
-    let fallbacks = choices.len() - own;
-    let degrees = 2 * own - if fallbacks == 0 { 2 } else { 0 };
-    if own == 0 || degrees == 0 {
-        return None;
-    }
     let mut segmented = 0.0;
     for (choice, segment) in choices.iter().zip(segments) {
         segmented += match choice {
@@ -1099,14 +1090,7 @@ fn likelihood_ratio_test<F: Family>(
             Err(_) => log_marginal_at::<F>(&segment.table, &all.fitted_prior),
         };
     }
-    let statistic = (2.0 * (segmented - all.log_likelihood?)).max(0.0);
-    let p_value = gamma_tails(degrees as f64 / 2.0, statistic / 2.0).upper;
-    Some(SegmentTest {
-        name: "likelihood ratio: one prior for all groups against one per segment".to_string(),
-        statistic,
-        degrees_of_freedom: degrees as u64,
-        p_value,
-    })
+    segment_likelihood_ratio(2, (own, choices.len() - own), segmented, all.log_likelihood?)
 }
 
 fn fit_warnings(fitted: &Fit) -> Vec<String> {

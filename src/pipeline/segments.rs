@@ -7,10 +7,12 @@
 //! digits), so the same key read from CSV and from Parquet is one segment.
 
 use super::Job;
+use crate::core::incomplete::gamma_tails;
 use crate::core::pairs::{PairCounter, PairHasher, PairIndex, PairTable, WeightedPair};
 use crate::error::Result;
 use crate::io::cells::GroupColumn;
 use crate::io::sink::PairValues;
+use crate::summary::SegmentTest;
 use arrow_array::cast::AsArray;
 use arrow_array::{Array, ArrayRef, UInt32Array};
 use arrow_schema::DataType;
@@ -308,6 +310,33 @@ impl Default for SegmentCounters {
     fn default() -> Self {
         Self::new()
     }
+}
+
+/// The likelihood-ratio test of one prior for all groups against one per
+/// segment: twice the gain in log marginal likelihood (`segmented`, the
+/// segments' sum, each under its own prior or, where it fell back, the
+/// all-groups one; `all`, the all-groups prior's), on `parameters` degrees
+/// of freedom per segment with a prior of its own, less the all-groups
+/// prior's when every segment has its own (when some fall back they share
+/// it, and its parameters stay). The p-value is the chi-square's upper tail
+/// (Wilks). None when no segment has a prior of its own, or nothing is free.
+pub(super) fn segment_likelihood_ratio(
+    parameters: usize,
+    (own, fallbacks): (usize, usize),
+    segmented: f64,
+    all: f64,
+) -> Option<SegmentTest> {
+    let degrees = parameters * own - if fallbacks == 0 { parameters } else { 0 };
+    if own == 0 || degrees == 0 {
+        return None;
+    }
+    let statistic = (2.0 * (segmented - all)).max(0.0);
+    Some(SegmentTest {
+        name: "likelihood ratio: one prior for all groups against one per segment".to_string(),
+        statistic,
+        degrees_of_freedom: degrees as u64,
+        p_value: gamma_tails(degrees as f64 / 2.0, statistic / 2.0).upper,
+    })
 }
 
 /// Keys in order: value by value, text order, a null after every text.
