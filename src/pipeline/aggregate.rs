@@ -9,8 +9,11 @@
 //! as that of the summed table.
 
 use super::covariates::{CovariateBatch, CovariatePairs, CovariateState};
-use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
+use super::driver::Source;
 use super::group_table::{BatchRows, GroupTable, SumTooLarge};
+use super::pair_keys::{
+    count_and_size, input_columns, Counted, CovariateCount, PairKeys, PairsWritten, Placement,
+};
 use super::passes::{row_error, BatchView, RowFault};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
@@ -158,7 +161,7 @@ impl<'a> SummedRows<'a> {
     }
 }
 
-impl Source for SummedRows<'_> {
+impl Source<PairKeys> for SummedRows<'_> {
     fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
         let names = &job.columns;
         if let Aggregation::Standardised(standard) = &job.aggregation {
@@ -306,26 +309,24 @@ impl Source for SummedRows<'_> {
         Ok(Counted { pairs, segments: segment_index, rows, rejected, covariates: None })
     }
 
-    fn standardisation(&self) -> Option<crate::summary::StandardisationReport> {
-        self.rates.as_ref().map(|rates| rates.report().clone())
-    }
-
     fn write(
         &mut self,
         job: &Job,
         scored: &Scored,
         placement: Placement,
+        staged: &mut StagedOutputs,
         clock: &mut PhaseClock<'_>,
-    ) -> Result<(ShiftGroups, StagedOutputs)> {
-        let (shift_groups, mut staged) =
-            write_groups(job, (self.output, self.batch_rows), scored, &self.totals, placement)?;
+    ) -> Result<PairsWritten> {
+        let shift_groups =
+            write_groups(job, (self.output, self.batch_rows), scored, &self.totals, placement, staged)?;
         clock.lap("score-and-write", "score and write")?;
         if let InvalidRows::Skip { rejects: path } = &job.invalid {
             let mut sink = TableSink::create(path)?;
             sink.write(self.rejects.take_columns(&reject_names(job)))?;
             staged.add(sink.finish()?);
         }
-        Ok((shift_groups, staged))
+        let standardisation = self.rates.as_ref().map(|rates| rates.report().clone());
+        Ok(PairsWritten { shift_groups, standardisation })
     }
 }
 
@@ -489,7 +490,8 @@ fn write_groups(
     scored: &Scored,
     totals: &GroupTotals,
     mut placement: Placement,
-) -> Result<(ShiftGroups, StagedOutputs)> {
+    staged: &mut StagedOutputs,
+) -> Result<ShiftGroups> {
     let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
         .with_metadata(table_metadata(job, scored));
@@ -512,7 +514,6 @@ fn write_groups(
         sink.write_scored(vec![(job.columns.group.clone(), totals.ids(start..end))], &pair_of_row)?;
         start = end;
     }
-    let mut staged = StagedOutputs::default();
     staged.add(sink.finish()?);
-    Ok((shifts.finish(), staged))
+    Ok(shifts.finish())
 }

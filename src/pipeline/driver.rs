@@ -1,157 +1,117 @@
-//! The one driver every input layout runs through. A layout is a
-//! [`Source`]: it reads its rows into pair counts per segment (pass 1, with
-//! whatever else its rows need: repeated ids, sums per group), and later
-//! writes the scored groups (pass 2, or one row per summed group, or nothing
-//! for a pair table). Between the two the driver does what every layout
-//! shares: the pair tables and the lookup from a row's pair to its place,
-//! the fit (or the saved prior) and every pair's scores; after them the
-//! summary, the pair output, and the commit of every output together, all or
-//! nothing.
+//! The one driver every input layout and every kind of key runs through.
+//!
+//! A kind of key ([`KeyKind`]) is what a run's groups are keyed by in the
+//! scored table: a (size, count) pair under its segment or its covariates
+//! ([`super::pair_keys::PairKeys`]), or a vector of counts over rated levels
+//! ([`super::levels::LevelKeys`]). A layout is a [`Source`] of one kind: it
+//! reads its rows into the kind's counts (pass 1, with whatever else its
+//! rows need: repeated ids, sums per group), and later writes the scored
+//! groups (pass 2, or one row per summed group, or nothing for a pair
+//! table). Between the two the kind fits (or loads) its prior and scores
+//! every key; after them it writes its summary and the outputs kept per
+//! key; the driver then commits every output together, all or nothing.
 
-use super::covariates::{covariate_table, CovariatePairs, CovariateState};
-use super::neighbours::area_table;
-use super::prior::{score_cell_pairs, score_pairs, CellTable, Scored};
-use super::scoring::{commit_outputs, stage_pair_output, summarise, RowCounts, ShiftGroups};
-use super::segments::{PairLookup, SegmentCounters, SegmentIndex, SegmentPairs};
-use super::{no_data_rows, no_valid_rows, Job, PhaseClock};
-use crate::core::pairs::WeightedPair;
-use crate::error::Result;
-use crate::io::atomic::StagedOutputs;
-use crate::io::input::{COVARIATE_ROLE, SEGMENT_ROLE};
-use crate::summary::Summary;
+use super::PhaseClock;
+use crate::error::{Error, Result};
+use crate::io::atomic::{stage_bytes, StagedOutputs};
+use crate::io::input::TableSource;
+use serde::Serialize;
+use std::path::Path;
 
-/// What a source's first reading found.
-#[derive(Default)]
-pub(super) struct Counted {
-    /// The pair counts of the valid rows (or groups), per segment.
-    pub pairs: SegmentCounters,
-    /// The segments, numbered as met.
-    pub segments: SegmentIndex,
+/// Rows read and rejected by a source's first reading.
+#[derive(Clone, Copy, Debug, Default)]
+pub(super) struct RowTally {
     /// Data rows read.
     pub rows: usize,
     /// Rows rejected.
     pub rejected: usize,
-    /// With covariates (or `--neighbours`, keyed by area): the pairs by
-    /// their covariates (the segment counts then stay empty).
-    pub covariates: Option<CovariateCount>,
 }
 
-/// What the first reading found of the covariates: the distinct
-/// (covariates, size, count) pairs and how each column is read.
-pub(super) struct CovariateCount {
-    /// The pairs met.
-    pub pairs: CovariatePairs,
-    /// The columns' readings and levels.
-    pub state: CovariateState,
+/// What a run's groups are keyed by, and what is done with the keys
+/// between and after the passes.
+pub(super) trait KeyKind {
+    /// The run's settings.
+    type Job;
+    /// What a source's first reading found: the keys met and how often.
+    type Counted;
+    /// The scored keys, as far as the summary needs them.
+    type Scored;
+    /// What the second reading needs to place a row's key, and the columns it writes.
+    type Placement;
+    /// What the second reading found (the groups that moved furthest, ...).
+    type Written;
+    /// The run's summary.
+    type Summary: Serialize;
+
+    /// The input the run reads, and the summary file it writes.
+    fn files(job: &Self::Job) -> (&TableSource, Option<&Path>);
+
+    /// Rows read and rejected.
+    fn tally(counted: &Self::Counted) -> RowTally;
+
+    /// Fits (or loads) the prior and scores every key; stages what is kept
+    /// per key before the second reading, if anything.
+    fn score(
+        job: &Self::Job,
+        counted: Self::Counted,
+        staged: &mut StagedOutputs,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<(Self::Scored, Self::Placement)>;
+
+    /// The summary, after the second reading; stages what is kept per key
+    /// after it, if anything.
+    fn summarise(
+        job: &Self::Job,
+        tally: RowTally,
+        scored: Self::Scored,
+        written: Self::Written,
+        staged: &mut StagedOutputs,
+    ) -> Result<Self::Summary>;
 }
 
-impl CovariateCount {
-    /// What a run that reads each group's row keys its cells by: its
-    /// covariates, or with `--neighbours` its area (None: by segment and pair).
-    pub(super) fn of(job: &Job) -> Option<Self> {
-        if job.neighbours.is_some() {
-            Some(CovariateCount { pairs: CovariatePairs::new(1), state: CovariateState::of_areas() })
-        } else {
-            (!job.covariates.is_empty()).then(|| CovariateCount {
-                pairs: CovariatePairs::new(job.covariates.len()),
-                state: CovariateState::new(job),
-            })
-        }
-    }
-}
-
-/// Where a scored group's values are: its segment as met, and its pair's
-/// number in the scored table by (segment, size, count).
-pub(super) struct Placement {
-    /// The segments as met in the first reading.
-    pub segments: SegmentIndex,
-    /// Pair numbers by segment and pair.
-    pub pairs: PairLookup,
-    /// With covariates: pair numbers by covariates and pair.
-    pub covariates: Option<CovariateCount>,
-}
-
-/// An input layout.
-pub(super) trait Source {
-    /// Reads the input and counts the pairs; a fault that stops the run
+/// An input layout of a kind of key.
+pub(super) trait Source<K: KeyKind> {
+    /// Reads the input and counts the keys; a fault that stops the run
     /// (with `--on-invalid error`) is returned as the error.
-    fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted>;
+    fn count(&mut self, job: &K::Job, clock: &mut PhaseClock<'_>) -> Result<K::Counted>;
 
-    /// Writes the scored groups (the table and the rejects), staged; returns
-    /// the groups that moved furthest.
+    /// Writes the scored groups (the table and the rejects), staged.
     fn write(
         &mut self,
-        job: &Job,
-        scored: &Scored,
-        placement: Placement,
+        job: &K::Job,
+        scored: &K::Scored,
+        placement: K::Placement,
+        staged: &mut StagedOutputs,
         clock: &mut PhaseClock<'_>,
-    ) -> Result<(ShiftGroups, StagedOutputs)>;
-
-    /// How the expected counts were made, for a source that made them.
-    fn standardisation(&self) -> Option<crate::summary::StandardisationReport> {
-        None
-    }
+    ) -> Result<K::Written>;
 }
 
 /// Runs `source` through the pipeline.
-pub(super) fn drive(job: &Job, source: &mut dyn Source, clock: &mut PhaseClock<'_>) -> Result<Summary> {
+pub(super) fn drive<K: KeyKind>(
+    job: &K::Job,
+    source: &mut dyn Source<K>,
+    clock: &mut PhaseClock<'_>,
+) -> Result<K::Summary> {
     let counted = source.count(job, clock)?;
-    if counted.rows == 0 {
-        return Err(no_data_rows(job));
+    let tally = K::tally(&counted);
+    let (input, summary_file) = K::files(job);
+    if tally.rows == 0 {
+        return Err(Error::Input(format!("{}: the input has no data rows", input.display())));
     }
-    let (scored, placement) = match counted.covariates {
-        Some(mut covariates) => {
-            covariates.pairs.compact();
-            if covariates.pairs.len() == 0 {
-                return Err(no_valid_rows(job, counted.rejected));
-            }
-            let table = if job.neighbours.is_some() {
-                CellTable::Areas(area_table(job, &covariates.pairs, &covariates.state)?)
-            } else {
-                CellTable::Covariates(covariate_table(job, &covariates.pairs, &covariates.state)?)
-            };
-            let scored = score_cell_pairs(job, table, clock)?;
-            let placement = Placement {
-                segments: SegmentIndex::default(),
-                pairs: PairLookup::new(&[], &[]),
-                covariates: Some(covariates),
-            };
-            (scored, placement)
-        }
-        None => {
-            let mut segments_met = counted.segments;
-            let (met, segments): (Vec<u32>, Vec<SegmentPairs>) =
-                counted.pairs.into_segments(&mut segments_met).into_iter().unzip();
-            if segments.iter().all(|s| s.table.pairs().is_empty()) {
-                return Err(no_valid_rows(job, counted.rejected));
-            }
-            let tables: Vec<&[WeightedPair]> = segments.iter().map(|s| s.table.pairs()).collect();
-            let pairs = PairLookup::new(&met, &tables);
-            let scored = score_pairs(job, segments, clock)?;
-            (scored, Placement { segments: segments_met, pairs, covariates: None })
-        }
-    };
-    let (shift_groups, mut staged) = source.write(job, &scored, placement, clock)?;
-    let counts = RowCounts { read: counted.rows as u64, rejected: counted.rejected as u64 };
-    let mut summary = summarise(job, counts, &scored, shift_groups);
-    summary.standardisation = source.standardisation();
-    stage_pair_output(job, &scored, &mut staged)?;
-    commit_outputs(job, &summary, staged)?;
+    let mut staged = StagedOutputs::default();
+    let (scored, placement) = K::score(job, counted, &mut staged, clock)?;
+    let written = source.write(job, &scored, placement, &mut staged, clock)?;
+    let summary = K::summarise(job, tally, scored, written, &mut staged)?;
+    if let Some(path) = summary_file {
+        let json = serde_json::to_string_pretty(&summary)
+            .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
+        staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
+    }
+    staged.commit()?;
     Ok(summary)
 }
 
-/// The input columns a run reads: `lead` (the group or weight column and
-/// what each row holds), then the segment columns of `--by` or the
-/// covariate columns (never both), which key the rows' cells.
-pub(super) fn input_columns<'a>(job: &'a Job, lead: Vec<(&'a str, &'a str)>) -> Vec<(&'a str, &'a str)> {
-    let mut columns = lead;
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
-    columns.extend(job.covariates.iter().map(|c| (c.name.as_str(), COVARIATE_ROLE)));
-    columns
-}
-
-/// The count and size columns with their roles in the model's words.
-pub(super) fn count_and_size(job: &Job) -> [(&str, &str); 2] {
-    let terms = job.model.terms();
-    [(job.columns.count.as_str(), terms.count_role), (job.columns.size.as_str(), terms.size_role)]
+/// The error of a run whose every row was rejected.
+pub(super) fn no_valid_rows(input: &TableSource, rejected: usize) -> Error {
+    Error::Input(format!("{}: no valid data rows ({rejected} rejected)", input.display()))
 }

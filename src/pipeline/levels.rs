@@ -11,6 +11,7 @@
 //! all or nothing.
 
 use super::clock::PhaseClock;
+use super::driver::{drive, no_valid_rows, KeyKind, RowTally, Source};
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::passes::{changed_between_passes, plain_value, repeat_reason, spill_failed};
 use super::prior::{refuse_other_segments, POOR_FIT_P};
@@ -31,7 +32,7 @@ use crate::core::model::dirichlet_multinomial::{
 use crate::core::model::ValueRule;
 use crate::core::ranking::{posterior_fdr_flags, top_probabilities_by_threshold, LawKinds, RankOrder};
 use crate::error::{Error, Result};
-use crate::io::atomic::{stage_bytes, StagedOutputs};
+use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch, TableSource, SEGMENT_ROLE};
 use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
@@ -43,7 +44,7 @@ use arrow_array::{ArrayRef, Int64Array, StringArray};
 use rayon::prelude::*;
 use std::borrow::Cow;
 use std::collections::{BTreeMap, HashMap};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
 /// The name of the model on the command line and in files.
@@ -321,16 +322,70 @@ impl VectorIndex {
     }
 }
 
-/// What pass 1 found.
-#[derive(Default)]
-struct Counted {
+/// What a source's first reading found: the distinct vectors (led with
+/// `--by` by their segment's number as met) and the segments met.
+pub(super) struct Counted {
     vectors: VectorIndex,
-    /// With `--by`: the segments met.
     segments: SegmentIndex,
-    rows: usize,
-    rejected: usize,
-    first_fault: Option<(usize, Error)>,
-    repeats: Repeats,
+    tally: RowTally,
+}
+
+/// Groups keyed by their vector of counts over the rated levels, under a segment.
+pub(super) struct LevelKeys;
+
+/// What the second reading needs: the vectors met, each one's row in the
+/// scored table, the columns per row, and the row whose groups moved furthest.
+pub(super) struct LevelPlacement {
+    vectors: VectorIndex,
+    segments: SegmentIndex,
+    place: Vec<u32>,
+    columns: PairColumns,
+    furthest: Option<u32>,
+}
+
+impl KeyKind for LevelKeys {
+    type Job = LevelJob;
+    type Counted = Counted;
+    /// The summary but for the group that moved furthest, which the second reading names.
+    type Scored = LevelSummary;
+    type Placement = LevelPlacement;
+    /// The id of a group that moved furthest.
+    type Written = Option<String>;
+    type Summary = LevelSummary;
+
+    fn files(job: &LevelJob) -> (&TableSource, Option<&Path>) {
+        (&job.input, job.summary.as_deref())
+    }
+
+    fn tally(counted: &Counted) -> RowTally {
+        counted.tally
+    }
+
+    fn score(
+        job: &LevelJob,
+        counted: Counted,
+        staged: &mut StagedOutputs,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<(LevelSummary, LevelPlacement)> {
+        let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
+        let (summary, columns, furthest) = fit_and_score(job, &keyed, counted.tally, staged, clock)?;
+        // The second reading needs the columns and the keys' places, not the table (73 MB at 10M sellers).
+        drop(keyed);
+        let placement =
+            LevelPlacement { vectors: counted.vectors, segments: counted.segments, place, columns, furthest };
+        Ok((summary, placement))
+    }
+
+    fn summarise(
+        _: &LevelJob,
+        _: RowTally,
+        mut summary: LevelSummary,
+        furthest_group: Option<String>,
+        _: &mut StagedOutputs,
+    ) -> Result<LevelSummary> {
+        summary.pull.max_shift_group = furthest_group;
+        Ok(summary)
+    }
 }
 
 /// Runs a star-rating job: reads, fits, scores, writes. Returns the
@@ -338,42 +393,62 @@ struct Counted {
 /// passes, and asked at every batch whether to go on.
 pub fn run_levels(job: &LevelJob, observer: &mut dyn RunObserver) -> Result<LevelSummary> {
     let clock = &mut PhaseClock::start(observer);
-    if let Some((outcome, values)) = &job.outcome {
-        return run_rating_rows(job, outcome, values, clock);
-    }
-    let mut columns = vec![(job.group.as_str(), "group")];
-    columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
-    if let Some(saved) = &job.prior {
-        let fitted = saved.summary.segments.as_ref().map_or(&[][..], |s| &s.columns[..]);
-        refuse_other_segments(&saved.path, fitted, &job.segments)?;
-    }
-    let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
-    let counted = count_vectors(job, &input, clock)?;
-    if counted.rows == 0 {
-        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
-    }
-    if let Some((_, fault)) = counted.first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
-        return Err(fault);
-    }
-    let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
-    let mut staged = StagedOutputs::default();
-    let (mut summary, columns, furthest) =
-        fit_and_score(job, &keyed, (counted.rows, counted.rejected), &mut staged, clock)?;
-    // Pass 2 needs the columns and the keys' places, not the table (73 MB at 10M sellers).
-    drop(keyed);
-    let found = Found {
-        vectors: counted.vectors,
-        segments: counted.segments,
-        place,
-        repeats: counted.repeats,
-        rows: counted.rows,
+    let mut source: Box<dyn Source<LevelKeys>> = match &job.outcome {
+        Some((outcome, values)) => Box::new(RatingRows::open(job, outcome, values)?),
+        None => Box::new(CountColumns::open(job)?),
     };
-    summary.pull.max_shift_group =
-        write_groups(job, &input, columns, (found, furthest), (&mut staged, clock))?;
-    clock.lap("pass-2", "pass 2: read, score, write")?;
-    commit(job, &summary, staged)?;
-    Ok(summary)
+    drive(job, source.as_mut(), clock)
+}
+
+/// One row per group with a count column per level: two passes of batches.
+struct CountColumns {
+    input: Input,
+    /// Data rows pass 1 read, which pass 2 must read again.
+    rows: usize,
+    /// Repeated ids found after pass 1, for pass 2 to reject.
+    repeats: Repeats,
+}
+
+impl CountColumns {
+    fn open(job: &LevelJob) -> Result<Self> {
+        let mut columns = vec![(job.group.as_str(), "group")];
+        columns.extend(job.levels.iter().map(|c| (c.as_str(), "level count")));
+        columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
+        if let Some(saved) = &job.prior {
+            let fitted = saved.summary.segments.as_ref().map_or(&[][..], |s| &s.columns[..]);
+            refuse_other_segments(&saved.path, fitted, &job.segments)?;
+        }
+        let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
+        Ok(CountColumns { input, rows: 0, repeats: Repeats::default() })
+    }
+}
+
+impl Source<LevelKeys> for CountColumns {
+    fn count(&mut self, job: &LevelJob, clock: &mut PhaseClock<'_>) -> Result<Counted> {
+        let (counted, first_fault, repeats) = count_vectors(job, &self.input, clock)?;
+        if counted.tally.rows > 0 {
+            if let Some((_, fault)) = first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
+                return Err(fault);
+            }
+        }
+        self.rows = counted.tally.rows;
+        self.repeats = repeats;
+        Ok(counted)
+    }
+
+    fn write(
+        &mut self,
+        job: &LevelJob,
+        _: &LevelSummary,
+        placement: LevelPlacement,
+        staged: &mut StagedOutputs,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<Option<String>> {
+        let repeats = std::mem::take(&mut self.repeats);
+        let furthest = write_groups(job, &self.input, (placement, repeats, self.rows), (staged, clock))?;
+        clock.lap("pass-2", "pass 2: read, score, write")?;
+        Ok(furthest)
+    }
 }
 
 /// The rows of the scored table: one per distinct count vector, and with
@@ -526,22 +601,19 @@ fn fit_priors<'k>(job: &LevelJob, keyed: &'k Keyed) -> Result<LevelPriors<'k>> {
 fn fit_and_score(
     job: &LevelJob,
     keyed: &Keyed,
-    (rows, rejected): (usize, usize),
+    tally: RowTally,
     staged: &mut StagedOutputs,
     clock: &mut PhaseClock<'_>,
 ) -> Result<(LevelSummary, PairColumns, Option<u32>)> {
     let table = &keyed.table;
     if table.is_empty() {
-        return Err(Error::Input(format!(
-            "{}: no valid data rows ({rejected} rejected)",
-            job.input.display()
-        )));
+        return Err(no_valid_rows(&job.input, tally.rejected));
     }
     let priors = fit_priors(job, keyed)?;
     clock.lap("fit", &format!("fit ({} distinct count vectors)", table.len()))?;
     let scored = score_vectors(job, keyed, &priors);
     clock.lap("posteriors", "posteriors (each vector's mean score interval)")?;
-    let (mut summary, furthest) = summarise(job, keyed, &priors, &scored, (rows, rejected));
+    let (mut summary, furthest) = summarise(job, keyed, &priors, &scored, tally);
     clock.lap("summary", "summary and calibration check")?;
     if let Some(saved) = &job.prior {
         // The prior's figures as fitted, not recomputed from the scored groups.
@@ -579,140 +651,173 @@ fn stage_vector_output(
     Ok(())
 }
 
-/// Stages the summary, if asked for, after every other output, and renames them all into place.
-fn commit(job: &LevelJob, summary: &LevelSummary, mut staged: StagedOutputs) -> Result<()> {
-    if let Some(path) = &job.summary {
-        let json = serde_json::to_string_pretty(summary)
-            .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
-        staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
-    }
-    staged.commit()
-}
-
 /// One row per rating: each group's ratings counted per level in one pass
 /// (groups numbered in the order they first appear), then fitted, and one
 /// row written per group in that order.
-fn run_rating_rows(
-    job: &LevelJob,
-    outcome: &str,
-    values: &[String],
-    clock: &mut PhaseClock<'_>,
-) -> Result<LevelSummary> {
-    let mut columns = vec![(job.group.as_str(), "group"), (outcome, "outcome")];
-    columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
-    let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
-    let levels = values.len();
-    // A group is its id within its segment (with --by): the key's bytes are
-    // the segment's number, then the id.
-    let mut groups: HashMap<Vec<u8>, u32> = HashMap::new();
-    let (mut segments, mut segment_of_group, mut key) = (SegmentIndex::default(), Vec::new(), Vec::new());
-    let (mut ids, mut counts): (Vec<String>, Vec<f64>) = (Vec::new(), Vec::new());
-    let mut integer_ids = true;
-    let (mut rows, mut rejected) = (0, 0);
-    let mut rejects = match &job.invalid {
-        InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RatingRejects::default())),
-        InvalidRows::Fail => None,
-    };
-    input.for_each_batch(|batch| {
-        let group = GroupColumn::of(&batch.columns[0])?;
-        let segment_columns = SegmentColumns::of(&batch.columns[2..])?;
-        integer_ids &= matches!(group, GroupColumn::Integers(_));
-        for row in 0..batch.rows() {
-            let cell = cell_at(&batch.columns[1], row)?;
-            let text = cell_text(&cell);
-            let fault = if group.is_missing(row) {
-                Some((job.group.clone(), MISSING_GROUP.to_string()))
-            } else if let Some(level) = values.iter().position(|v| *v == text) {
-                let segment =
-                    if segment_columns.is_empty() { 0 } else { segments.number(&segment_columns, row) };
-                let at = group.with_bytes(row, |id| {
-                    key.clear();
-                    key.extend_from_slice(&segment.to_le_bytes());
-                    key.extend_from_slice(id);
-                    match groups.get(&key) {
-                        Some(&at) => at,
-                        None => {
-                            let at = ids.len() as u32;
-                            groups.insert(key.clone(), at);
-                            ids.push(String::from_utf8_lossy(id).into_owned());
-                            segment_of_group.push(segment);
-                            counts.extend(std::iter::repeat_n(0.0, levels));
-                            at
-                        }
-                    }
-                });
-                counts[at as usize * levels + level] += 1.0;
-                None
-            } else {
-                let found = if text.is_empty() { "missing value".to_string() } else { format!("'{text}'") };
-                Some((outcome.to_string(), format!("{found} is not among --levels {}", values.join(", "))))
-            };
-            if let Some((column, reason)) = fault {
-                rejected += 1;
-                let rejection = Rejection { row, column, reason };
-                match &mut rejects {
-                    Some((_, held)) => {
-                        held.push(batch.first_row + row + 1, group.text(row), text, &rejection)
-                    }
-                    None => return Err(rejection.stopping(&batch)),
-                }
-            }
-        }
-        rows = batch.first_row + batch.rows();
-        clock.rows("read and count", rows, input.known_rows())?;
-        if let Some((sink, held)) = &mut rejects {
-            if !held.rows.is_empty() {
-                sink.write(held.take_columns(job, outcome))?;
-            }
-        }
-        Ok(())
-    })?;
-    if rows == 0 {
-        return Err(Error::Input(format!("{}: the input has no data rows", job.input.display())));
+struct RatingRows<'j> {
+    input: Input,
+    outcome: &'j str,
+    values: &'j [String],
+    /// Each group's id, in the order first met.
+    ids: Vec<String>,
+    /// Whether every id was read from an integer column.
+    integer_ids: bool,
+    /// Each group's counts, flat (K a group).
+    counts: Vec<f64>,
+    /// Each group's segment as met (0 without `--by`).
+    segment_of_group: Vec<u32>,
+    /// With `--on-invalid skip`: the rejects table and the rows not yet written to it.
+    rejects: Option<(TableSink, RatingRejects)>,
+}
+
+impl<'j> RatingRows<'j> {
+    fn open(job: &LevelJob, outcome: &'j str, values: &'j [String]) -> Result<Self> {
+        let mut columns = vec![(job.group.as_str(), "group"), (outcome, "outcome")];
+        columns.extend(job.segments.iter().map(|c| (c.as_str(), SEGMENT_ROLE)));
+        let input = Input::open_source(&job.input, job.delimiter, &columns, job.batch_rows)?;
+        let rejects = match &job.invalid {
+            InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RatingRejects::default())),
+            InvalidRows::Fail => None,
+        };
+        Ok(RatingRows {
+            input,
+            outcome,
+            values,
+            ids: Vec::new(),
+            integer_ids: true,
+            counts: Vec::new(),
+            segment_of_group: Vec::new(),
+            rejects,
+        })
     }
-    drop(groups);
-    clock.lap("read-and-count", &format!("read and count the ratings ({} groups)", ids.len()))?;
-    let segmented = !segments.is_empty();
-    let mut vectors = VectorIndex::new(levels + usize::from(segmented));
-    let key_of = |g: usize, key: &mut Vec<f64>| {
+
+    /// Group `g`'s key in the vector index: its segment's number with
+    /// `--by`, then its counts.
+    fn key_of(&self, g: usize, segmented: bool, key: &mut Vec<f64>) {
+        let levels = self.values.len();
         key.clear();
         if segmented {
-            key.push(f64::from(segment_of_group[g]));
+            key.push(f64::from(self.segment_of_group[g]));
         }
-        key.extend_from_slice(&counts[g * levels..(g + 1) * levels]);
-    };
-    let mut vector = Vec::with_capacity(levels + 1);
-    for g in 0..ids.len() {
-        key_of(g, &mut vector);
-        vectors.add(&vector, 1.0);
+        key.extend_from_slice(&self.counts[g * levels..(g + 1) * levels]);
     }
-    let (keyed, place) = Keyed::of(levels, &vectors, &segments);
-    let mut staged = StagedOutputs::default();
-    let (mut summary, columns, furthest) = fit_and_score(job, &keyed, (rows, rejected), &mut staged, clock)?;
-    drop(keyed);
-    let vector_of_group: Vec<u32> = (0..ids.len())
-        .map(|g| {
-            key_of(g, &mut vector);
-            place[vectors.find(&vector).expect("counted") as usize]
-        })
-        .collect();
-    summary.pull.max_shift_group =
-        furthest.and_then(|v| vector_of_group.iter().position(|&g| g == v)).map(|g| ids[g].clone());
-    let id_column: ArrayRef = if integer_ids {
-        Arc::new(ids.iter().map(|id| id.parse::<i64>().ok()).collect::<Int64Array>())
-    } else {
-        Arc::new(ids.iter().map(Some).collect::<StringArray>())
-    };
-    let mut sink = TableSink::create_scored(&job.output, columns)?;
-    sink.write_scored(vec![(job.group.clone(), id_column)], &vector_of_group)?;
-    staged.add(sink.finish()?);
-    if let Some((mut sink, mut held)) = rejects {
-        sink.write(held.take_columns(job, outcome))?;
+}
+
+impl Source<LevelKeys> for RatingRows<'_> {
+    fn count(&mut self, job: &LevelJob, clock: &mut PhaseClock<'_>) -> Result<Counted> {
+        let RatingRows { input, outcome, values, ids, integer_ids, counts, segment_of_group, rejects } = self;
+        let levels = values.len();
+        // A group is its id within its segment (with --by): the key's bytes are
+        // the segment's number, then the id.
+        let mut groups: HashMap<Vec<u8>, u32> = HashMap::new();
+        let (mut segments, mut key) = (SegmentIndex::default(), Vec::new());
+        let mut tally = RowTally::default();
+        input.for_each_batch(|batch| {
+            let group = GroupColumn::of(&batch.columns[0])?;
+            let segment_columns = SegmentColumns::of(&batch.columns[2..])?;
+            *integer_ids &= matches!(group, GroupColumn::Integers(_));
+            for row in 0..batch.rows() {
+                let cell = cell_at(&batch.columns[1], row)?;
+                let text = cell_text(&cell);
+                let fault = if group.is_missing(row) {
+                    Some((job.group.clone(), MISSING_GROUP.to_string()))
+                } else if let Some(level) = values.iter().position(|v| *v == text) {
+                    let segment =
+                        if segment_columns.is_empty() { 0 } else { segments.number(&segment_columns, row) };
+                    let at = group.with_bytes(row, |id| {
+                        key.clear();
+                        key.extend_from_slice(&segment.to_le_bytes());
+                        key.extend_from_slice(id);
+                        match groups.get(&key) {
+                            Some(&at) => at,
+                            None => {
+                                let at = ids.len() as u32;
+                                groups.insert(key.clone(), at);
+                                ids.push(String::from_utf8_lossy(id).into_owned());
+                                segment_of_group.push(segment);
+                                counts.extend(std::iter::repeat_n(0.0, levels));
+                                at
+                            }
+                        }
+                    });
+                    counts[at as usize * levels + level] += 1.0;
+                    None
+                } else {
+                    let found =
+                        if text.is_empty() { "missing value".to_string() } else { format!("'{text}'") };
+                    Some((
+                        outcome.to_string(),
+                        format!("{found} is not among --levels {}", values.join(", ")),
+                    ))
+                };
+                if let Some((column, reason)) = fault {
+                    tally.rejected += 1;
+                    let rejection = Rejection { row, column, reason };
+                    match rejects {
+                        Some((_, held)) => {
+                            held.push(batch.first_row + row + 1, group.text(row), text, &rejection)
+                        }
+                        None => return Err(rejection.stopping(&batch)),
+                    }
+                }
+            }
+            tally.rows = batch.first_row + batch.rows();
+            clock.rows("read and count", tally.rows, input.known_rows())?;
+            if let Some((sink, held)) = rejects {
+                if !held.rows.is_empty() {
+                    sink.write(held.take_columns(job, outcome))?;
+                }
+            }
+            Ok(())
+        })?;
+        drop(groups);
+        if tally.rows > 0 {
+            clock.lap("read-and-count", &format!("read and count the ratings ({} groups)", ids.len()))?;
+        }
+        let segmented = !segments.is_empty();
+        let mut vectors = VectorIndex::new(levels + usize::from(segmented));
+        let mut vector = Vec::with_capacity(levels + 1);
+        for g in 0..self.ids.len() {
+            self.key_of(g, segmented, &mut vector);
+            vectors.add(&vector, 1.0);
+        }
+        Ok(Counted { vectors, segments, tally })
+    }
+
+    fn write(
+        &mut self,
+        job: &LevelJob,
+        _: &LevelSummary,
+        placement: LevelPlacement,
+        staged: &mut StagedOutputs,
+        clock: &mut PhaseClock<'_>,
+    ) -> Result<Option<String>> {
+        let LevelPlacement { vectors, segments, place, columns, furthest } = placement;
+        let segmented = !segments.is_empty();
+        let mut vector = Vec::with_capacity(self.values.len() + 1);
+        let vector_of_group: Vec<u32> = (0..self.ids.len())
+            .map(|g| {
+                self.key_of(g, segmented, &mut vector);
+                place[vectors.find(&vector).expect("counted") as usize]
+            })
+            .collect();
+        let furthest_group =
+            furthest.and_then(|v| vector_of_group.iter().position(|&g| g == v)).map(|g| self.ids[g].clone());
+        let id_column: ArrayRef = if self.integer_ids {
+            Arc::new(self.ids.iter().map(|id| id.parse::<i64>().ok()).collect::<Int64Array>())
+        } else {
+            Arc::new(self.ids.iter().map(Some).collect::<StringArray>())
+        };
+        let mut sink = TableSink::create_scored(&job.output, columns)?;
+        sink.write_scored(vec![(job.group.clone(), id_column)], &vector_of_group)?;
         staged.add(sink.finish()?);
+        if let Some((mut sink, mut held)) = self.rejects.take() {
+            sink.write(held.take_columns(job, self.outcome))?;
+            staged.add(sink.finish()?);
+        }
+        clock.lap("write", "write the groups")?;
+        Ok(furthest_group)
     }
-    clock.lap("write", "write the groups")?;
-    commit(job, &summary, staged)?;
-    Ok(summary)
 }
 
 /// Rejected rating rows as found, for the rejects table.
@@ -763,10 +868,23 @@ fn describe_failure(job: &LevelJob, failure: &LevelFitFailure) -> String {
     }
 }
 
-/// Pass 1 (and the repeated-id check): the distinct vectors of the valid rows.
-fn count_vectors(job: &LevelJob, input: &Input, clock: &mut PhaseClock<'_>) -> Result<Counted> {
+/// The first row fault met: its row over the whole input, and the error naming it.
+type FirstFault = Option<(usize, Error)>;
+
+/// Pass 1 (and the repeated-id check): the distinct vectors of the valid
+/// rows, the first row fault, and the repeated ids.
+fn count_vectors(
+    job: &LevelJob,
+    input: &Input,
+    clock: &mut PhaseClock<'_>,
+) -> Result<(Counted, FirstFault, Repeats)> {
     let width = job.levels.len() + usize::from(!job.segments.is_empty());
-    let mut counted = Counted { vectors: VectorIndex::new(width), ..Counted::default() };
+    let mut counted = Counted {
+        vectors: VectorIndex::new(width),
+        segments: SegmentIndex::default(),
+        tally: RowTally::default(),
+    };
+    let mut first_fault: FirstFault = None;
     let mut ids = IdHashes::new(job.id_memory, input.known_rows().unwrap_or(0));
     let (mut vector, mut key) = (Vec::with_capacity(job.levels.len()), Vec::with_capacity(width));
     input.for_each_batch(|batch| {
@@ -778,21 +896,21 @@ fn count_vectors(job: &LevelJob, input: &Input, clock: &mut PhaseClock<'_>) -> R
             match view.check(job, row, &mut vector)? {
                 Ok(()) => counted.vectors.add(view.key(row, &mut counted.segments, &vector, &mut key), 1.0),
                 Err(rejection) => {
-                    counted.rejected += 1;
-                    if counted.first_fault.is_none() {
-                        counted.first_fault = Some((batch.first_row + row, rejection.stopping(&batch)));
+                    counted.tally.rejected += 1;
+                    if first_fault.is_none() {
+                        first_fault = Some((batch.first_row + row, rejection.stopping(&batch)));
                     }
                 }
             }
         }
-        counted.rows = batch.first_row + batch.rows();
-        clock.rows("pass 1 of 2", counted.rows, input.known_rows())
+        counted.tally.rows = batch.first_row + batch.rows();
+        clock.rows("pass 1 of 2", counted.tally.rows, input.known_rows())
     })?;
     clock.lap("pass-1", "pass 1: read, validate, count the count vectors")?;
     let candidates = ids.repeated().map_err(spill_failed)?;
     if candidates.is_empty() {
         clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat")?;
-        return Ok(counted);
+        return Ok((counted, first_fault, Repeats::default()));
     }
     let mut finder = RepeatFinder::new(candidates);
     input.for_each_batch(|batch| {
@@ -804,21 +922,21 @@ fn count_vectors(job: &LevelJob, input: &Input, clock: &mut PhaseClock<'_>) -> R
             let repeat = view.group.with_bytes(row, |id| finder.observe(batch.first_row + row, id));
             if let (Some(first), Ok(())) = (repeat, view.check(job, row, &mut vector)?) {
                 counted.vectors.add(view.key(row, &mut counted.segments, &vector, &mut key), -1.0);
-                counted.rejected += 1;
+                counted.tally.rejected += 1;
                 let at = batch.first_row + row;
-                if counted.first_fault.as_ref().is_none_or(|(earliest, _)| at < *earliest) {
+                if first_fault.as_ref().is_none_or(|(earliest, _)| at < *earliest) {
                     let place = input.place(at);
                     let reason = repeat_reason(input, &view.group.text(row), first);
                     let error = row_fault(&place.file, place.row_in_file, job.group.clone(), reason);
-                    counted.first_fault = Some((at, error));
+                    first_fault = Some((at, error));
                 }
             }
         }
         Ok(())
     })?;
-    counted.repeats = finder.finish();
+    let repeats = finder.finish();
     clock.lap("repeated-ids", "repeated ids: sort the id hashes, compare any that repeat")?;
-    Ok(counted)
+    Ok((counted, first_fault, repeats))
 }
 
 /// Every vector's posterior and the columns asked for.
@@ -998,26 +1116,16 @@ impl LevelRejects {
     }
 }
 
-/// What pass 2 needs of pass 1: the vectors met, each one's place in the
-/// table, the repeated ids, and the rows read.
-struct Found {
-    vectors: VectorIndex,
-    segments: SegmentIndex,
-    place: Vec<u32>,
-    repeats: Repeats,
-    rows: usize,
-}
-
-/// Pass 2: every valid row's group id with its vector's `columns`; the
-/// rejects beside them. Returns the first group with the vector `furthest`.
+/// Pass 2: every valid row's group id with its vector's columns; the
+/// rejects beside them. Returns the first group with the vector that moved
+/// furthest. `repeats` are the repeated ids pass 1 found in its `rows`.
 fn write_groups(
     job: &LevelJob,
     input: &Input,
-    columns: PairColumns,
-    (found, furthest): (Found, Option<u32>),
+    (placement, repeats, rows): (LevelPlacement, Repeats, usize),
     (staged, clock): (&mut StagedOutputs, &mut PhaseClock<'_>),
 ) -> Result<Option<String>> {
-    let Found { vectors, mut segments, place, repeats, rows } = found;
+    let LevelPlacement { vectors, mut segments, place, columns, furthest } = placement;
     let mut furthest_group = None;
     let mut sink = TableSink::create_scored(&job.output, columns)?;
     let mut rejects = match &job.invalid {
@@ -1088,8 +1196,9 @@ fn summarise(
     keyed: &Keyed,
     priors: &LevelPriors,
     scored: &ScoredVectors,
-    (rows, rejected): (usize, usize),
+    tally: RowTally,
 ) -> (LevelSummary, Option<u32>) {
+    let RowTally { rows, rejected } = tally;
     let (table, fitted) = (&keyed.table, &priors.all);
     let shares = fitted.prior.shares();
     let shapes = match &fitted.prior {

@@ -13,6 +13,7 @@ pub mod duplicates;
 mod group_table;
 pub mod levels;
 mod neighbours;
+mod pair_keys;
 mod pair_table;
 pub mod passes;
 mod prior;
@@ -341,23 +342,14 @@ pub fn load_summary(path: &Path) -> Result<Summary> {
 /// telling `observer` of each phase as it ends.
 pub fn run(job: &Job, observer: &mut dyn RunObserver) -> Result<Summary> {
     let mut clock = PhaseClock::start(observer);
-    match &job.layout {
+    let mut source: Box<dyn driver::Source<pair_keys::PairKeys> + '_> = match &job.layout {
         Layout::Groups { output, batch_rows } if job.aggregation == Aggregation::Groups => {
-            driver::drive(job, &mut passes::GroupRows::open(job, output, *batch_rows)?, &mut clock)
+            Box::new(passes::GroupRows::open(job, output, *batch_rows)?)
         }
         Layout::Groups { output, batch_rows } => {
-            driver::drive(job, &mut aggregate::SummedRows::open(job, output, *batch_rows)?, &mut clock)
+            Box::new(aggregate::SummedRows::open(job, output, *batch_rows)?)
         }
-        Layout::PairCounts { weights } => {
-            driver::drive(job, &mut pair_table::PairRows::open(job, weights)?, &mut clock)
-        }
-    }
-}
-
-fn no_data_rows(job: &Job) -> Error {
-    Error::Input(format!("{}: the input has no data rows", job.input.display()))
-}
-
-fn no_valid_rows(job: &Job, rejected: usize) -> Error {
-    Error::Input(format!("{}: no valid data rows ({rejected} rejected)", job.input.display()))
+        Layout::PairCounts { weights } => Box::new(pair_table::PairRows::open(job, weights)?),
+    };
+    driver::drive(job, source.as_mut(), &mut clock)
 }

@@ -3,9 +3,9 @@
 //! number of groups sharing it. The fit needs nothing else; only the summary
 //! (the prior, reusable by `score`) is written.
 
-use super::driver::{count_and_size, input_columns, Counted, Placement, Source};
+use super::driver::Source;
+use super::pair_keys::{count_and_size, input_columns, Counted, PairKeys, PairsWritten, Placement};
 use super::prior::Scored;
-use super::scoring::ShiftGroups;
 use super::segments::{SegmentColumns, SegmentCounters, SegmentIndex};
 use super::validate::{check_values, group_count, Rejection};
 use super::{Job, PhaseClock, DEFAULT_BATCH_ROWS};
@@ -32,7 +32,7 @@ impl<'a> PairRows<'a> {
     }
 }
 
-impl Source for PairRows<'_> {
+impl Source<PairKeys> for PairRows<'_> {
     fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
         let (mut pairs, mut segments_met, mut rows) = (SegmentCounters::new(), SegmentIndex::default(), 0);
         let weights = self.weights;
@@ -65,8 +65,9 @@ impl Source for PairRows<'_> {
         _: &Job,
         _: &Scored,
         _: Placement,
+        _: &mut StagedOutputs,
         _: &mut PhaseClock<'_>,
-    ) -> Result<(ShiftGroups, StagedOutputs)> {
-        Ok((ShiftGroups::default(), StagedOutputs::default()))
+    ) -> Result<PairsWritten> {
+        Ok(PairsWritten::default())
     }
 }

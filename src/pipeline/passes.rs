@@ -14,8 +14,11 @@
 //! Every output is staged and renamed into place only at the end.
 
 use super::covariates::{CovariateBatch, CovariateState};
-use super::driver::{count_and_size, input_columns, Counted, CovariateCount, Placement, Source};
+use super::driver::Source;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
+use super::pair_keys::{
+    count_and_size, input_columns, Counted, CovariateCount, PairKeys, PairsWritten, Placement,
+};
 use super::prior::Scored;
 use super::scoring::{pair_columns, table_metadata, RejectRows, ShiftGroups, ShiftTracker};
 use super::segments::{PairLookup, SegmentColumns, SegmentCounters, SegmentIndex};
@@ -193,7 +196,7 @@ impl<'a> GroupRows<'a> {
     }
 }
 
-impl Source for GroupRows<'_> {
+impl Source<PairKeys> for GroupRows<'_> {
     fn count(&mut self, job: &Job, clock: &mut PhaseClock<'_>) -> Result<Counted> {
         let mut first = count_pairs(job, &self.input, clock)?;
         clock.lap("pass-1", "pass 1: read, validate, count pairs")?;
@@ -220,8 +223,9 @@ impl Source for GroupRows<'_> {
         job: &Job,
         scored: &Scored,
         placement: Placement,
+        staged: &mut StagedOutputs,
         clock: &mut PhaseClock<'_>,
-    ) -> Result<(ShiftGroups, StagedOutputs)> {
+    ) -> Result<PairsWritten> {
         let rows = self.rows;
         let repeats = std::mem::take(&mut self.repeats);
         let found = Found {
@@ -230,9 +234,10 @@ impl Source for GroupRows<'_> {
             covariates: placement.covariates,
             repeats,
         };
-        let written = score_and_write(job, &self.input, scored, self.output, found, (clock, rows))?;
+        let shift_groups =
+            score_and_write(job, &self.input, scored, (self.output, staged), found, (clock, rows))?;
         clock.lap("pass-2", "pass 2: read, score, write")?;
-        Ok(written)
+        Ok(PairsWritten { shift_groups, standardisation: None })
     }
 }
 
@@ -394,10 +399,10 @@ fn score_and_write(
     job: &Job,
     input: &Input,
     scored: &Scored,
-    output: &Path,
+    (output, staged): (&Path, &mut StagedOutputs),
     mut found: Found,
     (clock, rows): (&mut PhaseClock<'_>, usize),
-) -> Result<(ShiftGroups, StagedOutputs)> {
+) -> Result<ShiftGroups> {
     let mut shifts = ShiftTracker::new(scored);
     let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
         .with_metadata(table_metadata(job, scored));
@@ -479,7 +484,6 @@ fn score_and_write(
         }
         sink.finish()
     })?;
-    let mut staged = StagedOutputs::default();
     staged.add(table);
     if let Some((mut rejects_sink, mut held, wrote)) = rejects {
         if !wrote {
@@ -487,7 +491,7 @@ fn score_and_write(
         }
         staged.add(rejects_sink.finish()?);
     }
-    Ok((shifts.finish(), staged))
+    Ok(shifts.finish())
 }
 
 #[cfg(test)]
@@ -544,7 +548,8 @@ mod tests {
             covariates: None,
             repeats: Repeats::default(),
         };
-        score_and_write(job, open, &scored, output, found, (clock, rows)).map(|_| ())
+        let staged = &mut StagedOutputs::default();
+        score_and_write(job, open, &scored, (output, staged), found, (clock, rows)).map(|_| ())
     }
 
     /// Pass 2 of an input that changed after pass 1: here pass 1's pairs

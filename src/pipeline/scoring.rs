@@ -8,8 +8,8 @@ use super::{FlagEvent, Intervals, Job, PriorShape, Thresholds};
 use crate::core::diagnostics::Pull;
 use crate::core::model::Posterior;
 use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
-use crate::error::{Error, Result};
-use crate::io::atomic::{stage_bytes, StagedOutputs};
+use crate::error::Result;
+use crate::io::atomic::StagedOutputs;
 use crate::io::cells::Cell;
 use crate::io::sink::{ColumnValues, Columns, Metadata, PairColumns, PairValues};
 use crate::summary::{
@@ -398,16 +398,4 @@ pub fn summarise(job: &Job, rows: RowCounts, scored: &Scored, mut named: ShiftGr
         }),
         warnings,
     }
-}
-
-/// Stages the summary file, if one was asked for, after every other output,
-/// and renames them all into place: nothing appears unless everything was
-/// written, and a summary file means its table and rejects are complete.
-pub fn commit_outputs(job: &Job, summary: &Summary, mut staged: StagedOutputs) -> Result<()> {
-    if let Some(path) = &job.summary {
-        let json = serde_json::to_string_pretty(summary)
-            .map_err(|e| Error::Other(format!("cannot encode the summary: {e}")))?;
-        staged.add(stage_bytes(path, format!("{json}\n").as_bytes())?);
-    }
-    staged.commit()
 }
