@@ -472,6 +472,9 @@ pub struct TableSink {
     metadata: Metadata,
 }
 
+/// Scored rows: their own columns (the group id first) and each row's row in the scored table.
+pub type ScoredRows = (Vec<(String, ArrayRef)>, Vec<u32>);
+
 /// Key-value pairs written in a Parquet file's footer (CSV has no place for them).
 pub type Metadata = Vec<(String, String)>;
 
@@ -546,6 +549,36 @@ impl TableSink {
             }
             _ => Err(write_error(&path, "a scored table takes only scored rows")),
         }
+    }
+
+    /// Writes the scored rows that `produce` hands to its sender on a
+    /// thread of its own, in the order handed, so that encoding overlaps
+    /// reading and scoring the next batch; returns the table, finished, and
+    /// what `produce` returned. A failure of the writer (a full disk, say)
+    /// explains a producer stopped by it, so it is reported first.
+    pub fn write_scored_beside<T>(
+        mut self,
+        produce: impl FnOnce(&mut dyn FnMut(ScoredRows) -> Result<()>) -> Result<T>,
+    ) -> Result<(SealedFile, T)> {
+        let (sender, receiver) = std::sync::mpsc::sync_channel::<ScoredRows>(8);
+        std::thread::scope(|scope| {
+            let writer = scope.spawn(move || -> Result<TableSink> {
+                for (row_columns, pair_of_row) in receiver {
+                    self.write_scored(row_columns, &pair_of_row)?;
+                }
+                Ok(self)
+            });
+            let mut send = |rows: ScoredRows| {
+                sender.send(rows).map_err(|_| Error::Other("the output writer stopped".to_string()))
+            };
+            let produced = produce(&mut send);
+            drop(sender);
+            let written =
+                writer.join().map_err(|_| Error::Other("the output writer panicked".to_string()))?;
+            let sink = written?;
+            let produced = produced?;
+            Ok((sink.finish()?, produced))
+        })
     }
 
     /// Appends a batch of rows; every batch has the same columns.

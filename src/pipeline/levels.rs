@@ -1127,7 +1127,7 @@ fn write_groups(
 ) -> Result<Option<String>> {
     let LevelPlacement { vectors, mut segments, place, columns, furthest } = placement;
     let mut furthest_group = None;
-    let mut sink = TableSink::create_scored(&job.output, columns)?;
+    let sink = TableSink::create_scored(&job.output, columns)?;
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, LevelRejects::default())),
         InvalidRows::Fail => None,
@@ -1135,53 +1135,57 @@ fn write_groups(
     let changed = || changed_between_passes(job.input.name());
     let (mut vector, mut key) = (Vec::with_capacity(job.levels.len()), Vec::new());
     let mut seen = 0;
-    input.for_each_batch(|batch| {
-        let view = LevelBatch::of(&batch, job)?;
-        let (mut kept, mut vector_of_row) = (Vec::new(), Vec::new());
-        for row in 0..batch.rows() {
-            let mut outcome = view.check(job, row, &mut vector)?;
-            if let (false, Some(first)) =
-                (view.group.is_missing(row), repeats.first_of(batch.first_row + row))
-            {
-                let reason = repeat_reason(input, &view.group.text(row), first);
-                outcome = Err(Rejection { row, column: job.group.clone(), reason });
-            }
-            match outcome {
-                Ok(()) => {
-                    let position = vectors
-                        .find(view.key(row, &mut segments, &vector, &mut key))
-                        .map(|met| place[met as usize])
-                        .filter(|&p| p != u32::MAX)
-                        .ok_or_else(changed)?;
-                    if furthest_group.is_none() && Some(position) == furthest {
-                        furthest_group = Some(view.group.text(row));
-                    }
-                    kept.push(row as u32);
-                    vector_of_row.push(position);
+    let (table, ()) = sink.write_scored_beside(|send| {
+        input.for_each_batch(|batch| {
+            let view = LevelBatch::of(&batch, job)?;
+            let (mut kept, mut vector_of_row) =
+                (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
+            for row in 0..batch.rows() {
+                let mut outcome = view.check(job, row, &mut vector)?;
+                if let (false, Some(first)) =
+                    (view.group.is_missing(row), repeats.first_of(batch.first_row + row))
+                {
+                    let reason = repeat_reason(input, &view.group.text(row), first);
+                    outcome = Err(Rejection { row, column: job.group.clone(), reason });
                 }
-                Err(rejection) => {
-                    if let Some((_, held)) = &mut rejects {
-                        held.push(&batch, view.group.text(row), &rejection)?;
+                match outcome {
+                    Ok(()) => {
+                        let position = vectors
+                            .find(view.key(row, &mut segments, &vector, &mut key))
+                            .map(|met| place[met as usize])
+                            .filter(|&p| p != u32::MAX)
+                            .ok_or_else(changed)?;
+                        if furthest_group.is_none() && Some(position) == furthest {
+                            furthest_group = Some(view.group.text(row));
+                        }
+                        kept.push(row as u32);
+                        vector_of_row.push(position);
+                    }
+                    Err(rejection) => {
+                        if let Some((_, held)) = &mut rejects {
+                            held.push(&batch, view.group.text(row), &rejection)?;
+                        }
                     }
                 }
             }
-        }
-        sink.write_scored(vec![(job.group.clone(), view.group.take(&kept))], &vector_of_row)?;
-        if let Some((rejects_sink, held)) = &mut rejects {
-            if !held.rows.is_empty() {
-                rejects_sink.write(held.take_columns(job))?;
+            send((vec![(job.group.clone(), view.group.take(&kept))], vector_of_row))?;
+            if let Some((rejects_sink, held)) = &mut rejects {
+                if !held.rows.is_empty() {
+                    rejects_sink.write(held.take_columns(job))?;
+                }
             }
-        }
-        seen = batch.first_row + batch.rows();
-        if seen > rows {
+            seen = batch.first_row + batch.rows();
+            if seen > rows {
+                return Err(changed());
+            }
+            clock.rows("pass 2 of 2", seen, Some(rows))
+        })?;
+        if seen != rows {
             return Err(changed());
         }
-        clock.rows("pass 2 of 2", seen, Some(rows))
+        Ok(())
     })?;
-    if seen != rows {
-        return Err(changed());
-    }
-    staged.add(sink.finish()?);
+    staged.add(table);
     if let Some((mut rejects_sink, mut held)) = rejects {
         // An empty rejects table still has its header.
         rejects_sink.write(held.take_columns(job))?;

@@ -404,23 +404,16 @@ fn score_and_write(
     (clock, rows): (&mut PhaseClock<'_>, usize),
 ) -> Result<ShiftGroups> {
     let mut shifts = ShiftTracker::new(scored);
-    let mut sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
+    let sink = TableSink::create_scored(output, pair_columns(job, scored)?)?
         .with_metadata(table_metadata(job, scored));
     let mut rejects = match &job.invalid {
         InvalidRows::Skip { rejects } => Some((TableSink::create(rejects)?, RejectRows::default(), false)),
         InvalidRows::Fail => None,
     };
-    let (sender, receiver) = std::sync::mpsc::sync_channel::<(Vec<(String, ArrayRef)>, Vec<u32>)>(8);
     let mut seen = 0;
-    let table = std::thread::scope(|scope| {
-        let writer = scope.spawn(move || -> Result<TableSink> {
-            for (row_columns, pair_of_row) in receiver {
-                sink.write_scored(row_columns, &pair_of_row)?;
-            }
-            Ok(sink)
-        });
+    let (table, ()) = sink.write_scored_beside(|send| {
         let mut key = Vec::new();
-        let produced = input.for_each_batch(|batch| {
+        input.for_each_batch(|batch| {
             let view = BatchView::of(&batch, job, found.covariates.as_mut().map(|c| &mut c.state))?;
             let (mut kept, mut pair_of_row) =
                 (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
@@ -457,10 +450,7 @@ fn score_and_write(
                     }
                 }
             }
-            let row_columns = vec![(job.columns.group.clone(), view.group.take(&kept))];
-            sender
-                .send((row_columns, pair_of_row))
-                .map_err(|_| Error::Other("the output writer stopped".to_string()))?;
+            send((vec![(job.columns.group.clone(), view.group.take(&kept))], pair_of_row))?;
             if let Some((rejects_sink, held, wrote)) = &mut rejects {
                 if !held.is_empty() {
                     rejects_sink.write(held.take_columns(&job.columns))?;
@@ -473,16 +463,11 @@ fn score_and_write(
             }
             clock.rows("pass 2 of 2", seen, Some(rows))?;
             Ok(())
-        });
-        drop(sender);
-        let written = writer.join().map_err(|_| Error::Other("the output writer panicked".to_string()))?;
-        // A writer failure (a full disk, say) explains a stopped producer: report it first.
-        let sink = written?;
-        produced?;
+        })?;
         if seen != rows {
             return Err(changed_between_passes(job.input.name()));
         }
-        sink.finish()
+        Ok(())
     })?;
     staged.add(table);
     if let Some((mut rejects_sink, mut held, wrote)) = rejects {
