@@ -25,6 +25,7 @@ use parquet::file::statistics::Statistics;
 use parquet::file::writer::{SerializedPageWriter, TrackedWrite};
 use parquet::schema::types::ColumnDescPtr;
 use rayon::prelude::*;
+use std::sync::Arc;
 
 /// Rows per data page.
 const PAGE_ROWS: usize = 1 << 17;
@@ -56,12 +57,91 @@ pub enum PairValues {
         /// The levels.
         texts: Vec<String>,
     },
+    /// Numbers computed per pair as they are written, from what the run
+    /// holds anyway, so that they are not held as a column of their own.
+    Computed(ComputedValues),
+}
+
+/// How computed values are written: as [`PairValues::Integers`],
+/// [`PairValues::Floats`] or [`PairValues::OptionalFloats`] would be.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ComputedKind {
+    /// Whole numbers, never absent.
+    Integers,
+    /// Numbers, never absent.
+    Floats,
+    /// Numbers, absent where the function gives none.
+    OptionalFloats,
+}
+
+/// The function behind a [`PairValues::Computed`] column: a pair's value by its number.
+pub type PairFunction = Arc<dyn Fn(usize) -> Option<f64> + Send + Sync>;
+
+/// A column computed per pair: how many pairs, how it is written, and the function.
+#[derive(Clone)]
+pub struct ComputedValues {
+    pairs: usize,
+    kind: ComputedKind,
+    value: PairFunction,
+}
+
+impl ComputedValues {
+    /// `pairs` values of `kind`, pair p's being `value(p)` (None only for
+    /// [`ComputedKind::OptionalFloats`]; a whole number is written as i64).
+    pub fn new(pairs: usize, kind: ComputedKind, value: PairFunction) -> Self {
+        ComputedValues { pairs, kind, value }
+    }
+
+    /// The number of pairs.
+    pub fn pairs(&self) -> usize {
+        self.pairs
+    }
+
+    /// How the values are written.
+    pub fn kind(&self) -> ComputedKind {
+        self.kind
+    }
+
+    /// Pair p's value.
+    pub fn at(&self, pair: usize) -> Option<f64> {
+        (self.value)(pair)
+    }
+
+    /// The values as the column they stand for.
+    pub fn held(&self, pairs: impl Iterator<Item = usize>) -> PairValues {
+        match self.kind {
+            ComputedKind::Integers => {
+                PairValues::Integers(pairs.map(|p| self.at(p).unwrap_or(0.0) as i64).collect())
+            }
+            ComputedKind::Floats => {
+                PairValues::Floats(pairs.map(|p| self.at(p).unwrap_or(f64::NAN)).collect())
+            }
+            ComputedKind::OptionalFloats => PairValues::OptionalFloats(pairs.map(|p| self.at(p)).collect()),
+        }
+    }
+}
+
+impl std::fmt::Debug for ComputedValues {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("ComputedValues").field("pairs", &self.pairs).field("kind", &self.kind).finish()
+    }
+}
+
+impl PartialEq for ComputedValues {
+    /// The same function over as many pairs.
+    fn eq(&self, other: &Self) -> bool {
+        self.pairs == other.pairs && self.kind == other.kind && Arc::ptr_eq(&self.value, &other.value)
+    }
 }
 
 impl PairValues {
     /// True when some pair has no value (the column is then optional).
     pub fn nullable(&self) -> bool {
-        matches!(self, PairValues::OptionalFloats(_) | PairValues::OptionalIntegers(_) | PairValues::Texts(_))
+        match self {
+            PairValues::OptionalFloats(_) | PairValues::OptionalIntegers(_) | PairValues::Texts(_) => true,
+            PairValues::Computed(c) => c.kind == ComputedKind::OptionalFloats,
+            _ => false,
+        }
     }
 
     fn is_null(&self, pair: usize) -> bool {
@@ -69,6 +149,7 @@ impl PairValues {
             PairValues::OptionalFloats(v) => v[pair].is_none(),
             PairValues::OptionalIntegers(v) => v[pair].is_none(),
             PairValues::Texts(v) => v[pair].is_none(),
+            PairValues::Computed(c) => c.kind == ComputedKind::OptionalFloats && c.at(pair).is_none(),
             PairValues::Integers(_)
             | PairValues::Floats(_)
             | PairValues::Booleans(_)
@@ -106,6 +187,14 @@ impl PairValues {
             PairValues::OptionalFloats(v) => {
                 float_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
             }
+            PairValues::Computed(c) => match c.kind {
+                ComputedKind::Integers => {
+                    integer_dictionary(pairs.iter().map(|&p| c.at(p as usize).map(|x| x as i64)), null_count)
+                }
+                ComputedKind::Floats | ComputedKind::OptionalFloats => {
+                    float_dictionary(pairs.iter().map(|&p| c.at(p as usize)), null_count)
+                }
+            },
             PairValues::Booleans(_) => unreachable!("booleans are written without a dictionary"),
         }
     }
@@ -120,6 +209,7 @@ impl PairValues {
             PairValues::OptionalIntegers(v) => v.len(),
             PairValues::Texts(v) => v.len(),
             PairValues::Levels { codes, .. } => codes.len(),
+            PairValues::Computed(c) => c.pairs,
         }
     }
 

@@ -13,8 +13,8 @@
 //! dictionary fallback per slice of 1024 rows of each batch it is given.
 
 use super::atomic::{AtomicFile, SealedFile};
-pub use super::pair_chunks::PairValues;
 use super::pair_chunks::RowGroupPairs;
+pub use super::pair_chunks::{ComputedKind, ComputedValues, PairFunction, PairValues};
 use super::TableFormat;
 use crate::error::{Error, Result};
 use arrow_array::cast::AsArray;
@@ -124,6 +124,7 @@ impl PairValues {
             levels @ PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
                 (0..levels.len()).map(|pair| levels.text(pair)).collect::<StringArray>(),
             )),
+            PairValues::Computed(c) => c.held(0..c.pairs()).into_column(),
         }
     }
 }
@@ -291,6 +292,7 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
         PairValues::Texts(_) | PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
             pair_of_row.iter().map(|i| values.text(at(i))).collect::<StringArray>(),
         )),
+        PairValues::Computed(c) => c.held(pair_of_row.iter().map(at)).into_column(),
     }
 }
 
@@ -327,6 +329,10 @@ impl ScoredParquet {
                 PairValues::Integers(_) | PairValues::OptionalIntegers(_) => DataType::Int64,
                 PairValues::Booleans(_) => DataType::Boolean,
                 PairValues::Floats(_) | PairValues::OptionalFloats(_) => DataType::Float64,
+                PairValues::Computed(c) => match c.kind() {
+                    ComputedKind::Integers => DataType::Int64,
+                    ComputedKind::Floats | ComputedKind::OptionalFloats => DataType::Float64,
+                },
                 PairValues::Texts(_) | PairValues::Levels { .. } => DataType::Utf8,
             };
             Field::new(name, dtype, values.nullable())
@@ -401,18 +407,23 @@ impl ScoredParquet {
             .collect::<parquet::errors::Result<Vec<_>>>()?;
         let pairs = RowGroupPairs::new(&self.row_group_pairs, &mut self.local)?;
         let descriptors = self.file_writer.schema_descr().columns()[row_chunks.len()..].to_vec();
-        let chunks: Vec<(bytes::Bytes, ColumnCloseResult)> = self
-            .pair_columns
-            .par_iter()
-            .zip(descriptors)
-            .map(|((_, values), descr)| pairs.encode_column(values, descr))
-            .collect::<parquet::errors::Result<_>>()?;
         let mut row_group = self.file_writer.next_row_group()?;
         for chunk in row_chunks {
             chunk.append_to_row_group(&mut row_group)?;
         }
-        for (bytes, close) in chunks {
-            row_group.append_column(&bytes, close)?;
+        // A window of columns at a time, one a thread: a row group's encoded
+        // chunks are held only a window at once (with a million distinct pairs
+        // a column chunk is about 5 MB, and there may be twenty).
+        let window = rayon::current_num_threads().max(1);
+        let columns: Vec<_> = self.pair_columns.iter().zip(descriptors).collect();
+        for part in columns.chunks(window) {
+            let chunks: Vec<(bytes::Bytes, ColumnCloseResult)> = part
+                .par_iter()
+                .map(|((_, values), descr)| pairs.encode_column(values, descr.clone()))
+                .collect::<parquet::errors::Result<_>>()?;
+            for (bytes, close) in chunks {
+                row_group.append_column(&bytes, close)?;
+            }
         }
         row_group.close()?;
         self.row_groups += 1;
@@ -639,4 +650,51 @@ pub fn write_table(columns: Columns, path: &Path, metadata: Metadata) -> Result<
     let mut sink = TableSink::create(path)?.with_metadata(metadata);
     sink.write(columns)?;
     sink.finish()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The same values, held as columns or computed per pair as written.
+    fn columns(computed: bool) -> PairColumns {
+        let counts = vec![3_i64, 0, 7, 1, 2];
+        let raw = vec![Some(1.5), None, Some(-0.25), Some(4.0), Some(1e-300)];
+        let shares = vec![0.1, 0.2, 0.3, 0.0, -0.0];
+        if !computed {
+            return vec![
+                ("count".into(), PairValues::Integers(counts)),
+                ("raw".into(), PairValues::OptionalFloats(raw)),
+                ("share".into(), PairValues::Floats(shares)),
+            ];
+        }
+        let make = |kind, f: PairFunction| PairValues::Computed(ComputedValues::new(5, kind, f));
+        vec![
+            ("count".into(), make(ComputedKind::Integers, Arc::new(move |p| Some(counts[p] as f64)))),
+            ("raw".into(), make(ComputedKind::OptionalFloats, Arc::new(move |p| raw[p]))),
+            ("share".into(), make(ComputedKind::Floats, Arc::new(move |p| Some(shares[p])))),
+        ]
+    }
+
+    fn written(path: &Path, computed: bool) -> Vec<u8> {
+        let mut sink = TableSink::create_scored(path, columns(computed)).unwrap();
+        let ids: ArrayRef = Arc::new(StringArray::from(vec!["a", "b", "c", "d", "e", "f", "g"]));
+        sink.write_scored(vec![("id".into(), ids)], &[4, 0, 0, 2, 1, 3, 1]).unwrap();
+        let mut staged = crate::io::atomic::StagedOutputs::default();
+        staged.add(sink.finish().unwrap());
+        staged.commit().unwrap();
+        std::fs::read(path).unwrap()
+    }
+
+    #[test]
+    fn a_computed_column_writes_the_bytes_of_the_column_it_stands_for() {
+        let dir = tempfile::tempdir().unwrap();
+        for extension in ["parquet", "csv", "arrow"] {
+            let held = written(&dir.path().join(format!("held.{extension}")), false);
+            let computed = written(&dir.path().join(format!("computed.{extension}")), true);
+            assert_eq!(held, computed, "{extension}");
+        }
+        let text = std::fs::read_to_string(dir.path().join("computed.csv")).unwrap();
+        assert!(text.starts_with("id,count,raw,share\na,2,1e-300,-0.0\n"), "{text}");
+    }
 }

@@ -26,8 +26,8 @@ use crate::core::diagnostics::{calibration_by_places, PairOutcome};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
 use crate::core::model::dirichlet_multinomial::replicates::{predictive_place, REPLICATES};
 use crate::core::model::dirichlet_multinomial::{
-    fit_levels, log_marginal_at, mean_score_tails, posterior, posterior_shares, share_tails, LevelFit,
-    LevelFitFailure, LevelPosterior, LevelPrior, LevelTable,
+    fit_levels, log_marginal_at, mean_score_tails, posterior, posterior_share, posterior_strength,
+    share_tails, LevelFit, LevelFitFailure, LevelPosterior, LevelPrior, LevelTable,
 };
 use crate::core::model::ValueRule;
 use crate::core::ranking::{posterior_fdr_flags, top_probabilities_by_threshold, LawKinds, RankOrder};
@@ -35,7 +35,9 @@ use crate::error::{Error, Result};
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::{cell_at, GroupColumn, NumericColumn};
 use crate::io::input::{Input, InputBatch, TableSource, SEGMENT_ROLE};
-use crate::io::sink::{ColumnValues, Columns, PairColumns, PairValues, TableSink};
+use crate::io::sink::{
+    ColumnValues, Columns, ComputedKind, ComputedValues, PairColumns, PairFunction, PairValues, TableSink,
+};
 use crate::summary::{
     CalibrationReport, ChecksReport, FlagReport, LevelChecks, LevelReport, LevelSegmentReport, LevelSegments,
     LevelSummary, SegmentTest, TestReport, TopReport, VERDICT_POOR_FIT,
@@ -297,6 +299,12 @@ impl VectorIndex {
         self.collided.get(&vector.iter().map(|v| v.to_bits()).collect::<Vec<_>>()).copied()
     }
 
+    /// Lets go of the room kept for vectors not met (a third of the counts, on average).
+    fn shrink_to_fit(&mut self) {
+        self.counts.shrink_to_fit();
+        self.weights.shrink_to_fit();
+    }
+
     /// Adds `weight` groups to `vector`'s count, numbering it if new.
     fn add(&mut self, vector: &[f64], weight: f64) {
         let hash = Self::hash(vector);
@@ -363,10 +371,11 @@ impl KeyKind for LevelKeys {
 
     fn score(
         job: &LevelJob,
-        counted: Counted,
+        mut counted: Counted,
         staged: &mut StagedOutputs,
         clock: &mut PhaseClock<'_>,
     ) -> Result<(LevelSummary, LevelPlacement)> {
+        counted.vectors.shrink_to_fit();
         let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
         let (summary, columns, furthest) = fit_and_score(job, &keyed, counted.tally, staged, clock)?;
         // The second reading needs the columns and the keys' places, not the table (73 MB at 10M sellers).
@@ -455,8 +464,9 @@ impl Source<LevelKeys> for CountColumns {
 /// `--by` one per distinct (segment, count vector), with the segments in
 /// the order of their keys.
 struct Keyed {
-    /// Each row's counts (rows of different segments may hold equal counts).
-    table: LevelTable,
+    /// Each row's counts (rows of different segments may hold equal counts),
+    /// shared with the output's columns computed from them.
+    table: Arc<LevelTable>,
     /// Each row's segment, its place in `segments` (0 without `--by`).
     segment_of: Vec<u32>,
     /// The segments holding groups, in key order (empty without `--by`).
@@ -472,7 +482,7 @@ struct LevelSegment {
 impl Keyed {
     /// One segment of every row.
     fn plain(table: LevelTable) -> Self {
-        Keyed { segment_of: vec![0; table.len()], segments: Vec::new(), table }
+        Keyed { segment_of: vec![0; table.len()], segments: Vec::new(), table: Arc::new(table) }
     }
 
     /// The rows of the distinct keys met (each its counts, led with `--by`
@@ -513,7 +523,7 @@ impl Keyed {
                 samples: index.sample(number).to_vec(),
             })
             .collect();
-        (Keyed { table, segment_of, segments }, place)
+        (Keyed { table: Arc::new(table), segment_of, segments }, place)
     }
 
     /// The rows of segment `slot` as a table of their own.
@@ -554,7 +564,12 @@ struct SegmentChoice {
 impl LevelPriors<'_> {
     /// The prior of row `i` of `keyed`.
     fn of_row<'p>(&'p self, keyed: &Keyed, i: usize) -> &'p LevelPrior {
-        match self.segments.get(keyed.segment_of[i] as usize).map(|s| &s.fit) {
+        self.of_slot(keyed.segment_of[i])
+    }
+
+    /// The prior of the rows of segment `slot` (0 without `--by`).
+    fn of_slot(&self, slot: u32) -> &LevelPrior {
+        match self.segments.get(slot as usize).map(|s| &s.fit) {
             Some(Ok(own)) => &own.prior,
             _ => &self.all.prior,
         }
@@ -621,7 +636,7 @@ fn fit_and_score(
         summary.mean_score = saved.summary.mean_score;
         summary.mean_score_se = saved.summary.mean_score_se;
     }
-    let columns = vector_columns(job, keyed, &priors, &scored)?;
+    let columns = vector_columns(job, keyed, &priors, scored)?;
     let group_counts = (0..table.len()).map(|i| table.weight(i) as i64).collect();
     stage_vector_output(job, &columns, group_counts, staged)?;
     Ok((summary, columns, furthest))
@@ -939,11 +954,44 @@ fn count_vectors(
     Ok((counted, first_fault, repeats))
 }
 
+/// Each vector's posterior summaries of its mean score, a column each (so
+/// that the output takes them over without a copy).
+struct PosteriorColumns {
+    mean: Vec<f64>,
+    sd: Vec<f64>,
+    lower: Vec<f64>,
+    upper: Vec<f64>,
+    pool_weight: Vec<f64>,
+}
+
+impl PosteriorColumns {
+    fn with_capacity(n: usize) -> Self {
+        let column = || Vec::with_capacity(n);
+        PosteriorColumns {
+            mean: column(),
+            sd: column(),
+            lower: column(),
+            upper: column(),
+            pool_weight: column(),
+        }
+    }
+
+    fn push(&mut self, posterior: LevelPosterior) {
+        self.mean.push(posterior.mean);
+        self.sd.push(posterior.sd);
+        self.lower.push(posterior.lower);
+        self.upper.push(posterior.upper);
+        self.pool_weight.push(posterior.pool_weight);
+    }
+}
+
+/// Vectors scored on the threads at a time: their posteriors are held as a
+/// row each only this many at once.
+const POSTERIOR_CHUNK: usize = 1 << 16;
+
 /// Every vector's posterior and the columns asked for.
 struct ScoredVectors {
-    posteriors: Vec<LevelPosterior>,
-    /// Each vector's posterior mean shares, flat (K a vector).
-    shares: Vec<f64>,
+    posteriors: PosteriorColumns,
     prob_above: Option<Vec<f64>>,
     prob_below: Option<Vec<f64>>,
     prob_share_above: Option<Vec<f64>>,
@@ -956,11 +1004,15 @@ fn score_vectors(job: &LevelJob, keyed: &Keyed, priors: &LevelPriors) -> ScoredV
     let table = &keyed.table;
     let prior = |i: usize| priors.of_row(keyed, i);
     let tail = (1.0 - job.level.get()) / 2.0;
-    let posteriors: Vec<LevelPosterior> = (0..table.len())
-        .into_par_iter()
-        .map(|i| posterior(prior(i), &job.scores, table.vector(i), tail))
-        .collect();
-    let shares = (0..table.len()).flat_map(|i| posterior_shares(prior(i), table.vector(i))).collect();
+    let mut posteriors = PosteriorColumns::with_capacity(table.len());
+    for start in (0..table.len()).step_by(POSTERIOR_CHUNK) {
+        let end = (start + POSTERIOR_CHUNK).min(table.len());
+        let part: Vec<LevelPosterior> = (start..end)
+            .into_par_iter()
+            .map(|i| posterior(prior(i), &job.scores, table.vector(i), tail))
+            .collect();
+        part.into_iter().for_each(|p| posteriors.push(p));
+    }
     let tails_at = |t: f64| -> Vec<(f64, f64)> {
         (0..table.len())
             .into_par_iter()
@@ -988,7 +1040,7 @@ fn score_vectors(job: &LevelJob, keyed: &Keyed, priors: &LevelPriors) -> ScoredV
         // The threshold method: the mean score c with K groups expected beyond it, then
         // each vector's P(mean score beyond c). A pooled prior's posteriors are points.
         let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
-        let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
+        let means = &posteriors.mean;
         let all_points = (0..table.len()).all(|i| matches!(prior(i), LevelPrior::Pooled { .. }));
         let kinds = LawKinds { all_points, floored: false };
         let beyond = |i: usize, c: f64| {
@@ -999,12 +1051,11 @@ fn score_vectors(job: &LevelJob, keyed: &Keyed, priors: &LevelPriors) -> ScoredV
                 below
             }
         };
-        top_probabilities_by_threshold(&means, &weights, kinds, k, order, beyond)
+        top_probabilities_by_threshold(means, &weights, kinds, k, order, beyond)
     });
     ScoredVectors {
         prob_top,
         posteriors,
-        shares,
         prob_share_above,
         prob_above: above.map(|t| t.iter().map(|t| t.1).collect()),
         prob_below: below.map(|t| t.iter().map(|t| t.0).collect()),
@@ -1023,56 +1074,79 @@ fn vector_columns(
     job: &LevelJob,
     keyed: &Keyed,
     priors: &LevelPriors,
-    scored: &ScoredVectors,
+    scored: ScoredVectors,
 ) -> Result<PairColumns> {
     let table = &keyed.table;
-    let posteriors = &scored.posteriors;
-    let each = |f: &dyn Fn(&LevelPosterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
+    let ScoredVectors { posteriors, prob_above, prob_below, prob_share_above, flags, prob_top } = scored;
+    let ranks = job.ranks.map(|order| {
+        let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
+        let summaries =
+            (0..table.len()).map(|i| (posteriors.mean[i], posteriors.lower[i], posteriors.upper[i]));
+        rank_columns(order, &weights, summaries)
+    });
     let samples: Vec<&[ArrayRef]> = keyed.segments.iter().map(|s| &s.samples[..]).collect();
     let segment_values =
         if samples.is_empty() { Vec::new() } else { segment_pair_values(&samples, &keyed.segment_of)? };
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
-    columns.extend(job.levels.iter().enumerate().map(|(k, name)| {
-        (name.clone(), PairValues::Integers((0..table.len()).map(|i| table.vector(i)[k] as i64).collect()))
-    }));
-    let raw = (0..table.len()).map(|i| raw_mean(table.vector(i), &job.scores)).collect();
-    columns.extend([
-        ("raw_mean".to_string(), PairValues::OptionalFloats(raw)),
-        ("posterior_mean".to_string(), each(&|p| p.mean)),
-        ("posterior_sd".to_string(), each(&|p| p.sd)),
-        ("interval_lo".to_string(), each(&|p| p.lower)),
-        ("interval_hi".to_string(), each(&|p| p.upper)),
-        ("pool_weight".to_string(), each(&|p| p.pool_weight)),
-    ]);
+    // The counts, the raw mean and the shares are computed from the table as
+    // they are written, not held as columns (at 10M sellers each would be
+    // a million values or more).
+    let computed =
+        |kind, value: PairFunction| PairValues::Computed(ComputedValues::new(table.len(), kind, value));
     for (k, name) in job.levels.iter().enumerate() {
-        let values = scored.shares.iter().skip(k).step_by(job.levels.len()).copied().collect();
-        columns.push((format!("posterior_share_{name}"), PairValues::Floats(values)));
+        let counts = Arc::clone(table);
+        columns.push((
+            name.clone(),
+            computed(ComputedKind::Integers, Arc::new(move |i| Some(counts.vector(i)[k]))),
+        ));
+    }
+    let (counts, scores) = (Arc::clone(table), job.scores.clone());
+    columns.extend([
+        (
+            "raw_mean".to_string(),
+            computed(ComputedKind::OptionalFloats, Arc::new(move |i| raw_mean(counts.vector(i), &scores))),
+        ),
+        ("posterior_mean".to_string(), PairValues::Floats(posteriors.mean)),
+        ("posterior_sd".to_string(), PairValues::Floats(posteriors.sd)),
+        ("interval_lo".to_string(), PairValues::Floats(posteriors.lower)),
+        ("interval_hi".to_string(), PairValues::Floats(posteriors.upper)),
+        ("pool_weight".to_string(), PairValues::Floats(posteriors.pool_weight)),
+    ]);
+    // Each row's prior by its segment's slot (one slot without --by), and its A + N.
+    let slot_of: Arc<Vec<u32>> =
+        Arc::new(if keyed.segments.is_empty() { Vec::new() } else { keyed.segment_of.clone() });
+    let slot_priors: Arc<Vec<LevelPrior>> =
+        Arc::new((0..keyed.segments.len().max(1) as u32).map(|slot| priors.of_slot(slot).clone()).collect());
+    let strengths: Arc<Vec<Option<f64>>> = Arc::new(
+        (0..table.len()).map(|i| posterior_strength(priors.of_row(keyed, i), table.vector(i))).collect(),
+    );
+    for (k, name) in job.levels.iter().enumerate() {
+        let (counts, slot_of, slot_priors, strengths) =
+            (Arc::clone(table), Arc::clone(&slot_of), Arc::clone(&slot_priors), Arc::clone(&strengths));
+        let share = move |i: usize| {
+            let slot = slot_of.get(i).map_or(0, |&s| s as usize);
+            Some(posterior_share(&slot_priors[slot], counts.vector(i), k, strengths[i]))
+        };
+        columns.push((format!("posterior_share_{name}"), computed(ComputedKind::Floats, Arc::new(share))));
     }
     if !keyed.segments.is_empty() {
         let fell_back = (0..table.len()).map(|i| priors.fell_back(keyed, i)).collect();
         columns.push(("prior_fallback".to_string(), PairValues::Booleans(fell_back)));
     }
-    if let Some(order) = job.ranks {
-        let weights: Vec<f64> = (0..table.len()).map(|i| table.weight(i)).collect();
-        let summaries = posteriors.iter().map(|p| (p.mean, p.lower, p.upper));
-        columns.extend(rank_columns(order, &weights, summaries));
-    }
-    let exceedance = [
-        ("prob_above", &scored.prob_above),
-        ("prob_below", &scored.prob_below),
-        ("prob_share_above", &scored.prob_share_above),
-    ];
+    columns.extend(ranks.into_iter().flatten());
+    let exceedance =
+        [("prob_above", prob_above), ("prob_below", prob_below), ("prob_share_above", prob_share_above)];
     for (name, values) in exceedance {
         if let Some(values) = values {
-            columns.push((name.to_string(), PairValues::Floats(values.clone())));
+            columns.push((name.to_string(), PairValues::Floats(values)));
         }
     }
-    if let Some((values, _)) = &scored.prob_top {
-        columns.push(("prob_top".to_string(), PairValues::Floats(values.clone())));
+    if let Some((values, _)) = prob_top {
+        columns.push(("prob_top".to_string(), PairValues::Floats(values)));
     }
-    if let Some(flags) = &scored.flags {
-        columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged.clone())));
-        columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr.clone())));
+    if let Some(flags) = flags {
+        columns.push(("flagged".to_string(), PairValues::Booleans(flags.flagged)));
+        columns.push(("flag_fdr".to_string(), PairValues::Floats(flags.fdr)));
     }
     Ok(columns)
 }
@@ -1227,8 +1301,8 @@ fn summarise(
     let outcomes: Vec<PairOutcome> = (0..table.len())
         .map(|i| PairOutcome {
             raw_rate: raw_mean(table.vector(i), &job.scores),
-            posterior_mean: scored.posteriors[i].mean,
-            pool_weight: scored.posteriors[i].pool_weight,
+            posterior_mean: scored.posteriors.mean[i],
+            pool_weight: scored.posteriors.pool_weight[i],
             groups: table.weight(i),
         })
         .collect();
@@ -1327,7 +1401,7 @@ fn segment_reports(
     job: &LevelJob,
     keyed: &Keyed,
     priors: &LevelPriors,
-    posteriors: &[LevelPosterior],
+    posteriors: &PosteriorColumns,
 ) -> (Option<LevelSegments>, Option<SegmentTest>) {
     if keyed.segments.is_empty() {
         return (None, None);
@@ -1344,8 +1418,8 @@ fn segment_reports(
                 .iter()
                 .map(|&i| PairOutcome {
                     raw_rate: raw_mean(table.vector(i), &job.scores),
-                    posterior_mean: posteriors[i].mean,
-                    pool_weight: posteriors[i].pool_weight,
+                    posterior_mean: posteriors.mean[i],
+                    pool_weight: posteriors.pool_weight[i],
                     groups: table.weight(i),
                 })
                 .collect();

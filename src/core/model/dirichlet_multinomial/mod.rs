@@ -589,6 +589,25 @@ pub fn posterior_shares(prior: &LevelPrior, counts: &[f64]) -> Vec<f64> {
     }
 }
 
+/// A + N, the sum of the posterior shapes (None under pooled shares),
+/// summed as [`posterior_shares`] sums them.
+pub fn posterior_strength(prior: &LevelPrior, counts: &[f64]) -> Option<f64> {
+    match prior {
+        LevelPrior::Dirichlet { shapes } => Some(shapes.iter().zip(counts).map(|(a, n)| a + n).sum()),
+        LevelPrior::Pooled { .. } => None,
+    }
+}
+
+/// The posterior mean share of `level`, given the [`posterior_strength`]:
+/// element `level` of [`posterior_shares`], to the bit, without the vector.
+pub fn posterior_share(prior: &LevelPrior, counts: &[f64], level: usize, strength: Option<f64>) -> f64 {
+    match (prior, strength) {
+        (LevelPrior::Dirichlet { shapes }, Some(total)) => (shapes[level] + counts[level]) / total,
+        (LevelPrior::Dirichlet { .. }, None) => posterior_shares(prior, counts)[level],
+        (LevelPrior::Pooled { shares }, _) => shares[level],
+    }
+}
+
 /// (P(X ≤ t), P(X > t)) for X fixed at `value` (pooled shares).
 fn point_tails(value: f64, t: f64) -> (f64, f64) {
     if value > t {
@@ -625,6 +644,24 @@ pub fn share_tails(prior: &LevelPrior, counts: &[f64], level: usize, x: f64) -> 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn one_share_is_that_level_of_all_the_shares_to_the_bit() {
+        let priors = [
+            LevelPrior::Dirichlet { shapes: vec![0.31, 1.7, 0.05, 12.5, 3.3] },
+            LevelPrior::Pooled { shares: vec![0.1, 0.2, 0.3, 0.25, 0.15] },
+        ];
+        for prior in &priors {
+            for counts in [[0.0; 5], [1.0, 0.0, 3.0, 17.0, 2.0], [1e6, 3.0, 0.0, 5e5, 1.0]] {
+                let all = posterior_shares(prior, &counts);
+                let strength = posterior_strength(prior, &counts);
+                for (level, share) in all.iter().enumerate() {
+                    assert_eq!(posterior_share(prior, &counts, level, strength).to_bits(), share.to_bits());
+                    assert_eq!(posterior_share(prior, &counts, level, None).to_bits(), share.to_bits());
+                }
+            }
+        }
+    }
 
     /// Every count vector over `levels` levels summing to `total`.
     fn compositions(total: usize, levels: usize) -> Vec<Vec<usize>> {
