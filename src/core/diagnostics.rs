@@ -111,28 +111,27 @@ pub fn pull_of_pairs(
     pairs: &[crate::core::pairs::WeightedPair],
     posteriors: &[crate::core::model::Posterior],
 ) -> Pull {
-    let outcomes: Vec<PairOutcome> = pairs
-        .iter()
-        .zip(posteriors)
-        .map(|(pair, post)| PairOutcome {
-            raw_rate: terms.raw_value(pair.size, pair.count),
-            posterior_mean: post.mean,
-            pool_weight: post.pool_weight,
-            groups: pair.weight,
-        })
-        .collect();
-    pull(&outcomes)
+    let outcome = |i: usize| PairOutcome {
+        raw_rate: terms.raw_value(pairs[i].size, pairs[i].count),
+        posterior_mean: posteriors[i].mean,
+        pool_weight: posteriors[i].pool_weight,
+        groups: pairs[i].weight,
+    };
+    pull(pairs.len().min(posteriors.len()), outcome)
 }
 
-/// Computes the pull summary over all groups from the distinct pairs they
-/// share; `max_shift_row` is then the index of the pair with the largest shift.
-pub fn pull(pairs: &[PairOutcome]) -> Pull {
-    let mut weights: Vec<(f64, f64)> = pairs.iter().map(|p| (p.pool_weight, p.groups)).collect();
+/// Computes the pull summary over all groups from the `pairs` distinct
+/// pairs they share, pair i's outcome being `outcome(i)` (made as needed,
+/// not held: at a million pairs and more they would be a large table);
+/// `max_shift_row` is then the index of the pair with the largest shift.
+pub fn pull(pairs: usize, outcome: impl Fn(usize) -> PairOutcome) -> Pull {
+    let mut weights: Vec<(f64, f64)> = (0..pairs).map(&outcome).map(|p| (p.pool_weight, p.groups)).collect();
+    // Summed in pair order, before the sort.
+    let groups: f64 = weights.iter().map(|&(_, g)| g).sum();
     weights.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let groups: f64 = pairs.iter().map(|p| p.groups).sum();
     let (mut raws, mut posts, mut counts) = (Vec::new(), Vec::new(), Vec::new());
     let (mut total_shift, mut max_shift, mut max_pair) = (0.0, f64::NEG_INFINITY, None);
-    for (index, pair) in pairs.iter().enumerate() {
+    for (index, pair) in (0..pairs).map(&outcome).enumerate() {
         if let Some(raw) = pair.raw_rate {
             let shift = (pair.posterior_mean - raw).abs();
             total_shift += shift * pair.groups;

@@ -371,11 +371,10 @@ impl KeyKind for LevelKeys {
 
     fn score(
         job: &LevelJob,
-        mut counted: Counted,
+        counted: Counted,
         staged: &mut StagedOutputs,
         clock: &mut PhaseClock<'_>,
     ) -> Result<(LevelSummary, LevelPlacement)> {
-        counted.vectors.shrink_to_fit();
         let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
         let (summary, columns, furthest) = fit_and_score(job, &keyed, counted.tally, staged, clock)?;
         // The second reading needs the columns and the keys' places, not the table (73 MB at 10M sellers).
@@ -796,6 +795,7 @@ impl Source<LevelKeys> for RatingRows<'_> {
             self.key_of(g, segmented, &mut vector);
             vectors.add(&vector, 1.0);
         }
+        vectors.shrink_to_fit();
         Ok(Counted { vectors, segments, tally })
     }
 
@@ -921,6 +921,7 @@ fn count_vectors(
         counted.tally.rows = batch.first_row + batch.rows();
         clock.rows("pass 1 of 2", counted.tally.rows, input.known_rows())
     })?;
+    counted.vectors.shrink_to_fit();
     clock.lap("pass-1", "pass 1: read, validate, count the count vectors")?;
     let candidates = ids.repeated().map_err(spill_failed)?;
     if candidates.is_empty() {
@@ -1298,15 +1299,13 @@ fn summarise(
         .collect();
     let (mean_score, mean_score_se) = fitted.mean_score(&job.scores, &priors.all_table);
     let groups = table.groups();
-    let outcomes: Vec<PairOutcome> = (0..table.len())
-        .map(|i| PairOutcome {
-            raw_rate: raw_mean(table.vector(i), &job.scores),
-            posterior_mean: scored.posteriors.mean[i],
-            pool_weight: scored.posteriors.pool_weight[i],
-            groups: table.weight(i),
-        })
-        .collect();
-    let pull = crate::core::diagnostics::pull(&outcomes);
+    let outcome = |i: usize| PairOutcome {
+        raw_rate: raw_mean(table.vector(i), &job.scores),
+        posterior_mean: scored.posteriors.mean[i],
+        pool_weight: scored.posteriors.pool_weight[i],
+        groups: table.weight(i),
+    };
+    let pull = crate::core::diagnostics::pull(table.len(), outcome);
     let checks = level_checks(job, keyed, priors);
     let (segments, segment_test) = segment_reports(job, keyed, priors, &scored.posteriors);
     let mut warnings = Vec::new();
@@ -1439,7 +1438,7 @@ fn segment_reports(
                 strength: prior.strength(),
                 mean_score: prior.mean_score(&job.scores),
                 log_marginal_likelihood: own,
-                pull: pull_report(&crate::core::diagnostics::pull(&outcomes), None),
+                pull: pull_report(&crate::core::diagnostics::pull(outcomes.len(), |i| outcomes[i]), None),
                 fallback: choice.fit.as_ref().err().cloned(),
             }
         })
