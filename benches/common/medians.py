@@ -4,9 +4,10 @@ the last one group the runs (a format, a size); the last names the variant.
 Each variant's median wall time and largest peak, and its ratio to the
 variant BASE of the same group. Each `--at-most VARIANT=RATIO` is a target:
 the script exits 1, naming it, when that variant's median is above RATIO
-times BASE's in any group.
+times BASE's in any group; each `--peak-at-most VARIANT=MB` likewise when
+that variant's largest peak is above MB in any group.
 
-usage: python3 benches/common/medians.py LOG BASE [--at-most VARIANT=RATIO ...]
+usage: python3 benches/common/medians.py LOG BASE [--at-most VARIANT=RATIO ...] [--peak-at-most VARIANT=MB ...]
 """
 import collections
 import statistics
@@ -15,14 +16,16 @@ import sys
 
 def main() -> None:
     log, base = sys.argv[1], sys.argv[2]
-    targets = {}
+    targets, peaks = {}, {}
     rest = sys.argv[3:]
     while rest:
+        if len(rest) < 2:
+            sys.exit(f"usage: medians.py LOG BASE [--at-most VARIANT=RATIO ...] [--peak-at-most VARIANT=MB ...], not {rest[0]}")
         flag, target, *rest = rest
-        if flag != "--at-most" or "=" not in target:
-            sys.exit(f"usage: medians.py LOG BASE [--at-most VARIANT=RATIO ...], not {flag} {target}")
-        variant, ratio = target.split("=", 1)
-        targets[variant] = float(ratio)
+        if flag not in ("--at-most", "--peak-at-most") or "=" not in target:
+            sys.exit(f"usage: medians.py LOG BASE [--at-most VARIANT=RATIO ...] [--peak-at-most VARIANT=MB ...], not {flag} {target}")
+        variant, bound = target.split("=", 1)
+        (targets if flag == "--at-most" else peaks)[variant] = float(bound)
     missed = []
     times, memory = collections.defaultdict(list), collections.defaultdict(list)
     for line in open(log):
@@ -39,6 +42,8 @@ def main() -> None:
               f"{median / reference:.2f} x {base}")
         if variant in targets and median > targets[variant] * reference:
             missed.append(f"{where} {variant}: {median / reference:.2f} x {base}, target at most {targets[variant]}")
+        if variant in peaks and max(memory[key]) > peaks[variant]:
+            missed.append(f"{where} {variant}: peak {max(memory[key])} MB, target at most {peaks[variant]:g} MB")
     if missed:
         sys.exit("target missed: " + "; ".join(missed))
 

@@ -414,7 +414,7 @@ impl ScoredParquet {
         // A window of columns at a time, one a thread: a row group's encoded
         // chunks are held only a window at once (with a million distinct pairs
         // a column chunk is about 5 MB, and there may be twenty).
-        let window = rayon::current_num_threads().max(1);
+        let window = 2 * rayon::current_num_threads().max(1);
         let columns: Vec<_> = self.pair_columns.iter().zip(descriptors).collect();
         for part in columns.chunks(window) {
             let chunks: Vec<(bytes::Bytes, ColumnCloseResult)> = part
