@@ -1,14 +1,17 @@
-//! The star-rating run: one row per group with a count per level (one
-//! column each), fitted by the Dirichlet-multinomial model over the distinct
-//! count vectors ([`crate::core::model::dirichlet_multinomial`]), and each
-//! group's posterior mean score written beside its id.
+//! The star-rating run: groups with a count per level, fitted by the
+//! Dirichlet-multinomial model over the distinct count vectors
+//! ([`crate::core::model::dirichlet_multinomial`]), and each group's
+//! posterior mean score written beside its id.
 //!
-//! It reads as the pair path does, in two passes over the input: pass 1
-//! validates every row, counts the distinct vectors and hashes every id
-//! (one more read compares the ids whose hashes repeat); pass 2 validates
-//! again with the same check and writes each group's row from its vector's
-//! posterior. Every output is staged and renamed into place at the end,
-//! all or nothing.
+//! Its groups are keyed by their vector of counts ([`LevelKeys`], a kind of
+//! key of the one driver, [`super::driver`]), read by one of two sources:
+//! [`CountColumns`], one row per group with a count column per level, read as
+//! the pair path reads (pass 1 validates every row, counts the distinct
+//! vectors and hashes every id, one more read compares the ids whose hashes
+//! repeat; pass 2 validates again with the same check and writes each
+//! group's row from its vector's posterior); or [`RatingRows`], one row per
+//! rating, counted per group in one pass and written one row per group.
+//! Every output is staged and renamed into place at the end, all or nothing.
 
 use super::clock::PhaseClock;
 use super::driver::{drive, no_valid_rows, KeyKind, RowTally, Source};
@@ -287,10 +290,6 @@ impl VectorIndex {
         &self.counts[i as usize * self.levels..(i as usize + 1) * self.levels]
     }
 
-    fn find(&self, vector: &[f64]) -> Option<u32> {
-        self.find_hashed(vector, Self::hash(vector))
-    }
-
     fn find_hashed(&self, vector: &[f64], hash: u64) -> Option<u32> {
         let first = *self.by_hash.get(&hash)?;
         if self.vector(first) == vector {
@@ -330,6 +329,65 @@ impl VectorIndex {
     }
 }
 
+impl VectorIndex {
+    /// The index turned into pass 2's lookup: each hash pointing at its
+    /// vector's row of `keyed`'s table (`place`, from [`Keyed::of`]), the
+    /// counts let go (the table holds them).
+    fn into_lookup(self, place: &[u32], keyed: &Keyed) -> VectorLookup {
+        let VectorIndex { mut by_hash, mut collided, .. } = self;
+        for at in by_hash.values_mut().chain(collided.values_mut()) {
+            *at = place[*at as usize];
+        }
+        VectorLookup {
+            by_hash,
+            collided,
+            table: Arc::clone(&keyed.table),
+            segment_of: if keyed.segments.is_empty() { Vec::new() } else { keyed.segment_of.clone() },
+            slot_of_met: keyed.slot_of_met.clone(),
+        }
+    }
+}
+
+/// Pass 2's way from a row's key (its counts, led with `--by` by its
+/// segment's number as met) to its row of the scored table: the hashes of
+/// the vector index, each checked against the table row it points at.
+struct VectorLookup {
+    /// A hash's first vector's row (`u32::MAX`: no group of it was kept).
+    by_hash: HashMap<u64, u32, std::hash::BuildHasherDefault<crate::core::pairs::PairHasher>>,
+    /// The rows of the rare vectors whose hash another holds, by their full key.
+    collided: HashMap<Vec<u64>, u32>,
+    table: Arc<LevelTable>,
+    /// With `--by`: each table row's segment slot.
+    segment_of: Vec<u32>,
+    /// With `--by`: each segment's slot by its number as met.
+    slot_of_met: Vec<u32>,
+}
+
+impl VectorLookup {
+    /// The table row of `key`, if some group of it was kept.
+    fn find(&self, key: &[f64]) -> Option<u32> {
+        let first = *self.by_hash.get(&VectorIndex::hash(key))?;
+        if first != u32::MAX && self.holds(first, key) {
+            return Some(first);
+        }
+        self.collided
+            .get(&key.iter().map(|v| v.to_bits()).collect::<Vec<_>>())
+            .copied()
+            .filter(|&r| r != u32::MAX)
+    }
+
+    /// Whether table row `row` is `key`'s.
+    fn holds(&self, row: u32, key: &[f64]) -> bool {
+        if self.slot_of_met.is_empty() {
+            return self.table.vector(row as usize) == key;
+        }
+        // A segment pass 1 did not meet has no slot.
+        let met = key[0] as usize;
+        self.table.vector(row as usize) == &key[1..]
+            && self.slot_of_met.get(met) == Some(&self.segment_of[row as usize])
+    }
+}
+
 /// What a source's first reading found: the distinct vectors (led with
 /// `--by` by their segment's number as met) and the segments met.
 pub(super) struct Counted {
@@ -344,9 +402,8 @@ pub(super) struct LevelKeys;
 /// What the second reading needs: the vectors met, each one's row in the
 /// scored table, the columns per row, and the row whose groups moved furthest.
 pub(super) struct LevelPlacement {
-    vectors: VectorIndex,
+    lookup: VectorLookup,
     segments: SegmentIndex,
-    place: Vec<u32>,
     columns: PairColumns,
     furthest: Option<u32>,
 }
@@ -376,11 +433,13 @@ impl KeyKind for LevelKeys {
         clock: &mut PhaseClock<'_>,
     ) -> Result<(LevelSummary, LevelPlacement)> {
         let (keyed, place) = Keyed::of(job.levels.len(), &counted.vectors, &counted.segments);
+        // The table holds the counts from here: the index keeps only its hashes, for pass 2.
+        let lookup = counted.vectors.into_lookup(&place, &keyed);
+        drop(place);
         let (summary, columns, furthest) = fit_and_score(job, &keyed, counted.tally, staged, clock)?;
         // The second reading needs the columns and the keys' places, not the table (73 MB at 10M sellers).
         drop(keyed);
-        let placement =
-            LevelPlacement { vectors: counted.vectors, segments: counted.segments, place, columns, furthest };
+        let placement = LevelPlacement { lookup, segments: counted.segments, columns, furthest };
         Ok((summary, placement))
     }
 
@@ -434,10 +493,8 @@ impl CountColumns {
 impl Source<LevelKeys> for CountColumns {
     fn count(&mut self, job: &LevelJob, clock: &mut PhaseClock<'_>) -> Result<Counted> {
         let (counted, first_fault, repeats) = count_vectors(job, &self.input, clock)?;
-        if counted.tally.rows > 0 {
-            if let Some((_, fault)) = first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
-                return Err(fault);
-            }
+        if let Some((_, fault)) = first_fault.filter(|_| job.invalid == InvalidRows::Fail) {
+            return Err(fault);
         }
         self.rows = counted.tally.rows;
         self.repeats = repeats;
@@ -470,6 +527,9 @@ struct Keyed {
     segment_of: Vec<u32>,
     /// The segments holding groups, in key order (empty without `--by`).
     segments: Vec<LevelSegment>,
+    /// With `--by`: each segment's slot in `segments` by its number as met
+    /// (`u32::MAX` for one holding no group).
+    slot_of_met: Vec<u32>,
 }
 
 /// A segment of `--by`: its values, and one row of each segment column holding them.
@@ -481,7 +541,12 @@ struct LevelSegment {
 impl Keyed {
     /// One segment of every row.
     fn plain(table: LevelTable) -> Self {
-        Keyed { segment_of: vec![0; table.len()], segments: Vec::new(), table: Arc::new(table) }
+        Keyed {
+            segment_of: vec![0; table.len()],
+            segments: Vec::new(),
+            slot_of_met: Vec::new(),
+            table: Arc::new(table),
+        }
     }
 
     /// The rows of the distinct keys met (each its counts, led with `--by`
@@ -522,7 +587,7 @@ impl Keyed {
                 samples: index.sample(number).to_vec(),
             })
             .collect();
-        (Keyed { table: Arc::new(table), segment_of, segments }, place)
+        (Keyed { table: Arc::new(table), segment_of, segments, slot_of_met: slot_of }, place)
     }
 
     /// The rows of segment `slot` as a table of their own.
@@ -807,13 +872,13 @@ impl Source<LevelKeys> for RatingRows<'_> {
         staged: &mut StagedOutputs,
         clock: &mut PhaseClock<'_>,
     ) -> Result<Option<String>> {
-        let LevelPlacement { vectors, segments, place, columns, furthest } = placement;
+        let LevelPlacement { lookup, segments, columns, furthest } = placement;
         let segmented = !segments.is_empty();
         let mut vector = Vec::with_capacity(self.values.len() + 1);
         let vector_of_group: Vec<u32> = (0..self.ids.len())
             .map(|g| {
                 self.key_of(g, segmented, &mut vector);
-                place[vectors.find(&vector).expect("counted") as usize]
+                lookup.find(&vector).expect("counted")
             })
             .collect();
         let furthest_group =
@@ -1200,7 +1265,7 @@ fn write_groups(
     (placement, repeats, rows): (LevelPlacement, Repeats, usize),
     (staged, clock): (&mut StagedOutputs, &mut PhaseClock<'_>),
 ) -> Result<Option<String>> {
-    let LevelPlacement { vectors, mut segments, place, columns, furthest } = placement;
+    let LevelPlacement { lookup, mut segments, columns, furthest } = placement;
     let mut furthest_group = None;
     let sink = TableSink::create_scored(&job.output, columns)?;
     let mut rejects = match &job.invalid {
@@ -1225,10 +1290,8 @@ fn write_groups(
                 }
                 match outcome {
                     Ok(()) => {
-                        let position = vectors
+                        let position = lookup
                             .find(view.key(row, &mut segments, &vector, &mut key))
-                            .map(|met| place[met as usize])
-                            .filter(|&p| p != u32::MAX)
                             .ok_or_else(changed)?;
                         if furthest_group.is_none() && Some(position) == furthest {
                             furthest_group = Some(view.group.text(row));
@@ -1514,11 +1577,17 @@ mod tests {
         index.add(&[3.0, 4.0], 1.0);
         index.add(&[3.0, 4.0], 1.0);
         index.add(&[1.0, 2.0], -1.0);
-        assert_eq!(index.find(&[1.0, 2.0]), Some(0));
-        assert_eq!(index.find(&[3.0, 4.0]), Some(1));
-        assert_eq!(index.find(&[5.0, 6.0]), None);
+        let find = |v: &[f64]| index.find_hashed(v, VectorIndex::hash(v));
+        assert_eq!(find(&[1.0, 2.0]), Some(0));
+        assert_eq!(find(&[3.0, 4.0]), Some(1));
+        assert_eq!(find(&[5.0, 6.0]), None);
         assert_eq!(index.weights, [0.0, 2.0]);
         let (table, place) = LevelTable::of_distinct(2, &index.counts, &index.weights);
-        assert_eq!((table.len(), place), (1, vec![u32::MAX, 0]));
+        assert_eq!((table.len(), place.clone()), (1, vec![u32::MAX, 0]));
+        // Pass 2 finds the kept vector at its table row, and no row for the one no group kept.
+        let lookup = index.into_lookup(&place, &Keyed::plain(table));
+        assert_eq!(lookup.find(&[3.0, 4.0]), Some(0));
+        assert_eq!(lookup.find(&[1.0, 2.0]), None);
+        assert_eq!(lookup.find(&[5.0, 6.0]), None);
     }
 }
