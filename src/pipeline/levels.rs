@@ -29,8 +29,8 @@ use crate::core::diagnostics::{calibration_by_places, PairOutcome};
 use crate::core::fit::{OverdispersionTest, PoolingTest};
 use crate::core::model::dirichlet_multinomial::replicates::{predictive_place, REPLICATES};
 use crate::core::model::dirichlet_multinomial::{
-    fit_levels, log_marginal_at, mean_score_tails, posterior, posterior_share, posterior_strength,
-    share_tails, LevelFit, LevelFitFailure, LevelPosterior, LevelPrior, LevelTable,
+    fit_levels, log_marginal_at, mean_score_tails, posterior, posterior_share, share_tails, LevelFit,
+    LevelFitFailure, LevelPosterior, LevelPrior, LevelTable,
 };
 use crate::core::model::ValueRule;
 use crate::core::ranking::{posterior_fdr_flags, top_probabilities_by_threshold, LawKinds, RankOrder};
@@ -342,7 +342,7 @@ impl VectorIndex {
             by_hash,
             collided,
             table: Arc::clone(&keyed.table),
-            segment_of: if keyed.segments.is_empty() { Vec::new() } else { keyed.segment_of.clone() },
+            segment_of: keyed.slots_if_segmented(),
             slot_of_met: keyed.slot_of_met.clone(),
         }
     }
@@ -357,8 +357,8 @@ struct VectorLookup {
     /// The rows of the rare vectors whose hash another holds, by their full key.
     collided: HashMap<Vec<u64>, u32>,
     table: Arc<LevelTable>,
-    /// With `--by`: each table row's segment slot.
-    segment_of: Vec<u32>,
+    /// With `--by`: each table row's segment slot (empty without).
+    segment_of: Arc<Vec<u32>>,
     /// With `--by`: each segment's slot by its number as met.
     slot_of_met: Vec<u32>,
 }
@@ -523,8 +523,9 @@ struct Keyed {
     /// Each row's counts (rows of different segments may hold equal counts),
     /// shared with the output's columns computed from them.
     table: Arc<LevelTable>,
-    /// Each row's segment, its place in `segments` (0 without `--by`).
-    segment_of: Vec<u32>,
+    /// Each row's segment, its place in `segments` (0 without `--by`),
+    /// shared with pass 2's lookup and the shares computed as written.
+    segment_of: Arc<Vec<u32>>,
     /// The segments holding groups, in key order (empty without `--by`).
     segments: Vec<LevelSegment>,
     /// With `--by`: each segment's slot in `segments` by its number as met
@@ -542,7 +543,7 @@ impl Keyed {
     /// One segment of every row.
     fn plain(table: LevelTable) -> Self {
         Keyed {
-            segment_of: vec![0; table.len()],
+            segment_of: Arc::new(vec![0; table.len()]),
             segments: Vec::new(),
             slot_of_met: Vec::new(),
             table: Arc::new(table),
@@ -587,7 +588,24 @@ impl Keyed {
                 samples: index.sample(number).to_vec(),
             })
             .collect();
-        (Keyed { table: Arc::new(table), segment_of, segments, slot_of_met: slot_of }, place)
+        (
+            Keyed {
+                table: Arc::new(table),
+                segment_of: Arc::new(segment_of),
+                segments,
+                slot_of_met: slot_of,
+            },
+            place,
+        )
+    }
+
+    /// Each row's segment slot with `--by`, shared; empty without (every row's slot is 0).
+    fn slots_if_segmented(&self) -> Arc<Vec<u32>> {
+        if self.segments.is_empty() {
+            Arc::default()
+        } else {
+            Arc::clone(&self.segment_of)
+        }
     }
 
     /// The rows of segment `slot` as a table of their own.
@@ -1178,20 +1196,16 @@ fn vector_columns(
         ("interval_hi".to_string(), PairValues::Floats(posteriors.upper)),
         ("pool_weight".to_string(), PairValues::Floats(posteriors.pool_weight)),
     ]);
-    // Each row's prior by its segment's slot (one slot without --by), and its A + N.
-    let slot_of: Arc<Vec<u32>> =
-        Arc::new(if keyed.segments.is_empty() { Vec::new() } else { keyed.segment_of.clone() });
+    // Each row's prior by its segment's slot (one slot without --by).
+    let slot_of = keyed.slots_if_segmented();
     let slot_priors: Arc<Vec<LevelPrior>> =
         Arc::new((0..keyed.segments.len().max(1) as u32).map(|slot| priors.of_slot(slot).clone()).collect());
-    let strengths: Arc<Vec<Option<f64>>> = Arc::new(
-        (0..table.len()).map(|i| posterior_strength(priors.of_row(keyed, i), table.vector(i))).collect(),
-    );
     for (k, name) in job.levels.iter().enumerate() {
-        let (counts, slot_of, slot_priors, strengths) =
-            (Arc::clone(table), Arc::clone(&slot_of), Arc::clone(&slot_priors), Arc::clone(&strengths));
+        let (counts, slot_of, slot_priors) =
+            (Arc::clone(table), Arc::clone(&slot_of), Arc::clone(&slot_priors));
         let share = move |i: usize| {
             let slot = slot_of.get(i).map_or(0, |&s| s as usize);
-            Some(posterior_share(&slot_priors[slot], counts.vector(i), k, strengths[i]))
+            Some(posterior_share(&slot_priors[slot], counts.vector(i), k))
         };
         columns.push((format!("posterior_share_{name}"), computed(ComputedKind::Floats, Arc::new(share))));
     }

@@ -592,22 +592,16 @@ pub fn posterior_shares(prior: &LevelPrior, counts: &[f64]) -> Vec<f64> {
     }
 }
 
-/// A + N, the sum of the posterior shapes (None under pooled shares),
-/// summed as [`posterior_shares`] sums them.
-pub fn posterior_strength(prior: &LevelPrior, counts: &[f64]) -> Option<f64> {
+/// The posterior mean share of `level`: element `level` of
+/// [`posterior_shares`], to the bit, without the vector.
+pub fn posterior_share(prior: &LevelPrior, counts: &[f64], level: usize) -> f64 {
     match prior {
-        LevelPrior::Dirichlet { shapes } => Some(shapes.iter().zip(counts).map(|(a, n)| a + n).sum()),
-        LevelPrior::Pooled { .. } => None,
-    }
-}
-
-/// The posterior mean share of `level`, given the [`posterior_strength`]:
-/// element `level` of [`posterior_shares`], to the bit, without the vector.
-pub fn posterior_share(prior: &LevelPrior, counts: &[f64], level: usize, strength: Option<f64>) -> f64 {
-    match (prior, strength) {
-        (LevelPrior::Dirichlet { shapes }, Some(total)) => (shapes[level] + counts[level]) / total,
-        (LevelPrior::Dirichlet { .. }, None) => posterior_shares(prior, counts)[level],
-        (LevelPrior::Pooled { shares }, _) => shares[level],
+        LevelPrior::Dirichlet { shapes } => {
+            // A + N, summed as posterior_shares sums it.
+            let total: f64 = shapes.iter().zip(counts).map(|(a, n)| a + n).sum();
+            (shapes[level] + counts[level]) / total
+        }
+        LevelPrior::Pooled { shares } => shares[level],
     }
 }
 
@@ -657,10 +651,8 @@ mod tests {
         for prior in &priors {
             for counts in [[0.0; 5], [1.0, 0.0, 3.0, 17.0, 2.0], [1e6, 3.0, 0.0, 5e5, 1.0]] {
                 let all = posterior_shares(prior, &counts);
-                let strength = posterior_strength(prior, &counts);
                 for (level, share) in all.iter().enumerate() {
-                    assert_eq!(posterior_share(prior, &counts, level, strength).to_bits(), share.to_bits());
-                    assert_eq!(posterior_share(prior, &counts, level, None).to_bits(), share.to_bits());
+                    assert_eq!(posterior_share(prior, &counts, level).to_bits(), share.to_bits());
                 }
             }
         }
