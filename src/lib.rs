@@ -8,6 +8,7 @@
 //! Layers, each depending only on those before it:
 //! * [`core`]: pure numerics (special functions, models, fit, posteriors).
 //! * [`io`]: reading and writing tables (CSV, Parquet through arrow-rs), in batches, atomically.
+//! * [`memory`]: free memory handed back to the system between a run's phases.
 //! * [`summary`]: the JSON summary's wire types, and its figures in words.
 //! * [`pipeline`]: validation, pair aggregation, fit and scoring, end to end.
 //! * [`report`]: the terminal text of a summary.
@@ -31,6 +32,7 @@ pub mod config;
 pub mod core;
 pub mod error;
 pub mod io;
+pub mod memory;
 pub mod pipeline;
 pub mod progress;
 pub mod report;

@@ -61,8 +61,10 @@ pub fn weighted_quantile(sorted: &[(f64, f64)], q: f64) -> f64 {
 /// Average ranks (1-based, ties sharing their mean rank) of values that each
 /// stand for `weight` equal observations.
 pub fn weighted_average_ranks(values: &[f64], weights: &[f64]) -> Vec<f64> {
+    // Unstable: tied values share one rank whatever their order (the ties'
+    // weights are summed in that order, which for whole-number weights is exact).
     let mut order: Vec<usize> = (0..values.len()).collect();
-    order.sort_by(|&a, &b| values[a].total_cmp(&values[b]));
+    order.sort_unstable_by(|&a, &b| values[a].total_cmp(&values[b]));
     let mut ranks = vec![0.0; values.len()];
     let (mut start, mut below) = (0, 0.0);
     while start < order.len() {
@@ -125,11 +127,23 @@ pub fn pull_of_pairs(
 /// not held: at a million pairs and more they would be a large table);
 /// `max_shift_row` is then the index of the pair with the largest shift.
 pub fn pull(pairs: usize, outcome: impl Fn(usize) -> PairOutcome) -> Pull {
-    let mut weights: Vec<(f64, f64)> = (0..pairs).map(&outcome).map(|p| (p.pool_weight, p.groups)).collect();
-    // Summed in pair order, before the sort.
-    let groups: f64 = weights.iter().map(|&(_, g)| g).sum();
-    weights.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let (mut raws, mut posts, mut counts) = (Vec::new(), Vec::new(), Vec::new());
+    // The pool weights' summary first, so that their sorted copy is freed
+    // before the rank correlation's tables are made.
+    let (pool_weight_mean, [pool_weight_median, pool_weight_p10, pool_weight_p90]) = {
+        let mut weights: Vec<(f64, f64)> =
+            (0..pairs).map(&outcome).map(|p| (p.pool_weight, p.groups)).collect();
+        // Summed in pair order, before the sort.
+        let groups: f64 = weights.iter().map(|&(_, g)| g).sum();
+        weights.sort_by(|a, b| a.0.total_cmp(&b.0));
+        if weights.is_empty() {
+            (0.0, [0.0; 3])
+        } else {
+            let mean = weights.iter().map(|(v, w)| v * w).sum::<f64>() / groups;
+            (mean, [0.5, 0.1, 0.9].map(|p| weighted_quantile(&weights, p)))
+        }
+    };
+    let (mut raws, mut posts, mut counts) =
+        (Vec::with_capacity(pairs), Vec::with_capacity(pairs), Vec::with_capacity(pairs));
     let (mut total_shift, mut max_shift, mut max_pair) = (0.0, f64::NEG_INFINITY, None);
     for (index, pair) in (0..pairs).map(&outcome).enumerate() {
         if let Some(raw) = pair.raw_rate {
@@ -145,13 +159,11 @@ pub fn pull(pairs: usize, outcome: impl Fn(usize) -> PairOutcome) -> Pull {
         }
     }
     let with_rate: f64 = counts.iter().sum();
-    let empty = weights.is_empty();
-    let q = |p: f64| if empty { 0.0 } else { weighted_quantile(&weights, p) };
     Pull {
-        pool_weight_mean: if empty { 0.0 } else { weights.iter().map(|(v, w)| v * w).sum::<f64>() / groups },
-        pool_weight_median: q(0.5),
-        pool_weight_p10: q(0.1),
-        pool_weight_p90: q(0.9),
+        pool_weight_mean,
+        pool_weight_median,
+        pool_weight_p10,
+        pool_weight_p90,
         mean_abs_shift: (with_rate > 0.0).then(|| total_shift / with_rate),
         max_abs_shift: max_pair.map(|_| max_shift),
         max_shift_row: max_pair,

@@ -100,6 +100,8 @@ pub(super) fn drive<K: KeyKind>(
     }
     let mut staged = StagedOutputs::default();
     let (scored, placement) = K::score(job, counted, &mut staged, clock)?;
+    // Pass 2 allocates on other threads than those that freed pass 1's and the fit's tables.
+    crate::memory::release_free_memory();
     let written = source.write(job, &scored, placement, &mut staged, clock)?;
     let summary = K::summarise(job, tally, scored, written, &mut staged)?;
     if let Some(path) = summary_file {
