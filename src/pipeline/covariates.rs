@@ -22,6 +22,7 @@ use crate::core::regression::{
 };
 use crate::error::{Error, Result};
 use crate::io::cells::{Cell, NumericColumn};
+use crate::io::pair_chunks::{ComputedKind, ComputedValues};
 use crate::io::sink::PairValues;
 use crate::summary::{
     CoefficientReport, CovariatePrior, CovariateReport, FitReport, FittedPrior, NeighbourhoodReport,
@@ -30,6 +31,7 @@ use crate::summary::{
 use arrow_array::ArrayRef;
 use std::collections::HashMap;
 use std::hash::{BuildHasherDefault, Hasher};
+use std::sync::Arc;
 
 /// The most indicators the levels of all covariates may make: beyond it a
 /// column is better a segment of its own (`--by`).
@@ -449,12 +451,11 @@ pub(super) fn covariate_table(
                 });
                 // Whole numbers (read from integers, or from text such as `12`) are written as such.
                 let whole = raw.iter().all(|v| v.fract() == 0.0 && v.abs() < MAX_EXACT_COUNT);
-                let written = if whole {
-                    PairValues::Integers(raw.iter().map(|&v| v as i64).collect())
-                } else {
-                    PairValues::Floats(raw)
-                };
-                values.push((name.clone(), written));
+                // Held once, shared by the output's column (written as each row group is).
+                let kind = if whole { ComputedKind::Integers } else { ComputedKind::Floats };
+                let raw = Arc::new(raw);
+                let value = Arc::new(move |pair: usize| Some(raw[pair]));
+                values.push((name.clone(), PairValues::Computed(ComputedValues::new(rows, kind, value))));
             }
             Reading::Levels => {
                 let met = &state.levels[j].texts;

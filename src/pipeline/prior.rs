@@ -41,6 +41,7 @@ use rayon::prelude::*;
 use std::borrow::Cow;
 use std::ops::Range;
 use std::path::Path;
+use std::sync::Arc;
 
 /// One segment's prior and how it was obtained.
 pub struct SegmentScore {
@@ -67,9 +68,9 @@ pub struct SegmentScore {
 /// The priors in use, how they were obtained, and each pair's posterior.
 pub struct Scored {
     /// The distinct (segment, size, count) pairs, segment after segment.
-    pub pairs: Vec<WeightedPair>,
+    pub pairs: Arc<Vec<WeightedPair>>,
     /// Posterior of each pair, in that order.
-    pub posteriors: Vec<Posterior>,
+    pub posteriors: Arc<Vec<Posterior>>,
     /// The prior fitted to (or saved for) all groups.
     pub fitted_prior: FittedPrior,
     /// How it was obtained.
@@ -79,9 +80,9 @@ pub struct Scored {
     /// How far all the groups were pulled; `max_shift_row` indexes the pairs.
     pub pull: Pull,
     /// P(rate > T of `--above`) per pair, when asked for.
-    pub prob_above: Option<Vec<f64>>,
+    pub prob_above: Option<Arc<Vec<f64>>>,
     /// P(rate < T of `--below`) per pair, when asked for.
-    pub prob_below: Option<Vec<f64>>,
+    pub prob_below: Option<Arc<Vec<f64>>>,
     /// Flags under the posterior false-discovery rate of `--flag-fdr`.
     pub flags: Option<FdrFlags>,
     /// P(among the K best) per pair, and how it was computed, with `--top K`.
@@ -107,7 +108,7 @@ pub struct CovariateScore {
     /// Each covariate column's value per pair, in the order given.
     pub values: Vec<(String, PairValues)>,
     /// Per pair, the centre of its prior (the rate it is pulled toward).
-    pub prior_mean: Vec<f64>,
+    pub prior_mean: Arc<Vec<f64>>,
     /// With `--neighbours`: per pair (an area), its number of neighbours.
     pub neighbours: Option<Vec<i64>>,
 }
@@ -846,8 +847,11 @@ fn scored_of<F: Family>(
     let (covariate_score, neighbourhood) = match covariates {
         Some(cells) => {
             let (counts, report) = cells.neighbours.unzip();
-            let score =
-                CovariateScore { values: cells.values, prior_mean: cells.centres, neighbours: counts };
+            let score = CovariateScore {
+                values: cells.values,
+                prior_mean: Arc::new(cells.centres),
+                neighbours: counts,
+            };
             (Some(score), report)
         }
         None => (None, None),
@@ -895,15 +899,15 @@ fn scored_of<F: Family>(
         ));
     }
     Scored {
-        pairs: all_pairs,
-        posteriors,
+        pairs: Arc::new(all_pairs),
+        posteriors: Arc::new(posteriors),
         fitted_prior,
         fit,
         covariates: covariate_score,
         warnings,
         pull,
-        prob_above: decisions.prob_above,
-        prob_below: decisions.prob_below,
+        prob_above: decisions.prob_above.map(Arc::new),
+        prob_below: decisions.prob_below.map(Arc::new),
         flags: decisions.flags,
         prob_top: decisions.prob_top,
         segments: scores,
@@ -1006,9 +1010,18 @@ fn model_checks<F: Family>(
     }
     let (observed, expected) = (observed / with_data.max(1.0), expected / with_data.max(1.0));
     // Terms in parallel, summed in table order: the same bits on any number of threads.
-    let points: Vec<PriorPoint<F>> = priors.iter().map(PriorPoint::of).collect();
-    let terms: Vec<f64> =
-        pairs.par_iter().zip(place_of_pair).map(|(p, &place)| p.weight * points[place].log_pmf(p)).collect();
+    // A prior's shared values once per prior, or, where each pair has its own
+    // (covariates, neighbours), as each pair is met: a table of them would
+    // be 64 bytes a pair.
+    let per_pair = priors.len() >= pairs.len();
+    let points: Vec<PriorPoint<F>> =
+        if per_pair { Vec::new() } else { priors.iter().map(PriorPoint::of).collect() };
+    let term = |(p, &place): (&WeightedPair, &usize)| {
+        let log_pmf =
+            if per_pair { PriorPoint::<F>::of(&priors[place]).log_pmf(p) } else { points[place].log_pmf(p) };
+        p.weight * log_pmf
+    };
+    let terms: Vec<f64> = pairs.par_iter().zip(place_of_pair).map(term).collect();
     let log_likelihood: f64 = terms.iter().sum();
     let groups = table.groups();
     ChecksReport {

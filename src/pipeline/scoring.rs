@@ -7,15 +7,18 @@ use super::validate::{cell_text, ColumnNames, Rejection};
 use super::{FlagEvent, Intervals, Job, PriorShape, Thresholds};
 use crate::core::diagnostics::Pull;
 use crate::core::model::Posterior;
+use crate::core::pairs::WeightedPair;
 use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
 use crate::error::Result;
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::Cell;
+use crate::io::pair_chunks::{ComputedKind, ComputedValues};
 use crate::io::sink::{ColumnValues, Columns, Metadata, PairColumns, PairValues};
 use crate::summary::{
     ColumnsReport, FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport,
 };
 use arrow_array::ArrayRef;
+use std::sync::Arc;
 
 /// The raw value's column: the model's, or `smr` (the trade's name for
 /// observed over expected) when the expected counts were made by standardisation.
@@ -32,27 +35,37 @@ pub fn raw_column(job: &Job) -> &'static str {
 /// the prior centre (with covariates), the posterior summaries and
 /// parameters, and the columns asked for.
 pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
-    let (pairs, posteriors) = (&scored.pairs[..], &scored.posteriors[..]);
-    let each = |f: &dyn Fn(&Posterior) -> f64| PairValues::Floats(posteriors.iter().map(f).collect());
-    let optional = |f: &dyn Fn(&Posterior) -> Option<f64>| {
-        PairValues::OptionalFloats(posteriors.iter().map(f).collect())
+    // Views of the pairs and posteriors the run holds anyway, computed as
+    // each row group is written rather than copied into columns of their own.
+    let pairs = &scored.pairs;
+    let of_pairs = |kind: ComputedKind, f: fn(&WeightedPair) -> Option<f64>| {
+        let pairs = Arc::clone(pairs);
+        PairValues::Computed(ComputedValues::new(pairs.len(), kind, Arc::new(move |p| f(&pairs[p]))))
+    };
+    let of_posteriors = |kind: ComputedKind, f: fn(&Posterior) -> Option<f64>| {
+        let posteriors = Arc::clone(&scored.posteriors);
+        PairValues::Computed(ComputedValues::new(
+            posteriors.len(),
+            kind,
+            Arc::new(move |p| f(&posteriors[p])),
+        ))
     };
     let terms = job.model.terms();
-    let sizes = if terms.size_rule.is_whole() {
-        PairValues::Integers(pairs.iter().map(|p| p.size as i64).collect())
-    } else {
-        PairValues::Floats(pairs.iter().map(|p| p.size).collect())
-    };
-    let counts = if terms.count_rule.is_whole() {
-        PairValues::Integers(pairs.iter().map(|p| p.count as i64).collect())
-    } else {
-        PairValues::Floats(pairs.iter().map(|p| p.count).collect())
-    };
+    let whole_or_not = |whole: bool| if whole { ComputedKind::Integers } else { ComputedKind::Floats };
+    let sizes = of_pairs(whole_or_not(terms.size_rule.is_whole()), |p| Some(p.size));
+    let counts = of_pairs(whole_or_not(terms.count_rule.is_whole()), |p| Some(p.count));
     let parameter = |i: usize| {
-        let values = optional(&|p| p.natural.map(|natural| natural[i]));
+        let values = match i {
+            0 => of_posteriors(ComputedKind::OptionalFloats, |p| p.natural.map(|natural| natural[0])),
+            _ => of_posteriors(ComputedKind::OptionalFloats, |p| p.natural.map(|natural| natural[1])),
+        };
         (format!("posterior_param_{}", terms.parameter_names[i]), values)
     };
-    let raw = pairs.iter().map(|p| terms.raw_value(p.size, p.count)).collect();
+    let raw = {
+        let pairs = Arc::clone(pairs);
+        let value = Arc::new(move |p: usize| terms.raw_value(pairs[p].size, pairs[p].count));
+        PairValues::Computed(ComputedValues::new(scored.pairs.len(), ComputedKind::OptionalFloats, value))
+    };
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
@@ -62,20 +75,29 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     columns.extend([
         (job.columns.count.clone(), counts),
         (job.columns.size.clone(), sizes),
-        (raw_column(job).to_string(), PairValues::OptionalFloats(raw)),
+        (raw_column(job).to_string(), raw),
     ]);
     if let Some(covariates) = &scored.covariates {
-        columns.push(("prior_mean".to_string(), PairValues::Floats(covariates.prior_mean.clone())));
+        let centres = Arc::clone(&covariates.prior_mean);
+        let value = Arc::new(move |p: usize| Some(centres[p]));
+        columns.push((
+            "prior_mean".to_string(),
+            PairValues::Computed(ComputedValues::new(
+                covariates.prior_mean.len(),
+                ComputedKind::Floats,
+                value,
+            )),
+        ));
         if let Some(counts) = &covariates.neighbours {
             columns.push(("neighbours".to_string(), PairValues::Integers(counts.clone())));
         }
     }
     columns.extend([
-        ("posterior_mean".to_string(), each(&|p| p.mean)),
-        ("posterior_sd".to_string(), each(&|p| p.sd)),
-        ("interval_lo".to_string(), each(&|p| p.lower)),
-        ("interval_hi".to_string(), each(&|p| p.upper)),
-        ("pool_weight".to_string(), each(&|p| p.pool_weight)),
+        ("posterior_mean".to_string(), of_posteriors(ComputedKind::Floats, |p| Some(p.mean))),
+        ("posterior_sd".to_string(), of_posteriors(ComputedKind::Floats, |p| Some(p.sd))),
+        ("interval_lo".to_string(), of_posteriors(ComputedKind::Floats, |p| Some(p.lower))),
+        ("interval_hi".to_string(), of_posteriors(ComputedKind::Floats, |p| Some(p.upper))),
+        ("pool_weight".to_string(), of_posteriors(ComputedKind::Floats, |p| Some(p.pool_weight))),
     ]);
     // A free prior's posteriors are masses on its grid: no law's parameters.
     if job.prior_shape == PriorShape::Parametric {
@@ -90,12 +112,21 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     }
     if let Some(order) = job.ranks {
         let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
-        columns.extend(rank_columns(order, &weights, posteriors.iter().map(|p| (p.mean, p.lower, p.upper))));
+        columns.extend(rank_columns(
+            order,
+            &weights,
+            scored.posteriors.iter().map(|p| (p.mean, p.lower, p.upper)),
+        ));
     }
     let exceedance = [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)];
     for (name, values) in exceedance {
         if let Some(values) = values {
-            columns.push((name.to_string(), PairValues::Floats(values.clone())));
+            let (pairs, values) = (values.len(), Arc::clone(values));
+            let value = Arc::new(move |p: usize| Some(values[p]));
+            columns.push((
+                name.to_string(),
+                PairValues::Computed(ComputedValues::new(pairs, ComputedKind::Floats, value)),
+            ));
         }
     }
     if let Some((values, _)) = &scored.prob_top {
