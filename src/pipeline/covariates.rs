@@ -292,7 +292,8 @@ fn hash_key(key: &[u64]) -> u64 {
 pub(super) struct CovariatePairs {
     /// Words per key: the covariates, then the size's and the count's bits.
     width: usize,
-    keys: Vec<u64>,
+    /// Shared with the output's covariate columns, which read their values from it.
+    keys: Arc<Vec<u64>>,
     weights: Vec<f64>,
     /// By a key's hash: its pair (the first met with that hash).
     index: HashMap<u64, u32, BuildHasherDefault<PairHasher>>,
@@ -305,7 +306,7 @@ impl CovariatePairs {
     pub(super) fn new(covariates: usize) -> Self {
         CovariatePairs {
             width: covariates + 2,
-            keys: Vec::new(),
+            keys: Arc::default(),
             weights: Vec::new(),
             index: HashMap::default(),
             shared: HashMap::default(),
@@ -347,7 +348,7 @@ impl CovariatePairs {
             return;
         }
         let pair = self.weights.len() as u32;
-        self.keys.extend_from_slice(&self.scratch);
+        Arc::make_mut(&mut self.keys).extend_from_slice(&self.scratch);
         self.weights.push(weight);
         match self.index.entry(hash) {
             std::collections::hash_map::Entry::Vacant(slot) => {
@@ -368,22 +369,25 @@ impl CovariatePairs {
     }
 
     /// Drops pairs left with no groups (rows taken back out as repeats),
-    /// numbering the rest again in the order met.
+    /// numbering the rest again in the order met, and holds the keys and
+    /// weights at their size (grown by doubling in pass 1, they could hold
+    /// up to twice the room they need).
     pub(super) fn compact(&mut self) {
-        if self.weights.iter().all(|&w| w > 0.0) {
-            return;
-        }
-        let mut kept = CovariatePairs::new(self.width - 2);
-        for pair in 0..self.len() {
-            let weight = self.weights[pair];
-            if weight > 0.0 {
-                let key = self.key(pair as u32).to_vec();
-                let (size, count) =
-                    (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
-                kept.add(&key[..self.width - 2], size, count, weight);
+        if self.weights.iter().any(|&w| w <= 0.0) {
+            let mut kept = CovariatePairs::new(self.width - 2);
+            for pair in 0..self.len() {
+                let weight = self.weights[pair];
+                if weight > 0.0 {
+                    let key = self.key(pair as u32).to_vec();
+                    let (size, count) =
+                        (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
+                    kept.add(&key[..self.width - 2], size, count, weight);
+                }
             }
+            *self = kept;
         }
-        *self = kept;
+        Arc::make_mut(&mut self.keys).shrink_to_fit();
+        self.weights.shrink_to_fit();
     }
 
     /// The pairs, in the order met.
@@ -451,10 +455,10 @@ pub(super) fn covariate_table(
                 });
                 // Whole numbers (read from integers, or from text such as `12`) are written as such.
                 let whole = raw.iter().all(|v| v.fract() == 0.0 && v.abs() < MAX_EXACT_COUNT);
-                // Held once, shared by the output's column (written as each row group is).
+                // Read from the keys as each row group is written, not held again.
                 let kind = if whole { ComputedKind::Integers } else { ComputedKind::Floats };
-                let raw = Arc::new(raw);
-                let value = Arc::new(move |pair: usize| Some(raw[pair]));
+                let (keys, width) = (Arc::clone(&pairs.keys), pairs.width);
+                let value = Arc::new(move |pair: usize| Some(f64::from_bits(keys[pair * width + j])));
                 values.push((name.clone(), PairValues::Computed(ComputedValues::new(rows, kind, value))));
             }
             Reading::Levels => {
