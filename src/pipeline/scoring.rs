@@ -12,13 +12,17 @@ use crate::core::ranking::{competition_ranks, RankOrder, TopMethod};
 use crate::error::Result;
 use crate::io::atomic::StagedOutputs;
 use crate::io::cells::Cell;
-use crate::io::pair_chunks::{ComputedKind, ComputedValues};
+use crate::io::pair_chunks::{ComputedKind, ComputedValues, PairFunction};
 use crate::io::sink::{ColumnValues, Columns, Metadata, PairColumns, PairValues};
 use crate::summary::{
     ColumnsReport, FlagReport, PullReport, SegmentReport, Summary, ThresholdReport, TopReport,
 };
 use arrow_array::ArrayRef;
 use std::sync::Arc;
+
+/// Pair-valued columns are held, not computed as they are written, when
+/// there are at least this many groups to a pair.
+const HELD_BELOW_GROUPS_PER_PAIR: f64 = 16.0;
 
 /// The raw value's column: the model's, or `smr` (the trade's name for
 /// observed over expected) when the expected counts were made by standardisation.
@@ -35,20 +39,32 @@ pub fn raw_column(job: &Job) -> &'static str {
 /// the prior centre (with covariates), the posterior summaries and
 /// parameters, and the columns asked for.
 pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
-    // Views of the pairs and posteriors the run holds anyway, computed as
-    // each row group is written rather than copied into columns of their own.
-    let pairs = &scored.pairs;
+    // Where pairs repeat (far fewer pairs than groups) a column is held, a few
+    // bytes a row, which is quicker to write; where most groups are pairs of
+    // their own (covariates), it is a view of what the run holds anyway,
+    // computed as each row group is written rather than copied.
+    let pair_count = scored.pairs.len();
+    let groups: f64 = scored.pairs.iter().map(|p| p.weight).sum();
+    let held = pair_count as f64 * HELD_BELOW_GROUPS_PER_PAIR <= groups;
+    let column = |kind: ComputedKind, value: PairFunction| {
+        let values = ComputedValues::new(pair_count, kind, value);
+        if held {
+            values.held(0..pair_count)
+        } else {
+            PairValues::Computed(values)
+        }
+    };
     let of_pairs = |kind: ComputedKind, f: fn(&WeightedPair) -> Option<f64>| {
-        let pairs = Arc::clone(pairs);
-        PairValues::Computed(ComputedValues::new(pairs.len(), kind, Arc::new(move |p| f(&pairs[p]))))
+        let pairs = Arc::clone(&scored.pairs);
+        column(kind, Arc::new(move |p| f(&pairs[p])))
     };
     let of_posteriors = |kind: ComputedKind, f: fn(&Posterior) -> Option<f64>| {
         let posteriors = Arc::clone(&scored.posteriors);
-        PairValues::Computed(ComputedValues::new(
-            posteriors.len(),
-            kind,
-            Arc::new(move |p| f(&posteriors[p])),
-        ))
+        column(kind, Arc::new(move |p| f(&posteriors[p])))
+    };
+    let of_values = |values: &Arc<Vec<f64>>| {
+        let values = Arc::clone(values);
+        column(ComputedKind::Floats, Arc::new(move |p| Some(values[p])))
     };
     let terms = job.model.terms();
     let whole_or_not = |whole: bool| if whole { ComputedKind::Integers } else { ComputedKind::Floats };
@@ -62,9 +78,11 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         (format!("posterior_param_{}", terms.parameter_names[i]), values)
     };
     let raw = {
-        let pairs = Arc::clone(pairs);
-        let value = Arc::new(move |p: usize| terms.raw_value(pairs[p].size, pairs[p].count));
-        PairValues::Computed(ComputedValues::new(scored.pairs.len(), ComputedKind::OptionalFloats, value))
+        let pairs = Arc::clone(&scored.pairs);
+        column(
+            ComputedKind::OptionalFloats,
+            Arc::new(move |p| terms.raw_value(pairs[p].size, pairs[p].count)),
+        )
     };
     let samples: Vec<&[ArrayRef]> = scored.segments.iter().map(|s| &s.samples[..]).collect();
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
@@ -78,16 +96,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         (raw_column(job).to_string(), raw),
     ]);
     if let Some(covariates) = &scored.covariates {
-        let centres = Arc::clone(&covariates.prior_mean);
-        let value = Arc::new(move |p: usize| Some(centres[p]));
-        columns.push((
-            "prior_mean".to_string(),
-            PairValues::Computed(ComputedValues::new(
-                covariates.prior_mean.len(),
-                ComputedKind::Floats,
-                value,
-            )),
-        ));
+        columns.push(("prior_mean".to_string(), of_values(&covariates.prior_mean)));
         if let Some(counts) = &covariates.neighbours {
             columns.push(("neighbours".to_string(), PairValues::Integers(counts.clone())));
         }
@@ -104,14 +113,14 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         columns.extend([parameter(0), parameter(1)]);
     }
     if !scored.segments.is_empty() {
-        let mut fallback = vec![false; pairs.len()];
+        let mut fallback = vec![false; pair_count];
         for segment in scored.segments.iter().filter(|s| s.fallback.is_some()) {
             fallback[segment.pairs.clone()].fill(true);
         }
         columns.push(("prior_fallback".to_string(), PairValues::Booleans(fallback)));
     }
     if let Some(order) = job.ranks {
-        let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
+        let weights: Vec<f64> = scored.pairs.iter().map(|p| p.weight).collect();
         columns.extend(rank_columns(
             order,
             &weights,
@@ -121,12 +130,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let exceedance = [("prob_above", &scored.prob_above), ("prob_below", &scored.prob_below)];
     for (name, values) in exceedance {
         if let Some(values) = values {
-            let (pairs, values) = (values.len(), Arc::clone(values));
-            let value = Arc::new(move |p: usize| Some(values[p]));
-            columns.push((
-                name.to_string(),
-                PairValues::Computed(ComputedValues::new(pairs, ComputedKind::Floats, value)),
-            ));
+            columns.push((name.to_string(), of_values(values)));
         }
     }
     if let Some((values, _)) = &scored.prob_top {
