@@ -47,8 +47,14 @@ pub enum PairValues {
     Booleans(Vec<bool>),
     /// Whole numbers, absent for some pairs (segment values).
     OptionalIntegers(Vec<Option<i64>>),
-    /// Text, absent for some pairs (segment values).
-    Texts(Vec<Option<String>>),
+    /// Text, absent for some pairs (segment values): each pair's text by
+    /// its code, so each text is held once.
+    Texts {
+        /// Per pair, its text's place in `texts`.
+        codes: Vec<u32>,
+        /// The texts (None: absent).
+        texts: Vec<Option<String>>,
+    },
     /// Text from a few levels (covariate levels): each pair's level by its
     /// code, so the texts are held once.
     Levels {
@@ -138,7 +144,9 @@ impl PairValues {
     /// True when some pair has no value (the column is then optional).
     pub fn nullable(&self) -> bool {
         match self {
-            PairValues::OptionalFloats(_) | PairValues::OptionalIntegers(_) | PairValues::Texts(_) => true,
+            PairValues::OptionalFloats(_) | PairValues::OptionalIntegers(_) | PairValues::Texts { .. } => {
+                true
+            }
             PairValues::Computed(c) => c.kind == ComputedKind::OptionalFloats,
             _ => false,
         }
@@ -148,7 +156,7 @@ impl PairValues {
         match self {
             PairValues::OptionalFloats(v) => v[pair].is_none(),
             PairValues::OptionalIntegers(v) => v[pair].is_none(),
-            PairValues::Texts(v) => v[pair].is_none(),
+            PairValues::Texts { codes, texts } => texts[codes[pair] as usize].is_none(),
             PairValues::Computed(c) => c.kind == ComputedKind::OptionalFloats && c.at(pair).is_none(),
             PairValues::Integers(_)
             | PairValues::Floats(_)
@@ -167,18 +175,22 @@ impl PairValues {
             PairValues::OptionalIntegers(v) => {
                 integer_dictionary(pairs.iter().map(|&p| v[p as usize]), null_count)
             }
-            PairValues::Texts(_) | PairValues::Levels { .. } => {
+            PairValues::Texts { codes, .. } | PairValues::Levels { codes, .. } => {
                 let mut bytes = Vec::new();
-                let (mut low, mut high): (Option<&str>, Option<&str>) = (None, None);
+                // The statistics over the texts met, each compared once.
+                let mut met = vec![false; self.text_count()];
                 for &p in pairs {
-                    let text = self.text(p as usize);
-                    if let Some(t) = text {
-                        low = Some(low.map_or(t, |l| l.min(t)));
-                        high = Some(high.map_or(t, |h| h.max(t)));
-                    }
-                    let t = text.unwrap_or("").as_bytes();
+                    met[codes[p as usize] as usize] = true;
+                    let t = self.text(p as usize).unwrap_or("").as_bytes();
                     bytes.extend_from_slice(&(t.len() as u32).to_le_bytes());
                     bytes.extend_from_slice(t);
+                }
+                let (mut low, mut high): (Option<&str>, Option<&str>) = (None, None);
+                for text in
+                    met.iter().enumerate().filter(|(_, &m)| m).filter_map(|(code, _)| self.text_of(code))
+                {
+                    low = Some(low.map_or(text, |l| l.min(text)));
+                    high = Some(high.map_or(text, |h| h.max(text)));
                 }
                 let value = |t: Option<&str>| t.map(|t| ByteArray::from(t.as_bytes().to_vec()));
                 (bytes, Statistics::byte_array(value(low), value(high), None, Some(null_count), false))
@@ -207,7 +219,7 @@ impl PairValues {
             PairValues::OptionalFloats(v) => v.len(),
             PairValues::Booleans(v) => v.len(),
             PairValues::OptionalIntegers(v) => v.len(),
-            PairValues::Texts(v) => v.len(),
+            PairValues::Texts { codes, .. } => codes.len(),
             PairValues::Levels { codes, .. } => codes.len(),
             PairValues::Computed(c) => c.pairs,
         }
@@ -217,8 +229,27 @@ impl PairValues {
     /// any other column).
     pub fn text(&self, pair: usize) -> Option<&str> {
         match self {
-            PairValues::Texts(v) => v[pair].as_deref(),
+            PairValues::Texts { codes, texts } => texts[codes[pair] as usize].as_deref(),
             PairValues::Levels { codes, texts } => Some(texts[codes[pair] as usize].as_str()),
+            _ => None,
+        }
+    }
+
+    /// The number of texts a text-valued column codes (0 for any other).
+    fn text_count(&self) -> usize {
+        match self {
+            PairValues::Texts { texts, .. } => texts.len(),
+            PairValues::Levels { texts, .. } => texts.len(),
+            _ => 0,
+        }
+    }
+
+    /// The text of code `code` of a text-valued column (None for an
+    /// absent text or any other column).
+    fn text_of(&self, code: usize) -> Option<&str> {
+        match self {
+            PairValues::Texts { texts, .. } => texts[code].as_deref(),
+            PairValues::Levels { texts, .. } => Some(texts[code].as_str()),
             _ => None,
         }
     }

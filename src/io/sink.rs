@@ -120,9 +120,8 @@ impl PairValues {
             PairValues::OptionalFloats(v) => ColumnValues::OptionalFloats(v),
             PairValues::Booleans(v) => ColumnValues::Booleans(v),
             PairValues::OptionalIntegers(v) => ColumnValues::Arrow(Arc::new(Int64Array::from(v))),
-            PairValues::Texts(v) => ColumnValues::Arrow(Arc::new(StringArray::from(v))),
-            levels @ PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
-                (0..levels.len()).map(|pair| levels.text(pair)).collect::<StringArray>(),
+            texts @ (PairValues::Texts { .. } | PairValues::Levels { .. }) => ColumnValues::Arrow(Arc::new(
+                (0..texts.len()).map(|pair| texts.text(pair)).collect::<StringArray>(),
             )),
             PairValues::Computed(c) => c.held(0..c.pairs()).into_column(),
         }
@@ -289,7 +288,7 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
         PairValues::OptionalIntegers(v) => {
             ColumnValues::Arrow(Arc::new(pair_of_row.iter().map(|i| v[at(i)]).collect::<Int64Array>()))
         }
-        PairValues::Texts(_) | PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
+        PairValues::Texts { .. } | PairValues::Levels { .. } => ColumnValues::Arrow(Arc::new(
             pair_of_row.iter().map(|i| values.text(at(i))).collect::<StringArray>(),
         )),
         PairValues::Computed(c) => c.held(pair_of_row.iter().map(at)).into_column(),
@@ -333,7 +332,7 @@ impl ScoredParquet {
                     ComputedKind::Integers => DataType::Int64,
                     ComputedKind::Floats | ComputedKind::OptionalFloats => DataType::Float64,
                 },
-                PairValues::Texts(_) | PairValues::Levels { .. } => DataType::Utf8,
+                PairValues::Texts { .. } | PairValues::Levels { .. } => DataType::Utf8,
             };
             Field::new(name, dtype, values.nullable())
         }));

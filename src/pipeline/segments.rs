@@ -399,7 +399,11 @@ pub fn segment_pair_values(samples: &[&[ArrayRef]], places: &[u32]) -> Result<Ve
                     places.iter().map(|&p| at(p).value_text(0).and_then(|t| t.parse().ok())).collect(),
                 )
             } else {
-                PairValues::Texts(places.iter().map(|&p| at(p).value_text(0)).collect())
+                // Each segment's text once; a pair's code is its segment's place.
+                PairValues::Texts {
+                    codes: places.to_vec(),
+                    texts: (0..values.len() as u32).map(|p| at(p).value_text(0)).collect(),
+                }
             })
         })
         .collect()
