@@ -63,20 +63,29 @@ pub fn weighted_quantile(sorted: &[(f64, f64)], q: f64) -> f64 {
 pub fn weighted_average_ranks(values: &[f64], weights: &[f64]) -> Vec<f64> {
     // Unstable: tied values share one rank whatever their order (the ties'
     // weights are summed in that order, which for whole-number weights is exact).
-    let mut order: Vec<usize> = (0..values.len()).collect();
-    order.sort_unstable_by(|&a, &b| values[a].total_cmp(&values[b]));
+    // Places as 32-bit numbers (half the room of a usize) where they fit.
+    match u32::try_from(values.len()) {
+        Ok(_) => ranks_in_order(values, weights, (0..values.len() as u32).collect()),
+        Err(_) => ranks_in_order(values, weights, (0..values.len()).collect()),
+    }
+}
+
+/// [`weighted_average_ranks`] with the values' places, of type `P`.
+fn ranks_in_order<P: Copy + TryInto<usize>>(values: &[f64], weights: &[f64], mut order: Vec<P>) -> Vec<f64> {
+    let at = |p: P| p.try_into().unwrap_or_else(|_| unreachable!("a place within the values"));
+    order.sort_unstable_by(|&a, &b| values[at(a)].total_cmp(&values[at(b)]));
     let mut ranks = vec![0.0; values.len()];
     let (mut start, mut below) = (0, 0.0);
     while start < order.len() {
         let mut end = start;
         let mut tied = 0.0;
-        while end < order.len() && values[order[end]] == values[order[start]] {
-            tied += weights[order[end]];
+        while end < order.len() && values[at(order[end])] == values[at(order[start])] {
+            tied += weights[at(order[end])];
             end += 1;
         }
         let rank = below + (tied + 1.0) / 2.0;
         for &i in &order[start..end] {
-            ranks[i] = rank;
+            ranks[at(i)] = rank;
         }
         below += tied;
         start = end;
@@ -105,6 +114,20 @@ pub fn weighted_spearman(x: &[f64], y: &[f64], weights: &[f64]) -> Option<f64> {
         return None;
     }
     weighted_pearson(&weighted_average_ranks(x, weights), &weighted_average_ranks(y, weights), weights)
+}
+
+/// [`weighted_spearman`] of values given up as they are ranked: each side's
+/// values are freed once its ranks are made, so at most three tables of
+/// them are held at once.
+fn spearman_of_owned(x: Vec<f64>, y: Vec<f64>, weights: &[f64]) -> Option<f64> {
+    if weights.iter().sum::<f64>() < 2.0 {
+        return None;
+    }
+    let x_ranks = weighted_average_ranks(&x, weights);
+    drop(x);
+    let y_ranks = weighted_average_ranks(&y, weights);
+    drop(y);
+    weighted_pearson(&x_ranks, &y_ranks, weights)
 }
 
 /// The pull summary over all groups, from each distinct pair and its posterior.
@@ -167,7 +190,7 @@ pub fn pull(pairs: usize, outcome: impl Fn(usize) -> PairOutcome) -> Pull {
         mean_abs_shift: (with_rate > 0.0).then(|| total_shift / with_rate),
         max_abs_shift: max_pair.map(|_| max_shift),
         max_shift_row: max_pair,
-        rank_correlation: weighted_spearman(&raws, &posts, &counts),
+        rank_correlation: spearman_of_owned(raws, posts, &counts),
     }
 }
 

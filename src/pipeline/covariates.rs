@@ -300,7 +300,14 @@ pub(super) struct CovariatePairs {
     /// Further pairs whose key shares a hash with an earlier one.
     shared: HashMap<u64, Vec<u32>, BuildHasherDefault<PairHasher>>,
     scratch: Vec<u64>,
+    /// When recorded (rows read one per group): each input row's pair
+    /// (`NO_PAIR` for a row not counted), so that pass 2 can find a row's
+    /// pair by its number and the index can go once pass 1 is done.
+    rows: Option<Vec<u32>>,
 }
+
+/// A row counted under no pair.
+const NO_PAIR: u32 = u32::MAX;
 
 impl CovariatePairs {
     pub(super) fn new(covariates: usize) -> Self {
@@ -311,7 +318,32 @@ impl CovariatePairs {
             index: HashMap::default(),
             shared: HashMap::default(),
             scratch: Vec::new(),
+            rows: None,
         }
+    }
+
+    /// Records each row's pair as rows are added by [`Self::add_row`].
+    pub(super) fn record_rows(&mut self) {
+        self.rows = Some(Vec::new());
+    }
+
+    /// Adds input row `row` (rows come in order) to its pair, recording it.
+    pub(super) fn add_row(&mut self, row: usize, covariates: &[u64], size: f64, count: f64) {
+        let pair = self.add(covariates, size, count, 1.0);
+        if let Some(rows) = &mut self.rows {
+            rows.resize(row, NO_PAIR);
+            rows.push(pair);
+        }
+    }
+
+    /// The pair of input row `row` with these values: by the row's record
+    /// where rows were recorded (checked against the key, so a row that
+    /// changed since is not found), else by the index.
+    pub(super) fn find_row(&mut self, row: usize, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
+        let Some(rows) = &self.rows else { return self.find(covariates, size, count) };
+        let pair = rows.get(row).copied().filter(|&p| p != NO_PAIR)?;
+        self.full_key(covariates, size, count);
+        (self.key(pair) == &self.scratch[..]).then_some(pair)
     }
 
     fn full_key(&mut self, covariates: &[u64], size: f64, count: f64) {
@@ -339,13 +371,13 @@ impl CovariatePairs {
         self.find_scratch(hash_key(&self.scratch))
     }
 
-    /// Adds `weight` groups to a row's pair, numbering it if new.
-    pub(super) fn add(&mut self, covariates: &[u64], size: f64, count: f64, weight: f64) {
+    /// Adds `weight` groups to a row's pair, numbering it if new; returns its number.
+    pub(super) fn add(&mut self, covariates: &[u64], size: f64, count: f64, weight: f64) -> u32 {
         self.full_key(covariates, size, count);
         let hash = hash_key(&self.scratch);
         if let Some(pair) = self.find_scratch(hash) {
             self.weights[pair as usize] += weight;
-            return;
+            return pair;
         }
         let pair = self.weights.len() as u32;
         Arc::make_mut(&mut self.keys).extend_from_slice(&self.scratch);
@@ -356,6 +388,7 @@ impl CovariatePairs {
             }
             std::collections::hash_map::Entry::Occupied(_) => self.shared.entry(hash).or_default().push(pair),
         }
+        pair
     }
 
     /// Word `j` of the covariate key of `pair`.
@@ -375,19 +408,37 @@ impl CovariatePairs {
     pub(super) fn compact(&mut self) {
         if self.weights.iter().any(|&w| w <= 0.0) {
             let mut kept = CovariatePairs::new(self.width - 2);
-            for pair in 0..self.len() {
+            let mut renumbered = vec![NO_PAIR; self.len()];
+            for (pair, new) in renumbered.iter_mut().enumerate() {
                 let weight = self.weights[pair];
                 if weight > 0.0 {
                     let key = self.key(pair as u32).to_vec();
                     let (size, count) =
                         (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
-                    kept.add(&key[..self.width - 2], size, count, weight);
+                    *new = kept.add(&key[..self.width - 2], size, count, weight);
                 }
             }
+            kept.rows = self.rows.take().map(|mut rows| {
+                for pair in rows.iter_mut().filter(|p| **p != NO_PAIR) {
+                    *pair = renumbered[*pair as usize];
+                }
+                rows
+            });
             *self = kept;
         }
         Arc::make_mut(&mut self.keys).shrink_to_fit();
         self.weights.shrink_to_fit();
+        // Pass 2 finds a row's pair by the index or by the rows' record:
+        // the smaller is kept (an index entry takes about 28 bytes a pair,
+        // the record 4 bytes a row).
+        if let Some(rows) = &self.rows {
+            if rows.len() * 4 < self.len() * 28 {
+                self.index = HashMap::default();
+                self.shared = HashMap::default();
+            } else {
+                self.rows = None;
+            }
+        }
     }
 
     /// The pairs, in the order met.

@@ -245,7 +245,11 @@ impl Source<PairKeys> for GroupRows<'_> {
 /// first row fault, and a hash of every group id.
 fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<PassOne> {
     let total = input.known_rows();
-    let covariates = CovariateCount::of(job);
+    // One row per group: pass 2 may find a row's cell by its row number.
+    let covariates = CovariateCount::of(job).map(|mut counted| {
+        counted.pairs.record_rows();
+        counted
+    });
     let mut key = Vec::new();
     let mut pass = PassOne {
         covariates,
@@ -268,7 +272,7 @@ fn count_pairs(job: &Job, input: &Input, clock: &mut PhaseClock<'_>) -> Result<P
                         columns
                             .key_into(row, &mut counted.state, true, &mut key)
                             .expect("a valid row has a key");
-                        counted.pairs.add(&key, size, count, 1.0);
+                        counted.pairs.add_row(batch.first_row + row, &key, size, count);
                     }
                     _ => {
                         let segment = view.number_segment(&mut pass.segments, row);
@@ -430,7 +434,9 @@ fn score_and_write(
                         let placed = match (&mut found.covariates, &view.covariates) {
                             (Some(counted), Some(columns)) => columns
                                 .key_into(row, &mut counted.state, false, &mut key)
-                                .and_then(|()| counted.pairs.find(&key, size, count))
+                                .and_then(|()| {
+                                    counted.pairs.find_row(batch.first_row + row, &key, size, count)
+                                })
                                 .map(|pair| (pair, 0)),
                             _ => view
                                 .find_segment(&mut found.segments, row)

@@ -557,3 +557,34 @@ fn corrected_intervals_spread_each_group_over_the_coefficients_uncertainty() {
     assert!(width(&corrected) > 1.05 * width(&plug_in), "{} against {}", width(&corrected), width(&plug_in));
     assert_eq!(corrected.column("prior_mean"), plug_in.column("prior_mean"), "the same centres");
 }
+
+#[test]
+fn a_repeated_id_is_left_out_whether_pass_2_finds_rows_by_their_record_or_by_the_index() {
+    let dir = tempfile::tempdir().unwrap();
+    let header = "seller,good,rated,tenure,kind\n";
+    // Every row its own cell (pass 2 finds a row's cell by the row's record), and 48 rows
+    // in 6 cells (by the index of cells, which is then the smaller).
+    let distinct = SELLERS.trim_start_matches(header).to_string();
+    let repeated: String = (0..48)
+        .map(|i| format!("s{i},{},10,1.0,{}\n", [1, 9][(i / 3) % 2], ["x", "y", "z"][i % 3]))
+        .collect();
+    for (body, covariates) in [(distinct, "tenure,kind"), (repeated, "kind")] {
+        write(dir.path(), "in.csv", &format!("{header}{body}"));
+        let out = ratepool(dir.path(), &seller_args(&["--covariates", covariates]));
+        assert!(out.status.success(), "{}", stderr(&out));
+        let clean = std::fs::read(dir.path().join("out.csv")).unwrap();
+        // The second row's id again after the third, in a cell of its own: taken back out,
+        // which numbers the later cells again.
+        let mut lines: Vec<&str> = body.lines().collect();
+        let id = lines[1].split(',').next().unwrap().to_string();
+        let again = format!("{id},2,7,0.3,x");
+        lines.insert(3, &again);
+        write(dir.path(), "in.csv", &format!("{header}{}\n", lines.join("\n")));
+        let args = ["--covariates", covariates, "--on-invalid", "skip", "--rejects", "rejects.csv"];
+        let out = ratepool(dir.path(), &seller_args(&args));
+        assert!(out.status.success(), "{}", stderr(&out));
+        let rejects = std::fs::read_to_string(dir.path().join("rejects.csv")).unwrap();
+        assert!(rejects.contains(&format!("duplicate group id '{id}' (first at row 2)")), "{rejects}");
+        assert_eq!(std::fs::read(dir.path().join("out.csv")).unwrap(), clean, "{covariates}");
+    }
+}
