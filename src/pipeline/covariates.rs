@@ -431,8 +431,10 @@ impl CovariatePairs {
         // Pass 2 finds a row's pair by the index or by the rows' record:
         // the smaller is kept (an index entry takes about 28 bytes a pair,
         // the record 4 bytes a row).
-        if let Some(rows) = &self.rows {
-            if rows.len() * 4 < self.len() * 28 {
+        let pairs = self.len();
+        if let Some(rows) = &mut self.rows {
+            if rows.len() * 4 < pairs * 28 {
+                rows.shrink_to_fit();
                 self.index = HashMap::default();
                 self.shared = HashMap::default();
             } else {
