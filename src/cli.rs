@@ -1559,16 +1559,6 @@ fn run_level_job(
     Ok(Outcome { summary: None, levels: Some(summary), outputs })
 }
 
-/// The saved star-rating prior of `score --prior FILE`, when FILE is a
-/// star-rating fit's summary (told by its `model` key); None for any other
-/// model's summary, which the score reads as its own.
-fn saved_level_prior(prior: &Path) -> Result<Option<crate::summary::LevelSummary>> {
-    Ok(match read_summary(prior, "prior file")? {
-        SummaryFile::Levels(summary) => Some(*summary),
-        SummaryFile::Scalar(_) => None,
-    })
-}
-
 /// A report that failed after its run's table and summary were committed.
 fn report_failed(e: Error) -> Error {
     Error::Other(format!("the table and summary were written, but not the report: {e}"))
@@ -1605,9 +1595,9 @@ impl Command {
     fn validate(self) -> Result<()> {
         match &self {
             Command::Fit(args) if args.model == FitModel::LevelCounts => level_job_of(args).map(|_| ()),
-            Command::Score(args) => match saved_level_prior(&args.prior)? {
-                Some(saved) => level_score_job_of(args, saved).map(|_| ()),
-                None => self.into_job().map(|_| ()),
+            Command::Score(args) => match read_summary(&args.prior, "prior file")? {
+                SummaryFile::Levels(saved) => level_score_job_of(args, *saved).map(|_| ()),
+                SummaryFile::Scalar(saved) => self.into_job_with(Some(saved)).map(|_| ()),
             },
             _ => self.into_job().map(|_| ()),
         }
@@ -1952,7 +1942,9 @@ impl Command {
             Some(table) => TableSource::Memory(table.clone()),
             None => TableSource::File(path.clone()),
         };
-        let table = match &self {
+        // A score's prior file is read once: the star-rating model's runs
+        // apart, any other model's job is made from it.
+        let (table, saved) = match &self {
             Command::Report(args) => {
                 run_report(args)?;
                 let mut outputs = vec![args.output.clone()];
@@ -1981,12 +1973,12 @@ impl Command {
             Command::Fit(args) if args.model == FitModel::LevelCounts => {
                 return run_level_job(level_job_of(args)?, &args.table, source, observer);
             }
-            Command::Fit(args) => &args.table,
-            Command::Score(args) => match saved_level_prior(&args.prior)? {
-                Some(saved) => {
-                    return run_level_job(level_score_job_of(args, saved)?, &args.table, source, observer)
+            Command::Fit(args) => (&args.table, None),
+            Command::Score(args) => match read_summary(&args.prior, "prior file")? {
+                SummaryFile::Levels(saved) => {
+                    return run_level_job(level_score_job_of(args, *saved)?, &args.table, source, observer)
                 }
-                None => &args.table,
+                SummaryFile::Scalar(saved) => (&args.table, Some(saved)),
             },
         };
         let report = table.report.clone().map(|html| (html, table.plots.clone()));
@@ -1998,7 +1990,7 @@ impl Command {
             .collect();
         let input = source(&table.input);
         let shown = report_map(table.map.as_deref(), table.map_key.as_deref())?;
-        let mut job = self.into_job()?;
+        let mut job = self.into_job_with(saved)?;
         job.input = input;
         let summary = crate::pipeline::run(&job, observer)?;
         if let (Some((html, plots)), Layout::Groups { output, .. }) = (report, &job.layout) {
@@ -2020,6 +2012,12 @@ impl Command {
 
     /// Validates the arguments into a job (reading the prior file for `score`).
     pub fn into_job(self) -> Result<Job> {
+        self.into_job_with(None)
+    }
+
+    /// [`Command::into_job`], a score's prior file already read as `saved`
+    /// (read here when None).
+    fn into_job_with(self, saved: Option<serde_json::Value>) -> Result<Job> {
         match self {
             Command::Report(_)
             | Command::Neighbours(_)
@@ -2063,7 +2061,12 @@ impl Command {
                     ));
                 }
                 refuse_overlaps(&args.table, [("--prior", Some(&args.prior))])?;
-                let summary = load_summary(&args.prior)?;
+                let summary = match saved {
+                    Some(value) => {
+                        serde_json::from_value(value).map_err(|e| not_a_summary(&args.prior, &e))?
+                    }
+                    None => load_summary(&args.prior)?,
+                };
                 let saved = Model::from_name(&summary.model).ok_or_else(|| {
                     Error::Input(format!(
                         "{}: unknown model '{}' in the prior file",
