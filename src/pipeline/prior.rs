@@ -927,8 +927,9 @@ fn segment_scores<F: Family>(
     (priors, ranges): (&[ShapedPrior], &[std::ops::Range<usize>]),
     (all_prior, all_pairs, posteriors): (&FittedPrior, &[WeightedPair], &[Posterior]),
 ) -> Vec<SegmentScore> {
+    // Segments in parallel, collected in order: the same bytes on any number of threads.
     segments
-        .into_iter()
+        .into_par_iter()
         .zip(choices)
         .zip(ranges)
         .enumerate()
