@@ -193,6 +193,8 @@ struct Criterion<'a, F> {
     table: &'a PairTable,
     likelihood: Likelihood,
     recent: std::cell::RefCell<[Option<Visited>; 2]>,
+    /// The family's quicker sums over the table for the search, if it has them.
+    search: Option<Box<dyn Fn([f64; 2]) -> Evaluation>>,
     family: std::marker::PhantomData<F>,
 }
 
@@ -202,6 +204,7 @@ impl<'a, F: Family> Criterion<'a, F> {
             table,
             likelihood,
             recent: std::cell::RefCell::new([None, None]),
+            search: F::search_sums(table),
             family: std::marker::PhantomData,
         }
     }
@@ -222,7 +225,20 @@ impl<'a, F: Family> Criterion<'a, F> {
     /// The criterion at `u`: the marginal log likelihood, plus the
     /// restricted term when asked for.
     fn at(&self, u: [f64; 2]) -> Evaluation {
-        let mut total = self.marginal(u);
+        self.with_restricted(u, self.marginal(u))
+    }
+
+    /// The criterion at `u` as the search takes it: the family's quicker
+    /// sums where it has them (the same function, summed in another order).
+    fn searched_at(&self, u: [f64; 2]) -> Evaluation {
+        match &self.search {
+            Some(search) => self.with_restricted(u, search(u)),
+            None => self.at(u),
+        }
+    }
+
+    /// `marginal` plus the restricted term at `u` when asked for.
+    fn with_restricted(&self, u: [f64; 2], mut total: Evaluation) -> Evaluation {
         if self.likelihood == Likelihood::Restricted {
             if let Some(term) = F::restricted_term(self.table, u) {
                 total.add_weighted(&term, 1.0);
@@ -266,7 +282,7 @@ struct Objective<'a, 'b, F> {
 
 impl<F: Family> Objective<'_, '_, F> {
     fn at(&self, u: &[f64]) -> Evaluation {
-        self.criterion.at([u[0], u[1]])
+        self.criterion.searched_at([u[0], u[1]])
     }
 }
 
@@ -394,7 +410,7 @@ fn maximise<F: Family>(
         result.state().get_best_param().or(result.state().get_param()).cloned().unwrap_or(start.to_vec());
     let mut u = [best[0], best[1]];
     let mut iterations = result.state().get_iter();
-    let mut current = criterion.at(u);
+    let mut current = criterion.searched_at(u);
     for _ in 0..8 {
         let Some(inv) = inverse(current.hessian) else { break };
         if !information_is_definite(current.hessian) {
@@ -410,7 +426,7 @@ fn maximise<F: Family>(
         let noise = ROUNDING_NOISE * current.log_likelihood.abs();
         for _ in 0..30 {
             let trial = [u[0] + scale * step[0], u[1] + scale * step[1]];
-            let at = criterion.at(trial);
+            let at = criterion.searched_at(trial);
             let better = at.log_likelihood >= current.log_likelihood
                 || (at.log_likelihood >= current.log_likelihood - noise
                     && norm(&at.gradient) < norm(&current.gradient));

@@ -174,6 +174,147 @@ pub struct BetaPoint {
     at_s: PolygammaBase,
 }
 
+/// Tables whose largest number of trials is at most this many times their
+/// number of distinct pairs are summed by [`CountTails`] while a fit
+/// searches; a point then costs a few operations per count up to the largest
+/// (three tails), not a dozen special functions per pair.
+const TAIL_COUNTS_PER_PAIR: f64 = 2.0;
+
+/// A table of whole counts as three tails: for j = 0, 1, …, how many groups
+/// have more than j successes, more than j failures and more than j trials
+/// (T_k, T_m, T_n). Since ln Γ(x + k) − ln Γ(x) = Σ_{j<k} ln(x + j), the
+/// marginal log likelihood summed over the table is
+/// Σ w ln C(n, k) + K ln μ + M ln ν + Σ_j [T_k(j) ln(1 + j/α) + T_m(j) ln(1 + j/β) − T_n(j) ln(1 + j/s)],
+/// with K and M the successes and failures of all groups (K + M = N), and its
+/// derivatives in u are sums over j of the same shape (the digamma and
+/// trigamma differences as sums of 1/(x + j) and 1/(x + j)²).
+struct CountTails {
+    /// T_k(j), T_m(j) and T_n(j) side by side, j = 0 to the largest number of trials − 1.
+    tails: Vec<[f64; 3]>,
+    /// Σ w ln C(n, k).
+    constant: f64,
+    /// K and M.
+    successes: f64,
+    failures: f64,
+}
+
+/// Per point, the sums over j of one tail's terms at x (α, β or s), each
+/// as [`CountTails::at`] combines them.
+#[derive(Default)]
+struct TailTerms {
+    /// Σ T(j)/(x + j): ψ(x + count) − ψ(x), summed over the groups.
+    first: f64,
+    /// Σ T(j)/(x + j)²: ψ′(x) − ψ′(x + count), summed.
+    second: f64,
+}
+
+/// A sum with Neumaier's compensation: the rounding of each addition is
+/// carried beside the sum and added at the end.
+#[derive(Default, Clone, Copy)]
+struct CompensatedSum {
+    sum: f64,
+    error: f64,
+}
+
+impl CompensatedSum {
+    fn add(&mut self, term: f64) {
+        let next = self.sum + term;
+        self.error +=
+            if self.sum.abs() >= term.abs() { (self.sum - next) + term } else { (term - next) + self.sum };
+        self.sum = next;
+    }
+
+    fn value(self) -> f64 {
+        self.sum + self.error
+    }
+}
+
+impl CountTails {
+    /// The tails of `table`, when its counts are whole and its largest
+    /// number of trials small enough for them to be the quicker form.
+    fn of(table: &PairTable) -> Option<Self> {
+        let pairs = table.pairs();
+        let whole = |x: f64| x >= 0.0 && x.fract() == 0.0;
+        let largest = table.max_size();
+        if pairs.is_empty()
+            || largest > TAIL_COUNTS_PER_PAIR * pairs.len() as f64
+            || !pairs.iter().all(|p| whole(p.size) && whole(p.count) && p.count <= p.size)
+        {
+            return None;
+        }
+        let len = largest as usize;
+        // Groups by their number of successes, failures and trials, then the tails from the top.
+        let mut at = vec![[0.0f64; 3]; len + 1];
+        let (mut successes, mut failures) = (0.0, 0.0);
+        for p in pairs {
+            let (n, k) = (p.size as usize, p.count as usize);
+            at[k][0] += p.weight;
+            at[n - k][1] += p.weight;
+            at[n][2] += p.weight;
+            successes += p.weight * p.count;
+            failures += p.weight * (p.size - p.count);
+        }
+        let mut tails = vec![[0.0f64; 3]; len];
+        let mut above = [0.0f64; 3];
+        for j in (0..len).rev() {
+            for axis in 0..3 {
+                above[axis] += at[j + 1][axis];
+            }
+            tails[j] = above;
+        }
+        // Σ w ln C(n, k) = Σ_j (T_n(j) − T_k(j) − T_m(j)) ln(j + 1), as ln n! = Σ_{j<n} ln(j + 1).
+        let mut constant = CompensatedSum::default();
+        for (j, [k, m, n]) in tails.iter().enumerate() {
+            constant.add((n - k - m) * (j as f64).ln_1p());
+        }
+        let constant = constant.value();
+        Some(CountTails { tails, constant, successes, failures })
+    }
+
+    /// The log likelihood summed over the table and its derivatives at `u`.
+    fn at(&self, u: [f64; 2]) -> Evaluation {
+        let (mu, nu) = mean_and_complement(u[0]);
+        let s = u[1].exp();
+        let (a, b) = (mu * s, nu * s);
+        let c = s * mu * nu;
+        let mut terms = [TailTerms::default(), TailTerms::default(), TailTerms::default()];
+        // The log and excess sums combine the three tails at each j before
+        // adding (they largely cancel); the logs are added compensated.
+        let mut log = CompensatedSum::default();
+        let (mut excess, mut excess_slope) = (0.0f64, 0.0f64);
+        for (j, tail) in self.tails.iter().enumerate() {
+            let j = j as f64;
+            let mut log_term = 0.0;
+            let mut excess_term = 0.0;
+            let mut slope_term = 0.0;
+            for (axis, (x, sign)) in [(a, 1.0), (b, 1.0), (s, -1.0)].into_iter().enumerate() {
+                let t = tail[axis];
+                let inverse = 1.0 / (x + j);
+                let share = j * inverse;
+                log_term += sign * t * (j / x).ln_1p();
+                excess_term += sign * t * share;
+                slope_term += sign * t * x * share * inverse;
+                terms[axis].first += t * inverse;
+                terms[axis].second += t * inverse * inverse;
+            }
+            log.add(log_term);
+            excess += excess_term;
+            excess_slope += slope_term;
+        }
+        let times_ln = |w: f64, x: f64| if w == 0.0 { 0.0 } else { w * x.ln() };
+        let log_likelihood =
+            self.constant + times_ln(self.successes, mu) + times_ln(self.failures, nu) + log.value();
+        let [on_a, on_b, _] = terms;
+        let g1 = c * (on_a.first - on_b.first);
+        // ∂/∂ln s of Σ T ln(x + j) over the three tails is K − E_α + M − E_β − N + E_s, E_x = Σ T j/(x + j).
+        let g2 = -excess;
+        let h11 = c * (nu - mu) * (on_a.first - on_b.first) - c * c * (on_a.second + on_b.second);
+        let h12 = g1 - c * (a * on_a.second - b * on_b.second);
+        let h22 = excess_slope;
+        Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
+    }
+}
+
 impl Family for BetaBinomial {
     const TERMS: ModelTerms = ModelTerms {
         name: "beta-binomial",
@@ -278,6 +419,11 @@ impl Family for BetaBinomial {
         let h22 = at.at_a.scaled_trigamma_excess(k) + at.at_b.scaled_trigamma_excess(n - k)
             - at.at_s.scaled_trigamma_excess(n);
         Evaluation { log_likelihood, gradient: [g1, g2], hessian: [[h11, h12], [h12, h22]] }
+    }
+
+    fn search_sums(table: &PairTable) -> Option<Box<dyn Fn([f64; 2]) -> Evaluation>> {
+        let tails = CountTails::of(table)?;
+        Some(Box::new(move |u| tails.at(u)))
     }
 
     fn rate_axes(p: f64) -> [f64; 2] {
@@ -504,6 +650,59 @@ impl Posterior {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_tails_sum_what_the_pairs_sum() {
+        // The same sums in two forms (the tails of the counts against each
+        // pair's terms), over tables of small and large counts, near the
+        // no-overdispersion edge and far from it.
+        use rand::{Rng, SeedableRng};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        for largest in [1u32, 3, 40, 2000] {
+            let mut pairs = Vec::new();
+            for _ in 0..(largest as usize * 3).max(4) {
+                let n = rng.random_range(0..=largest);
+                let k = rng.random_range(0..=n);
+                pairs.push(WeightedPair {
+                    size: f64::from(n),
+                    count: f64::from(k),
+                    weight: 1.0 + f64::from(n % 7),
+                });
+            }
+            let table = PairTable::from_weighted(pairs);
+            let tails = CountTails::of(&table).expect("whole counts, few of them");
+            for u in [[-1.2, 2.0], [0.4, -3.0], [2.5, 9.0], [0.0, 25.0], [-0.3, 0.5]] {
+                let (quick, pairwise) = (tails.at(u), crate::core::fit::evaluate::<BetaBinomial>(&table, u));
+                let close = |x: f64, y: f64, scale: f64| (x - y).abs() <= 1e-11 * scale.max(1.0);
+                let scale = pairwise
+                    .hessian
+                    .iter()
+                    .flatten()
+                    .chain(&pairwise.gradient)
+                    .fold(0.0f64, |m, v| m.max(v.abs()));
+                assert!(
+                    close(quick.log_likelihood, pairwise.log_likelihood, pairwise.log_likelihood.abs()),
+                    "{largest} {u:?} {quick:?} {pairwise:?}"
+                );
+                for i in 0..2 {
+                    assert!(
+                        close(quick.gradient[i], pairwise.gradient[i], scale),
+                        "g{i} {largest} {u:?} {quick:?} {pairwise:?}"
+                    );
+                    for j in 0..2 {
+                        assert!(
+                            close(quick.hessian[i][j], pairwise.hessian[i][j], scale),
+                            "h{i}{j} {largest} {u:?} {quick:?} {pairwise:?}"
+                        );
+                    }
+                }
+            }
+        }
+        let fractional = PairTable::from_weighted([WeightedPair { size: 2.5, count: 1.0, weight: 1.0 }]);
+        assert!(CountTails::of(&fractional).is_none());
+        let sparse = PairTable::from_weighted([WeightedPair { size: 1e6, count: 1.0, weight: 1.0 }]);
+        assert!(CountTails::of(&sparse).is_none(), "a million trials over one pair: pair by pair");
+    }
 
     #[test]
     fn derivatives_match_finite_differences() {
