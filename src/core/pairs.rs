@@ -74,28 +74,34 @@ const DENSE_SIZES: usize = 1024;
 
 /// Numbers a pair by where its counts fall: pairs of a whole size below
 /// [`DENSE_SIZES`] and a whole count no larger than the size (most groups,
-/// in practice) by a triangular array indexed by (size, count), the rest by
-/// a hash map. The array is 2 MB and fits the cache; a hash map of hundreds
-/// of thousands of pairs does not, and one lookup per input row made it a
-/// large part of a run's time.
+/// in practice) by their slot in a triangle indexed by (size, count), the
+/// rest by a hash map. A hash map of hundreds of thousands of pairs does not
+/// fit the cache, and one lookup per input row made it a large part of a
+/// run's time.
 pub struct PairIndex {
-    dense: Vec<u32>,
+    dense: DenseSlots,
     sparse: PairMap<u32>,
 }
 
-impl Default for PairIndex {
-    fn default() -> Self {
-        PairIndex { dense: vec![u32::MAX; DENSE_SIZES * (DENSE_SIZES + 1) / 2], sparse: PairMap::default() }
-    }
+/// The dense part of a [`PairIndex`].
+enum DenseSlots {
+    /// None: every pair in the hash map.
+    Absent,
+    /// The pairs with a slot come first in the table, in slot order (as a
+    /// sorted table of whole counts has them): a pair's number is `first`
+    /// plus the number of occupied slots before its own, a bit a slot and a
+    /// running count a word (99 KB, where a number a slot takes 2 MB: ten
+    /// segments' triangles of numbers missed the cache on most lookups).
+    Ranked { occupied: Vec<u64>, before: Vec<u32>, first: u32 },
+    /// A number a slot (`u32::MAX` where none), for tables whose pairs
+    /// without a slot (a fractional size) sort among those with one.
+    Numbers(Vec<u32>),
 }
 
-impl PairIndex {
-    /// An index with no dense part (every pair in the hash map), for the
-    /// tables of many small segments, where 2 MB each would add up.
-    pub fn sparse() -> Self {
-        PairIndex { dense: Vec::new(), sparse: PairMap::default() }
-    }
+/// Slots in the dense triangle.
+const DENSE_SLOTS: usize = DENSE_SIZES * (DENSE_SIZES + 1) / 2;
 
+impl PairIndex {
     /// The dense slot of a pair, when it has one.
     fn slot(size: f64, count: f64) -> Option<usize> {
         // Whole and in range, compared through an integer cast (`fract` is a
@@ -109,34 +115,65 @@ impl PairIndex {
 
     /// The number of a pair, if it has one.
     pub fn get(&self, size: f64, count: f64) -> Option<u32> {
-        match Self::slot(size, count).filter(|_| !self.dense.is_empty()) {
-            Some(slot) => Some(self.dense[slot]).filter(|&i| i != u32::MAX),
-            None => self.sparse.get(&key(size, count)).copied(),
-        }
-    }
-
-    /// The number of a pair, giving it `next()` when it has none yet.
-    pub fn get_or_insert(&mut self, size: f64, count: f64, next: impl FnOnce() -> u32) -> u32 {
-        match Self::slot(size, count).filter(|_| !self.dense.is_empty()) {
-            Some(slot) => {
-                if self.dense[slot] == u32::MAX {
-                    self.dense[slot] = next();
-                }
-                self.dense[slot]
+        let slot = match (&self.dense, Self::slot(size, count)) {
+            (DenseSlots::Absent, _) | (_, None) => return self.sparse.get(&key(size, count)).copied(),
+            (_, Some(slot)) => slot,
+        };
+        match &self.dense {
+            DenseSlots::Ranked { occupied, before, first } => {
+                let (word, bit) = (slot / 64, slot % 64);
+                let bits = occupied[word];
+                (bits >> bit & 1 == 1)
+                    .then(|| first + before[word] + (bits & ((1u64 << bit) - 1)).count_ones())
             }
-            None => *self.sparse.entry(key(size, count)).or_insert_with(next),
+            DenseSlots::Numbers(numbers) => Some(numbers[slot]).filter(|&i| i != u32::MAX),
+            DenseSlots::Absent => unreachable!("answered above"),
         }
     }
 
-    /// The index of distinct pairs: each numbered by its position plus
-    /// `first`; with a dense part when `dense`.
+    /// The index of distinct pairs in table order (sorted by size, then
+    /// count): each numbered by its position plus `first`; with a dense
+    /// part when `dense`.
     pub fn of_pairs(pairs: &[WeightedPair], first: u32, dense: bool) -> Self {
-        let mut index = if dense { PairIndex::default() } else { PairIndex::sparse() };
-        for (i, pair) in pairs.iter().enumerate() {
-            let i = first + i as u32;
-            index.get_or_insert(pair.size, pair.count, || i);
+        let slots: Vec<Option<usize>> =
+            pairs.iter().map(|p| if dense { Self::slot(p.size, p.count) } else { None }).collect();
+        let leading = slots.iter().take_while(|s| s.is_some()).count();
+        // Slots rising through a leading run, and none after it.
+        let ranked =
+            slots[..leading].windows(2).all(|w| w[0] < w[1]) && slots[leading..].iter().all(Option::is_none);
+        let mut sparse = PairMap::default();
+        let dense = if !dense {
+            DenseSlots::Absent
+        } else if ranked {
+            let mut occupied = vec![0u64; DENSE_SLOTS.div_ceil(64)];
+            for slot in slots.iter().flatten() {
+                occupied[slot / 64] |= 1 << (slot % 64);
+            }
+            let mut before = Vec::with_capacity(occupied.len());
+            let mut count = 0u32;
+            for bits in &occupied {
+                before.push(count);
+                count += bits.count_ones();
+            }
+            DenseSlots::Ranked { occupied, before, first }
+        } else {
+            let mut numbers = vec![u32::MAX; DENSE_SLOTS];
+            for (i, slot) in slots.iter().enumerate() {
+                if let Some(slot) = slot {
+                    // The first of pairs sharing a slot (0 and −0) keeps it, as a lookup finds it.
+                    if numbers[*slot] == u32::MAX {
+                        numbers[*slot] = first + i as u32;
+                    }
+                }
+            }
+            DenseSlots::Numbers(numbers)
+        };
+        for (i, (pair, slot)) in pairs.iter().zip(&slots).enumerate() {
+            if slot.is_none() {
+                sparse.insert(key(pair.size, pair.count), first + i as u32);
+            }
         }
-        index
+        PairIndex { dense, sparse }
     }
 }
 
@@ -150,7 +187,7 @@ pub struct PairCounter {
 
 impl Default for PairCounter {
     fn default() -> Self {
-        PairCounter { dense: vec![0.0; DENSE_SIZES * (DENSE_SIZES + 1) / 2], sparse: PairMap::default() }
+        PairCounter { dense: vec![0.0; DENSE_SLOTS], sparse: PairMap::default() }
     }
 }
 
@@ -300,10 +337,37 @@ mod tests {
         assert_eq!(sizes, vec![(0.0, 0.0, 1.0), (2.5, 1.0, 1.0), (3.0, 1.0, 3.0), (4.0, 7.0, 1.0)]);
         for dense in [true, false] {
             let index = PairIndex::of_pairs(table.pairs(), 10, dense);
+            assert!(
+                matches!(index.dense, DenseSlots::Numbers(_)) == dense,
+                "2.5 trials sort among whole ones"
+            );
             assert_eq!(index.get(3.0, 1.0), Some(12));
             assert_eq!(index.get(4.0, 7.0), Some(13));
             assert_eq!(index.get(2000.0, 5.0), None);
             assert_eq!(index.get(3.0, 2.0), None);
+        }
+        // Whole counts: the pairs with a slot lead the table, numbered by rank.
+        let pair = |size: f64, count: f64| WeightedPair { size, count, weight: 1.0 };
+        let whole = PairTable::from_weighted(
+            [
+                (0.0, 0.0),
+                (1.0, 1.0),
+                (63.0, 2.0),
+                (64.0, 0.0),
+                (200.0, 199.0),
+                (1023.0, 1023.0),
+                (1024.0, 3.0),
+                (5000.0, 9.0),
+            ]
+            .map(|(n, k)| pair(n, k)),
+        );
+        let index = PairIndex::of_pairs(whole.pairs(), 7, true);
+        assert!(matches!(index.dense, DenseSlots::Ranked { .. }));
+        for (i, p) in whole.pairs().iter().enumerate() {
+            assert_eq!(index.get(p.size, p.count), Some(7 + i as u32), "{p:?}");
+        }
+        for (n, k) in [(63.0, 3.0), (64.0, 1.0), (2.0, 0.0), (1023.0, 1022.0), (1024.0, 4.0), (3.5, 1.0)] {
+            assert_eq!(index.get(n, k), None, "{n} {k}");
         }
         let mut sparse = PairCounter::sparse();
         for (size, count) in pairs {
