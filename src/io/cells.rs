@@ -88,7 +88,23 @@ impl NumericColumn {
         }
         let texts = cast(array, &DataType::Utf8)?;
         let texts = texts.as_string::<i32>();
-        let parsed: Int64Array = texts.iter().map(|t| t.and_then(parse_plain_integer)).collect();
+        // Most text columns are plain integers throughout: their values are
+        // gathered without a validity mask (building one value by value
+        // showed in CSV profiles); any other column takes the general way.
+        let mut values = Vec::with_capacity(texts.len());
+        if texts.null_count() == 0 {
+            for text in texts.iter().flatten() {
+                match parse_plain_integer(text) {
+                    Some(value) => values.push(value),
+                    None => break,
+                }
+            }
+        }
+        let parsed: Int64Array = if values.len() == texts.len() {
+            Int64Array::from(values)
+        } else {
+            texts.iter().map(|t| t.and_then(parse_plain_integer)).collect()
+        };
         Ok(NumericColumn::Integers(parsed))
     }
 
