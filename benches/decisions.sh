@@ -7,7 +7,10 @@
 #           --flag-fdr 0.05 and --ranks (both rank columns);
 #   each alone: --by, --above with --flag-fdr, --ranks.
 # Runs alternate, each is timed with /usr/bin/time (wall, peak memory);
-# medians and the ratio to plain at the end. The target: full ≤ 1.25 × plain.
+# medians and the ratio to plain at the end. The issue's target was full ≤ 1.5 × plain (not met:
+# 1.90 × at dd4a8c9, README "What ranking and flagging cost"); the script exits 1 when full is
+# above FULL_AT_MOST × plain (2.1 by default, above the figure the README quotes, so that a
+# regression fails it) or a variant's peak is above PEAK_AT_MOST MB (300).
 #
 # usage: benches/decisions.sh [GROUPS]        default: 10000000
 # env:   RUNS (3), PYTHON (python3), FORMAT (parquet or csv; parquet),
@@ -41,7 +44,7 @@ for run in $(seq "$runs"); do
     echo -e "$variant\t$run\t$wall\t$((rss / 1024))" | tee -a "$log"
   done
 done
-"$python" - "$log" <<'PY'
+"$python" - "$log" "${FULL_AT_MOST:-2.1}" "${PEAK_AT_MOST:-300}" <<'PY'
 import statistics, sys, collections
 times, memory = collections.defaultdict(list), collections.defaultdict(list)
 for line in open(sys.argv[1]):
@@ -52,4 +55,11 @@ plain = statistics.median(times["plain"])
 for variant in times:
     median = statistics.median(times[variant])
     print(f"{variant:6s} median {median:6.2f} s  ({median / plain:.3f} x plain)  peak {max(memory[variant])} MB")
+full_at_most, peak_at_most = float(sys.argv[2]), int(sys.argv[3])
+missed = []
+if "full" in times and statistics.median(times["full"]) > full_at_most * plain:
+    missed.append(f"full at {statistics.median(times['full']) / plain:.2f} x plain, at most {full_at_most}")
+missed += [f"{v} peak {max(m)} MB, at most {peak_at_most}" for v, m in memory.items() if max(m) > peak_at_most]
+if missed:
+    sys.exit("target missed: " + "; ".join(missed))
 PY

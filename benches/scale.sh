@@ -11,6 +11,7 @@
 #
 # usage: benches/scale.sh [GROUPS ...]        default: 1000000 10000000 100000000
 # env:   RUNS (3), PEER_AT (sizes where the strong peer runs: "1000000 10000000"),
+#        PEER_AT_LEAST (2.2: the script exits 1 below it, or above the memory targets),
 #        PANDAS_AT (sizes where the pandas peer runs: "1000000"), PYTHON (python3),
 #        BENCH_DATA (/var/tmp/ratepool-bench: inputs are made once and kept there)
 set -euo pipefail
@@ -77,7 +78,7 @@ for groups in "${sizes[@]}"; do
       | sed "s/^/threads=$threads groups=$groups /"
   done
 done
-"$python" - "$log" <<'PY'
+"$python" - "$log" "${PEER_AT_LEAST:-2.2}" <<'PY'
 import statistics, sys, collections
 rows = collections.defaultdict(list)
 for line in open(sys.argv[1]):
@@ -100,4 +101,19 @@ for (tool, fmt, groups), wall in sorted(median.items(), key=lambda kv: (kv[0][2]
     if watched:
         parts.append(f"with --progress / without = {watched / wall:.3f}")
     print(", ".join(parts))
+# The figures the README quotes, as checks that fail when they stop holding: ratepool's peak
+# within the issue's targets (200 MB up to 10M groups, 1 GB beyond), and the strong peer at
+# least PEER_AT_LEAST times ratepool's time (2.2 by default, below the 2.37x to 2.66x measured
+# pair by pair at dd4a8c9; the issue's 3x is not met).
+peer_at_least = float(sys.argv[2])
+missed = []
+for (tool, fmt, groups), values in rows.items():
+    limit = 200 if groups <= 10_000_000 else 1024
+    if tool == "ratepool" and max(r for _, r in values) > limit:
+        missed.append(f"{fmt} {groups}: peak {max(r for _, r in values)} MB, at most {limit}")
+    peer = median.get(("strong_peer", fmt, groups))
+    if tool == "ratepool" and peer and peer / median[(tool, fmt, groups)] < peer_at_least:
+        missed.append(f"{fmt} {groups}: strong peer at {peer / median[(tool, fmt, groups)]:.2f} x ratepool, at least {peer_at_least}")
+if missed:
+    sys.exit("target missed: " + "; ".join(missed))
 PY
