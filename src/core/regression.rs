@@ -358,6 +358,8 @@ impl Problem<'_> {
         let u2 = theta[p];
         let restricted = self.likelihood == Likelihood::Restricted;
         let rows = self.design.rows();
+        // What the common parameter alone decides, once for every pair.
+        let common = F::at_point([0.0, u2]);
         let parts: Vec<(Evaluated, Vec<f64>)> = (0..rows.div_ceil(CHUNK))
             .into_par_iter()
             .map(|chunk| {
@@ -370,7 +372,7 @@ impl Problem<'_> {
                     let eta: f64 = z.iter().zip(&theta[..p]).map(|(z, a)| z * a).sum();
                     e.meet_predictor(eta);
                     let pair = &self.pairs[i];
-                    let t = F::pair_terms_at(&F::at_point([eta, u2]), pair);
+                    let t = F::pair_terms_at(&F::at_mean(&common, [eta, u2]), pair);
                     let c = pair.weight;
                     let (g1, h11, h12) = (c * t.gradient[0], c * t.hessian[0][0], c * t.hessian[0][1]);
                     e.log_likelihood += c * t.log_likelihood;

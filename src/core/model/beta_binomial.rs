@@ -315,6 +315,26 @@ impl CountTails {
     }
 }
 
+impl BetaBinomial {
+    /// [`Family::at_point`] at `u` with the strength's polygamma values given.
+    fn with_strength_base(u: [f64; 2], at_s: PolygammaBase) -> BetaPoint {
+        let (mu, nu) = mean_and_complement(u[0]);
+        let s = u[1].exp();
+        let (a, b) = (mu * s, nu * s);
+        BetaPoint {
+            mu,
+            nu,
+            s,
+            a,
+            b,
+            prior_remainder: ln_beta_remainder(a, b),
+            at_a: PolygammaBase::new(a),
+            at_b: PolygammaBase::new(b),
+            at_s,
+        }
+    }
+}
+
 impl Family for BetaBinomial {
     const TERMS: ModelTerms = ModelTerms {
         name: "beta-binomial",
@@ -376,20 +396,12 @@ impl Family for BetaBinomial {
     type AtPoint = BetaPoint;
 
     fn at_point(u: [f64; 2]) -> BetaPoint {
-        let (mu, nu) = mean_and_complement(u[0]);
-        let s = u[1].exp();
-        let (a, b) = (mu * s, nu * s);
-        BetaPoint {
-            mu,
-            nu,
-            s,
-            a,
-            b,
-            prior_remainder: ln_beta_remainder(a, b),
-            at_a: PolygammaBase::new(a),
-            at_b: PolygammaBase::new(b),
-            at_s: PolygammaBase::new(s),
-        }
+        Self::with_strength_base(u, PolygammaBase::new(u[1].exp()))
+    }
+
+    fn at_mean(at: &BetaPoint, u: [f64; 2]) -> BetaPoint {
+        debug_assert_eq!(at.s.to_bits(), u[1].exp().to_bits());
+        Self::with_strength_base(u, at.at_s)
     }
 
     fn pair_terms_at(at: &BetaPoint, pair: &WeightedPair) -> Evaluation {
@@ -702,6 +714,14 @@ mod tests {
         assert!(CountTails::of(&fractional).is_none());
         let sparse = PairTable::from_weighted([WeightedPair { size: 1e6, count: 1.0, weight: 1.0 }]);
         assert!(CountTails::of(&sparse).is_none(), "a million trials over one pair: pair by pair");
+    }
+
+    #[test]
+    fn a_point_made_from_one_of_the_same_strength_gives_the_same_bits() {
+        super::super::assert_at_mean_matches::<BetaBinomial>(
+            &[(12.0, 5.0), (300.0, 7.0), (40.0, 40.0), (1.0, 0.0)],
+            &[[0.3, 1.5], [-2.0, 4.0], [1.0, -0.5]],
+        );
     }
 
     #[test]

@@ -113,6 +113,11 @@ impl Family for GammaPoisson {
         GammaPoint { mu, a, at_a: PolygammaBase::new(a) }
     }
 
+    fn at_mean(at: &GammaPoint, u: [f64; 2]) -> GammaPoint {
+        debug_assert_eq!(at.a.to_bits(), u[1].exp().to_bits());
+        GammaPoint { mu: u[0].exp(), ..*at }
+    }
+
     fn pair_terms_at(at: &GammaPoint, pair: &WeightedPair) -> Evaluation {
         let (exposure, y) = (pair.size, pair.count);
         if exposure == 0.0 {
@@ -351,6 +356,14 @@ impl Family for GammaPoisson {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_point_made_from_one_of_the_same_strength_gives_the_same_bits() {
+        super::super::assert_at_mean_matches::<GammaPoisson>(
+            &[(2.5, 3.0), (0.01, 0.0), (400.0, 250.0), (1.0, 40.0)],
+            &[[0.1, 0.5], [-1.0, 3.0], [0.5, -1.0]],
+        );
+    }
 
     #[test]
     fn derivatives_match_finite_differences() {

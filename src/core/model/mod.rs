@@ -987,6 +987,15 @@ pub trait Family: Sync {
     type AtPoint: Sync;
     /// Those shared values at working coordinates `u`.
     fn at_point(u: [f64; 2]) -> Self::AtPoint;
+    /// The shared values at `u` from those at another point `at` of the same
+    /// second coordinate: a covariate prior gives each pair its own mean
+    /// coordinate and one common parameter, so what depends on the common
+    /// parameter alone is made once per point of its fit, not once per pair.
+    /// The same bits as [`Family::at_point`] at `u`.
+    fn at_mean(at: &Self::AtPoint, u: [f64; 2]) -> Self::AtPoint {
+        let _ = at;
+        Self::at_point(u)
+    }
     /// Per-pair log pmf and its derivatives at a point prepared by [`Family::at_point`].
     fn pair_terms_at(at: &Self::AtPoint, pair: &WeightedPair) -> Evaluation;
     /// Per-pair log pmf and its derivatives at working coordinates `u`.
@@ -1141,6 +1150,31 @@ pub(crate) fn assert_derivatives_match<F: Family>(pairs: &[(f64, f64)], points: 
                     );
                 }
             }
+        }
+    }
+}
+
+/// Checks that [`Family::at_mean`] from a point of the same second
+/// coordinate gives, for every pair, the bits [`Family::at_point`] gives.
+#[cfg(test)]
+pub(crate) fn assert_at_mean_matches<F: Family>(pairs: &[(f64, f64)], points: &[[f64; 2]]) {
+    for &(size, count) in pairs {
+        let pair = WeightedPair { size, count, weight: 1.0 };
+        for &u in points {
+            let common = F::at_point([0.7, u[1]]);
+            let (shared, fresh) = (F::pair_terms_at(&F::at_mean(&common, u), &pair), F::pair_terms(u, &pair));
+            let bits = |e: Evaluation| {
+                [
+                    e.log_likelihood,
+                    e.gradient[0],
+                    e.gradient[1],
+                    e.hessian[0][0],
+                    e.hessian[0][1],
+                    e.hessian[1][1],
+                ]
+                .map(f64::to_bits)
+            };
+            assert_eq!(bits(shared), bits(fresh), "{size}, {count} at {u:?}");
         }
     }
 }
