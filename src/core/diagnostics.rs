@@ -108,18 +108,10 @@ fn weighted_pearson(x: &[f64], y: &[f64], w: &[f64]) -> Option<f64> {
 }
 
 /// Spearman's rank correlation (Pearson correlation of average ranks) of
-/// paired values that each stand for `weight` groups.
-pub fn weighted_spearman(x: &[f64], y: &[f64], weights: &[f64]) -> Option<f64> {
-    if weights.iter().sum::<f64>() < 2.0 {
-        return None;
-    }
-    weighted_pearson(&weighted_average_ranks(x, weights), &weighted_average_ranks(y, weights), weights)
-}
-
-/// [`weighted_spearman`] of values given up as they are ranked: each side's
-/// values are freed once its ranks are made, so at most three tables of
-/// them are held at once.
-fn spearman_of_owned(x: Vec<f64>, y: Vec<f64>, weights: &[f64]) -> Option<f64> {
+/// paired values that each stand for `weight` groups. The values are taken
+/// over and each side is freed once ranked, so at most three tables of
+/// them are held at once (the pull summary's are a pair's worth each).
+pub fn weighted_spearman(x: Vec<f64>, y: Vec<f64>, weights: &[f64]) -> Option<f64> {
     if weights.iter().sum::<f64>() < 2.0 {
         return None;
     }
@@ -190,7 +182,7 @@ pub fn pull(pairs: usize, outcome: impl Fn(usize) -> PairOutcome) -> Pull {
         mean_abs_shift: (with_rate > 0.0).then(|| total_shift / with_rate),
         max_abs_shift: max_pair.map(|_| max_shift),
         max_shift_row: max_pair,
-        rank_correlation: spearman_of_owned(raws, posts, &counts),
+        rank_correlation: weighted_spearman(raws, posts, &counts),
     }
 }
 
@@ -220,9 +212,9 @@ mod tests {
     fn spearman_of_a_monotone_map_is_one_and_of_a_reversal_minus_one() {
         let x = [0.1, 0.5, 0.2, 0.9];
         let y: Vec<f64> = x.iter().map(|v| v * v * v).collect();
-        assert!((weighted_spearman(&x, &y, &unit(4)).unwrap() - 1.0).abs() < 1e-15);
+        assert!((weighted_spearman(x.to_vec(), y, &unit(4)).unwrap() - 1.0).abs() < 1e-15);
         let z: Vec<f64> = x.iter().map(|v| -v).collect();
-        assert!((weighted_spearman(&x, &z, &unit(4)).unwrap() + 1.0).abs() < 1e-15);
+        assert!((weighted_spearman(x.to_vec(), z, &unit(4)).unwrap() + 1.0).abs() < 1e-15);
     }
 
     #[test]
@@ -247,8 +239,9 @@ mod tests {
             v.iter().zip(&w).flat_map(|(&a, &c)| std::iter::repeat_n(a, c as usize)).collect()
         };
         let (ex, ey) = (expand(&x), expand(&y));
-        let direct = weighted_spearman(&ex, &ey, &unit(ex.len())).unwrap();
-        assert!((weighted_spearman(&x, &y, &w).unwrap() - direct).abs() < 1e-14);
+        let n = ex.len();
+        let direct = weighted_spearman(ex, ey, &unit(n)).unwrap();
+        assert!((weighted_spearman(x.to_vec(), y.to_vec(), &w).unwrap() - direct).abs() < 1e-14);
         // scipy 1.17.1 `spearmanr(numpy.repeat(x, w), numpy.repeat(y, w))` = 0.140028008402801.
         assert!((direct - 0.140028008402801).abs() < 1e-14);
     }

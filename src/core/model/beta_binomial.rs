@@ -277,7 +277,8 @@ impl CountTails {
         let s = u[1].exp();
         let (a, b) = (mu * s, nu * s);
         let c = s * mu * nu;
-        let mut terms = [TailTerms::default(), TailTerms::default(), TailTerms::default()];
+        // The first two tails' sums alone: s enters the derivatives only through the excess sums.
+        let mut terms = [TailTerms::default(), TailTerms::default()];
         // The log and excess sums combine the three tails at each j before
         // adding (they largely cancel); the logs are added compensated.
         let mut log = CompensatedSum::default();
@@ -294,8 +295,10 @@ impl CountTails {
                 log_term += sign * t * (j / x).ln_1p();
                 excess_term += sign * t * share;
                 slope_term += sign * t * x * share * inverse;
-                terms[axis].first += t * inverse;
-                terms[axis].second += t * inverse * inverse;
+                if let Some(sums) = terms.get_mut(axis) {
+                    sums.first += t * inverse;
+                    sums.second += t * inverse * inverse;
+                }
             }
             log.add(log_term);
             excess += excess_term;
@@ -304,7 +307,7 @@ impl CountTails {
         let times_ln = |w: f64, x: f64| if w == 0.0 { 0.0 } else { w * x.ln() };
         let log_likelihood =
             self.constant + times_ln(self.successes, mu) + times_ln(self.failures, nu) + log.value();
-        let [on_a, on_b, _] = terms;
+        let [on_a, on_b] = terms;
         let g1 = c * (on_a.first - on_b.first);
         // ∂/∂ln s of Σ T ln(x + j) over the three tails is K − E_α + M − E_β − N + E_s, E_x = Σ T j/(x + j).
         let g2 = -excess;

@@ -992,8 +992,7 @@ pub trait Family: Sync {
     /// coordinate and one common parameter, so what depends on the common
     /// parameter alone is made once per point of its fit, not once per pair.
     /// The same bits as [`Family::at_point`] at `u`.
-    fn at_mean(at: &Self::AtPoint, u: [f64; 2]) -> Self::AtPoint {
-        let _ = at;
+    fn at_mean(_at: &Self::AtPoint, u: [f64; 2]) -> Self::AtPoint {
         Self::at_point(u)
     }
     /// Per-pair log pmf and its derivatives at a point prepared by [`Family::at_point`].
