@@ -122,19 +122,23 @@ pub fn weighted_spearman(x: Vec<f64>, y: Vec<f64>, weights: &[f64]) -> Option<f6
     weighted_pearson(&x_ranks, &y_ranks, weights)
 }
 
-/// The pull summary over all groups, from each distinct pair and its posterior.
+/// The pull summary over all groups, from each distinct pair and its
+/// posterior (`posterior(i)` that of `pairs[i]`).
 pub fn pull_of_pairs(
     terms: &crate::core::model::ModelTerms,
     pairs: &[crate::core::pairs::WeightedPair],
-    posteriors: &[crate::core::model::Posterior],
+    posterior: impl Fn(usize) -> crate::core::model::Posterior,
 ) -> Pull {
-    let outcome = |i: usize| PairOutcome {
-        raw_rate: terms.raw_value(pairs[i].size, pairs[i].count),
-        posterior_mean: posteriors[i].mean,
-        pool_weight: posteriors[i].pool_weight,
-        groups: pairs[i].weight,
+    let outcome = |i: usize| {
+        let posterior = posterior(i);
+        PairOutcome {
+            raw_rate: terms.raw_value(pairs[i].size, pairs[i].count),
+            posterior_mean: posterior.mean,
+            pool_weight: posterior.pool_weight,
+            groups: pairs[i].weight,
+        }
     };
-    pull(pairs.len().min(posteriors.len()), outcome)
+    pull(pairs.len(), outcome)
 }
 
 /// Computes the pull summary over all groups from the `pairs` distinct

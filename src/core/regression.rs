@@ -270,6 +270,61 @@ pub enum RegressionBoundary {
     NoOverdispersion,
 }
 
+/// A family's prior at a linear predictor, given the common parameter and
+/// the fit's boundary.
+#[derive(Debug, Clone, Copy)]
+struct PriorMaker {
+    common: f64,
+    boundary: RegressionBoundary,
+    natural: fn([f64; 2]) -> [f64; 2],
+    mean_strength: fn([f64; 2]) -> (f64, f64),
+}
+
+impl PriorMaker {
+    fn prior(&self, eta: f64) -> Prior {
+        match self.boundary {
+            RegressionBoundary::None => Prior::Conjugate { natural: (self.natural)([eta, self.common]) },
+            RegressionBoundary::NoOverdispersion => Prior::CompletePooling { mean: self.centre(eta) },
+        }
+    }
+
+    fn centre(&self, eta: f64) -> f64 {
+        (self.mean_strength)([eta, self.common]).0
+    }
+}
+
+/// Every row's prior under a covariate fit, held as its linear predictor
+/// alone (8 bytes a row, where the prior and its centre would take 32):
+/// each is made again when asked, with the bits of
+/// [`RegressionFit::prior_of`] and [`RegressionFit::centre_of`].
+#[derive(Debug)]
+pub struct PredictedPriors {
+    predictors: Vec<f64>,
+    maker: PriorMaker,
+}
+
+impl PredictedPriors {
+    /// Rows.
+    pub fn len(&self) -> usize {
+        self.predictors.len()
+    }
+
+    /// Whether there are no rows.
+    pub fn is_empty(&self) -> bool {
+        self.predictors.is_empty()
+    }
+
+    /// Row i's prior.
+    pub fn prior(&self, i: usize) -> Prior {
+        self.maker.prior(self.predictors[i])
+    }
+
+    /// Row i's prior mean (the centre its groups are pulled toward).
+    pub fn centre(&self, i: usize) -> f64 {
+        self.maker.centre(self.predictors[i])
+    }
+}
+
 /// A fitted covariate prior.
 #[derive(Debug, Clone, PartialEq)]
 pub struct RegressionFit {
@@ -670,18 +725,30 @@ impl RegressionFit {
     /// Row i's prior: conjugate at (xᵢᵀb, u₂), or at the boundary complete
     /// pooling at its centre.
     pub fn prior_of<F: Family>(&self, design: &Design, i: usize) -> Prior {
-        let eta = self.predictor(design, i);
-        match self.boundary {
-            RegressionBoundary::None => Prior::Conjugate { natural: F::natural([eta, self.common]) },
-            RegressionBoundary::NoOverdispersion => {
-                Prior::CompletePooling { mean: F::mean_strength([eta, self.common]).0 }
-            }
-        }
+        self.prior_maker::<F>().prior(self.predictor(design, i))
     }
 
     /// Row i's prior mean (the centre its groups are pulled toward).
     pub fn centre_of<F: Family>(&self, design: &Design, i: usize) -> f64 {
-        F::mean_strength([self.predictor(design, i), self.common]).0
+        self.prior_maker::<F>().centre(self.predictor(design, i))
+    }
+
+    /// What makes a row's prior and centre from its linear predictor alone.
+    fn prior_maker<F: Family>(&self) -> PriorMaker {
+        PriorMaker {
+            common: self.common,
+            boundary: self.boundary,
+            natural: F::natural,
+            mean_strength: F::mean_strength,
+        }
+    }
+
+    /// Every row's prior under this fit, held as its linear predictor alone.
+    pub fn predicted_priors<F: Family>(&self, design: &Design) -> PredictedPriors {
+        PredictedPriors {
+            predictors: (0..design.rows()).map(|i| self.predictor(design, i)).collect(),
+            maker: self.prior_maker::<F>(),
+        }
     }
 
     /// What is known of row i's prior's uncertainty: the covariance of its
@@ -835,6 +902,47 @@ mod tests {
             "{mean_se} against {}",
             plain.mean_se
         );
+    }
+
+    #[test]
+    fn predicted_priors_are_the_family_at_each_rows_predictor() {
+        let (design, _) = rows();
+        let coefficients = vec![-0.4, 0.3, -1.2];
+        for boundary in [RegressionBoundary::None, RegressionBoundary::NoOverdispersion] {
+            let fitted = RegressionFit::of_figures(coefficients.clone(), 1.7, boundary);
+            let predicted = fitted.predicted_priors::<GammaPoisson>(&design);
+            assert_eq!(predicted.len(), design.rows());
+            for i in 0..design.rows() {
+                // xᵢᵀb written out: the intercept, tenure, and kind=b for the rows of code 1.
+                let kind_b = [0.0, 0.0, 1.0, 1.0, 0.0, 0.0][i];
+                let tenure = [0.5, 0.5, 2.0, 2.0, 3.5, 3.5][i];
+                let eta = -0.4 + 0.3 * tenure - 1.2 * kind_b;
+                assert!((fitted.predictor(&design, i) - eta).abs() < 1e-15);
+                let (mean, _) = GammaPoisson::mean_strength([eta, 1.7]);
+                assert!((predicted.centre(i) - mean).abs() <= 1e-15 * mean);
+                let expected = match boundary {
+                    RegressionBoundary::None => {
+                        Prior::Conjugate { natural: GammaPoisson::natural([eta, 1.7]) }
+                    }
+                    RegressionBoundary::NoOverdispersion => Prior::CompletePooling { mean },
+                };
+                match (predicted.prior(i), expected) {
+                    (Prior::Conjugate { natural: a }, Prior::Conjugate { natural: b }) => {
+                        assert!((0..2).all(|k| (a[k] - b[k]).abs() <= 1e-14 * b[k].abs()))
+                    }
+                    (Prior::CompletePooling { mean: a }, Prior::CompletePooling { mean: b }) => {
+                        assert!((a - b).abs() <= 1e-15 * b)
+                    }
+                    (a, b) => panic!("{a:?} against {b:?}"),
+                }
+                // The same bits as the fit's own row-by-row forms.
+                assert_eq!(predicted.prior(i), fitted.prior_of::<GammaPoisson>(&design, i));
+                assert_eq!(
+                    predicted.centre(i).to_bits(),
+                    fitted.centre_of::<GammaPoisson>(&design, i).to_bits()
+                );
+            }
+        }
     }
 
     #[test]

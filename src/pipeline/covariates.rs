@@ -18,7 +18,8 @@ use crate::core::incomplete::{erfc, gamma_tails};
 use crate::core::model::{Family, Prior, PriorUncertainty};
 use crate::core::pairs::{PairHasher, WeightedPair};
 use crate::core::regression::{
-    fit_regression, Design, DesignColumn, DesignFault, RegressionBoundary, RegressionFailure, RegressionFit,
+    fit_regression, Design, DesignColumn, DesignFault, PredictedPriors, RegressionBoundary,
+    RegressionFailure, RegressionFit,
 };
 use crate::error::{Error, Result};
 use crate::io::cells::{Cell, NumericColumn};
@@ -586,15 +587,47 @@ fn describe_fault(design: &Design, fault: &DesignFault) -> String {
     }
 }
 
+/// Each pair's own prior and its centre (the prior mean its groups are
+/// pulled toward).
+pub enum OwnPriors {
+    /// Made again from each pair's linear predictor under a covariate prior.
+    Predicted(PredictedPriors),
+    /// Held one by one (neighbour priors).
+    Held { priors: Vec<Prior>, centres: Vec<f64> },
+}
+
+impl OwnPriors {
+    /// Pairs.
+    pub fn len(&self) -> usize {
+        match self {
+            OwnPriors::Predicted(predicted) => predicted.len(),
+            OwnPriors::Held { priors, .. } => priors.len(),
+        }
+    }
+
+    /// Pair i's prior.
+    pub fn prior(&self, i: usize) -> Prior {
+        match self {
+            OwnPriors::Predicted(predicted) => predicted.prior(i),
+            OwnPriors::Held { priors, .. } => priors[i],
+        }
+    }
+
+    /// Pair i's centre.
+    pub fn centre(&self, i: usize) -> f64 {
+        match self {
+            OwnPriors::Predicted(predicted) => predicted.centre(i),
+            OwnPriors::Held { centres, .. } => centres[i],
+        }
+    }
+}
+
 /// The covariate prior of a run and each pair's prior under it.
 pub(super) struct CellPriors {
-    /// Per pair, the prior its groups are scored with (moved into the
-    /// priors in use when scoring, which hold it from then on).
-    pub priors: Vec<Prior>,
+    /// Per pair, the prior its groups are scored with, and its centre.
+    pub own: Arc<OwnPriors>,
     /// Per pair, what is known of that prior's uncertainty (with corrected intervals only).
     pub uncertainties: Vec<PriorUncertainty>,
-    /// Per pair, its centre (the prior mean its groups are pulled toward).
-    pub centres: Vec<f64>,
     /// Each covariate column's value per pair, as the output writes it.
     pub values: Vec<(String, PairValues)>,
     /// The prior's wire form.
@@ -636,15 +669,14 @@ pub(super) fn cell_priors<F: Family>(
     let fitted = fit_regression::<F>(&design, pairs, job.likelihood, (start[0], start[1]), strength_unit)
         .map_err(|failure| Error::Fit(describe_failure(&design, failure)))?;
     let rows = pairs.len();
-    let priors: Vec<Prior> = (0..rows).map(|i| fitted.prior_of::<F>(&design, i)).collect();
+    let own = OwnPriors::Predicted(fitted.predicted_priors::<F>(&design));
     // Only corrected intervals use them (40 bytes a pair).
     let uncertainties = match job.intervals {
         super::Intervals::Corrected => (0..rows).map(|i| fitted.uncertainty_of::<F>(&design, i)).collect(),
         super::Intervals::PlugIn => Vec::new(),
     };
-    let centres: Vec<f64> = (0..rows).map(|i| fitted.centre_of::<F>(&design, i)).collect();
     let total: f64 = groups.iter().sum();
-    let mean_centre = centres.iter().zip(&groups).map(|(c, g)| c * g).sum::<f64>() / total;
+    let mean_centre = (0..rows).map(|i| own.centre(i) * groups[i]).sum::<f64>() / total;
     let terms = &F::TERMS.covariate_terms;
     let held = fitted.boundary == RegressionBoundary::NoOverdispersion;
     let (common, common_se) = terms.common(fitted.common, fitted.common_se());
@@ -684,7 +716,15 @@ pub(super) fn cell_priors<F: Family>(
         working_bias: None,
         working_covariance: None,
     };
-    Ok(CellPriors { priors, uncertainties, centres, values, fitted_prior, fit, warnings, neighbours: None })
+    Ok(CellPriors {
+        own: Arc::new(own),
+        uncertainties,
+        values,
+        fitted_prior,
+        fit,
+        warnings,
+        neighbours: None,
+    })
 }
 
 /// Each pair's prior under a saved covariate prior (`score --prior`):
@@ -727,12 +767,11 @@ pub(super) fn saved_cell_priors<F: Family>(
         return Err(Error::Input(format!("{}: the prior's coefficients are not all finite", path.display())));
     }
     let fitted = RegressionFit::of_figures(coefficients, common, boundary);
-    let rows = pairs.len();
+    debug_assert_eq!(design.rows(), pairs.len());
     Ok(CellPriors {
-        priors: (0..rows).map(|i| fitted.prior_of::<F>(&design, i)).collect(),
+        own: Arc::new(OwnPriors::Predicted(fitted.predicted_priors::<F>(&design))),
         // A saved covariate prior has no covariance: corrected intervals are refused before this.
         uncertainties: Vec::new(),
-        centres: (0..rows).map(|i| fitted.centre_of::<F>(&design, i)).collect(),
         values,
         fitted_prior: saved.clone(),
         fit,

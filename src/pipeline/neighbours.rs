@@ -8,7 +8,7 @@
 //! every row finds its own area's prior as a covariate run's rows find
 //! theirs, and the scoring after it is the covariate run's.
 
-use super::covariates::{CellPriors, CovariatePairs, CovariateState};
+use super::covariates::{CellPriors, CovariatePairs, CovariateState, OwnPriors};
 use super::validate::row_fault;
 use super::{Job, DEFAULT_BATCH_ROWS};
 use crate::core::model::neighbourhood::{local_priors, LocalPrior, Neighbourhoods};
@@ -20,6 +20,7 @@ use crate::io::input::Input;
 use crate::summary::{FitReport, FittedPrior, NeighbourhoodReport};
 use std::collections::HashMap;
 use std::path::Path;
+use std::sync::Arc;
 
 /// The areas of a neighbour run and who neighbours whom among them.
 pub(super) struct AreaTable {
@@ -169,10 +170,10 @@ pub(super) fn neighbour_cell_priors(
     report.zero_variance =
         (0..areas).filter(|&a| scored[a] && locals[a].is_some_and(|l| l.variance == 0.0)).count() as u64;
     let all_mean = all.fitted_prior.mean();
+    let (mut priors, mut centres) = (Vec::with_capacity(pairs.len()), Vec::with_capacity(pairs.len()));
     let mut cells = CellPriors {
-        priors: Vec::with_capacity(pairs.len()),
+        own: Arc::new(OwnPriors::Held { priors: Vec::new(), centres: Vec::new() }),
         uncertainties: Vec::new(),
-        centres: Vec::with_capacity(pairs.len()),
         values: Vec::new(),
         fitted_prior: all.fitted_prior.clone(),
         fit: all.fit.clone(),
@@ -185,15 +186,16 @@ pub(super) fn neighbour_cell_priors(
         counts.push(neighbourhoods.of(area).len() as i64);
         match &locals[area] {
             Some(own) => {
-                cells.priors.push(local(own));
-                cells.centres.push(own.mean);
+                priors.push(local(own));
+                centres.push(own.mean);
             }
             None => {
-                cells.priors.push(*all.prior);
-                cells.centres.push(all_mean);
+                priors.push(*all.prior);
+                centres.push(all_mean);
             }
         }
     }
+    cells.own = Arc::new(OwnPriors::Held { priors, centres });
     let fell_back = locals.iter().zip(&scored).filter(|(l, &s)| s && l.is_none()).count();
     report.without_neighbours = fell_back as u64;
     if fell_back > 0 {

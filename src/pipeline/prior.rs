@@ -9,7 +9,7 @@
 //! boundary (no overdispersion) is a result, not a fallback. A likelihood-
 //! ratio test says whether one prior per segment fits better than one for all.
 
-use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, PlainFit};
+use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, OwnPriors, PlainFit};
 use super::neighbours::{neighbour_cell_priors, AllAreas, AreaTable};
 use super::segments::{segment_likelihood_ratio, SegmentKey, SegmentPairs};
 use super::{
@@ -70,7 +70,7 @@ pub struct Scored {
     /// The distinct (segment, size, count) pairs, segment after segment.
     pub pairs: Arc<Vec<WeightedPair>>,
     /// Posterior of each pair, in that order.
-    pub posteriors: Arc<Vec<Posterior>>,
+    pub posteriors: Arc<PairPosteriors>,
     /// The prior fitted to (or saved for) all groups.
     pub fitted_prior: FittedPrior,
     /// How it was obtained.
@@ -107,10 +107,56 @@ pub struct Scored {
 pub struct CovariateScore {
     /// Each covariate column's value per pair, in the order given.
     pub values: Vec<(String, PairValues)>,
-    /// Per pair, the centre of its prior (the rate it is pulled toward).
-    pub prior_mean: Arc<Vec<f64>>,
+    /// Per pair, its prior and that prior's centre (the rate it is pulled toward).
+    pub own: Arc<OwnPriors>,
     /// With `--neighbours`: per pair (an area), its number of neighbours.
     pub neighbours: Option<Vec<i64>>,
+}
+
+/// Each pair's posterior, in the order of [`Scored::pairs`]: held whole,
+/// or, where each pair has a prior of its own (covariates, neighbours) and
+/// the intervals are plug-in, held as its interval's ends alone (16 bytes a
+/// pair instead of 64) and made again from its prior and pair when asked,
+/// with the same bits ([`Family::posterior_with_ends`]).
+pub enum PairPosteriors {
+    /// Held whole.
+    Held(Vec<Posterior>),
+    /// Held as the ends of each pair's interval.
+    Ends {
+        /// Per pair, (lower, upper).
+        ends: Vec<[f64; 2]>,
+        /// The pairs.
+        pairs: Arc<Vec<WeightedPair>>,
+        /// Their priors.
+        priors: Arc<OwnPriors>,
+        /// The family's [`Family::posterior_with_ends`].
+        with_ends: fn(&Prior, f64, f64, [f64; 2]) -> Posterior,
+    },
+}
+
+impl PairPosteriors {
+    /// Pairs.
+    pub fn len(&self) -> usize {
+        match self {
+            PairPosteriors::Held(held) => held.len(),
+            PairPosteriors::Ends { ends, .. } => ends.len(),
+        }
+    }
+
+    /// Pair i's posterior.
+    pub fn get(&self, i: usize) -> Posterior {
+        match self {
+            PairPosteriors::Held(held) => held[i],
+            PairPosteriors::Ends { ends, pairs, priors, with_ends } => {
+                with_ends(&priors.prior(i), pairs[i].size, pairs[i].count, ends[i])
+            }
+        }
+    }
+
+    /// Every pair's posterior, in order.
+    pub fn iter(&self) -> impl Iterator<Item = Posterior> + '_ {
+        (0..self.len()).map(|i| self.get(i))
+    }
 }
 
 impl Scored {
@@ -191,8 +237,10 @@ fn score_neighbours_with<F: Family>(
         AllAreas { prior, fitted_prior: &all.fitted_prior, fit: &all.fit, warnings: &all.warnings };
     let (pairs, cells) = neighbour_cell_priors(table, fallback, local);
     clock.lap("local-priors", &format!("local priors ({} areas)", pairs.len()))?;
-    let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
-    score_cells::<F>(job, PriorsInUse::of_covariates(all_table, all, cells), places, clock)
+    let places = PairPlaces::own(pairs);
+    let facts = TableFacts::of::<F>(&all_table);
+    drop(all_table);
+    score_cells::<F>(job, PriorsInUse::of_covariates(facts, all, cells), places, clock)
 }
 
 /// Fits or loads the priors for the segments' pairs (one segment of every
@@ -402,7 +450,7 @@ fn score_with<F: Family>(
     clock.lap("posteriors", "posteriors")?;
     let comparison = match (job.prior_shape, &job.prior) {
         (PriorShape::Free { .. }, PriorSource::Fit) => {
-            let free = (&posteriors[..], &decisions);
+            let free = (&posteriors, &decisions);
             let comparison = compare_with_parametric::<F>(job, &segments, &places, free);
             clock.lap("prior-comparison", "the parametric prior on the same data, for comparison")?;
             Some(comparison)
@@ -437,7 +485,7 @@ fn compare_with_parametric<F: Family>(
     job: &Job,
     segments: &[SegmentPairs],
     places: &PairPlaces,
-    (free_posteriors, free_decisions): (&[Posterior], &Decisions),
+    (free_posteriors, free_decisions): (&PairPosteriors, &Decisions),
 ) -> ShapeComparison {
     let parametric_job = Job { prior_shape: PriorShape::Parametric, top: None, ..job.clone() };
     let mut unwatched = super::Unwatched;
@@ -461,13 +509,8 @@ fn compare_with_parametric<F: Family>(
     };
     let posteriors = posteriors_of::<F>(&parametric_job, &priors, places);
     let decisions = decisions_of::<F>(&parametric_job, &priors, places, &posteriors);
-    let checks = model_checks::<F>(
-        &parametric_job,
-        &places.pairs,
-        &priors.all_table,
-        &priors.priors,
-        &places.place_of_pair,
-    );
+    let checks =
+        model_checks::<F>(&parametric_job, &places.pairs, &priors.all_facts, priors.of_pairs(places));
     let weights = places.weights();
     if let (Some(free), Some(parametric)) = (&free_decisions.flags, &decisions.flags) {
         let changed: f64 = (0..weights.len())
@@ -477,7 +520,7 @@ fn compare_with_parametric<F: Family>(
         comparison.flags_changed = Some(changed as u64);
     }
     let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
-    let ranks_of = |posteriors: &[Posterior]| {
+    let ranks_of = |posteriors: &PairPosteriors| {
         let means: Vec<f64> = posteriors.iter().map(|p| p.mean).collect();
         crate::core::ranking::competition_ranks(&means, &weights, order)
     };
@@ -507,10 +550,12 @@ fn refuse_top_of_everyone(job: &Job, pairs: &[WeightedPair]) -> Result<()> {
 }
 
 /// Every distinct pair of every segment, segment after segment, with the
-/// place of each pair's segment and each segment's range of pairs.
+/// place of each pair's segment and each segment's range of pairs; or
+/// the pairs of a run where each pair is a place of its own.
 struct PairPlaces {
-    pairs: Vec<WeightedPair>,
-    place_of_pair: Vec<usize>,
+    pairs: Arc<Vec<WeightedPair>>,
+    /// None where each pair is its own place.
+    place_of_pair: Option<Vec<usize>>,
     ranges: Vec<std::ops::Range<usize>>,
 }
 
@@ -525,7 +570,17 @@ impl PairPlaces {
             place_of_pair.extend(std::iter::repeat_n(place, segment.table.pairs().len()));
             ranges.push(start..place_of_pair.len());
         }
-        PairPlaces { pairs, place_of_pair, ranges }
+        PairPlaces { pairs: Arc::new(pairs), place_of_pair: Some(place_of_pair), ranges }
+    }
+
+    /// The pairs of a run where each pair has a prior of its own.
+    fn own(pairs: Vec<WeightedPair>) -> Self {
+        PairPlaces { pairs: Arc::new(pairs), place_of_pair: None, ranges: Vec::new() }
+    }
+
+    /// The place of pair i.
+    fn place(&self, i: usize) -> usize {
+        self.place_of_pair.as_ref().map_or(i, |places| places[i])
     }
 
     fn weights(&self) -> Vec<f64> {
@@ -538,7 +593,8 @@ impl PairPlaces {
 /// what is known of its uncertainty, and that spread over quadrature nodes
 /// for corrected intervals.
 struct PriorsInUse {
-    all_table: PairTable,
+    /// What the checks say of the table of all groups (the table itself is not kept).
+    all_facts: TableFacts,
     all: Chosen,
     choices: Vec<std::result::Result<Chosen, String>>,
     priors: Vec<ShapedPrior>,
@@ -557,18 +613,21 @@ fn priors_in_use<F: Family>(
     clock: &mut PhaseClock<'_>,
 ) -> Result<PriorsInUse> {
     let segmented = !job.segments.is_empty();
+    // Without segments the one segment's table is the table of all groups.
+    let merged;
     let all_table = if segmented {
-        PairTable::from_weighted(all_pairs.iter().copied())
+        merged = PairTable::from_weighted(all_pairs.iter().copied());
+        &merged
     } else {
-        segments[0].table.clone()
+        &segments[0].table
     };
-    let mut all = all_groups_prior::<F>(job, &all_table)?;
+    let mut all = all_groups_prior::<F>(job, all_table)?;
     clock.pairs(all_table.pairs().len());
     clock.lap("fit", &format!("fit ({} distinct pairs)", all_table.pairs().len()))?;
     // Corrected intervals of a fit: the median bias of each prior, by parametric bootstrap.
     let bootstrap = job.intervals == Intervals::Corrected && matches!(job.prior, PriorSource::Fit);
     if bootstrap {
-        all.fit.working_bias = bias_of::<F>(job, &all, &all_table, 0);
+        all.fit.working_bias = bias_of::<F>(job, &all, all_table, 0);
     }
     let mut choices: Vec<std::result::Result<Chosen, String>> = if segmented {
         segments.par_iter().map(|segment| segment_prior::<F>(job, segment)).collect::<Result<_>>()?
@@ -617,7 +676,8 @@ fn priors_in_use<F: Family>(
             _ => None,
         })
         .collect();
-    Ok(PriorsInUse { all_table, all, choices, priors, spreads, covariates: None })
+    let all_facts = TableFacts::of::<F>(all_table);
+    Ok(PriorsInUse { all_facts, all, choices, priors, spreads, covariates: None })
 }
 
 /// The priors of a run with covariates: the covariate prior, fitted from
@@ -648,7 +708,7 @@ fn covariate_priors_in_use<F: Family>(
             log_likelihood: None,
             uncertainty: None,
         };
-        return Ok(PriorsInUse::of_covariates(all_table, all, fitted));
+        return Ok(PriorsInUse::of_covariates(TableFacts::of::<F>(&all_table), all, fitted));
     }
     let all = all_groups_prior::<F>(job, &all_table)?;
     clock.pairs(pairs.len());
@@ -657,9 +717,12 @@ fn covariate_priors_in_use<F: Family>(
         return Err(Error::Usage("covariates do not combine with a free prior".to_string()));
     };
     let plain = PlainFit { prior: plain_prior, log_likelihood: all.log_likelihood, fit: &all.fit };
-    let fitted = cell_priors::<F>(job, (table, pairs), plain, F::strength_unit(&all_table))?;
-    clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.priors.len()))?;
-    Ok(PriorsInUse::of_covariates(all_table, all, fitted))
+    let (facts, strength_unit) = (TableFacts::of::<F>(&all_table), F::strength_unit(&all_table));
+    // The table without covariates has served (its fit, the start, the checks' facts).
+    drop(all_table);
+    let fitted = cell_priors::<F>(job, (table, pairs), plain, strength_unit)?;
+    clock.lap("covariate-fit", &format!("covariate prior ({} distinct pairs)", fitted.own.len()))?;
+    Ok(PriorsInUse::of_covariates(facts, all, fitted))
 }
 
 /// Fits the covariate prior to the table and scores every pair.
@@ -671,58 +734,129 @@ fn score_covariates_with<F: Family>(
     let mut table = table;
     let pairs = std::mem::take(&mut table.pairs);
     refuse_top_of_everyone(job, &pairs)?;
-    let places = PairPlaces { place_of_pair: (0..pairs.len()).collect(), pairs, ranges: Vec::new() };
+    let places = PairPlaces::own(pairs);
     let priors = covariate_priors_in_use::<F>(job, (table, &places.pairs), clock)?;
     score_cells::<F>(job, priors, places, clock)
 }
 
 impl PriorsInUse {
-    /// The priors of a covariate run: each pair's own (moved out of the
-    /// covariate prior, not copied: one a pair) and the covariate prior.
-    fn of_covariates(all_table: PairTable, all: Chosen, mut fitted: CellPriors) -> Self {
-        let priors = std::mem::take(&mut fitted.priors).into_iter().map(ShapedPrior::Parametric).collect();
+    /// The priors of a run where each pair has its own (covariates,
+    /// neighbours): the cells' priors, and the all-groups one they started from.
+    fn of_covariates(all_facts: TableFacts, all: Chosen, fitted: CellPriors) -> Self {
         PriorsInUse {
-            all_table,
+            all_facts,
             all,
             choices: Vec::new(),
-            priors,
+            priors: Vec::new(),
             spreads: Vec::new(),
             covariates: Some(fitted),
         }
     }
 
-    /// The spread of the prior at `place` for corrected intervals (None for plug-in ones).
-    fn spread<F: Family>(&self, job: &Job, place: usize) -> Option<Cow<'_, Uncertainty>> {
+    /// The prior of each of `places`' pairs.
+    fn of_pairs<'a>(&'a self, places: &'a PairPlaces) -> PriorOfPair<'a> {
+        match (&self.covariates, &places.place_of_pair) {
+            (Some(cells), _) => PriorOfPair::Own(&cells.own),
+            (None, Some(place_of_pair)) => PriorOfPair::Shared { priors: &self.priors, place_of_pair },
+            (None, None) => unreachable!("pairs without places of their own have priors of their own"),
+        }
+    }
+
+    /// The spread of the prior of pair i (at `place`) for corrected
+    /// intervals (None for plug-in ones).
+    fn spread<F: Family>(&self, job: &Job, i: usize, place: usize) -> Option<Cow<'_, Uncertainty>> {
         match &self.covariates {
-            Some(cells) => match (job.intervals, self.priors[place].parametric()) {
-                (Intervals::Corrected, Some(prior)) => {
-                    Some(Cow::Owned(Uncertainty::of::<F>(prior, cells.uncertainties[place], None)))
-                }
-                _ => None,
-            },
+            Some(cells) => (job.intervals == Intervals::Corrected)
+                .then(|| Cow::Owned(Uncertainty::of::<F>(&cells.own.prior(i), cells.uncertainties[i], None))),
             None => self.spreads[place].as_ref().map(Cow::Borrowed),
         }
     }
 }
 
+/// The prior each pair of a table is scored with.
+#[derive(Clone, Copy)]
+enum PriorOfPair<'a> {
+    /// Its segment's, shared with the segment's other pairs.
+    Shared { priors: &'a [ShapedPrior], place_of_pair: &'a [usize] },
+    /// One for every pair (a segment's own checks).
+    One(&'a ShapedPrior),
+    /// Its own.
+    Own(&'a OwnPriors),
+}
+
+impl PriorOfPair<'_> {
+    fn get(&self, i: usize) -> Cow<'_, ShapedPrior> {
+        match *self {
+            PriorOfPair::Shared { priors, place_of_pair } => Cow::Borrowed(&priors[place_of_pair[i]]),
+            PriorOfPair::One(prior) => Cow::Borrowed(prior),
+            PriorOfPair::Own(own) => Cow::Owned(ShapedPrior::Parametric(own.prior(i))),
+        }
+    }
+
+    /// The distinct priors, by place, where pairs share them (None where each has its own).
+    fn shared(&self) -> Option<&[ShapedPrior]> {
+        match self {
+            PriorOfPair::Shared { priors, .. } => Some(priors),
+            PriorOfPair::One(prior) => Some(std::slice::from_ref(*prior)),
+            PriorOfPair::Own(_) => None,
+        }
+    }
+
+    /// The place (in [`PriorOfPair::shared`]) of pair i's prior.
+    fn place(&self, i: usize) -> usize {
+        match self {
+            PriorOfPair::Shared { place_of_pair, .. } => place_of_pair[i],
+            PriorOfPair::One(_) => 0,
+            PriorOfPair::Own(_) => i,
+        }
+    }
+}
+
+/// What the checks say of a table as a whole: its groups and the
+/// overdispersion test at its pooled rate.
+struct TableFacts {
+    groups: f64,
+    overdispersion: TestReport,
+}
+
+impl TableFacts {
+    fn of<F: Family>(table: &PairTable) -> Self {
+        TableFacts { groups: table.groups(), overdispersion: overdispersion_report::<F>(table) }
+    }
+}
+
 /// Each pair's posterior under its segment's prior (corrected for the
 /// prior's estimation when asked).
-fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces) -> Vec<Posterior> {
+fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces) -> PairPosteriors {
     let tail = job.level.tail();
-    places
-        .pairs
-        .par_iter()
-        .zip(&places.place_of_pair)
-        .map(|(p, &place)| {
-            let prior = &priors.priors[place];
-            match (priors.spread::<F>(job, place), prior.parametric()) {
+    let of_pair = priors.of_pairs(places);
+    if let (Some(cells), Intervals::PlugIn) = (&priors.covariates, job.intervals) {
+        // Each pair its own prior: the ends alone are held.
+        let ends = (places.pairs.par_iter().enumerate())
+            .map(|(i, p)| {
+                let posterior = F::posterior(&cells.own.prior(i), p.size, p.count, tail);
+                [posterior.lower, posterior.upper]
+            })
+            .collect();
+        return PairPosteriors::Ends {
+            ends,
+            pairs: Arc::clone(&places.pairs),
+            priors: Arc::clone(&cells.own),
+            with_ends: F::posterior_with_ends,
+        };
+    }
+    let held = (places.pairs.par_iter().enumerate())
+        .map(|(i, p)| {
+            let prior = of_pair.get(i);
+            match (priors.spread::<F>(job, i, places.place(i)), prior.parametric()) {
                 (Some(uncertainty), Some(prior)) => {
                     corrected_posterior::<F>(prior, &uncertainty, p.size, p.count, tail)
                 }
                 _ => prior.posterior::<F>(p.size, p.count, tail),
             }
         })
-        .collect()
+        .collect();
+    PairPosteriors::Held(held)
 }
 
 /// The decisions over the whole table: exceedance, flags, `prob_top`.
@@ -737,17 +871,15 @@ fn decisions_of<F: Family>(
     job: &Job,
     priors: &PriorsInUse,
     places: &PairPlaces,
-    posteriors: &[Posterior],
+    posteriors: &PairPosteriors,
 ) -> Decisions {
-    let (all_pairs, place_of_pair) = (&places.pairs, &places.place_of_pair);
+    let of_pair = priors.of_pairs(places);
     // Exceedance (and so the flags) as the intervals: corrected when they are.
     let tails_at = |threshold: f64| -> Vec<(f64, f64)> {
-        all_pairs
-            .par_iter()
-            .zip(place_of_pair)
-            .map(|(p, &place)| {
-                let prior = &priors.priors[place];
-                match (priors.spread::<F>(job, place), prior.parametric()) {
+        (places.pairs.par_iter().enumerate())
+            .map(|(i, p)| {
+                let prior = of_pair.get(i);
+                match (priors.spread::<F>(job, i, places.place(i)), prior.parametric()) {
                     (Some(uncertainty), Some(prior)) => {
                         corrected_tails::<F>(prior, &uncertainty, p.size, p.count, threshold)
                     }
@@ -780,11 +912,11 @@ fn top_of<F: Family>(
     rule: TopRule,
     priors: &PriorsInUse,
     places: &PairPlaces,
-    posteriors: &[Posterior],
+    posteriors: &PairPosteriors,
 ) -> (Vec<f64>, TopMethod) {
-    let (all_pairs, place_of_pair) = (&places.pairs, &places.place_of_pair);
+    let (all_pairs, of_pair) = (&places.pairs, priors.of_pairs(places));
     let order = job.ranks.unwrap_or(RankOrder::HighestFirst);
-    let laws: Vec<RateLaw> = posteriors.iter().map(F::rate_law).collect();
+    let laws: Vec<RateLaw> = posteriors.iter().map(|p| F::rate_law(&p)).collect();
     let weights = places.weights();
     let groups: f64 = weights.iter().sum();
     // A free prior's posteriors are masses on a grid, not laws to draw from:
@@ -799,7 +931,7 @@ fn top_of<F: Family>(
     let draws = rule.draws_for(groups);
     let beyond = |i: usize, c: f64| {
         let pair = &all_pairs[i];
-        let (below, above) = priors.priors[place_of_pair[i]].rate_tails::<F>(pair.size, pair.count, c);
+        let (below, above) = of_pair.get(i).rate_tails::<F>(pair.size, pair.count, c);
         if order == RankOrder::HighestFirst {
             above
         } else {
@@ -831,12 +963,13 @@ fn scored_of<F: Family>(
     segments: Vec<SegmentPairs>,
     priors: PriorsInUse,
     places: PairPlaces,
-    (posteriors, decisions): (Vec<Posterior>, Decisions),
+    (posteriors, decisions): (PairPosteriors, Decisions),
 ) -> Scored {
     let segmented = !job.segments.is_empty();
-    let PriorsInUse { all_table, all, choices, priors, covariates, .. } = priors;
-    let PairPlaces { pairs: all_pairs, place_of_pair, ranges } = places;
-    let pull = crate::core::diagnostics::pull_of_pairs(&F::TERMS, &all_pairs, &posteriors);
+    let pull = crate::core::diagnostics::pull_of_pairs(&F::TERMS, &places.pairs, |i| posteriors.get(i));
+    let checks = model_checks::<F>(job, &places.pairs, &priors.all_facts, priors.of_pairs(&places));
+    let PriorsInUse { all, choices, priors, covariates, .. } = priors;
+    let PairPlaces { pairs: all_pairs, ranges, .. } = places;
     let (fitted_prior, fit, mut warnings) = match &covariates {
         Some(cells) => (cells.fitted_prior.clone(), cells.fit.clone(), cells.warnings.clone()),
         None => (all.fitted_prior.clone(), all.fit.clone(), all.warnings.clone()),
@@ -847,16 +980,11 @@ fn scored_of<F: Family>(
     let (covariate_score, neighbourhood) = match covariates {
         Some(cells) => {
             let (counts, report) = cells.neighbours.unzip();
-            let score = CovariateScore {
-                values: cells.values,
-                prior_mean: Arc::new(cells.centres),
-                neighbours: counts,
-            };
+            let score = CovariateScore { values: cells.values, own: cells.own, neighbours: counts };
             (Some(score), report)
         }
         None => (None, None),
     };
-    let checks = model_checks::<F>(job, &all_pairs, &all_table, &priors, &place_of_pair);
     if checks.poor_fit() {
         warnings.push(format!(
             "the prior does not describe {} well: the counts sit unevenly in their predictive distributions (calibration chi-square {:.1} on 9 df, {}; raw-rate variance {:.2} times the expected). One {} prior cannot describe rates that come from different kinds of group (two humps, say): fit per segment with --by where a column names the kinds, or a prior of any shape with --prior-shape free where none does, before trusting the intervals and flags",
@@ -879,7 +1007,7 @@ fn scored_of<F: Family>(
         _ => None,
     };
     let scores = if segmented {
-        let all_groups = (&all.fitted_prior, &all_pairs[..], &posteriors[..]);
+        let all_groups = (&all.fitted_prior, &all_pairs[..], &posteriors);
         segment_scores::<F>(job, segments, choices, (&priors, &ranges), all_groups)
     } else {
         Vec::new()
@@ -899,7 +1027,7 @@ fn scored_of<F: Family>(
         ));
     }
     Scored {
-        pairs: Arc::new(all_pairs),
+        pairs: all_pairs,
         posteriors: Arc::new(posteriors),
         fitted_prior,
         fit,
@@ -925,7 +1053,7 @@ fn segment_scores<F: Family>(
     segments: Vec<SegmentPairs>,
     choices: Vec<std::result::Result<Chosen, String>>,
     (priors, ranges): (&[ShapedPrior], &[std::ops::Range<usize>]),
-    (all_prior, all_pairs, posteriors): (&FittedPrior, &[WeightedPair], &[Posterior]),
+    (all_prior, all_pairs, posteriors): (&FittedPrior, &[WeightedPair], &PairPosteriors),
 ) -> Vec<SegmentScore> {
     // Segments in parallel, collected in order: the same bytes on any number of threads.
     segments
@@ -935,19 +1063,16 @@ fn segment_scores<F: Family>(
         .enumerate()
         .map(|(place, ((segment, choice), range))| {
             // The segment's own checks: its pairs under the prior it was scored with.
-            let own_places = vec![0; range.len()];
             let checks = model_checks::<F>(
                 job,
                 &all_pairs[range.clone()],
-                &segment.table,
-                std::slice::from_ref(&priors[place]),
-                &own_places,
+                &TableFacts::of::<F>(&segment.table),
+                PriorOfPair::One(&priors[place]),
             );
-            let mut pull = crate::core::diagnostics::pull_of_pairs(
-                &F::TERMS,
-                &all_pairs[range.clone()],
-                &posteriors[range.clone()],
-            );
+            let mut pull =
+                crate::core::diagnostics::pull_of_pairs(&F::TERMS, &all_pairs[range.clone()], |i| {
+                    posteriors.get(range.start + i)
+                });
             pull.max_shift_row = pull.max_shift_row.map(|row| row + range.start);
             let (fitted_prior, fit, fallback) = match choice {
                 Ok(own) => (own.fitted_prior, Some(own.fit), None),
@@ -993,11 +1118,10 @@ pub(super) const POOR_FIT_P: f64 = 1e-3;
 fn model_checks<F: Family>(
     job: &Job,
     pairs: &[WeightedPair],
-    table: &PairTable,
-    priors: &[ShapedPrior],
-    place_of_pair: &[usize],
+    facts: &TableFacts,
+    priors: PriorOfPair<'_>,
 ) -> ChecksReport {
-    let prior_of = |i: usize| &priors[place_of_pair[i]];
+    let prior_of = |i: usize| priors.get(i);
     let weights: Vec<f64> = pairs.iter().map(|p| p.weight).collect();
     let calibration =
         calibration(&weights, |i| prior_of(i).predictive_cdf::<F>(pairs[i].size, pairs[i].count), job.seed);
@@ -1014,17 +1138,18 @@ fn model_checks<F: Family>(
     // A prior's shared values once per prior, or, where each pair has its own
     // (covariates, neighbours), as each pair is met: a table of them would
     // be 64 bytes a pair.
-    let per_pair = priors.len() >= pairs.len();
-    let points: Vec<PriorPoint<F>> =
-        if per_pair { Vec::new() } else { priors.iter().map(PriorPoint::of).collect() };
-    let term = |(p, &place): (&WeightedPair, &usize)| {
-        let log_pmf =
-            if per_pair { PriorPoint::<F>::of(&priors[place]).log_pmf(p) } else { points[place].log_pmf(p) };
+    let shared = priors.shared().filter(|shared| shared.len() < pairs.len());
+    let points: Vec<PriorPoint<F>> = shared.map_or_else(Vec::new, |s| s.iter().map(PriorPoint::of).collect());
+    let term = |(i, p): (usize, &WeightedPair)| {
+        let log_pmf = match shared {
+            Some(_) => points[priors.place(i)].log_pmf(p),
+            None => PriorPoint::<F>::of(&priors.get(i)).log_pmf(p),
+        };
         p.weight * log_pmf
     };
-    let terms: Vec<f64> = pairs.par_iter().zip(place_of_pair).map(term).collect();
+    let terms: Vec<f64> = pairs.par_iter().enumerate().map(term).collect();
     let log_likelihood: f64 = terms.iter().sum();
-    let groups = table.groups();
+    let groups = facts.groups;
     ChecksReport {
         data: match job.prior {
             PriorSource::Fit => "the fitted data",
@@ -1033,7 +1158,7 @@ fn model_checks<F: Family>(
         .to_string(),
         log_marginal_likelihood: log_likelihood,
         log_marginal_likelihood_per_group: log_likelihood / groups,
-        overdispersion_test: overdispersion_report::<F>(table),
+        overdispersion_test: facts.overdispersion.clone(),
         verdict: ChecksReport::verdict_of(calibration.groups, calibration.p_value, POOR_FIT_P),
         calibration: CalibrationReport::of(&calibration, job.seed),
         raw_rate_variance: VarianceReport {

@@ -60,7 +60,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     };
     let of_posteriors = |kind: ComputedKind, f: fn(&Posterior) -> Option<f64>| {
         let posteriors = Arc::clone(&scored.posteriors);
-        column(kind, Arc::new(move |p| f(&posteriors[p])))
+        column(kind, Arc::new(move |p| f(&posteriors.get(p))))
     };
     let of_values = |values: &Arc<Vec<f64>>| {
         let values = Arc::clone(values);
@@ -96,7 +96,11 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
         (raw_column(job).to_string(), raw),
     ]);
     if let Some(covariates) = &scored.covariates {
-        columns.push(("prior_mean".to_string(), of_values(&covariates.prior_mean)));
+        let own = Arc::clone(&covariates.own);
+        columns.push((
+            "prior_mean".to_string(),
+            column(ComputedKind::Floats, Arc::new(move |p| Some(own.centre(p)))),
+        ));
         if let Some(counts) = &covariates.neighbours {
             columns.push(("neighbours".to_string(), PairValues::Integers(counts.clone())));
         }

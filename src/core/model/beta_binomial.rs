@@ -637,21 +637,14 @@ impl Family for BetaBinomial {
     }
 
     fn posterior(prior: &Prior, n: f64, k: f64, tail: f64) -> Posterior {
-        match *prior {
-            Prior::CompletePooling { mean } => Posterior::pooled(mean),
+        let ends = match *prior {
+            Prior::CompletePooling { mean } => [mean; 2],
             Prior::Conjugate { natural: [alpha, beta] } => {
                 let (a, b) = (alpha + k, beta + (n - k));
-                let (mean, sd) = Self::posterior_mean_sd(prior, n, k);
-                Posterior {
-                    mean,
-                    sd,
-                    lower: beta_quantile(a, b, Tail::Lower, tail),
-                    upper: beta_quantile(a, b, Tail::Upper, tail),
-                    pool_weight: Self::pool_weight(prior, n),
-                    natural: Self::posterior_natural(prior, n, k),
-                }
+                [beta_quantile(a, b, Tail::Lower, tail), beta_quantile(a, b, Tail::Upper, tail)]
             }
-        }
+        };
+        Self::posterior_with_ends(prior, n, k, ends)
     }
 }
 

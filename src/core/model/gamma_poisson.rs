@@ -335,21 +335,14 @@ impl Family for GammaPoisson {
     }
 
     fn posterior(prior: &Prior, exposure: f64, y: f64, tail: f64) -> Posterior {
-        match *prior {
-            Prior::CompletePooling { mean } => Posterior::pooled(mean),
+        let ends = match *prior {
+            Prior::CompletePooling { mean } => [mean; 2],
             Prior::Conjugate { natural: [shape, rate] } => {
                 let (a, b) = (shape + y, rate + exposure);
-                let (mean, sd) = Self::posterior_mean_sd(prior, exposure, y);
-                Posterior {
-                    mean,
-                    sd,
-                    lower: gamma_quantile(a, Tail::Lower, tail) / b,
-                    upper: gamma_quantile(a, Tail::Upper, tail) / b,
-                    pool_weight: Self::pool_weight(prior, exposure),
-                    natural: Self::posterior_natural(prior, exposure, y),
-                }
+                [gamma_quantile(a, Tail::Lower, tail) / b, gamma_quantile(a, Tail::Upper, tail) / b]
             }
-        }
+        };
+        Self::posterior_with_ends(prior, exposure, y, ends)
     }
 }
 

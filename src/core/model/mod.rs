@@ -1083,6 +1083,25 @@ pub trait Family: Sync {
     /// Posterior summary of one pair under `prior`, with an equal-tailed
     /// interval leaving `tail` probability in each tail.
     fn posterior(prior: &Prior, size: f64, count: f64, tail: f64) -> Posterior;
+    /// The posterior [`Family::posterior`] gives, from its interval's ends
+    /// (the costly part) and what the prior and the pair give again
+    /// cheaply: a table may hold the ends alone and make the rest when asked.
+    fn posterior_with_ends(prior: &Prior, size: f64, count: f64, [lower, upper]: [f64; 2]) -> Posterior {
+        match *prior {
+            Prior::CompletePooling { mean } => Posterior::pooled(mean),
+            Prior::Conjugate { .. } => {
+                let (mean, sd) = Self::posterior_mean_sd(prior, size, count);
+                Posterior {
+                    mean,
+                    sd,
+                    lower,
+                    upper,
+                    pool_weight: Self::pool_weight(prior, size),
+                    natural: Self::posterior_natural(prior, size, count),
+                }
+            }
+        }
+    }
     /// P(rate < threshold) and P(rate > threshold) under the posterior of one
     /// pair: exact tails of the posterior Beta or Gamma, each formed directly
     /// where it is the smaller; 0 or 1 under complete pooling, where the
@@ -1263,5 +1282,36 @@ mod quadrature {
         assert!((below - 0.5).abs() < 1e-15 && (above - 0.5).abs() < 1e-15);
         // With nothing known of the uncertainty, the plug-in point mass.
         assert_eq!(corrected_tails::<NormalNormal>(&prior, &Uncertainty::Unknown, 1.0, 3.0, 2.0), (0.0, 1.0));
+    }
+}
+
+#[cfg(test)]
+mod posterior_parts {
+    use super::beta_binomial::BetaBinomial;
+    use super::gamma_poisson::GammaPoisson;
+    use super::normal_normal::NormalNormal;
+    use super::*;
+
+    /// A table may hold a posterior's interval ends alone: the posterior
+    /// made again from them must be the one first made, bit for bit.
+    fn assert_made_again<F: Family>(pairs: &[(f64, f64)], points: &[[f64; 2]]) {
+        let mut priors: Vec<Prior> =
+            points.iter().map(|&u| Prior::Conjugate { natural: F::natural(u) }).collect();
+        priors.push(Prior::CompletePooling { mean: 0.3 });
+        for prior in &priors {
+            for &(size, count) in pairs {
+                let whole = F::posterior(prior, size, count, 0.025);
+                let again = F::posterior_with_ends(prior, size, count, [whole.lower, whole.upper]);
+                assert_eq!(format!("{whole:?}"), format!("{again:?}"), "{prior:?} at {size}, {count}");
+            }
+        }
+    }
+
+    #[test]
+    fn a_posterior_made_again_from_its_ends_is_the_same() {
+        let points = [[-1.0, 0.5], [0.4, 3.0], [-0.2, -1.0]];
+        assert_made_again::<BetaBinomial>(&[(12.0, 5.0), (300.0, 7.0), (40.0, 40.0), (1.0, 0.0)], &points);
+        assert_made_again::<GammaPoisson>(&[(2.5, 3.0), (0.01, 0.0), (400.0, 250.0)], &points);
+        assert_made_again::<NormalNormal>(&[(0.5, 1.2), (3.0, -2.0), (0.01, 0.0)], &points);
     }
 }

@@ -305,21 +305,15 @@ impl Family for NormalNormal {
     }
 
     fn posterior(prior: &Prior, se: f64, y: f64, tail: f64) -> Posterior {
-        match *prior {
-            Prior::CompletePooling { mean } => Posterior::pooled(mean),
+        let ends = match *prior {
+            Prior::CompletePooling { mean } => [mean; 2],
             Prior::Conjugate { .. } => {
                 let (mean, sd) = Self::posterior_mean_sd(prior, se, y);
                 let (lower, upper) = normal_interval(mean, sd, tail);
-                Posterior {
-                    mean,
-                    sd,
-                    lower,
-                    upper,
-                    pool_weight: Self::pool_weight(prior, se),
-                    natural: Self::posterior_natural(prior, se, y),
-                }
+                [lower, upper]
             }
-        }
+        };
+        Self::posterior_with_ends(prior, se, y, ends)
     }
 
     fn rate_tails(prior: &Prior, se: f64, y: f64, threshold: f64) -> (f64, f64) {
