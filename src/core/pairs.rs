@@ -235,17 +235,17 @@ impl PairTable {
     pub fn from_weighted(pairs: impl IntoIterator<Item = WeightedPair>) -> Self {
         // Sorted, then equal neighbours merged: the same table a merging map
         // gives (weights are counts of groups, summed exactly), without the map.
-        let mut sorted: Vec<WeightedPair> = pairs.into_iter().collect();
-        sorted.sort_unstable_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
-        let mut pairs: Vec<WeightedPair> = Vec::with_capacity(sorted.len());
-        for pair in sorted {
-            match pairs.last_mut() {
-                Some(last) if key(last.size, last.count) == key(pair.size, pair.count) => {
-                    last.weight += pair.weight
-                }
-                _ => pairs.push(pair),
+        // Merged in place, each weight added to its first in order.
+        let mut pairs: Vec<WeightedPair> = pairs.into_iter().collect();
+        pairs.sort_unstable_by(|x, y| x.size.total_cmp(&y.size).then(x.count.total_cmp(&y.count)));
+        pairs.dedup_by(|pair, kept| {
+            let same = key(kept.size, kept.count) == key(pair.size, pair.count);
+            if same {
+                kept.weight += pair.weight;
             }
-        }
+            same
+        });
+        pairs.shrink_to_fit();
         PairTable { pairs }
     }
 

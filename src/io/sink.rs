@@ -296,7 +296,7 @@ fn gather(values: &PairValues, pair_of_row: &[u32]) -> ColumnValues {
 }
 
 /// The scored table in Parquet: the row columns (the group id, and the
-/// segment values with `--by`) through arrow-rs (the group column in plain
+/// covariates where they are written from the rows) through arrow-rs (the group column in plain
 /// pages: ids do not repeat), then every pair-valued column through
 /// [`RowGroupPairs`], row groups of [`ROW_GROUP_ROWS`] rows.
 pub struct ScoredParquet {
@@ -526,8 +526,8 @@ impl TableSink {
         Ok(sink)
     }
 
-    /// Appends scored rows: their row columns (the group id first, never
-    /// null; then any segment values, which may be) and their pairs.
+    /// Appends scored rows: their row columns (the group id first, then any
+    /// covariates written from the rows; none null) and their pairs.
     pub fn write_scored(&mut self, row_columns: Vec<(String, ArrayRef)>, pair_of_row: &[u32]) -> Result<()> {
         let path = self.file.target().to_path_buf();
         let pair_columns =
@@ -542,8 +542,7 @@ impl TableSink {
         }
         let fields: Vec<Field> = row_columns
             .iter()
-            .enumerate()
-            .map(|(i, (name, values))| Field::new(name, values.data_type().clone(), i > 0))
+            .map(|(name, values)| Field::new(name, values.data_type().clone(), false))
             .collect();
         let arrays = row_columns.into_iter().map(|(_, values)| values).collect();
         let rows =

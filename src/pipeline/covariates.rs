@@ -279,48 +279,83 @@ impl CovariateBatch {
     }
 }
 
-/// The hash of a key: its words through [`PairHasher`].
-fn hash_key(key: &[u64]) -> u64 {
-    let mut hasher = PairHasher::default();
-    for &word in key {
-        hasher.write_u64(word);
-    }
-    hasher.finish()
-}
-
 /// The distinct (covariate key, size, count) pairs met, in the order met,
 /// each with its groups: the sufficient statistic of a covariate prior.
 pub(super) struct CovariatePairs {
-    /// Words per key: the covariates, then the size's and the count's bits.
+    /// Words per key: the covariates.
     width: usize,
-    /// Shared with the output's covariate columns, which read their values from it.
+    /// Each pair's covariate words. Shared with the output's covariate
+    /// columns, which read their values from it.
     keys: Arc<Vec<u64>>,
-    weights: Vec<f64>,
+    /// Each pair's size, count and groups. Shared with the scored table.
+    pairs: Arc<Vec<WeightedPair>>,
     /// By a key's hash: its pair (the first met with that hash).
     index: HashMap<u64, u32, BuildHasherDefault<PairHasher>>,
     /// Further pairs whose key shares a hash with an earlier one.
     shared: HashMap<u64, Vec<u32>, BuildHasherDefault<PairHasher>>,
-    scratch: Vec<u64>,
     /// When recorded (rows read one per group): each input row's pair
     /// (`NO_PAIR` for a row not counted), so that pass 2 can find a row's
     /// pair by its number and the index can go once pass 1 is done.
     rows: Option<Vec<u32>>,
+    /// Once the keys are let go: per pair, 32 bits of its key's hash, which
+    /// pass 2 checks a row's key against.
+    fingerprints: Option<Vec<u32>>,
 }
 
 /// A row counted under no pair.
 const NO_PAIR: u32 = u32::MAX;
 
+/// The hash of a whole key: the covariate words, then the size's and the count's bits.
+fn hash_of(covariates: &[u64], [size, count]: [u64; 2]) -> u64 {
+    let mut hasher = PairHasher::default();
+    for &word in covariates.iter().chain(&[size, count]) {
+        hasher.write_u64(word);
+    }
+    hasher.finish()
+}
+
+/// The 32 bits of a key's hash a pair keeps once its key is let go.
+fn fingerprint(hash: u64) -> u32 {
+    (hash >> 32) as u32
+}
+
+/// A size's or count's bits, −0 and 0 one value.
+fn bits_of(size: f64, count: f64) -> [u64; 2] {
+    [(size + 0.0).to_bits(), (count + 0.0).to_bits()]
+}
+
 impl CovariatePairs {
     pub(super) fn new(covariates: usize) -> Self {
         CovariatePairs {
-            width: covariates + 2,
+            width: covariates,
             keys: Arc::default(),
-            weights: Vec::new(),
+            pairs: Arc::default(),
             index: HashMap::default(),
             shared: HashMap::default(),
-            scratch: Vec::new(),
             rows: None,
+            fingerprints: None,
         }
+    }
+
+    /// Whether pass 2 finds a row's pair by the rows' record (not the index).
+    pub(super) fn rows_recorded(&self) -> bool {
+        self.rows.is_some()
+    }
+
+    /// Lets go of the keys (the design and the output no longer read them),
+    /// keeping 32 bits of each one's hash to check pass 2's rows against: a
+    /// row that changed between the passes is then missed one time in 2³².
+    /// Only where rows are recorded: the index needs the keys.
+    pub(super) fn let_go_of_keys(&mut self) {
+        debug_assert!(self.rows.is_some());
+        let fingerprints = (0..self.len())
+            .map(|pair| {
+                let (at, held) = (pair * self.width, &self.pairs[pair]);
+                fingerprint(hash_of(&self.keys[at..at + self.width], bits_of(held.size, held.count)))
+            })
+            .collect();
+        self.fingerprints = Some(fingerprints);
+        self.keys = Arc::default();
     }
 
     /// Records each row's pair as rows are added by [`Self::add_row`].
@@ -340,49 +375,56 @@ impl CovariatePairs {
     /// The pair of input row `row` with these values: by the row's record
     /// where rows were recorded (checked against the key, so a row that
     /// changed since is not found), else by the index.
-    pub(super) fn find_row(&mut self, row: usize, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
+    pub(super) fn find_row(&self, row: usize, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
         let Some(rows) = &self.rows else { return self.find(covariates, size, count) };
         let pair = rows.get(row).copied().filter(|&p| p != NO_PAIR)?;
-        self.full_key(covariates, size, count);
-        (self.key(pair) == &self.scratch[..]).then_some(pair)
+        self.is_key(pair, covariates, bits_of(size, count)).then_some(pair)
     }
 
-    fn full_key(&mut self, covariates: &[u64], size: f64, count: f64) {
-        self.scratch.clear();
-        self.scratch.extend_from_slice(covariates);
-        self.scratch.extend([(size + 0.0).to_bits(), (count + 0.0).to_bits()]);
+    /// Whether `pair`'s key is this one (by its fingerprint once the keys are let go).
+    fn is_key(&self, pair: u32, covariates: &[u64], bits: [u64; 2]) -> bool {
+        let held = &self.pairs[pair as usize];
+        if held.size.to_bits() != bits[0] || held.count.to_bits() != bits[1] {
+            return false;
+        }
+        match &self.fingerprints {
+            Some(fingerprints) => fingerprints[pair as usize] == fingerprint(hash_of(covariates, bits)),
+            None => {
+                let at = pair as usize * self.width;
+                &self.keys[at..at + self.width] == covariates
+            }
+        }
     }
 
-    fn key(&self, pair: u32) -> &[u64] {
-        let at = pair as usize * self.width;
-        &self.keys[at..at + self.width]
-    }
-
-    fn find_scratch(&self, hash: u64) -> Option<u32> {
+    fn find_hashed(&self, hash: u64, covariates: &[u64], bits: [u64; 2]) -> Option<u32> {
         let first = *self.index.get(&hash)?;
-        if self.key(first) == &self.scratch[..] {
+        if self.is_key(first, covariates, bits) {
             return Some(first);
         }
-        self.shared.get(&hash)?.iter().copied().find(|&pair| self.key(pair) == &self.scratch[..])
+        self.shared.get(&hash)?.iter().copied().find(|&pair| self.is_key(pair, covariates, bits))
     }
 
     /// The pair of a row, if met.
-    pub(super) fn find(&mut self, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
-        self.full_key(covariates, size, count);
-        self.find_scratch(hash_key(&self.scratch))
+    pub(super) fn find(&self, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
+        let bits = bits_of(size, count);
+        self.find_hashed(hash_of(covariates, bits), covariates, bits)
     }
 
     /// Adds `weight` groups to a row's pair, numbering it if new; returns its number.
     pub(super) fn add(&mut self, covariates: &[u64], size: f64, count: f64, weight: f64) -> u32 {
-        self.full_key(covariates, size, count);
-        let hash = hash_key(&self.scratch);
-        if let Some(pair) = self.find_scratch(hash) {
-            self.weights[pair as usize] += weight;
+        let bits = bits_of(size, count);
+        let hash = hash_of(covariates, bits);
+        if let Some(pair) = self.find_hashed(hash, covariates, bits) {
+            Arc::make_mut(&mut self.pairs)[pair as usize].weight += weight;
             return pair;
         }
-        let pair = self.weights.len() as u32;
-        Arc::make_mut(&mut self.keys).extend_from_slice(&self.scratch);
-        self.weights.push(weight);
+        let pair = self.pairs.len() as u32;
+        Arc::make_mut(&mut self.keys).extend_from_slice(covariates);
+        Arc::make_mut(&mut self.pairs).push(WeightedPair {
+            size: f64::from_bits(bits[0]),
+            count: f64::from_bits(bits[1]),
+            weight,
+        });
         match self.index.entry(hash) {
             std::collections::hash_map::Entry::Vacant(slot) => {
                 slot.insert(pair);
@@ -399,24 +441,22 @@ impl CovariatePairs {
 
     /// Pairs met.
     pub(super) fn len(&self) -> usize {
-        self.weights.len()
+        self.pairs.len()
     }
 
     /// Drops pairs left with no groups (rows taken back out as repeats),
     /// numbering the rest again in the order met, and holds the keys and
-    /// weights at their size (grown by doubling in pass 1, they could hold
+    /// pairs at their size (grown by doubling in pass 1, they could hold
     /// up to twice the room they need).
     pub(super) fn compact(&mut self) {
-        if self.weights.iter().any(|&w| w <= 0.0) {
-            let mut kept = CovariatePairs::new(self.width - 2);
+        if self.pairs.iter().any(|p| p.weight <= 0.0) {
+            let mut kept = CovariatePairs::new(self.width);
             let mut renumbered = vec![NO_PAIR; self.len()];
             for (pair, new) in renumbered.iter_mut().enumerate() {
-                let weight = self.weights[pair];
-                if weight > 0.0 {
-                    let key = self.key(pair as u32).to_vec();
-                    let (size, count) =
-                        (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
-                    *new = kept.add(&key[..self.width - 2], size, count, weight);
+                let held = self.pairs[pair];
+                if held.weight > 0.0 {
+                    let key = &self.keys[pair * self.width..(pair + 1) * self.width];
+                    *new = kept.add(key, held.size, held.count, held.weight);
                 }
             }
             kept.rows = self.rows.take().map(|mut rows| {
@@ -428,7 +468,7 @@ impl CovariatePairs {
             *self = kept;
         }
         Arc::make_mut(&mut self.keys).shrink_to_fit();
-        self.weights.shrink_to_fit();
+        Arc::make_mut(&mut self.pairs).shrink_to_fit();
         // Pass 2 finds a row's pair by the index or by the rows' record:
         // the smaller is kept (an index entry takes about 28 bytes a pair,
         // the record 4 bytes a row).
@@ -444,16 +484,9 @@ impl CovariatePairs {
         }
     }
 
-    /// The pairs, in the order met.
-    pub(super) fn pairs(&self) -> Vec<WeightedPair> {
-        (0..self.len())
-            .map(|pair| {
-                let key = self.key(pair as u32);
-                let (size, count) =
-                    (f64::from_bits(key[self.width - 2]), f64::from_bits(key[self.width - 1]));
-                WeightedPair { size, count, weight: self.weights[pair] }
-            })
-            .collect()
+    /// The pairs, in the order met (shared, not copied).
+    pub(super) fn pairs(&self) -> Arc<Vec<WeightedPair>> {
+        Arc::clone(&self.pairs)
     }
 }
 
@@ -461,59 +494,116 @@ impl CovariatePairs {
 /// how each covariate entered, and each pair's covariate values as written.
 pub struct CovariateTable {
     /// The distinct pairs, in the order met.
-    pub pairs: Vec<WeightedPair>,
+    pub pairs: Arc<Vec<WeightedPair>>,
     /// Row i the covariates of pair i.
     pub design: Design,
     /// How each covariate column entered.
     pub entered: Vec<CovariateReport>,
-    /// Each covariate column's value per pair, as the output writes it.
-    pub values: Vec<(String, PairValues)>,
+    /// Each covariate column as the output writes it.
+    pub values: CovariateValues,
+}
+
+/// Each covariate column as the output writes it.
+pub enum CovariateValues {
+    /// Per pair, from its key (for the pair table, and where pass 2 finds
+    /// rows by the index, which keeps the keys anyway).
+    PerPair(Vec<(String, PairValues)>),
+    /// From each row as pass 2 reads it: the keys are let go once the design is made.
+    PerRow(Vec<(String, RowCovariate)>),
+}
+
+impl CovariateValues {
+    /// The columns written per pair (none when they are written from the rows).
+    pub fn per_pair(&self) -> &[(String, PairValues)] {
+        match self {
+            CovariateValues::PerPair(values) => values,
+            CovariateValues::PerRow(_) => &[],
+        }
+    }
+}
+
+/// How pass 2 writes a covariate column from the rows' keys.
+#[derive(Clone)]
+pub enum RowCovariate {
+    /// Whole numbers.
+    Integers,
+    /// Numbers.
+    Floats,
+    /// Levels, by code: the texts.
+    Levels(Arc<Vec<String>>),
+}
+
+impl RowCovariate {
+    /// The column of `keys`' word `j` (keys of `width` words, one a row).
+    pub fn column(&self, keys: &[u64], width: usize, j: usize) -> ArrayRef {
+        let words = keys.iter().skip(j).step_by(width.max(1));
+        match self {
+            RowCovariate::Integers => {
+                Arc::new(words.map(|&w| f64::from_bits(w) as i64).collect::<arrow_array::Int64Array>())
+            }
+            RowCovariate::Floats => {
+                Arc::new(words.map(|&w| f64::from_bits(w)).collect::<arrow_array::Float64Array>())
+            }
+            RowCovariate::Levels(texts) => Arc::new(
+                words.map(|&w| Some(texts[w as usize].as_str())).collect::<arrow_array::StringArray>(),
+            ),
+        }
+    }
 }
 
 /// The covariate table of the pairs met, given what pass 1 learned of the
-/// columns; refuses one-valued columns and too many levels.
+/// columns; refuses one-valued columns and too many levels. The output's
+/// covariate columns are written from each row in pass 2 when `per_row`,
+/// else from each pair's key.
 pub(super) fn covariate_table(
     job: &Job,
     pairs: &CovariatePairs,
     state: &CovariateState,
+    per_row: bool,
 ) -> Result<CovariateTable> {
     let rows = pairs.len();
     let word = |pair: usize, j: usize| pairs.keys[pair * pairs.width + j];
     let mut names = vec!["intercept".to_string()];
     let mut columns = vec![DesignColumn::Intercept];
-    let (mut numbers, mut codes): (Vec<Vec<f64>>, Vec<Vec<u32>>) = (Vec::new(), Vec::new());
+    // The design's numbers (by key word, and whether as its log) and levels
+    // (by key word, and each code's place in sorted order), read from the
+    // keys once all are known.
+    let mut numbers: Vec<(usize, bool)> = Vec::new();
+    let mut codes: Vec<(usize, Vec<u32>)> = Vec::new();
     let mut entered = Vec::new();
-    let mut values = Vec::new();
+    let (mut values, mut row_values) = (Vec::new(), Vec::new());
     let mut indicators = 0;
     for (j, covariate) in job.covariates.iter().enumerate() {
         let name = &covariate.name;
         let reading = state.readings[j].unwrap_or(Reading::Numbers);
         match reading {
             Reading::Numbers | Reading::Logs => {
-                let raw: Vec<f64> = (0..rows).map(|pair| f64::from_bits(word(pair, j))).collect();
                 let (label, enters_as) = match reading {
                     Reading::Logs => (format!("log({name})"), "log"),
                     _ => (name.clone(), "number"),
                 };
                 columns.push(DesignColumn::Number(numbers.len()));
                 names.push(label);
-                numbers.push(if reading == Reading::Logs {
-                    raw.iter().map(|v| v.ln()).collect()
-                } else {
-                    raw.clone()
-                });
+                numbers.push((j, reading == Reading::Logs));
                 entered.push(CovariateReport {
                     column: name.clone(),
                     enters_as: enters_as.to_string(),
                     levels: Vec::new(),
                 });
                 // Whole numbers (read from integers, or from text such as `12`) are written as such.
-                let whole = raw.iter().all(|v| v.fract() == 0.0 && v.abs() < MAX_EXACT_COUNT);
-                // Read from the keys as each row group is written, not held again.
-                let kind = if whole { ComputedKind::Integers } else { ComputedKind::Floats };
-                let (keys, width) = (Arc::clone(&pairs.keys), pairs.width);
-                let value = Arc::new(move |pair: usize| Some(f64::from_bits(keys[pair * width + j])));
-                values.push((name.clone(), PairValues::Computed(ComputedValues::new(rows, kind, value))));
+                let whole = (0..rows)
+                    .map(|pair| f64::from_bits(word(pair, j)))
+                    .all(|v| v.fract() == 0.0 && v.abs() < MAX_EXACT_COUNT);
+                if per_row {
+                    let kind = if whole { RowCovariate::Integers } else { RowCovariate::Floats };
+                    row_values.push((name.clone(), kind));
+                } else {
+                    // Read from the keys as each row group is written, not held again.
+                    let kind = if whole { ComputedKind::Integers } else { ComputedKind::Floats };
+                    let (keys, width) = (Arc::clone(&pairs.keys), pairs.width);
+                    let value = Arc::new(move |pair: usize| Some(f64::from_bits(keys[pair * width + j])));
+                    values.push((name.clone(), PairValues::Computed(ComputedValues::new(rows, kind, value))));
+                }
             }
             Reading::Levels => {
                 let met = &state.levels[j].texts;
@@ -541,14 +631,18 @@ pub(super) fn covariate_table(
                     names.push(format!("{name}={level}"));
                     columns.push(DesignColumn::Indicator { column, code: place as u32 });
                 }
-                let pair_codes: Vec<u32> = (0..rows).map(|pair| word(pair, j) as u32).collect();
-                codes.push(pair_codes.iter().map(|&c| rank[c as usize]).collect());
+                codes.push((j, rank));
                 entered.push(CovariateReport {
                     column: name.clone(),
                     enters_as: "levels".to_string(),
                     levels: sorted.iter().map(|(_, t)| t.to_string()).collect(),
                 });
-                values.push((name.clone(), PairValues::Levels { codes: pair_codes, texts: met.clone() }));
+                if per_row {
+                    row_values.push((name.clone(), RowCovariate::Levels(Arc::new(met.clone()))));
+                } else {
+                    let pair_codes: Vec<u32> = (0..rows).map(|pair| word(pair, j) as u32).collect();
+                    values.push((name.clone(), PairValues::Levels { codes: pair_codes, texts: met.clone() }));
+                }
             }
         }
     }
@@ -557,14 +651,22 @@ pub(super) fn covariate_table(
             "the covariates' levels make {indicators} indicators, more than {MAX_LEVELS}: fit a prior per level of the largest with --by instead"
         )));
     }
-    let interleave = |columns: &[Vec<f64>]| {
-        (0..rows).flat_map(|i| columns.iter().map(move |c| c[i])).collect::<Vec<f64>>()
-    };
-    let number_width = numbers.len();
-    let code_width = codes.len();
-    let flat_numbers = interleave(&numbers);
-    let flat_codes: Vec<u32> = (0..rows).flat_map(|i| codes.iter().map(move |c| c[i])).collect();
+    let (number_width, code_width) = (numbers.len(), codes.len());
+    let mut flat_numbers = Vec::with_capacity(rows * number_width);
+    let mut flat_codes = Vec::with_capacity(rows * code_width);
+    for pair in 0..rows {
+        flat_numbers.extend(numbers.iter().map(|&(j, log)| {
+            let value = f64::from_bits(word(pair, j));
+            if log {
+                value.ln()
+            } else {
+                value
+            }
+        }));
+        flat_codes.extend(codes.iter().map(|(j, rank)| rank[word(pair, *j) as usize]));
+    }
     let design = Design::new((names, columns), rows, (flat_numbers, number_width), (flat_codes, code_width));
+    let values = if per_row { CovariateValues::PerRow(row_values) } else { CovariateValues::PerPair(values) };
     Ok(CovariateTable { pairs: pairs.pairs(), design, entered, values })
 }
 
@@ -628,8 +730,8 @@ pub(super) struct CellPriors {
     pub own: Arc<OwnPriors>,
     /// Per pair, what is known of that prior's uncertainty (with corrected intervals only).
     pub uncertainties: Vec<PriorUncertainty>,
-    /// Each covariate column's value per pair, as the output writes it.
-    pub values: Vec<(String, PairValues)>,
+    /// Each covariate column as the output writes it.
+    pub values: CovariateValues,
     /// The prior's wire form.
     pub fitted_prior: FittedPrior,
     /// How it was fitted.

@@ -8,7 +8,7 @@
 //! every row finds its own area's prior as a covariate run's rows find
 //! theirs, and the scoring after it is the covariate run's.
 
-use super::covariates::{CellPriors, CovariatePairs, CovariateState, OwnPriors};
+use super::covariates::{CellPriors, CovariatePairs, CovariateState, CovariateValues, OwnPriors};
 use super::validate::row_fault;
 use super::{Job, DEFAULT_BATCH_ROWS};
 use crate::core::model::neighbourhood::{local_priors, LocalPrior, Neighbourhoods};
@@ -25,7 +25,7 @@ use std::sync::Arc;
 /// The areas of a neighbour run and who neighbours whom among them.
 pub(super) struct AreaTable {
     /// The distinct (area, exposure, events) keys, one an area, in the order met.
-    pub pairs: Vec<WeightedPair>,
+    pub pairs: Arc<Vec<WeightedPair>>,
     /// Each pair's area number.
     area_of_pair: Vec<u32>,
     /// The neighbour relation over area numbers.
@@ -158,7 +158,7 @@ pub(super) fn neighbour_cell_priors(
     table: AreaTable,
     all: AllAreas<'_>,
     local: fn(&LocalPrior) -> Prior,
-) -> (Vec<WeightedPair>, CellPriors) {
+) -> (Arc<Vec<WeightedPair>>, CellPriors) {
     let AreaTable { pairs, area_of_pair, neighbourhoods, scored, mut report } = table;
     let areas = neighbourhoods.areas();
     let (mut events, mut exposure) = (vec![0.0; areas], vec![0.0; areas]);
@@ -174,7 +174,7 @@ pub(super) fn neighbour_cell_priors(
     let mut cells = CellPriors {
         own: Arc::new(OwnPriors::Held { priors: Vec::new(), centres: Vec::new() }),
         uncertainties: Vec::new(),
-        values: Vec::new(),
+        values: CovariateValues::PerPair(Vec::new()),
         fitted_prior: all.fitted_prior.clone(),
         fit: all.fit.clone(),
         warnings: all.warnings.to_vec(),

@@ -114,7 +114,15 @@ impl KeyKind for PairKeys {
                 let table = if job.neighbours.is_some() {
                     CellTable::Areas(area_table(job, &covariates.pairs, &covariates.state)?)
                 } else {
-                    CellTable::Covariates(covariate_table(job, &covariates.pairs, &covariates.state)?)
+                    // The output's covariate columns from the rows, and the keys let
+                    // go, unless the pair table (which writes them per pair) is asked
+                    // for or pass 2 finds rows by the index (which needs the keys).
+                    let per_row = job.pair_output.is_none() && covariates.pairs.rows_recorded();
+                    let table = covariate_table(job, &covariates.pairs, &covariates.state, per_row)?;
+                    if per_row {
+                        covariates.pairs.let_go_of_keys();
+                    }
+                    CellTable::Covariates(table)
                 };
                 let scored = score_cell_pairs(job, table, clock)?;
                 let placement = Placement {

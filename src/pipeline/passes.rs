@@ -13,7 +13,7 @@
 //!
 //! Every output is staged and renamed into place only at the end.
 
-use super::covariates::{CovariateBatch, CovariateState};
+use super::covariates::{CovariateBatch, CovariateState, CovariateValues};
 use super::driver::Source;
 use super::duplicates::{IdHashes, RepeatFinder, Repeats};
 use super::pair_keys::{
@@ -415,12 +415,18 @@ fn score_and_write(
         InvalidRows::Fail => None,
     };
     let mut seen = 0;
+    // Covariate columns written from the rows: each kept row's key, in order.
+    let row_covariates = match scored.covariates.as_ref().map(|c| &c.values) {
+        Some(CovariateValues::PerRow(columns)) => columns.as_slice(),
+        _ => &[],
+    };
     let (table, ()) = sink.write_scored_beside(|send| {
         let mut key = Vec::new();
         input.for_each_batch(|batch| {
             let view = BatchView::of(&batch, job, found.covariates.as_mut().map(|c| &mut c.state))?;
             let (mut kept, mut pair_of_row) =
                 (Vec::with_capacity(batch.rows()), Vec::with_capacity(batch.rows()));
+            let mut kept_keys = Vec::new();
             for row in 0..batch.rows() {
                 let mut outcome = view.check(job, row)?;
                 if let (false, Some(first)) =
@@ -446,6 +452,9 @@ fn score_and_write(
                         shifts.observe(pair, place, || view.group.text(row));
                         kept.push(row as u32);
                         pair_of_row.push(pair);
+                        if !row_covariates.is_empty() {
+                            kept_keys.extend_from_slice(&key);
+                        }
                     }
                     Err(r) => {
                         if let Some((_, held, _)) = &mut rejects {
@@ -456,7 +465,11 @@ fn score_and_write(
                     }
                 }
             }
-            send((vec![(job.columns.group.clone(), view.group.take(&kept))], pair_of_row))?;
+            let mut row_columns = vec![(job.columns.group.clone(), view.group.take(&kept))];
+            row_columns.extend(row_covariates.iter().enumerate().map(|(j, (name, values))| {
+                (name.clone(), values.column(&kept_keys, row_covariates.len(), j))
+            }));
+            send((row_columns, pair_of_row))?;
             if let Some((rejects_sink, held, wrote)) = &mut rejects {
                 if !held.is_empty() {
                     rejects_sink.write(held.take_columns(&job.columns))?;

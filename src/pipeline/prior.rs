@@ -9,7 +9,9 @@
 //! boundary (no overdispersion) is a result, not a fallback. A likelihood-
 //! ratio test says whether one prior per segment fits better than one for all.
 
-use super::covariates::{cell_priors, saved_cell_priors, CellPriors, CovariateTable, OwnPriors, PlainFit};
+use super::covariates::{
+    cell_priors, saved_cell_priors, CellPriors, CovariateTable, CovariateValues, OwnPriors, PlainFit,
+};
 use super::neighbours::{neighbour_cell_priors, AllAreas, AreaTable};
 use super::segments::{segment_likelihood_ratio, SegmentKey, SegmentPairs};
 use super::{
@@ -31,7 +33,6 @@ use crate::core::ranking::{
     RankOrder, TopMethod,
 };
 use crate::error::{Error, Result};
-use crate::io::sink::PairValues;
 use crate::summary::{
     CalibrationReport, ChecksReport, FitReport, FittedPrior, FittedPriorParts, FreePriorReport,
     NeighbourhoodReport, SegmentTest, ShapeComparison, TestReport, VarianceReport,
@@ -105,8 +106,8 @@ pub struct Scored {
 /// values and its centre (with `--neighbours`, its neighbourhood's rate
 /// and its number of neighbours).
 pub struct CovariateScore {
-    /// Each covariate column's value per pair, in the order given.
-    pub values: Vec<(String, PairValues)>,
+    /// Each covariate column as the output writes it, in the order given.
+    pub values: CovariateValues,
     /// Per pair, its prior and that prior's centre (the rate it is pulled toward).
     pub own: Arc<OwnPriors>,
     /// With `--neighbours`: per pair (an area), its number of neighbours.
@@ -574,8 +575,8 @@ impl PairPlaces {
     }
 
     /// The pairs of a run where each pair has a prior of its own.
-    fn own(pairs: Vec<WeightedPair>) -> Self {
-        PairPlaces { pairs: Arc::new(pairs), place_of_pair: None, ranges: Vec::new() }
+    fn own(pairs: Arc<Vec<WeightedPair>>) -> Self {
+        PairPlaces { pairs, place_of_pair: None, ranges: Vec::new() }
     }
 
     /// The place of pair i.

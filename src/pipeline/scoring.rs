@@ -88,7 +88,7 @@ pub fn pair_columns(job: &Job, scored: &Scored) -> Result<PairColumns> {
     let segment_values = segment_pair_values(&samples, &scored.segment_of_pair())?;
     let mut columns: PairColumns = job.segments.iter().cloned().zip(segment_values).collect();
     if let Some(covariates) = &scored.covariates {
-        columns.extend(covariates.values.iter().cloned());
+        columns.extend(covariates.values.per_pair().iter().cloned());
     }
     columns.extend([
         (job.columns.count.clone(), counts),

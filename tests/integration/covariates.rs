@@ -588,3 +588,40 @@ fn a_repeated_id_is_left_out_whether_pass_2_finds_rows_by_their_record_or_by_the
         assert_eq!(std::fs::read(dir.path().join("out.csv")).unwrap(), clean, "{covariates}");
     }
 }
+
+#[test]
+fn covariate_columns_written_from_the_rows_are_those_written_per_pair() {
+    // Without a pair table the output's covariate columns come from each row as
+    // pass 2 reads it (the keys let go); with one, from each pair's key. The
+    // two Parquet tables hold the same schema and values, with a number
+    // column (one of its values −0), a level column and a logged one of
+    // whole numbers.
+    use arrow_array::RecordBatch;
+    use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+    let dir = tempfile::tempdir().unwrap();
+    let rows = "seller,good,rated,tenure,kind,floor\n\
+        a,8,10,1,x,40\nb,3,9,0.5,y,12\nc,12,20,-0,x,80\nd,1,6,0.2,y,9\n\
+        e,30,40,4.5,z,150\nf,7,12,2,z,35\ng,5,5,2.5,x,20\nh,2,8,0.7,y,14\n";
+    write(dir.path(), "in.csv", rows);
+    let read = |name: &str| -> Vec<RecordBatch> {
+        let file = std::fs::File::open(dir.path().join(name)).unwrap();
+        ParquetRecordBatchReaderBuilder::try_new(file).unwrap().build().unwrap().map(Result::unwrap).collect()
+    };
+    let mut tables = Vec::new();
+    for extra in [&[][..], &["--pair-output", "pairs.parquet"][..]] {
+        let mut args = seller_args(&["--covariates", "tenure,kind", "--covariates-log", "floor"]);
+        let at = args.iter().position(|a| *a == "out.csv").unwrap();
+        args[at] = "out.parquet";
+        args.extend(extra);
+        let out = ratepool(dir.path(), &args);
+        assert!(out.status.success(), "{}", stderr(&out));
+        tables.push(read("out.parquet"));
+    }
+    assert_eq!(tables[0], tables[1]);
+    let schema = tables[0][0].schema();
+    let names: Vec<&str> = schema.fields().iter().map(|f| f.name().as_str()).collect();
+    assert_eq!(&names[..6], ["seller", "tenure", "kind", "floor", "good", "rated"]);
+    assert!(schema.fields().iter().take(6).all(|f| !f.is_nullable()));
+    let types: Vec<String> = schema.fields().iter().take(4).map(|f| f.data_type().to_string()).collect();
+    assert_eq!(types, ["Utf8", "Float64", "Utf8", "Int64"]);
+}
