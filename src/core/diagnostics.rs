@@ -59,38 +59,50 @@ pub fn weighted_quantile(sorted: &[(f64, f64)], q: f64) -> f64 {
 }
 
 /// Average ranks (1-based, ties sharing their mean rank) of values that each
-/// stand for `weight` equal observations.
-pub fn weighted_average_ranks(values: &[f64], weights: &[f64]) -> Vec<f64> {
+/// stand for `weight` equal observations, written in the values' place.
+pub fn weighted_average_ranks(values: Vec<f64>, weights: &[f64]) -> Vec<f64> {
     // Unstable: tied values share one rank whatever their order (the ties'
     // weights are summed in that order, which for whole-number weights is exact).
     // Places as 32-bit numbers (half the room of a usize) where they fit.
     match u32::try_from(values.len()) {
-        Ok(_) => ranks_in_order(values, weights, (0..values.len() as u32).collect()),
-        Err(_) => ranks_in_order(values, weights, (0..values.len()).collect()),
+        Ok(_) => {
+            let order = (0..values.len() as u32).collect();
+            ranks_in_order(values, weights, order)
+        }
+        Err(_) => {
+            let order = (0..values.len()).collect();
+            ranks_in_order(values, weights, order)
+        }
     }
 }
 
-/// [`weighted_average_ranks`] with the values' places, of type `P`.
-fn ranks_in_order<P: Copy + TryInto<usize>>(values: &[f64], weights: &[f64], mut order: Vec<P>) -> Vec<f64> {
+/// [`weighted_average_ranks`] with the values' places, of type `P`. The
+/// ranks are written over the values: a tie's values are all read before
+/// any of its ranks is written, and each place is written once.
+fn ranks_in_order<P: Copy + TryInto<usize>>(
+    mut values: Vec<f64>,
+    weights: &[f64],
+    mut order: Vec<P>,
+) -> Vec<f64> {
     let at = |p: P| p.try_into().unwrap_or_else(|_| unreachable!("a place within the values"));
     order.sort_unstable_by(|&a, &b| values[at(a)].total_cmp(&values[at(b)]));
-    let mut ranks = vec![0.0; values.len()];
     let (mut start, mut below) = (0, 0.0);
     while start < order.len() {
         let mut end = start;
         let mut tied = 0.0;
-        while end < order.len() && values[at(order[end])] == values[at(order[start])] {
+        let value = values[at(order[start])];
+        while end < order.len() && values[at(order[end])] == value {
             tied += weights[at(order[end])];
             end += 1;
         }
         let rank = below + (tied + 1.0) / 2.0;
         for &i in &order[start..end] {
-            ranks[at(i)] = rank;
+            values[at(i)] = rank;
         }
         below += tied;
         start = end;
     }
-    ranks
+    values
 }
 
 /// Weighted Pearson correlation; None when either side has no spread.
@@ -109,16 +121,15 @@ fn weighted_pearson(x: &[f64], y: &[f64], w: &[f64]) -> Option<f64> {
 
 /// Spearman's rank correlation (Pearson correlation of average ranks) of
 /// paired values that each stand for `weight` groups. The values are taken
-/// over and each side is freed once ranked, so at most three tables of
-/// them are held at once (the pull summary's are a pair's worth each).
+/// over and ranked where they stand, so nothing but the two sides, the
+/// weights and one side's sort order is held (the pull summary's are a
+/// pair's worth each).
 pub fn weighted_spearman(x: Vec<f64>, y: Vec<f64>, weights: &[f64]) -> Option<f64> {
     if weights.iter().sum::<f64>() < 2.0 {
         return None;
     }
-    let x_ranks = weighted_average_ranks(&x, weights);
-    drop(x);
-    let y_ranks = weighted_average_ranks(&y, weights);
-    drop(y);
+    let x_ranks = weighted_average_ranks(x, weights);
+    let y_ranks = weighted_average_ranks(y, weights);
     weighted_pearson(&x_ranks, &y_ranks, weights)
 }
 
@@ -207,9 +218,9 @@ mod tests {
 
     #[test]
     fn ties_share_their_average_rank() {
-        assert_eq!(weighted_average_ranks(&[3.0, 1.0, 3.0, 2.0], &unit(4)), vec![3.5, 1.0, 3.5, 2.0]);
+        assert_eq!(weighted_average_ranks(vec![3.0, 1.0, 3.0, 2.0], &unit(4)), vec![3.5, 1.0, 3.5, 2.0]);
         // A value standing for 3 observations occupies ranks 1..3.
-        assert_eq!(weighted_average_ranks(&[5.0, 1.0], &[1.0, 3.0]), vec![4.0, 2.0]);
+        assert_eq!(weighted_average_ranks(vec![5.0, 1.0], &[1.0, 3.0]), vec![4.0, 2.0]);
     }
 
     #[test]

@@ -30,8 +30,9 @@ use crate::summary::{
     SegmentTest,
 };
 use arrow_array::ArrayRef;
+use hashbrown::HashTable;
 use std::collections::HashMap;
-use std::hash::{BuildHasherDefault, Hasher};
+use std::hash::Hasher;
 use std::sync::Arc;
 
 /// The most indicators the levels of all covariates may make: beyond it a
@@ -289,10 +290,8 @@ pub(super) struct CovariatePairs {
     keys: Arc<Vec<u64>>,
     /// Each pair's size, count and groups. Shared with the scored table.
     pairs: Arc<Vec<WeightedPair>>,
-    /// By a key's hash: its pair (the first met with that hash).
-    index: HashMap<u64, u32, BuildHasherDefault<PairHasher>>,
-    /// Further pairs whose key shares a hash with an earlier one.
-    shared: HashMap<u64, Vec<u32>, BuildHasherDefault<PairHasher>>,
+    /// Each pair, with the 32 bits of its key's hash it is found by.
+    index: HashTable<(u32, u32)>,
     /// When recorded (rows read one per group): each input row's pair
     /// (`NO_PAIR` for a row not counted), so that pass 2 can find a row's
     /// pair by its number and the index can go once pass 1 is done.
@@ -314,9 +313,16 @@ fn hash_of(covariates: &[u64], [size, count]: [u64; 2]) -> u64 {
     hasher.finish()
 }
 
-/// The 32 bits of a key's hash a pair keeps once its key is let go.
+/// The 32 bits of a key's hash a pair is found by in the index, and keeps
+/// once its key is let go.
 fn fingerprint(hash: u64) -> u32 {
     (hash >> 32) as u32
+}
+
+/// Where the index places a pair: its 32 bits spread over 64 (the table
+/// takes its slot from the low bits and its tag from the top seven).
+fn slot_hash(held: u32) -> u64 {
+    u64::from(held).wrapping_mul(0x9E37_79B9_7F4A_7C15)
 }
 
 /// A size's or count's bits, −0 and 0 one value.
@@ -330,8 +336,7 @@ impl CovariatePairs {
             width: covariates,
             keys: Arc::default(),
             pairs: Arc::default(),
-            index: HashMap::default(),
-            shared: HashMap::default(),
+            index: HashTable::new(),
             rows: None,
             fingerprints: None,
         }
@@ -396,25 +401,23 @@ impl CovariatePairs {
         }
     }
 
-    fn find_hashed(&self, hash: u64, covariates: &[u64], bits: [u64; 2]) -> Option<u32> {
-        let first = *self.index.get(&hash)?;
-        if self.is_key(first, covariates, bits) {
-            return Some(first);
-        }
-        self.shared.get(&hash)?.iter().copied().find(|&pair| self.is_key(pair, covariates, bits))
+    fn find_hashed(&self, held: u32, covariates: &[u64], bits: [u64; 2]) -> Option<u32> {
+        let is_key =
+            |&(pair, bits_held): &(u32, u32)| bits_held == held && self.is_key(pair, covariates, bits);
+        self.index.find(slot_hash(held), is_key).map(|&(pair, _)| pair)
     }
 
     /// The pair of a row, if met.
     pub(super) fn find(&self, covariates: &[u64], size: f64, count: f64) -> Option<u32> {
         let bits = bits_of(size, count);
-        self.find_hashed(hash_of(covariates, bits), covariates, bits)
+        self.find_hashed(fingerprint(hash_of(covariates, bits)), covariates, bits)
     }
 
     /// Adds `weight` groups to a row's pair, numbering it if new; returns its number.
     pub(super) fn add(&mut self, covariates: &[u64], size: f64, count: f64, weight: f64) -> u32 {
         let bits = bits_of(size, count);
-        let hash = hash_of(covariates, bits);
-        if let Some(pair) = self.find_hashed(hash, covariates, bits) {
+        let held = fingerprint(hash_of(covariates, bits));
+        if let Some(pair) = self.find_hashed(held, covariates, bits) {
             Arc::make_mut(&mut self.pairs)[pair as usize].weight += weight;
             return pair;
         }
@@ -425,12 +428,7 @@ impl CovariatePairs {
             count: f64::from_bits(bits[1]),
             weight,
         });
-        match self.index.entry(hash) {
-            std::collections::hash_map::Entry::Vacant(slot) => {
-                slot.insert(pair);
-            }
-            std::collections::hash_map::Entry::Occupied(_) => self.shared.entry(hash).or_default().push(pair),
-        }
+        self.index.insert_unique(slot_hash(held), (pair, held), |&(_, held)| slot_hash(held));
         pair
     }
 
@@ -470,14 +468,14 @@ impl CovariatePairs {
         Arc::make_mut(&mut self.keys).shrink_to_fit();
         Arc::make_mut(&mut self.pairs).shrink_to_fit();
         // Pass 2 finds a row's pair by the index or by the rows' record:
-        // the smaller is kept (an index entry takes about 28 bytes a pair,
-        // the record 4 bytes a row).
-        let pairs = self.len();
+        // the smaller is kept (the index about 10 bytes a pair it has room
+        // for: 8, a control byte, and at most 7/8 of its slots full; the
+        // record 4 bytes a row).
+        let room = self.index.capacity();
         if let Some(rows) = &mut self.rows {
-            if rows.len() * 4 < pairs * 28 {
+            if rows.len() * 4 < room * 10 {
                 rows.shrink_to_fit();
-                self.index = HashMap::default();
-                self.shared = HashMap::default();
+                self.index = HashTable::new();
             } else {
                 self.rows = None;
             }
