@@ -934,3 +934,52 @@ fn describe_failure(design: &Design, failure: RegressionFailure) -> String {
         RegressionFailure::NotConverged => "Newton's method did not converge for the covariate prior; please report this with the input".to_string(),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Keys of two covariate words: a number's bits and a level code.
+    fn key(i: u64) -> [u64; 2] {
+        [(i as f64 * 0.25).to_bits(), i % 5]
+    }
+
+    #[test]
+    fn the_index_counts_each_key_once_and_finds_it_again() {
+        let mut pairs = CovariatePairs::new(2);
+        // 3,000 keys, each met three times (with −0 and 0 as one size), in a shuffled order.
+        let order: Vec<u64> = (0..9_000u64).map(|i| (i * 7_919) % 9_000).collect();
+        for &i in &order {
+            let size = if i % 3 == 0 { -0.0 } else { 0.0 };
+            pairs.add(&key(i / 3), size, (i / 3 % 11) as f64, 1.0);
+        }
+        assert_eq!(pairs.len(), 3_000);
+        assert!(pairs.pairs().iter().all(|p| p.weight == 3.0 && p.size.to_bits() == 0));
+        for k in 0..3_000 {
+            let pair = pairs.find(&key(k), 0.0, (k % 11) as f64).expect("met");
+            assert_eq!(&pairs.keys[pair as usize * 2..pair as usize * 2 + 2], &key(k));
+            assert_eq!(pairs.find(&key(k), 0.0, (k % 11 + 1) as f64), None, "another count");
+        }
+    }
+
+    #[test]
+    fn once_the_keys_are_let_go_a_row_is_checked_by_its_fingerprint() {
+        let mut pairs = CovariatePairs::new(2);
+        pairs.record_rows();
+        for row in 0..100u64 {
+            pairs.add_row(row as usize, &key(row), 10.0, (row % 4) as f64);
+        }
+        pairs.compact();
+        assert!(pairs.rows_recorded(), "one row a pair: the record is the smaller");
+        pairs.let_go_of_keys();
+        assert!(pairs.keys.is_empty());
+        for row in 0..100u64 {
+            let count = (row % 4) as f64;
+            assert_eq!(pairs.find_row(row as usize, &key(row), 10.0, count), Some(row as u32));
+            // A row whose covariates, size or count changed since pass 1 is not found.
+            assert_eq!(pairs.find_row(row as usize, &key(row + 1), 10.0, count), None);
+            assert_eq!(pairs.find_row(row as usize, &key(row), 11.0, count), None);
+            assert_eq!(pairs.find_row(row as usize, &key(row), 10.0, count + 1.0), None);
+        }
+    }
+}
