@@ -115,10 +115,11 @@ pub struct CovariateScore {
 }
 
 /// Each pair's posterior, in the order of [`Scored::pairs`]: held whole,
-/// or, where each pair has a prior of its own (covariates, neighbours) and
-/// the intervals are plug-in, held as its interval's ends alone (16 bytes a
-/// pair instead of 64) and made again from its prior and pair when asked,
-/// with the same bits ([`Family::posterior_with_ends`]).
+/// or, where the intervals are plug-in and each pair has a prior of its
+/// own (covariates, neighbours) or all share one parametric prior, held as
+/// its interval's ends alone (16 bytes a pair instead of 64) and made again
+/// from its prior and pair when asked, with the same bits
+/// ([`Family::posterior_with_ends`]).
 pub enum PairPosteriors {
     /// Held whole.
     Held(Vec<Posterior>),
@@ -129,10 +130,27 @@ pub enum PairPosteriors {
         /// The pairs.
         pairs: Arc<Vec<WeightedPair>>,
         /// Their priors.
-        priors: Arc<OwnPriors>,
+        priors: EndsPriors,
         /// The family's [`Family::posterior_with_ends`].
         with_ends: fn(&Prior, f64, f64, [f64; 2]) -> Posterior,
     },
+}
+
+/// The priors of the pairs whose posteriors are held as their ends.
+pub enum EndsPriors {
+    /// Each pair's own.
+    Own(Arc<OwnPriors>),
+    /// One for all.
+    One(Prior),
+}
+
+impl EndsPriors {
+    fn prior(&self, i: usize) -> Prior {
+        match self {
+            EndsPriors::Own(own) => own.prior(i),
+            EndsPriors::One(prior) => *prior,
+        }
+    }
 }
 
 impl PairPosteriors {
@@ -831,20 +849,21 @@ impl TableFacts {
 fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces) -> PairPosteriors {
     let tail = job.level.tail();
     let of_pair = priors.of_pairs(places);
-    if let (Some(cells), Intervals::PlugIn) = (&priors.covariates, job.intervals) {
-        // Each pair its own prior: the ends alone are held.
+    let ends_priors = match (&priors.covariates, job.intervals, &priors.priors[..]) {
+        (Some(cells), Intervals::PlugIn, _) => Some(EndsPriors::Own(Arc::clone(&cells.own))),
+        (None, Intervals::PlugIn, [ShapedPrior::Parametric(prior)]) => Some(EndsPriors::One(*prior)),
+        _ => None,
+    };
+    if let Some(ends_priors) = ends_priors {
+        // The ends alone are held.
         let ends = (places.pairs.par_iter().enumerate())
             .map(|(i, p)| {
-                let posterior = F::posterior(&cells.own.prior(i), p.size, p.count, tail);
+                let posterior = F::posterior(&ends_priors.prior(i), p.size, p.count, tail);
                 [posterior.lower, posterior.upper]
             })
             .collect();
-        return PairPosteriors::Ends {
-            ends,
-            pairs: Arc::clone(&places.pairs),
-            priors: Arc::clone(&cells.own),
-            with_ends: F::posterior_with_ends,
-        };
+        let pairs = Arc::clone(&places.pairs);
+        return PairPosteriors::Ends { ends, pairs, priors: ends_priors, with_ends: F::posterior_with_ends };
     }
     let held = (places.pairs.par_iter().enumerate())
         .map(|(i, p)| {
