@@ -286,7 +286,8 @@ pub(super) struct CovariatePairs {
     /// Words per key: the covariates.
     width: usize,
     /// Each pair's covariate words. Shared with the output's covariate
-    /// columns, which read their values from it.
+    /// columns where those are written per pair; let go once the design is
+    /// made where they are written from the rows.
     keys: Arc<Vec<u64>>,
     /// Each pair's size, count and groups. Shared with the scored table.
     pairs: Arc<Vec<WeightedPair>>,
