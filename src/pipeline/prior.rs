@@ -781,12 +781,12 @@ impl PriorsInUse {
         }
     }
 
-    /// The spread of the prior of pair i (at `place`) for corrected
+    /// The spread of `prior`, the prior at `place`, for corrected
     /// intervals (None for plug-in ones).
-    fn spread<F: Family>(&self, job: &Job, i: usize, place: usize) -> Option<Cow<'_, Uncertainty>> {
+    fn spread<F: Family>(&self, job: &Job, place: usize, prior: &Prior) -> Option<Cow<'_, Uncertainty>> {
         match &self.covariates {
             Some(cells) => (job.intervals == Intervals::Corrected)
-                .then(|| Cow::Owned(Uncertainty::of::<F>(&cells.own.prior(i), cells.uncertainties[i], None))),
+                .then(|| Cow::Owned(Uncertainty::of::<F>(prior, cells.uncertainties[place], None))),
             None => self.spreads[place].as_ref().map(Cow::Borrowed),
         }
     }
@@ -868,9 +868,9 @@ fn posteriors_of<F: Family>(job: &Job, priors: &PriorsInUse, places: &PairPlaces
     let held = (places.pairs.par_iter().enumerate())
         .map(|(i, p)| {
             let prior = of_pair.get(i);
-            match (priors.spread::<F>(job, i, places.place(i)), prior.parametric()) {
-                (Some(uncertainty), Some(prior)) => {
-                    corrected_posterior::<F>(prior, &uncertainty, p.size, p.count, tail)
+            match prior.parametric().map(|own| (own, priors.spread::<F>(job, places.place(i), own))) {
+                Some((own, Some(uncertainty))) => {
+                    corrected_posterior::<F>(own, &uncertainty, p.size, p.count, tail)
                 }
                 _ => prior.posterior::<F>(p.size, p.count, tail),
             }
@@ -899,9 +899,9 @@ fn decisions_of<F: Family>(
         (places.pairs.par_iter().enumerate())
             .map(|(i, p)| {
                 let prior = of_pair.get(i);
-                match (priors.spread::<F>(job, i, places.place(i)), prior.parametric()) {
-                    (Some(uncertainty), Some(prior)) => {
-                        corrected_tails::<F>(prior, &uncertainty, p.size, p.count, threshold)
+                match prior.parametric().map(|own| (own, priors.spread::<F>(job, places.place(i), own))) {
+                    Some((own, Some(uncertainty))) => {
+                        corrected_tails::<F>(own, &uncertainty, p.size, p.count, threshold)
                     }
                     _ => prior.rate_tails::<F>(p.size, p.count, threshold),
                 }
